@@ -1,0 +1,7 @@
+"""Allow ``python -m routerisk``."""
+
+import sys
+
+from .cli import main
+
+sys.exit(main())

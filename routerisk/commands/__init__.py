@@ -1,0 +1,1 @@
+"""Sub-commands of the ``routerisk`` command line, one module each."""
