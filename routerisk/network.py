@@ -1,0 +1,267 @@
+"""The saved network folder: the tagged road graph that every later command reads.
+
+A folder holds ``network.gpkg`` (layers ``edges``, ``nodes``, ``sources``, ``crossings``;
+any GIS opens it), ``profile.yaml`` (the profile used) and ``meta.json`` (format version,
+tool version, profile fingerprint, input checksum, CRS, time zone), written last. The folder
+is assembled under a hidden temporary name and moved into place only when complete.
+"""
+
+from __future__ import annotations
+
+import json
+import logging
+from dataclasses import dataclass, field
+from functools import cached_property
+from pathlib import Path
+from typing import Any
+from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
+
+import geopandas as gpd
+import networkx as nx
+import numpy as np
+import osmnx as ox
+import pandas as pd
+import pyogrio
+import yaml
+
+from . import __version__, loader, sources, tagging
+from ._io import atomic_directory, dumps_json, sha256_file
+from ._osm import read_osm
+from .errors import NetworkFolderError, OptionError, ProfileError
+from .profile import Profile, load_profile, parse_profile
+
+log = logging.getLogger(__name__)
+
+FORMAT_VERSION = 1
+GPKG = "network.gpkg"
+META = "meta.json"
+PROFILE = "profile.yaml"
+EDGE_KEEP = ("u", "v", "key", "osmid", "highway", "name", "lanes", "oneway", "sidewalk",
+             "maxspeed_raw", "hazard", "length", "speed_kph", "travel_time", "geometry")
+
+
+def check_timezone(name: str) -> str:
+    """Return ``name`` if it is a known IANA time zone, else raise OptionError."""
+    try:
+        ZoneInfo(name)
+    except (ZoneInfoNotFoundError, ValueError) as exc:
+        raise OptionError(f"unknown time zone {name!r} (use an IANA name such as "
+                          "'Etc/GMT+3' or 'UTC')", field="--timezone") from exc
+    return name
+
+
+@dataclass
+class Network:
+    """A tagged road network: edges, nodes, sources and crossings, with its profile."""
+
+    edges: gpd.GeoDataFrame  # MultiIndex (u, v, key)
+    nodes: gpd.GeoDataFrame  # index osmid
+    sources: gpd.GeoDataFrame
+    crossings: gpd.GeoDataFrame
+    profile: Profile
+    meta: dict[str, Any] = field(default_factory=dict)
+
+    @property
+    def crs(self) -> Any:
+        """Return the projected CRS of the network."""
+        return self.edges.crs
+
+    @property
+    def timezone(self) -> ZoneInfo:
+        """Return the area's local time zone (a network setting)."""
+        return ZoneInfo(self.meta.get("timezone", "UTC"))
+
+    @cached_property
+    def graph(self) -> nx.MultiDiGraph:
+        """Return the tagged graph (osmnx conventions), built on first use."""
+        G = ox.convert.graph_from_gdfs(self.nodes, self.edges, graph_attrs={
+            "crs": self.edges.crs.to_string()})
+        return G
+
+    @property
+    def length_km(self) -> float:
+        """Return the total directed edge length in km."""
+        return float(self.edges["length"].sum() / 1000.0)
+
+    def summary(self) -> dict[str, Any]:
+        """Return the counts printed by ``routerisk build --json``."""
+        counts = self.sources["category"].value_counts()
+        return {
+            "nodes": int(len(self.nodes)),
+            "edges": int(len(self.edges)),
+            "length_km": round(self.length_km, 3),
+            "sources": {c: int(counts.get(c, 0)) for c in self.profile.category_names},
+            "crossings": int(len(self.crossings)),
+            "profile": self.profile.fingerprint,
+        }
+
+    def retag(self, profile: Profile) -> Network:
+        """Return this network tagged with another profile (same categories and selectors)."""
+        if profile.fingerprint == self.profile.fingerprint:
+            return self
+        old = {c.name: c.selectors for c in self.profile.categories}
+        for c in profile.categories:
+            if old.get(c.name) != c.selectors:
+                raise ProfileError(
+                    f"category {c.name!r} selects other OSM objects than the network was "
+                    "built with; rebuild the network with this profile",
+                    path=profile.source, field=f"categories.{c.name}.select")
+        base = self.edges[[c for c in self.edges.columns if c in EDGE_KEEP]]
+        edges = tagging.tag_edges(base, self.sources, self.crossings, profile,
+                                  polygons=_rule_polygons(profile))
+        return Network(edges, self.nodes, self.sources, self.crossings, profile,
+                       {**self.meta, "profile": profile.fingerprint})
+
+
+def _rule_polygons(profile: Profile) -> dict[str, gpd.GeoSeries]:
+    from .errors import InputFileError
+
+    out = {}
+    for rule in profile.rules:
+        if rule.polygons_file is None:
+            continue
+        try:
+            gdf = gpd.read_file(rule.polygons_file)
+        except Exception as exc:  # noqa: BLE001 - pyogrio raises several kinds
+            raise InputFileError(f"cannot read rule polygons ({exc})",
+                                 path=rule.polygons_file, field=f"rules.{rule.name}") from exc
+        if gdf.crs is None:
+            gdf = gdf.set_crs("EPSG:4326")
+        out[rule.name] = gdf.geometry
+    return out
+
+
+def build_network(
+    source: str | Path,
+    *,
+    profile: Profile | None = None,
+    timezone: str = "UTC",
+    largest_component: bool = True,
+) -> Network:
+    """Read an OSM file, build the road graph, extract sources and tag every edge."""
+    profile = profile or load_profile()
+    check_timezone(timezone)
+    raw = read_osm(source, feature_filter=sources.feature_filter(profile))
+    G = loader.graph_from_raw(raw, largest_component=largest_component)
+    crs = G.graph["crs"]
+    nodes, edges = ox.convert.graph_to_gdfs(G)
+    edges = edges[[c for c in edges.columns if c in EDGE_KEEP]]
+    src = sources.sources_from_raw(raw, profile, crs=crs)
+    cross = sources.crossings_from_raw(raw, crs=crs)
+    tagged = tagging.tag_edges(edges, src, cross, profile, polygons=_rule_polygons(profile))
+    meta = {
+        "format_version": FORMAT_VERSION,
+        "routerisk_version": __version__,
+        "profile": profile.fingerprint,
+        "source_name": Path(source).name,
+        "source_sha256": sha256_file(source),
+        "source_timestamp": raw.timestamp,
+        "missing_node_refs": raw.missing_refs,
+        "crs": crs,
+        "timezone": timezone,
+        "data_licence": "OpenStreetMap data: ODbL 1.0 (c) OpenStreetMap contributors, "
+                        "unless the source file says otherwise",
+    }
+    nodes = nodes[[c for c in ("x", "y", "lon", "lat", "street_count", "geometry")
+                   if c in nodes.columns]]
+    return Network(tagged, nodes, src, cross, profile, meta)
+
+
+def _clean_for_gpkg(df: gpd.GeoDataFrame) -> gpd.GeoDataFrame:
+    out = df.copy()
+    for col in out.columns:
+        if col == "geometry":
+            continue
+        if out[col].dtype == object:
+            out[col] = out[col].map(lambda v: "" if v is None or (isinstance(v, float)
+                                                                   and np.isnan(v)) else str(v))
+    return out
+
+
+def save_network(net: Network, out: str | Path, *, force: bool = False) -> Path:
+    """Write the network folder atomically; return its path."""
+    with atomic_directory(out, force=force) as tmp:
+        gpkg = tmp / GPKG
+        edges = _clean_for_gpkg(net.edges.reset_index())
+        edges["lanes"] = edges["lanes"].astype("float64") if "lanes" in edges else np.nan
+        pyogrio.write_dataframe(edges, gpkg, layer="edges")
+        pyogrio.write_dataframe(_clean_for_gpkg(net.nodes.reset_index()), gpkg, layer="nodes")
+        if len(net.sources):
+            pyogrio.write_dataframe(_clean_for_gpkg(net.sources), gpkg, layer="sources",
+                                    promote_to_multi=False)
+        if len(net.crossings):
+            pyogrio.write_dataframe(_clean_for_gpkg(net.crossings), gpkg, layer="crossings")
+        (tmp / PROFILE).write_text(yaml.safe_dump(_profile_doc(net.profile), sort_keys=False),
+                                   encoding="utf-8")
+        meta = {**net.meta, "complete": True, "gpkg_sha256": sha256_file(gpkg),
+                "summary": net.summary()}
+        (tmp / META).write_text(dumps_json(meta) + "\n", encoding="utf-8")
+    return Path(out)
+
+
+def _profile_doc(profile: Profile) -> Any:
+    src = Path(profile.source) if profile.source else None
+    if src is not None and src.is_file():
+        return yaml.safe_load(src.read_text(encoding="utf-8"))
+    raise ProfileError("profile has no readable source file", path=profile.source)
+
+
+def load_network(folder: str | Path, *, profile: Profile | None = None,
+                 verify: bool = True) -> Network:
+    """Read a network folder written by :func:`save_network`.
+
+    Refuses a folder that is missing, incomplete, of another format version, or whose
+    files do not match the checksums it records.
+    """
+    d = Path(folder)
+    if not d.is_dir():
+        raise NetworkFolderError("network folder not found (run 'routerisk build' first)",
+                                 path=d)
+    meta_path = d / META
+    if not meta_path.is_file():
+        raise NetworkFolderError("incomplete network folder: meta.json missing", path=d)
+    try:
+        meta = json.loads(meta_path.read_text(encoding="utf-8"))
+    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+        raise NetworkFolderError("meta.json is not valid JSON", path=meta_path) from exc
+    if not isinstance(meta, dict) or meta.get("complete") is not True:
+        raise NetworkFolderError("incomplete network folder", path=meta_path, field="complete")
+    if meta.get("format_version") != FORMAT_VERSION:
+        raise NetworkFolderError(
+            f"network format {meta.get('format_version')!r}, this tool reads "
+            f"{FORMAT_VERSION}; rebuild it", path=meta_path, field="format_version")
+    gpkg = d / GPKG
+    if not gpkg.is_file():
+        raise NetworkFolderError("network.gpkg missing", path=d)
+    if verify and sha256_file(gpkg) != meta.get("gpkg_sha256"):
+        raise NetworkFolderError("network.gpkg does not match its checksum; rebuild",
+                                 path=gpkg, field="gpkg_sha256")
+    try:
+        layers = {name for name, _ in pyogrio.list_layers(gpkg)}
+        edges = pyogrio.read_dataframe(gpkg, layer="edges")
+        nodes = pyogrio.read_dataframe(gpkg, layer="nodes")
+        src = (pyogrio.read_dataframe(gpkg, layer="sources") if "sources" in layers else
+               gpd.GeoDataFrame(columns=sources.COLUMNS, geometry="geometry", crs=edges.crs))
+        cross = (pyogrio.read_dataframe(gpkg, layer="crossings") if "crossings" in layers else
+                 gpd.GeoDataFrame({"osmid": [], "crossing": []}, geometry=[], crs=edges.crs))
+    except Exception as exc:  # noqa: BLE001 - GDAL errors of many kinds
+        raise NetworkFolderError(f"cannot read network.gpkg ({exc})", path=gpkg) from exc
+    saved_profile = parse_profile(yaml.safe_load((d / PROFILE).read_text(encoding="utf-8")),
+                                  path=d / PROFILE)
+    edges = edges.set_index(["u", "v", "key"])
+    edges["lanes"] = edges["lanes"].astype("float64") if "lanes" in edges else np.nan
+    if "oneway" in edges:
+        edges["oneway"] = edges["oneway"].astype(bool)
+    nodes = nodes.set_index("osmid")
+    net = Network(edges, nodes, src, cross, saved_profile, meta)
+    if saved_profile.fingerprint != meta.get("profile"):
+        # A profile with polygon files hashes them too; the copy sits elsewhere, so recompute.
+        log.debug("saved profile fingerprint differs from meta; using meta's record")
+    if profile is not None:
+        net = net.retag(profile)
+    return net
+
+
+def edge_frame(net: Network) -> pd.DataFrame:
+    """Return the edges without geometry, for fast numeric work."""
+    return pd.DataFrame(net.edges.drop(columns="geometry"))
