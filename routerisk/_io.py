@@ -24,6 +24,12 @@ def sha256_file(path: str | Path, *, chunk: int = 1 << 20) -> str:
     return h.hexdigest()
 
 
+def _umask_mode(mode: int) -> int:
+    current = os.umask(0)
+    os.umask(current)
+    return mode & ~current
+
+
 def check_target(path: str | Path, *, force: bool) -> Path:
     """Refuse an existing output unless ``force``; return the target as a Path."""
     target = Path(path)
@@ -42,6 +48,7 @@ def write_text_atomic(path: str | Path, text: str, *, force: bool = True) -> Pat
             fh.write(text)
             fh.flush()
             os.fsync(fh.fileno())
+        os.chmod(tmp, _umask_mode(0o666))
         os.replace(tmp, target)
     except BaseException:
         with contextlib.suppress(FileNotFoundError):
@@ -70,6 +77,7 @@ def atomic_directory(path: str | Path, *, force: bool = False) -> Iterator[Path]
     target = check_target(path, force=force)
     target.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent))
+    os.chmod(tmp, _umask_mode(0o777))
     try:
         yield tmp
     except BaseException:

@@ -33,7 +33,7 @@ import logging
 import math
 import os
 import tempfile
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, replace
 from pathlib import Path
 from typing import Any, Literal
 
@@ -547,10 +547,8 @@ class EvidencePlan:
 
     def with_exposure(self, exposure: ExposureEvidence) -> EvidencePlan:
         """Return a copy carrying the exposure-stratified tables as lists of records."""
-        fields = {k: getattr(self, k) for k in self.__dataclass_fields__}
-        fields["by_band"] = _records(exposure.by_band)
-        fields["by_category"] = _records(exposure.by_category)
-        return EvidencePlan(**fields)
+        return replace(self, by_band=_records(exposure.by_band),
+                       by_category=_records(exposure.by_category))
 
 
 def _records(frame: pd.DataFrame) -> list[dict[str, Any]]:
@@ -612,7 +610,7 @@ def plan_evidence(inputs: EvidenceInputs) -> EvidencePlan:
 
     plan = EvidencePlan(
         inputs=inputs,
-        target_rate=lam1 * inputs.per,
+        target_rate=(1.0 - inputs.improvement) * inputs.benchmark,
         fleet_miles_per_year=per_year,
         miles_no_failure=n0,
         years_no_failure=n0 / per_year,
@@ -817,6 +815,9 @@ def _write_bytes_atomic(path: str | Path, data: bytes) -> Path:
             fh.write(data)
             fh.flush()
             os.fsync(fh.fileno())
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes 0600; give the usual file mode
         os.replace(tmp, target)
     except BaseException:
         with contextlib.suppress(FileNotFoundError):

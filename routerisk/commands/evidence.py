@@ -104,7 +104,8 @@ def run(args: argparse.Namespace) -> int:
     if args.json:
         print(dumps_json(plan.to_json()))
     else:
-        print("\n".join(evidence.describe(plan)))
+        lines = evidence.describe(plan)  # ends with the caution
         if args.chart is not None:
-            print(f"Chart written to {args.chart}.")
+            lines.insert(-1, f"Chart written to {args.chart}.")
+        print("\n".join(lines))
     return 0

@@ -1,0 +1,40 @@
+"""The demo: every stage of routerisk on the invented sample town of Corvane."""
+
+from __future__ import annotations
+
+import logging
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any
+
+from . import CAUTION, datasets, mapview
+from ._io import atomic_directory, dumps_json
+from .network import build_network, save_network
+
+log = logging.getLogger(__name__)
+
+TOWN_TIMEZONE = "Etc/GMT+3"
+
+
+def run_demo(out: str | Path, *, force: bool = False,
+             echo: Callable[[str], None] = lambda s: None) -> dict[str, Any]:
+    """Run every stage on the sample town, writing into ``out``; return a summary."""
+    summary: dict[str, Any] = {}
+    with atomic_directory(out, force=force) as tmp:
+        net = build_network(datasets.get_path("town"), timezone=TOWN_TIMEZONE)
+        save_network(net, tmp / "network")
+        summary["network"] = net.summary()
+        echo(f"network: {summary['network']['edges']} edges, "
+             f"{summary['network']['length_km']:.1f} km; sources {summary['network']['sources']}")
+        mapview.save(mapview.network_map(net), tmp / "network_map.html")
+        echo("network map: network_map.html")
+        for stage in _STAGES:
+            part = stage(net, tmp, echo)
+            if part:
+                summary.update(part)
+        (tmp / "summary.json").write_text(dumps_json(summary) + "\n", encoding="utf-8")
+    echo(CAUTION)
+    return summary
+
+
+_STAGES: list[Callable[..., dict[str, Any] | None]] = []

@@ -1,0 +1,1419 @@
+"""Plan a test day: which run starts when, on which vehicle, at least total exposure risk.
+
+The module has two halves.
+
+* :func:`read_runs` reads a RUNS file (YAML or CSV) into :class:`RunSpec` rows: the run's
+  name, its route (a route file or start / end / via points), its time window, an optional
+  required vehicle and a repeat count.
+* :func:`solve_schedule` is the pure optimisation. It takes, for every run repetition (a
+  *job*, :class:`Job`), a list of candidate placements (:class:`Candidate`: start, duration,
+  risk, hard-rule breaks, allowed vehicles) and chooses at most one candidate per job and a
+  vehicle for it, so that two jobs on one vehicle never overlap, counting the turnaround gap
+  after each run. It places as many jobs as possible first and, among those schedules, the
+  one of least total risk. :func:`naive_schedule` gives the plan one would make without it
+  (every run at its earliest start), for comparison.
+
+Objective
+---------
+Lexicographic, solved in two stages rather than with one big-M weighted objective: a big-M
+weight makes the risk part a tiny fraction of the objective, so the solver's relative gap
+tolerance would swallow it. Stage 1 maximises the number of placed jobs; stage 2 minimises the
+total risk subject to placing at least that many. Stage 1 is skipped when the heuristic
+already places every job that has a feasible candidate.
+
+Exact method
+------------
+A 0/1 integer programme solved with :func:`scipy.optimize.milp` (HiGHS). A variable is one
+(job, candidate, vehicle) triple; each job takes at most one. Candidate ``i`` *occupies* its
+vehicle over the half-open interval ``[start, start + duration + turnaround)``. No-overlap is
+written as clique constraints of the interval graph: for each vehicle and each instant ``t``
+that is the start of some candidate, the candidates occupying ``t`` sum to at most 1. This is
+the time-indexed formulation restricted to the only instants that matter: a set of intervals
+that overlap pairwise has a common point (Helly property of intervals), and the latest start
+among them is such a point, so the constraints at start instants forbid every overlap and
+nothing else. Unlike a fixed time grid it is exact for any start times and durations, with no
+rounding of occupancy. Times are compared on a 1/1000-minute integer scale, rounded outwards
+(starts down, ends up), so rounding can only forbid, never allow, an overlap.
+
+When no job or candidate restricts its vehicles, the vehicles are interchangeable and the
+model is aggregated: one variable per (job, candidate), and at each start instant at most
+``V`` occupying candidates (``V`` vehicles). This is exact because interval graphs are perfect:
+a set of intervals of which at most ``V`` contain any point can be coloured with ``V`` colours,
+and greedy colouring in order of start time does so. The vehicles are then assigned that way.
+When any restriction exists, the model keeps one variable per vehicle.
+
+Heuristic
+---------
+When the model would have more than ``max_exact_vars`` variables, a deterministic heuristic
+is used instead: regret insertion (repeatedly place the job that would lose most by waiting,
+i.e. the largest risk difference between its best and second-best fitting start; a job with a
+single fitting start goes first), then local improvement until nothing improves (insert
+unplaced jobs, eject one placed job to make room for an unplaced one, move one job, move two
+jobs jointly). Its result is reported with a lower bound from the linear-programming
+relaxation of the same model (least risk over fractional schedules placing at least as many
+jobs), so the reported gap is a proven bound on how far from optimal it can be.
+
+Times
+-----
+Candidate starts are either numbers (minutes after local midnight) or :class:`datetime`
+objects (all naive or all aware); durations and the turnaround are in minutes. A schedule
+reports starts and ends in the type it was given.
+"""
+
+from __future__ import annotations
+
+import bisect
+import csv
+import logging
+import math
+import re
+import time
+from collections.abc import Iterable, Mapping, Sequence
+from dataclasses import dataclass, field
+from datetime import datetime, timedelta, timezone
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import yaml
+from scipy import sparse
+from scipy.optimize import Bounds, LinearConstraint, milp
+
+from .errors import InputFileError, OptionError
+
+logger = logging.getLogger(__name__)
+
+__all__ = [
+    "Assignment",
+    "Candidate",
+    "Job",
+    "RunSpec",
+    "Schedule",
+    "Unplaced",
+    "format_clock",
+    "jobs_for_runs",
+    "naive_schedule",
+    "overlaps",
+    "parse_clock",
+    "read_runs",
+    "solve_schedule",
+]
+
+TimeLike = float | int | datetime
+
+#: Route file suffixes a RUNS file may refer to.
+ROUTE_SUFFIXES = (".geojson", ".json", ".gpx", ".csv")
+#: Columns of a CSV RUNS file (``route_name`` is accepted as an optional extra column).
+CSV_COLUMNS = (
+    "name",
+    "route",
+    "start_lat",
+    "start_lon",
+    "end_lat",
+    "end_lon",
+    "earliest",
+    "latest",
+    "vehicle",
+    "repeat",
+)
+_CSV_EXTRA = ("route_name",)
+_YAML_KEYS = (
+    "name",
+    "route",
+    "route_name",
+    "start",
+    "end",
+    "via",
+    "earliest",
+    "latest",
+    "vehicle",
+    "repeat",
+)
+_CLOCK_RE = re.compile(r"^\s*(\d{1,2}):(\d{2})\s*$")
+
+# --------------------------------------------------------------------------------------------
+# RUNS file
+# --------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class RunSpec:
+    """One run of a test day, as read from a RUNS file.
+
+    Attributes
+    ----------
+    name
+        Unique name of the run.
+    earliest, latest
+        Window in minutes after local midnight: the run starts at or after ``earliest`` and
+        ends at or before ``latest`` (``latest`` may be 1440, written "24:00").
+    route
+        Route file (GeoJSON, GPX or CSV), resolved against the RUNS file's folder; or None
+        when the route is given by points.
+    route_name
+        Which feature or track of ``route`` to use; None takes the file's only route.
+    start, end
+        ``(lat, lon)`` of the route's ends when no route file is given.
+    via
+        ``(lat, lon)`` points the route passes through, in order.
+    vehicle
+        Id or name of the vehicle the run must use; None lets the planner choose.
+    repeat
+        How many times the run is driven that day; each repetition is placed on its own.
+    source, where
+        The RUNS file and the place in it (``"runs[2]"`` or ``"line 4"``), for messages.
+    """
+
+    name: str
+    earliest: int
+    latest: int
+    route: Path | None = None
+    route_name: str | None = None
+    start: tuple[float, float] | None = None
+    end: tuple[float, float] | None = None
+    via: tuple[tuple[float, float], ...] = ()
+    vehicle: str | None = None
+    repeat: int = 1
+    source: Path | None = None
+    where: str = ""
+
+
+def parse_clock(text: str) -> int:
+    """Return minutes after midnight of an ``"HH:MM"`` clock time ("24:00" is 1440).
+
+    Raises
+    ------
+    ValueError
+        If ``text`` is not a valid clock time.
+    """
+    m = _CLOCK_RE.match(text)
+    if m is None:
+        raise ValueError(f"{text!r} is not a clock time HH:MM")
+    hours, minutes = int(m.group(1)), int(m.group(2))
+    if (hours, minutes) == (24, 0):
+        return 1440
+    if hours > 23 or minutes > 59:
+        raise ValueError(f"{text!r} is not a clock time between 00:00 and 24:00")
+    return hours * 60 + minutes
+
+
+def format_clock(minutes: float) -> str:
+    """Return ``"HH:MM"`` for minutes after midnight (rounded to the minute)."""
+    total = int(round(minutes))
+    return f"{total // 60:02d}:{total % 60:02d}"
+
+
+@dataclass(frozen=True)
+class _Where:
+    """Place of one run in its RUNS file, to build errors that name the file and field."""
+
+    path: Path
+    label: str
+    csv: bool
+
+    def error(self, key: str, message: str) -> InputFileError:
+        if self.csv:
+            return InputFileError(f"{self.label}: {message}", path=self.path, field=key)
+        return InputFileError(message, path=self.path, field=f"{self.label}.{key}")
+
+
+def read_runs(path: str | Path) -> list[RunSpec]:
+    """Read a RUNS file (``.yaml`` / ``.yml`` or ``.csv``) into validated run specifications.
+
+    YAML holds a list of runs, either at the top level or under a ``runs:`` key; each run is
+    a mapping with the keys ``name``, ``route`` (file relative to the RUNS file) and optional
+    ``route_name``, or ``start: [lat, lon]``, ``end: [lat, lon]`` and optional ``via: [[lat,
+    lon], ...]``; ``earliest`` and ``latest`` as quoted ``"HH:MM"``; optional ``vehicle`` and
+    ``repeat`` (default 1). A CSV file has the columns of :data:`CSV_COLUMNS` (only ``name``,
+    ``earliest`` and ``latest`` are required; ``route_name`` may be added; ``via`` has no CSV
+    form). YAML is read with :func:`yaml.safe_load`.
+
+    Parameters
+    ----------
+    path
+        The RUNS file.
+
+    Returns
+    -------
+    list of RunSpec
+        In file order.
+
+    Raises
+    ------
+    InputFileError
+        With ``path`` the RUNS file and ``field`` the key (``"runs[2].earliest"``, 0-based
+        index) or the CSV column, for an unreadable file, an unknown key or column, a
+        duplicate name, a missing or unreadable route, a bad time, ``earliest`` not before
+        ``latest``, or ``repeat`` below 1.
+    """
+    p = Path(path)
+    suffix = p.suffix.lower()
+    if suffix in (".yaml", ".yml"):
+        rows = _yaml_rows(p)
+    elif suffix == ".csv":
+        rows = _csv_rows(p)
+    else:
+        raise InputFileError("a RUNS file must end in .yaml, .yml or .csv", path=p)
+    runs: list[RunSpec] = []
+    seen: dict[str, str] = {}
+    for where, row in rows:
+        run = _run_from_row(where, row)
+        if run.name in seen:
+            raise where.error("name", f"duplicate run name {run.name!r} (also at {seen[run.name]})")
+        seen[run.name] = where.label
+        runs.append(run)
+    if not runs:
+        raise InputFileError("the RUNS file holds no runs", path=p)
+    logger.info("read_runs read %d runs (%d jobs) from %s", len(runs), sum(r.repeat for r in runs), p)
+    return runs
+
+
+def _read_text(path: Path) -> str:
+    try:
+        return path.read_text(encoding="utf-8-sig")
+    except FileNotFoundError:
+        raise InputFileError("file not found", path=path) from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputFileError(f"cannot read the file ({exc})", path=path) from None
+
+
+def _yaml_rows(path: Path) -> list[tuple[_Where, dict[str, Any]]]:
+    try:
+        data = yaml.safe_load(_read_text(path))
+    except yaml.YAMLError as exc:
+        mark = getattr(exc, "problem_mark", None)
+        at = f" at line {mark.line + 1}" if mark is not None else ""
+        raise InputFileError(f"not valid YAML{at}", path=path) from None
+    prefix = "runs"
+    if isinstance(data, dict):
+        unknown = sorted(str(k) for k in data if k != "runs")
+        if unknown:
+            raise InputFileError("unknown top-level key (expected only 'runs')", path=path, field=unknown[0])
+        data = data.get("runs")
+    if not isinstance(data, list):
+        raise InputFileError("expected a list of runs (or a 'runs:' key holding one)", path=path, field=prefix)
+    rows = []
+    for i, item in enumerate(data):
+        where = _Where(path, f"{prefix}[{i}]", csv=False)
+        if not isinstance(item, dict):
+            raise InputFileError("each run must be a mapping of keys", path=path, field=where.label)
+        for key in item:
+            if key not in _YAML_KEYS:
+                raise where.error(str(key), f"unknown key (known: {', '.join(_YAML_KEYS)})")
+        rows.append((where, dict(item)))
+    return rows
+
+
+def _csv_rows(path: Path) -> list[tuple[_Where, dict[str, Any]]]:
+    reader = csv.reader(_read_text(path).splitlines())
+    try:
+        header = [h.strip() for h in next(reader)]
+    except StopIteration:
+        raise InputFileError("the CSV file is empty", path=path) from None
+    known = CSV_COLUMNS + _CSV_EXTRA
+    for col in header:
+        if col not in known:
+            raise InputFileError(f"unknown column (known: {', '.join(known)})", path=path, field=col)
+        if header.count(col) > 1:
+            raise InputFileError("column given twice", path=path, field=col)
+    for col in ("name", "earliest", "latest"):
+        if col not in header:
+            raise InputFileError("required column missing", path=path, field=col)
+    rows = []
+    for line_no, values in enumerate(reader, start=2):
+        if not any(v.strip() for v in values):
+            continue
+        where = _Where(path, f"line {line_no}", csv=True)
+        if len(values) != len(header):
+            raise InputFileError(
+                f"line {line_no}: {len(values)} values for {len(header)} columns", path=path
+            )
+        cells = {h: v.strip() for h, v in zip(header, values, strict=True) if v.strip()}
+        row: dict[str, Any] = {k: cells[k] for k in ("name", "route", "route_name", "earliest",
+                                                       "latest", "vehicle", "repeat") if k in cells}
+        for end in ("start", "end"):
+            lat, lon = cells.get(f"{end}_lat"), cells.get(f"{end}_lon")
+            if lat is None and lon is None:
+                continue
+            if lat is None or lon is None:
+                col = f"{end}_lat" if lat is None else f"{end}_lon"
+                raise where.error(col, f"{end}_lat and {end}_lon go together")
+            row[end] = [_csv_float(where, f"{end}_lat", lat), _csv_float(where, f"{end}_lon", lon)]
+        if "repeat" in row:
+            try:
+                row["repeat"] = int(row["repeat"])
+            except ValueError:
+                raise where.error("repeat", f"repeat {row['repeat']!r} is not a whole number") from None
+        rows.append((where, row))
+    return rows
+
+
+def _csv_float(where: _Where, column: str, text: str) -> float:
+    try:
+        return float(text)
+    except ValueError:
+        raise where.error(column, f"{text!r} is not a number") from None
+
+
+def _point_field(where: _Where, key: str) -> tuple[str, str]:
+    """Return the field names of a point's latitude and longitude (CSV columns or YAML key)."""
+    if where.csv:
+        return f"{key}_lat", f"{key}_lon"
+    return key, key
+
+
+def _point(where: _Where, key: str, value: Any) -> tuple[float, float]:
+    lat_field, lon_field = _point_field(where, key)
+    if (
+        not isinstance(value, list | tuple)
+        or len(value) != 2
+        or not all(isinstance(v, int | float) and not isinstance(v, bool) for v in value)
+    ):
+        raise where.error(key, "expected [lat, lon], two numbers")
+    lat, lon = float(value[0]), float(value[1])
+    if not (math.isfinite(lat) and -90.0 <= lat <= 90.0):
+        raise where.error(lat_field, f"latitude {lat} is outside -90..90")
+    if not (math.isfinite(lon) and -180.0 <= lon <= 180.0):
+        raise where.error(lon_field, f"longitude {lon} is outside -180..180")
+    return lat, lon
+
+
+def _clock(where: _Where, key: str, value: Any) -> int:
+    if value is None:
+        raise where.error(key, f"missing {key} time (\"HH:MM\")")
+    if isinstance(value, int) and not isinstance(value, bool):
+        raise where.error(
+            key,
+            f"{key} must be a quoted \"HH:MM\" string; YAML reads an unquoted 10:30 as the "
+            f"number {value}, so write it in quotes",
+        )
+    if not isinstance(value, str):
+        raise where.error(key, f"{key} must be a \"HH:MM\" string")
+    try:
+        return parse_clock(value)
+    except ValueError as exc:
+        raise where.error(key, str(exc)) from None
+
+
+def _text(where: _Where, key: str, value: Any) -> str | None:
+    if value is None:
+        return None
+    if isinstance(value, bool) or not isinstance(value, str | int):
+        raise where.error(key, f"{key} must be text")
+    text = str(value).strip()
+    return text or None
+
+
+def _run_from_row(where: _Where, row: dict[str, Any]) -> RunSpec:
+    name = _text(where, "name", row.get("name"))
+    if name is None:
+        raise where.error("name", "missing run name")
+
+    route_ref = _text(where, "route", row.get("route"))
+    route_name = _text(where, "route_name", row.get("route_name"))
+    has_points = any(row.get(k) is not None for k in ("start", "end", "via"))
+    route: Path | None = None
+    start = end = None
+    via: tuple[tuple[float, float], ...] = ()
+    if route_ref is not None:
+        if has_points:
+            raise where.error("route", "give either route or start/end/via, not both")
+        route = where.path.parent / route_ref
+        if route.suffix.lower() not in ROUTE_SUFFIXES:
+            raise where.error("route", f"route file must end in {', '.join(ROUTE_SUFFIXES)}")
+        if not route.is_file():
+            raise where.error("route", f"route file {route_ref!r} not found beside the RUNS file")
+    else:
+        if route_name is not None:
+            raise where.error("route_name", "route_name needs a route file")
+        if not has_points:
+            raise where.error("route", "missing route: give route: FILE, or start: and end:")
+        for key in ("start", "end"):
+            if row.get(key) is None:
+                raise where.error(_point_field(where, key)[0], f"missing {key} point")
+        start = _point(where, "start", row["start"])
+        end = _point(where, "end", row["end"])
+        raw_via = row.get("via")
+        if raw_via is not None:
+            if not isinstance(raw_via, list):
+                raise where.error("via", "expected a list of [lat, lon] points")
+            via = tuple(_point(where, f"via[{i}]", v) for i, v in enumerate(raw_via))
+
+    earliest = _clock(where, "earliest", row.get("earliest"))
+    latest = _clock(where, "latest", row.get("latest"))
+    if earliest >= latest:
+        raise where.error(
+            "latest",
+            f"latest {format_clock(latest)} is not after earliest {format_clock(earliest)}",
+        )
+    repeat = row.get("repeat", 1)
+    if repeat is None:
+        repeat = 1
+    if isinstance(repeat, bool) or not isinstance(repeat, int):
+        raise where.error("repeat", "repeat must be a whole number")
+    if repeat < 1:
+        raise where.error("repeat", f"repeat is {repeat}; it must be 1 or more")
+    return RunSpec(
+        name=name,
+        earliest=earliest,
+        latest=latest,
+        route=route,
+        route_name=route_name,
+        start=start,
+        end=end,
+        via=via,
+        vehicle=_text(where, "vehicle", row.get("vehicle")),
+        repeat=repeat,
+        source=where.path,
+        where=where.label,
+    )
+
+
+# --------------------------------------------------------------------------------------------
+# Scheduling input and output
+# --------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class Candidate:
+    """One possible placement of a job.
+
+    Attributes
+    ----------
+    start
+        Minutes after local midnight, or a datetime.
+    duration
+        Minutes from start to end of the run (without the turnaround).
+    risk
+        Exposure risk of driving the run at this start.
+    rule_breaks
+        Number of hard-rule breaks; a candidate with any is never chosen.
+    vehicles
+        Ids of the vehicles this candidate may use; None allows every vehicle.
+    planned
+        True for the run's planned route (what :func:`naive_schedule` uses), False for an
+        alternative.
+    """
+
+    start: TimeLike
+    duration: float
+    risk: float
+    rule_breaks: int = 0
+    vehicles: frozenset[str] | None = None
+    planned: bool = True
+
+
+@dataclass(frozen=True)
+class Job:
+    """One repetition of a run and its candidate placements.
+
+    Attributes
+    ----------
+    run
+        Name of the run.
+    candidates
+        Candidate placements (start, duration, risk, ...).
+    repetition
+        Which repetition of the run this is, from 1.
+    vehicle
+        Id of the vehicle the job must use; None lets the planner choose.
+    earliest, latest
+        Optional window (same time type as the starts): a candidate must start at or after
+        ``earliest`` and end at or before ``latest``.
+    """
+
+    run: str
+    candidates: tuple[Candidate, ...]
+    repetition: int = 1
+    vehicle: str | None = None
+    earliest: TimeLike | None = None
+    latest: TimeLike | None = None
+
+
+@dataclass(frozen=True)
+class Assignment:
+    """A placed job: which candidate, on which vehicle, from when to when."""
+
+    job: int
+    run: str
+    repetition: int
+    vehicle: str
+    start: TimeLike
+    end: TimeLike
+    risk: float
+    candidate: int
+    rule_breaks: int = 0
+
+
+@dataclass(frozen=True)
+class Unplaced:
+    """A job left out of the schedule, and why."""
+
+    job: int
+    run: str
+    repetition: int
+    reason: str
+
+
+@dataclass(frozen=True)
+class Schedule:
+    """A day plan.
+
+    Attributes
+    ----------
+    assignments
+        Placed jobs, sorted by vehicle and start.
+    unplaced
+        Jobs left out, with the reason.
+    total_risk
+        Sum of the placed candidates' risk.
+    status
+        ``"optimal"`` (proven), ``"time_limit"`` (the solver stopped; ``gap`` bounds the
+        loss), ``"heuristic"`` (too large for the exact method; ``gap`` is against the linear
+        relaxation), ``"infeasible"`` (there are jobs but none can be placed), or ``"naive"``
+        (from :func:`naive_schedule`).
+    gap
+        Relative gap ``(total_risk - lower_bound) / |total_risk|`` (0 when both are 0) at
+        the number of placed jobs; None for a naive plan.
+    lower_bound
+        Proven lower bound on the total risk of any schedule placing as many jobs.
+    method
+        ``"milp-aggregated"``, ``"milp-per-vehicle"``, ``"heuristic"`` or ``"naive"``.
+    notes
+        Remarks: unproven job counts, overlaps and rule breaks of a naive plan, ...
+    seconds
+        Wall time of the solve (not part of :meth:`to_dict`, which stays reproducible).
+    """
+
+    assignments: tuple[Assignment, ...]
+    unplaced: tuple[Unplaced, ...]
+    total_risk: float
+    status: str
+    gap: float | None
+    lower_bound: float | None = None
+    method: str = ""
+    notes: tuple[str, ...] = ()
+    seconds: float = field(default=0.0, compare=False)
+
+    @property
+    def placed(self) -> int:
+        """Return the number of placed jobs."""
+        return len(self.assignments)
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return a JSON-ready dict (times as ISO strings or minutes after midnight)."""
+
+        def t(value: TimeLike) -> str | float:
+            return value.isoformat() if isinstance(value, datetime) else float(value)
+
+        return {
+            "assignments": [
+                {
+                    "job": a.job,
+                    "run": a.run,
+                    "repetition": a.repetition,
+                    "vehicle": a.vehicle,
+                    "start": t(a.start),
+                    "end": t(a.end),
+                    "risk": a.risk,
+                    "candidate": a.candidate,
+                    "rule_breaks": a.rule_breaks,
+                }
+                for a in self.assignments
+            ],
+            "unplaced": [
+                {"job": u.job, "run": u.run, "repetition": u.repetition, "reason": u.reason}
+                for u in self.unplaced
+            ],
+            "total_risk": self.total_risk,
+            "status": self.status,
+            "gap": self.gap,
+            "lower_bound": self.lower_bound,
+            "method": self.method,
+            "notes": list(self.notes),
+        }
+
+
+def jobs_for_runs(
+    runs: Sequence[RunSpec], candidates: Mapping[str, Sequence[Candidate]]
+) -> list[Job]:
+    """Expand runs into jobs (one per repetition) with their candidates and windows.
+
+    Parameters
+    ----------
+    runs
+        Runs from :func:`read_runs`.
+    candidates
+        Candidate placements by run name (a run without an entry gets none). When the starts
+        are datetimes, the run's window is put on the day (and zone) of its first candidate.
+
+    Returns
+    -------
+    list of Job
+        In run order, repetitions 1..repeat.
+    """
+    jobs = []
+    for run in runs:
+        cands = tuple(candidates.get(run.name, ()))
+        earliest: TimeLike = run.earliest
+        latest: TimeLike = run.latest
+        if cands and isinstance(cands[0].start, datetime):
+            day = cands[0].start.replace(hour=0, minute=0, second=0, microsecond=0)
+            earliest = day + timedelta(minutes=run.earliest)
+            latest = day + timedelta(minutes=run.latest)
+        for k in range(1, run.repeat + 1):
+            jobs.append(Job(run.name, cands, k, run.vehicle, earliest, latest))
+    return jobs
+
+
+# --------------------------------------------------------------------------------------------
+# Time axis
+# --------------------------------------------------------------------------------------------
+
+_TICKS = 1000  # integer time units per minute; times are compared exactly on this scale
+_MINUTE = timedelta(minutes=1)
+
+
+def _minutes_between(a: TimeLike, b: TimeLike) -> float:
+    """Return ``b - a`` in minutes (absolute time for aware datetimes)."""
+    if isinstance(a, datetime) and isinstance(b, datetime):
+        if (a.tzinfo is None) != (b.tzinfo is None):
+            raise ValueError("candidate times mix naive and time-zone aware datetimes")
+        if a.tzinfo is not None:
+            return (b.timestamp() - a.timestamp()) / 60.0
+        return (b - a) / _MINUTE
+    if isinstance(a, datetime) or isinstance(b, datetime):
+        raise ValueError("candidate times mix datetimes and numbers of minutes")
+    return float(b) - float(a)
+
+
+def _plus_minutes(t: TimeLike, minutes: float) -> TimeLike:
+    if isinstance(t, datetime):
+        if t.tzinfo is None:
+            return t + timedelta(minutes=minutes)
+        return (t.astimezone(timezone.utc) + timedelta(minutes=minutes)).astimezone(t.tzinfo)
+    return float(t) + minutes
+
+
+class _Axis:
+    """Map candidate times to integer ticks from a common origin."""
+
+    def __init__(self, times: Iterable[TimeLike]) -> None:
+        times = list(times)
+        self.origin: TimeLike = 0.0
+        if times and isinstance(times[0], datetime):
+            self.origin = times[0]
+        for t in times:  # checks that the kinds do not mix
+            _minutes_between(self.origin, t)
+
+    def floor(self, t: TimeLike, plus: float = 0.0) -> int:
+        return math.floor((_minutes_between(self.origin, t) + plus) * _TICKS + 1e-6)
+
+    def ceil(self, t: TimeLike, plus: float = 0.0) -> int:
+        return math.ceil((_minutes_between(self.origin, t) + plus) * _TICKS - 1e-6)
+
+
+@dataclass(frozen=True)
+class _Opt:
+    """A usable (job, candidate): occupancy in ticks and the allowed vehicle indices."""
+
+    job: int
+    cand: int
+    s: int
+    e: int
+    risk: float
+    vehicles: tuple[int, ...]
+
+
+def _fleet(vehicles: int | Sequence[str]) -> list[str]:
+    if isinstance(vehicles, bool):
+        raise OptionError("vehicles must be a count or a list of vehicle ids", field="vehicles")
+    if isinstance(vehicles, int):
+        if vehicles < 1:
+            raise OptionError(f"need at least one vehicle, got {vehicles}", field="vehicles")
+        return [f"v{i}" for i in range(1, vehicles + 1)]
+    fleet = [str(v) for v in vehicles]
+    if not fleet:
+        raise OptionError("need at least one vehicle", field="vehicles")
+    if len(set(fleet)) != len(fleet):
+        raise OptionError("vehicle ids must be unique", field="vehicles")
+    return fleet
+
+
+def _as_jobs(options: Sequence[Job | Sequence[Candidate]]) -> list[Job]:
+    jobs = []
+    for i, item in enumerate(options):
+        if isinstance(item, Job):
+            jobs.append(item)
+        else:
+            jobs.append(Job(run=f"job{i}", candidates=tuple(item)))
+    return jobs
+
+
+def _check_candidate(j: int, c: int, cand: Candidate) -> None:
+    if not (math.isfinite(cand.duration) and cand.duration > 0):
+        raise ValueError(f"job {j} candidate {c}: duration must be positive, got {cand.duration}")
+    if not math.isfinite(cand.risk):
+        raise ValueError(f"job {j} candidate {c}: risk must be finite, got {cand.risk}")
+    if cand.rule_breaks < 0:
+        raise ValueError(f"job {j} candidate {c}: rule_breaks must be >= 0")
+
+
+def _prepare(
+    jobs: Sequence[Job], fleet: Sequence[str], turnaround_min: float
+) -> tuple[_Axis, list[list[_Opt]], dict[int, str]]:
+    """Filter every job's candidates to the usable ones; give a reason for jobs with none."""
+    axis = _Axis(
+        [c.start for job in jobs for c in job.candidates]
+        + [t for job in jobs for t in (job.earliest, job.latest) if t is not None]
+    )
+    index = {v: i for i, v in enumerate(fleet)}
+    usable: list[list[_Opt]] = []
+    reasons: dict[int, str] = {}
+    for j, job in enumerate(jobs):
+        opts: list[_Opt] = []
+        reason = "window too short: no candidate start was given"
+        for c, cand in enumerate(job.candidates):
+            _check_candidate(j, c, cand)
+        in_window = [
+            (c, cand)
+            for c, cand in enumerate(job.candidates)
+            if (job.earliest is None or axis.floor(cand.start) >= axis.floor(job.earliest))
+            and (job.latest is None or axis.ceil(cand.start, cand.duration) <= axis.ceil(job.latest))
+        ]
+        if job.candidates and not in_window:
+            reason = "window too short: no candidate start and end fit between earliest and latest"
+        legal = [(c, cand) for c, cand in in_window if cand.rule_breaks == 0]
+        if in_window and not legal:
+            reason = "every start breaks a hard rule"
+        for c, cand in legal:
+            allowed = set(range(len(fleet)))
+            if job.vehicle is not None:
+                allowed &= {index[job.vehicle]} if job.vehicle in index else set()
+            if cand.vehicles is not None:
+                allowed &= {index[v] for v in cand.vehicles if v in index}
+            if allowed:
+                s = axis.floor(cand.start)
+                e = axis.ceil(cand.start, cand.duration + turnaround_min)
+                opts.append(_Opt(j, c, s, e, float(cand.risk), tuple(sorted(allowed))))
+        if legal and not opts:
+            if job.vehicle is not None and job.vehicle not in index:
+                reason = f"required vehicle {job.vehicle!r} is not in the fleet"
+            else:
+                reason = "no vehicle of the fleet is allowed for any legal start"
+        usable.append(sorted(opts, key=lambda o: (o.risk, o.s, o.cand)))
+        if not opts:
+            reasons[j] = reason
+    return axis, usable, reasons
+
+
+# --------------------------------------------------------------------------------------------
+# Heuristic
+# --------------------------------------------------------------------------------------------
+
+_Placement = tuple[_Opt, int]  # (option, vehicle index)
+
+
+class _Timeline:
+    """Busy intervals of each vehicle, sorted by start (they never overlap)."""
+
+    def __init__(self, n_vehicles: int) -> None:
+        self.starts: list[list[int]] = [[] for _ in range(n_vehicles)]
+        self.ends: list[list[int]] = [[] for _ in range(n_vehicles)]
+
+    def fits(self, v: int, s: int, e: int) -> bool:
+        starts, ends = self.starts[v], self.ends[v]
+        i = bisect.bisect_right(starts, s)
+        if i > 0 and ends[i - 1] > s:
+            return False
+        return not (i < len(starts) and starts[i] < e)
+
+    def idle_before(self, v: int, s: int) -> int:
+        i = bisect.bisect_right(self.starts[v], s)
+        return s - self.ends[v][i - 1] if i > 0 else s + 10**12
+
+    def add(self, v: int, s: int, e: int) -> None:
+        i = bisect.bisect_right(self.starts[v], s)
+        self.starts[v].insert(i, s)
+        self.ends[v].insert(i, e)
+
+    def remove(self, v: int, s: int, e: int) -> None:
+        i = bisect.bisect_left(self.starts[v], s)
+        while self.ends[v][i] != e:
+            i += 1
+        del self.starts[v][i]
+        del self.ends[v][i]
+
+
+def _tightest(tl: _Timeline, o: _Opt, vehicles: Iterable[int]) -> int | None:
+    """Return the fitting vehicle that leaves the least idle time before ``o`` (best fit)."""
+    fitting = [v for v in vehicles if tl.fits(v, o.s, o.e)]
+    if not fitting:
+        return None
+    return min(fitting, key=lambda v: (tl.idle_before(v, o.s), v))
+
+
+def _best_insert(tl: _Timeline, opts: Sequence[_Opt]) -> _Placement | None:
+    """Return the least-risk fitting placement of a job (``opts`` sorted by risk)."""
+    for o in opts:
+        v = _tightest(tl, o, o.vehicles)
+        if v is not None:
+            return o, v
+    return None
+
+
+def _regret_insertion(usable: Sequence[Sequence[_Opt]], tl: _Timeline) -> dict[int, _Placement]:
+    """Place jobs one at a time, the one with the largest regret first."""
+    pending = {j: list(opts) for j, opts in enumerate(usable) if opts}
+    sol: dict[int, _Placement] = {}
+    while pending:
+        best_key: tuple[float, int, float, int] | None = None
+        for j, opts in pending.items():
+            if not opts:
+                continue
+            second = opts[1].risk if len(opts) > 1 else math.inf  # one entry per candidate
+            key = (-(second - opts[0].risk), len(opts), opts[0].risk, j)
+            if best_key is None or key < best_key:
+                best_key = key
+        if best_key is None:
+            break
+        j = best_key[3]
+        placement = _best_insert(tl, pending.pop(j))
+        if placement is None:  # cannot happen: pending options always fit some vehicle
+            continue
+        o, v = placement
+        tl.add(v, o.s, o.e)
+        sol[j] = placement
+        for k, opts in pending.items():
+            pending[k] = [p for p in opts if _tightest(tl, p, p.vehicles) is not None]
+    return sol
+
+
+def _improve(
+    usable: Sequence[Sequence[_Opt]], tl: _Timeline, sol: dict[int, _Placement], *, rounds: int
+) -> None:
+    """Improve ``sol`` in place by insertions, ejections and one- and two-job moves."""
+
+    def place(j: int, p: _Placement) -> None:
+        tl.add(p[1], p[0].s, p[0].e)
+        sol[j] = p
+
+    def lift(j: int) -> _Placement:
+        p = sol.pop(j)
+        tl.remove(p[1], p[0].s, p[0].e)
+        return p
+
+    for _ in range(rounds):
+        changed = False
+        # 1. insert unplaced jobs, directly or by ejecting one placed job that then moves
+        for u in range(len(usable)):
+            if u in sol or not usable[u]:
+                continue
+            p = _best_insert(tl, usable[u])
+            if p is not None:
+                place(u, p)
+                changed = True
+                continue
+            for j in sorted(sol):
+                old = lift(j)
+                pu = _best_insert(tl, usable[u])
+                if pu is not None:
+                    place(u, pu)
+                    pj = _best_insert(tl, usable[j])
+                    if pj is not None:
+                        place(j, pj)
+                        changed = True
+                        break
+                    lift(u)
+                place(j, old)
+        # 2. move one job to its best place
+        for j in sorted(sol):
+            old = lift(j)
+            new = _best_insert(tl, usable[j])
+            if new is not None and new[0].risk < old[0].risk - 1e-12:
+                place(j, new)
+                changed = True
+            else:
+                place(j, old)
+        # 3. move two jobs jointly (both orders of reinsertion)
+        placed = sorted(sol)
+        for a_i, a in enumerate(placed):
+            for b in placed[a_i + 1 :]:
+                old_a, old_b = lift(a), lift(b)
+                before = old_a[0].risk + old_b[0].risk
+                best: tuple[float, _Placement, _Placement] | None = None
+                for first, second in ((a, b), (b, a)):
+                    p1 = _best_insert(tl, usable[first])
+                    if p1 is None:
+                        continue
+                    tl.add(p1[1], p1[0].s, p1[0].e)
+                    p2 = _best_insert(tl, usable[second])
+                    tl.remove(p1[1], p1[0].s, p1[0].e)
+                    if p2 is None:
+                        continue
+                    total = p1[0].risk + p2[0].risk
+                    if total < before - 1e-12 and (best is None or total < best[0]):
+                        pa, pb = (p1, p2) if first == a else (p2, p1)
+                        best = (total, pa, pb)
+                if best is None:
+                    place(a, old_a)
+                    place(b, old_b)
+                else:
+                    place(a, best[1])
+                    place(b, best[2])
+                    changed = True
+        if not changed:
+            break
+
+
+def _heuristic(
+    usable: Sequence[Sequence[_Opt]], n_vehicles: int, *, rounds: int = 20
+) -> dict[int, _Placement]:
+    tl = _Timeline(n_vehicles)
+    sol = _regret_insertion(usable, tl)
+    _improve(usable, tl, sol, rounds=rounds)
+    return sol
+
+
+# --------------------------------------------------------------------------------------------
+# Integer programme
+# --------------------------------------------------------------------------------------------
+
+
+@dataclass
+class _Model:
+    """Variables and no-overlap rows of the 0/1 programme (see the module docstring)."""
+
+    opts: list[_Opt]
+    vehicle: np.ndarray  # vehicle index per variable, -1 when aggregated
+    risk: np.ndarray
+    rows: sparse.csr_array  # job rows, then clique rows, all "<= upper"
+    upper: np.ndarray
+    aggregated: bool
+
+
+def _build_model(usable: Sequence[Sequence[_Opt]], n_vehicles: int) -> _Model:
+    everyone = tuple(range(n_vehicles))
+    aggregated = all(o.vehicles == everyone for opts in usable for o in opts)
+    var_opt: list[_Opt] = []
+    var_veh: list[int] = []
+    for opts in usable:
+        for o in opts:
+            for v in [-1] if aggregated else o.vehicles:
+                var_opt.append(o)
+                var_veh.append(v)
+    n = len(var_opt)
+    veh = np.asarray(var_veh, dtype=np.int64)
+    s = np.asarray([o.s for o in var_opt], dtype=np.int64)
+    e = np.asarray([o.e for o in var_opt], dtype=np.int64)
+    job = np.asarray([o.job for o in var_opt], dtype=np.int64)
+
+    r_idx: list[np.ndarray] = []
+    c_idx: list[np.ndarray] = []
+    upper: list[float] = []
+    _, job_row = np.unique(job, return_inverse=True)
+    n_rows = int(job_row.max()) + 1 if n else 0
+    r_idx.append(job_row)
+    c_idx.append(np.arange(n))
+    upper.extend([1.0] * n_rows)
+    cap = float(n_vehicles) if aggregated else 1.0
+    for v in [-1] if aggregated else everyone:
+        members = np.flatnonzero(veh == v)
+        if members.size == 0:
+            continue
+        seen: set[bytes] = set()
+        for t in np.unique(s[members]):
+            inside = members[(s[members] <= t) & (t < e[members])]
+            if inside.size <= cap:
+                continue
+            key = inside.tobytes()
+            if key in seen:
+                continue
+            seen.add(key)
+            r_idx.append(np.full(inside.size, n_rows))
+            c_idx.append(inside)
+            upper.append(cap)
+            n_rows += 1
+    rows = sparse.csr_array(
+        (np.ones(sum(a.size for a in r_idx)), (np.concatenate(r_idx), np.concatenate(c_idx))),
+        shape=(n_rows, n),
+    )
+    return _Model(
+        var_opt, veh, np.asarray([o.risk for o in var_opt]), rows, np.asarray(upper), aggregated
+    )
+
+
+@dataclass
+class _Result:
+    x: np.ndarray | None
+    proven: bool
+    value: float | None  # objective of x
+    bound: float | None  # proven lower bound of the objective
+
+
+def _run_milp(
+    model: _Model,
+    c: np.ndarray,
+    *,
+    min_count: int | None,
+    integral: bool,
+    time_limit: float,
+    mip_rel_gap: float,
+) -> _Result:
+    n = c.size
+    constraints = [LinearConstraint(model.rows, -np.inf, model.upper)]
+    if min_count is not None:
+        constraints.append(LinearConstraint(np.ones((1, n)), min_count, np.inf))
+    options: dict[str, Any] = {"disp": False, "time_limit": max(time_limit, 0.01)}
+    if integral:
+        options["mip_rel_gap"] = mip_rel_gap
+    res = milp(
+        c,
+        integrality=np.ones(n) if integral else np.zeros(n),
+        bounds=Bounds(0.0, 1.0),
+        constraints=constraints,
+        options=options,
+    )
+    x = None if res.x is None else np.asarray(res.x)
+    value = None if x is None else float(c @ x)
+    if integral:
+        bound = getattr(res, "mip_dual_bound", None)
+        bound = None if bound is None or not math.isfinite(bound) else float(bound)
+        if res.status == 0 and bound is None:
+            bound = value
+    else:
+        bound = value if res.status == 0 else None
+    return _Result(x, res.status == 0, value, bound)
+
+
+def _colour(picks: Sequence[_Opt], n_vehicles: int) -> dict[int, _Placement]:
+    """Assign vehicles to non-overlapping-by-``n_vehicles`` intervals, greedily by start."""
+    free_at = [-(10**18)] * n_vehicles
+    sol: dict[int, _Placement] = {}
+    for o in sorted(picks, key=lambda o: (o.s, o.e, o.job)):
+        v = next(v for v in range(n_vehicles) if free_at[v] <= o.s)
+        free_at[v] = o.e
+        sol[o.job] = (o, v)
+    return sol
+
+
+def _solution_from_x(model: _Model, x: np.ndarray, n_vehicles: int) -> dict[int, _Placement]:
+    chosen = np.flatnonzero(x > 0.5)
+    if model.aggregated:
+        return _colour([model.opts[i] for i in chosen], n_vehicles)
+    return {model.opts[i].job: (model.opts[i], int(model.vehicle[i])) for i in chosen}
+
+
+def _risk(sol: Mapping[int, _Placement]) -> float:
+    return float(sum(p[0].risk for p in sol.values()))
+
+
+def _rel_gap(value: float, bound: float | None) -> float | None:
+    if bound is None:
+        return None
+    diff = max(value - bound, 0.0)
+    if diff <= 1e-9 * max(1.0, abs(value)):
+        return 0.0
+    return diff / max(abs(value), 1e-12)
+
+
+# --------------------------------------------------------------------------------------------
+# Public solvers
+# --------------------------------------------------------------------------------------------
+
+
+def solve_schedule(
+    options: Sequence[Job | Sequence[Candidate]],
+    *,
+    vehicles: int | Sequence[str],
+    turnaround_min: float,
+    max_exact_vars: int = 20000,
+    time_limit: float = 60.0,
+    mip_rel_gap: float = 1e-7,
+) -> Schedule:
+    """Choose a start and a vehicle for each job: most jobs placed, then least total risk.
+
+    Parameters
+    ----------
+    options
+        One entry per job: a :class:`Job`, or a plain sequence of :class:`Candidate` (then
+        named ``job<i>``, repetition 1, no window, no vehicle requirement).
+    vehicles
+        Number of interchangeable vehicles (ids ``v1``, ``v2``, ...) or the list of ids.
+    turnaround_min
+        Minutes a vehicle needs between the end of one run and the start of the next.
+    max_exact_vars
+        Largest integer programme solved exactly; above it the heuristic is used.
+    time_limit
+        Seconds for the integer programme (both stages together).
+    mip_rel_gap
+        Relative optimality tolerance given to HiGHS for the risk stage.
+
+    Returns
+    -------
+    Schedule
+        See :class:`Schedule` for the meaning of ``status`` and ``gap``.
+
+    Raises
+    ------
+    OptionError
+        For a bad fleet or a negative turnaround.
+    ValueError
+        For a candidate with a non-positive duration, a non-finite risk or mixed time kinds.
+    """
+    clock = time.perf_counter()
+    jobs = _as_jobs(options)
+    fleet = _fleet(vehicles)
+    if not (math.isfinite(turnaround_min) and turnaround_min >= 0):
+        raise OptionError(f"turnaround must be 0 or more minutes, got {turnaround_min}",
+                          field="turnaround_min")
+    _, usable, reasons = _prepare(jobs, fleet, turnaround_min)
+    n_feasible = sum(1 for opts in usable if opts)
+    model = _build_model(usable, len(fleet))
+    n_vars = model.risk.size
+    notes: list[str] = []
+
+    best = _heuristic(usable, len(fleet))
+    bound: float | None
+    if n_feasible == 0:
+        status, method, bound = ("infeasible" if jobs else "optimal"), "none", 0.0
+    elif n_vars > max_exact_vars:
+        status, method = "heuristic", "heuristic"
+        notes.append(f"{n_vars} variables exceed max_exact_vars={max_exact_vars}: heuristic used")
+        bound = _heuristic_bound(model, len(best), n_feasible, notes)
+    else:
+        method = "milp-aggregated" if model.aggregated else "milp-per-vehicle"
+        best, status, bound = _exact(
+            model, usable, best, len(fleet), n_feasible, time_limit, mip_rel_gap, notes
+        )
+
+    total = _risk(best)
+    schedule = _schedule(
+        jobs, fleet, {j: (o.cand, v) for j, (o, v) in best.items()}, reasons, total, status, _rel_gap(total, bound), bound,
+        method, notes, time.perf_counter() - clock,
+        blocked="no free vehicle: every usable start conflicts with the runs placed",
+    )
+    logger.info(
+        "solve_schedule placed %d of %d jobs, total risk %.6g, status %s (%s, %d variables) in %.2f s",
+        schedule.placed, len(jobs), total, status, method, n_vars, schedule.seconds,
+    )
+    return schedule
+
+
+def _heuristic_bound(model: _Model, placed: int, n_feasible: int, notes: list[str]) -> float | None:
+    """Return the LP lower bound on the risk of schedules placing at least ``placed`` jobs."""
+    count_lp = _run_milp(model, -np.ones(model.risk.size), min_count=None, integral=False,
+                         time_limit=600.0, mip_rel_gap=0.0)
+    if count_lp.value is not None:
+        most = min(n_feasible, math.floor(-count_lp.value + 1e-6))
+        if most > placed:
+            notes.append(f"the linear relaxation allows up to {most} placed jobs; "
+                         f"the heuristic placed {placed} (more may be possible)")
+    risk_lp = _run_milp(model, model.risk, min_count=placed, integral=False,
+                        time_limit=600.0, mip_rel_gap=0.0)
+    return risk_lp.bound
+
+
+def _exact(
+    model: _Model,
+    usable: Sequence[Sequence[_Opt]],
+    heuristic: dict[int, _Placement],
+    n_vehicles: int,
+    n_feasible: int,
+    time_limit: float,
+    mip_rel_gap: float,
+    notes: list[str],
+) -> tuple[dict[int, _Placement], str, float | None]:
+    """Run the two-stage programme; return the best solution, status and risk bound."""
+    deadline = time.perf_counter() + time_limit
+    proven = True
+    best = heuristic
+    target = len(heuristic)
+    if target < n_feasible:  # stage 1: most jobs placed
+        res = _run_milp(model, -np.ones(model.risk.size), min_count=None, integral=True,
+                        time_limit=deadline - time.perf_counter(), mip_rel_gap=0.0)
+        if res.x is not None and round(-res.value) > target:
+            target = round(-res.value)
+            best = _solution_from_x(model, res.x, n_vehicles)
+        if not res.proven:
+            proven = False
+            most = n_feasible if res.bound is None else min(n_feasible, math.floor(-res.bound + 1e-6))
+            if most > target:
+                notes.append(f"time limit: {target} jobs placed, up to {most} may fit")
+    remaining = deadline - time.perf_counter()
+    if remaining <= 0:  # no time left for stage 2: bound from the LP relaxation
+        lp = _run_milp(model, model.risk, min_count=target, integral=False, time_limit=600.0,
+                       mip_rel_gap=0.0)
+        return best, "time_limit", lp.bound
+    res = _run_milp(model, model.risk, min_count=target, integral=True, time_limit=remaining,
+                    mip_rel_gap=mip_rel_gap)
+    if res.x is not None and res.value is not None and res.value < _risk(best) - 1e-12:
+        best = _solution_from_x(model, res.x, n_vehicles)
+    proven = proven and res.proven
+    if not res.proven:
+        notes.append("time limit reached before the least risk was proven")
+    return best, "optimal" if proven else "time_limit", res.bound
+
+
+def _schedule(
+    jobs: Sequence[Job],
+    fleet: Sequence[str],
+    sol: Mapping[int, tuple[int, int]],
+    reasons: Mapping[int, str],
+    total: float,
+    status: str,
+    gap: float | None,
+    bound: float | None,
+    method: str,
+    notes: Sequence[str],
+    seconds: float,
+    *,
+    blocked: str,
+) -> Schedule:
+    """Assemble a Schedule; ``sol`` maps job -> (candidate index, vehicle index)."""
+    assignments = []
+    for j, (c, v) in sol.items():
+        job = jobs[j]
+        cand = job.candidates[c]
+        assignments.append(
+            Assignment(
+                job=j,
+                run=job.run,
+                repetition=job.repetition,
+                vehicle=fleet[v],
+                start=cand.start,
+                end=_plus_minutes(cand.start, cand.duration),
+                risk=float(cand.risk),
+                candidate=c,
+                rule_breaks=cand.rule_breaks,
+            )
+        )
+    origin = _Axis([a.start for a in assignments]).origin
+    assignments.sort(key=lambda a: (fleet.index(a.vehicle), _minutes_between(origin, a.start), a.job))
+    unplaced = tuple(
+        Unplaced(j, job.run, job.repetition, reasons.get(j, blocked))
+        for j, job in enumerate(jobs)
+        if j not in sol
+    )
+    return Schedule(
+        assignments=tuple(assignments),
+        unplaced=unplaced,
+        total_risk=total,
+        status=status,
+        gap=gap,
+        lower_bound=bound,
+        method=method,
+        notes=tuple(notes),
+        seconds=seconds,
+    )
+
+
+def overlaps(
+    assignments: Sequence[Assignment], *, turnaround_min: float
+) -> list[tuple[Assignment, Assignment, float]]:
+    """Return pairs of runs on one vehicle that overlap, with the overlap in minutes.
+
+    Two runs on one vehicle overlap when the later one starts before the earlier one's end
+    plus the turnaround.
+    """
+    found = []
+    by_vehicle: dict[str, list[Assignment]] = {}
+    for a in assignments:
+        by_vehicle.setdefault(a.vehicle, []).append(a)
+    for runs in by_vehicle.values():
+        origin = _Axis([a.start for a in runs]).origin
+        runs = sorted(runs, key=lambda a: _minutes_between(origin, a.start))
+        for i, a in enumerate(runs):
+            for b in runs[i + 1 :]:
+                short = turnaround_min - _minutes_between(a.end, b.start)
+                if short <= 1e-9:
+                    break  # b and every later run start after a is done
+                found.append((a, b, short))
+    return found
+
+
+def naive_schedule(
+    options: Sequence[Job | Sequence[Candidate]],
+    *,
+    vehicles: int | Sequence[str],
+    turnaround_min: float,
+) -> Schedule:
+    """Plan every job at its earliest planned start, vehicles assigned greedily, for comparison.
+
+    Each job takes its earliest candidate on the planned route (``planned=True``; any
+    candidate if none is marked planned), whatever its risk or rule breaks. In order of start,
+    a job goes on the first allowed vehicle that is free (end of its previous run plus the
+    turnaround); when none is free it goes on the allowed vehicle that frees up first, and the
+    overlap is noted. Rule breaks and starts outside the window are noted too.
+
+    Parameters
+    ----------
+    options, vehicles, turnaround_min
+        As for :func:`solve_schedule`.
+
+    Returns
+    -------
+    Schedule
+        With status ``"naive"`` and no gap; jobs without any candidate, or without an allowed
+        vehicle, are unplaced.
+    """
+    clock = time.perf_counter()
+    jobs = _as_jobs(options)
+    fleet = _fleet(vehicles)
+    if not (math.isfinite(turnaround_min) and turnaround_min >= 0):
+        raise OptionError(f"turnaround must be 0 or more minutes, got {turnaround_min}",
+                          field="turnaround_min")
+    axis = _Axis([c.start for job in jobs for c in job.candidates])
+    index = {v: i for i, v in enumerate(fleet)}
+    reasons: dict[int, str] = {}
+    picks: list[tuple[int, int, int, int, list[int]]] = []  # start, end, job, cand, vehicles
+    notes: list[str] = []
+    for j, job in enumerate(jobs):
+        if not job.candidates:
+            reasons[j] = "window too short: no candidate start was given"
+            continue
+        pool = [c for c, cand in enumerate(job.candidates) if cand.planned] or list(
+            range(len(job.candidates))
+        )
+        c = min(pool, key=lambda c: (axis.floor(job.candidates[c].start), c))
+        cand = job.candidates[c]
+        _check_candidate(j, c, cand)
+        allowed = set(range(len(fleet)))
+        if job.vehicle is not None:
+            allowed &= {index[job.vehicle]} if job.vehicle in index else set()
+        if cand.vehicles is not None:
+            allowed &= {index[v] for v in cand.vehicles if v in index}
+        if not allowed:
+            reasons[j] = "no vehicle of the fleet is allowed for its earliest start"
+            continue
+        label = f"{job.run} #{job.repetition}"
+        if cand.rule_breaks:
+            notes.append(f"{label}: earliest start breaks {cand.rule_breaks} hard rule(s)")
+        if job.latest is not None and _minutes_between(job.latest, _plus_minutes(cand.start, cand.duration)) > 1e-9:
+            notes.append(f"{label}: ends after its latest time")
+        s = axis.floor(cand.start)
+        picks.append((s, axis.ceil(cand.start, cand.duration + turnaround_min), j, c, sorted(allowed)))
+    free_at = [-(10**18)] * len(fleet)
+    sol: dict[int, tuple[int, int]] = {}
+    for s, e, j, c, allowed in sorted(picks):
+        free = [v for v in allowed if free_at[v] <= s]
+        v = free[0] if free else min(allowed, key=lambda v: (free_at[v], v))
+        free_at[v] = max(free_at[v], e)
+        sol[j] = (c, v)
+    total = float(sum(jobs[j].candidates[c].risk for j, (c, _) in sol.items()))
+    schedule = _schedule(
+        jobs, fleet, sol, reasons, total, "naive", None, None, "naive", notes,
+        time.perf_counter() - clock, blocked="",
+    )
+    extra = [
+        f"{a.run} #{a.repetition} and {b.run} #{b.repetition} overlap on vehicle {a.vehicle} "
+        f"by {short:.1f} min (turnaround included)"
+        for a, b, short in overlaps(schedule.assignments, turnaround_min=turnaround_min)
+    ]
+    if extra:
+        schedule = Schedule(
+            schedule.assignments, schedule.unplaced, schedule.total_risk, schedule.status,
+            schedule.gap, schedule.lower_bound, schedule.method, (*schedule.notes, *extra),
+            schedule.seconds,
+        )
+    return schedule

@@ -1,0 +1,1 @@
+"""The invented sample town of Corvane (data files; see README.md here)."""

@@ -1,0 +1,112 @@
+"""Exposure tagging: a hand-computed case, sampling, crossings, rules."""
+
+from __future__ import annotations
+
+import dataclasses
+
+import geopandas as gpd
+import numpy as np
+import pytest
+from shapely import LineString, Point, box
+
+from routerisk import tagging
+from routerisk.profile import parse_profile
+
+CRS = "EPSG:32625"
+
+
+def _profile(**over):
+    doc = {
+        "version": 1, "name": "hand",
+        "sample_spacing_m": 10,
+        "baseline": {"by_road_class": {"residential": 0.5}, "default": 0.1},
+        "categories": {"school": {"select": [{"amenity": ["school"]}], "weight": 2.0,
+                                  "radius_m": 20, "decay": "none"}},
+        "crossing_weight": 0.25,
+        "rules": [{"name": "no school", "category": "school", "within_m": 5}],
+    }
+    doc.update(over)
+    return parse_profile(doc)
+
+
+def _edges(lines, highway="residential", speed=25 * 1.609344):
+    return gpd.GeoDataFrame(
+        {"highway": [highway] * len(lines), "length": [ln.length for ln in lines],
+         "speed_kph": [speed] * len(lines)}, geometry=lines, crs=CRS)
+
+
+def test_hand_computed_exposure():
+    # Edge A: 100 m along y = 0 from x = 0 to 100; 10 samples at x = 5, 15, ..., 95.
+    # School grounds: the square x in [0, 40], y in [10, 30] (10 m north of the edge).
+    # Radius 20 m, no decay: a sample is inside when its distance to the square is <= 20:
+    # x <= 40 -> distance 10 (x = 5..35: 4 samples); 40 < x -> distance sqrt((x-40)^2 + 100)
+    # <= 20 -> x - 40 <= sqrt(300) = 17.32 -> x = 45, 55 (2 samples). Total 6 of 10 -> 0.6.
+    # Edge B: 50 m along y = 100, far away -> 0. Edge C: 30 m up x = 200 -> 0.
+    lines = [LineString([(0, 0), (100, 0)]), LineString([(0, 100), (50, 100)]),
+             LineString([(200, 0), (200, 30)])]
+    src = gpd.GeoDataFrame({"category": ["school"]}, geometry=[box(0, 10, 40, 30)], crs=CRS)
+    cross = gpd.GeoDataFrame({"osmid": [1]}, geometry=[Point(50, 0)], crs=CRS)
+    out = tagging.tag_edges(_edges(lines), src, cross, _profile())
+    assert out["exp_school"].tolist() == [0.6, 0.0, 0.0]
+    assert out["infl_school"].tolist() == [0.6, 0.0, 0.0]
+    assert out["crossings"].tolist() == [1, 0, 0]
+    assert out["baseline"].tolist() == [0.5, 0.5, 0.5]
+    # severity at 25 mph with reference 25 mph is exactly 1
+    assert out["severity"].to_numpy() == pytest.approx([1.0, 1.0, 1.0])
+    # exposure per km: 0.5 + 2.0 * 0.6 + 0.25 * 1 crossing / 0.1 km = 4.2
+    assert out["exposure_km"].iloc[0] == pytest.approx(4.2)
+    # the school rule (within 5 m) does not reach edge A (10 m away)
+    assert out["rule_0"].tolist() == [False, False, False]
+
+
+def test_linear_decay_value():
+    # One sample (edge 10 m long, spacing 10): midpoint (5, 0); school point at (5, 30);
+    # radius 60, linear decay -> nearness 1 - 30/60 = 0.5.
+    prof = _profile(categories={"school": {"select": [{"amenity": "school"}], "weight": 1.0,
+                                           "radius_m": 60, "decay": "linear"}}, rules=[])
+    src = gpd.GeoDataFrame({"category": ["school"]}, geometry=[Point(5, 30)], crs=CRS)
+    empty = gpd.GeoDataFrame({"osmid": []}, geometry=[], crs=CRS)
+    out = tagging.tag_edges(_edges([LineString([(0, 0), (10, 0)])]), src, empty, prof)
+    assert out["exp_school"].iloc[0] == pytest.approx(0.5)
+
+
+def test_overlapping_sources_do_not_double_count_unless_stacked():
+    src = gpd.GeoDataFrame({"category": ["school", "school"]},
+                           geometry=[Point(5, 5), Point(6, 5)], crs=CRS)
+    empty = gpd.GeoDataFrame({"osmid": []}, geometry=[], crs=CRS)
+    edges = _edges([LineString([(0, 0), (10, 0)])])
+    once = tagging.tag_edges(edges, src, empty, _profile())
+    cats = {"school": {"select": [{"amenity": "school"}], "weight": 2.0, "radius_m": 20,
+                       "decay": "none", "stack": True}}
+    twice = tagging.tag_edges(edges, src, empty, _profile(categories=cats, rules=[]))
+    assert once["exp_school"].iloc[0] == 1.0
+    assert twice["exp_school"].iloc[0] == 2.0
+
+
+def test_long_edge_touching_school_briefly():
+    # A 600 m edge that passes within the radius for 50 m only is not scored as fully exposed.
+    src = gpd.GeoDataFrame({"category": ["school"]}, geometry=[box(300, 5, 350, 40)], crs=CRS)
+    empty = gpd.GeoDataFrame({"osmid": []}, geometry=[], crs=CRS)
+    prof = _profile(categories={"school": {"select": [{"amenity": "school"}], "weight": 1.0,
+                                           "radius_m": 4, "decay": "none"}}, rules=[])
+    out = tagging.tag_edges(_edges([LineString([(0, 0), (600, 0)])]), src, empty, prof)
+    assert out["exp_school"].iloc[0] == pytest.approx(0.0)
+    prof = dataclasses.replace(prof, categories=(dataclasses.replace(
+        prof.categories[0], radius_m=5.0),))
+    out = tagging.tag_edges(_edges([LineString([(0, 0), (600, 0)])]), src, empty, prof)
+    assert out["exp_school"].iloc[0] == pytest.approx(50 / 600)
+
+
+def test_sample_points_midpoints():
+    pts, owner = tagging.sample_points(np.array([LineString([(0, 0), (25, 0)])]), 10.0)
+    # ceil(25 / 10) = 3 equal pieces of 8.33 m: midpoints at 4.17, 12.5, 20.83
+    assert owner.tolist() == [0, 0, 0]
+    assert [p.x for p in pts] == pytest.approx([25 / 6, 12.5, 125 / 6])
+
+
+def test_rule_flag_within_distance():
+    src = gpd.GeoDataFrame({"category": ["school"]}, geometry=[Point(50, 4)], crs=CRS)
+    empty = gpd.GeoDataFrame({"osmid": []}, geometry=[], crs=CRS)
+    out = tagging.tag_edges(_edges([LineString([(0, 0), (100, 0)]),
+                                    LineString([(0, 50), (100, 50)])]), src, empty, _profile())
+    assert out["rule_0"].tolist() == [True, False]
