@@ -63,3 +63,236 @@ def rules_in_force(edges: pd.DataFrame, profile: Profile, minutes: np.ndarray | 
         cover = edges[f"rule_{i}"].to_numpy(dtype=bool)
         cols.append(cover & rule.by_minute[mins])
     return np.stack(cols, axis=1) if cols else np.zeros((n, 0), dtype=bool)
+
+
+# ----------------------------------------------------------------------------- routes
+
+import datetime as _dt  # noqa: E402
+import math  # noqa: E402
+from dataclasses import dataclass, field  # noqa: E402
+from typing import Any  # noqa: E402
+
+#: A turn counts as a left turn across traffic when the heading changes by this much to
+#: the left (degrees) at a node where the vehicle had another way to go (right-hand traffic).
+LEFT_TURN_MIN_DEG = 45.0
+LEFT_TURN_MAX_DEG = 150.0
+HOTSPOTS = 5
+
+
+@dataclass
+class RouteScore:
+    """The score of one route at one departure time."""
+
+    name: str
+    depart: _dt.datetime
+    length_km: float
+    duration_min: float
+    risk: float
+    risk_per_km: float
+    relative_index: float
+    by_category: dict[str, float]
+    share_in_influence: dict[str, float]
+    crossings: float
+    left_turns: int
+    rule_breaks: list[dict[str, Any]]
+    hotspots: list[dict[str, Any]]
+    segments: pd.DataFrame = field(repr=False)
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return the JSON form (the keys of ``routerisk score --json``)."""
+        r = _round
+        return {
+            "name": self.name,
+            "depart": self.depart.isoformat(),
+            "length_km": r(self.length_km),
+            "duration_min": r(self.duration_min),
+            "risk": r(self.risk),
+            "risk_per_km": r(self.risk_per_km),
+            "relative_index": r(self.relative_index),
+            "by_category": {k: r(v) for k, v in self.by_category.items()},
+            "share_in_influence": {k: r(v) for k, v in self.share_in_influence.items()},
+            "crossings": r(self.crossings),
+            "left_turns": self.left_turns,
+            "rule_breaks": self.rule_breaks,
+            "hotspots": self.hotspots,
+        }
+
+
+def _round(x: float, nd: int = 6) -> float:
+    return float(round(float(x), nd))
+
+
+class Scorer:
+    """Score edge sequences on a tagged network, time-aware, with numpy arrays.
+
+    Parameters
+    ----------
+    net
+        A tagged :class:`routerisk.network.Network`.
+    """
+
+    def __init__(self, net: Any) -> None:
+        self.net = net
+        prof = net.profile
+        self.profile = prof
+        e = net.edges
+        self.index = e.index
+        self.km = e["length"].to_numpy(dtype=float) / 1000.0
+        self.tt = e["travel_time"].to_numpy(dtype=float)
+        self.sev = e["severity"].to_numpy(dtype=float)
+        self.base = e["baseline"].to_numpy(dtype=float)
+        self.cross = e["crossings"].to_numpy(dtype=float)
+        self.names = e["name"].fillna("").astype(str).to_numpy()
+        self.cats = list(prof.category_names)
+        self.exp = np.column_stack([e[f"exp_{c}"].to_numpy(dtype=float) for c in self.cats])
+        self.infl = np.column_stack([e[f"infl_{c}"].to_numpy(dtype=float) for c in self.cats])
+        self.w = np.array([c.weight for c in prof.categories])
+        ones = np.ones(MINUTES_PER_WEEK)
+        self.mult_table = np.stack([
+            (prof.time_profile(c.time_profile).by_minute if c.time_profile else ones)
+            for c in prof.categories])  # (C, 10080)
+        self.rule_cover = np.column_stack(
+            [e[f"rule_{i}"].to_numpy(dtype=bool) for i in range(len(prof.rules))]
+        ) if prof.rules else np.zeros((len(e), 0), dtype=bool)
+        self.rule_time = np.stack([r.by_minute for r in prof.rules]) if prof.rules else (
+            np.zeros((0, MINUTES_PER_WEEK), dtype=bool))
+        # network-wide sums for the relative index (linear in the multipliers)
+        total_km = self.km.sum()
+        self.avg_base = float((self.sev * self.km * self.base).sum() + (
+            self.sev * prof.crossing_weight * self.cross).sum()) / total_km
+        self.avg_cat = (self.sev * self.km) @ (self.exp * self.w) / total_km  # (C,)
+        self.tz = net.timezone
+        nodes = net.nodes
+        self.node_xy = {n: (x, y) for n, x, y in zip(nodes.index, nodes["x"], nodes["y"],
+                                                      strict=True)}
+        self.out_degree = pd.Series(self.index.get_level_values(0)).value_counts().to_dict()
+        self._geoms = e.geometry.to_numpy()
+        import pyproj
+
+        self._to_ll = pyproj.Transformer.from_crs(e.crs, "EPSG:4326", always_xy=True)
+
+    def positions(self, edges: list[tuple[int, int, int]]) -> np.ndarray:
+        """Return row positions of (u, v, key) edges; raise KeyError for unknown ones."""
+        mi = pd.MultiIndex.from_tuples(edges, names=self.index.names)
+        pos = self.index.get_indexer(mi)
+        if (pos < 0).any():
+            bad = edges[int(np.flatnonzero(pos < 0)[0])]
+            raise KeyError(f"edge {bad} is not in the network")
+        return pos
+
+    def network_risk_per_km(self, minutes: np.ndarray) -> np.ndarray:
+        """Return the network's length-weighted average risk per km at each minute."""
+        mult = self.mult_table[:, np.asarray(minutes) % MINUTES_PER_WEEK].T  # (n, C)
+        return self.avg_base + mult @ self.avg_cat
+
+    def score(self, name: str, edges: list[tuple[int, int, int]], depart: _dt.datetime, *,
+              fractions: np.ndarray | None = None) -> RouteScore:
+        """Score a route given as edges driven in order from ``depart`` (aware datetime).
+
+        ``fractions`` gives the share of each edge driven (partial first and last edges);
+        length, time and crossings of a partial edge scale with it.
+        """
+        pos = self.positions(edges)
+        frac = np.ones(len(pos)) if fractions is None else np.asarray(fractions, dtype=float)
+        km = self.km[pos] * frac
+        tt = self.tt[pos] * frac
+        enter_s = np.concatenate([[0.0], np.cumsum(tt)[:-1]])
+        local = depart.astimezone(self.tz)
+        m0 = local.weekday() * 1440 + local.hour * 60 + local.minute + local.second / 60.0
+        minutes = np.floor(m0 + enter_s / 60.0).astype(np.int64) % MINUTES_PER_WEEK
+        mult = self.mult_table[:, minutes].T  # (n, C)
+        sev = self.sev[pos]
+        cat_parts = (sev * km)[:, None] * self.w[None, :] * mult * self.exp[pos]
+        base_part = sev * km * self.base[pos]
+        cross_part = sev * self.profile.crossing_weight * self.cross[pos] * frac
+        total = base_part + cat_parts.sum(axis=1) + cross_part
+        risk = float(total.sum())
+        length_km = float(km.sum())
+        expected = float((km * self.network_risk_per_km(minutes)).sum())
+        times = [local + _dt.timedelta(seconds=float(s)) for s in enter_s]
+        seg = pd.DataFrame({
+            "seq": np.arange(len(pos)), "u": [e[0] for e in edges], "v": [e[1] for e in edges],
+            "key": [e[2] for e in edges], "street": self.names[pos], "length_m": km * 1000.0,
+            "time": [t.isoformat() for t in times], "risk": total, "baseline": base_part,
+            "crossings": self.cross[pos] * frac, "crossing_part": cross_part,
+            "band": self.net.edges["band"].to_numpy()[pos],
+        })
+        for j, c in enumerate(self.cats):
+            seg[f"part_{c}"] = cat_parts[:, j]
+            seg[f"infl_{c}"] = self.infl[pos, j]
+        seg["_pos"] = pos
+        by_cat = {"baseline": float(base_part.sum()), "crossings": float(cross_part.sum())}
+        by_cat.update({c: float(cat_parts[:, j].sum()) for j, c in enumerate(self.cats)})
+        share = {c: float((km * self.infl[pos, j]).sum() / length_km) if length_km else 0.0
+                 for j, c in enumerate(self.cats)}
+        return RouteScore(
+            name=name, depart=local, length_km=length_km, duration_min=float(tt.sum() / 60.0),
+            risk=risk, risk_per_km=risk / length_km if length_km else 0.0,
+            relative_index=risk / expected if expected else 0.0,
+            by_category=by_cat, share_in_influence=share,
+            crossings=float((self.cross[pos] * frac).sum()),
+            left_turns=self.left_turns(edges),
+            rule_breaks=self.rule_breaks(pos, minutes, times, edges),
+            hotspots=self.hotspots(seg, cat_parts, base_part, cross_part),
+            segments=seg,
+        )
+
+    def rule_breaks(self, pos: np.ndarray, minutes: np.ndarray, times: list[_dt.datetime],
+                    edges: list[tuple[int, int, int]]) -> list[dict[str, Any]]:
+        """Return one record per edge driven while a hard rule covering it is in force."""
+        if not self.profile.rules:
+            return []
+        hit = self.rule_cover[pos] & self.rule_time[:, minutes].T  # (n, R)
+        out = []
+        for i, j in zip(*np.nonzero(hit), strict=True):
+            mid = self._geoms[pos[i]].interpolate(0.5, normalized=True)
+            lon, lat = self._to_ll.transform(mid.x, mid.y)
+            out.append({
+                "rule": self.profile.rules[j].name, "street": str(self.names[pos[i]]),
+                "edge": [int(x) for x in edges[i]], "time": times[i].isoformat(),
+                "lon": _round(lon, 7), "lat": _round(lat, 7),
+            })
+        return out
+
+    def hotspots(self, seg: pd.DataFrame, cat_parts: np.ndarray, base_part: np.ndarray,
+                 cross_part: np.ndarray, n: int = HOTSPOTS) -> list[dict[str, Any]]:
+        """Return the ``n`` segments that contribute most risk, with the reasons."""
+        total = seg["risk"].to_numpy()
+        order = np.lexsort((seg["seq"].to_numpy(), -total))[:n]
+        labels = {c.name: c.label for c in self.profile.categories}
+        out = []
+        for i in order:
+            parts = {labels[c]: cat_parts[i, j] for j, c in enumerate(self.cats)}
+            parts["street baseline"] = base_part[i]
+            parts["crossings"] = cross_part[i]
+            reasons = [k for k, v in sorted(parts.items(), key=lambda kv: (-kv[1], kv[0]))
+                       if v > 0.05 * total[i]][:3]
+            out.append({"street": str(seg["street"].iat[i]), "seq": int(seg["seq"].iat[i]),
+                        "edge": [int(seg["u"].iat[i]), int(seg["v"].iat[i]),
+                                 int(seg["key"].iat[i])],
+                        "risk": _round(total[i]), "time": seg["time"].iat[i],
+                        "share": _round(total[i] / total.sum() if total.sum() else 0.0),
+                        "reasons": reasons})
+        return out
+
+    def _heading(self, pos: int, at_end: bool) -> float:
+        g = self._geoms[pos].coords
+        (x0, y0), (x1, y1) = (g[-2], g[-1]) if at_end else (g[0], g[1])
+        return math.atan2(y1 - y0, x1 - x0)
+
+    def left_turns(self, edges: list[tuple[int, int, int]]) -> int:
+        """Count left turns across traffic between consecutive edges (right-hand traffic)."""
+        if len(edges) < 2:
+            return 0
+        pos = self.positions(edges)
+        n = 0
+        for i in range(len(edges) - 1):
+            node = edges[i][1]
+            if self.out_degree.get(node, 0) < 3:  # no choice at this node: not a junction
+                continue
+            a = self._heading(pos[i], True)
+            b = self._heading(pos[i + 1], False)
+            turn = math.degrees((b - a + math.pi) % (2 * math.pi) - math.pi)  # + = left
+            if LEFT_TURN_MIN_DEG <= turn <= LEFT_TURN_MAX_DEG:
+                n += 1
+        return n
