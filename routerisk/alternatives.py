@@ -282,7 +282,12 @@ class Suggester:
         plan = sc.score(name, planned, depart)
         plan_rows = list(sc.positions(planned))
         g = self.g
-        anchors = [g.node_of[planned[0][0]], *[g.node_of[int(n)] for n in (via or [])],
+        via = list(via or [])
+        if not via and planned[0][0] == planned[-1][1]:
+            # a loop: keep its far half by passing the node halfway along it
+            half = np.searchsorted(np.cumsum(sc.km[plan_rows]), sc.km[plan_rows].sum() / 2)
+            via = [planned[min(int(half), len(planned) - 1)][1]]
+        anchors = [g.node_of[planned[0][0]], *[g.node_of[int(n)] for n in via],
                    g.node_of[planned[-1][1]]]
         local = depart.astimezone(sc.tz)
         m0 = local.weekday() * 1440 + local.hour * 60 + local.minute + local.second / 60.0
@@ -304,15 +309,29 @@ class Suggester:
                     front.append((alt.score.duration_min, alt.score.risk))
                 seen.setdefault(key, alt)
                 penalty[list(key)] *= PENALTY
-        chosen: list[Alternative] = []
-        pool = sorted(seen.values(), key=lambda a: (not a.within_bounds,
-                                                    len(a.score.rule_breaks) > 0,
-                                                    len(a.score.rule_breaks), a.score.risk,
+        pool = sorted(seen.values(), key=lambda a: (len(a.score.rule_breaks),
+                                                    not a.within_bounds, a.score.risk,
                                                     a.score.duration_min))
-        for alt in pool:
+        good = [a for a in pool if a.within_bounds and not a.score.rule_breaks
+                and a.score.risk < plan.risk - 1e-12]
+        chosen = self._diverse(good, plan_rows, count, min_difference)
+        note = ""
+        if not chosen:
+            note = ("no alternative lowers the risk within the bounds (extra time, length, "
+                    "hard rules, difference from the plan); shown: the best candidate, the one "
+                    "that breaks the fewest") if pool else "no alternative route found"
+            chosen = pool[:1]
+        for i, a in enumerate(chosen, 1):
+            a.label = f"alternative {i}"
+        return Suggestion(name, plan, planned, chosen, sorted(set(front)), note)
+
+    def _diverse(self, pool: list[Alternative], plan_rows: list[int], count: int,
+                 min_difference: float) -> list[Alternative]:
+        """Pick, lowest risk first, alternatives that differ enough from the plan and each other."""
+        sc = self.scorer
+        chosen: list[Alternative] = []
+        for alt in sorted(pool, key=lambda a: (a.score.risk, a.score.duration_min)):
             rows = list(sc.positions(alt.edges))
-            if alt.score.risk >= plan.risk - 1e-12 and alt.within_bounds:
-                continue
             if 1.0 - alt.overlap_with_plan < min_difference:
                 continue
             if any(1.0 - _shared_share(rows, list(sc.positions(c.edges)), sc.km) <
@@ -321,21 +340,14 @@ class Suggester:
             chosen.append(alt)
             if len(chosen) == count:
                 break
-        ok = [a for a in chosen if a.within_bounds and not a.score.rule_breaks]
-        note = ""
-        if not ok:
-            note = ("no alternative meets the bounds (extra time, rules, difference); "
-                    "showing the ones that break the fewest")
-            if not chosen and pool:
-                chosen = pool[:1]
-        for i, a in enumerate(chosen, 1):
-            a.label = f"alternative {i}"
-        return Suggestion(name, plan, planned, chosen, sorted(set(front)), note)
+        return chosen
 
     def _exact(self, name, rows, depart, plan, plan_rows, t_max, l_max, m0, slack, anchors,
                penalty) -> Alternative | None:
         """Score a candidate exactly; close edges it drives against a rule and retry."""
         sc = self.scorer
+        if not rows:
+            return None
         extra = np.zeros(self.g.m, dtype=bool)
         for _ in range(MAX_REPAIRS):
             edges = self.g.as_tuples(rows)
@@ -387,3 +399,52 @@ def edges_frame(s: Suggestion) -> pd.DataFrame:
     parts = [s.planned.segments.assign(option="planned")]
     parts += [a.score.segments.assign(option=a.label) for a in s.alternatives]
     return pd.concat(parts, ignore_index=True)
+
+
+def via_nodes(matched: Any, route: Any, *, every: int | None = None) -> list[int]:
+    """Return the nodes an alternative must pass: the route's required interior points.
+
+    A required point is placed on the edge the matcher put it on; the edge's end node is kept.
+    With ``every`` = N, every Nth waypoint is kept as well.
+    """
+    n = len(route.lonlat)
+    keep = np.array(route.required, dtype=bool).copy()
+    if every:
+        keep[::every] = True
+    keep[0] = keep[-1] = False
+    out: list[int] = []
+    for i in np.flatnonzero(keep):
+        e = int(matched.point_edge[i])
+        if e < 0 or e >= len(matched.edges) - 1:
+            continue
+        node = int(matched.edges[e][1])
+        if not out or out[-1] != node:
+            out.append(node)
+    del n
+    return out
+
+
+def suggest_routes(net: Any, routes: list[Any], departs: list[dt.datetime] | None = None, *,
+                   count: int = 3, max_extra_time: float = 0.25,
+                   max_extra_length: float | None = None, min_difference: float = 0.3,
+                   keep_every: int | None = None, index: Any = None) -> list[Suggestion]:
+    """Suggest alternatives for each planned route at each departure time."""
+    from . import matching
+    from .errors import RouteInputError
+
+    idx = index or matching.RoadIndex(net.graph)
+    sug = Suggester(Scorer(net))
+    out = []
+    for r in routes:
+        m = matching.to_edges(idx, r)
+        times = departs or ([r.depart] if r.depart is not None else [])
+        if not times:
+            raise RouteInputError("no departure time: give --depart or a 'depart' property",
+                                  path=r.source or None, field=f"route {r.name!r}")
+        via = via_nodes(m, r, every=keep_every)
+        for t in times:
+            out.append(sug.suggest(r.name, list(m.edges), t, via=via, count=count,
+                                   max_extra_time=max_extra_time,
+                                   max_extra_length=max_extra_length,
+                                   min_difference=min_difference))
+    return out

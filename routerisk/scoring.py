@@ -213,7 +213,7 @@ class Scorer:
         seg = pd.DataFrame({
             "seq": np.arange(len(pos)), "u": [e[0] for e in edges], "v": [e[1] for e in edges],
             "key": [e[2] for e in edges], "street": self.names[pos], "length_m": km * 1000.0,
-            "time": [t.isoformat() for t in times], "risk": total, "baseline": base_part,
+            "time": [t.isoformat(timespec="seconds") for t in times], "risk": total, "baseline": base_part,
             "crossings": self.cross[pos] * frac, "crossing_part": cross_part,
             "band": self.net.edges["band"].to_numpy()[pos],
         })
@@ -249,7 +249,7 @@ class Scorer:
             lon, lat = self._to_ll.transform(mid.x, mid.y)
             out.append({
                 "rule": self.profile.rules[j].name, "street": str(self.names[pos[i]]),
-                "edge": [int(x) for x in edges[i]], "time": times[i].isoformat(),
+                "edge": [int(x) for x in edges[i]], "time": times[i].isoformat(timespec="seconds"),
                 "lon": _round(lon, 7), "lat": _round(lat, 7),
             })
         return out
@@ -296,3 +296,39 @@ class Scorer:
             if LEFT_TURN_MIN_DEG <= turn <= LEFT_TURN_MAX_DEG:
                 n += 1
         return n
+
+
+def parse_depart(text: str, tz: Any) -> _dt.datetime:
+    """Parse an ISO 8601 departure; a value without offset is local time in ``tz``."""
+    from .errors import OptionError
+
+    try:
+        t = _dt.datetime.fromisoformat(text.strip())
+    except ValueError as exc:
+        raise OptionError(f"not an ISO 8601 date and time: {text!r} (e.g. 2027-03-09T08:05)",
+                          field="--depart") from exc
+    return t.replace(tzinfo=tz) if t.tzinfo is None else t
+
+
+def score_routes(net: Any, routes: list[Any], departs: list[_dt.datetime] | None = None, *,
+                 index: Any = None) -> list[RouteScore]:
+    """Score planned routes (from :func:`routerisk.routes.read_routes`) on a network.
+
+    Each route is scored at every time in ``departs``; without any, at its own ``depart``.
+    """
+    from . import matching
+    from .errors import RouteInputError
+
+    idx = index or matching.RoadIndex(net.graph)
+    scorer = Scorer(net)
+    out = []
+    for r in routes:
+        matched = matching.to_edges(idx, r)
+        times = departs or ([r.depart] if r.depart is not None else [])
+        if not times:
+            raise RouteInputError("no departure time: give --depart or a 'depart' property",
+                                  path=r.source or None, field=f"route {r.name!r}")
+        for t in times:
+            out.append(scorer.score(r.name, list(matched.edges), t,
+                                    fractions=np.asarray(matched.fractions)))
+    return out

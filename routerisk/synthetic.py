@@ -24,10 +24,13 @@ import contextlib
 import logging
 import math
 import os
+import random
 import tempfile
+from bisect import bisect_right
 from array import array
-from collections.abc import Sequence
+from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
+from itertools import chain
 from pathlib import Path
 from typing import Any
 
@@ -62,6 +65,7 @@ _P_STUB = 0.4  # share of left-out block sides kept as two dead-end stubs
 _P_ONEWAY = 0.03  # share of residential block sides made one-way
 _P_DIAGONAL = 0.012  # share of all-residential blocks crossed by a diagonal street
 _P_BREAK = 0.18  # chance that a way ends at an intersection although tags do not change
+_P_RETAIL = 0.2  # share of arterial block frontages with a retail strip
 _CROSS_OFFSET = 12.0  # metres from the intersection to a crossing node on an arm
 
 _BLOCKED, _SCHOOL, _KINDER, _CAMPUS, _COLLEGE, _HOSPITAL, _PARK, _COMMERCIAL, _PLAY = range(1, 10)
@@ -112,18 +116,17 @@ _CODAS = ("", "", "", "n", "r", "l", "s", "sk", "rn", "lv", "x", "m")
 class _Names:
     """Invent unique words from syllables (never a list of real names)."""
 
-    def __init__(self, rng: np.random.Generator) -> None:
-        self._rng = rng
+    def __init__(self, pr: random.Random) -> None:
+        self._pr = pr
         self._used: dict[str, None] = {}
 
     def word(self) -> str:
-        rng = self._rng
+        """Return a new capitalised word of two or three invented syllables."""
+        choice = self._pr.choice
         while True:
             parts = []
-            for _ in range(2 if rng.random() < 0.7 else 3):
-                parts.append(_ONSETS[rng.integers(len(_ONSETS))])
-                parts.append(_VOWELS[rng.integers(len(_VOWELS))])
-                parts.append(_CODAS[rng.integers(len(_CODAS))])
+            for _ in range(2 if self._pr.random() < 0.7 else 3):
+                parts += (choice(_ONSETS), choice(_VOWELS), choice(_CODAS))
             w = "".join(parts).capitalize()
             if 4 <= len(w) <= 11 and w not in self._used:
                 self._used[w] = None
@@ -364,7 +367,7 @@ class _Out:
         self.ntags: list[dict[str, str] | None] = []
         self.refs = array("q")
         self.offs = array("q", [0])
-        self.wtags: list[tuple[tuple[str, str], ...]] = []
+        self.wtags: list[tuple[str, ...]] = []  # flat (key, value, key, value, ...)
         self.counts: dict[str, int] = {}
 
     def node(self, x: float, y: float, tags: dict[str, str] | None = None) -> int:
@@ -376,7 +379,7 @@ class _Out:
     def way(self, refs: Sequence[int], tags: dict[str, str]) -> None:
         self.refs.extend(refs)
         self.offs.append(len(self.refs))
-        self.wtags.append(tuple(tags.items()))
+        self.wtags.append(tuple(chain.from_iterable(tags.items())))
 
     def polygon(self, pts: Sequence[tuple[float, float]], tags: dict[str, str]) -> None:
         ids = [self.node(px, py) for px, py in pts]
@@ -386,8 +389,15 @@ class _Out:
         self.counts[what] = self.counts.get(what, 0) + n
 
 
-def _pick(rng: np.random.Generator, values: tuple[Any, ...], probs: tuple[float, ...]) -> Any:
-    return values[int(np.searchsorted(np.cumsum(probs), rng.random() * sum(probs)))]
+def _pick(pr: random.Random, values: tuple[Any, ...], probs: tuple[float, ...]) -> Any:
+    """Return one of ``values`` drawn with the weights ``probs``."""
+    cum = _CUMULATIVE.get(probs)
+    if cum is None:
+        cum = _CUMULATIVE[probs] = tuple(np.cumsum(probs) / sum(probs))
+    return values[min(bisect_right(cum, pr.random()), len(values) - 1)]
+
+
+_CUMULATIVE: dict[tuple[float, ...], tuple[float, ...]] = {}
 
 
 def _inset(pts: list[tuple[float, float]], margin: float) -> list[tuple[float, float]]:
@@ -408,8 +418,10 @@ class _City:
 
     def __init__(self, lay: _Layout, seed: int) -> None:
         self.lay = lay
+        # numpy for draws in bulk, the standard library's generator for single draws (faster)
         self.rng = np.random.default_rng([seed, lay.nx, lay.ny, 1])
-        self.names = _Names(np.random.default_rng([seed, lay.nx, lay.ny, 2]))
+        self.pr = random.Random(((seed * 1_000_003) + lay.nx) * 100_003 + lay.ny)
+        self.names = _Names(random.Random(((seed * 1_000_033) + lay.nx) * 100_019 + lay.ny))
         self.out = _Out(lay.nx * lay.ny + 1)
         self.xl = lay.x.ravel().tolist()
         self.yl = lay.y.ravel().tolist()
@@ -429,13 +441,13 @@ class _City:
             _SEC: ("Avenue", "Road", "Boulevard"),
             _PRI: ("Boulevard", "Avenue"),
         }
-        rng = self.rng
+        pr = self.pr
 
         def name(cls: int, numbered: int | None) -> str:
             if numbered is not None:
                 return f"Street {numbered}"
             opts = suffix[cls]
-            return f"{self.names.word()} {opts[rng.integers(len(opts))]}"
+            return f"{self.names.word()} {opts[pr.randrange(len(opts))]}"
 
         self.col_names: list[str] = []
         for i in range(lay.nx):
@@ -474,7 +486,7 @@ class _City:
 
     def plan_blocks(self) -> None:
         """Allocate blocks to campuses, hospitals, retail, commercial, schools and parks."""
-        lay, rng, area = self.lay, self.rng, self.area_km2
+        lay, rng, pr, area = self.lay, self.rng, self.pr, self.area_km2
         rc, cc = lay.row_cls, lay.col_cls
         art_adj = (
             (rc[:-1] >= _SEC)[:, None]
@@ -491,12 +503,15 @@ class _City:
         self.campuses: list[tuple[int, int, int, int]] = []
         for _ in range(max(1, int(rng.poisson(area / 20.0)))):
             for _attempt in range(40):
-                h, w = int(rng.integers(2, 4)), int(rng.integers(2, 4))
+                h, w = pr.randrange(2, 4), pr.randrange(2, 4)
                 if lay.ny - 1 - h <= 0 or lay.nx - 1 - w <= 0:
                     break
-                j = int(rng.integers(0, lay.ny - 1 - h + 1))
-                i = int(rng.integers(0, lay.nx - 1 - w + 1))
-                if (self.use[j : j + h, i : i + w] == 0).all():
+                j = pr.randrange(0, lay.ny - 1 - h + 1)
+                i = pr.randrange(0, lay.nx - 1 - w + 1)
+                inner_major = (lay.row_cls[j + 1 : j + h] >= _SEC).any() or (
+                    lay.col_cls[i + 1 : i + w] >= _SEC
+                ).any()
+                if not inner_major and (self.use[j : j + h, i : i + w] == 0).all():
                     self.use[j : j + h, i : i + w] = _CAMPUS
                     self.campuses.append((j, i, h, w))
                     break
@@ -531,19 +546,19 @@ class _City:
 
     def _plan_retail(self) -> None:
         """Choose block frontages along arterials for retail strips."""
-        lay, rng = self.lay, self.rng
+        lay, pr = self.lay, self.pr
         self.retail: list[tuple[int, int, int, int, int]] = []  # (k0, k1, block j, block i, side)
         nx = lay.nx
         for j in np.flatnonzero(lay.row_cls >= _SEC).tolist():
             for i in np.flatnonzero(lay.h_on[j]).tolist():
                 for bj, side in ((j - 1, -1), (j, 1)):
-                    if 0 <= bj < lay.ny - 1 and self.use[bj, i] == 0 and rng.random() < 0.3:
+                    if 0 <= bj < lay.ny - 1 and self.use[bj, i] == 0 and pr.random() < _P_RETAIL:
                         self.retail.append((j * nx + i, j * nx + i + 1, bj, i, side))
                         self.retail_block[bj, i] = True
         for i in np.flatnonzero(lay.col_cls >= _SEC).tolist():
             for j in np.flatnonzero(lay.v_on[i]).tolist():
                 for bi, side in ((i - 1, 1), (i, -1)):
-                    if 0 <= bi < lay.nx - 1 and self.use[j, bi] == 0 and rng.random() < 0.3:
+                    if 0 <= bi < lay.nx - 1 and self.use[j, bi] == 0 and pr.random() < _P_RETAIL:
                         self.retail.append((j * nx + i, (j + 1) * nx + i, j, bi, side))
                         self.retail_block[j, bi] = True
         if not self.retail:  # always at least one strip, on the first arterial side found
@@ -620,14 +635,14 @@ class _City:
         self.v_break = rng.random(lay.v_on.shape) < _P_BREAK
 
     def _street_tags(self, cls: int, name: str, oneway: bool, school: bool) -> dict[str, str]:
-        rng = self.rng
+        pr = self.pr
         hw = _HIGHWAY[cls]
-        if cls == _RES and not oneway and rng.random() < 0.03:
+        if cls == _RES and not oneway and pr.random() < 0.03:
             hw = "living_street"
         tags = {"highway": hw}
-        if not (cls == _RES and rng.random() < 0.03):
+        if not (cls == _RES and pr.random() < 0.03):
             tags["name"] = name
-        speed = _pick(rng, *_MAXSPEED[hw])
+        speed = _pick(pr, *_MAXSPEED[hw])
         if speed is not None:
             tags["maxspeed"] = speed
         if oneway:
@@ -635,19 +650,19 @@ class _City:
         if cls >= _SEC:
             lanes = ("2", "3") if oneway else ("4", "2", "3")
             probs = (0.6, 0.4) if oneway else (0.55, 0.35, 0.10)
-            tags["lanes"] = _pick(rng, lanes, probs)
-            tags["sidewalk"] = "separate" if rng.random() < 0.25 else "both"
+            tags["lanes"] = _pick(pr, lanes, probs)
+            tags["sidewalk"] = "separate" if pr.random() < 0.25 else "both"
         elif cls == _COL:
-            if rng.random() < 0.5:
+            if pr.random() < 0.5:
                 tags["lanes"] = "2"
             tags["sidewalk"] = "both"
         else:
-            sw = _pick(rng, ("both", "no", None, "left"), (0.5, 0.15, 0.3, 0.05))
+            sw = _pick(pr, ("both", "no", None, "left"), (0.5, 0.15, 0.3, 0.05))
             if sw is not None:
                 tags["sidewalk"] = sw
         if school:
             tags["hazard"] = "school_zone"
-            if rng.random() < 0.6:
+            if pr.random() < 0.6:
                 tags["maxspeed:conditional"] = _SCHOOL_CONDITIONAL
         return tags
 
@@ -670,7 +685,7 @@ class _City:
         if x1:
             pts.append((1.0 - off, _CROSS_TAGS[x1], False))
         if school:
-            pts.append((0.42, _CROSS_TAGS[5 if self.rng.random() < 0.5 else 3], False))
+            pts.append((0.42, _CROSS_TAGS[5 if self.pr.random() < 0.5 else 3], False))
         elif dt == dt:
             pts.append((dt, None, True))
         pts.sort(key=lambda p: p[0])
@@ -683,8 +698,8 @@ class _City:
             if tags:
                 self.out.count("crossing")
             if drive:
-                side = 1.0 if self.rng.random() < 0.5 else -1.0
-                dlen = self.rng.uniform(20.0, 30.0)
+                side = 1.0 if self.pr.random() < 0.5 else -1.0
+                dlen = self.pr.uniform(20.0, 30.0)
                 tip = self.out.node(px + nxv * side * dlen, py + nyv * side * dlen)
                 self.out.way([nid, tip], {"highway": "service", "service": "driveway"})
                 self.out.count("driveway")
@@ -733,7 +748,7 @@ class _City:
             self.out.count(f"way_{_HIGHWAY[cls]}")
 
     def _stubs(self) -> None:
-        lay, rng, nx = self.lay, self.rng, self.lay.nx
+        lay, pr, nx = self.lay, self.pr, self.lay.nx
         for stub, is_h in ((lay.h_stub, True), (lay.v_stub, False)):
             for p, q in np.argwhere(stub.any(axis=2)).tolist():
                 if is_h:
@@ -743,19 +758,19 @@ class _City:
                 for end, (k0, k1) in enumerate(((ka, kb), (kb, ka))):
                     if not stub[p, q, end]:
                         continue
-                    f = rng.uniform(0.28, 0.4)
+                    f = pr.uniform(0.28, 0.4)
                     tx = self.xl[k0] + (self.xl[k1] - self.xl[k0]) * f
                     ty = self.yl[k0] + (self.yl[k1] - self.yl[k0]) * f
-                    tip_tags = {"highway": "turning_circle"} if rng.random() < 0.3 else None
+                    tip_tags = {"highway": "turning_circle"} if pr.random() < 0.3 else None
                     tip = self.out.node(tx, ty, tip_tags)
                     tags = {"highway": "residential", "name": name}
-                    if rng.random() < 0.6:
+                    if pr.random() < 0.6:
                         tags["maxspeed"] = "25 mph"
                     self.out.way([k0 + 1, tip], tags)
                     self.out.count("stub")
 
     def _diagonals(self) -> None:
-        lay, rng, nx = self.lay, self.rng, self.lay.nx
+        lay, pr, nx = self.lay, self.pr, self.lay.nx
         for j, i in np.argwhere(lay.d_on).tolist():
             if lay.d_dir[j, i] == 0:
                 ka, kb = j * nx + i, (j + 1) * nx + i + 1
@@ -764,8 +779,8 @@ class _City:
             ax, ay, bx, by = self.xl[ka], self.yl[ka], self.xl[kb], self.yl[kb]
             dx, dy = bx - ax, by - ay
             length = math.hypot(dx, dy)
-            amp = rng.normal(0.0, 10.0)
-            n = int(rng.integers(2, 4))
+            amp = pr.gauss(0.0, 10.0)
+            n = pr.randrange(2, 4)
             refs = [ka + 1]
             for q in range(1, n + 1):
                 t = q / (n + 1)
@@ -773,7 +788,7 @@ class _City:
                 refs.append(self.out.node(ax + dx * t - dy / length * o, ay + dy * t + dx / length * o))
             refs.append(kb + 1)
             tags = {"highway": "residential", "name": f"{self.names.word()} Crescent"}
-            if rng.random() < 0.5:
+            if pr.random() < 0.5:
                 tags["maxspeed"] = "25 mph"
             self.out.way(refs, tags)
             self.out.count("diagonal")
@@ -781,7 +796,7 @@ class _City:
     # ----- sources ------------------------------------------------------------------------
     def sources(self) -> None:
         """Emit the polygons and nodes of every exposure source, then footways and land use."""
-        out, rng, names = self.out, self.rng, self.names
+        out, pr, names = self.out, self.pr, self.names
         for j, i, h, w in self.campuses:
             pts = _inset(self._block_corners(j, i, h, w), 14.0)
             out.polygon(pts, {"amenity": "university", "name": f"University of {names.word()}"})
@@ -802,13 +817,13 @@ class _City:
             out.count("commercial")
         kinds = ("Primary School", "School", "High School", "Middle School")
         for j, i in self.schools:
-            tags = {"amenity": "school", "name": f"{names.word()} {kinds[rng.integers(4)]}"}
+            tags = {"amenity": "school", "name": f"{names.word()} {kinds[pr.randrange(4)]}"}
             out.polygon(_inset(self._block_corners(j, i), 12.0), tags)
             out.count("school")
         for j, i in self.kinder:
             tags = {"amenity": "kindergarten", "name": f"{names.word()} Kindergarten"}
             c = self._block_corners(j, i)
-            if rng.random() < 0.5:
+            if pr.random() < 0.5:
                 cx, cy = _inset(c, 30.0)[0]
                 out.polygon([(cx, cy), (cx + 35, cy), (cx + 35, cy + 30), (cx, cy + 30)], tags)
             else:
@@ -827,7 +842,7 @@ class _City:
         self._residential_landuse()
 
     def _parks(self) -> None:
-        out, rng, lay = self.out, self.rng, self.lay
+        out, pr, lay = self.out, self.pr, self.lay
         nx = lay.nx
         for j, i in self.parks:
             corners = self._block_corners(j, i)
@@ -835,7 +850,7 @@ class _City:
             out.count("park")
             cx = sum(p[0] for p in corners) / 4
             cy = sum(p[1] for p in corners) / 4
-            if rng.random() < 0.4:
+            if pr.random() < 0.4:
                 out.polygon(
                     [(cx + 10, cy + 10), (cx + 35, cy + 10), (cx + 35, cy + 30), (cx + 10, cy + 30)],
                     {"leisure": "playground"},
@@ -846,12 +861,12 @@ class _City:
             ends = []
             for k, p in ((ka, corners[0]), (kb, corners[2])):
                 ends.append(k + 1 if lay.keep.flat[k] else out.node(*p))
-            mid = out.node(cx + rng.normal(0, 5), cy + rng.normal(0, 5))
+            mid = out.node(cx + pr.gauss(0, 5), cy + pr.gauss(0, 5))
             out.way([ends[0], mid, ends[1]], {"highway": "footway"})
             out.count("footway")
 
     def _retail(self) -> None:
-        out, rng = self.out, self.rng
+        out, pr = self.out, self.pr
         for k0, k1, bj, bi, side in self.retail:
             ax, ay, bx, by = self.xl[k0], self.yl[k0], self.xl[k1], self.yl[k1]
             dx, dy = bx - ax, by - ay
@@ -871,18 +886,18 @@ class _City:
             tags = {"landuse": "retail"}
             out.polygon([at(a0, 8.0), at(a1, 8.0), at(a1, 45.0), at(a0, 45.0)], tags)
             out.count("retail")
-            n = int(rng.integers(2, 6))
+            n = pr.randrange(1, 5)
             for q in range(n):
                 s = a0 + (a1 - a0) * (q + 0.5) / n
-                shop, label = _SHOPS[rng.integers(len(_SHOPS))]
+                shop, label = _SHOPS[pr.randrange(len(_SHOPS))]
                 stags = {"shop": shop}
-                if rng.random() < 0.6:
+                if pr.random() < 0.4:
                     stags["name"] = f"{self.names.word()} {label}"
                 out.node(*at(s, 25.0), stags)
                 out.count("shop")
 
     def _bus_stops(self) -> None:
-        lay, rng, out = self.lay, self.rng, self.out
+        lay, pr, out = self.lay, self.pr, self.out
         nx, ny = lay.nx, lay.ny
         lines = [("h", j) for j in np.flatnonzero(lay.row_cls >= _SEC).tolist()]
         lines += [("v", i) for i in np.flatnonzero(lay.col_cls >= _SEC).tolist()]
@@ -895,14 +910,13 @@ class _City:
                 ks = [j * nx + idx for j in range(ny)]
                 on, ow, name = lay.v_on[idx], int(lay.col_ow[idx]), self.col_names[idx]
                 cross_names = self.row_names
-            px = np.array([self.xl[k] for k in ks])
-            py = np.array([self.yl[k] for k in ks])
-            seg = np.hypot(np.diff(px), np.diff(py))
-            cum = np.concatenate([[0.0], np.cumsum(seg)])
-            s = rng.uniform(100.0, 300.0)
+            px = [self.xl[k] for k in ks]
+            py = [self.yl[k] for k in ks]
+            seg = [math.hypot(px[q + 1] - px[q], py[q + 1] - py[q]) for q in range(len(ks) - 1)]
+            cum = [0.0, *np.cumsum(seg).tolist()]
+            s = pr.uniform(100.0, 300.0)
             while s < cum[-1]:
-                q = int(np.searchsorted(cum, s, side="right") - 1)
-                q = min(q, len(seg) - 1)
+                q = min(bisect_right(cum, s) - 1, len(seg) - 1)
                 if on[q]:
                     t = (s - cum[q]) / seg[q]
                     ux, uy = (px[q + 1] - px[q]) / seg[q], (py[q + 1] - py[q]) / seg[q]
@@ -913,11 +927,11 @@ class _City:
                     sides = (1, -1) if ow == 0 else ((1,) if ow > 0 else (-1,))
                     for sd in sides:
                         tags = {"highway": "bus_stop", "name": stop_name, "bus": "yes"}
-                        if rng.random() < 0.7:
+                        if pr.random() < 0.7:
                             tags["public_transport"] = "platform"
                         out.node(bx + uy * 10.0 * sd, by - ux * 10.0 * sd, tags)
                         out.count("bus_stop")
-                s += rng.uniform(350.0, 450.0)
+                s += pr.uniform(350.0, 450.0)
 
     def _sidewalks(self) -> None:
         """Draw separate sidewalks beside some arterial sides (not joined to the streets)."""
@@ -943,12 +957,12 @@ class _City:
 
     def _residential_landuse(self) -> None:
         """Cover some neighbourhoods between the main streets with landuse=residential."""
-        lay, rng = self.lay, self.rng
+        lay, pr = self.lay, self.pr
         cols = [0, *np.flatnonzero(lay.col_cls >= _COL).tolist(), lay.nx - 1]
         rows = [0, *np.flatnonzero(lay.row_cls >= _COL).tolist(), lay.ny - 1]
         for r0, r1 in zip(rows[:-1], rows[1:], strict=True):
             for c0, c1 in zip(cols[:-1], cols[1:], strict=True):
-                if r1 - r0 >= 2 and c1 - c0 >= 2 and rng.random() < 0.6:
+                if r1 - r0 >= 2 and c1 - c0 >= 2 and pr.random() < 0.6:
                     pts = _inset(self._block_corners(r0, c0, r1 - r0, c1 - c0), 12.0)
                     self.out.polygon(pts, {"landuse": "residential"})
                     self.out.count("landuse_residential")
@@ -982,21 +996,32 @@ def _validate(
     return p, fmt
 
 
-def _to_lonlat(
-    x: np.ndarray, y: np.ndarray, *, centre: tuple[float, float], angle: float, epsg: int
-) -> tuple[np.ndarray, np.ndarray]:
-    """Rotate local metres by ``angle`` and place them around ``centre`` in the UTM zone."""
-    from pyproj import Transformer
+class _LonLat:
+    """Rotate local metres by ``angle`` and place them around ``centre`` in a UTM zone."""
 
-    lat0, lon0 = centre
-    fwd = Transformer.from_crs("EPSG:4326", f"EPSG:{epsg}", always_xy=True)
-    e0, n0 = fwd.transform(lon0, lat0)
-    ca, sa = math.cos(angle), math.sin(angle)
-    xe = e0 + x * ca - y * sa
-    yn = n0 + x * sa + y * ca
-    inv = Transformer.from_crs(f"EPSG:{epsg}", "EPSG:4326", always_xy=True)
-    lon, lat = inv.transform(xe, yn)
-    return np.asarray(lon), np.asarray(lat)
+    def __init__(self, *, centre: tuple[float, float], angle: float, epsg: int) -> None:
+        from pyproj import Transformer
+
+        lat0, lon0 = centre
+        fwd = Transformer.from_crs("EPSG:4326", f"EPSG:{epsg}", always_xy=True)
+        self.e0, self.n0 = fwd.transform(lon0, lat0)
+        self.cos, self.sin = math.cos(angle), math.sin(angle)
+        self.inv = Transformer.from_crs(f"EPSG:{epsg}", "EPSG:4326", always_xy=True)
+
+    def __call__(self, x: np.ndarray, y: np.ndarray) -> tuple[list[float], list[float]]:
+        xe = self.e0 + x * self.cos - y * self.sin
+        yn = self.n0 + x * self.sin + y * self.cos
+        lon, lat = self.inv.transform(xe, yn)
+        return np.asarray(lon).tolist(), np.asarray(lat).tolist()
+
+
+def _chunks(
+    ids: np.ndarray, x: np.ndarray, y: np.ndarray, lonlat: _LonLat, size: int = 1 << 16
+) -> Iterator[tuple[list[int], list[float], list[float]]]:
+    """Yield node ids with longitudes and latitudes a slice at a time (bounded memory)."""
+    for s in range(0, len(ids), size):
+        lon, lat = lonlat(x[s : s + size], y[s : s + size])
+        yield ids[s : s + size].tolist(), lon, lat
 
 
 def utm_epsg(lat: float, lon: float) -> int:
@@ -1062,21 +1087,21 @@ def write_city(
     epsg = utm_epsg(lat0, lon0)
     angle = math.radians(float(np.random.default_rng([seed, lay.nx, lay.ny, 3]).uniform(-10, 10)))
     kept = np.flatnonzero(lay.keep.ravel())
-    glon, glat = _to_lonlat(
-        lay.x.ravel()[kept], lay.y.ravel()[kept], centre=(lat0, lon0), angle=angle, epsg=epsg
-    )
+    lonlat = _LonLat(centre=(lat0, lon0), angle=angle, epsg=epsg)
     xs = np.frombuffer(out.xs, dtype=np.float64)
     ys = np.frombuffer(out.ys, dtype=np.float64)
-    elon, elat = _to_lonlat(xs, ys, centre=(lat0, lon0), angle=angle, epsg=epsg)
-    lon_all = np.concatenate([glon, elon])
-    lat_all = np.concatenate([glat, elat])
+    gx, gy = lay.x.ravel()[kept], lay.y.ravel()[kept]
+    x_lo, x_hi = min(gx.min(), xs.min(initial=0.0)), max(gx.max(), xs.max(initial=0.0))
+    y_lo, y_hi = min(gy.min(), ys.min(initial=0.0)), max(gy.max(), ys.max(initial=0.0))
+    # the rotated local bounding rectangle holds every node; its corners give the box
+    box_lon, box_lat = lonlat(np.array([x_lo, x_hi, x_hi, x_lo]), np.array([y_lo, y_lo, y_hi, y_hi]))
 
     header = osmium.io.Header()
     header.set("generator", "routerisk synthetic city")
     header.add_box(
         osmium.osm.Box(
-            osmium.osm.Location(float(lon_all.min()), float(lat_all.min())),
-            osmium.osm.Location(float(lon_all.max()), float(lat_all.max())),
+            osmium.osm.Location(min(box_lon) - 0.001, min(box_lat) - 0.001),
+            osmium.osm.Location(max(box_lon) + 0.001, max(box_lat) + 0.001),
         )
     )
     target.parent.mkdir(parents=True, exist_ok=True)
@@ -1090,25 +1115,25 @@ def write_city(
             node = mutable.Node()
             empty: dict[str, str] = {}
             gtags = city.grid_tags
-            for k, lo, la in zip(kept.tolist(), glon.tolist(), glat.tolist(), strict=True):
-                node.id = k + 1
-                node.location = (lo, la)
-                node.tags = gtags.get(k, empty)
-                writer.add_node(node)
-            first = out.first
-            for q, (lo, la, tg) in enumerate(
-                zip(elon.tolist(), elat.tolist(), out.ntags, strict=True)
-            ):
-                node.id = first + q
-                node.location = (lo, la)
-                node.tags = tg or empty
-                writer.add_node(node)
+            for ids, lon, lat in _chunks(kept, gx, gy, lonlat):
+                for k, lo, la in zip(ids, lon, lat, strict=True):
+                    node.id = k + 1
+                    node.location = (lo, la)
+                    node.tags = gtags.get(k, empty)
+                    writer.add_node(node)
+            ntags = out.ntags
+            for ids, lon, lat in _chunks(np.arange(len(xs)), xs, ys, lonlat):
+                for q, lo, la in zip(ids, lon, lat, strict=True):
+                    node.id = out.first + q
+                    node.location = (lo, la)
+                    node.tags = ntags[q] or empty
+                    writer.add_node(node)
             way = mutable.Way()
             refs, offs = out.refs, out.offs
-            for w, tags in enumerate(out.wtags):
+            for w, flat in enumerate(out.wtags):
                 way.id = w + 1
                 way.nodes = refs[offs[w] : offs[w + 1]].tolist()
-                way.tags = dict(tags)
+                way.tags = dict(zip(flat[::2], flat[1::2], strict=True))
                 writer.add_way(way)
         finally:
             writer.close()

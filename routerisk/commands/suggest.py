@@ -1,0 +1,82 @@
+"""``routerisk suggest``: lower-exposure alternatives that keep what the test needs."""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+from .. import CAUTION, mapview, routemap, routes, scoring
+from .._io import dumps_json
+from ..alternatives import suggest_routes
+from ..errors import OptionError
+from ._common import add_network, network_of
+
+HELP = "suggest lower-exposure alternatives to planned routes within a time bound"
+
+
+def _share(text: str) -> float:
+    try:
+        v = float(text)
+    except ValueError:
+        v = float("nan")
+    if not 0.0 <= v <= 10.0:
+        raise argparse.ArgumentTypeError(f"must be a share between 0 and 10, got {text!r}")
+    return v
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    """Add the options of ``suggest``."""
+    parser.add_argument("routes", type=Path, metavar="ROUTES", help="planned route file")
+    add_network(parser)
+    parser.add_argument("--depart", action="append", metavar="DATETIME",
+                        help="departure, ISO 8601 (no offset = area local time)")
+    parser.add_argument("--max-extra-time", type=_share, default=0.25, metavar="SHARE",
+                        help="bound on extra travel time as a share of the plan's (0.25)")
+    parser.add_argument("--max-extra-length", type=_share, default=None, metavar="SHARE",
+                        help="optional bound on extra length as a share of the plan's")
+    parser.add_argument("--min-difference", type=_share, default=0.3, metavar="SHARE",
+                        help="share of length alternatives differ by (0.3)")
+    parser.add_argument("--count", type=int, default=3, help="alternatives per route (3)")
+    parser.add_argument("--keep-every", type=int, default=None, metavar="N",
+                        help="also keep every Nth waypoint as a required via point")
+    parser.add_argument("--map", type=Path, metavar="FILE", help="write the HTML map here")
+    parser.add_argument("--force", action="store_true", help="replace an existing --map")
+    parser.add_argument("--tiles", metavar="URL", help="online background tiles (optional)")
+    parser.add_argument("--json", action="store_true", help="print the result as JSON")
+
+
+def run(args: argparse.Namespace) -> int:
+    """Run ``suggest``."""
+    if args.count < 1:
+        raise OptionError("must be at least 1", field="--count")
+    if args.keep_every is not None and args.keep_every < 1:
+        raise OptionError("must be at least 1", field="--keep-every")
+    if args.map and args.map.exists() and not args.force:
+        raise OptionError("already exists; pass --force to replace it", field="--map")
+    net = network_of(args)
+    departs = [scoring.parse_depart(d, net.timezone) for d in (args.depart or [])]
+    planned = routes.read_routes(args.routes, default_tz=net.timezone)
+    result = suggest_routes(net, planned, departs, count=args.count,
+                            max_extra_time=args.max_extra_time,
+                            max_extra_length=args.max_extra_length,
+                            min_difference=args.min_difference, keep_every=args.keep_every)
+    if args.map:
+        mapview.save(routemap.suggestion_map(net, result, tiles=args.tiles), args.map)
+    if args.json:
+        print(dumps_json({"routes": [s.to_dict() for s in result],
+                          "profile": net.profile.fingerprint}))
+        return 0
+    for s in result:
+        p = s.planned
+        print(f"{s.name} at {p.depart.isoformat()}: planned risk {p.risk:.3f}, "
+              f"{p.duration_min:.1f} min, {len(p.rule_breaks)} rule break(s)")
+        for a in s.alternatives:
+            print(f"  {a.label}: risk {a.score.risk:.3f} ({a.risk_change_pct:+.1f} %), "
+                  f"{a.score.duration_min:.1f} min ({a.time_change_pct:+.1f} %), "
+                  f"{len(a.score.rule_breaks)} rule break(s)")
+        if s.note:
+            print(f"  note: {s.note}")
+    if args.map:
+        print(f"wrote {args.map}")
+    print(CAUTION)
+    return 0
