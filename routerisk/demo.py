@@ -38,3 +38,30 @@ def run_demo(out: str | Path, *, force: bool = False,
 
 
 _STAGES: list[Callable[..., dict[str, Any] | None]] = []
+
+
+def _stage_score(net: Any, out: Path, echo: Callable[[str], None]) -> dict[str, Any]:
+    from . import routemap, routes, scoring
+
+    planned = routes.read_routes(datasets.get_path("routes"), default_tz=net.timezone)
+    scores = scoring.score_routes(net, planned)
+    routemap.write_outputs(net, scores, out / "scores")
+    echo("scores: " + "; ".join(f"{s.name} risk {s.risk:.2f} (index {s.relative_index:.2f}, "
+                               f"{len(s.rule_breaks)} rule breaks)" for s in scores))
+    return {"scores": [s.to_dict() for s in scores]}
+
+
+def _stage_suggest(net: Any, out: Path, echo: Callable[[str], None]) -> dict[str, Any]:
+    from . import routemap, routes
+    from .alternatives import suggest_routes
+
+    planned = routes.read_routes(datasets.get_path("routes"), default_tz=net.timezone)
+    result = suggest_routes(net, planned)
+    mapview.save(routemap.suggestion_map(net, result), out / "alternatives_map.html")
+    for s in result:
+        best = min((a.risk_change_pct for a in s.alternatives), default=0.0)
+        echo(f"alternatives for {s.name}: {len(s.alternatives)}, best risk change {best:+.0f} %")
+    return {"alternatives": [s.to_dict() for s in result]}
+
+
+_STAGES.extend([_stage_score, _stage_suggest])

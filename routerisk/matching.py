@@ -67,7 +67,11 @@ DENSE_SPACING_M = 60.0
 #: Traces whose median time step is at most this are matched, not joined (s) [practice].
 DENSE_INTERVAL_S = 10.0
 #: Extra driving allowed between consecutive fixes beyond their straight distance (m) [practice].
-MAX_DETOUR_M = 500.0
+MAX_DETOUR_M = 200.0
+#: Candidates of a fix farther than this many sigma_z beyond its nearest road are dropped.
+PRUNE_SIGMAS = 6.0
+#: At most this many candidate edge positions per fix (the nearest ones).
+MAX_CANDIDATES = 10
 #: Waypoint snapping keeps every edge within this of the nearest one and lets routing choose (m).
 _TIE_M = 2.0
 #: Median absolute deviation to standard deviation of a normal law (common practice).
@@ -786,6 +790,28 @@ def _thin(xy: np.ndarray, min_step: float, required: np.ndarray) -> np.ndarray:
     return keep
 
 
+def _prune(
+    point: np.ndarray, edge: np.ndarray, dist: np.ndarray, frac: np.ndarray, sigma: float
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Keep a fix's candidates within PRUNE_SIGMAS sigma of its nearest (in quadrature), at
+    most MAX_CANDIDATES of them; the emission of a dropped one is below exp(-18) of the best."""
+    if not len(point):
+        return point, edge, dist, frac
+    head = np.concatenate([[True], point[1:] != point[:-1]])
+    nearest = np.minimum.reduceat(dist, np.flatnonzero(head))[np.cumsum(head) - 1]
+    keep = dist**2 <= nearest**2 + (PRUNE_SIGMAS * sigma) ** 2
+    point, edge, dist, frac = point[keep], edge[keep], dist[keep], frac[keep]
+    count = np.bincount(point)
+    if count.max() > MAX_CANDIDATES:
+        order = np.lexsort((edge, dist, point))
+        point, edge, dist, frac = point[order], edge[order], dist[order], frac[order]
+        first = np.concatenate([[0], np.cumsum(count[count > 0])[:-1]])
+        rank = np.arange(len(point)) - np.repeat(first, count[count > 0])
+        keep = rank < MAX_CANDIDATES
+        point, edge, dist, frac = point[keep], edge[keep], dist[keep], frac[keep]
+    return point, edge, dist, frac
+
+
 def _positive(value: float, name: str) -> float:
     try:
         v = float(value)
@@ -862,7 +888,7 @@ def match_trace(
     detour = _positive(max_detour_m, "max_detour_m")
     keep = _thin(xy, 2.0 * sigma, route.required)
     kept = np.flatnonzero(keep)
-    point, edge, dist, frac = index.candidates(xy[kept], radius)
+    point, edge, dist, frac = _prune(*index.candidates(xy[kept], radius), sigma)
     point = kept[point]
     have = np.zeros(len(route), dtype=bool)
     have[point] = True

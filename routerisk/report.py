@@ -242,7 +242,10 @@ def bar_chart(labels: Sequence[str], values: Sequence[float], *, title: str, xla
         ax.set_title(title)
         ax.margins(x=0.12)
         ax.grid(True, axis="x", alpha=0.25)
-        fig.tight_layout()
+        longest = max((len(str(s)) for s in labels), default=4)
+        height = 0.9 + 0.32 * n
+        fig.subplots_adjust(left=min(0.5, 0.03 + 0.075 * longest / width), right=0.97,
+                            top=1 - 0.35 / height, bottom=0.45 / height)
     return fig
 
 
@@ -269,7 +272,7 @@ def grouped_bar_chart(groups: Sequence[str], series: Mapping[str, Sequence[float
         ax.grid(True, axis="y", alpha=0.25)
         if names:
             ax.legend(fontsize=8, ncols=min(len(names), 4), loc="upper right")
-        fig.tight_layout()
+        fig.subplots_adjust(left=0.08, right=0.98, top=0.9, bottom=0.12)
     return fig
 
 
@@ -301,7 +304,7 @@ def week_chart(series: Mapping[str, Sequence[float]], *, title: str, ylabel: str
         ax.grid(True, axis="y", alpha=0.25)
         if len(series) > 1:
             ax.legend(fontsize=7, loc="upper right")
-        fig.tight_layout()
+        fig.subplots_adjust(left=0.07, right=0.99, top=0.9, bottom=0.1)
     return fig
 
 
@@ -316,9 +319,22 @@ def map_html(m: folium.Map, *, title: str, height: int = 560) -> str:
     """
     from . import mapview
 
-    doc = mapview.render(m)
+    doc = _stable_ids(mapview.render(m))
     return (f'<iframe class="rr-map" title="{escape(title)}" height="{int(height)}" '
             f'srcdoc="{html.escape(doc, quote=True)}"></iframe>')
+
+
+_HEX_ID = re.compile(r"(?<=_)([0-9a-f]{32})(?=_)")
+
+
+def _stable_ids(text: str) -> str:
+    """Renumber the random 32-hex ids that remain inside names such as ``x_<hex>_styler``."""
+    seen: dict[str, str] = {}
+
+    def repl(mt: re.Match[str]) -> str:
+        return seen.setdefault(mt.group(1), f"h{len(seen):04d}")
+
+    return _HEX_ID.sub(repl, text)
 
 
 # ------------------------------------------------------------------------------------ page

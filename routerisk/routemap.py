@@ -246,7 +246,7 @@ def suggestion_map(net: Any, suggestions: list[Any], *, tiles: str | None = None
     for i, rule in enumerate(prof.rules):
         part = edges[edges[zone_cols[i]]] if zone_cols[i] in edges else edges.iloc[0:0]
         if len(part):
-            part = part.assign(_z="#000000", rule=rule.name)
+            part = part.assign(_z="#5a4fcf", rule=rule.name)
             mapview.add_lines(m, part, name=f"hard-rule zone: {rule.name}", colour_col="_z",
                               fields={"street": "street", "rule": "rule"}, weight=7,
                               opacity=0.35)

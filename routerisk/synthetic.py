@@ -354,6 +354,15 @@ def _choose_layout(edges: int, seed: int) -> _Layout:
             break
         n_nodes *= edges / max(lay.drive_edges, 1)
     assert best is not None
+    if abs(best.drive_edges / edges - 1) >= 0.02:  # small grids: try the neighbouring sizes
+        for dx, dy in ((-1, 0), (1, 0), (0, -1), (0, 1), (-1, 1), (1, -1)):
+            nx, ny = best.nx + dx, best.ny + dy
+            if (nx, ny) in tried or nx < 10 or ny < 8:
+                continue
+            tried.add((nx, ny))
+            lay = _make_layout(nx, ny, seed)
+            if abs(lay.drive_edges - edges) < abs(best.drive_edges - edges):
+                best = lay
     return best
 
 

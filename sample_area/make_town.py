@@ -895,8 +895,8 @@ About 3 km x 2.5 km: {c['nodes']} nodes, {c['ways']} ways ({c['drivable_ways']} 
 - Arterials: Tillerman Avenue (primary, 45 mph, 4 lanes, 40 mph along the shops with
   `sidewalk=separate` and mapped sidewalks), Osprell Road (secondary, 40 mph, 2 lanes),
   and the one-way pair Brindlecot Street (eastbound) / Vellamy Street (westbound).
-- Collectors (tertiary, 35 / 30 mph): Hobbin Street, Quarry Lane, Wherrit Street,
-  Pennycress Street, Cobmoor Street, Wickerlamp Street.
+- Collectors (tertiary, 35 / 30 mph): Hobbin Street, Quarry Lane, Ambrel Street, Wherrit
+  Street, Pennycress Street, Cobmoor Street, Wickerlamp Street.
 - A residential grid at 25 mph, with some streets carrying no `maxspeed` (imputed),
   campus roads at 20 mph, a `highway=living_street` (Wicket Mews), unclassified
   industrial roads with bare km/h limits (`50`, `40`), `maxspeed=walk` on Pennyroyal
@@ -927,10 +927,13 @@ uncontrolled, unmarked) near the schools, the shops and the campus, and
 
 ## Planned routes (`routes.geojson`)
 
-- `school-run` (Tuesday 15:05, school dismissal): north on Ambrel Street, east on Hobbin
-  Street right past the frontage of Marrowby Elementary School, north on Cobmoor Street.
-  The parallel {ALTERNATIVE_STREET}, two blocks south, passes no school, shop or campus
-  and takes only a few percent longer, so a lower-exposure alternative exists.
+- `school-run` (Tuesday 15:05, school dismissal): from the corner of Ambrel Street and
+  {ALTERNATIVE_STREET} north on Ambrel Street, east on Hobbin Street right past the
+  frontage of Marrowby Elementary School (its school zone), north on Cobmoor Street. It is
+  the fastest way at the posted limits. The parallel {ALTERNATIVE_STREET}, two blocks
+  south, then Cobmoor Street pass no school, shop or campus and take about 9 % longer
+  (less than the school-zone limit costs at dismissal), so a lower-exposure alternative
+  exists.
 - `tillerman-retail` (Saturday 11:30): along Tillerman Avenue through the shops;
   `required: [0, 3, 6]` keeps the signalised junction with Osprell Road in any alternative.
 - `campus-drive` (Wednesday 12:10): through the campus on Scholars Bend.
