@@ -41,8 +41,10 @@ def main(argv: Sequence[str] | None = None) -> int:
                         help="directed drivable edges after simplification (about)")  # fmt: skip
     parser.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
     parser.add_argument("--out", required=True, help="output file, .osm.pbf or .osm")
-    parser.add_argument("--centre", type=_centre, default=synthetic.DEFAULT_CENTRE,
-                        metavar="LAT,LON", help="city centre (default: open ocean, 30,-45)")  # fmt: skip
+    parser.add_argument(
+        "--centre", type=_centre, default=synthetic.DEFAULT_CENTRE, metavar="LAT,LON",
+        help="city centre (default 30,-45: open ocean)",
+    )  # fmt: skip
     parser.add_argument("--force", action="store_true", help="replace an existing file")
     args = parser.parse_args(argv)
     start = time.perf_counter()

@@ -157,7 +157,9 @@ def read_osm(
         }
 
         fp = osmium.FileProcessor(_osmium_file(p), osmium.osm.NODE | osmium.osm.WAY)
-        fp = fp.with_locations().with_filter(osmium.filter.EmptyTagFilter())
+        untagged_nodes = osmium.filter.EmptyTagFilter()
+        untagged_nodes.enable_for(osmium.osm.NODE)  # ways stay: multipolygon members are bare
+        fp = fp.with_locations().with_filter(untagged_nodes)
         header = fp.header
         box = header.box()
         bounds = None

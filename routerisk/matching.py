@@ -70,13 +70,15 @@ DENSE_INTERVAL_S = 10.0
 MAX_DETOUR_M = 200.0
 #: Candidates of a fix farther than this many sigma_z beyond its nearest road are dropped.
 PRUNE_SIGMAS = 6.0
-#: At most this many candidate edge positions per fix (the nearest ones).
+#: At most this many candidate edge positions per fix (the nearest; both directions count).
 MAX_CANDIDATES = 10
 #: Waypoint snapping keeps every edge within this of the nearest one and lets routing choose (m).
 _TIE_M = 2.0
 #: Median absolute deviation to standard deviation of a normal law (common practice).
 _MAD_TO_SIGMA = 1.4826
 _EPS = 1e-9
+#: Graphs with more nodes than this run bounded Dijkstra on the part a route can reach.
+_SUBGRAPH_MIN_NODES = 20_000
 
 Edge = tuple[Hashable, Hashable, Hashable]
 
@@ -154,7 +156,7 @@ class _Dist:
         return np.minimum(np.searchsorted(self.sources, src), len(self.sources) - 1)
 
     def cols(self, dst: np.ndarray) -> np.ndarray:
-        """Return the column of each node position, -1 for nodes outside the subgraph."""
+        """Return the column of each node position; -1 (a column of inf) outside the subgraph."""
         return np.asarray(dst, dtype=np.int64) if self.loc is None else self.loc[dst]
 
     def node_path(self, src: int, dst: int) -> list[int]:
@@ -334,6 +336,18 @@ class RoadIndex:
         a, b, sg = rc[:-1][same], rc[1:][same], ri[:-1][same]
         ab = b - a
         seg_len = np.hypot(ab[:, 0], ab[:, 1])
+        real = seg_len > 0
+        a, b, sg, ab, seg_len = a[real], b[real], sg[real], ab[real], seg_len[real]
+        lost = np.setdiff1d(np.arange(len(reps)), sg)
+        if len(lost):  # a geometry of zero length: index it as a 1 mm segment at its start
+            pa = shapely.get_coordinates(shapely.get_point(self.edge_geom[np.asarray(reps)[lost]], 0))
+            a = np.concatenate([a, pa])
+            b = np.concatenate([b, pa + [1e-3, 0.0]])
+            sg = np.concatenate([sg, lost])
+            order = np.argsort(sg, kind="stable")
+            a, b, sg = a[order], b[order], sg[order]
+            ab = b - a
+            seg_len = np.hypot(ab[:, 0], ab[:, 1])
         cum = np.cumsum(seg_len) - seg_len
         first_of = np.searchsorted(sg, np.arange(len(reps)))
         first_of = np.minimum(first_of, max(len(sg) - 1, 0))
@@ -360,9 +374,23 @@ class RoadIndex:
         return xy
 
     def candidates(
-        self, xy: np.ndarray, radius: float
+        self, xy: np.ndarray, radius: float, *, spread: float | None = None,
+        max_per_point: int | None = None,
     ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
         """Return the edge positions within ``radius`` of each point.
+
+        Parameters
+        ----------
+        xy
+            (N, 2) projected points.
+        radius
+            Search radius (m).
+        spread
+            If given, keep only positions with ``d**2 <= nearest**2 + spread**2`` (nearest: the
+            point's closest road), the rest being far less likely.
+        max_per_point
+            If given, keep at most this many geometries (each direction of a two-way street
+            then counts once) per point, the nearest.
 
         Returns
         -------
@@ -377,21 +405,33 @@ class RoadIndex:
         qi, si = self._seg_tree.query(boxes)
         qx, qy = px[qi] - self._seg_ax[si], py[qi] - self._seg_ay[si]
         dx, dy, l2 = self._seg_dx[si], self._seg_dy[si], self._seg_l2[si]
-        with np.errstate(divide="ignore", invalid="ignore"):
-            t = np.where(l2 > 0, (qx * dx + qy * dy) / l2, 0.0)
-        t = np.clip(t, 0.0, 1.0)
+        t = np.clip((qx * dx + qy * dy) / l2, 0.0, 1.0)  # l2 > 0: zero-length segments dropped
         d = np.hypot(qx - t * dx, qy - t * dy)
-        near = d <= radius
+        near = np.flatnonzero(d <= radius)
         qi, si, t, d = qi[near], si[near], t[near], d[near]
         g = self._seg_grp[si]
-        along = self._seg_cum[si] + t * self._seg_len[si]
-        order = np.lexsort((d, g, qi))
-        qi, g, d, along = qi[order], g[order], d[order], along[order]
-        head = np.ones(len(qi), dtype=bool)
-        head[1:] = (qi[1:] != qi[:-1]) | (g[1:] != g[:-1])
-        qi, g, d, along = qi[head], g[head], d[head], along[head]
-        glen = self._grp_len[g]
-        frac = np.where(glen > 0, along / np.where(glen > 0, glen, 1.0), 0.0)
+        key = qi * len(self._grp_len) + g
+        order = np.lexsort((d, key))
+        key = key[order]
+        head = np.flatnonzero(np.concatenate([[True], key[1:] != key[:-1]]))
+        take = order[head]
+        qi, g, d = qi[take], g[take], d[take]
+        along = self._seg_cum[si[take]] + t[take] * self._seg_len[si[take]]
+        if spread is not None and len(qi):
+            first = np.concatenate([[True], qi[1:] != qi[:-1]])
+            nearest = np.minimum.reduceat(d, np.flatnonzero(first))[np.cumsum(first) - 1]
+            keep = np.flatnonzero(d * d <= nearest * nearest + spread * spread)
+            qi, g, d, along = qi[keep], g[keep], d[keep], along[keep]
+        if max_per_point is not None and len(qi):
+            count = np.bincount(qi)
+            if count.max() > max_per_point:
+                order = np.lexsort((g, d, qi))
+                qi, g, d, along = qi[order], g[order], d[order], along[order]
+                count = count[count > 0]
+                rank = np.arange(len(qi)) - np.repeat(np.cumsum(count) - count, count)
+                keep = np.flatnonzero(rank < max_per_point)
+                qi, g, d, along = qi[keep], g[keep], d[keep], along[keep]
+        frac = along / self._grp_len[g]
         cnt = self._grp_count[g]
         rep = np.repeat(np.arange(len(g)), cnt)
         slot = self._grp_ptr[g][rep] + (np.arange(len(rep)) - np.repeat(np.cumsum(cnt) - cnt, cnt))
@@ -421,19 +461,23 @@ class RoadIndex:
         if not len(src):
             empty = np.empty((0, self.n_nodes))
             return _Dist(src, None, None, empty, empty.astype(np.int32))
-        if math.isfinite(limit):
+        if math.isfinite(limit) and self.n_nodes > _SUBGRAPH_MIN_NODES:
             margin = limit * self._reach[weight] + 1.0
             sxy = self.node_xy[src]
             lo, hi = sxy.min(axis=0) - margin, sxy.max(axis=0) + margin
             inside = ((self.node_xy >= lo) & (self.node_xy <= hi)).all(axis=1)
-            if inside.sum() < 0.6 * self.n_nodes:
+            # cutting pays off once the per-source set-up over all nodes costs more than the cut
+            if inside.sum() < 0.5 * self.n_nodes:
                 sub = np.flatnonzero(inside)
                 loc = np.full(self.n_nodes, -1, dtype=np.int64)
                 loc[sub] = np.arange(len(sub))
                 mat = mat[sub][:, sub]
         idx = src if loc is None else loc[src]
         dist, pred = dijkstra(mat, indices=idx, limit=limit, return_predecessors=True)
-        return _Dist(src, loc, sub, np.atleast_2d(dist), np.atleast_2d(pred))
+        dist = np.atleast_2d(dist)
+        if loc is not None:  # an extra column of inf: column -1 (outside the cut) reads inf
+            dist = np.hstack([dist, np.full((len(src), 1), np.inf)])
+        return _Dist(src, loc, sub, dist, np.atleast_2d(pred))
 
     def edges_between(self, weight: str, nodes: Sequence[int]) -> list[int]:
         """Return the edge positions joining consecutive node positions (best parallel edge)."""
@@ -481,15 +525,34 @@ def _layers(n_points: int, point: np.ndarray, edge: np.ndarray, dist: np.ndarray
     return _Layers(np.flatnonzero(have), layer_of[point], edge, frac, dist, start, count)
 
 
+def _ends(index: RoadIndex, L: _Layers, *, at_nodes: bool) -> tuple[np.ndarray, np.ndarray]:
+    """Return per candidate the node a route leaves from and the node a route arrives at.
+
+    Normally a route leaves a position on (u, v) through v and arrives through u. With
+    ``at_nodes`` a position at the very start of an edge is the node u itself, and one at the
+    very end is the node v itself (both directions and all edges meeting there then share one
+    Dijkstra source).
+    """
+    e, f = L.cand_edge, L.cand_frac
+    leave, arrive = index.edge_v[e], index.edge_u[e]
+    if at_nodes:
+        leave = np.where(f <= 0.0, index.edge_u[e], leave)
+        arrive = np.where(f >= 1.0, index.edge_v[e], arrive)
+    return leave, arrive
+
+
 def _route_costs(
-    index: RoadIndex, L: _Layers, *, weight: str, limit: float, back_tol_m: float
-) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, _Dist]:
+    index: RoadIndex, L: _Layers, *, weight: str, limit: float | np.ndarray, back_tol_m: float,
+    at_nodes: bool = False,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, _Dist | list[_Dist]]:
     """Return pair layer, from and to candidate and route cost between consecutive layers.
 
     Pairs come sorted by their from-candidate. The route cost from position (e, f) to (e', f')
     is the rest of e, the least cost from e's head to the tail of e', and the start of e'; on
     one edge moving forward it is the part of the edge between, and a step back of at most
-    ``back_tol_m`` costs nothing (GPS jitter).
+    ``back_tol_m`` costs nothing (GPS jitter). Node costs come from one bounded Dijkstra for
+    a scalar ``limit``, or one per transition for an array of limits (then a list of results,
+    one per transition, is returned).
     """
     start, count = L.start, L.count
     npairs = count[:-1] * count[1:]
@@ -501,19 +564,32 @@ def _route_costs(
     ib = start[1:][pair_t] + within % cnext
     e, f = L.cand_edge, L.cand_frac
     w = (index.edge_time if weight == "time" else index.edge_length)[e]
-    heads = index.edge_v[e]
-    res = index.distances(weight, heads[: start[-1]], limit)
-    rows = res.rows(heads)
-    cols = res.cols(index.edge_u[e])
+    heads, tails = _ends(index, L, at_nodes=at_nodes)
     tail, lead = (1.0 - f) * w, f * w
-    cb = cols[ib]
-    cost = tail[ia] + res.dist[rows[ia], np.maximum(cb, 0)] + lead[ib]
-    cost[cb < 0] = np.inf
+    if at_nodes:
+        tail = np.where(f <= 0.0, 0.0, tail)
+        lead = np.where(f >= 1.0, 0.0, lead)
+    res: _Dist | list[_Dist]
+    if np.ndim(limit) == 0:
+        res = index.distances(weight, heads[: start[-1]], float(limit))
+        rows = res.rows(heads)
+        cols = res.cols(tails)
+        cost = tail[ia] + res.dist[rows[ia], cols[ib]] + lead[ib]
+    else:
+        res = []
+        cost = np.empty(total)
+        lo = np.concatenate([[0], np.cumsum(npairs)])
+        for t in range(L.n - 1):
+            r = index.distances(weight, heads[start[t]:start[t] + count[t]], float(limit[t]))
+            res.append(r)
+            a, b = ia[lo[t]:lo[t + 1]], ib[lo[t]:lo[t + 1]]
+            cost[lo[t]:lo[t + 1]] = tail[a] + r.dist[r.rows(heads[a]), r.cols(tails[b])] + lead[b]
     same = np.flatnonzero(e[ia] == e[ib])
     if len(same):
         fa, fb = f[ia[same]], f[ib[same]]
         fwd = fb >= fa
-        cost[same[fwd]] = (fb[fwd] - fa[fwd]) * w[ia[same[fwd]]]
+        k = same[fwd]
+        cost[k] = np.minimum(cost[k], (fb[fwd] - fa[fwd]) * w[ia[k]])
         hold = ~fwd & ((fa - fb) * index.edge_length[e[ia[same]]] <= back_tol_m)
         cost[same[hold]] = 0.0
     return pair_t, ia, ib, cost, res
@@ -572,15 +648,17 @@ def _assemble(
     L: _Layers,
     chosen: np.ndarray,
     seg: np.ndarray,
-    res: _Dist,
+    res: _Dist | list[_Dist],
     *,
     method: str,
     weight: str,
     back_tol_m: float,
+    at_nodes: bool = False,
     sigma_z: float | None = None,
     beta: float | None = None,
 ) -> MatchedRoute:
     """Turn the chosen candidate per layer into an ordered list of edge visits."""
+    leave, arrive = _ends(index, L, at_nodes=at_nodes)
     ce = L.cand_edge[chosen]
     cf = L.cand_frac[chosen]
     same = ce[1:] == ce[:-1]
@@ -590,7 +668,6 @@ def _assemble(
     first = np.flatnonzero(new)  # layer opening each group of layers on one edge
     group = np.cumsum(new) - 1
     gmax = np.maximum.reduceat(cf, first)
-    edge_u, edge_v = index.edge_u, index.edge_v
     visits: list[list[Any]] = []  # [edge, start, end, starts_piece]
     group_visit = np.empty(len(first), dtype=np.int64)
     for k, t in enumerate(first.tolist()):
@@ -598,10 +675,14 @@ def _assemble(
         if seg[t]:
             visits.append([e, float(cf[t]), float(gmax[k]), True])
         else:
-            visits[-1][2] = 1.0
-            nodes = res.node_path(int(edge_v[ce[t - 1]]), int(edge_u[e]))
+            a, b = int(chosen[t - 1]), int(chosen[t])
+            if not (at_nodes and cf[t - 1] <= 0.0):  # else it leaves from u: e not driven
+                visits[-1][2] = 1.0
+            r = res[t - 1] if isinstance(res, list) else res
+            nodes = r.node_path(int(leave[a]), int(arrive[b]))
             visits.extend([pe, 0.0, 1.0, False] for pe in index.edges_between(weight, nodes))
-            visits.append([e, 0.0, float(gmax[k]), False])
+            on = 1.0 if at_nodes and cf[t] >= 1.0 else 0.0  # arrived at v without driving e
+            visits.append([e, on, float(gmax[k]), False])
         group_visit[k] = len(visits) - 1
     point_visit = np.full(len(route), -1, dtype=np.int64)
     point_off = np.full(len(route), np.nan)
@@ -735,24 +816,31 @@ def join_waypoints(
     nearest = np.minimum.reduceat(dist, np.flatnonzero(head))[np.cumsum(head) - 1]
     near = dist <= nearest + _TIE_M
     L = _layers(len(route), point[near], edge[near], dist[near], frac[near])
-    gap = np.hypot(*np.diff(xy, axis=0).T)
-    limit = 2.5 * float(gap.max()) / max(index.median_speed, 1.0) + 60.0
+    # per transition a first bound on the fastest time: 1.5 x straight distance at the
+    # median speed plus 30 s; the result is checked optimal below, or recomputed wider
+    gap = np.hypot(*np.diff(xy[L.point], axis=0).T)
+    limit = 1.5 * gap / max(index.median_speed, 0.5) + 30.0
     em = np.zeros(len(L.cand_layer))
-    while True:
+    for attempt in range(4):
+        if attempt == 3:
+            limit = np.full(L.n - 1, np.inf)
         pair_t, ia, ib, cost, res = _route_costs(index, L, weight="time", limit=limit,
-                                                 back_tol_m=0.0)
+                                                 back_tol_m=0.0, at_nodes=True)
         chosen, seg, best = _viterbi(L, em, pair_t, ia, ib, cost)
-        exact = not seg[1:].any()
-        if exact and math.isfinite(limit):
-            # a pair left out by the bound costs more than `limit`; the chain found is optimal
-            # if it beats every chain that would use one (lower bound: limit + the others' minima)
+        if not seg[1:].any():
+            # a pair left out at transition t costs more than limit[t], so a chain using it
+            # costs more than limit[t] + the least costs of the other transitions: the chain
+            # found is optimal when it is no dearer than every such bound
             m_t = np.full(L.n - 1, np.inf)
             np.minimum.at(m_t, pair_t, cost)
             found = float(best[chosen[-1]]) - L.n * _EPS
-            exact = found - float(m_t.sum()) <= limit - float(m_t.max()) + 1e-9
-        if exact:
-            break
-        if not math.isfinite(limit):
+            slack = float(np.min(limit - m_t))
+            if found - float(m_t.sum()) <= slack + 1e-9:
+                break
+            limit = limit * 3.0
+        elif attempt < 3:
+            limit = np.where(seg[1:], np.inf, limit)
+        else:
             t = int(np.flatnonzero(seg[1:])[0])
             raise RouteInputError(
                 f"no drivable path from point {int(L.point[t])} to point {int(L.point[t + 1])} "
@@ -760,9 +848,8 @@ def join_waypoints(
                 path=route.source or None,
                 field=f"route {route.name!r} point {int(L.point[t + 1])}",
             )
-        limit = math.inf
     out = _assemble(index, route, L, chosen, seg, res, method="join", weight="time",
-                    back_tol_m=0.0)
+                    back_tol_m=0.0, at_nodes=True)
     logger.debug("join_waypoints %r: %d edges, %.0f m, %.0f s", route.name, len(out),
                  out.length_m, out.time_s)
     return out
@@ -788,28 +875,6 @@ def _thin(xy: np.ndarray, min_step: float, required: np.ndarray) -> np.ndarray:
         else:
             keep[i] = False
     return keep
-
-
-def _prune(
-    point: np.ndarray, edge: np.ndarray, dist: np.ndarray, frac: np.ndarray, sigma: float
-) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Keep a fix's candidates within PRUNE_SIGMAS sigma of its nearest (in quadrature), at
-    most MAX_CANDIDATES of them; the emission of a dropped one is below exp(-18) of the best."""
-    if not len(point):
-        return point, edge, dist, frac
-    head = np.concatenate([[True], point[1:] != point[:-1]])
-    nearest = np.minimum.reduceat(dist, np.flatnonzero(head))[np.cumsum(head) - 1]
-    keep = dist**2 <= nearest**2 + (PRUNE_SIGMAS * sigma) ** 2
-    point, edge, dist, frac = point[keep], edge[keep], dist[keep], frac[keep]
-    count = np.bincount(point)
-    if count.max() > MAX_CANDIDATES:
-        order = np.lexsort((edge, dist, point))
-        point, edge, dist, frac = point[order], edge[order], dist[order], frac[order]
-        first = np.concatenate([[0], np.cumsum(count[count > 0])[:-1]])
-        rank = np.arange(len(point)) - np.repeat(first, count[count > 0])
-        keep = rank < MAX_CANDIDATES
-        point, edge, dist, frac = point[keep], edge[keep], dist[keep], frac[keep]
-    return point, edge, dist, frac
 
 
 def _positive(value: float, name: str) -> float:
@@ -888,7 +953,9 @@ def match_trace(
     detour = _positive(max_detour_m, "max_detour_m")
     keep = _thin(xy, 2.0 * sigma, route.required)
     kept = np.flatnonzero(keep)
-    point, edge, dist, frac = _prune(*index.candidates(xy[kept], radius), sigma)
+    point, edge, dist, frac = index.candidates(
+        xy[kept], radius, spread=PRUNE_SIGMAS * sigma, max_per_point=MAX_CANDIDATES // 2
+    )
     point = kept[point]
     have = np.zeros(len(route), dtype=bool)
     have[point] = True

@@ -77,7 +77,7 @@ from typing import Any
 import numpy as np
 import yaml
 from scipy import sparse
-from scipy.optimize import Bounds, LinearConstraint, milp
+from scipy.optimize import Bounds, LinearConstraint, linprog, milp
 
 from .errors import InputFileError, OptionError
 
@@ -815,11 +815,12 @@ _Placement = tuple[_Opt, int]  # (option, vehicle index)
 
 
 class _Timeline:
-    """Busy intervals of each vehicle, sorted by start (they never overlap)."""
+    """Busy intervals of each vehicle and the jobs in them, sorted by start (never overlapping)."""
 
     def __init__(self, n_vehicles: int) -> None:
         self.starts: list[list[int]] = [[] for _ in range(n_vehicles)]
         self.ends: list[list[int]] = [[] for _ in range(n_vehicles)]
+        self.jobs: list[list[int]] = [[] for _ in range(n_vehicles)]
 
     def fits(self, v: int, s: int, e: int) -> bool:
         starts, ends = self.starts[v], self.ends[v]
@@ -832,147 +833,236 @@ class _Timeline:
         i = bisect.bisect_right(self.starts[v], s)
         return s - self.ends[v][i - 1] if i > 0 else s + 10**12
 
-    def add(self, v: int, s: int, e: int) -> None:
+    def blockers(self, v: int, s: int, e: int) -> list[int]:
+        """Return the jobs on ``v`` whose occupancy overlaps ``[s, e)``."""
+        starts, ends, jobs = self.starts[v], self.ends[v], self.jobs[v]
+        i = bisect.bisect_right(ends, s)  # ends are sorted too, as intervals do not overlap
+        found = []
+        while i < len(starts) and starts[i] < e:
+            found.append(jobs[i])
+            i += 1
+        return found
+
+    def add(self, v: int, s: int, e: int, job: int) -> None:
         i = bisect.bisect_right(self.starts[v], s)
         self.starts[v].insert(i, s)
         self.ends[v].insert(i, e)
+        self.jobs[v].insert(i, job)
 
-    def remove(self, v: int, s: int, e: int) -> None:
-        i = bisect.bisect_left(self.starts[v], s)
-        while self.ends[v][i] != e:
-            i += 1
-        del self.starts[v][i]
-        del self.ends[v][i]
+    def remove(self, v: int, job: int) -> None:
+        i = self.jobs[v].index(job)
+        del self.starts[v][i], self.ends[v][i], self.jobs[v][i]
 
 
-def _tightest(tl: _Timeline, o: _Opt, vehicles: Iterable[int]) -> int | None:
-    """Return the fitting vehicle that leaves the least idle time before ``o`` (best fit)."""
-    fitting = [v for v in vehicles if tl.fits(v, o.s, o.e)]
-    if not fitting:
-        return None
-    return min(fitting, key=lambda v: (tl.idle_before(v, o.s), v))
+_EPS_RISK = 1e-9  # a move must lower the risk by more than this to count as an improvement
 
 
-def _best_insert(tl: _Timeline, opts: Sequence[_Opt]) -> _Placement | None:
-    """Return the least-risk fitting placement of a job (``opts`` sorted by risk)."""
-    for o in opts:
-        v = _tightest(tl, o, o.vehicles)
-        if v is not None:
-            return o, v
-    return None
+class _Search:
+    """A schedule under construction or improvement: placements and vehicle timelines."""
 
+    def __init__(self, usable: Sequence[Sequence[_Opt]], n_vehicles: int) -> None:
+        self.usable = usable
+        self.tl = _Timeline(n_vehicles)
+        self.sol: dict[int, _Placement] = {}
 
-def _regret_insertion(usable: Sequence[Sequence[_Opt]], tl: _Timeline) -> dict[int, _Placement]:
-    """Place jobs one at a time, the one with the largest regret first."""
-    pending = {j: list(opts) for j, opts in enumerate(usable) if opts}
-    sol: dict[int, _Placement] = {}
-    while pending:
-        best_key: tuple[float, int, float, int] | None = None
-        for j, opts in pending.items():
-            if not opts:
-                continue
-            second = opts[1].risk if len(opts) > 1 else math.inf  # one entry per candidate
-            key = (-(second - opts[0].risk), len(opts), opts[0].risk, j)
-            if best_key is None or key < best_key:
-                best_key = key
-        if best_key is None:
-            break
-        j = best_key[3]
-        placement = _best_insert(tl, pending.pop(j))
-        if placement is None:  # cannot happen: pending options always fit some vehicle
-            continue
-        o, v = placement
-        tl.add(v, o.s, o.e)
-        sol[j] = placement
-        for k, opts in pending.items():
-            pending[k] = [p for p in opts if _tightest(tl, p, p.vehicles) is not None]
-    return sol
+    @property
+    def risk(self) -> float:
+        return _risk(self.sol)
 
+    def key(self) -> tuple[int, float]:
+        """Return the sort key of the objective: more placed jobs first, then less risk."""
+        return -len(self.sol), self.risk
 
-def _improve(
-    usable: Sequence[Sequence[_Opt]], tl: _Timeline, sol: dict[int, _Placement], *, rounds: int
-) -> None:
-    """Improve ``sol`` in place by insertions, ejections and one- and two-job moves."""
+    def place(self, j: int, p: _Placement) -> None:
+        self.tl.add(p[1], p[0].s, p[0].e, j)
+        self.sol[j] = p
 
-    def place(j: int, p: _Placement) -> None:
-        tl.add(p[1], p[0].s, p[0].e)
-        sol[j] = p
-
-    def lift(j: int) -> _Placement:
-        p = sol.pop(j)
-        tl.remove(p[1], p[0].s, p[0].e)
+    def lift(self, j: int) -> _Placement:
+        p = self.sol.pop(j)
+        self.tl.remove(p[1], j)
         return p
 
-    for _ in range(rounds):
+    def vehicle_for(self, o: _Opt) -> int | None:
+        """Return the fitting vehicle leaving the least idle time before ``o`` (best fit)."""
+        fitting = [v for v in o.vehicles if self.tl.fits(v, o.s, o.e)]
+        if not fitting:
+            return None
+        return min(fitting, key=lambda v: (self.tl.idle_before(v, o.s), v))
+
+    def best_insert(self, j: int) -> _Placement | None:
+        """Return the least-risk fitting placement of job ``j`` (options sorted by risk)."""
+        for o in self.usable[j]:
+            v = self.vehicle_for(o)
+            if v is not None:
+                return o, v
+        return None
+
+    def regret_fill(self) -> None:
+        """Place the unplaced jobs one at a time, the one with the largest regret first.
+
+        The regret of a job is the risk difference between its second-best and best start
+        that still fit; a job with a single fitting start has infinite regret.
+        """
+        pending = {
+            j: [o for o in opts if self.vehicle_for(o) is not None]
+            for j, opts in enumerate(self.usable)
+            if opts and j not in self.sol
+        }
+        while True:
+            best_key: tuple[float, int, float, int] | None = None
+            for j, opts in pending.items():
+                if opts:
+                    second = opts[1].risk if len(opts) > 1 else math.inf
+                    key = (-(second - opts[0].risk), len(opts), opts[0].risk, j)
+                    if best_key is None or key < best_key:
+                        best_key = key
+            if best_key is None:
+                return
+            j = best_key[3]
+            pending.pop(j)
+            placement = self.best_insert(j)
+            if placement is not None:
+                self.place(j, placement)
+                o, v = placement
+                for k, opts in pending.items():
+                    pending[k] = [p for p in opts if self.vehicle_for(p) is not None]
+
+    def guided_fill(self, model: _Model, x: np.ndarray) -> None:
+        """Place jobs following a fractional (LP) solution ``x`` of ``model``, then the rest.
+
+        Jobs whose LP value is most concentrated go first; each tries its starts (and, per
+        vehicle, its vehicles) in order of LP value.
+        """
+        prefs: dict[int, list[tuple[float, float, _Opt, int]]] = {}
+        for i in np.flatnonzero(x > 1e-6):
+            o, v = model.opts[i], int(model.vehicle[i])
+            prefs.setdefault(o.job, []).append((-float(x[i]), o.risk, o, v))
+        order = sorted(prefs, key=lambda j: (min(p[0] for p in prefs[j]), len(self.usable[j]), j))
+        for j in order:
+            for _, _, o, v in sorted(prefs[j], key=lambda p: (p[0], p[1], p[2].cand, p[3])):
+                chosen = self.vehicle_for(o) if v < 0 else (v if self.tl.fits(v, o.s, o.e) else None)
+                if chosen is not None:
+                    self.place(j, (o, chosen))
+                    break
+        self.regret_fill()
+
+    def earliest_end_fill(self) -> None:
+        """Place jobs greedily by earliest end of a fitting start (the classic rule for most
+        intervals), ties by lower risk."""
+        while True:
+            best: tuple[_Opt, int] | None = None
+            for j, opts in enumerate(self.usable):
+                if j in self.sol:
+                    continue
+                for o in opts:
+                    if best is not None and (o.e, o.risk, o.job) >= (best[0].e, best[0].risk, best[0].job):
+                        continue
+                    v = self.vehicle_for(o)
+                    if v is not None:
+                        best = (o, v)
+            if best is None:
+                return
+            self.place(best[0].job, best)
+
+    def improve(self, *, rounds: int = 20) -> None:
+        """Apply improving moves until none is left (or ``rounds`` passes)."""
+        for _ in range(rounds):
+            changed = self._insert_unplaced()
+            changed = self._swap_in() or changed
+            changed = self._move_one() or changed
+            changed = self._move_two() or changed
+            if not changed:
+                return
+
+    def _insert_unplaced(self) -> bool:
+        """Insert unplaced jobs, directly or by moving the single job that blocks a start."""
         changed = False
-        # 1. insert unplaced jobs, directly or by ejecting one placed job that then moves
-        for u in range(len(usable)):
-            if u in sol or not usable[u]:
+        for u, opts in enumerate(self.usable):
+            if u in self.sol or not opts:
                 continue
-            p = _best_insert(tl, usable[u])
+            p = self.best_insert(u)
             if p is not None:
-                place(u, p)
+                self.place(u, p)
                 changed = True
                 continue
-            for j in sorted(sol):
-                old = lift(j)
-                pu = _best_insert(tl, usable[u])
-                if pu is not None:
-                    place(u, pu)
-                    pj = _best_insert(tl, usable[j])
-                    if pj is not None:
-                        place(j, pj)
-                        changed = True
+            changed = self._eject_for(u) or changed
+        return changed
+
+    def _eject_for(self, u: int) -> bool:
+        for o in self.usable[u]:
+            for v in o.vehicles:
+                blocking = self.tl.blockers(v, o.s, o.e)
+                if len(blocking) != 1:
+                    continue
+                b = blocking[0]
+                old = self.lift(b)
+                self.place(u, (o, v))
+                pb = self.best_insert(b)
+                if pb is not None:
+                    self.place(b, pb)
+                    return True
+                self.lift(u)
+                self.place(b, old)
+        return False
+
+    def _swap_in(self) -> bool:
+        """Let an unplaced job take the place of a single placed job of higher risk."""
+        changed = False
+        for u, opts in enumerate(self.usable):
+            if u in self.sol:
+                continue
+            for o in opts:
+                done = False
+                for v in o.vehicles:
+                    blocking = self.tl.blockers(v, o.s, o.e)
+                    if len(blocking) == 1 and o.risk < self.sol[blocking[0]][0].risk - _EPS_RISK:
+                        self.lift(blocking[0])
+                        self.place(u, (o, v))
+                        done = changed = True
                         break
-                    lift(u)
-                place(j, old)
-        # 2. move one job to its best place
-        for j in sorted(sol):
-            old = lift(j)
-            new = _best_insert(tl, usable[j])
-            if new is not None and new[0].risk < old[0].risk - 1e-12:
-                place(j, new)
+                if done:
+                    break
+        return changed
+
+    def _move_one(self) -> bool:
+        """Move each job to its least-risk fitting start."""
+        changed = False
+        for j in sorted(self.sol):
+            old = self.lift(j)
+            new = self.best_insert(j) or old
+            if new[0].risk < old[0].risk - _EPS_RISK:
                 changed = True
             else:
-                place(j, old)
-        # 3. move two jobs jointly (both orders of reinsertion)
-        placed = sorted(sol)
-        for a_i, a in enumerate(placed):
-            for b in placed[a_i + 1 :]:
-                old_a, old_b = lift(a), lift(b)
-                before = old_a[0].risk + old_b[0].risk
-                best: tuple[float, _Placement, _Placement] | None = None
-                for first, second in ((a, b), (b, a)):
-                    p1 = _best_insert(tl, usable[first])
-                    if p1 is None:
-                        continue
-                    tl.add(p1[1], p1[0].s, p1[0].e)
-                    p2 = _best_insert(tl, usable[second])
-                    tl.remove(p1[1], p1[0].s, p1[0].e)
-                    if p2 is None:
-                        continue
-                    total = p1[0].risk + p2[0].risk
-                    if total < before - 1e-12 and (best is None or total < best[0]):
-                        pa, pb = (p1, p2) if first == a else (p2, p1)
-                        best = (total, pa, pb)
-                if best is None:
-                    place(a, old_a)
-                    place(b, old_b)
-                else:
-                    place(a, best[1])
-                    place(b, best[2])
-                    changed = True
-        if not changed:
-            break
+                new = old
+            self.place(j, new)
+        return changed
 
-
-def _heuristic(
-    usable: Sequence[Sequence[_Opt]], n_vehicles: int, *, rounds: int = 20
-) -> dict[int, _Placement]:
-    tl = _Timeline(n_vehicles)
-    sol = _regret_insertion(usable, tl)
-    _improve(usable, tl, sol, rounds=rounds)
-    return sol
+    def _move_two(self) -> bool:
+        """Move a job to a better start held by one other job, which moves elsewhere."""
+        changed = False
+        for a in sorted(self.sol):
+            cur = self.sol[a][0].risk
+            moved = False
+            for o in self.usable[a]:
+                if moved or o.risk >= cur - _EPS_RISK:
+                    break
+                for v in o.vehicles:
+                    blocking = [b for b in self.tl.blockers(v, o.s, o.e) if b != a]
+                    if len(blocking) != 1:
+                        continue
+                    b = blocking[0]
+                    old_a, old_b = self.lift(a), self.lift(b)
+                    if self.tl.fits(v, o.s, o.e):
+                        self.place(a, (o, v))
+                        pb = self.best_insert(b)
+                        if pb is not None and o.risk + pb[0].risk < cur + old_b[0].risk - _EPS_RISK:
+                            self.place(b, pb)
+                            moved = changed = True
+                            break
+                        self.lift(a)
+                    self.place(a, old_a)
+                    self.place(b, old_b)
+        return changed
 
 
 # --------------------------------------------------------------------------------------------
@@ -982,13 +1072,18 @@ def _heuristic(
 
 @dataclass
 class _Model:
-    """Variables and no-overlap rows of the 0/1 programme (see the module docstring)."""
+    """Variables and no-overlap rows of the 0/1 programme (see the module docstring).
+
+    The first ``n_jobs`` rows are the job rows (one per job with a usable candidate), the
+    others the clique rows; all read ``rows @ x <= upper``.
+    """
 
     opts: list[_Opt]
     vehicle: np.ndarray  # vehicle index per variable, -1 when aggregated
     risk: np.ndarray
-    rows: sparse.csr_array  # job rows, then clique rows, all "<= upper"
+    rows: sparse.csr_array
     upper: np.ndarray
+    n_jobs: int
     aggregated: bool
 
 
@@ -997,37 +1092,34 @@ def _build_model(usable: Sequence[Sequence[_Opt]], n_vehicles: int) -> _Model:
     aggregated = all(o.vehicles == everyone for opts in usable for o in opts)
     var_opt: list[_Opt] = []
     var_veh: list[int] = []
+    job_row: list[int] = []
+    n_jobs = 0
     for opts in usable:
+        if not opts:
+            continue
         for o in opts:
             for v in [-1] if aggregated else o.vehicles:
                 var_opt.append(o)
                 var_veh.append(v)
+                job_row.append(n_jobs)
+        n_jobs += 1
     n = len(var_opt)
     veh = np.asarray(var_veh, dtype=np.int64)
     s = np.asarray([o.s for o in var_opt], dtype=np.int64)
     e = np.asarray([o.e for o in var_opt], dtype=np.int64)
-    job = np.asarray([o.job for o in var_opt], dtype=np.int64)
 
-    r_idx: list[np.ndarray] = []
-    c_idx: list[np.ndarray] = []
-    upper: list[float] = []
-    _, job_row = np.unique(job, return_inverse=True)
-    n_rows = int(job_row.max()) + 1 if n else 0
-    r_idx.append(job_row)
-    c_idx.append(np.arange(n))
-    upper.extend([1.0] * n_rows)
+    r_idx: list[np.ndarray] = [np.asarray(job_row, dtype=np.int64)]
+    c_idx: list[np.ndarray] = [np.arange(n)]
+    upper: list[float] = [1.0] * n_jobs
+    n_rows = n_jobs
     cap = float(n_vehicles) if aggregated else 1.0
     for v in [-1] if aggregated else everyone:
         members = np.flatnonzero(veh == v)
-        if members.size == 0:
-            continue
         seen: set[bytes] = set()
         for t in np.unique(s[members]):
             inside = members[(s[members] <= t) & (t < e[members])]
-            if inside.size <= cap:
-                continue
             key = inside.tobytes()
-            if key in seen:
+            if inside.size <= cap or key in seen:
                 continue
             seen.add(key)
             r_idx.append(np.full(inside.size, n_rows))
@@ -1038,56 +1130,94 @@ def _build_model(usable: Sequence[Sequence[_Opt]], n_vehicles: int) -> _Model:
         (np.ones(sum(a.size for a in r_idx)), (np.concatenate(r_idx), np.concatenate(c_idx))),
         shape=(n_rows, n),
     )
-    return _Model(
-        var_opt, veh, np.asarray([o.risk for o in var_opt]), rows, np.asarray(upper), aggregated
-    )
+    risk = np.asarray([o.risk for o in var_opt], dtype=float)
+    return _Model(var_opt, veh, risk, rows, np.asarray(upper), n_jobs, aggregated)
+
+
+@dataclass
+class _LP:
+    """Linear relaxation: optimum, solution and reduced costs of the bounds 0 and 1."""
+
+    value: float
+    x: np.ndarray
+    cost_up: np.ndarray  # objective rise per unit of a variable raised from 0 (>= 0)
+    cost_down: np.ndarray  # objective rise per unit of a variable lowered from 1 (>= 0)
+
+
+def _lp(model: _Model, c: np.ndarray, *, min_count: int | None) -> _LP:
+    a, b = model.rows, model.upper
+    if min_count is not None:
+        a = sparse.vstack([a, sparse.csr_array(-np.ones((1, c.size)))]).tocsr()
+        b = np.append(b, -float(min_count))
+    res = linprog(c, A_ub=a, b_ub=b, bounds=(0.0, 1.0), method="highs")
+    if res.status != 0:  # cannot happen: the empty schedule (or a found one) is feasible
+        raise RuntimeError(f"linear relaxation failed: {res.message}")
+    return _LP(float(res.fun), np.asarray(res.x), np.asarray(res.lower.marginals),
+               -np.asarray(res.upper.marginals))
+
+
+def _reduced_cost_fixing(lp: _LP, slack: float) -> tuple[np.ndarray, np.ndarray]:
+    """Return (variables that may be 1, variables that must be 1) in solutions within ``slack``.
+
+    For any 0/1 solution x, ``c @ x >= lp.value + cost_up @ x + cost_down @ (1 - x)`` (LP
+    duality). So a solution at most ``slack`` above the LP optimum has ``x_i = 0`` where
+    ``cost_up_i > slack`` and ``x_i = 1`` where ``cost_down_i > slack``. A small margin covers
+    the LP's tolerances.
+    """
+    limit = slack + 1e-6 * max(1.0, abs(lp.value))
+    return lp.cost_up <= limit, lp.cost_down > limit
 
 
 @dataclass
 class _Result:
     x: np.ndarray | None
-    proven: bool
-    value: float | None  # objective of x
-    bound: float | None  # proven lower bound of the objective
+    status: str  # "optimal", "infeasible" or "time_limit"
+    value: float | None
+    bound: float | None
 
 
-def _run_milp(
+def _mip(
     model: _Model,
     c: np.ndarray,
     *,
-    min_count: int | None,
-    integral: bool,
+    min_count: int,
+    keep: np.ndarray,
+    fix_one: np.ndarray,
     time_limit: float,
     mip_rel_gap: float,
 ) -> _Result:
-    n = c.size
-    constraints = [LinearConstraint(model.rows, -np.inf, model.upper)]
-    if min_count is not None:
-        constraints.append(LinearConstraint(np.ones((1, n)), min_count, np.inf))
-    options: dict[str, Any] = {"disp": False, "time_limit": max(time_limit, 0.01)}
-    if integral:
-        options["mip_rel_gap"] = mip_rel_gap
+    """Solve the 0/1 programme over the ``keep`` variables (``fix_one`` ones set to 1)."""
+    cols = np.flatnonzero(keep)
+    a = model.rows[:, cols]
+    lower = np.full(model.upper.size, -np.inf)
+    if min_count >= model.n_jobs:  # every job placed: job rows become equalities
+        lower[: model.n_jobs] = 1.0
+    constraints = [LinearConstraint(a, lower, model.upper)]
+    if 0 < min_count < model.n_jobs:
+        constraints.append(LinearConstraint(np.ones((1, cols.size)), min_count, np.inf))
     res = milp(
-        c,
-        integrality=np.ones(n) if integral else np.zeros(n),
-        bounds=Bounds(0.0, 1.0),
+        c[cols],
+        integrality=np.ones(cols.size),
+        bounds=Bounds(fix_one[cols].astype(float), 1.0),
         constraints=constraints,
-        options=options,
+        options={"disp": False, "time_limit": max(time_limit, 0.05), "mip_rel_gap": mip_rel_gap},
     )
-    x = None if res.x is None else np.asarray(res.x)
+    x = None
+    if res.x is not None:
+        x = np.zeros(c.size)
+        x[cols] = np.round(res.x)
     value = None if x is None else float(c @ x)
-    if integral:
-        bound = getattr(res, "mip_dual_bound", None)
-        bound = None if bound is None or not math.isfinite(bound) else float(bound)
-        if res.status == 0 and bound is None:
-            bound = value
-    else:
-        bound = value if res.status == 0 else None
-    return _Result(x, res.status == 0, value, bound)
+    bound = getattr(res, "mip_dual_bound", None)
+    bound = None if bound is None or not math.isfinite(bound) else float(bound)
+    if res.status == 0:
+        return _Result(x, "optimal", value, value if bound is None else bound)
+    if res.status == 2:
+        return _Result(None, "infeasible", None, None)
+    return _Result(x, "time_limit", value, bound)
 
 
 def _colour(picks: Sequence[_Opt], n_vehicles: int) -> dict[int, _Placement]:
-    """Assign vehicles to non-overlapping-by-``n_vehicles`` intervals, greedily by start."""
+    """Give vehicles to intervals of which at most ``n_vehicles`` overlap, greedily by start."""
     free_at = [-(10**18)] * n_vehicles
     sol: dict[int, _Placement] = {}
     for o in sorted(picks, key=lambda o: (o.s, o.e, o.job)):
@@ -1097,11 +1227,18 @@ def _colour(picks: Sequence[_Opt], n_vehicles: int) -> dict[int, _Placement]:
     return sol
 
 
-def _solution_from_x(model: _Model, x: np.ndarray, n_vehicles: int) -> dict[int, _Placement]:
+def _search_from_x(
+    model: _Model, x: np.ndarray, usable: Sequence[Sequence[_Opt]], n_vehicles: int
+) -> _Search:
     chosen = np.flatnonzero(x > 0.5)
     if model.aggregated:
-        return _colour([model.opts[i] for i in chosen], n_vehicles)
-    return {model.opts[i].job: (model.opts[i], int(model.vehicle[i])) for i in chosen}
+        sol = _colour([model.opts[i] for i in chosen], n_vehicles)
+    else:
+        sol = {model.opts[i].job: (model.opts[i], int(model.vehicle[i])) for i in chosen}
+    search = _Search(usable, n_vehicles)
+    for j, p in sol.items():
+        search.place(j, p)
+    return search
 
 
 def _risk(sol: Mapping[int, _Placement]) -> float:
@@ -1115,6 +1252,89 @@ def _rel_gap(value: float, bound: float | None) -> float | None:
     if diff <= 1e-9 * max(1.0, abs(value)):
         return 0.0
     return diff / max(abs(value), 1e-12)
+
+
+def _optimise(
+    model: _Model,
+    usable: Sequence[Sequence[_Opt]],
+    n_vehicles: int,
+    *,
+    exact: bool,
+    time_limit: float,
+    mip_rel_gap: float,
+    notes: list[str],
+) -> tuple[dict[int, _Placement], str, float | None]:
+    """Find the schedule; return its placements, the status and a lower bound of its risk.
+
+    1. Linear relaxations: the most jobs that fit fractionally (an upper bound on the count),
+       and the least risk at that count (its solution guides the heuristic).
+    2. Heuristic: LP-guided and regret insertion, each improved by local search; the better
+       one is the incumbent. Without ``exact`` it is returned with the LP bound.
+    3. Stage 1 (only if the incumbent places fewer jobs than the bound): 0/1 programme for a
+       schedule with one job more than the incumbent, over the variables reduced-cost fixing
+       leaves; infeasible means the incumbent's count is the most.
+    4. Stage 2: least risk at that count, again over the variables left by reduced-cost
+       fixing with the incumbent's risk (skipped when the incumbent meets the LP bound).
+    """
+    deadline = time.perf_counter() + time_limit
+    n = model.risk.size
+    count_lp = _lp(model, -np.ones(n), min_count=None)
+    most = min(model.n_jobs, math.floor(-count_lp.value + 1e-6))
+    risk_lp = _lp(model, model.risk, min_count=most)
+
+    starts = []
+    for fill in ("guided", "regret", "earliest_end"):
+        search = _Search(usable, n_vehicles)
+        if fill == "guided":
+            search.guided_fill(model, risk_lp.x)
+        elif fill == "regret":
+            search.regret_fill()
+        else:
+            search.earliest_end_fill()
+        search.improve()
+        starts.append(search)
+    best = min(starts, key=_Search.key)
+    status = "optimal" if exact else "heuristic"
+
+    if len(best.sol) < most and exact:  # stage 1: can one more job be placed?
+        k = len(best.sol)
+        keep, fix_one = _reduced_cost_fixing(count_lp, -count_lp.value - (k + 1))
+        res = _mip(model, -np.ones(n), min_count=k + 1, keep=keep, fix_one=fix_one,
+                   time_limit=deadline - time.perf_counter(), mip_rel_gap=0.0)
+        if res.x is not None:
+            best = _search_from_x(model, res.x, usable, n_vehicles)
+            best.improve()
+        if res.status == "time_limit":
+            status = "time_limit"
+            up_to = most if res.bound is None else min(most, math.floor(-res.bound + 1e-6))
+            notes.append(f"time limit: {len(best.sol)} jobs placed, up to {up_to} may fit")
+    elif len(best.sol) < most:
+        notes.append(f"the linear relaxation allows up to {most} placed jobs; the heuristic "
+                     f"placed {len(best.sol)} (more may fit)")
+
+    target = len(best.sol)
+    lp = risk_lp if target == most else _lp(model, model.risk, min_count=target)
+    bound = lp.value
+    upper = best.risk
+    if not exact or upper - bound <= max(1e-9, mip_rel_gap * abs(upper)):
+        return best.sol, status, bound
+    remaining = deadline - time.perf_counter()
+    if remaining <= 0:
+        notes.append("time limit reached before the least risk was searched")
+        return best.sol, "time_limit", bound
+    keep, fix_one = _reduced_cost_fixing(lp, upper - bound)
+    res = _mip(model, model.risk, min_count=target, keep=keep, fix_one=fix_one,
+               time_limit=remaining, mip_rel_gap=mip_rel_gap)
+    if res.x is not None and res.value is not None and res.value < upper - _EPS_RISK:
+        best = _search_from_x(model, res.x, usable, n_vehicles)
+    if res.status == "infeasible":  # nothing better than the incumbent exists
+        return best.sol, status, upper
+    if res.status == "time_limit":
+        status = "time_limit"
+        notes.append("time limit reached before the least risk was proven")
+    if res.bound is not None:
+        bound = max(bound, min(upper, res.bound))
+    return best.sol, status, bound
 
 
 # --------------------------------------------------------------------------------------------
@@ -1145,9 +1365,9 @@ def solve_schedule(
     max_exact_vars
         Largest integer programme solved exactly; above it the heuristic is used.
     time_limit
-        Seconds for the integer programme (both stages together).
+        Seconds for the integer programmes (both stages together).
     mip_rel_gap
-        Relative optimality tolerance given to HiGHS for the risk stage.
+        Relative optimality tolerance of the risk stage.
 
     Returns
     -------
@@ -1164,95 +1384,42 @@ def solve_schedule(
     clock = time.perf_counter()
     jobs = _as_jobs(options)
     fleet = _fleet(vehicles)
-    if not (math.isfinite(turnaround_min) and turnaround_min >= 0):
-        raise OptionError(f"turnaround must be 0 or more minutes, got {turnaround_min}",
-                          field="turnaround_min")
+    _check_turnaround(turnaround_min)
     _, usable, reasons = _prepare(jobs, fleet, turnaround_min)
-    n_feasible = sum(1 for opts in usable if opts)
     model = _build_model(usable, len(fleet))
     n_vars = model.risk.size
     notes: list[str] = []
-
-    best = _heuristic(usable, len(fleet))
-    bound: float | None
-    if n_feasible == 0:
-        status, method, bound = ("infeasible" if jobs else "optimal"), "none", 0.0
-    elif n_vars > max_exact_vars:
-        status, method = "heuristic", "heuristic"
-        notes.append(f"{n_vars} variables exceed max_exact_vars={max_exact_vars}: heuristic used")
-        bound = _heuristic_bound(model, len(best), n_feasible, notes)
+    sol: dict[int, _Placement] = {}
+    bound: float | None = 0.0
+    if model.n_jobs == 0:
+        status, method = ("infeasible" if jobs else "optimal"), "none"
     else:
-        method = "milp-aggregated" if model.aggregated else "milp-per-vehicle"
-        best, status, bound = _exact(
-            model, usable, best, len(fleet), n_feasible, time_limit, mip_rel_gap, notes
-        )
-
-    total = _risk(best)
+        exact = n_vars <= max_exact_vars
+        if exact:
+            method = "milp-aggregated" if model.aggregated else "milp-per-vehicle"
+        else:
+            method = "heuristic"
+            notes.append(f"{n_vars} variables exceed max_exact_vars={max_exact_vars}: "
+                         "heuristic used, gap against the linear relaxation")
+        sol, status, bound = _optimise(model, usable, len(fleet), exact=exact,
+                                       time_limit=time_limit, mip_rel_gap=mip_rel_gap, notes=notes)
+    total = _risk(sol)
     schedule = _schedule(
-        jobs, fleet, {j: (o.cand, v) for j, (o, v) in best.items()}, reasons, total, status, _rel_gap(total, bound), bound,
-        method, notes, time.perf_counter() - clock,
+        jobs, fleet, {j: (o.cand, v) for j, (o, v) in sol.items()}, reasons, total, status,
+        _rel_gap(total, bound), bound, method, notes, time.perf_counter() - clock,
         blocked="no free vehicle: every usable start conflicts with the runs placed",
     )
     logger.info(
-        "solve_schedule placed %d of %d jobs, total risk %.6g, status %s (%s, %d variables) in %.2f s",
-        schedule.placed, len(jobs), total, status, method, n_vars, schedule.seconds,
+        "solve_schedule placed %d of %d jobs, total risk %.6g, status %s (%s, %d variables) "
+        "in %.2f s", schedule.placed, len(jobs), total, status, method, n_vars, schedule.seconds,
     )
     return schedule
 
 
-def _heuristic_bound(model: _Model, placed: int, n_feasible: int, notes: list[str]) -> float | None:
-    """Return the LP lower bound on the risk of schedules placing at least ``placed`` jobs."""
-    count_lp = _run_milp(model, -np.ones(model.risk.size), min_count=None, integral=False,
-                         time_limit=600.0, mip_rel_gap=0.0)
-    if count_lp.value is not None:
-        most = min(n_feasible, math.floor(-count_lp.value + 1e-6))
-        if most > placed:
-            notes.append(f"the linear relaxation allows up to {most} placed jobs; "
-                         f"the heuristic placed {placed} (more may be possible)")
-    risk_lp = _run_milp(model, model.risk, min_count=placed, integral=False,
-                        time_limit=600.0, mip_rel_gap=0.0)
-    return risk_lp.bound
-
-
-def _exact(
-    model: _Model,
-    usable: Sequence[Sequence[_Opt]],
-    heuristic: dict[int, _Placement],
-    n_vehicles: int,
-    n_feasible: int,
-    time_limit: float,
-    mip_rel_gap: float,
-    notes: list[str],
-) -> tuple[dict[int, _Placement], str, float | None]:
-    """Run the two-stage programme; return the best solution, status and risk bound."""
-    deadline = time.perf_counter() + time_limit
-    proven = True
-    best = heuristic
-    target = len(heuristic)
-    if target < n_feasible:  # stage 1: most jobs placed
-        res = _run_milp(model, -np.ones(model.risk.size), min_count=None, integral=True,
-                        time_limit=deadline - time.perf_counter(), mip_rel_gap=0.0)
-        if res.x is not None and round(-res.value) > target:
-            target = round(-res.value)
-            best = _solution_from_x(model, res.x, n_vehicles)
-        if not res.proven:
-            proven = False
-            most = n_feasible if res.bound is None else min(n_feasible, math.floor(-res.bound + 1e-6))
-            if most > target:
-                notes.append(f"time limit: {target} jobs placed, up to {most} may fit")
-    remaining = deadline - time.perf_counter()
-    if remaining <= 0:  # no time left for stage 2: bound from the LP relaxation
-        lp = _run_milp(model, model.risk, min_count=target, integral=False, time_limit=600.0,
-                       mip_rel_gap=0.0)
-        return best, "time_limit", lp.bound
-    res = _run_milp(model, model.risk, min_count=target, integral=True, time_limit=remaining,
-                    mip_rel_gap=mip_rel_gap)
-    if res.x is not None and res.value is not None and res.value < _risk(best) - 1e-12:
-        best = _solution_from_x(model, res.x, n_vehicles)
-    proven = proven and res.proven
-    if not res.proven:
-        notes.append("time limit reached before the least risk was proven")
-    return best, "optimal" if proven else "time_limit", res.bound
+def _check_turnaround(turnaround_min: float) -> None:
+    if not (math.isfinite(turnaround_min) and turnaround_min >= 0):
+        raise OptionError(f"turnaround must be 0 or more minutes, got {turnaround_min}",
+                          field="turnaround_min")
 
 
 def _schedule(
@@ -1360,9 +1527,7 @@ def naive_schedule(
     clock = time.perf_counter()
     jobs = _as_jobs(options)
     fleet = _fleet(vehicles)
-    if not (math.isfinite(turnaround_min) and turnaround_min >= 0):
-        raise OptionError(f"turnaround must be 0 or more minutes, got {turnaround_min}",
-                          field="turnaround_min")
+    _check_turnaround(turnaround_min)
     axis = _Axis([c.start for job in jobs for c in job.candidates])
     index = {v: i for i, v in enumerate(fleet)}
     reasons: dict[int, str] = {}

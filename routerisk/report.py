@@ -61,6 +61,7 @@ font-variant-numeric:tabular-nums}table.rr caption{text-align:left;font-weight:6
 padding:2px 0}
 figure.rr{margin:8px 0 14px}figure.rr img{max-width:100%;height:auto;border:1px solid #e3dfd4;
 background:#fff}figure.rr figcaption{font-size:12px;color:#555}
+.rr-scroll{overflow-x:auto;max-width:100%}
 iframe.rr-map{width:100%;border:1px solid #d9d4c7;background:#eeeae2}
 nav.rr-toc{font-size:13px;margin:8px 0}nav.rr-toc a{margin-right:12px}
 footer{font-size:12px;color:#555;padding-bottom:30px;margin-top:30px}
@@ -91,6 +92,11 @@ def fmt(value: Any, *, digits: int = 3) -> str:
     if isinstance(value, list | tuple):
         return ", ".join(str(v) for v in value)
     return str(value)
+
+
+def plain(text: Any) -> str:
+    """Return chart text with ``$`` escaped, so matplotlib never reads it as mathtext."""
+    return str(text).replace("$", r"\$")
 
 
 def anchor(text: str) -> str:
@@ -160,8 +166,8 @@ def table_html(
             cells.append(f"<td{cls}>{escape(fmt(value, digits=d))}</td>")
         body.append("<tr>" + "".join(cells) + "</tr>")
     cap = f"<caption>{escape(caption)}</caption>" if caption else ""
-    return (f'<table class="rr">{cap}<thead><tr>{head}</tr></thead><tbody>'
-            + "".join(body) + "</tbody></table>")
+    return (f'<div class="rr-scroll"><table class="rr">{cap}<thead><tr>{head}</tr></thead>'
+            "<tbody>" + "".join(body) + "</tbody></table></div>")
 
 
 def frame_html(df: pd.DataFrame, *, caption: str | None = None, index: bool = True,
@@ -234,12 +240,12 @@ def bar_chart(labels: Sequence[str], values: Sequence[float], *, title: str, xla
         y = np.arange(len(labels))[::-1]
         cols = list(colours) if colours else [SERIES_COLOURS[0]] * len(labels)
         ax.barh(y, [float(v) for v in values], color=cols, height=0.65)
-        ax.set_yticks(y, [str(s) for s in labels])
+        ax.set_yticks(y, [plain(s) for s in labels])
         for yy, v in zip(y, values, strict=True):
             ax.annotate(f"{float(v):.2f}", (float(v), yy), xytext=(3, 0),
                         textcoords="offset points", va="center", fontsize=8)
-        ax.set_xlabel(xlabel)
-        ax.set_title(title)
+        ax.set_xlabel(plain(xlabel))
+        ax.set_title(plain(title))
         ax.margins(x=0.12)
         ax.grid(True, axis="x", alpha=0.25)
         longest = max((len(str(s)) for s in labels), default=4)
@@ -265,10 +271,10 @@ def grouped_bar_chart(groups: Sequence[str], series: Mapping[str, Sequence[float
         cols = list(colours) if colours else list(SERIES_COLOURS)
         for i, name in enumerate(names):
             ax.bar(x - 0.4 + w * (i + 0.5), [float(v) for v in series[name]], width=w,
-                   label=str(name), color=cols[i % len(cols)])
-        ax.set_xticks(x, [str(g) for g in groups])
-        ax.set_ylabel(ylabel)
-        ax.set_title(title)
+                   label=plain(name), color=cols[i % len(cols)])
+        ax.set_xticks(x, [plain(g) for g in groups])
+        ax.set_ylabel(plain(ylabel))
+        ax.set_title(plain(title))
         ax.grid(True, axis="y", alpha=0.25)
         if names:
             ax.legend(fontsize=8, ncols=min(len(names), 4), loc="upper right")
@@ -278,7 +284,10 @@ def grouped_bar_chart(groups: Sequence[str], series: Mapping[str, Sequence[float
 
 def week_chart(series: Mapping[str, Sequence[float]], *, title: str, ylabel: str,
                colours: Sequence[str] | None = None, width: float = 9.0) -> Figure:
-    """Return a step chart of 168 hourly values per series (Monday 00:00 first)."""
+    """Return a step chart of 168 hourly values per series (Monday 00:00 first).
+
+    The first series is drawn bold and on top; the others thin and dashed.
+    """
     import matplotlib as mpl
 
     with mpl.rc_context(_RC):
@@ -290,8 +299,9 @@ def week_chart(series: Mapping[str, Sequence[float]], *, title: str, ylabel: str
             v = np.asarray(values, dtype=float)
             if v.shape != (168,):
                 raise ValueError(f"series {name!r} must have 168 hourly values")
-            ax.stairs(v, hours, label=str(name), color=cols[i % len(cols)], lw=1.6,
-                      baseline=None)
+            ax.stairs(v, hours, label=plain(name), color=cols[i % len(cols)],
+                      lw=2.4 if i == 0 else 1.2, ls="-" if i == 0 else "--",
+                      zorder=3 if i == 0 else 2, baseline=None)
         for d in range(1, 7):
             ax.axvline(24 * d, color="#999999", lw=0.6, ls=":")
         ax.set_xticks([24 * d + 12 for d in range(7)], list(DAY_LABELS))
@@ -299,8 +309,8 @@ def week_chart(series: Mapping[str, Sequence[float]], *, title: str, ylabel: str
         ax.tick_params(axis="x", which="major", length=0)
         ax.set_xlim(0, 168)
         ax.set_ylim(bottom=0)
-        ax.set_ylabel(ylabel)
-        ax.set_title(title)
+        ax.set_ylabel(plain(ylabel))
+        ax.set_title(plain(title))
         ax.grid(True, axis="y", alpha=0.25)
         if len(series) > 1:
             ax.legend(fontsize=7, loc="upper right")

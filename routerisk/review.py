@@ -69,7 +69,8 @@ SPEED_BANDS_MPH = ((25.0, "<= 25 mph", "le25mph"), (35.0, "26-35 mph", "26to35mp
 HOURS_PER_WEEK = 168
 #: Clipped pieces shorter than this (m) are boundary touches, not streets in the area.
 MIN_CLIP_M = 1e-3
-AREA_SUFFIXES = (".geojson", ".json", ".gpkg")
+#: Map colour of the hot-spot halo (distinct from every band and category colour).
+HOTSPOT_COLOUR = "#111111"
 LENGTH_BASIS = (
     "network_km and every km figure count directed edges: each direction of a two-way street "
     "counts once (what a vehicle may drive); centreline_km counts each street once."
@@ -130,6 +131,8 @@ def read_areas(path: str | Path, *, crs: Any) -> list[Area]:
     p = Path(path)
     if not p.is_file():
         raise InputFileError("area file not found", path=p)
+    if p.stat().st_size == 0:
+        raise InputFileError("the area file is empty (0 bytes)", path=p)
     try:
         layers = pyogrio.list_layers(p)
         layer = str(layers[0][0]) if len(layers) else None
@@ -156,8 +159,8 @@ def read_areas(path: str | Path, *, crs: Any) -> list[Area]:
             raise InputFileError(f"must be a Polygon or MultiPolygon, got {geom.geom_type}",
                                  path=p, field=where)
         if not shapely.is_valid(geom):
-            raise InputFileError(f"invalid polygon: {shapely.is_valid_reason(geom)}", path=p,
-                                 field=where)
+            reason = re.sub(r"\[", " at [", shapely.is_valid_reason(geom), count=1)
+            raise InputFileError(f"invalid polygon: {reason}", path=p, field=where)
     projected = gdf.geometry.to_crs(crs)
     out: list[Area] = []
     seen: dict[str, int] = {}
@@ -599,7 +602,7 @@ def _hotspots(ctx: _Context, clip: gpd.GeoDataFrame, skey: list[tuple[Any, ...]]
     return out
 
 
-def review_area(ctx: _Context, area: Area, *, at: int | None = None, top: int = 10,
+def _review_area(ctx: _Context, area: Area, *, at: int | None = None, top: int = 10,
                 high_bands: Sequence[str] | None = None) -> tuple[dict[str, Any],
                                                                    gpd.GeoDataFrame]:
     """Return the figures of one area and its clipped edges.
@@ -792,7 +795,7 @@ def review_areas(net: Network, areas: Sequence[Area], *, at: int | None = None,
     results = []
     clipped = {}
     for area in areas:
-        figures, clip = review_area(ctx, area, at=at, top=top, high_bands=high_bands)
+        figures, clip = _review_area(ctx, area, at=at, top=top, high_bands=high_bands)
         results.append(figures)
         clipped[area.name] = clip
     scenarios = []
@@ -802,7 +805,7 @@ def review_areas(net: Network, areas: Sequence[Area], *, at: int | None = None,
         ctx2 = _Context.of(net2)
         rows = []
         for area, base in zip(areas, results, strict=True):
-            fig2, _ = review_area(ctx2, area, at=at, top=top, high_bands=high_bands)
+            fig2, _ = _review_area(ctx2, area, at=at, top=top, high_bands=high_bands)
             rows.append(_compare(base, fig2))
         scenarios.append({
             "label": wi.label,
@@ -890,6 +893,8 @@ def write_review(review: Review, *, out: str | Path | None = None,
     The folder is assembled under a temporary name and moved into place when complete.
     """
     written: list[Path] = []
+    if out is None and report_path is None:
+        return written
     if out is not None:
         check_target(out, force=force)
     if report_path is not None:
@@ -950,29 +955,29 @@ def review_map(review: Review) -> folium.Map:
             hs["reasons"] = [", ".join(
                 f"{x['label']} {x['share']:.0%}" + (f" ({x['near']})" if x["near"] else "")
                 for x in spots[(r.u, r.v, r.key)]["reasons"]) for r in hs.itertuples()]
-            hs["_colour"] = "#e63946"
+            hs["_colour"] = HOTSPOT_COLOUR
             hot_frames.append(hs)
     streets = gpd.GeoDataFrame(pd.concat(frames, ignore_index=True), geometry="geometry",
                                crs=shapes.crs)
     fields = {"area": "area", "street": "street", "highway": "road class",
               "band": "exposure band", "exposure_km": "exposure per km",
               "in_area_km": "km in area", "speed_kph": "speed km/h", "crossings": "crossings"}
-    mapview.add_lines(m, streets, name="streets in the areas by exposure band",
-                      colour_col="_colour", fields=fields)
-    if hot_frames:
+    if hot_frames:  # the halo goes first, so the street's band colour stays on top
         hot = gpd.GeoDataFrame(pd.concat(hot_frames, ignore_index=True), geometry="geometry",
                                crs=shapes.crs)
-        mapview.add_lines(m, hot, name="hot spots", colour_col="_colour", weight=8,
-                          opacity=0.55, fields={"area": "area", "street": "street",
+        mapview.add_lines(m, hot, name="hot spots", colour_col="_colour", weight=11,
+                          opacity=0.45, fields={"area": "area", "street": "street",
                                                 "_exposure": "exposure",
                                                 "reasons": "reasons"})
+    mapview.add_lines(m, streets, name="streets in the areas by exposure band",
+                      colour_col="_colour", fields=fields)
     src = _sources_near(review, shapes)
     if src is not None and len(src):
         mapview.add_sources(m, src, labels={c.name: c.label for c in prof.categories})
     folium.LayerControl(collapsed=False).add_to(m)
     items = [(mapview.band_colour(prof, b.name), f"{b.name} (from {b.lower:g} per km)")
              for b in prof.bands]
-    items.append(("#e63946", "hot spot"))
+    items.append((HOTSPOT_COLOUR, "hot spot (dark halo)"))
     items += [(mapview.CATEGORY_COLOURS.get(c.name, "#555"), c.label)
               for c in prof.categories]
     mapview.add_panel(m, mapview.legend_html(
@@ -1141,6 +1146,43 @@ def _what_if_section(review: Review) -> str:
     return r.section("What if", r.note_html(WHAT_IF_HELP), *blocks, anchor_id="what-if")
 
 
+def _profile_section(review: Review) -> str:
+    r = report
+    prof = review.profile
+    cats = [{"id": c.name, "label": c.label, "weight": c.weight, "radius": c.radius_m,
+             "decay": c.decay, "time": c.time_profile or "constant 1"}
+            for c in prof.categories]
+    rules = []
+    for rule in prof.rules:
+        what = []
+        if rule.category:
+            what.append(f"within {rule.within_m:g} m of {rule.category}")
+        if rule.polygons_file:
+            what.append(f"inside the polygons of {Path(rule.polygons_file).name}")
+        if rule.road_classes:
+            what.append("road classes " + ", ".join(rule.road_classes))
+        when = "; ".join(
+            f"{','.join(w.days)} {w.start // 60:02d}:{w.start % 60:02d}-"
+            f"{w.end // 60:02d}:{w.end % 60:02d}" for w in rule.windows) or "at all times"
+        rules.append({"name": rule.name, "what": " or ".join(what), "when": when})
+    bands = [{"band": b.name, "from": b.lower} for b in prof.bands]
+    return r.section(
+        "Profile used",
+        r.paragraph(f"{prof.name} (fingerprint {prof.fingerprint}). {prof.description}"),
+        r.table_html(cats, [("id", "category"), ("label", "label"), ("weight", "weight"),
+                            ("radius", "radius (m)"), ("decay", "decay"),
+                            ("time", "time profile")], caption="Categories",
+                     digits={"radius": 0}),
+        r.table_html(rules, [("name", "rule"), ("what", "streets it covers"),
+                             ("when", "in force")], caption="Hard rules")
+        if rules else r.note_html("No hard rules."),
+        r.table_html(bands, [("band", "band"), ("from", "from (exposure per km)")],
+                     caption="Exposure bands"),
+        r.note_html(f"Crossing weight {prof.crossing_weight:g}; severity outcome "
+                    f"{prof.severity_outcome}. The weights are the profile's, not data."),
+        anchor_id="profile")
+
+
 def review_html(review: Review) -> str:
     """Return the self-contained HTML report of a review."""
     r = report
@@ -1169,7 +1211,7 @@ def review_html(review: Review) -> str:
                           alt="km by exposure band per area"),
                       anchor_id="compare")]
     body.append(r.section("Map", r.map_html(review_map(review), title="map of the areas"),
-                          r.note_html("Streets are drawn once per segment; hot spots in red. "
+                          r.note_html("Streets are drawn once per segment; hot spots have a dark halo. "
                                       "The map works offline."), anchor_id="map"))
     toc = [("compare", "side by side"), ("map", "map")]
     for i, a in enumerate(review.areas):
@@ -1178,6 +1220,8 @@ def review_html(review: Review) -> str:
     if review.what_ifs:
         body.append(_what_if_section(review))
         toc.append(("what-if", "what if"))
+    body.append(_profile_section(review))
+    toc.append(("profile", "profile"))
     body.append(r.section("Method", r.note_html(LENGTH_BASIS), r.note_html(HOUR_BASIS),
                           r.note_html(INFLUENCE_BASIS), r.note_html(
         "Exposure per km = baseline + sum over categories of weight x nearness + crossing "

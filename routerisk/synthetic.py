@@ -794,7 +794,8 @@ class _City:
             for q in range(1, n + 1):
                 t = q / (n + 1)
                 o = amp * math.sin(math.pi * t)
-                refs.append(self.out.node(ax + dx * t - dy / length * o, ay + dy * t + dx / length * o))
+                px, py = ax + dx * t - dy / length * o, ay + dy * t + dx / length * o
+                refs.append(self.out.node(px, py))
             refs.append(kb + 1)
             tags = {"highway": "residential", "name": f"{self.names.word()} Crescent"}
             if pr.random() < 0.5:
@@ -855,15 +856,15 @@ class _City:
         nx = lay.nx
         for j, i in self.parks:
             corners = self._block_corners(j, i)
-            out.polygon(_inset(corners, 8.0), {"leisure": "park", "name": f"{self.names.word()} Park"})
+            tags = {"leisure": "park", "name": f"{self.names.word()} Park"}
+            out.polygon(_inset(corners, 8.0), tags)
             out.count("park")
             cx = sum(p[0] for p in corners) / 4
             cy = sum(p[1] for p in corners) / 4
             if pr.random() < 0.4:
-                out.polygon(
-                    [(cx + 10, cy + 10), (cx + 35, cy + 10), (cx + 35, cy + 30), (cx + 10, cy + 30)],
-                    {"leisure": "playground"},
-                )
+                x0, y0 = cx + 10, cy + 10
+                pts = [(x0, y0), (x0 + 25, y0), (x0 + 25, y0 + 20), (x0, y0 + 20)]
+                out.polygon(pts, {"leisure": "playground"})
                 out.count("playground")
             # a footpath across the park from corner to corner, joined to the streets
             ka, kb = j * nx + i, (j + 1) * nx + i + 1
@@ -991,7 +992,9 @@ def _validate(
     if isinstance(edges, bool) or not isinstance(edges, int | np.integer):
         raise OptionError(f"must be an integer, got {edges!r}", field="edges")
     if not MIN_EDGES <= edges <= MAX_EDGES:
-        raise OptionError(f"must be between {MIN_EDGES} and {MAX_EDGES}, got {edges}", field="edges")
+        raise OptionError(
+            f"must be between {MIN_EDGES} and {MAX_EDGES}, got {edges}", field="edges"
+        )
     if isinstance(seed, bool) or not isinstance(seed, int | np.integer) or seed < 0:
         raise OptionError(f"must be a non-negative integer, got {seed!r}", field="seed")
     try:
@@ -1103,7 +1106,9 @@ def write_city(
     x_lo, x_hi = min(gx.min(), xs.min(initial=0.0)), max(gx.max(), xs.max(initial=0.0))
     y_lo, y_hi = min(gy.min(), ys.min(initial=0.0)), max(gy.max(), ys.max(initial=0.0))
     # the rotated local bounding rectangle holds every node; its corners give the box
-    box_lon, box_lat = lonlat(np.array([x_lo, x_hi, x_hi, x_lo]), np.array([y_lo, y_lo, y_hi, y_hi]))
+    box_lon, box_lat = lonlat(
+        np.array([x_lo, x_hi, x_hi, x_lo]), np.array([y_lo, y_lo, y_hi, y_hi])
+    )
 
     header = osmium.io.Header()
     header.set("generator", "routerisk synthetic city")

@@ -199,6 +199,13 @@ def is_drivable(tags: Tags) -> bool:
     return tags.get("highway") in DRIVE_CLASSES and tags.get("access") not in {"private", "no"}
 
 
+def _cells(a: Point, b: Point, size: float, pad: float) -> list[tuple[int, int]]:
+    """Return the square grid cells that the padded bounding box of a segment touches."""
+    xs = range(int((min(a[0], b[0]) - pad) // size), int((max(a[0], b[0]) + pad) // size) + 1)
+    ys = range(int((min(a[1], b[1]) - pad) // size), int((max(a[1], b[1]) + pad) // size) + 1)
+    return [(cx, cy) for cx in xs for cy in ys]
+
+
 # --------------------------------------------------------------------------------------
 # Noding: every place where two highway ways cross or touch becomes a shared node
 # --------------------------------------------------------------------------------------
@@ -243,45 +250,48 @@ def _segment_hits(p: Point, q: Point, a: Point, b: Point) -> list[tuple[float, f
     return [(min(max(t, 0.0), 1.0), min(max(u, 0.0), 1.0), pt)]
 
 
-def node_lines(town: Town) -> None:
-    """Insert shared nodes at every crossing, T-junction and mark of the highway ways."""
-    segs: list[tuple[int, int, Point, Point]] = []
-    for wi, (pts, _tags) in enumerate(town.lines):
-        for k in range(len(pts) - 1):
-            segs.append((wi, k, pts[k], pts[k + 1]))
-    cell = 150.0
+Segment = tuple[int, int, Point, Point]  # (way index, segment index, start, end)
+Inserts = dict[tuple[int, int], list[tuple[float, Point]]]  # (way, segment) -> (t, point)
+
+
+def _crossing_inserts(segs: list[Segment], inserts: Inserts) -> None:
+    """Record the points where two highway segments meet (crossings and T-junctions)."""
     grid: dict[tuple[int, int], list[int]] = {}
     for si, (_wi, _k, p, q) in enumerate(segs):
-        for cx in range(int(math.floor(min(p[0], q[0]) / cell)), int(math.floor(max(p[0], q[0]) / cell)) + 1):
-            for cy in range(int(math.floor(min(p[1], q[1]) / cell)), int(math.floor(max(p[1], q[1]) / cell)) + 1):
-                grid.setdefault((cx, cy), []).append(si)
-    inserts: dict[tuple[int, int], list[tuple[float, Point]]] = {}
-    seen: set[tuple[int, int]] = set()
-    for members in grid.values():
-        for i_pos, i in enumerate(members):
-            for j in members[i_pos + 1 :]:
-                pair = (min(i, j), max(i, j))
-                if pair in seen:
-                    continue
-                seen.add(pair)
-                wi, ki, p, q = segs[pair[0]]
-                wj, kj, a, b = segs[pair[1]]
-                if wi == wj and abs(ki - kj) == 1:
-                    continue  # consecutive segments of one way share their vertex
-                for t, u, pt in _segment_hits(p, q, a, b):
-                    inserts.setdefault((wi, ki), []).append((t, pt))
-                    inserts.setdefault((wj, kj), []).append((u, pt))
-    for pt, _tags in town.marks:
-        hit = False
-        for wi, k, a, b in segs:
-            if point_segment_distance(pt, a, b) < 1e-6:
-                dx, dy = b[0] - a[0], b[1] - a[1]
-                t = ((pt[0] - a[0]) * dx + (pt[1] - a[1]) * dy) / (dx * dx + dy * dy)
-                inserts.setdefault((wi, k), []).append((t, pt))
-                hit = True
-        if not hit:
-            msg = f"mark at {pt} ({_tags}) lies on no highway way"
+        for c in _cells(p, q, 150.0, 0.0):
+            grid.setdefault(c, []).append(si)
+    pairs = {(min(i, j), max(i, j)) for members in grid.values()
+             for n, i in enumerate(members) for j in members[n + 1 :]}
+    for i, j in sorted(pairs):
+        wi, ki, p, q = segs[i]
+        wj, kj, a, b = segs[j]
+        if wi == wj and abs(ki - kj) == 1:
+            continue  # consecutive segments of one way share their vertex
+        for t, u, pt in _segment_hits(p, q, a, b):
+            inserts.setdefault((wi, ki), []).append((t, pt))
+            inserts.setdefault((wj, kj), []).append((u, pt))
+
+
+def _mark_inserts(segs: list[Segment], marks: list[tuple[Point, Tags]], inserts: Inserts) -> None:
+    """Record the marked points on the segments they lie on; fail for a mark off the roads."""
+    for pt, tags in marks:
+        hits = [(wi, k, a, b) for wi, k, a, b in segs if point_segment_distance(pt, a, b) < 1e-6]
+        if not hits:
+            msg = f"mark at {pt} ({tags}) lies on no highway way"
             raise ValueError(msg)
+        for wi, k, a, b in hits:
+            dx, dy = b[0] - a[0], b[1] - a[1]
+            t = ((pt[0] - a[0]) * dx + (pt[1] - a[1]) * dy) / (dx * dx + dy * dy)
+            inserts.setdefault((wi, k), []).append((t, pt))
+
+
+def node_lines(town: Town) -> None:
+    """Insert shared nodes at every crossing, T-junction and mark of the highway ways."""
+    segs: list[Segment] = [(wi, k, pts[k], pts[k + 1]) for wi, (pts, _t) in enumerate(town.lines)
+                           for k in range(len(pts) - 1)]
+    inserts: Inserts = {}
+    _crossing_inserts(segs, inserts)
+    _mark_inserts(segs, town.marks, inserts)
     new_lines: list[tuple[list[Point], Tags]] = []
     for wi, (pts, tags) in enumerate(town.lines):
         out: list[Point] = [pts[0]]
@@ -314,7 +324,7 @@ def sw(value: str) -> Tags:
     return {"sidewalk": value}
 
 
-def build_streets(t: Town) -> None:  # noqa: PLR0915 - a long, flat table of streets
+def build_streets(t: Town) -> None:
     """Add the drivable street network."""
     # ---- arterials ------------------------------------------------------------------
     t.street("Tillerman Avenue", PRIMARY, [
@@ -412,7 +422,8 @@ def build_streets(t: Town) -> None:  # noqa: PLR0915 - a long, flat table of str
     # ---- residential grid, north-south ----------------------------------------------
     t.street("Hedgerow Road", RES, [(wavy_v(0, Y[:7], -12.0), sw("no"))])
     t.street("Hedgerow Road", RES25, [(wavy_v(0, Y[6:], -12.0), sw("no"))])
-    t.street("Ambrel Street", RES25, [(v(250, 0, 600), sw("both")), (v(250, 600, 1200), sw("both"))])
+    t.street("Ambrel Street", RES25, [(v(250, 0, 600), sw("both")),
+                                       (v(250, 600, 1200), sw("both"))])
     t.street("Ambrel Street", TERT30, [(v(250, 1200, 1600), sw("both")),
                                         (v(250, 1600, 2500), sw("both"))])
     t.street("Bosky Lane", RES, [(v(500, 0, 200), sw("no")), (v(500, 600, 1200), sw("both"))])
@@ -439,6 +450,9 @@ def build_streets(t: Town) -> None:  # noqa: PLR0915 - a long, flat table of str
     t.street("Marshbank Road", {**UNCL, "maxspeed": "50"}, [(v(3000, 0, 600), sw("no"))])
     t.street("Marshbank Road", RES, [(v(3000, 600, 1200), sw("right"))])
     t.street("Marshbank Road", RES25, [(wavy_v(3000, Y[6:], 12.0), sw("right"))])
+    # an older diagonal road, cutting across the grid (odd junction angles)
+    t.street("Millrace Road", RES25, [([(1100, 800), (1210, 850), (1300, 900)], sw("left")),
+                                       ([(1300, 900), (1395, 948), (1500, 1000)], sw("left"))])
     # ---- campus roads (inside the campus superblock) ----------------------------------
     campus = {"highway": "residential", "maxspeed": "20 mph"}
     t.street("Scholars Bend", campus, [(
@@ -517,20 +531,20 @@ COMMERCIAL = rect(1512, 1012, 2088, 1188)
 HOSPITAL = rect(1712, 1812, 1888, 1988)
 
 SHOPS: list[tuple[Point, Tags]] = [
-    ((1545, 1236), {"shop": "bakery", "name": "Crumbwell Bakery"}),
+    ((1545, 1236), {"shop": "bakery", "name": "Crumbwhistle Bakery"}),
     ((1590, 1236), {"shop": "chemist", "amenity": "pharmacy", "name": "Sallowby Pharmacy"}),
     ((1635, 1236), {"shop": "coffee", "amenity": "cafe", "name": "Cup and Quern"}),
     ((1690, 1236), {"shop": "hardware", "name": "Bolt and Bracket Hardware"}),
-    ((1740, 1236), {"shop": "books", "name": "Foxed Page Books"}),
+    ((1740, 1236), {"shop": "books", "name": "Foxedleaf Books"}),
     ((1790, 1236), {"shop": "clothes", "name": "Threadmoor Clothing"}),
-    ((1840, 1236), {"shop": "hairdresser", "name": "Snip and Curl"}),
-    ((1890, 1236), {"shop": "florist", "name": "Petal Loft"}),
+    ((1840, 1236), {"shop": "hairdresser", "name": "Shearling and Comb"}),
+    ((1890, 1236), {"shop": "florist", "name": "Petalwick Florist"}),
     ((1940, 1236), {"shop": "butcher", "name": "Cleaver and Quince"}),
     ((1990, 1236), {"shop": "optician", "name": "Lensmoor Optician"}),
     ((2040, 1236), {"shop": "shoes", "name": "Cobbleworth Shoes"}),
     ((1560, 1372), {"shop": "supermarket", "name": "Tillerman Fresh Market"}),
     ((2050, 1372), {"shop": "convenience", "name": "Corner Lantern Convenience"}),
-    ((2070, 1300), {"shop": "toys", "name": "Whirligig Toys"}),
+    ((2070, 1300), {"shop": "toys", "name": "Tumbledrum Toys"}),
 ]
 
 # (position beside the road, name, mapped as a platform too)
@@ -538,7 +552,7 @@ BUS_STOPS: list[tuple[Point, str, bool]] = [
     ((480, 1209), "Tillerman Avenue at Bosky Lane", True),
     ((880, 1191), "Tillerman Avenue at Quarry Lane", False),
     ((1480, 1209), "Tillerman Avenue at Osprell Road", True),
-    ((1700, 1191), "Ledgerwood Office Park", False),
+    ((1700, 1191), "Tallyhouse Office Park", False),
     ((1900, 1209), "Tillerman Shops", True),
     ((2320, 1191), "Tillerman Avenue at Gannetry Street", False),
     ((2730, 1209), "Tillerman Avenue at Inkwell Street", True),
@@ -570,13 +584,13 @@ def build_places(t: Town) -> None:
     t.multipolygon([CAMPUS_OUTER], [CAMPUS_INNER],
                    {"amenity": "university", "name": "Corvane Polytechnic University"},
                    inner_tags={"power": "substation"})
-    t.poi((380, 900), {"amenity": "college", "name": "Tidemark Community College"})
+    t.poi((380, 900), {"amenity": "college", "name": "Tidewrack Community College"})
     # retail strip along Tillerman Avenue, offices across the road
     t.area(RETAIL, {"landuse": "retail", "name": "Tillerman Shops"})
     t.area(rect(1590, 1332, 2010, 1392), {"amenity": "parking", "parking": "surface"})
     for pt, tags in SHOPS:
         t.poi(pt, tags)
-    t.area(COMMERCIAL, {"landuse": "commercial", "name": "Ledgerwood Office Park"})
+    t.area(COMMERCIAL, {"landuse": "commercial", "name": "Tallyhouse Office Park"})
     # transit
     for pt, name, platform in BUS_STOPS:
         tags = {"highway": "bus_stop", "bus": "yes", "name": name}
@@ -699,9 +713,8 @@ def check_junctions(town: Town) -> None:
             continue
         ends += [pts[0], pts[-1]]
         for a, b in zip(pts, pts[1:], strict=False):
-            for cx in range(int((min(a[0], b[0]) - 1) // cell), int((max(a[0], b[0]) + 1) // cell) + 1):
-                for cy in range(int((min(a[1], b[1]) - 1) // cell), int((max(a[1], b[1]) + 1) // cell) + 1):
-                    grid.setdefault((cx, cy), []).append((a, b, tags.get("name", "")))
+            for c in _cells(a, b, cell, 1.0):
+                grid.setdefault(c, []).append((a, b, tags.get("name", "")))
     for end in ends:
         for a, b, name in grid.get((int(end[0] // cell), int(end[1] // cell)), []):
             d = point_segment_distance(end, a, b)
@@ -858,7 +871,7 @@ def counts(built: Built) -> dict[str, int]:
 
 def readme(c: dict[str, int], drive_nodes: int) -> str:
     """Return the README text with the counts of this run."""
-    stop_names = ", ".join(name for _p, name, _pl in BUS_STOPS[:3])
+    n_platform = sum(1 for _p, _n, platform in BUS_STOPS if platform)
     return f"""# Corvane: an invented sample town
 
 Corvane **does not exist**. It is a made-up small US-style town, drawn by
@@ -869,13 +882,12 @@ data of routerisk.
 
 ## Files
 
-| file | what it is |
-|---|---|
-| `make_town.py` | the generator (Python standard library only, no randomness) |
-| `corvane.osm` | OpenStreetMap XML 0.6 with `<bounds>`, 7-decimal coordinates |
-| `routes.geojson` | 4 planned test routes: LineString waypoints, properties `name`, `depart` |
-| `area.geojson` | 2 proposed test areas: Polygon, property `name` |
-| `README.md` | this file (also generated) |
+- `make_town.py`: the generator (Python standard library only, no randomness).
+- `corvane.osm`: OpenStreetMap XML 0.6 with `<bounds>`, 7-decimal coordinates.
+- `routes.geojson`: 4 planned test routes, LineString waypoints with the properties
+  `name` and `depart` (local time); one also has `required` (waypoint indices).
+- `area.geojson`: 2 proposed test areas, Polygons with the property `name`.
+- `README.md`: this file (also generated).
 
 Regenerate (byte-identical on every run):
 
@@ -903,22 +915,24 @@ About 3 km x 2.5 km: {c['nodes']} nodes, {c['ways']} ways ({c['drivable_ways']} 
   Court, and a `hazard=school_zone` way on Hobbin Street with
   `maxspeed:conditional={SCHOOL_ZONE_CONDITIONAL}`.
 - `sidewalk=both/left/right/no/separate` on most streets; streets are split into several
-  ways, some curve gently (Ridgeline Drive, Hedgerow Road, Quarry Lane, Scholars Bend).
+  ways, some curve gently (Ridgeline Drive, Hedgerow Road, Quarry Lane, Scholars Bend) and
+  Millrace Road cuts across the grid at an angle.
 - Ways a drive filter must drop: footways, a cycleway, a path, steps, driveways,
   parking aisles, a private road (Plover Reach), a road under construction (Foxglove
   Rise) and a proposed one (Pennyroyal Link).
 
 Pedestrian exposure sources (counted as the default profile groups them):
 
-| category | count | features |
-|---|---|---|
-| school | {c['school']} | Marrowby Elementary School and Tumbrel Hill Middle School (grounds polygons), Gullhaven Academy (node), Wobblestone Kindergarten (node) |
-| campus | {c['campus']} | Corvane Polytechnic University (multipolygon with a hole), Tidemark Community College (node) |
-| retail | {c['retail']} | Tillerman Shops (`landuse=retail`) and {len(SHOPS)} `shop=*` nodes |
-| commercial | {c['commercial']} | Ledgerwood Office Park |
-| transit | {c['transit']} | `highway=bus_stop` beside the arterials ({stop_names}, ...), 6 also `public_transport=platform` |
-| park | {c['park']} | Quillfeather, Tansy Meadow and Brineholt parks, 2 playgrounds |
-| hospital | {c['hospital']} | Corvane Memorial Hospital |
+- school ({c['school']}): Marrowby Elementary School and Tumbrel Hill Middle School
+  (grounds polygons), Gullhaven Academy (node), Wobblestone Kindergarten (node).
+- campus ({c['campus']}): Corvane Polytechnic University (a multipolygon relation with a
+  hole), Tidewrack Community College (node).
+- retail ({c['retail']}): Tillerman Shops (`landuse=retail`) and {len(SHOPS)} `shop=*` nodes.
+- commercial ({c['commercial']}): Tallyhouse Office Park.
+- transit ({c['transit']}): `highway=bus_stop` nodes beside the arterials (such as
+  {BUS_STOPS[0][1]}), {n_platform} of them also `public_transport=platform`.
+- park ({c['park']}): Quillfeather, Tansy Meadow and Brineholt parks, 2 playgrounds.
+- hospital ({c['hospital']}): Corvane Memorial Hospital.
 
 On the streets: {c['crossings']} `highway=crossing` nodes (traffic_signals, marked,
 uncontrolled, unmarked) near the schools, the shops and the campus, and
@@ -931,9 +945,9 @@ uncontrolled, unmarked) near the schools, the shops and the campus, and
   {ALTERNATIVE_STREET} north on Ambrel Street, east on Hobbin Street right past the
   frontage of Marrowby Elementary School (its school zone), north on Cobmoor Street. It is
   the fastest way at the posted limits. The parallel {ALTERNATIVE_STREET}, two blocks
-  south, then Cobmoor Street pass no school, shop or campus and take about 9 % longer
-  (less than the school-zone limit costs at dismissal), so a lower-exposure alternative
-  exists.
+  south, then Cobmoor Street pass no school, shop or campus and take about 9 % longer at
+  the posted limits (less than the 20 mph dismissal limit costs), so a lower-exposure
+  alternative exists.
 - `tillerman-retail` (Saturday 11:30): along Tillerman Avenue through the shops;
   `required: [0, 3, 6]` keeps the signalised junction with Osprell Road in any alternative.
 - `campus-drive` (Wednesday 12:10): through the campus on Scholars Bend.

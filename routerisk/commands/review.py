@@ -24,6 +24,7 @@ _EPILOG = (
     f"What-if SPECs: {review.WHAT_IF_HELP} "
     "Example: --what-if 'rule:school surroundings at school hours=off' "
     "--what-if weight:school=5 weight:retail=0. "
+    "Give AREA before --what-if (a --what-if takes every SPEC that follows it). "
     "--json prints {areas: [{name, network_km, km_by_band, km_in_influence, sources, "
     "closed_km_by_hour (168), allowed_parts, hotspots, ...}], profile: fingerprint, "
     "what_if: [...]}. --out DIR writes areas.csv, areas.json and report.html."
