@@ -41,7 +41,8 @@ def build_parser() -> argparse.ArgumentParser:
     sub.required = True
     for name, mod in _available().items():
         p = sub.add_parser(name, help=mod.HELP, description=mod.HELP)  # type: ignore[attr-defined]
-        p.add_argument("--debug", action="store_true", help=argparse.SUPPRESS)
+        p.add_argument("--debug", action="store_true", default=argparse.SUPPRESS,
+                       help=argparse.SUPPRESS)
         mod.add_arguments(p)  # type: ignore[attr-defined]
         p.set_defaults(_run=mod.run)  # type: ignore[attr-defined]
     return parser

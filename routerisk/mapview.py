@@ -204,7 +204,7 @@ def add_sources(m: folium.Map, sources: gpd.GeoDataFrame, *, labels: dict[str, s
         layer.add_to(m)
 
 
-_ID = re.compile(r"\b([a-z_]+)_([0-9a-f]{32})\b")
+_ID = re.compile(r"(?<![0-9A-Za-z])([a-z][a-z_]*?)_([0-9a-f]{32})(?![0-9a-f])")
 
 
 def render(m: folium.Map) -> str:

@@ -12,16 +12,22 @@ transformer) and pass it to the functions here:
   sparseness", ACM SIGSPATIAL GIS '09, pp. 336-343 [published];
 - :func:`to_edges` picks one of the two per route (see :func:`is_dense_trace`).
 
-All return a :class:`MatchedRoute`: the ordered edges ``(u, v, key)`` driven, the share of each
+Each has a ``*_many`` form taking a list of routes, which is much faster for many routes: the
+work is done for all of them at once (one candidate search, one Dijkstra per distinct source
+node, one Viterbi decoding).
+
+All return :class:`MatchedRoute`: the ordered edges ``(u, v, key)`` driven, the share of each
 edge driven (the first and last edges are usually partial), and the total length and time.
 
-Both decoders solve the same problem: choose one candidate edge position per point so that the
+How it works
+------------
+Both decoders solve one problem: choose one candidate edge position per point so that the
 summed cost (emission plus transition) is least. The chain of points is a layered graph
 (candidates of point t link to candidates of point t + 1), so the Viterbi recursion is a
-shortest path from one source through that acyclic graph; it is run by
-``scipy.sparse.csgraph.dijkstra`` on a CSR matrix, all in compiled code. Route distances
-between candidates come from one bounded Dijkstra per route on the road matrix, restricted to
-the nodes that a path within the bound can reach.
+shortest path from one source through that acyclic graph; it runs in compiled code as
+``scipy.sparse.csgraph.dijkstra`` on a CSR matrix. Route costs between candidates come from
+bounded Dijkstra runs on the road matrix (``indices`` = the distinct nodes routes leave from,
+``limit`` = the largest cost that can matter), never from networkx in a loop.
 """
 
 from __future__ import annotations
@@ -48,14 +54,18 @@ logger = logging.getLogger(__name__)
 __all__ = [
     "DENSE_INTERVAL_S",
     "DENSE_SPACING_M",
+    "MAX_DETOUR_M",
     "MAX_SNAP_M",
     "SIGMA_Z_M",
     "MatchedRoute",
     "RoadIndex",
     "is_dense_trace",
+    "join_many",
     "join_waypoints",
+    "match_many",
     "match_trace",
     "to_edges",
+    "to_edges_many",
 ]
 
 #: Standard deviation of GPS noise, Newson and Krumm (2009) [published].
@@ -68,10 +78,11 @@ DENSE_SPACING_M = 60.0
 DENSE_INTERVAL_S = 10.0
 #: Extra driving allowed between consecutive fixes beyond their straight distance (m) [practice].
 MAX_DETOUR_M = 200.0
-#: Candidates of a fix farther than this many sigma_z beyond its nearest road are dropped.
+#: Candidates of a fix farther than this many sigma_z beyond its nearest road (in quadrature)
+#: are dropped: their emission is below exp(-18) of the nearest's [practice].
 PRUNE_SIGMAS = 6.0
-#: At most this many candidate edge positions per fix (the nearest; both directions count).
-MAX_CANDIDATES = 10
+#: At most this many candidate geometries per fix, the nearest (both directions count once).
+MAX_CANDIDATE_GEOMETRIES = 5
 #: Waypoint snapping keeps every edge within this of the nearest one and lets routing choose (m).
 _TIE_M = 2.0
 #: Median absolute deviation to standard deviation of a normal law (common practice).
@@ -79,6 +90,12 @@ _MAD_TO_SIGMA = 1.4826
 _EPS = 1e-9
 #: Graphs with more nodes than this run bounded Dijkstra on the part a route can reach.
 _SUBGRAPH_MIN_NODES = 20_000
+#: Dijkstra limits are rounded up to these steps, so that sources share runs.
+_LIMIT_STEPS = np.concatenate([15.0 * 2.0 ** np.arange(12), [np.inf]])
+#: Entries of one Dijkstra output block (sources x nodes), bounding memory.
+_BLOCK_ENTRIES = 4_000_000
+#: Routes are decoded in groups of about this many points, bounding memory.
+_GROUP_POINTS = 60_000
 
 Edge = tuple[Hashable, Hashable, Hashable]
 
@@ -146,7 +163,7 @@ class _Dist:
     sources: np.ndarray  # global node positions, sorted unique
     loc: np.ndarray | None  # global -> local node position (-1 outside), None: whole graph
     sub: np.ndarray | None  # local -> global
-    dist: np.ndarray
+    dist: np.ndarray | None
     pred: np.ndarray
 
     def rows(self, src: np.ndarray) -> np.ndarray:
@@ -156,7 +173,7 @@ class _Dist:
         return np.minimum(np.searchsorted(self.sources, src), len(self.sources) - 1)
 
     def cols(self, dst: np.ndarray) -> np.ndarray:
-        """Return the column of each node position; -1 (a column of inf) outside the subgraph."""
+        """Return the column of each node position; -1 (a column of inf) outside the cut."""
         return np.asarray(dst, dtype=np.int64) if self.loc is None else self.loc[dst]
 
     def node_path(self, src: int, dst: int) -> list[int]:
@@ -286,6 +303,7 @@ class RoadIndex:
         }
         self.median_speed = float(np.median(length / ttime))
         self.to_graph = pyproj.Transformer.from_crs("EPSG:4326", crs, always_xy=True)
+        self._xy_min = self.node_xy.min(axis=0)
         self._build_segments()
         logger.info("RoadIndex indexed %d nodes and %d edges", n, m)
 
@@ -364,6 +382,18 @@ class RoadIndex:
         """Return the ``(u, v, key)`` of edge position i."""
         return (self.node_ids[self.edge_u[i]], self.node_ids[self.edge_v[i]], self.edge_key[i])
 
+    def edges(self, positions: np.ndarray) -> tuple[Edge, ...]:
+        """Return the ``(u, v, key)`` of many edge positions."""
+        u = self.node_ids[self.edge_u[positions]]
+        v = self.node_ids[self.edge_v[positions]]
+        return tuple(zip(u.tolist(), v.tolist(), [self.edge_key[int(p)] for p in positions],
+                         strict=True))
+
+    def spatial_order(self, nodes: np.ndarray) -> np.ndarray:
+        """Return an order of node positions that keeps nearby nodes together (1 km cells)."""
+        cell = np.floor((self.node_xy[nodes] - self._xy_min) / 1000.0).astype(np.int64)
+        return np.lexsort((cell[:, 1], cell[:, 0]))
+
     def project(self, lonlat: np.ndarray) -> np.ndarray:
         """Return (N, 2) graph-CRS coordinates of (N, 2) lon, lat (NaN where invalid)."""
         ll = np.asarray(lonlat, dtype=float)
@@ -374,8 +404,8 @@ class RoadIndex:
         return xy
 
     def candidates(
-        self, xy: np.ndarray, radius: float, *, spread: float | None = None,
-        max_per_point: int | None = None,
+        self, xy: np.ndarray, radius: float | np.ndarray, *,
+        spread: float | np.ndarray | None = None, max_per_point: int | None = None,
     ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
         """Return the edge positions within ``radius`` of each point.
 
@@ -384,13 +414,13 @@ class RoadIndex:
         xy
             (N, 2) projected points.
         radius
-            Search radius (m).
+            Search radius (m), one for all points or one per point.
         spread
-            If given, keep only positions with ``d**2 <= nearest**2 + spread**2`` (nearest: the
-            point's closest road), the rest being far less likely.
+            If given (one or per point), keep only positions with
+            ``d**2 <= nearest**2 + spread**2`` (nearest: the point's closest road).
         max_per_point
-            If given, keep at most this many geometries (each direction of a two-way street
-            then counts once) per point, the nearest.
+            If given, keep at most this many geometries per point, the nearest (the two
+            directions of a two-way street share one geometry).
 
         Returns
         -------
@@ -401,13 +431,15 @@ class RoadIndex:
         """
         ok = np.flatnonzero(np.isfinite(xy).all(axis=1))
         px, py = xy[ok, 0], xy[ok, 1]
-        boxes = shapely.box(px - radius, py - radius, px + radius, py + radius)
+        r_pt = np.broadcast_to(np.asarray(radius, dtype=float), (len(xy),))[ok]
+        r = float(r_pt.max()) if len(r_pt) else 0.0
+        boxes = shapely.box(px - r, py - r, px + r, py + r)
         qi, si = self._seg_tree.query(boxes)
         qx, qy = px[qi] - self._seg_ax[si], py[qi] - self._seg_ay[si]
         dx, dy, l2 = self._seg_dx[si], self._seg_dy[si], self._seg_l2[si]
         t = np.clip((qx * dx + qy * dy) / l2, 0.0, 1.0)  # l2 > 0: zero-length segments dropped
         d = np.hypot(qx - t * dx, qy - t * dy)
-        near = np.flatnonzero(d <= radius)
+        near = np.flatnonzero(d <= (r_pt[qi] if np.ndim(radius) else r))
         qi, si, t, d = qi[near], si[near], t[near], d[near]
         g = self._seg_grp[si]
         key = qi * len(self._grp_len) + g
@@ -420,7 +452,8 @@ class RoadIndex:
         if spread is not None and len(qi):
             first = np.concatenate([[True], qi[1:] != qi[:-1]])
             nearest = np.minimum.reduceat(d, np.flatnonzero(first))[np.cumsum(first) - 1]
-            keep = np.flatnonzero(d * d <= nearest * nearest + spread * spread)
+            sp_ = np.broadcast_to(np.asarray(spread, dtype=float), (len(xy),))[ok][qi]
+            keep = np.flatnonzero(d * d <= nearest * nearest + sp_ * sp_)
             qi, g, d, along = qi[keep], g[keep], d[keep], along[keep]
         if max_per_point is not None and len(qi):
             count = np.bincount(qi)
@@ -501,7 +534,7 @@ class RoadIndex:
 class _Layers:
     """Candidates of the points that have some: flat arrays grouped by layer."""
 
-    point: np.ndarray  # route point of each layer
+    point: np.ndarray  # global point of each layer
     cand_layer: np.ndarray
     cand_edge: np.ndarray
     cand_frac: np.ndarray
@@ -521,7 +554,7 @@ def _layers(n_points: int, point: np.ndarray, edge: np.ndarray, dist: np.ndarray
     have = count_all > 0
     layer_of = np.cumsum(have) - 1
     count = count_all[have]
-    start = np.concatenate([[0], np.cumsum(count)[:-1]])
+    start = np.concatenate([[0], np.cumsum(count)[:-1]]).astype(np.int64)
     return _Layers(np.flatnonzero(have), layer_of[point], edge, frac, dist, start, count)
 
 
@@ -530,8 +563,8 @@ def _ends(index: RoadIndex, L: _Layers, *, at_nodes: bool) -> tuple[np.ndarray, 
 
     Normally a route leaves a position on (u, v) through v and arrives through u. With
     ``at_nodes`` a position at the very start of an edge is the node u itself, and one at the
-    very end is the node v itself (both directions and all edges meeting there then share one
-    Dijkstra source).
+    very end is the node v itself (all edges meeting at a node then share one Dijkstra
+    source).
     """
     e, f = L.cand_edge, L.cand_frac
     leave, arrive = index.edge_v[e], index.edge_u[e]
@@ -541,87 +574,158 @@ def _ends(index: RoadIndex, L: _Layers, *, at_nodes: bool) -> tuple[np.ndarray, 
     return leave, arrive
 
 
-def _route_costs(
-    index: RoadIndex, L: _Layers, *, weight: str, limit: float | np.ndarray, back_tol_m: float,
-    at_nodes: bool = False,
-) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, _Dist | list[_Dist]]:
-    """Return pair layer, from and to candidate and route cost between consecutive layers.
+@dataclass
+class _Pairs:
+    """Candidate pairs of consecutive layers of one route, sorted by from-candidate."""
 
-    Pairs come sorted by their from-candidate. The route cost from position (e, f) to (e', f')
-    is the rest of e, the least cost from e's head to the tail of e', and the start of e'; on
-    one edge moving forward it is the part of the edge between, and a step back of at most
-    ``back_tol_m`` costs nothing (GPS jitter). Node costs come from one bounded Dijkstra for
-    a scalar ``limit``, or one per transition for an array of limits (then a list of results,
-    one per transition, is returned).
-    """
-    start, count = L.start, L.count
-    npairs = count[:-1] * count[1:]
+    t: np.ndarray  # transition (from-layer) of each pair
+    a: np.ndarray  # from-candidate
+    b: np.ndarray  # to-candidate
+    first: np.ndarray  # first pair of each transition (len T), for pair lookup
+
+    def find(self, L: _Layers, t: np.ndarray, a: np.ndarray, b: np.ndarray) -> np.ndarray:
+        """Return the pair index of (a, b) at transitions t."""
+        return self.first[t] + (a - L.start[t]) * L.count[t + 1] + (b - L.start[t + 1])
+
+
+def _pairs(L: _Layers, layer_route: np.ndarray) -> _Pairs:
+    """Return every pair of candidates of consecutive layers of the same route."""
+    cnt = L.count
+    npairs = cnt[:-1] * cnt[1:] * (layer_route[1:] == layer_route[:-1])
     total = int(npairs.sum())
-    pair_t = np.repeat(np.arange(L.n - 1), npairs)
-    within = np.arange(total) - np.repeat(np.cumsum(npairs) - npairs, npairs)
-    cnext = count[1:][pair_t]
-    ia = start[:-1][pair_t] + within // cnext
-    ib = start[1:][pair_t] + within % cnext
+    first = np.concatenate([[0], np.cumsum(npairs)]).astype(np.int64)
+    t = np.repeat(np.arange(L.n - 1), npairs)
+    within = np.arange(total) - first[t]
+    cnext = cnt[1:][t]
+    a = L.start[t] + within // cnext
+    b = L.start[t + 1] + within % cnext
+    return _Pairs(t, a, b, first)
+
+
+@dataclass
+class _Routing:
+    """Node-to-node Dijkstra results behind pair costs, kept to rebuild the paths."""
+
+    results: list[_Dist]
+    cand_block: np.ndarray  # per candidate: block in results holding its leave node (-1)
+    leave: np.ndarray
+    arrive: np.ndarray
+
+    def node_path(self, a: int, b: int) -> list[int]:
+        res = self.results[int(self.cand_block[a])]
+        return res.node_path(int(self.leave[a]), int(self.arrive[b]))
+
+
+def _pair_costs(
+    index: RoadIndex,
+    L: _Layers,
+    P: _Pairs,
+    *,
+    weight: str,
+    limit_t: np.ndarray,
+    back_tol: np.ndarray,
+    at_nodes: bool,
+) -> tuple[np.ndarray, _Routing]:
+    """Return the route cost of every pair and the routing behind it.
+
+    The cost from position (e, f) to (e', f') is the rest of e, the least cost from the node
+    left through to the node arrived at (bounded Dijkstra, at most ``limit_t`` of the
+    transition, else inf), and the start of e'. Moving forward along one edge costs the part
+    between; a step back of at most ``back_tol`` (per candidate, m) costs nothing (GPS
+    jitter). Dijkstra runs once per distinct leave node and limit step, in blocks.
+    """
     e, f = L.cand_edge, L.cand_frac
     w = (index.edge_time if weight == "time" else index.edge_length)[e]
-    heads, tails = _ends(index, L, at_nodes=at_nodes)
+    leave, arrive = _ends(index, L, at_nodes=at_nodes)
     tail, lead = (1.0 - f) * w, f * w
     if at_nodes:
         tail = np.where(f <= 0.0, 0.0, tail)
         lead = np.where(f >= 1.0, 0.0, lead)
-    res: _Dist | list[_Dist]
-    if np.ndim(limit) == 0:
-        res = index.distances(weight, heads[: start[-1]], float(limit))
-        rows = res.rows(heads)
-        cols = res.cols(tails)
-        cost = tail[ia] + res.dist[rows[ia], cols[ib]] + lead[ib]
+    # which candidates leave towards a next layer, with which limit step
+    out = np.zeros(L.n, dtype=bool)
+    has = np.flatnonzero(np.diff(P.first) > 0)
+    out[has] = True
+    step_t = np.full(L.n, -1, dtype=np.int64)
+    step_t[has] = np.searchsorted(_LIMIT_STEPS, limit_t[has])
+    cand_step = step_t[L.cand_layer]
+    cand_block = np.full(len(e), -1, dtype=np.int64)
+    cand_row = np.zeros(len(e), dtype=np.int64)
+    results: list[_Dist] = []
+    per_block = max(32, _BLOCK_ENTRIES // max(index.n_nodes, 1))
+    for step in np.unique(cand_step[cand_step >= 0]):
+        sel = np.flatnonzero(cand_step == step)
+        nodes, inv = np.unique(leave[sel], return_inverse=True)
+        order = index.spatial_order(nodes)
+        rank = np.empty(len(nodes), dtype=np.int64)
+        rank[order] = np.arange(len(nodes))
+        block_of_node = rank // per_block
+        for k in range(int(block_of_node.max()) + 1):
+            mine = sel[block_of_node[inv] == k] if block_of_node.max() else sel
+            res = index.distances(weight, nodes[order[k * per_block:(k + 1) * per_block]],
+                                  float(_LIMIT_STEPS[step]))
+            cand_block[mine] = len(results)
+            cand_row[mine] = res.rows(leave[mine])
+            results.append(res)
+    cost = np.full(len(P.a), np.inf)
+    blk = cand_block[P.a]
+    if len(results) == 1:
+        groups = [np.arange(len(P.a))]
     else:
-        res = []
-        cost = np.empty(total)
-        lo = np.concatenate([[0], np.cumsum(npairs)])
-        for t in range(L.n - 1):
-            r = index.distances(weight, heads[start[t]:start[t] + count[t]], float(limit[t]))
-            res.append(r)
-            a, b = ia[lo[t]:lo[t + 1]], ib[lo[t]:lo[t + 1]]
-            cost[lo[t]:lo[t + 1]] = tail[a] + r.dist[r.rows(heads[a]), r.cols(tails[b])] + lead[b]
-    same = np.flatnonzero(e[ia] == e[ib])
+        by = np.argsort(blk, kind="stable")
+        cuts = np.searchsorted(blk[by], np.arange(len(results) + 1))
+        groups = [by[cuts[k]:cuts[k + 1]] for k in range(len(results))]
+    for k, idx in enumerate(groups):
+        res = results[k]
+        a, b = P.a[idx], P.b[idx]
+        assert res.dist is not None
+        cost[idx] = tail[a] + res.dist[cand_row[a], res.cols(arrive[b])] + lead[b]
+        res.dist = None  # only the predecessors are kept, to rebuild paths
+    same = np.flatnonzero(e[P.a] == e[P.b])
     if len(same):
-        fa, fb = f[ia[same]], f[ib[same]]
+        a, b = P.a[same], P.b[same]
+        fa, fb = f[a], f[b]
         fwd = fb >= fa
         k = same[fwd]
-        cost[k] = np.minimum(cost[k], (fb[fwd] - fa[fwd]) * w[ia[k]])
-        hold = ~fwd & ((fa - fb) * index.edge_length[e[ia[same]]] <= back_tol_m)
+        cost[k] = np.minimum(cost[k], (fb[fwd] - fa[fwd]) * w[a[fwd]])
+        hold = ~fwd & ((fa - fb) * index.edge_length[e[a]] <= back_tol[a])
         cost[same[hold]] = 0.0
-    return pair_t, ia, ib, cost, res
+    return cost, _Routing(results, cand_block, leave, arrive)
 
 
 def _viterbi(
-    L: _Layers, em: np.ndarray, pair_t: np.ndarray, ia: np.ndarray, ib: np.ndarray,
-    tw: np.ndarray
+    L: _Layers, em: np.ndarray, P: _Pairs, tw: np.ndarray, starts: np.ndarray
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Decode the cheapest chain of candidates.
+    """Decode the cheapest chains of candidates.
+
+    Parameters
+    ----------
+    L, P
+        Layers and pairs.
+    em, tw
+        Emission cost per candidate and transition cost per pair (inf: not plausible).
+    starts
+        True at layers that must start a chain (the first layer of each route).
 
     Returns
     -------
     chosen, seg, best
-        Chosen candidate per layer, True at layers that start a new piece (no plausible
-        transition into them), and each candidate's least chain cost.
+        Chosen candidate per layer, True at layers that start a chain (route starts and
+        breaks: no plausible transition into them), and each candidate's least chain cost.
     """
-    ok = np.isfinite(tw)
-    pair_t, ia, ib, tw = pair_t[ok], ia[ok], ib[ok], tw[ok]
+    ok = np.flatnonzero(np.isfinite(tw))
+    pa, pb = P.a[ok], P.b[ok]
     n_c = len(L.cand_layer)
-    seg = np.zeros(L.n, dtype=bool)
-    seg[0] = True
+    seg = starts.copy()
     if L.n > 1:
-        seg[1:] = np.bincount(pair_t, minlength=L.n - 1) == 0
+        seg[1:] |= np.bincount(P.t[ok], minlength=L.n - 1) == 0
     S = n_c
-    row_count = np.bincount(ia, minlength=n_c)
-    pair_data = tw + em[ib] + _EPS
+    row_count = np.bincount(pa, minlength=n_c)
+    pair_data = tw[ok] + em[pb] + _EPS
     while True:
         heads = np.flatnonzero(seg[L.cand_layer])
-        indptr = np.concatenate([[0], np.cumsum(row_count), [len(ia) + len(heads)]])
+        indptr = np.concatenate([[0], np.cumsum(row_count), [len(pa) + len(heads)]])
         mat = sp.csr_matrix(
-            (np.concatenate([pair_data, em[heads] + _EPS]), np.concatenate([ib, heads]), indptr),
+            (np.concatenate([pair_data, em[heads] + _EPS]), np.concatenate([pb, heads]), indptr),
             shape=(n_c + 1, n_c + 1),
         )
         dist, pred = dijkstra(mat, indices=S, return_predecessors=True)
@@ -633,7 +737,7 @@ def _viterbi(
     ends = np.flatnonzero(np.concatenate([seg[1:], [True]]))
     pred_l = pred.tolist()
     layer_l = L.cand_layer.tolist()
-    for t in ends:
+    for t in ends.tolist():
         block = dist[L.start[t]:L.start[t] + L.count[t]]
         c = int(L.start[t] + np.argmin(block))
         while 0 <= c != S:
@@ -645,50 +749,55 @@ def _viterbi(
 def _assemble(
     index: RoadIndex,
     route: PlannedRoute,
+    offset: int,
     L: _Layers,
+    lo: int,
+    hi: int,
     chosen: np.ndarray,
     seg: np.ndarray,
-    res: _Dist | list[_Dist],
+    routing: _Routing,
     *,
     method: str,
     weight: str,
     back_tol_m: float,
-    at_nodes: bool = False,
+    at_nodes: bool,
     sigma_z: float | None = None,
     beta: float | None = None,
 ) -> MatchedRoute:
-    """Turn the chosen candidate per layer into an ordered list of edge visits."""
-    leave, arrive = _ends(index, L, at_nodes=at_nodes)
-    ce = L.cand_edge[chosen]
-    cf = L.cand_frac[chosen]
+    """Turn the chosen candidates of layers lo..hi-1 (one route) into ordered edge visits."""
+    ch = chosen[lo:hi]
+    sg = seg[lo:hi].copy()
+    sg[0] = True
+    ce = L.cand_edge[ch]
+    cf = L.cand_frac[ch]
     same = ce[1:] == ce[:-1]
     fwd = same & (cf[1:] >= cf[:-1])
     hold = same & ~fwd & ((cf[:-1] - cf[1:]) * index.edge_length[ce[1:]] <= back_tol_m)
-    new = np.concatenate([[True], ~(fwd | hold) | seg[1:]])
-    first = np.flatnonzero(new)  # layer opening each group of layers on one edge
+    new = np.concatenate([[True], ~(fwd | hold) | sg[1:]])
+    first = np.flatnonzero(new)  # layer opening each run of layers on one edge
     group = np.cumsum(new) - 1
     gmax = np.maximum.reduceat(cf, first)
     visits: list[list[Any]] = []  # [edge, start, end, starts_piece]
     group_visit = np.empty(len(first), dtype=np.int64)
     for k, t in enumerate(first.tolist()):
         e = int(ce[t])
-        if seg[t]:
+        if sg[t]:
             visits.append([e, float(cf[t]), float(gmax[k]), True])
         else:
-            a, b = int(chosen[t - 1]), int(chosen[t])
-            if not (at_nodes and cf[t - 1] <= 0.0):  # else it leaves from u: e not driven
+            if not (at_nodes and cf[t - 1] <= 0.0):  # else it left from u: e not driven
                 visits[-1][2] = 1.0
-            r = res[t - 1] if isinstance(res, list) else res
-            nodes = r.node_path(int(leave[a]), int(arrive[b]))
+            nodes = routing.node_path(int(ch[t - 1]), int(ch[t]))
             visits.extend([pe, 0.0, 1.0, False] for pe in index.edges_between(weight, nodes))
             on = 1.0 if at_nodes and cf[t] >= 1.0 else 0.0  # arrived at v without driving e
             visits.append([e, on, float(gmax[k]), False])
         group_visit[k] = len(visits) - 1
-    point_visit = np.full(len(route), -1, dtype=np.int64)
-    point_off = np.full(len(route), np.nan)
-    point_visit[L.point] = group_visit[group]
-    point_off[L.point] = cf
-    breaks = tuple(int(p) for p in L.point[1:][seg[1:]])
+    n = len(route)
+    pts = L.point[lo:hi] - offset
+    point_visit = np.full(n, -1, dtype=np.int64)
+    point_off = np.full(n, np.nan)
+    point_visit[pts] = group_visit[group]
+    point_off[pts] = cf
+    breaks = tuple(int(p) for p in pts[1:][sg[1:]])
     # drop visits of zero length (a point exactly on a node), keeping at least one; a point on
     # a dropped visit moves to the start of the next kept visit (or the end of the last one)
     keep = np.array([v[2] - v[1] > 1e-12 for v in visits])
@@ -720,7 +829,7 @@ def _assemble(
         name=route.name,
         source=route.source,
         method=method,
-        edges=tuple(index.edge(int(e)) for e in edges_pos),
+        edges=index.edges(edges_pos),
         fractions=fractions,
         start_offset=float(kept[0][1]),
         end_offset=float(kept[-1][2]),
@@ -735,8 +844,33 @@ def _assemble(
     )
 
 
+def _stack(index: RoadIndex, routes: Sequence[PlannedRoute]) -> tuple[np.ndarray, np.ndarray]:
+    """Return all points projected and the point offset of each route (len R + 1)."""
+    offsets = np.concatenate([[0], np.cumsum([len(r) for r in routes])]).astype(np.int64)
+    lonlat = np.concatenate([r.lonlat for r in routes]) if routes else np.empty((0, 2))
+    return index.project(lonlat), offsets
+
+
+def _groups(routes: Sequence[PlannedRoute]) -> list[list[int]]:
+    """Split route positions into groups of about _GROUP_POINTS points."""
+    out: list[list[int]] = [[]]
+    size = 0
+    for i, r in enumerate(routes):
+        if out[-1] and size + len(r) > _GROUP_POINTS:
+            out.append([])
+            size = 0
+        out[-1].append(i)
+        size += len(r)
+    return [g for g in out if g]
+
+
+def _layer_bounds(layer_route: np.ndarray, n_routes: int) -> np.ndarray:
+    """Return, for each route, the first layer (len R + 1, layers sorted by route)."""
+    return np.searchsorted(layer_route, np.arange(n_routes + 1)).astype(np.int64)
+
+
 # --------------------------------------------------------------------------------------------
-# errors about points off the network
+# points off the network
 
 
 def _off_network(
@@ -768,96 +902,6 @@ def _off_network(
     )
 
 
-# --------------------------------------------------------------------------------------------
-# joining planned waypoints
-
-
-def join_waypoints(
-    index: RoadIndex, route: PlannedRoute, *, max_snap_m: float = MAX_SNAP_M
-) -> MatchedRoute:
-    """Join a route's waypoints by the fastest paths between them.
-
-    Each waypoint is snapped to the nearest edge position (every edge within 2 m of the
-    nearest counts, e.g. both directions of a two-way street, and the routing picks the
-    cheapest), the edge is split at the projection, and consecutive waypoints are joined by the
-    least-travel-time path; all choices are made jointly, so a waypoint on a two-way street
-    is passed in the direction that makes the whole route fastest.
-
-    Parameters
-    ----------
-    index
-        Index of the road graph.
-    route
-        The planned route (its points are waypoints, all of them visited in order).
-    max_snap_m
-        Farthest a waypoint may lie from a drivable edge.
-
-    Returns
-    -------
-    MatchedRoute
-        With ``method="join"``.
-
-    Raises
-    ------
-    RouteInputError
-        A waypoint is farther than ``max_snap_m`` from every edge (naming the route, the point
-        and its distance), latitude and longitude look swapped, or no drivable path joins two
-        consecutive waypoints.
-    """
-    if not max_snap_m > 0 or not math.isfinite(max_snap_m):
-        raise OptionError(f"max_snap_m must be a positive number, got {max_snap_m!r}",
-                          field="max_snap_m")
-    xy = index.project(route.lonlat)
-    point, edge, dist, frac = index.candidates(xy, max_snap_m)
-    have = np.bincount(point, minlength=len(route)) > 0
-    if not have.all():
-        raise _off_network(index, route, xy, np.flatnonzero(~have), max_snap_m)
-    head = np.concatenate([[True], point[1:] != point[:-1]])
-    nearest = np.minimum.reduceat(dist, np.flatnonzero(head))[np.cumsum(head) - 1]
-    near = dist <= nearest + _TIE_M
-    L = _layers(len(route), point[near], edge[near], dist[near], frac[near])
-    # per transition a first bound on the fastest time: 1.5 x straight distance at the
-    # median speed plus 30 s; the result is checked optimal below, or recomputed wider
-    gap = np.hypot(*np.diff(xy[L.point], axis=0).T)
-    limit = 1.5 * gap / max(index.median_speed, 0.5) + 30.0
-    em = np.zeros(len(L.cand_layer))
-    for attempt in range(4):
-        if attempt == 3:
-            limit = np.full(L.n - 1, np.inf)
-        pair_t, ia, ib, cost, res = _route_costs(index, L, weight="time", limit=limit,
-                                                 back_tol_m=0.0, at_nodes=True)
-        chosen, seg, best = _viterbi(L, em, pair_t, ia, ib, cost)
-        if not seg[1:].any():
-            # a pair left out at transition t costs more than limit[t], so a chain using it
-            # costs more than limit[t] + the least costs of the other transitions: the chain
-            # found is optimal when it is no dearer than every such bound
-            m_t = np.full(L.n - 1, np.inf)
-            np.minimum.at(m_t, pair_t, cost)
-            found = float(best[chosen[-1]]) - L.n * _EPS
-            slack = float(np.min(limit - m_t))
-            if found - float(m_t.sum()) <= slack + 1e-9:
-                break
-            limit = limit * 3.0
-        elif attempt < 3:
-            limit = np.where(seg[1:], np.inf, limit)
-        else:
-            t = int(np.flatnonzero(seg[1:])[0])
-            raise RouteInputError(
-                f"no drivable path from point {int(L.point[t])} to point {int(L.point[t + 1])} "
-                "(one-way streets or a road not connected to the rest)",
-                path=route.source or None,
-                field=f"route {route.name!r} point {int(L.point[t + 1])}",
-            )
-    out = _assemble(index, route, L, chosen, seg, res, method="join", weight="time",
-                    back_tol_m=0.0, at_nodes=True)
-    logger.debug("join_waypoints %r: %d edges, %.0f m, %.0f s", route.name, len(out),
-                 out.length_m, out.time_s)
-    return out
-
-
-# --------------------------------------------------------------------------------------------
-# HMM map matching of recorded traces
-
 
 def _thin(xy: np.ndarray, min_step: float, required: np.ndarray) -> np.ndarray:
     """Return the mask of fixes kept when dropping those within ``min_step`` of the last kept."""
@@ -877,9 +921,146 @@ def _thin(xy: np.ndarray, min_step: float, required: np.ndarray) -> np.ndarray:
     return keep
 
 
-def _positive(value: float, name: str) -> float:
+
+# --------------------------------------------------------------------------------------------
+# joining planned waypoints
+
+
+def _check_snap(value: float) -> float:
     try:
         v = float(value)
+    except (TypeError, ValueError):
+        v = math.nan
+    if not v > 0 or not math.isfinite(v):
+        raise OptionError(f"max_snap_m must be a positive number, got {value!r}",
+                          field="max_snap_m")
+    return v
+
+
+def join_waypoints(
+    index: RoadIndex, route: PlannedRoute, *, max_snap_m: float = MAX_SNAP_M
+) -> MatchedRoute:
+    """Join a route's waypoints by the fastest paths between them.
+
+    Each waypoint is snapped to the nearest edge position (every edge within 2 m of the
+    nearest counts, e.g. both directions of a two-way street, and the routing picks the
+    cheapest), the edge is split at the projection, and consecutive waypoints are joined by the
+    least-travel-time path. All choices are made jointly, so a waypoint on a two-way street is
+    passed in the direction that makes the whole route fastest. The paths are exact: bounded
+    Dijkstra runs are widened until the chain found is provably the fastest.
+
+    Parameters
+    ----------
+    index
+        Index of the road graph.
+    route
+        The planned route (its points are waypoints, all visited in order).
+    max_snap_m
+        Farthest a waypoint may lie from a drivable edge.
+
+    Returns
+    -------
+    MatchedRoute
+        With ``method="join"``.
+
+    Raises
+    ------
+    RouteInputError
+        A waypoint is farther than ``max_snap_m`` from every edge (naming the route, the point
+        and its distance), latitude and longitude look swapped, or no drivable path joins two
+        consecutive waypoints.
+    """
+    return join_many(index, [route], max_snap_m=max_snap_m)[0]
+
+
+def join_many(
+    index: RoadIndex, routes: Sequence[PlannedRoute], *, max_snap_m: float = MAX_SNAP_M
+) -> list[MatchedRoute]:
+    """Join the waypoints of many routes at once; see :func:`join_waypoints`.
+
+    Returns one :class:`MatchedRoute` per route, in order; the first route in error raises.
+    """
+    snap = _check_snap(max_snap_m)
+    out: list[MatchedRoute] = []
+    for group in _groups(routes):
+        out.extend(_join_group(index, [routes[i] for i in group], snap))
+    return out
+
+
+def _join_group(
+    index: RoadIndex, routes: list[PlannedRoute], max_snap_m: float, attempt: int = 0
+) -> list[MatchedRoute]:
+    xy, offsets = _stack(index, routes)
+    n_pts = len(xy)
+    point, edge, dist, frac = index.candidates(xy, max_snap_m)
+    have = np.bincount(point, minlength=n_pts) > 0
+    if not have.all():
+        r = int(np.searchsorted(offsets, int(np.flatnonzero(~have)[0]), side="right") - 1)
+        lo, hi = offsets[r], offsets[r + 1]
+        raise _off_network(index, routes[r], xy[lo:hi], np.flatnonzero(~have[lo:hi]), max_snap_m)
+    head = np.concatenate([[True], point[1:] != point[:-1]])
+    nearest = np.minimum.reduceat(dist, np.flatnonzero(head))[np.cumsum(head) - 1]
+    near = dist <= nearest + _TIE_M
+    L = _layers(n_pts, point[near], edge[near], dist[near], frac[near])
+    route_of = np.repeat(np.arange(len(routes)), np.diff(offsets))
+    layer_route = route_of[L.point]
+    bounds = _layer_bounds(layer_route, len(routes))
+    P = _pairs(L, layer_route)
+    # a first bound on each fastest time: 1.5 x straight distance at the median speed + 30 s,
+    # widened 3x per attempt; the last attempt is unbounded
+    gap = np.hypot(*np.diff(xy[L.point], axis=0).T)
+    limit_t = (1.5 * gap / max(index.median_speed, 0.5) + 30.0) * 3.0**attempt
+    if attempt >= 3:
+        limit_t = np.full(L.n - 1, np.inf)
+    cost, routing = _pair_costs(index, L, P, weight="time", limit_t=limit_t,
+                                back_tol=np.zeros(len(L.cand_layer)), at_nodes=True)
+    starts = np.zeros(L.n, dtype=bool)
+    starts[bounds[:-1]] = True
+    chosen, seg, best = _viterbi(L, np.zeros(len(L.cand_layer)), P, cost, starts)
+    # per transition the least pair cost; a pair left out at transition t costs more than
+    # limit_t, so a chain using it costs more than limit_t + the other transitions' least
+    # costs: the chain found is optimal when it is no dearer than every such bound
+    m_t = np.full(L.n - 1, np.inf)
+    np.minimum.at(m_t, P.t, cost)
+    retry: list[int] = []
+    results: dict[int, MatchedRoute] = {}
+    for r, route in enumerate(routes):
+        lo, hi = int(bounds[r]), int(bounds[r + 1])
+        broken = seg[lo + 1:hi]
+        if broken.any():
+            if attempt >= 3:
+                t = lo + int(np.flatnonzero(broken)[0])
+                a, b = int(L.point[t] - offsets[r]), int(L.point[t + 1] - offsets[r])
+                raise RouteInputError(
+                    f"no drivable path from point {a} to point {b} "
+                    "(one-way streets or a road not connected to the rest)",
+                    path=route.source or None,
+                    field=f"route {route.name!r} point {b}",
+                )
+            retry.append(r)
+            continue
+        if attempt < 3 and hi - lo > 1:
+            found = float(best[chosen[hi - 1]]) - (hi - lo) * _EPS
+            m = m_t[lo:hi - 1]
+            if found - float(m.sum()) > float(np.min(limit_t[lo:hi - 1] - m)) + 1e-9:
+                retry.append(r)
+                continue
+        results[r] = _assemble(index, route, int(offsets[r]), L, lo, hi, chosen, seg, routing,
+                               method="join", weight="time", back_tol_m=0.0, at_nodes=True)
+    if retry:
+        logger.debug("join: %d route(s) need wider Dijkstra bounds", len(retry))
+        again = _join_group(index, [routes[r] for r in retry], max_snap_m, attempt + 1)
+        results.update(zip(retry, again, strict=True))
+    return [results[r] for r in range(len(routes))]
+
+
+# --------------------------------------------------------------------------------------------
+# HMM map matching of recorded traces
+
+
+def _positive(value: object, name: str) -> float:
+    try:
+        v = float(value)  # type: ignore[arg-type]
     except (TypeError, ValueError):
         v = math.nan
     if not v > 0 or not math.isfinite(v):
@@ -903,12 +1084,14 @@ def match_trace(
     within the search radius; the emission is Gaussian in the fix-to-road distance with
     ``sigma_z``; the transition is exponential in ``|straight distance between the fixes -
     route distance between the positions|`` with ``beta``, the route distance being the
-    shortest driving distance (following one-way streets; forward moves along one edge are
+    shortest driving distance (following one-way streets; a forward move along one edge is
     measured on the edge, a step back of at most 2 sigma_z on one edge counts as standing
-    still); Viterbi decoding in log space. Fixes within 2 sigma_z of the last kept fix are
-    dropped (required points are kept). Where no route within ``max_detour_m`` of extra
-    driving joins two consecutive fixes the chain is broken and restarted, and the break is
-    reported in :attr:`MatchedRoute.breaks`. Fixes with no road within the radius are dropped.
+    still); Viterbi decoding in log space (as a shortest path). Fixes within 2 sigma_z of the
+    last kept fix are dropped (required points are kept). Where no route with at most
+    ``max_detour_m`` of extra driving joins two consecutive kept fixes, the chain is broken
+    and restarted; breaks are reported in :attr:`MatchedRoute.breaks`. Fixes with no road
+    within the radius are dropped. Candidates more than 6 sigma_z (in quadrature) beyond a
+    fix's nearest road, and beyond its 5 nearest geometries, are not considered.
 
     Parameters
     ----------
@@ -920,9 +1103,11 @@ def match_trace(
         GPS noise (m), or ``"estimate"`` for 1.4826 x the median distance from each fix to
         its nearest road.
     beta
-        Transition scale (m); ``"estimate"`` decodes once with the default, then sets beta to
+        Transition scale (m). ``"estimate"`` decodes once with the default, then sets beta to
         the median of ``|straight - route|`` along that match / ln 2 and decodes again; None
-        uses 2 x sigma_z [practice: chosen on synthetic traces, see tests/test_matching.py].
+        uses 2 x sigma_z [practice: the straight distance between two fixes each with noise
+        sigma_z differs from the driven distance by about N(0, 2 sigma_z^2), whose median
+        absolute value / ln 2 is 1.4 sigma_z; 2 sigma_z leaves room for corners].
     search_radius_m
         Candidate radius (m); None uses max(50, 6 x sigma_z).
     max_detour_m
@@ -939,57 +1124,124 @@ def match_trace(
         Fewer than two fixes, or more than half the fixes, have a road within the search
         radius (latitude and longitude swapped is named as such).
     """
-    xy = index.project(route.lonlat)
+    return match_many(index, [route], sigma_z=sigma_z, beta=beta,
+                      search_radius_m=search_radius_m, max_detour_m=max_detour_m)[0]
+
+
+def match_many(
+    index: RoadIndex,
+    routes: Sequence[PlannedRoute],
+    *,
+    sigma_z: float | Literal["estimate"] = SIGMA_Z_M,
+    beta: float | Literal["estimate"] | None = None,
+    search_radius_m: float | None = None,
+    max_detour_m: float = MAX_DETOUR_M,
+) -> list[MatchedRoute]:
+    """Match many traces at once; see :func:`match_trace` (parameters apply to each).
+
+    Returns one :class:`MatchedRoute` per route, in order; the first route in error raises.
+    """
+    if sigma_z != "estimate":
+        _positive(sigma_z, "sigma_z")
+    if beta is not None and beta != "estimate":
+        _positive(beta, "beta")
+    if search_radius_m is not None:
+        _positive(search_radius_m, "search_radius_m")
+    detour = _positive(max_detour_m, "max_detour_m")
+    out: list[MatchedRoute] = []
+    for group in _groups(routes):
+        out.extend(_match_group(index, [routes[i] for i in group], sigma_z=sigma_z, beta=beta,
+                                search_radius_m=search_radius_m, detour=detour))
+    return out
+
+
+def _match_group(
+    index: RoadIndex,
+    routes: list[PlannedRoute],
+    *,
+    sigma_z: float | str,
+    beta: float | str | None,
+    search_radius_m: float | None,
+    detour: float,
+) -> list[MatchedRoute]:
+    xy, offsets = _stack(index, routes)
+    n_r, n_pts = len(routes), len(xy)
+    route_of = np.repeat(np.arange(n_r), np.diff(offsets))
     if sigma_z == "estimate":
         near = index.nearest_distance(xy)
-        ok = near[np.isfinite(near)]
-        if not len(ok):
-            raise _off_network(index, route, xy, np.arange(len(route)), 200.0)
-        sigma = max(0.5, _MAD_TO_SIGMA * float(np.median(ok)))
+        sigma_r = np.empty(n_r)
+        for r in range(n_r):
+            d = near[offsets[r]:offsets[r + 1]]
+            d = d[np.isfinite(d)]
+            if not len(d):
+                raise _off_network(index, routes[r], xy[offsets[r]:offsets[r + 1]],
+                                   np.arange(len(routes[r])), 200.0)
+            sigma_r[r] = max(0.5, _MAD_TO_SIGMA * float(np.median(d)))
     else:
-        sigma = _positive(sigma_z, "sigma_z")
-    radius = (max(50.0, 6.0 * sigma) if search_radius_m is None
-              else _positive(search_radius_m, "search_radius_m"))
-    detour = _positive(max_detour_m, "max_detour_m")
-    keep = _thin(xy, 2.0 * sigma, route.required)
+        sigma_r = np.full(n_r, float(sigma_z))
+    radius_r = (np.maximum(50.0, 6.0 * sigma_r) if search_radius_m is None
+                else np.full(n_r, float(search_radius_m)))
+    keep = np.concatenate([
+        _thin(xy[offsets[r]:offsets[r + 1]], 2.0 * sigma_r[r], routes[r].required)
+        for r in range(n_r)
+    ]) if n_r else np.zeros(0, dtype=bool)
     kept = np.flatnonzero(keep)
     point, edge, dist, frac = index.candidates(
-        xy[kept], radius, spread=PRUNE_SIGMAS * sigma, max_per_point=MAX_CANDIDATES // 2
+        xy[kept], radius_r[route_of[kept]], spread=PRUNE_SIGMAS * sigma_r[route_of[kept]],
+        max_per_point=MAX_CANDIDATE_GEOMETRIES,
     )
     point = kept[point]
-    have = np.zeros(len(route), dtype=bool)
+    have = np.zeros(n_pts, dtype=bool)
     have[point] = True
-    missing = kept[~have[kept]]
-    if have.sum() < 2 or len(missing) > 0.5 * len(kept):
-        raise _off_network(index, route, xy, missing, radius)
-    L = _layers(len(route), point, edge, dist, frac)
-    gc = np.hypot(*np.diff(xy[L.point], axis=0).T)
-    limit = float(gc.max()) + detour
-    back_tol = 2.0 * sigma
-    pair_t, ia, ib, rd, res = _route_costs(index, L, weight="length", limit=limit,
-                                           back_tol_m=back_tol)
-    diff = np.abs(gc[pair_t] - rd)
-    plausible = rd <= gc[pair_t] + detour
-    em = 0.5 * (L.cand_dist / sigma) ** 2
-    b = 2.0 * sigma if beta is None or beta == "estimate" else _positive(beta, "beta")
-    chosen, seg, _ = _viterbi(L, em, pair_t, ia, ib, np.where(plausible, diff / b, np.inf))
+    n_have = np.bincount(route_of[have], minlength=n_r)
+    n_kept = np.bincount(route_of[kept], minlength=n_r)
+    bad = (n_have < 2) | (n_kept - n_have > 0.5 * n_kept)
+    if bad.any():
+        r = int(np.flatnonzero(bad)[0])
+        lo, hi = offsets[r], offsets[r + 1]
+        missing = np.flatnonzero(keep[lo:hi] & ~have[lo:hi])
+        raise _off_network(index, routes[r], xy[lo:hi], missing, float(radius_r[r]))
+    L = _layers(n_pts, point, edge, dist, frac)
+    layer_route = route_of[L.point]
+    bounds = _layer_bounds(layer_route, n_r)
+    P = _pairs(L, layer_route)
+    gc_t = np.hypot(*np.diff(xy[L.point], axis=0).T)
+    sig_c = sigma_r[layer_route[L.cand_layer]]
+    rd, routing = _pair_costs(index, L, P, weight="length", limit_t=gc_t + detour,
+                              back_tol=2.0 * sig_c, at_nodes=False)
+    gc = gc_t[P.t]
+    diff = np.abs(gc - rd)
+    plausible = rd <= gc + detour
+    em = 0.5 * (L.cand_dist / sig_c) ** 2
+    beta_r = 2.0 * sigma_r if beta is None or beta == "estimate" else np.full(n_r, float(beta))
+    starts = np.zeros(L.n, dtype=bool)
+    starts[bounds[:-1]] = True
+
+    def decode(b_r: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        tw = np.where(plausible, diff / b_r[layer_route[P.t]], np.inf)
+        chosen, seg, _ = _viterbi(L, em, P, tw, starts)
+        return chosen, seg
+
+    chosen, seg = decode(beta_r)
     if beta == "estimate":
-        # difference along the chosen chain, per transition inside a piece
-        lookup = {(int(a), int(c)): k for k, (a, c) in enumerate(zip(ia, ib, strict=True))}
-        along = [diff[lookup[(int(chosen[t]), int(chosen[t + 1]))]]
-                 for t in range(L.n - 1) if not seg[t + 1]]
-        if along:
-            b = max(0.5, float(np.median(along)) / math.log(2.0))
-            chosen, seg, _ = _viterbi(L, em, pair_t, ia, ib,
-                                      np.where(plausible, diff / b, np.inf))
-    out = _assemble(index, route, L, chosen, seg, res, method="match", weight="length",
-                    back_tol_m=back_tol, sigma_z=sigma, beta=b)
-    if out.breaks:
-        logger.info("match_trace %r: chain broken and restarted at points %s", route.name,
-                    list(out.breaks))
-    if len(missing):
-        logger.info("match_trace %r: %d fixes have no road within %.0f m", route.name,
-                    len(missing), radius)
+        t = np.flatnonzero(~seg[1:] & (layer_route[1:] == layer_route[:-1]))
+        if len(t):
+            p = P.find(L, t, chosen[t], chosen[t + 1])
+            along = diff[p]
+            r_of = layer_route[t]
+            for r in np.unique(r_of):
+                beta_r[r] = max(0.5, float(np.median(along[r_of == r])) / math.log(2.0))
+            chosen, seg = decode(beta_r)
+    out = []
+    for r, route in enumerate(routes):
+        lo, hi = int(bounds[r]), int(bounds[r + 1])
+        m = _assemble(index, route, int(offsets[r]), L, lo, hi, chosen, seg, routing,
+                      method="match", weight="length", back_tol_m=2.0 * float(sigma_r[r]),
+                      at_nodes=False, sigma_z=float(sigma_r[r]), beta=float(beta_r[r]))
+        if m.breaks:
+            logger.info("match %r: chain broken and restarted at points %s", route.name,
+                        list(m.breaks))
+        out.append(m)
     return out
 
 
@@ -1015,16 +1267,16 @@ def is_dense_trace(
 
     The rule: a route of at least 3 points is a trace when the median distance between
     consecutive points is below ``spacing_m`` (60 m), or when it has times whose median step
-    is at most ``interval_s`` (10 s, the 1-10 s of GPS loggers). Anything else is a list of
-    waypoints to be joined by fastest paths.
+    is at most ``interval_s`` (10 s, covering the 1-10 s of GPS loggers). Anything else is a
+    list of waypoints, joined by fastest paths.
     """
     if len(route) < 3:
         return False
     if _median_spacing_m(route) < spacing_m:
         return True
     if route.times is not None:
-        steps = np.array([(b - a).total_seconds() for a, b in
-                          zip(route.times[:-1], route.times[1:], strict=True)])
+        steps = np.array([(b - a).total_seconds()
+                          for a, b in zip(route.times[:-1], route.times[1:], strict=True)])
         med = float(np.median(steps))
         if 0.0 < med <= interval_s:
             return True
@@ -1045,7 +1297,24 @@ def to_edges(
     The choice follows :func:`is_dense_trace`: :func:`match_trace` for traces (median spacing
     below 60 m, or time steps of at most 10 s), :func:`join_waypoints` otherwise.
     """
-    if is_dense_trace(route):
-        return match_trace(index, route, sigma_z=sigma_z, beta=beta,
-                           search_radius_m=search_radius_m)
-    return join_waypoints(index, route, max_snap_m=max_snap_m)
+    return to_edges_many(index, [route], max_snap_m=max_snap_m, sigma_z=sigma_z, beta=beta,
+                         search_radius_m=search_radius_m)[0]
+
+
+def to_edges_many(
+    index: RoadIndex,
+    routes: Sequence[PlannedRoute],
+    *,
+    max_snap_m: float = MAX_SNAP_M,
+    sigma_z: float | Literal["estimate"] = SIGMA_Z_M,
+    beta: float | Literal["estimate"] | None = None,
+    search_radius_m: float | None = None,
+) -> list[MatchedRoute]:
+    """Return the edges of many routes at once (in order); see :func:`to_edges`."""
+    dense = [is_dense_trace(r) for r in routes]
+    traces = [r for r, d in zip(routes, dense, strict=True) if d]
+    plans = [r for r, d in zip(routes, dense, strict=True) if not d]
+    matched = iter(match_many(index, traces, sigma_z=sigma_z, beta=beta,
+                              search_radius_m=search_radius_m) if traces else [])
+    joined = iter(join_many(index, plans, max_snap_m=max_snap_m) if plans else [])
+    return [next(matched) if d else next(joined) for d in dense]

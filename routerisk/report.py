@@ -80,7 +80,7 @@ def escape(value: Any) -> str:
 
 def fmt(value: Any, *, digits: int = 3) -> str:
     """Return a number rounded for display (integers as such), anything else as text."""
-    if isinstance(value, bool) or value is None:
+    if isinstance(value, bool | np.bool_) or value is None:
         return "" if value is None else ("yes" if value else "no")
     if isinstance(value, int | np.integer):
         return f"{int(value):,}"

@@ -53,6 +53,7 @@ from . import CAUTION, __version__, report
 from ._io import atomic_directory, check_target, dumps_json, write_text_atomic
 from .errors import InputFileError, OptionError
 from .profile import DAYS, MINUTES_PER_WEEK, Profile
+from .scoring import rules_in_force
 from .tagging import CROSSING_SNAP_M
 
 if TYPE_CHECKING:  # pragma: no cover - typing only
@@ -692,8 +693,6 @@ def _review_area(ctx: _Context, area: Area, *, at: int | None = None, top: int =
         "none_closed": connectivity(clip, np.zeros(len(clip), dtype=bool)),
     }
     if at is not None:
-        from .scoring import rules_in_force
-
         now = rules_in_force(clip, prof, at).any(axis=1)
         conn["at"] = {"minute": int(at), "label": minute_label(at), **connectivity(clip, now)}
 
@@ -1211,8 +1210,8 @@ def review_html(review: Review) -> str:
                           alt="km by exposure band per area"),
                       anchor_id="compare")]
     body.append(r.section("Map", r.map_html(review_map(review), title="map of the areas"),
-                          r.note_html("Streets are drawn once per segment; hot spots have a dark halo. "
-                                      "The map works offline."), anchor_id="map"))
+                          r.note_html("Streets are drawn once per segment; hot spots have a "
+                                      "dark halo. The map works offline."), anchor_id="map"))
     toc = [("compare", "side by side"), ("map", "map")]
     for i, a in enumerate(review.areas):
         body.append(_area_section(review, a, i))

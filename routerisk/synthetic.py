@@ -1151,6 +1151,7 @@ def write_city(
                 writer.add_way(way)
         finally:
             writer.close()
+        os.chmod(tmp, 0o644)  # mkstemp makes 0600 files; a data file may be read by anyone
         os.replace(tmp, target)
     except BaseException:
         with contextlib.suppress(FileNotFoundError):
