@@ -65,3 +65,21 @@ def _stage_suggest(net: Any, out: Path, echo: Callable[[str], None]) -> dict[str
 
 
 _STAGES.extend([_stage_score, _stage_suggest])
+
+
+def _stage_review(net: Any, out: Path, echo: Callable[[str], None]) -> dict[str, Any]:
+    from . import review
+
+    areas = review.read_areas(datasets.get_path("area"), crs=net.crs)
+    what_if = review.parse_what_if([f"rule:{net.profile.rules[0].name}=off"], net.profile) if \
+        net.profile.rules else None
+    result = review.review_areas(net, areas, what_ifs=[what_if] if what_if else [])
+    review.write_review(result, out=out / "review")
+    data = result.to_json()
+    for a in data["areas"]:
+        echo(f"area {a['name']}: {a['network_km']:.1f} km, peak closed "
+             f"{max(a['closed_km_by_hour']):.1f} km, {len(a['allowed_parts'])} allowed part(s)")
+    return {"review": data}
+
+
+_STAGES.append(_stage_review)

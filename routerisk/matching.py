@@ -90,6 +90,9 @@ _MAD_TO_SIGMA = 1.4826
 _EPS = 1e-9
 #: Graphs with more nodes than this run bounded Dijkstra on the part a route can reach.
 _SUBGRAPH_MIN_NODES = 20_000
+#: Grid cell of the candidate search (m), grown so that the grid has at most _MAX_CELLS cells.
+_CELL_M = 50.0
+_MAX_CELLS = 4_000_000
 #: Dijkstra limits are rounded up to these steps, so that sources share runs.
 _LIMIT_STEPS = np.concatenate([15.0 * 2.0 ** np.arange(12), [np.inf]])
 #: Entries of one Dijkstra output block (sources x nodes), bounding memory.
@@ -194,6 +197,13 @@ class _Dist:
         if self.sub is not None:
             return [int(self.sub[p]) for p in path]
         return path
+
+
+def _expand(counts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Return (owner, rank) for ``counts[i]`` items owned by each i, in order."""
+    owner = np.repeat(np.arange(len(counts)), counts)
+    rank = np.arange(len(owner)) - np.repeat(np.cumsum(counts) - counts, counts)
+    return owner, rank
 
 
 class RoadIndex:
@@ -376,7 +386,27 @@ class RoadIndex:
         self._seg_len = seg_len
         self._seg_grp = sg
         self._grp_len = np.bincount(sg, weights=seg_len, minlength=len(reps))
-        self._seg_tree = STRtree(shapely.linestrings(np.stack([a, b], axis=1)))
+        self._build_grid(a, b)
+
+    def _build_grid(self, a: np.ndarray, b: np.ndarray) -> None:
+        """Register each segment in the cells of a uniform grid that its bounding box meets."""
+        lo = np.minimum(a, b)
+        hi = np.maximum(a, b)
+        origin = lo.min(axis=0) - 1.0
+        extent = hi.max(axis=0) + 1.0 - origin
+        cell = max(_CELL_M, math.sqrt(float(extent[0] * extent[1]) / _MAX_CELLS))
+        nx_, ny_ = (np.floor(extent / cell).astype(np.int64) + 1).tolist()
+        c0 = np.floor((lo - origin) / cell).astype(np.int64)
+        c1 = np.floor((hi - origin) / cell).astype(np.int64)
+        ncx, ncy = c1[:, 0] - c0[:, 0] + 1, c1[:, 1] - c0[:, 1] + 1
+        seg, k = _expand(ncx * ncy)
+        cx = c0[seg, 0] + k // ncy[seg]
+        cy = c0[seg, 1] + k % ncy[seg]
+        key = cx * ny_ + cy
+        order = np.argsort(key, kind="stable")
+        self._cell_seg = seg[order]
+        self._cell_ptr = np.searchsorted(key[order], np.arange(nx_ * ny_ + 1))
+        self._grid = (float(origin[0]), float(origin[1]), cell, nx_, ny_)
 
     def edge(self, i: int) -> Edge:
         """Return the ``(u, v, key)`` of edge position i."""
@@ -432,21 +462,26 @@ class RoadIndex:
         ok = np.flatnonzero(np.isfinite(xy).all(axis=1))
         px, py = xy[ok, 0], xy[ok, 1]
         r_pt = np.broadcast_to(np.asarray(radius, dtype=float), (len(xy),))[ok]
-        r = float(r_pt.max()) if len(r_pt) else 0.0
-        boxes = shapely.box(px - r, py - r, px + r, py + r)
-        qi, si = self._seg_tree.query(boxes)
+        qi, si = self._grid_pairs(px, py, r_pt)
         qx, qy = px[qi] - self._seg_ax[si], py[qi] - self._seg_ay[si]
         dx, dy, l2 = self._seg_dx[si], self._seg_dy[si], self._seg_l2[si]
         t = np.clip((qx * dx + qy * dy) / l2, 0.0, 1.0)  # l2 > 0: zero-length segments dropped
         d = np.hypot(qx - t * dx, qy - t * dy)
-        near = np.flatnonzero(d <= (r_pt[qi] if np.ndim(radius) else r))
-        qi, si, t, d = qi[near], si[near], t[near], d[near]
+        r_q = r_pt[qi]
+        near = np.flatnonzero(d <= r_q)
+        qi, si, t, d, r_q = qi[near], si[near], t[near], d[near], r_q[near]
+        # one position per (point, geometry): the nearest of its segments; sort on one int64
+        # key made of point, geometry and the distance quantised to 2**-20 of the radius
         g = self._seg_grp[si]
-        key = qi * len(self._grp_len) + g
-        order = np.lexsort((d, key))
-        key = key[order]
-        head = np.flatnonzero(np.concatenate([[True], key[1:] != key[:-1]]))
-        take = order[head]
+        n_g = len(self._grp_len)
+        pg = qi.astype(np.int64) * n_g + g
+        if len(pg) and int(pg.max()) < 2**42:
+            qd = np.minimum((d / np.maximum(r_q, 1e-9) * 2**20).astype(np.int64), 2**20 - 1)
+            order = np.argsort(pg * 2**20 + qd)
+        else:
+            order = np.lexsort((d, pg))
+        pg = pg[order]
+        take = order[np.flatnonzero(np.concatenate([[True], pg[1:] != pg[:-1]]))]
         qi, g, d = qi[take], g[take], d[take]
         along = self._seg_cum[si[take]] + t[take] * self._seg_len[si[take]]
         if spread is not None and len(qi):
@@ -457,12 +492,15 @@ class RoadIndex:
             qi, g, d, along = qi[keep], g[keep], d[keep], along[keep]
         if max_per_point is not None and len(qi):
             count = np.bincount(qi)
-            if count.max() > max_per_point:
-                order = np.lexsort((g, d, qi))
-                qi, g, d, along = qi[order], g[order], d[order], along[order]
-                count = count[count > 0]
-                rank = np.arange(len(qi)) - np.repeat(np.cumsum(count) - count, count)
-                keep = np.flatnonzero(rank < max_per_point)
+            crowded = count[qi] > max_per_point
+            if crowded.any():  # rank only the points with too many, by distance
+                sub = np.flatnonzero(crowded)
+                order = sub[np.lexsort((g[sub], d[sub], qi[sub]))]
+                c = count[np.unique(qi[sub])]
+                rank = np.arange(len(order)) - np.repeat(np.cumsum(c) - c, c)
+                keep = np.ones(len(qi), dtype=bool)
+                keep[order[rank >= max_per_point]] = False
+                keep = np.flatnonzero(keep)
                 qi, g, d, along = qi[keep], g[keep], d[keep], along[keep]
         frac = along / self._grp_len[g]
         cnt = self._grp_count[g]
@@ -471,6 +509,27 @@ class RoadIndex:
         f = frac[rep]
         f = np.clip(np.where(self._grp_rev[slot], 1.0 - f, f), 0.0, 1.0)
         return ok[qi[rep]], self._grp_edge[slot].astype(np.int64), d[rep], f
+
+    def _grid_pairs(
+        self, px: np.ndarray, py: np.ndarray, r: np.ndarray
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """Return (point, segment) pairs whose grid cells meet the point's square of side 2r.
+
+        A pair can repeat when a segment is registered in several of those cells.
+        """
+        x0, y0, cell, nx_, ny_ = self._grid
+        cx0 = np.clip(np.floor((px - r - x0) / cell), 0, nx_ - 1).astype(np.int64)
+        cx1 = np.clip(np.floor((px + r - x0) / cell), -1, nx_ - 1).astype(np.int64)
+        cy0 = np.clip(np.floor((py - r - y0) / cell), 0, ny_ - 1).astype(np.int64)
+        cy1 = np.clip(np.floor((py + r - y0) / cell), -1, ny_ - 1).astype(np.int64)
+        ncx = np.maximum(cx1 - cx0 + 1, 0)
+        ncy = np.maximum(cy1 - cy0 + 1, 0)
+        pt, k = _expand(ncx * ncy)
+        key = (cx0[pt] + k // ncy[pt]) * ny_ + cy0[pt] + k % ncy[pt]
+        lo = self._cell_ptr[key]
+        cnt = self._cell_ptr[key + 1] - lo
+        j, k2 = _expand(cnt)
+        return pt[j], self._cell_seg[lo[j] + k2]
 
     def nearest_distance(self, xy: np.ndarray) -> np.ndarray:
         """Return each point's distance to the nearest edge (m), inf for invalid points."""
