@@ -83,3 +83,23 @@ def _stage_review(net: Any, out: Path, echo: Callable[[str], None]) -> dict[str,
 
 
 _STAGES.append(_stage_review)
+
+
+def _stage_evidence(net: Any, out: Path, echo: Callable[[str], None]) -> dict[str, Any]:
+    from . import evidence
+
+    # Illustrative benchmark only: 11 events per 1e9 miles (the demo's drives are invented).
+    inputs = evidence.EvidenceInputs(benchmark=11.0, per=1e9)
+    plan = evidence.plan_evidence(inputs)
+    frame = evidence.segments_from_drives(net, datasets.get_path("drives"))
+    plan = plan.with_exposure(evidence.distance_by_exposure(
+        frame, needed=plan.miles_no_failure, units=inputs.units))
+    (out / "evidence.txt").write_text("\n".join(evidence.describe(plan)) + "\n",
+                                      encoding="utf-8")
+    evidence.plot_upper_limit(plan, out / "evidence_chart.png")
+    echo(f"evidence: {plan.miles_no_failure / 1e6:.0f} million mi with no event to show the "
+         f"target; the sample drives cover {frame['length_m'].sum() / 1609.344:.1f} mi")
+    return {"evidence": plan.to_json()}
+
+
+_STAGES.append(_stage_evidence)

@@ -994,3 +994,38 @@ def describe(plan: EvidencePlan) -> list[str]:
     lines.append(CAUTION)
     return lines
 
+
+
+def segments_from_drives(net: Any, folder: str | Path) -> pd.DataFrame:
+    """Map-match every GPX/GeoJSON/CSV drive in ``folder`` and return its driven segments.
+
+    The frame has one row per driven edge piece with ``drive``, ``length_m``, ``band`` and
+    ``infl_<category>`` from the network, the input :func:`distance_by_exposure` takes.
+    """
+    from . import matching, routes
+
+    d = Path(folder)
+    if not d.is_dir():
+        raise InputFileError("drives folder not found", path=d, field="--drives")
+    files = sorted(p for p in d.iterdir() if p.suffix.lower() in (".gpx", ".geojson", ".csv"))
+    if not files:
+        raise InputFileError("no .gpx, .geojson or .csv drives in the folder", path=d,
+                             field="--drives")
+    idx = matching.RoadIndex(net.graph)
+    edges = net.edges
+    cats = net.profile.category_names
+    frames = []
+    for f in files:
+        for r in routes.read_routes(f, default_tz=net.timezone):
+            m = matching.to_edges(idx, r)
+            mi = pd.MultiIndex.from_tuples(list(m.edges), names=edges.index.names)
+            pos = edges.index.get_indexer(mi)
+            part = pd.DataFrame({
+                "drive": f"{f.name}:{r.name}",
+                "length_m": edges["length"].to_numpy()[pos] * np.asarray(m.fractions),
+                "band": edges["band"].to_numpy()[pos],
+            })
+            for c in cats:
+                part[f"infl_{c}"] = edges[f"infl_{c}"].to_numpy()[pos]
+            frames.append(part)
+    return pd.concat(frames, ignore_index=True)

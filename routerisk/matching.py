@@ -725,19 +725,20 @@ def _pair_costs(
             cand_block[mine] = len(results)
             cand_row[mine] = res.rows(leave[mine])
             results.append(res)
-    cost = np.full(len(P.a), np.inf)
-    blk = cand_block[P.a]
-    if len(results) == 1:
-        groups = [np.arange(len(P.a))]
-    else:
-        by = np.argsort(blk, kind="stable")
-        cuts = np.searchsorted(blk[by], np.arange(len(results) + 1))
-        groups = [by[cuts[k]:cuts[k + 1]] for k in range(len(results))]
-    for k, idx in enumerate(groups):
-        res = results[k]
-        a, b = P.a[idx], P.b[idx]
+    def fill(res: _Dist, sel: Any) -> np.ndarray:
+        a, b = P.a[sel], P.b[sel]
         assert res.dist is not None
-        cost[idx] = tail[a] + res.dist[cand_row[a], res.cols(arrive[b])] + lead[b]
+        return tail[a] + res.dist[cand_row[a], res.cols(arrive[b])] + lead[b]
+
+    if len(results) <= 1:
+        cost = fill(results[0], slice(None)) if results else np.full(len(P.a), np.inf)
+    else:
+        cost = np.empty(len(P.a))
+        blk = cand_block[P.a]
+        for k, res in enumerate(results):
+            idx = np.flatnonzero(blk == k)
+            cost[idx] = fill(res, idx)
+    for res in results:
         res.dist = None  # only the predecessors are kept, to rebuild paths
     same = np.flatnonzero(e[P.a] == e[P.b])
     if len(same):
@@ -771,20 +772,22 @@ def _viterbi(
         Chosen candidate per layer, True at layers that start a chain (route starts and
         breaks: no plausible transition into them), and each candidate's least chain cost.
     """
-    ok = np.flatnonzero(np.isfinite(tw))
-    pa, pb = P.a[ok], P.b[ok]
     n_c = len(L.cand_layer)
     seg = starts.copy()
     if L.n > 1:
-        seg[1:] |= np.bincount(P.t[ok], minlength=L.n - 1) == 0
+        seg[1:] |= np.bincount(P.t, weights=np.isfinite(tw), minlength=L.n - 1) == 0
     S = n_c
-    row_count = np.bincount(pa, minlength=n_c)
-    pair_data = tw[ok] + em[pb] + _EPS
+    # CSR rows: candidates (pairs are sorted by from-candidate), then the source S; an
+    # implausible pair keeps an inf weight, which Dijkstra never relaxes
+    indptr_c = np.concatenate([[0], np.cumsum(np.bincount(P.a, minlength=n_c))])
+    pair_data = tw + em[P.b] + _EPS
+    itype = np.int32 if n_c + len(P.a) < 2**31 - 1 else np.int64
     while True:
         heads = np.flatnonzero(seg[L.cand_layer])
-        indptr = np.concatenate([[0], np.cumsum(row_count), [len(pa) + len(heads)]])
+        indptr = np.concatenate([indptr_c, [len(P.a) + len(heads)]]).astype(itype)
         mat = sp.csr_matrix(
-            (np.concatenate([pair_data, em[heads] + _EPS]), np.concatenate([pb, heads]), indptr),
+            (np.concatenate([pair_data, em[heads] + _EPS]),
+             np.concatenate([P.b, heads]).astype(itype), indptr),
             shape=(n_c + 1, n_c + 1),
         )
         dist, pred = dijkstra(mat, indices=S, return_predecessors=True)
@@ -792,17 +795,26 @@ def _viterbi(
         if reached.all():
             break
         seg |= ~reached & np.concatenate([[True], reached[:-1]])
-    chosen = np.full(L.n, -1, dtype=np.int64)
+    # backtrack every chain at once: the chosen candidate of layer t is pred^d of the best
+    # candidate of its chain's last layer, d layers later; pred^d by binary doubling
+    best = dist[:n_c]
+    layer_min = np.minimum.reduceat(best, L.start)
+    is_min = np.flatnonzero(best == layer_min[L.cand_layer])
+    first_min = is_min[np.concatenate([[True], np.diff(L.cand_layer[is_min]) != 0])]
     ends = np.flatnonzero(np.concatenate([seg[1:], [True]]))
-    pred_l = pred.tolist()
-    layer_l = L.cand_layer.tolist()
-    for t in ends.tolist():
-        block = dist[L.start[t]:L.start[t] + L.count[t]]
-        c = int(L.start[t] + np.argmin(block))
-        while 0 <= c != S:
-            chosen[layer_l[c]] = c
-            c = pred_l[c]
-    return chosen, seg, dist[:n_c]
+    chain = np.cumsum(seg) - 1
+    d = ends[chain] - np.arange(L.n)
+    c = first_min[ends][chain]
+    jump = pred[:n_c].astype(np.int64)
+    jump[(jump < 0) | (jump >= n_c)] = np.flatnonzero((jump < 0) | (jump >= n_c))
+    bit = 0
+    while (d >> bit).any():
+        m = ((d >> bit) & 1).astype(bool)
+        c[m] = jump[c[m]]
+        jump = jump[jump]
+        bit += 1
+    chosen = c
+    return chosen, seg, best
 
 
 def _assemble(

@@ -1072,22 +1072,44 @@ class _Search:
 
 @dataclass
 class _Model:
-    """Variables and no-overlap rows of the 0/1 programme (see the module docstring).
+    """The 0/1 programme in time-expanded flow form (see the module docstring).
 
-    The first ``n_jobs`` rows are the job rows (one per job with a usable candidate), the
-    others the clique rows; all read ``rows @ x <= upper``.
+    Columns are the candidate variables ``x`` (``n_x`` of them: one per usable (job,
+    candidate), or per (job, candidate, vehicle)) followed by continuous idle variables ``y``.
+    ``flow @ z == flow_rhs`` holds flow conservation, ``jobs @ x <= 1`` the one-start-per-job
+    rows.
     """
 
     opts: list[_Opt]
-    vehicle: np.ndarray  # vehicle index per variable, -1 when aggregated
-    risk: np.ndarray
-    rows: sparse.csr_array
-    upper: np.ndarray
-    n_jobs: int
+    vehicle: np.ndarray  # vehicle index per x variable, -1 when aggregated
+    risk: np.ndarray  # cost of the x variables
+    flow: sparse.csr_array
+    flow_rhs: np.ndarray
+    jobs: sparse.csr_array
+    y_upper: np.ndarray
     aggregated: bool
+
+    @property
+    def n_x(self) -> int:
+        return self.risk.size
+
+    @property
+    def n_jobs(self) -> int:
+        return int(self.jobs.shape[0])
+
+    def cost(self, c_x: np.ndarray) -> np.ndarray:
+        """Return the full cost vector for costs ``c_x`` of the x variables (idle costs 0)."""
+        return np.concatenate([c_x, np.zeros(self.y_upper.size)])
 
 
 def _build_model(usable: Sequence[Sequence[_Opt]], n_vehicles: int) -> _Model:
+    """Build the flow model: one flow of ``V`` identical vehicles, or one unit per vehicle.
+
+    The time points of a flow are the distinct starts and occupancy ends of its candidates.
+    At each point, vehicles idle since the previous point plus vehicles arriving (candidates
+    ending there) equal vehicles idling on plus vehicles leaving (candidates starting there);
+    idling before the first point is the flow's size.
+    """
     everyone = tuple(range(n_vehicles))
     aggregated = all(o.vehicles == everyone for opts in usable for o in opts)
     var_opt: list[_Opt] = []
@@ -1108,35 +1130,44 @@ def _build_model(usable: Sequence[Sequence[_Opt]], n_vehicles: int) -> _Model:
     s = np.asarray([o.s for o in var_opt], dtype=np.int64)
     e = np.asarray([o.e for o in var_opt], dtype=np.int64)
 
-    r_idx: list[np.ndarray] = [np.asarray(job_row, dtype=np.int64)]
-    c_idx: list[np.ndarray] = [np.arange(n)]
-    upper: list[float] = [1.0] * n_jobs
-    n_rows = n_jobs
-    cap = float(n_vehicles) if aggregated else 1.0
-    for v in [-1] if aggregated else everyone:
+    rows: list[np.ndarray] = []
+    cols: list[np.ndarray] = []
+    vals: list[np.ndarray] = []
+    rhs: list[np.ndarray] = []
+    y_upper: list[np.ndarray] = []
+    n_rows, n_cols = 0, n
+    for v, size in [(-1, n_vehicles)] if aggregated else [(v, 1) for v in everyone]:
         members = np.flatnonzero(veh == v)
-        seen: set[bytes] = set()
-        for t in np.unique(s[members]):
-            inside = members[(s[members] <= t) & (t < e[members])]
-            key = inside.tobytes()
-            if inside.size <= cap or key in seen:
-                continue
-            seen.add(key)
-            r_idx.append(np.full(inside.size, n_rows))
-            c_idx.append(inside)
-            upper.append(cap)
-            n_rows += 1
-    rows = sparse.csr_array(
-        (np.ones(sum(a.size for a in r_idx)), (np.concatenate(r_idx), np.concatenate(c_idx))),
-        shape=(n_rows, n),
+        if members.size == 0:
+            continue
+        points = np.unique(np.concatenate([s[members], e[members]]))
+        k = points.size
+        leave = n_rows + np.searchsorted(points, s[members])
+        arrive = n_rows + np.searchsorted(points, e[members])
+        idle = np.arange(k)  # y after point i, i = 0..k-1 (the last returns to the depot)
+        rows += [leave, arrive, n_rows + idle, n_rows + idle[1:]]
+        cols += [members, members, n_cols + idle, n_cols + idle[:-1]]
+        vals += [-np.ones(members.size), np.ones(members.size), -np.ones(k), np.ones(k - 1)]
+        b = np.zeros(k)
+        b[0] = -size
+        rhs.append(b)
+        y_upper.append(np.full(k, float(size)))
+        n_rows += k
+        n_cols += k
+    flow = sparse.csr_array(
+        (np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))), shape=(n_rows, n_cols)
+    )
+    jobs = sparse.csr_array(
+        (np.ones(n), (np.asarray(job_row, dtype=np.int64), np.arange(n))), shape=(n_jobs, n_cols)
     )
     risk = np.asarray([o.risk for o in var_opt], dtype=float)
-    return _Model(var_opt, veh, risk, rows, np.asarray(upper), n_jobs, aggregated)
+    return _Model(var_opt, veh, risk, flow, np.concatenate(rhs), jobs,
+                  np.concatenate(y_upper), aggregated)
 
 
 @dataclass
 class _LP:
-    """Linear relaxation: optimum, solution and reduced costs of the bounds 0 and 1."""
+    """Linear relaxation: optimum, x part of the solution, reduced costs of the x bounds."""
 
     value: float
     x: np.ndarray
@@ -1144,20 +1175,28 @@ class _LP:
     cost_down: np.ndarray  # objective rise per unit of a variable lowered from 1 (>= 0)
 
 
-def _lp(model: _Model, c: np.ndarray, *, min_count: int | None) -> _LP:
-    a, b = model.rows, model.upper
+def _lp(model: _Model, c_x: np.ndarray, *, min_count: int | None) -> _LP:
+    a_ub, b_ub = model.jobs, np.ones(model.n_jobs)
     if min_count is not None:
-        a = sparse.vstack([a, sparse.csr_array(-np.ones((1, c.size)))]).tocsr()
-        b = np.append(b, -float(min_count))
-    res = linprog(c, A_ub=a, b_ub=b, bounds=(0.0, 1.0), method="highs")
+        count = sparse.csr_array(
+            (-np.ones(model.n_x), (np.zeros(model.n_x, dtype=np.int64), np.arange(model.n_x))),
+            shape=(1, a_ub.shape[1]),
+        )
+        a_ub = sparse.vstack([a_ub, count]).tocsr()
+        b_ub = np.append(b_ub, -float(min_count))
+    bounds = np.column_stack([np.zeros(model.n_x + model.y_upper.size),
+                              np.concatenate([np.ones(model.n_x), model.y_upper])])
+    res = linprog(model.cost(c_x), A_ub=a_ub, b_ub=b_ub, A_eq=model.flow, b_eq=model.flow_rhs,
+                  bounds=bounds, method="highs-ipm")
     if res.status != 0:  # cannot happen: the empty schedule (or a found one) is feasible
         raise RuntimeError(f"linear relaxation failed: {res.message}")
-    return _LP(float(res.fun), np.asarray(res.x), np.asarray(res.lower.marginals),
-               -np.asarray(res.upper.marginals))
+    n = model.n_x
+    return _LP(float(res.fun), np.asarray(res.x[:n]), np.asarray(res.lower.marginals[:n]),
+               -np.asarray(res.upper.marginals[:n]))
 
 
 def _reduced_cost_fixing(lp: _LP, slack: float) -> tuple[np.ndarray, np.ndarray]:
-    """Return (variables that may be 1, variables that must be 1) in solutions within ``slack``.
+    """Return (x variables that may be 1, x variables that must be 1) within ``slack``.
 
     For any 0/1 solution x, ``c @ x >= lp.value + cost_up @ x + cost_down @ (1 - x)`` (LP
     duality). So a solution at most ``slack`` above the LP optimum has ``x_i = 0`` where
@@ -1178,7 +1217,7 @@ class _Result:
 
 def _mip(
     model: _Model,
-    c: np.ndarray,
+    c_x: np.ndarray,
     *,
     min_count: int,
     keep: np.ndarray,
@@ -1186,27 +1225,28 @@ def _mip(
     time_limit: float,
     mip_rel_gap: float,
 ) -> _Result:
-    """Solve the 0/1 programme over the ``keep`` variables (``fix_one`` ones set to 1)."""
-    cols = np.flatnonzero(keep)
-    a = model.rows[:, cols]
-    lower = np.full(model.upper.size, -np.inf)
-    if min_count >= model.n_jobs:  # every job placed: job rows become equalities
-        lower[: model.n_jobs] = 1.0
-    constraints = [LinearConstraint(a, lower, model.upper)]
+    """Solve the 0/1 programme with the x variables outside ``keep`` set to 0, ``fix_one`` to 1."""
+    n = model.n_x
+    n_y = model.y_upper.size
+    lower = np.concatenate([fix_one & keep, np.zeros(n_y)]).astype(float)
+    upper = np.concatenate([keep.astype(float), model.y_upper])
+    job_lower = np.ones(model.n_jobs) if min_count >= model.n_jobs else np.zeros(model.n_jobs)
+    constraints = [
+        LinearConstraint(model.flow, model.flow_rhs, model.flow_rhs),
+        LinearConstraint(model.jobs, job_lower, 1.0),  # every job placed: rows are equalities
+    ]
     if 0 < min_count < model.n_jobs:
-        constraints.append(LinearConstraint(np.ones((1, cols.size)), min_count, np.inf))
+        count = np.concatenate([np.ones(n), np.zeros(n_y)])[None, :]
+        constraints.append(LinearConstraint(count, min_count, np.inf))
     res = milp(
-        c[cols],
-        integrality=np.ones(cols.size),
-        bounds=Bounds(fix_one[cols].astype(float), 1.0),
+        model.cost(c_x),
+        integrality=np.concatenate([np.ones(n), np.zeros(n_y)]),
+        bounds=Bounds(lower, upper),
         constraints=constraints,
         options={"disp": False, "time_limit": max(time_limit, 0.05), "mip_rel_gap": mip_rel_gap},
     )
-    x = None
-    if res.x is not None:
-        x = np.zeros(c.size)
-        x[cols] = np.round(res.x)
-    value = None if x is None else float(c @ x)
+    x = None if res.x is None else np.round(np.asarray(res.x[:n]))
+    value = None if x is None else float(c_x @ x)
     bound = getattr(res, "mip_dual_bound", None)
     bound = None if bound is None or not math.isfinite(bound) else float(bound)
     if res.status == 0:

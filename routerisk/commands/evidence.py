@@ -37,6 +37,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     add("--events", metavar="K", help="events seen in the --observed distance")
     add("--allowed-events", nargs="+", metavar="K", default=None,
         help="event counts of the 'k events allowed' table (default 0 1 2 3)")
+    add("--drives", metavar="DIR",
+        help="folder of recorded drives (GPX) to map-match and split by exposure "
+             "(needs --network)")
+    add("--network", metavar="DIR", help="network folder for --drives")
     add("--segments", metavar="FILE.geojson",
         help="scored segments (routerisk score --out) to split the evidence by exposure")
     add("--chart", metavar="FILE.png", help="write a chart of the upper limit against distance")
@@ -93,6 +97,18 @@ def run(args: argparse.Namespace) -> int:
         ),
     )
     plan = evidence.plan_evidence(inputs)
+    if args.segments is not None and args.drives is not None:
+        raise OptionError("give --segments or --drives, not both", field="--drives")
+    if args.drives is not None:
+        if args.network is None:
+            raise OptionError("--drives needs --network DIR", field="--network")
+        from ..network import load_network
+
+        frame = evidence.segments_from_drives(load_network(args.network), args.drives)
+        exposure = evidence.distance_by_exposure(
+            frame, needed=plan.miles_no_failure, units=inputs.units, path=args.drives
+        )
+        plan = plan.with_exposure(exposure)
     if args.segments is not None:
         frame = evidence.read_segments(args.segments)
         exposure = evidence.distance_by_exposure(
