@@ -103,3 +103,18 @@ def _stage_evidence(net: Any, out: Path, echo: Callable[[str], None]) -> dict[st
 
 
 _STAGES.append(_stage_evidence)
+
+
+def _stage_watch(net: Any, out: Path, echo: Callable[[str], None]) -> dict[str, Any]:
+    from . import watch
+
+    result = watch.watch(net, datasets.get_path("events"), datasets.get_path("drives"))
+    watch.write_outputs(net, result, out / "warnings")
+    flagged = result.segments[result.segments["flagged"]]
+    streets = sorted(set(flagged["street"]))
+    echo(f"early warnings: {len(result.matched)} events matched, {len(flagged)} segment(s) "
+         f"flagged ({', '.join(streets) or 'none'}), {len(result.alerts)} CUSUM alert(s)")
+    return {"warnings": result.to_dict()}
+
+
+_STAGES.append(_stage_watch)

@@ -8,7 +8,7 @@ transformer) and pass it to the functions here:
   an edge is fine: the edge is split at the projection) and joins consecutive waypoints by the
   fastest path (travel time, Dijkstra on the CSR matrix);
 - :func:`match_trace` matches a recorded, noisy trace with a hidden Markov model decoded by
-  Viterbi, after Newson, P. and Krumm, J. (2009), "Hidden Markov map matching through noise and
+  Viterbi, after Newson, prs. and Krumm, J. (2009), "Hidden Markov map matching through noise and
   sparseness", ACM SIGSPATIAL GIS '09, pp. 336-343 [published];
 - :func:`to_edges` picks one of the two per route (see :func:`is_dense_trace`).
 
@@ -83,6 +83,12 @@ MAX_DETOUR_M = 200.0
 PRUNE_SIGMAS = 6.0
 #: At most this many candidate geometries per fix, the nearest (both directions count once).
 MAX_CANDIDATE_GEOMETRIES = 5
+#: A step back along one edge of at most this many sigma_z is GPS jitter, not reversing: the
+#: along-edge difference of two fixes has a standard deviation of sqrt(2) sigma_z, so 3 of
+#: those cover 99.7 % of it [practice].
+_HOLD_SIGMAS = 4.25
+#: Default transition scale beta as a multiple of sigma_z [practice].
+_BETA_PER_SIGMA = 0.5
 #: Waypoint snapping keeps every edge within this of the nearest one and lets routing choose (m).
 _TIE_M = 2.0
 #: Median absolute deviation to standard deviation of a normal law (common practice).
@@ -211,11 +217,11 @@ class RoadIndex:
 
     Parameters
     ----------
-    G
-        Projected ``networkx.MultiDiGraph`` with the road-graph conventions: ``G.graph["crs"]``,
-        node ``x``/``y``, edge ``geometry`` (u -> v), ``length`` (m) and ``travel_time`` (s).
-        A missing geometry falls back to the straight segment, a missing ``travel_time`` to
-        ``length / speed_kph``; a geometry stored v -> u is turned around.
+    graph
+        Projected ``networkx.MultiDiGraph`` with the road-graph conventions: its ``crs``
+        graph attribute, node ``x``/``y``, edge ``geometry`` (u -> v), ``length`` (m) and
+        ``travel_time`` (s). A missing geometry falls back to the straight segment, a missing
+        ``travel_time`` to ``length / speed_kph``; a geometry stored v -> u is turned around.
 
     Attributes
     ----------
@@ -245,26 +251,27 @@ class RoadIndex:
     line_locate_point.
     """
 
-    def __init__(self, G: nx.MultiDiGraph) -> None:
-        crs = G.graph.get("crs")
+    def __init__(self, graph: nx.MultiDiGraph) -> None:
+        crs = graph.graph.get("crs")
         if not crs:
             raise ValueError("the road graph has no 'crs' graph attribute")
-        if G.number_of_edges() == 0:
+        if graph.number_of_edges() == 0:
             raise EmptyNetworkError("the road graph has no edges")
         self.crs = crs
-        nodes = list(G.nodes)
+        nodes = list(graph.nodes)
         self.node_ids = np.empty(len(nodes), dtype=object)
         self.node_ids[:] = nodes
         self.node_pos: dict[Hashable, int] = {n: i for i, n in enumerate(nodes)}
-        self.node_xy = np.array([(G.nodes[n]["x"], G.nodes[n]["y"]) for n in nodes], dtype=float)
-        m = G.number_of_edges()
+        self.node_xy = np.array([(graph.nodes[n]["x"], graph.nodes[n]["y"]) for n in nodes],
+                                dtype=float)
+        m = graph.number_of_edges()
         eu = np.empty(m, dtype=np.int64)
         ev = np.empty(m, dtype=np.int64)
         keys: list[Hashable] = []
         geoms = np.empty(m, dtype=object)
         length = np.empty(m)
         ttime = np.empty(m)
-        for i, (u, v, k, d) in enumerate(G.edges(keys=True, data=True)):
+        for i, (u, v, k, d) in enumerate(graph.edges(keys=True, data=True)):
             iu, iv = self.node_pos[u], self.node_pos[v]
             eu[i], ev[i] = iu, iv
             keys.append(k)
@@ -368,7 +375,8 @@ class RoadIndex:
         a, b, sg, ab, seg_len = a[real], b[real], sg[real], ab[real], seg_len[real]
         lost = np.setdiff1d(np.arange(len(reps)), sg)
         if len(lost):  # a geometry of zero length: index it as a 1 mm segment at its start
-            pa = shapely.get_coordinates(shapely.get_point(self.edge_geom[np.asarray(reps)[lost]], 0))
+            starts = shapely.get_point(self.edge_geom[np.asarray(reps)[lost]], 0)
+            pa = shapely.get_coordinates(starts)
             a = np.concatenate([a, pa])
             b = np.concatenate([b, pa + [1e-3, 0.0]])
             sg = np.concatenate([sg, lost])
@@ -462,32 +470,35 @@ class RoadIndex:
         ok = np.flatnonzero(np.isfinite(xy).all(axis=1))
         px, py = xy[ok, 0], xy[ok, 1]
         r_pt = np.broadcast_to(np.asarray(radius, dtype=float), (len(xy),))[ok]
-        qi, si = self._grid_pairs(px, py, r_pt)
-        qx, qy = px[qi] - self._seg_ax[si], py[qi] - self._seg_ay[si]
-        dx, dy, l2 = self._seg_dx[si], self._seg_dy[si], self._seg_l2[si]
-        t = np.clip((qx * dx + qy * dy) / l2, 0.0, 1.0)  # l2 > 0: zero-length segments dropped
-        d = np.hypot(qx - t * dx, qy - t * dy)
-        r_q = r_pt[qi]
-        near = np.flatnonzero(d <= r_q)
-        qi, si, t, d, r_q = qi[near], si[near], t[near], d[near], r_q[near]
-        # one position per (point, geometry): the nearest of its segments; sort on one int64
-        # key made of point, geometry and the distance quantised to 2**-20 of the radius
-        g = self._seg_grp[si]
-        n_g = len(self._grp_len)
-        pg = qi.astype(np.int64) * n_g + g
-        if len(pg) and int(pg.max()) < 2**42:
-            qd = np.minimum((d / np.maximum(r_q, 1e-9) * 2**20).astype(np.int64), 2**20 - 1)
-            order = np.argsort(pg * 2**20 + qd)
+        sp_pt = None
+        if spread is None:
+            qi, g, d, along = self._near(px, py, r_pt)
         else:
-            order = np.lexsort((d, pg))
-        pg = pg[order]
-        take = order[np.flatnonzero(np.concatenate([[True], pg[1:] != pg[:-1]]))]
-        qi, g, d = qi[take], g[take], d[take]
-        along = self._seg_cum[si[take]] + t[take] * self._seg_len[si[take]]
-        if spread is not None and len(qi):
+            # two passes, same result as one: a point whose nearest road is within `spread`
+            # keeps nothing beyond sqrt(2) x spread, so search that far first and search the
+            # full radius only for the others
+            sp_pt = np.broadcast_to(np.asarray(spread, dtype=float), (len(xy),))[ok]
+            r1 = np.minimum(r_pt, math.sqrt(2.0) * sp_pt)
+            qi, g, d, along = self._near(px, py, r1)
+            nearest = np.full(len(ok), np.inf)
+            np.minimum.at(nearest, qi, d)
+            redo = np.flatnonzero((nearest > sp_pt) & (r_pt > r1))
+            if len(redo):
+                q2, g2, d2, a2 = self._near(px[redo], py[redo], r_pt[redo])
+                stay = ~np.isin(qi, redo)
+                qi = np.concatenate([qi[stay], redo[q2]])
+                order = np.argsort(qi, kind="stable")
+                qi = qi[order]
+                g = np.concatenate([g[stay], g2])[order]
+                d = np.concatenate([d[stay], d2])[order]
+                along = np.concatenate([along[stay], a2])[order]
+        if not len(qi):
+            nothing = np.empty(0, dtype=np.int64)
+            return nothing, nothing.copy(), np.empty(0), np.empty(0)
+        if sp_pt is not None:
             first = np.concatenate([[True], qi[1:] != qi[:-1]])
             nearest = np.minimum.reduceat(d, np.flatnonzero(first))[np.cumsum(first) - 1]
-            sp_ = np.broadcast_to(np.asarray(spread, dtype=float), (len(xy),))[ok][qi]
+            sp_ = sp_pt[qi]
             keep = np.flatnonzero(d * d <= nearest * nearest + sp_ * sp_)
             qi, g, d, along = qi[keep], g[keep], d[keep], along[keep]
         if max_per_point is not None and len(qi):
@@ -506,9 +517,43 @@ class RoadIndex:
         cnt = self._grp_count[g]
         rep = np.repeat(np.arange(len(g)), cnt)
         slot = self._grp_ptr[g][rep] + (np.arange(len(rep)) - np.repeat(np.cumsum(cnt) - cnt, cnt))
+        # within 1 mm of an end is the end itself (a point given at a node)
+        glen = self._grp_len[g]
+        frac = np.where(along < 1e-3, 0.0, np.where(glen - along < 1e-3, 1.0, frac))
         f = frac[rep]
         f = np.clip(np.where(self._grp_rev[slot], 1.0 - f, f), 0.0, 1.0)
         return ok[qi[rep]], self._grp_edge[slot].astype(np.int64), d[rep], f
+
+    def _near(
+        self, px: np.ndarray, py: np.ndarray, r: np.ndarray
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """Return (point, geometry, distance, distance along) of geometries within r.
+
+        One row per (point, geometry), from the nearest of its segments, sorted by point.
+        """
+        qi, si = self._grid_pairs(px, py, r)
+        qx, qy = px[qi] - self._seg_ax[si], py[qi] - self._seg_ay[si]
+        dx, dy, l2 = self._seg_dx[si], self._seg_dy[si], self._seg_l2[si]
+        t = np.clip((qx * dx + qy * dy) / l2, 0.0, 1.0)  # l2 > 0: zero-length segments dropped
+        d = np.hypot(qx - t * dx, qy - t * dy)
+        r_q = r[qi]
+        near = np.flatnonzero(d <= r_q)
+        qi, si, t, d, r_q = qi[near], si[near], t[near], d[near], r_q[near]
+        if not len(qi):
+            return qi, qi.copy(), d, d.copy()
+        # sort on one int64 key made of point, geometry and the distance quantised to 2**-20
+        # of the radius, then keep the first row of each (point, geometry)
+        g = self._seg_grp[si]
+        pg = qi.astype(np.int64) * len(self._grp_len) + g
+        if int(pg.max()) < 2**42:
+            qd = np.minimum((d / np.maximum(r_q, 1e-9) * 2**20).astype(np.int64), 2**20 - 1)
+            order = np.argsort(pg * 2**20 + qd)
+        else:
+            order = np.lexsort((d, pg))
+        pg = pg[order]
+        take = order[np.flatnonzero(np.concatenate([[True], pg[1:] != pg[:-1]]))]
+        along = self._seg_cum[si[take]] + t[take] * self._seg_len[si[take]]
+        return qi[take], g[take], d[take], along
 
     def _grid_pairs(
         self, px: np.ndarray, py: np.ndarray, r: np.ndarray
@@ -608,7 +653,7 @@ class _Layers:
 
 def _layers(n_points: int, point: np.ndarray, edge: np.ndarray, dist: np.ndarray,
             frac: np.ndarray) -> _Layers:
-    """Number the points that have candidates 0..T-1 (``point`` must be grouped ascending)."""
+    """Make layers 0..T-1 of the points that have candidates (``point`` grouped ascending)."""
     count_all = np.bincount(point, minlength=n_points)
     have = count_all > 0
     layer_of = np.cumsum(have) - 1
@@ -617,7 +662,7 @@ def _layers(n_points: int, point: np.ndarray, edge: np.ndarray, dist: np.ndarray
     return _Layers(np.flatnonzero(have), layer_of[point], edge, frac, dist, start, count)
 
 
-def _ends(index: RoadIndex, L: _Layers, *, at_nodes: bool) -> tuple[np.ndarray, np.ndarray]:
+def _ends(index: RoadIndex, lay: _Layers, *, at_nodes: bool) -> tuple[np.ndarray, np.ndarray]:
     """Return per candidate the node a route leaves from and the node a route arrives at.
 
     Normally a route leaves a position on (u, v) through v and arrives through u. With
@@ -625,7 +670,7 @@ def _ends(index: RoadIndex, L: _Layers, *, at_nodes: bool) -> tuple[np.ndarray, 
     very end is the node v itself (all edges meeting at a node then share one Dijkstra
     source).
     """
-    e, f = L.cand_edge, L.cand_frac
+    e, f = lay.cand_edge, lay.cand_frac
     leave, arrive = index.edge_v[e], index.edge_u[e]
     if at_nodes:
         leave = np.where(f <= 0.0, index.edge_u[e], leave)
@@ -642,22 +687,22 @@ class _Pairs:
     b: np.ndarray  # to-candidate
     first: np.ndarray  # first pair of each transition (len T), for pair lookup
 
-    def find(self, L: _Layers, t: np.ndarray, a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    def find(self, lay: _Layers, t: np.ndarray, a: np.ndarray, b: np.ndarray) -> np.ndarray:
         """Return the pair index of (a, b) at transitions t."""
-        return self.first[t] + (a - L.start[t]) * L.count[t + 1] + (b - L.start[t + 1])
+        return self.first[t] + (a - lay.start[t]) * lay.count[t + 1] + (b - lay.start[t + 1])
 
 
-def _pairs(L: _Layers, layer_route: np.ndarray) -> _Pairs:
+def _pairs(lay: _Layers, layer_route: np.ndarray) -> _Pairs:
     """Return every pair of candidates of consecutive layers of the same route."""
-    cnt = L.count
+    cnt = lay.count
     npairs = cnt[:-1] * cnt[1:] * (layer_route[1:] == layer_route[:-1])
     total = int(npairs.sum())
     first = np.concatenate([[0], np.cumsum(npairs)]).astype(np.int64)
-    t = np.repeat(np.arange(L.n - 1), npairs)
+    t = np.repeat(np.arange(lay.n - 1), npairs)
     within = np.arange(total) - first[t]
     cnext = cnt[1:][t]
-    a = L.start[t] + within // cnext
-    b = L.start[t + 1] + within % cnext
+    a = lay.start[t] + within // cnext
+    b = lay.start[t + 1] + within % cnext
     return _Pairs(t, a, b, first)
 
 
@@ -677,8 +722,8 @@ class _Routing:
 
 def _pair_costs(
     index: RoadIndex,
-    L: _Layers,
-    P: _Pairs,
+    lay: _Layers,
+    prs: _Pairs,
     *,
     weight: str,
     limit_t: np.ndarray,
@@ -693,20 +738,20 @@ def _pair_costs(
     between; a step back of at most ``back_tol`` (per candidate, m) costs nothing (GPS
     jitter). Dijkstra runs once per distinct leave node and limit step, in blocks.
     """
-    e, f = L.cand_edge, L.cand_frac
+    e, f = lay.cand_edge, lay.cand_frac
     w = (index.edge_time if weight == "time" else index.edge_length)[e]
-    leave, arrive = _ends(index, L, at_nodes=at_nodes)
+    leave, arrive = _ends(index, lay, at_nodes=at_nodes)
     tail, lead = (1.0 - f) * w, f * w
     if at_nodes:
         tail = np.where(f <= 0.0, 0.0, tail)
         lead = np.where(f >= 1.0, 0.0, lead)
     # which candidates leave towards a next layer, with which limit step
-    out = np.zeros(L.n, dtype=bool)
-    has = np.flatnonzero(np.diff(P.first) > 0)
+    out = np.zeros(lay.n, dtype=bool)
+    has = np.flatnonzero(np.diff(prs.first) > 0)
     out[has] = True
-    step_t = np.full(L.n, -1, dtype=np.int64)
+    step_t = np.full(lay.n, -1, dtype=np.int64)
     step_t[has] = np.searchsorted(_LIMIT_STEPS, limit_t[has])
-    cand_step = step_t[L.cand_layer]
+    cand_step = step_t[lay.cand_layer]
     cand_block = np.full(len(e), -1, dtype=np.int64)
     cand_row = np.zeros(len(e), dtype=np.int64)
     results: list[_Dist] = []
@@ -726,23 +771,23 @@ def _pair_costs(
             cand_row[mine] = res.rows(leave[mine])
             results.append(res)
     def fill(res: _Dist, sel: Any) -> np.ndarray:
-        a, b = P.a[sel], P.b[sel]
+        a, b = prs.a[sel], prs.b[sel]
         assert res.dist is not None
         return tail[a] + res.dist[cand_row[a], res.cols(arrive[b])] + lead[b]
 
     if len(results) <= 1:
-        cost = fill(results[0], slice(None)) if results else np.full(len(P.a), np.inf)
+        cost = fill(results[0], slice(None)) if results else np.full(len(prs.a), np.inf)
     else:
-        cost = np.empty(len(P.a))
-        blk = cand_block[P.a]
+        cost = np.empty(len(prs.a))
+        blk = cand_block[prs.a]
         for k, res in enumerate(results):
             idx = np.flatnonzero(blk == k)
             cost[idx] = fill(res, idx)
     for res in results:
         res.dist = None  # only the predecessors are kept, to rebuild paths
-    same = np.flatnonzero(e[P.a] == e[P.b])
+    same = np.flatnonzero(e[prs.a] == e[prs.b])
     if len(same):
-        a, b = P.a[same], P.b[same]
+        a, b = prs.a[same], prs.b[same]
         fa, fb = f[a], f[b]
         fwd = fb >= fa
         k = same[fwd]
@@ -753,13 +798,13 @@ def _pair_costs(
 
 
 def _viterbi(
-    L: _Layers, em: np.ndarray, P: _Pairs, tw: np.ndarray, starts: np.ndarray
+    lay: _Layers, em: np.ndarray, prs: _Pairs, tw: np.ndarray, starts: np.ndarray
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Decode the cheapest chains of candidates.
 
     Parameters
     ----------
-    L, P
+    lay, prs
         Layers and pairs.
     em, tw
         Emission cost per candidate and transition cost per pair (inf: not plausible).
@@ -772,38 +817,38 @@ def _viterbi(
         Chosen candidate per layer, True at layers that start a chain (route starts and
         breaks: no plausible transition into them), and each candidate's least chain cost.
     """
-    n_c = len(L.cand_layer)
+    n_c = len(lay.cand_layer)
     seg = starts.copy()
-    if L.n > 1:
-        seg[1:] |= np.bincount(P.t, weights=np.isfinite(tw), minlength=L.n - 1) == 0
-    S = n_c
-    # CSR rows: candidates (pairs are sorted by from-candidate), then the source S; an
+    if lay.n > 1:
+        seg[1:] |= np.bincount(prs.t, weights=np.isfinite(tw), minlength=lay.n - 1) == 0
+    root = n_c
+    # CSR rows: candidates (pairs are sorted by from-candidate), then the source root; an
     # implausible pair keeps an inf weight, which Dijkstra never relaxes
-    indptr_c = np.concatenate([[0], np.cumsum(np.bincount(P.a, minlength=n_c))])
-    pair_data = tw + em[P.b] + _EPS
-    itype = np.int32 if n_c + len(P.a) < 2**31 - 1 else np.int64
+    indptr_c = np.concatenate([[0], np.cumsum(np.bincount(prs.a, minlength=n_c))])
+    pair_data = tw + em[prs.b] + _EPS
+    itype = np.int32 if n_c + len(prs.a) < 2**31 - 1 else np.int64
     while True:
-        heads = np.flatnonzero(seg[L.cand_layer])
-        indptr = np.concatenate([indptr_c, [len(P.a) + len(heads)]]).astype(itype)
+        heads = np.flatnonzero(seg[lay.cand_layer])
+        indptr = np.concatenate([indptr_c, [len(prs.a) + len(heads)]]).astype(itype)
         mat = sp.csr_matrix(
             (np.concatenate([pair_data, em[heads] + _EPS]),
-             np.concatenate([P.b, heads]).astype(itype), indptr),
+             np.concatenate([prs.b, heads]).astype(itype), indptr),
             shape=(n_c + 1, n_c + 1),
         )
-        dist, pred = dijkstra(mat, indices=S, return_predecessors=True)
-        reached = np.bincount(L.cand_layer[np.isfinite(dist[:n_c])], minlength=L.n) > 0
+        dist, pred = dijkstra(mat, indices=root, return_predecessors=True)
+        reached = np.bincount(lay.cand_layer[np.isfinite(dist[:n_c])], minlength=lay.n) > 0
         if reached.all():
             break
         seg |= ~reached & np.concatenate([[True], reached[:-1]])
     # backtrack every chain at once: the chosen candidate of layer t is pred^d of the best
     # candidate of its chain's last layer, d layers later; pred^d by binary doubling
     best = dist[:n_c]
-    layer_min = np.minimum.reduceat(best, L.start)
-    is_min = np.flatnonzero(best == layer_min[L.cand_layer])
-    first_min = is_min[np.concatenate([[True], np.diff(L.cand_layer[is_min]) != 0])]
+    layer_min = np.minimum.reduceat(best, lay.start)
+    is_min = np.flatnonzero(best == layer_min[lay.cand_layer])
+    first_min = is_min[np.concatenate([[True], np.diff(lay.cand_layer[is_min]) != 0])]
     ends = np.flatnonzero(np.concatenate([seg[1:], [True]]))
     chain = np.cumsum(seg) - 1
-    d = ends[chain] - np.arange(L.n)
+    d = ends[chain] - np.arange(lay.n)
     c = first_min[ends][chain]
     jump = pred[:n_c].astype(np.int64)
     jump[(jump < 0) | (jump >= n_c)] = np.flatnonzero((jump < 0) | (jump >= n_c))
@@ -821,7 +866,7 @@ def _assemble(
     index: RoadIndex,
     route: PlannedRoute,
     offset: int,
-    L: _Layers,
+    lay: _Layers,
     lo: int,
     hi: int,
     chosen: np.ndarray,
@@ -839,8 +884,8 @@ def _assemble(
     ch = chosen[lo:hi]
     sg = seg[lo:hi].copy()
     sg[0] = True
-    ce = L.cand_edge[ch]
-    cf = L.cand_frac[ch]
+    ce = lay.cand_edge[ch]
+    cf = lay.cand_frac[ch]
     same = ce[1:] == ce[:-1]
     fwd = same & (cf[1:] >= cf[:-1])
     hold = same & ~fwd & ((cf[:-1] - cf[1:]) * index.edge_length[ce[1:]] <= back_tol_m)
@@ -857,21 +902,24 @@ def _assemble(
         else:
             if not (at_nodes and cf[t - 1] <= 0.0):  # else it left from u: e not driven
                 visits[-1][2] = 1.0
-            nodes = routing.node_path(int(ch[t - 1]), int(ch[t]))
-            visits.extend([pe, 0.0, 1.0, False] for pe in index.edges_between(weight, nodes))
+            a, b = int(ch[t - 1]), int(ch[t])
+            if routing.leave[a] != routing.arrive[b]:  # else the two edges meet: no path
+                nodes = routing.node_path(a, b)
+                visits.extend([pe, 0.0, 1.0, False] for pe in index.edges_between(weight, nodes))
             on = 1.0 if at_nodes and cf[t] >= 1.0 else 0.0  # arrived at v without driving e
             visits.append([e, on, float(gmax[k]), False])
         group_visit[k] = len(visits) - 1
     n = len(route)
-    pts = L.point[lo:hi] - offset
+    pts = lay.point[lo:hi] - offset
     point_visit = np.full(n, -1, dtype=np.int64)
     point_off = np.full(n, np.nan)
     point_visit[pts] = group_visit[group]
     point_off[pts] = cf
     breaks = tuple(int(p) for p in pts[1:][sg[1:]])
-    # drop visits of zero length (a point exactly on a node), keeping at least one; a point on
+    # drop visits shorter than 1 mm (a point exactly on a node), keeping at least one; a point on
     # a dropped visit moves to the start of the next kept visit (or the end of the last one)
-    keep = np.array([v[2] - v[1] > 1e-12 for v in visits])
+    elen = index.edge_length
+    keep = np.array([(v[2] - v[1]) * max(float(elen[v[0]]), 1.0) > 1e-3 for v in visits])
     if not keep.any():
         keep[0] = True
     kept_at = np.flatnonzero(keep)
@@ -1072,27 +1120,27 @@ def _join_group(
     head = np.concatenate([[True], point[1:] != point[:-1]])
     nearest = np.minimum.reduceat(dist, np.flatnonzero(head))[np.cumsum(head) - 1]
     near = dist <= nearest + _TIE_M
-    L = _layers(n_pts, point[near], edge[near], dist[near], frac[near])
+    lay = _layers(n_pts, point[near], edge[near], dist[near], frac[near])
     route_of = np.repeat(np.arange(len(routes)), np.diff(offsets))
-    layer_route = route_of[L.point]
+    layer_route = route_of[lay.point]
     bounds = _layer_bounds(layer_route, len(routes))
-    P = _pairs(L, layer_route)
+    prs = _pairs(lay, layer_route)
     # a first bound on each fastest time: 1.5 x straight distance at the median speed + 30 s,
     # widened 3x per attempt; the last attempt is unbounded
-    gap = np.hypot(*np.diff(xy[L.point], axis=0).T)
+    gap = np.hypot(*np.diff(xy[lay.point], axis=0).T)
     limit_t = (1.5 * gap / max(index.median_speed, 0.5) + 30.0) * 3.0**attempt
     if attempt >= 3:
-        limit_t = np.full(L.n - 1, np.inf)
-    cost, routing = _pair_costs(index, L, P, weight="time", limit_t=limit_t,
-                                back_tol=np.zeros(len(L.cand_layer)), at_nodes=True)
-    starts = np.zeros(L.n, dtype=bool)
+        limit_t = np.full(lay.n - 1, np.inf)
+    cost, routing = _pair_costs(index, lay, prs, weight="time", limit_t=limit_t,
+                                back_tol=np.zeros(len(lay.cand_layer)), at_nodes=True)
+    starts = np.zeros(lay.n, dtype=bool)
     starts[bounds[:-1]] = True
-    chosen, seg, best = _viterbi(L, np.zeros(len(L.cand_layer)), P, cost, starts)
+    chosen, seg, best = _viterbi(lay, np.zeros(len(lay.cand_layer)), prs, cost, starts)
     # per transition the least pair cost; a pair left out at transition t costs more than
     # limit_t, so a chain using it costs more than limit_t + the other transitions' least
     # costs: the chain found is optimal when it is no dearer than every such bound
-    m_t = np.full(L.n - 1, np.inf)
-    np.minimum.at(m_t, P.t, cost)
+    m_t = np.full(lay.n - 1, np.inf)
+    np.minimum.at(m_t, prs.t, cost)
     retry: list[int] = []
     results: dict[int, MatchedRoute] = {}
     for r, route in enumerate(routes):
@@ -1101,7 +1149,7 @@ def _join_group(
         if broken.any():
             if attempt >= 3:
                 t = lo + int(np.flatnonzero(broken)[0])
-                a, b = int(L.point[t] - offsets[r]), int(L.point[t + 1] - offsets[r])
+                a, b = int(lay.point[t] - offsets[r]), int(lay.point[t + 1] - offsets[r])
                 raise RouteInputError(
                     f"no drivable path from point {a} to point {b} "
                     "(one-way streets or a road not connected to the rest)",
@@ -1116,7 +1164,7 @@ def _join_group(
             if found - float(m.sum()) > float(np.min(limit_t[lo:hi - 1] - m)) + 1e-9:
                 retry.append(r)
                 continue
-        results[r] = _assemble(index, route, int(offsets[r]), L, lo, hi, chosen, seg, routing,
+        results[r] = _assemble(index, route, int(offsets[r]), lay, lo, hi, chosen, seg, routing,
                                method="join", weight="time", back_tol_m=0.0, at_nodes=True)
     if retry:
         logger.debug("join: %d route(s) need wider Dijkstra bounds", len(retry))
@@ -1156,7 +1204,7 @@ def match_trace(
     ``sigma_z``; the transition is exponential in ``|straight distance between the fixes -
     route distance between the positions|`` with ``beta``, the route distance being the
     shortest driving distance (following one-way streets; a forward move along one edge is
-    measured on the edge, a step back of at most 2 sigma_z on one edge counts as standing
+    measured on the edge, a step back of at most 4.25 sigma_z on one edge counts as standing
     still); Viterbi decoding in log space (as a shortest path). Fixes within 2 sigma_z of the
     last kept fix are dropped (required points are kept). Where no route with at most
     ``max_detour_m`` of extra driving joins two consecutive kept fixes, the chain is broken
@@ -1175,10 +1223,11 @@ def match_trace(
         its nearest road.
     beta
         Transition scale (m). ``"estimate"`` decodes once with the default, then sets beta to
-        the median of ``|straight - route|`` along that match / ln 2 and decodes again; None
-        uses 2 x sigma_z [practice: the straight distance between two fixes each with noise
-        sigma_z differs from the driven distance by about N(0, 2 sigma_z^2), whose median
-        absolute value / ln 2 is 1.4 sigma_z; 2 sigma_z leaves room for corners].
+        the median of ``|straight - route|`` along that match / ln 2 (Newson and Krumm's
+        estimator, with the match standing in for the ground truth) and decodes again. None
+        uses sigma_z / 2 [practice: the along-road noise of two fixes is shared by the
+        straight and the route distance, so they differ mostly by the across-road noise,
+        a few metres; chosen on synthetic traces, see tests/test_matching.py].
     search_radius_m
         Candidate radius (m); None uses max(50, 6 x sigma_z).
     max_detour_m
@@ -1226,6 +1275,22 @@ def match_many(
     return out
 
 
+def _estimate_sigmas(
+    index: RoadIndex, routes: list[PlannedRoute], xy: np.ndarray, offsets: np.ndarray
+) -> np.ndarray:
+    """Return per route 1.4826 x the median distance of its fixes to the nearest road."""
+    near = index.nearest_distance(xy)
+    out = np.empty(len(routes))
+    for r, route in enumerate(routes):
+        d = near[offsets[r]:offsets[r + 1]]
+        d = d[np.isfinite(d)]
+        if not len(d):
+            raise _off_network(index, route, xy[offsets[r]:offsets[r + 1]],
+                               np.arange(len(route)), 200.0)
+        out[r] = max(0.5, _MAD_TO_SIGMA * float(np.median(d)))
+    return out
+
+
 def _match_group(
     index: RoadIndex,
     routes: list[PlannedRoute],
@@ -1238,18 +1303,8 @@ def _match_group(
     xy, offsets = _stack(index, routes)
     n_r, n_pts = len(routes), len(xy)
     route_of = np.repeat(np.arange(n_r), np.diff(offsets))
-    if sigma_z == "estimate":
-        near = index.nearest_distance(xy)
-        sigma_r = np.empty(n_r)
-        for r in range(n_r):
-            d = near[offsets[r]:offsets[r + 1]]
-            d = d[np.isfinite(d)]
-            if not len(d):
-                raise _off_network(index, routes[r], xy[offsets[r]:offsets[r + 1]],
-                                   np.arange(len(routes[r])), 200.0)
-            sigma_r[r] = max(0.5, _MAD_TO_SIGMA * float(np.median(d)))
-    else:
-        sigma_r = np.full(n_r, float(sigma_z))
+    sigma_r = (_estimate_sigmas(index, routes, xy, offsets) if sigma_z == "estimate"
+               else np.full(n_r, float(sigma_z)))
     radius_r = (np.maximum(50.0, 6.0 * sigma_r) if search_radius_m is None
                 else np.full(n_r, float(search_radius_m)))
     keep = np.concatenate([
@@ -1272,32 +1327,33 @@ def _match_group(
         lo, hi = offsets[r], offsets[r + 1]
         missing = np.flatnonzero(keep[lo:hi] & ~have[lo:hi])
         raise _off_network(index, routes[r], xy[lo:hi], missing, float(radius_r[r]))
-    L = _layers(n_pts, point, edge, dist, frac)
-    layer_route = route_of[L.point]
+    lay = _layers(n_pts, point, edge, dist, frac)
+    layer_route = route_of[lay.point]
     bounds = _layer_bounds(layer_route, n_r)
-    P = _pairs(L, layer_route)
-    gc_t = np.hypot(*np.diff(xy[L.point], axis=0).T)
-    sig_c = sigma_r[layer_route[L.cand_layer]]
-    rd, routing = _pair_costs(index, L, P, weight="length", limit_t=gc_t + detour,
-                              back_tol=2.0 * sig_c, at_nodes=False)
-    gc = gc_t[P.t]
+    prs = _pairs(lay, layer_route)
+    gc_t = np.hypot(*np.diff(xy[lay.point], axis=0).T)
+    sig_c = sigma_r[layer_route[lay.cand_layer]]
+    rd, routing = _pair_costs(index, lay, prs, weight="length", limit_t=gc_t + detour,
+                              back_tol=_HOLD_SIGMAS * sig_c, at_nodes=False)
+    gc = gc_t[prs.t]
     diff = np.abs(gc - rd)
     plausible = rd <= gc + detour
-    em = 0.5 * (L.cand_dist / sig_c) ** 2
-    beta_r = 2.0 * sigma_r if beta is None or beta == "estimate" else np.full(n_r, float(beta))
-    starts = np.zeros(L.n, dtype=bool)
+    em = 0.5 * (lay.cand_dist / sig_c) ** 2
+    beta_r = (_BETA_PER_SIGMA * sigma_r if beta is None or beta == "estimate"
+              else np.full(n_r, float(beta)))
+    starts = np.zeros(lay.n, dtype=bool)
     starts[bounds[:-1]] = True
 
     def decode(b_r: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        tw = np.where(plausible, diff / b_r[layer_route[P.t]], np.inf)
-        chosen, seg, _ = _viterbi(L, em, P, tw, starts)
+        tw = np.where(plausible, diff / b_r[layer_route[prs.t]], np.inf)
+        chosen, seg, _ = _viterbi(lay, em, prs, tw, starts)
         return chosen, seg
 
     chosen, seg = decode(beta_r)
     if beta == "estimate":
         t = np.flatnonzero(~seg[1:] & (layer_route[1:] == layer_route[:-1]))
         if len(t):
-            p = P.find(L, t, chosen[t], chosen[t + 1])
+            p = prs.find(lay, t, chosen[t], chosen[t + 1])
             along = diff[p]
             r_of = layer_route[t]
             for r in np.unique(r_of):
@@ -1306,8 +1362,9 @@ def _match_group(
     out = []
     for r, route in enumerate(routes):
         lo, hi = int(bounds[r]), int(bounds[r + 1])
-        m = _assemble(index, route, int(offsets[r]), L, lo, hi, chosen, seg, routing,
-                      method="match", weight="length", back_tol_m=2.0 * float(sigma_r[r]),
+        m = _assemble(index, route, int(offsets[r]), lay, lo, hi, chosen, seg, routing,
+                      method="match", weight="length",
+                      back_tol_m=_HOLD_SIGMAS * float(sigma_r[r]),
                       at_nodes=False, sigma_z=float(sigma_r[r]), beta=float(beta_r[r]))
         if m.breaks:
             logger.info("match %r: chain broken and restarted at points %s", route.name,

@@ -16,42 +16,55 @@ The module has two halves.
 Objective
 ---------
 Lexicographic, solved in two stages rather than with one big-M weighted objective: a big-M
-weight makes the risk part a tiny fraction of the objective, so the solver's relative gap
+weight makes the risk a tiny fraction of the objective, so the solver's relative gap
 tolerance would swallow it. Stage 1 maximises the number of placed jobs; stage 2 minimises the
-total risk subject to placing at least that many. Stage 1 is skipped when the heuristic
-already places every job that has a feasible candidate.
+total risk subject to placing at least that many.
 
 Exact method
 ------------
-A 0/1 integer programme solved with :func:`scipy.optimize.milp` (HiGHS). A variable is one
-(job, candidate, vehicle) triple; each job takes at most one. Candidate ``i`` *occupies* its
-vehicle over the half-open interval ``[start, start + duration + turnaround)``. No-overlap is
-written as clique constraints of the interval graph: for each vehicle and each instant ``t``
-that is the start of some candidate, the candidates occupying ``t`` sum to at most 1. This is
-the time-indexed formulation restricted to the only instants that matter: a set of intervals
-that overlap pairwise has a common point (Helly property of intervals), and the latest start
-among them is such a point, so the constraints at start instants forbid every overlap and
-nothing else. Unlike a fixed time grid it is exact for any start times and durations, with no
-rounding of occupancy. Times are compared on a 1/1000-minute integer scale, rounded outwards
-(starts down, ends up), so rounding can only forbid, never allow, an overlap.
+A 0/1 integer programme solved with :func:`scipy.optimize.milp` (HiGHS). A variable ``x`` is
+one (job, candidate, vehicle) triple; each job takes at most one. Candidate ``i`` *occupies*
+its vehicle over the half-open interval ``[start, start + duration + turnaround)``.
+
+No-overlap is written in time-indexed form as a flow over time: the time points are the
+distinct starts and occupancy ends of the candidates; a vehicle either idles from one point to
+the next (continuous variable ``y``) or drives a candidate from the point of its start to the
+point of its occupancy end; flow is conserved at every point. Over each stretch between two
+points the vehicles busy with candidates plus the idle ones equal the fleet, so no two
+candidates on one vehicle overlap. Because the points are the candidates' own start and end
+instants rather than a fixed grid, this is exact for any start times and durations, with no
+rounding of occupancy to a grid (and no more rows than needed). Times are compared on a
+1/1000-minute integer scale, rounded outwards (starts down, ends up), so rounding can only
+forbid, never allow, an overlap. The flow form has the same linear relaxation as the clique
+constraints "at most V candidates occupy each start instant" but is sparser, and HiGHS solves
+it faster.
 
 When no job or candidate restricts its vehicles, the vehicles are interchangeable and the
-model is aggregated: one variable per (job, candidate), and at each start instant at most
-``V`` occupying candidates (``V`` vehicles). This is exact because interval graphs are perfect:
-a set of intervals of which at most ``V`` contain any point can be coloured with ``V`` colours,
-and greedy colouring in order of start time does so. The vehicles are then assigned that way.
-When any restriction exists, the model keeps one variable per vehicle.
+model is aggregated: one variable per (job, candidate) and a single flow of size ``V``, so at
+most ``V`` candidates occupy any instant. That is exact because interval graphs are perfect:
+intervals of which at most ``V`` contain any point can be coloured with ``V`` colours, and
+greedy colouring in order of start time does it; the vehicles are assigned that way. When any
+restriction exists, each vehicle has its own unit flow and its own variables.
+
+Before the integer programme, the linear relaxation gives an upper bound on the number of
+jobs that fit and a lower bound on the risk; a heuristic (below) gives an incumbent; and
+*reduced-cost fixing* removes every variable that the relaxation proves cannot be 1 in any
+schedule better than the incumbent. Stage 1 is skipped when the heuristic already places as
+many jobs as the relaxation allows; stage 2 when the heuristic meets the risk bound.
 
 Heuristic
 ---------
-When the model would have more than ``max_exact_vars`` variables, a deterministic heuristic
-is used instead: regret insertion (repeatedly place the job that would lose most by waiting,
-i.e. the largest risk difference between its best and second-best fitting start; a job with a
-single fitting start goes first), then local improvement until nothing improves (insert
-unplaced jobs, eject one placed job to make room for an unplaced one, move one job, move two
-jobs jointly). Its result is reported with a lower bound from the linear-programming
-relaxation of the same model (least risk over fractional schedules placing at least as many
-jobs), so the reported gap is a proven bound on how far from optimal it can be.
+Three deterministic starts, each followed by local improvement: insertion guided by the
+linear relaxation's solution; regret insertion (repeatedly place the job that would lose most
+by waiting, i.e. the largest risk difference between its best and second-best fitting start;
+a job with one fitting start goes first); and earliest-end insertion (good for the job
+count). Local improvement repeats until nothing improves: insert unplaced jobs (directly or by
+moving the one job in the way), let an unplaced job replace a placed job of higher risk, move
+one job to a better start, move a job to a better start held by one other job which moves
+elsewhere. The best result serves as the incumbent of the exact method, and is the answer
+when the model has more than ``max_exact_vars`` variables; then the gap is reported against
+the linear relaxation (least risk over fractional schedules placing at least as many jobs),
+a proven bound on how far from optimal it can be.
 
 Times
 -----
@@ -759,9 +772,19 @@ def _check_candidate(j: int, c: int, cand: Candidate) -> None:
         raise ValueError(f"job {j} candidate {c}: rule_breaks must be >= 0")
 
 
+def _allowed(job: Job, cand: Candidate, index: Mapping[str, int]) -> tuple[int, ...]:
+    """Return the sorted fleet indices a candidate of ``job`` may use."""
+    allowed = set(index.values())
+    if job.vehicle is not None:
+        allowed &= {index[job.vehicle]} if job.vehicle in index else set()
+    if cand.vehicles is not None:
+        allowed &= {index[v] for v in cand.vehicles if v in index}
+    return tuple(sorted(allowed))
+
+
 def _prepare(
     jobs: Sequence[Job], fleet: Sequence[str], turnaround_min: float
-) -> tuple[_Axis, list[list[_Opt]], dict[int, str]]:
+) -> tuple[list[list[_Opt]], dict[int, str]]:
     """Filter every job's candidates to the usable ones; give a reason for jobs with none."""
     axis = _Axis(
         [c.start for job in jobs for c in job.candidates]
@@ -787,15 +810,11 @@ def _prepare(
         if in_window and not legal:
             reason = "every start breaks a hard rule"
         for c, cand in legal:
-            allowed = set(range(len(fleet)))
-            if job.vehicle is not None:
-                allowed &= {index[job.vehicle]} if job.vehicle in index else set()
-            if cand.vehicles is not None:
-                allowed &= {index[v] for v in cand.vehicles if v in index}
+            allowed = _allowed(job, cand, index)
             if allowed:
                 s = axis.floor(cand.start)
                 e = axis.ceil(cand.start, cand.duration + turnaround_min)
-                opts.append(_Opt(j, c, s, e, float(cand.risk), tuple(sorted(allowed))))
+                opts.append(_Opt(j, c, s, e, float(cand.risk), allowed))
         if legal and not opts:
             if job.vehicle is not None and job.vehicle not in index:
                 reason = f"required vehicle {job.vehicle!r} is not in the fleet"
@@ -804,7 +823,7 @@ def _prepare(
         usable.append(sorted(opts, key=lambda o: (o.risk, o.s, o.cand)))
         if not opts:
             reasons[j] = reason
-    return axis, usable, reasons
+    return usable, reasons
 
 
 # --------------------------------------------------------------------------------------------
@@ -924,8 +943,12 @@ class _Search:
             if placement is not None:
                 self.place(j, placement)
                 o, v = placement
-                for k, opts in pending.items():
-                    pending[k] = [p for p in opts if self.vehicle_for(p) is not None]
+                for k, opts in pending.items():  # only starts overlapping o on v can be lost
+                    pending[k] = [
+                        p for p in opts
+                        if not (v in p.vehicles and p.s < o.e and o.s < p.e)
+                        or self.vehicle_for(p) is not None
+                    ]
 
     def guided_fill(self, model: _Model, x: np.ndarray) -> None:
         """Place jobs following a fractional (LP) solution ``x`` of ``model``, then the rest.
@@ -947,15 +970,17 @@ class _Search:
         self.regret_fill()
 
     def earliest_end_fill(self) -> None:
-        """Place jobs greedily by earliest end of a fitting start (the classic rule for most
-        intervals), ties by lower risk."""
+        """Place jobs greedily by the earliest end of a fitting start, ties by lower risk.
+
+        Earliest end first is the classic greedy rule for fitting many intervals.
+        """
         while True:
             best: tuple[_Opt, int] | None = None
             for j, opts in enumerate(self.usable):
                 if j in self.sol:
                     continue
                 for o in opts:
-                    if best is not None and (o.e, o.risk, o.job) >= (best[0].e, best[0].risk, best[0].job):
+                    if best is not None and (o.e, o.risk, j) >= (best[0].e, best[0].risk, best[0].job):
                         continue
                     v = self.vehicle_for(o)
                     if v is not None:
@@ -977,6 +1002,7 @@ class _Search:
     def _insert_unplaced(self) -> bool:
         """Insert unplaced jobs, directly or by moving the single job that blocks a start."""
         changed = False
+        movable: set[int] | None = None
         for u, opts in enumerate(self.usable):
             if u in self.sol or not opts:
                 continue
@@ -985,14 +1011,36 @@ class _Search:
                 self.place(u, p)
                 changed = True
                 continue
-            changed = self._eject_for(u) or changed
+            if movable is None:
+                movable = self._movable()
+            if self._eject_for(u, movable):
+                changed = True
+                movable = None
         return changed
 
-    def _eject_for(self, u: int) -> bool:
+    def _movable(self) -> set[int]:
+        """Return the placed jobs that have a fitting placement other than their own."""
+        found = set()
+        for j in sorted(self.sol):
+            here = self.lift(j)
+            if any(
+                (o, v) != here and self.tl.fits(v, o.s, o.e)
+                for o in self.usable[j]
+                for v in o.vehicles
+            ):
+                found.add(j)
+            self.place(j, here)
+        return found
+
+    def _eject_for(self, u: int, movable: set[int]) -> bool:
+        """Place ``u`` where exactly one job is in the way, if that job can move elsewhere.
+
+        A job in ``movable`` is the only kind worth trying: placing ``u`` only takes room away.
+        """
         for o in self.usable[u]:
             for v in o.vehicles:
                 blocking = self.tl.blockers(v, o.s, o.e)
-                if len(blocking) != 1:
+                if len(blocking) != 1 or blocking[0] not in movable:
                     continue
                 b = blocking[0]
                 old = self.lift(b)
@@ -1308,8 +1356,8 @@ def _optimise(
 
     1. Linear relaxations: the most jobs that fit fractionally (an upper bound on the count),
        and the least risk at that count (its solution guides the heuristic).
-    2. Heuristic: LP-guided and regret insertion, each improved by local search; the better
-       one is the incumbent. Without ``exact`` it is returned with the LP bound.
+    2. Heuristic: LP-guided, regret and earliest-end insertion, each improved by local
+       search; the best is the incumbent. Without ``exact`` it is returned with the LP bound.
     3. Stage 1 (only if the incumbent places fewer jobs than the bound): 0/1 programme for a
        schedule with one job more than the incumbent, over the variables reduced-cost fixing
        leaves; infeasible means the incumbent's count is the most.
@@ -1360,7 +1408,7 @@ def _optimise(
         return best.sol, status, bound
     remaining = deadline - time.perf_counter()
     if remaining <= 0:
-        notes.append("time limit reached before the least risk was searched")
+        notes.append("time limit reached before the integer programme ran; the gap is against the linear relaxation")
         return best.sol, "time_limit", bound
     keep, fix_one = _reduced_cost_fixing(lp, upper - bound)
     res = _mip(model, model.risk, min_count=target, keep=keep, fix_one=fix_one,
@@ -1405,7 +1453,8 @@ def solve_schedule(
     max_exact_vars
         Largest integer programme solved exactly; above it the heuristic is used.
     time_limit
-        Seconds for the integer programmes (both stages together).
+        Seconds for the search (relaxations, heuristic and both integer programmes); when it
+        runs out the best schedule found is returned with status ``"time_limit"``.
     mip_rel_gap
         Relative optimality tolerance of the risk stage.
 
@@ -1425,15 +1474,16 @@ def solve_schedule(
     jobs = _as_jobs(options)
     fleet = _fleet(vehicles)
     _check_turnaround(turnaround_min)
-    _, usable, reasons = _prepare(jobs, fleet, turnaround_min)
-    model = _build_model(usable, len(fleet))
-    n_vars = model.risk.size
+    usable, reasons = _prepare(jobs, fleet, turnaround_min)
     notes: list[str] = []
     sol: dict[int, _Placement] = {}
     bound: float | None = 0.0
-    if model.n_jobs == 0:
+    n_vars = sum(len(o.vehicles) for opts in usable for o in opts)
+    if n_vars == 0:
         status, method = ("infeasible" if jobs else "optimal"), "none"
     else:
+        model = _build_model(usable, len(fleet))
+        n_vars = model.n_x
         exact = n_vars <= max_exact_vars
         if exact:
             method = "milp-aggregated" if model.aggregated else "milp-per-vehicle"
@@ -1447,7 +1497,7 @@ def solve_schedule(
     schedule = _schedule(
         jobs, fleet, {j: (o.cand, v) for j, (o, v) in sol.items()}, reasons, total, status,
         _rel_gap(total, bound), bound, method, notes, time.perf_counter() - clock,
-        blocked="no free vehicle: every usable start conflicts with the runs placed",
+        blocked="fleet busy: every usable start conflicts with the runs placed",
     )
     logger.info(
         "solve_schedule placed %d of %d jobs, total risk %.6g, status %s (%s, %d variables) "
@@ -1571,7 +1621,7 @@ def naive_schedule(
     axis = _Axis([c.start for job in jobs for c in job.candidates])
     index = {v: i for i, v in enumerate(fleet)}
     reasons: dict[int, str] = {}
-    picks: list[tuple[int, int, int, int, list[int]]] = []  # start, end, job, cand, vehicles
+    picks: list[tuple[int, int, int, int, tuple[int, ...]]] = []  # start, end, job, cand, vehicles
     notes: list[str] = []
     for j, job in enumerate(jobs):
         if not job.candidates:
@@ -1583,42 +1633,33 @@ def naive_schedule(
         c = min(pool, key=lambda c: (axis.floor(job.candidates[c].start), c))
         cand = job.candidates[c]
         _check_candidate(j, c, cand)
-        allowed = set(range(len(fleet)))
-        if job.vehicle is not None:
-            allowed &= {index[job.vehicle]} if job.vehicle in index else set()
-        if cand.vehicles is not None:
-            allowed &= {index[v] for v in cand.vehicles if v in index}
+        allowed = _allowed(job, cand, index)
         if not allowed:
             reasons[j] = "no vehicle of the fleet is allowed for its earliest start"
             continue
         label = f"{job.run} #{job.repetition}"
         if cand.rule_breaks:
-            notes.append(f"{label}: earliest start breaks {cand.rule_breaks} hard rule(s)")
-        if job.latest is not None and _minutes_between(job.latest, _plus_minutes(cand.start, cand.duration)) > 1e-9:
+            notes.append(f"{label}: its earliest start breaks {cand.rule_breaks} hard rule(s)")
+        end = _plus_minutes(cand.start, cand.duration)
+        if job.earliest is not None and _minutes_between(job.earliest, cand.start) < -1e-9:
+            notes.append(f"{label}: starts before its earliest time")
+        if job.latest is not None and _minutes_between(job.latest, end) > 1e-9:
             notes.append(f"{label}: ends after its latest time")
-        s = axis.floor(cand.start)
-        picks.append((s, axis.ceil(cand.start, cand.duration + turnaround_min), j, c, sorted(allowed)))
+        picks.append((axis.floor(cand.start), axis.ceil(end, turnaround_min), j, c, allowed))
     free_at = [-(10**18)] * len(fleet)
     sol: dict[int, tuple[int, int]] = {}
     for s, e, j, c, allowed in sorted(picks):
         free = [v for v in allowed if free_at[v] <= s]
         v = free[0] if free else min(allowed, key=lambda v: (free_at[v], v))
+        if not free:
+            notes.append(
+                f"{jobs[j].run} #{jobs[j].repetition}: overlaps the previous run on vehicle "
+                f"{fleet[v]} by {(free_at[v] - s) / _TICKS:.1f} min (turnaround included)"
+            )
         free_at[v] = max(free_at[v], e)
         sol[j] = (c, v)
     total = float(sum(jobs[j].candidates[c].risk for j, (c, _) in sol.items()))
-    schedule = _schedule(
+    return _schedule(
         jobs, fleet, sol, reasons, total, "naive", None, None, "naive", notes,
         time.perf_counter() - clock, blocked="",
     )
-    extra = [
-        f"{a.run} #{a.repetition} and {b.run} #{b.repetition} overlap on vehicle {a.vehicle} "
-        f"by {short:.1f} min (turnaround included)"
-        for a, b, short in overlaps(schedule.assignments, turnaround_min=turnaround_min)
-    ]
-    if extra:
-        schedule = Schedule(
-            schedule.assignments, schedule.unplaced, schedule.total_risk, schedule.status,
-            schedule.gap, schedule.lower_bound, schedule.method, (*schedule.notes, *extra),
-            schedule.seconds,
-        )
-    return schedule

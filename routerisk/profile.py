@@ -209,7 +209,8 @@ class Profile:
     @cached_property
     def fingerprint(self) -> str:
         """Return a stable 16-hex-digit hash of the profile's normalised content."""
-        text = json.dumps(self.to_dict(), sort_keys=True, separators=(",", ":"))
+        text = json.dumps(self.to_dict(), sort_keys=True, separators=(",", ":"),
+                          default=lambda o: o.tolist() if hasattr(o, "tolist") else str(o))
         return hashlib.sha256((text + self.extra_hash).encode()).hexdigest()[:16]
 
 

@@ -525,7 +525,7 @@ def _flat_times(value: object, parts: list[int], path: Path, field: str) -> list
     return list(value)
 
 
-def _read_geojson(path: Path, text: str, tz: tzinfo | None) -> list[_Parsed]:
+def _load_json(path: Path, text: str) -> dict[str, Any]:
     try:
         data = json.loads(text)
     except json.JSONDecodeError as exc:
@@ -538,134 +538,172 @@ def _read_geojson(path: Path, text: str, tz: tzinfo | None) -> list[_Parsed]:
         raise InputFileError("is nested too deeply to be GeoJSON", path=path) from None
     if not isinstance(data, dict):
         raise InputFileError("GeoJSON must be a JSON object", path=path, field="type")
+    return data
+
+
+def _join(prefix: str, name: str) -> str:
+    return f"{prefix}.{name}" if prefix else name
+
+
+def _geojson_items(path: Path, data: dict[str, Any]) -> list[tuple[str, Any, str]]:
+    """Return (feature field prefix, feature, geometry field prefix) of each feature."""
     kind = data.get("type")
-    top = _crs_transformer(data.get("crs"), path, "crs")
-    items: list[tuple[str, dict[str, Any], str]]  # (feature prefix, feature, geometry prefix)
     if kind == "FeatureCollection":
         feats = data.get("features")
         if not isinstance(feats, list):
             raise RouteInputError("FeatureCollection has no features list", path=path,
                                   field="features")
-        items = [(f"features[{i}]", f, f"features[{i}].geometry") for i, f in enumerate(feats)]
-    elif kind == "Feature":
-        items = [("", data, "geometry")]
-    elif kind in _ROUTE_TYPES or kind in _OTHER_GEOMETRIES:
-        items = [("", {"type": "Feature", "geometry": data, "properties": {}}, "")]
+        return [(f"features[{i}]", f, f"features[{i}].geometry") for i, f in enumerate(feats)]
+    if kind == "Feature":
+        return [("", data, "geometry")]
+    if kind in _ROUTE_TYPES or kind in _OTHER_GEOMETRIES:
+        return [("", {"type": "Feature", "geometry": data, "properties": {}}, "")]
+    raise InputFileError(f"unknown GeoJSON type {_short(kind)}", path=path, field="type")
+
+
+def _feature_parts(
+    path: Path, pre: str, feat: Any, gpre: str
+) -> tuple[dict[str, Any], dict[str, Any], object]:
+    """Return a feature's properties, geometry and geometry type, checked."""
+    if not isinstance(feat, dict) or feat.get("type") != "Feature":
+        raise RouteInputError("is not a GeoJSON Feature", path=path, field=pre or "feature")
+    props = feat.get("properties")
+    if props is None:
+        props = {}
+    if not isinstance(props, dict):
+        raise RouteInputError("properties must be an object", path=path,
+                              field=_join(pre, "properties"))
+    geom = feat.get("geometry")
+    if not isinstance(geom, dict):
+        raise RouteInputError("feature has no geometry", path=path, field=gpre or "geometry")
+    gtype = geom.get("type")
+    if gtype in _OTHER_GEOMETRIES and gtype != "Point":
+        raise RouteInputError(
+            f"geometry type {gtype} is not a route; use LineString or MultiLineString",
+            path=path,
+            field=gpre or "type",
+        )
+    if gtype not in _ROUTE_TYPES and gtype != "Point":
+        raise RouteInputError(f"unknown geometry type {_short(gtype)}", path=path,
+                              field=gpre or "type")
+    return props, geom, gtype
+
+
+@dataclass
+class _Line:
+    """Points of a (multi)line before its shared junction points are removed."""
+
+    xy: np.ndarray
+    sizes: list[int]  # points per part
+    keep: np.ndarray  # False for a part's first point when it repeats the previous part's last
+    owners: list[tuple[str, int]]  # (part field, index in part) of each point
+
+    def field_of(self, i: int) -> str:
+        f, j = self.owners[i]
+        return f"{f}[{j}]"
+
+
+def _line_points(path: Path, geom: dict[str, Any], cfield: str) -> _Line:
+    coords = geom.get("coordinates")
+    if geom.get("type") == "LineString":
+        fields = [cfield]
+        pieces = [_positions(coords, path, cfield)]
     else:
-        raise InputFileError(f"unknown GeoJSON type {_short(kind)}", path=path, field="type")
+        if not isinstance(coords, list) or not coords:
+            raise RouteInputError("MultiLineString needs a list of parts", path=path,
+                                  field=cfield)
+        fields = [f"{cfield}[{k}]" for k in range(len(coords))]
+        pieces = [_positions(c, path, f) for c, f in zip(coords, fields, strict=True)]
+    owners = [(f, j) for f, piece in zip(fields, pieces, strict=True) for j in range(len(piece))]
+    xy = np.concatenate(pieces)
+    keep = np.ones(len(xy), dtype=bool)
+    start = 0
+    for piece in pieces[:-1]:
+        start += len(piece)
+        if len(piece) and start < len(xy) and np.array_equal(xy[start - 1], xy[start]):
+            keep[start] = False
+    return _Line(xy, [len(p) for p in pieces], keep, owners)
 
-    def join(prefix: str, name: str) -> str:
-        return f"{prefix}.{name}" if prefix else name
 
+def _route_name(value: object, default: str, path: Path, field: str) -> str:
+    if value is None or (isinstance(value, str) and not value.strip()):
+        return default
+    if isinstance(value, str):
+        return value.strip()
+    if isinstance(value, int | float) and not isinstance(value, bool):
+        return str(value)
+    raise RouteInputError(f"name must be text, got {_short(value)}", path=path, field=field)
+
+
+def _feature_times(
+    value: object, line: _Line, tz: tzinfo | None, path: Path, field: str
+) -> list[datetime | None] | None:
+    if value is None:
+        return None
+    flat = _flat_times(value, line.sizes, path, field)
+    times = [
+        None if t is None
+        else _parse_time(t, tz=tz, naive_utc=False, path=path, field=f"{field}[{i}]")
+        for i, t in enumerate(flat)
+    ]
+    return [t for t, k in zip(times, line.keep, strict=True) if k]
+
+
+def _required_indices(value: object, n: int, path: Path, field: str) -> np.ndarray:
+    required = np.zeros(n, dtype=bool)
+    if value is None or value is False:
+        return required
+    if not isinstance(value, list):
+        raise RouteInputError("required must be a list of point indices", path=path,
+                              field=field)
+    for k, idx in enumerate(value):
+        if not isinstance(idx, int) or isinstance(idx, bool) or not 0 <= idx < n:
+            raise RouteInputError(f"not a point index 0..{n - 1}: {_short(idx)}", path=path,
+                                  field=f"{field}[{k}]")
+        required[idx] = True
+    return required
+
+
+def _read_geojson(path: Path, text: str, tz: tzinfo | None) -> list[_Parsed]:
+    data = _load_json(path, text)
+    top = _crs_transformer(data.get("crs"), path, "crs")
     routes: list[_Parsed] = []
     markers: list[tuple[str, object, np.ndarray]] = []  # (field, route name, lonlat)
-    for pre, feat, gpre in items:
-        fname = pre or "feature"
-        if not isinstance(feat, dict) or feat.get("type") != "Feature":
-            raise RouteInputError("is not a GeoJSON Feature", path=path, field=fname)
-        props = feat.get("properties")
-        if props is None:
-            props = {}
-        if not isinstance(props, dict):
-            raise RouteInputError("properties must be an object", path=path,
-                                  field=join(pre, "properties"))
-        geom = feat.get("geometry")
-        if not isinstance(geom, dict):
-            raise RouteInputError("feature has no geometry", path=path, field=gpre or "geometry")
-        transformer = _crs_transformer(feat.get("crs"), path, join(pre, "crs")) or top
-        gtype = geom.get("type")
-        cfield = join(gpre, "coordinates")
+    for pre, feat, gpre in _geojson_items(path, data):
+        props, geom, gtype = _feature_parts(path, pre, feat, gpre)
+        transformer = _crs_transformer(feat.get("crs"), path, _join(pre, "crs")) or top
+        cfield = _join(gpre, "coordinates")
         if gtype == "Point":
             if props.get("required") is True:
                 xy = _positions([geom.get("coordinates")], path, cfield)
-                ll = _to_wgs84(xy, transformer, path, lambda i: cfield)
-                _check_points(ll, path, lambda i: cfield)
+                ll = _to_wgs84(xy, transformer, path, lambda i, f=cfield: f)
+                _check_points(ll, path, lambda i, f=cfield: f)
                 markers.append((pre or "feature", props.get("route"), ll[0]))
             continue
-        if gtype in _OTHER_GEOMETRIES:
-            raise RouteInputError(
-                f"geometry type {gtype} is not a route; use LineString or MultiLineString",
-                path=path,
-                field=gpre or "type",
-            )
-        if gtype not in _ROUTE_TYPES:
-            raise RouteInputError(
-                f"unknown geometry type {_short(gtype)}", path=path, field=gpre or "type"
-            )
-        coords = geom.get("coordinates")
-        if gtype == "LineString":
-            pieces = [_positions(coords, path, cfield)]
-            fields = [cfield]
-        else:
-            if not isinstance(coords, list) or not coords:
-                raise RouteInputError("MultiLineString needs a list of parts", path=path,
-                                      field=cfield)
-            fields = [f"{cfield}[{k}]" for k in range(len(coords))]
-            pieces = [_positions(c, path, f) for c, f in zip(coords, fields, strict=True)]
-        # global point index -> field, before the shared junction points are removed
-        owners = [(f, j) for f, piece in zip(fields, pieces, strict=True) for j in range(len(piece))]
-        xy = np.concatenate(pieces) if pieces else np.empty((0, 2))
-        keep = np.ones(len(xy), dtype=bool)
-        start = 0
-        for piece in pieces[:-1]:
-            start += len(piece)
-            if len(piece) and start < len(xy) and np.array_equal(xy[start - 1], xy[start]):
-                keep[start] = False
-
-        def field_of(i: int, _o: list[tuple[str, int]] = owners) -> str:
-            f, j = _o[i]
-            return f"{f}[{j}]"
-
-        name_val = props.get("name")
-        if name_val is None or (isinstance(name_val, str) and not name_val.strip()):
-            name = f"route-{len(routes) + 1}"
-        elif isinstance(name_val, str):
-            name = name_val.strip()
-        elif isinstance(name_val, int | float) and not isinstance(name_val, bool):
-            name = str(name_val)
-        else:
-            raise RouteInputError(f"name must be text, got {_short(name_val)}", path=path,
-                                  field=join(pre, "properties.name"))
-        ll = _to_wgs84(xy, transformer, path, field_of)
-        _check_points(ll, path, field_of)
-        times_val = props.get("times", props.get("coordTimes"))
-        times: list[datetime | None] | None = None
-        if times_val is not None:
-            tfield = join(pre, "properties.times")
-            flat = _flat_times(times_val, [len(p) for p in pieces], path, tfield)
-            times = [
-                None if t is None
-                else _parse_time(t, tz=tz, naive_utc=False, path=path, field=f"{tfield}[{i}]")
-                for i, t in enumerate(flat)
-            ]
-            times = [t for t, k in zip(times, keep, strict=True) if k]
-        ll = ll[keep]
-        required = np.zeros(len(ll), dtype=bool)
-        req_val = props.get("required")
-        rfield = join(pre, "properties.required")
-        if req_val is not None and req_val is not False:
-            if not isinstance(req_val, list):
-                raise RouteInputError("required must be a list of point indices", path=path,
-                                      field=rfield)
-            for k, idx in enumerate(req_val):
-                if not isinstance(idx, int) or isinstance(idx, bool) or not 0 <= idx < len(ll):
-                    raise RouteInputError(
-                        f"not a point index 0..{len(ll) - 1}: {_short(idx)}",
-                        path=path,
-                        field=f"{rfield}[{k}]",
-                    )
-                required[idx] = True
-        depart = None
-        if props.get("depart") is not None:
-            depart = _parse_time(props["depart"], tz=tz, naive_utc=False, path=path,
-                                 field=join(pre, "properties.depart"))
-        route = _finish(name=name, lonlat=ll, times=times, required=required, depart=depart,
-                        path=path, field=fname if pre else "geometry")
-        routes.append((route, fname if pre else "geometry"))
+        line = _line_points(path, geom, cfield)
+        ll = _to_wgs84(line.xy, transformer, path, line.field_of)
+        _check_points(ll, path, line.field_of)
+        ll = ll[line.keep]
+        fname = pre or "geometry"
+        route = _finish(
+            name=_route_name(props.get("name"), f"route-{len(routes) + 1}", path,
+                             _join(pre, "properties.name")),
+            lonlat=ll,
+            times=_feature_times(props.get("times", props.get("coordTimes")), line, tz, path,
+                                 _join(pre, "properties.times")),
+            required=_required_indices(props.get("required"), len(ll), path,
+                                       _join(pre, "properties.required")),
+            depart=None if props.get("depart") is None else _parse_time(
+                props["depart"], tz=tz, naive_utc=False, path=path,
+                field=_join(pre, "properties.depart")),
+            path=path,
+            field=fname,
+        )
+        routes.append((route, fname))
     if not routes:
         raise RouteInputError(
             "holds no LineString or MultiLineString route", path=path,
-            field="features" if kind == "FeatureCollection" else "type",
+            field="features" if data.get("type") == "FeatureCollection" else "type",
         )
     if markers:
         routes = _apply_markers(path, routes, markers)
@@ -734,78 +772,77 @@ def _child(elem: ET.Element, name: str) -> ET.Element | None:
     return None
 
 
+def _gpx_points(elem: ET.Element, kind: str, field: str) -> list[tuple[ET.Element, str]]:
+    """Return the points of a trk (all segments, in order) or rte with their field names."""
+    pts: list[tuple[ET.Element, str]] = []
+    if kind == "rte":
+        pts = [(pt, f"{field}.rtept[{k}]")
+               for k, pt in enumerate(p for p in elem if _local(p.tag) == "rtept")]
+        return pts
+    segs = [s for s in elem if _local(s.tag) == "trkseg"]
+    for n, seg in enumerate(segs):
+        pts.extend((pt, f"{field}.trkseg[{n}].trkpt[{k}]")
+                   for k, pt in enumerate(p for p in seg if _local(p.tag) == "trkpt"))
+    return pts
+
+
+def _gpx_point(
+    pt: ET.Element, pfield: str, path: Path
+) -> tuple[float, float, datetime | None, bool]:
+    """Return lon, lat, time (UTC when no offset is given) and the required mark of a point."""
+    values = []
+    for attr in ("lon", "lat"):
+        text = pt.get(attr)
+        if text is None:
+            raise RouteInputError(f"point has no {attr} attribute", path=path, field=pfield)
+        try:
+            values.append(float(text))
+        except ValueError:
+            raise RouteInputError(f"{attr} is not a number: {_short(text)}", path=path,
+                                  field=f"{pfield}.{attr}") from None
+    t_el = _child(pt, "time")
+    when = None
+    if t_el is not None and (t_el.text or "").strip():
+        when = _parse_time(t_el.text, tz=UTC, naive_utc=True, path=path, field=f"{pfield}.time")
+    type_el = _child(pt, "type")
+    required = type_el is not None and (type_el.text or "").strip().lower() == "required"
+    return values[0], values[1], when, required
+
+
 def _read_gpx(path: Path, raw: bytes) -> list[_Parsed]:
     try:
         root = ET.fromstring(raw)  # noqa: S314 - expat refuses entity expansion bombs
     except ET.ParseError as exc:
         line, col = exc.position
-        raise InputFileError(f"is not valid XML ({exc.msg if hasattr(exc, 'msg') else exc})",
-                             path=path, field=f"line {line} column {col + 1}") from None
+        raise InputFileError(f"is not valid XML ({exc})", path=path,
+                             field=f"line {line} column {col + 1}") from None
     if _local(root.tag) != "gpx":
         raise InputFileError(f"is not a GPX file (root element <{_local(root.tag)}>)",
                              path=path, field="gpx")
     routes: list[_Parsed] = []
     counts = {"trk": 0, "rte": 0}
-    total = 0
     for elem in root:
         kind = _local(elem.tag)
         if kind not in counts:
             continue
         field = f"{kind}[{counts[kind]}]"
         counts[kind] += 1
-        pts: list[tuple[ET.Element, str]] = []
-        if kind == "trk":
-            nseg = 0
-            for seg in elem:
-                if _local(seg.tag) != "trkseg":
-                    continue
-                k = 0
-                for pt in seg:
-                    if _local(pt.tag) == "trkpt":
-                        pts.append((pt, f"{field}.trkseg[{nseg}].trkpt[{k}]"))
-                        k += 1
-                nseg += 1
-        else:
-            k = 0
-            for pt in elem:
-                if _local(pt.tag) == "rtept":
-                    pts.append((pt, f"{field}.rtept[{k}]"))
-                    k += 1
-        total += len(pts)
+        pts = _gpx_points(elem, kind, field)
         name_el = _child(elem, "name")
         name = (name_el.text or "").strip() if name_el is not None else ""
         name = name or f"route-{len(routes) + 1}"
-        lonlat = np.empty((len(pts), 2))
-        times: list[datetime | None] = []
-        required = np.zeros(len(pts), dtype=bool)
-        for i, (pt, pfield) in enumerate(pts):
-            for j, attr in enumerate(("lon", "lat")):
-                text = pt.get(attr)
-                if text is None:
-                    raise RouteInputError(f"point has no {attr} attribute", path=path,
-                                          field=pfield)
-                try:
-                    lonlat[i, j] = float(text)
-                except ValueError:
-                    raise RouteInputError(f"{attr} is not a number: {_short(text)}", path=path,
-                                          field=f"{pfield}.{attr}") from None
-            t_el = _child(pt, "time")
-            if t_el is not None and (t_el.text or "").strip():
-                times.append(_parse_time(t_el.text, tz=UTC, naive_utc=True, path=path,
-                                         field=f"{pfield}.time"))
-            else:
-                times.append(None)
-            type_el = _child(pt, "type")
-            if type_el is not None and (type_el.text or "").strip().lower() == "required":
-                required[i] = True
-        _check_points(lonlat, path, lambda i, _p=pts: _p[i][1])
         if not pts:
             raise RouteInputError(f"{kind} {name!r} has no points", path=path, field=field)
+        parsed = [_gpx_point(pt, pfield, path) for pt, pfield in pts]
+        lonlat = np.array([(p[0], p[1]) for p in parsed])
+        _check_points(lonlat, path, lambda i, _p=pts: _p[i][1])
+        times = [p[2] for p in parsed]
         route = _finish(name=name, lonlat=lonlat,
                         times=times if any(t is not None for t in times) else None,
-                        required=required, depart=None, path=path, field=field)
+                        required=np.array([p[3] for p in parsed], dtype=bool), depart=None,
+                        path=path, field=field)
         routes.append((route, field))
-    if total == 0:
+    if not routes:
         has_wpt = any(_local(e.tag) == "wpt" for e in root)
         msg = ("holds only waypoints (wpt); a route needs a trk or rte" if has_wpt
                else "holds no track or route points")
@@ -840,14 +877,8 @@ def _gpx_text(routes: Sequence[PlannedRoute]) -> str:
 # CSV
 
 
-def _read_csv(path: Path, text: str, tz: tzinfo | None) -> list[_Parsed]:
-    reader = csv.reader(io.StringIO(text, newline=""))
-    try:
-        header = next(reader)
-    except StopIteration:
-        raise InputFileError("file is empty", path=path) from None
-    except csv.Error as exc:
-        raise InputFileError(f"is not valid CSV ({exc})", path=path, field="row 1") from None
+def _csv_columns(path: Path, header: list[str]) -> dict[str, int]:
+    """Return the position of each known column of the header (route, lat, lon required)."""
     names = [h.strip().lower() for h in header]
     cols: dict[str, int] = {}
     for key, aliases in _CSV_ALIASES.items():
@@ -859,66 +890,88 @@ def _read_csv(path: Path, text: str, tz: tzinfo | None) -> list[_Parsed]:
             cols[key] = found[0]
     for key in ("route", "lat", "lon"):
         if key not in cols:
-            hint = " (the file must be comma separated)" if len(names) == 1 and ";" in names[0] \
-                else ""
+            semicolons = len(names) == 1 and ";" in names[0]
+            hint = " (the file must be comma separated)" if semicolons else ""
             raise RouteInputError(
                 f"missing column {key!r}; the header needs route, lat, lon{hint}",
                 path=path, field="row 1",
             )
-    groups: dict[str, dict[str, Any]] = {}
-    width = len(header)
+    return cols
+
+
+def _csv_coordinate(cell: str, key: str, path: Path, field: str) -> float:
+    limit = 180.0 if key == "lon" else 90.0
     try:
+        value = float(cell)
+    except ValueError:
+        raise RouteInputError(f"not a number: {_short(cell)}", path=path, field=field) from None
+    if not math.isfinite(value) or abs(value) > limit:
+        raise RouteInputError(
+            f"{key} must be a finite number within +-{limit:g}, got {_short(cell)}",
+            path=path, field=field,
+        )
+    return value
+
+
+def _csv_flag(cell: str, path: Path, field: str) -> bool:
+    text = cell.strip().lower()
+    if text in _TRUE:
+        return True
+    if text in _FALSE:
+        return False
+    raise RouteInputError(f"required must be true or false, got {_short(cell)}", path=path,
+                          field=field)
+
+
+def _csv_row(
+    row: list[str], cols: dict[str, int], line: int, tz: tzinfo | None, path: Path
+) -> tuple[str, list[float], datetime | None, bool, datetime | None]:
+    """Return route name, [lon, lat], time, required and depart of one data row."""
+    if len(row) <= max(cols.values()):
+        raise RouteInputError(f"has {len(row)} values, too few for the header", path=path,
+                              field=f"row {line}")
+    name = row[cols["route"]].strip()
+    if not name:
+        raise RouteInputError("route name is empty", path=path, field=f"row {line}: route")
+    ll = [_csv_coordinate(row[cols[k]].strip(), k, path, f"row {line}: {k}")
+          for k in ("lon", "lat")]
+
+    def when(key: str) -> datetime | None:
+        if key not in cols or not row[cols[key]].strip():
+            return None
+        return _parse_time(row[cols[key]], tz=tz, naive_utc=False, path=path,
+                           field=f"row {line}: {key}")
+
+    required = "required" in cols and _csv_flag(row[cols["required"]], path,
+                                                f"row {line}: required")
+    return name, ll, when("time"), required, when("depart")
+
+
+def _read_csv(path: Path, text: str, tz: tzinfo | None) -> list[_Parsed]:
+    reader = csv.reader(io.StringIO(text, newline=""))
+    groups: dict[str, dict[str, Any]] = {}
+    try:
+        header = next(reader)
+        cols = _csv_columns(path, header)
         for row in reader:
-            line = reader.line_num
             if not any(c.strip() for c in row):
                 continue
-            if len(row) < width:
-                raise RouteInputError(f"has {len(row)} values, the header has {width}",
-                                      path=path, field=f"row {line}")
-            name = row[cols["route"]].strip()
-            if not name:
-                raise RouteInputError("route name is empty", path=path,
-                                      field=f"row {line}: route")
+            line = reader.line_num
+            name, ll, when, req, dep = _csv_row(row, cols, line, tz, path)
             g = groups.setdefault(name, {"ll": [], "t": [], "req": [], "depart": None,
                                          "line": line})
-            ll = []
-            for key, limit in (("lon", 180.0), ("lat", 90.0)):
-                cell = row[cols[key]].strip()
-                try:
-                    value = float(cell)
-                except ValueError:
-                    raise RouteInputError(f"not a number: {_short(cell)}", path=path,
-                                          field=f"row {line}: {key}") from None
-                if not math.isfinite(value) or abs(value) > limit:
-                    raise RouteInputError(
-                        f"{key} must be a finite number within +-{limit:g}, got {_short(cell)}",
-                        path=path, field=f"row {line}: {key}",
-                    )
-                ll.append(value)
             g["ll"].append(ll)
-            if "time" in cols and row[cols["time"]].strip():
-                g["t"].append(_parse_time(row[cols["time"]], tz=tz, naive_utc=False, path=path,
-                                          field=f"row {line}: time"))
-            else:
-                g["t"].append(None)
-            req = False
-            if "required" in cols:
-                cell = row[cols["required"]].strip().lower()
-                if cell in _TRUE:
-                    req = True
-                elif cell not in _FALSE:
-                    raise RouteInputError(f"required must be true or false, got {_short(cell)}",
-                                          path=path, field=f"row {line}: required")
+            g["t"].append(when)
             g["req"].append(req)
-            if "depart" in cols and row[cols["depart"]].strip():
-                dep = _parse_time(row[cols["depart"]], tz=tz, naive_utc=False, path=path,
-                                  field=f"row {line}: depart")
+            if dep is not None:
                 if g["depart"] is not None and dep != g["depart"]:
                     raise RouteInputError(
                         f"depart differs from an earlier row of route {name!r}",
                         path=path, field=f"row {line}: depart",
                     )
                 g["depart"] = dep
+    except StopIteration:
+        raise InputFileError("file is empty", path=path) from None
     except csv.Error as exc:
         raise InputFileError(f"is not valid CSV ({exc})", path=path,
                              field=f"row {reader.line_num}") from None

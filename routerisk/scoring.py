@@ -20,7 +20,7 @@ def minute_of_week(ts: pd.Timestamp | pd.DatetimeIndex | pd.Series) -> np.ndarra
     """Return minutes since Monday 00:00 of local timestamps (int array)."""
     t = pd.DatetimeIndex(np.atleast_1d(ts)) if not isinstance(ts, pd.Series) else (
         pd.DatetimeIndex(ts))
-    return ((t.dayofweek * 1440 + t.hour * 60 + t.minute).to_numpy() % MINUTES_PER_WEEK).astype(
+    return ((t.day_of_week * 1440 + t.hour * 60 + t.minute).to_numpy() % MINUTES_PER_WEEK).astype(
         np.int64)
 
 

@@ -3,7 +3,7 @@
 Deterministic (fixed seed): ``python sample_area/make_drives.py`` writes ``drives/*.gpx`` and
 ``events.csv`` beside this file. The drives walk fastest paths between fixed street corners of
 Corvane at 2 s sampling with Gaussian GPS noise (sigma 4 m); the events are a Poisson process
-along the driven kilometres at a base rate, three times higher on one planted hot spot
+along the driven kilometres at a base rate scaled by each street's modelled exposure, three times higher on one planted hot spot
 (a block of Tillerman Avenue), so the early-warning demo has something true to find.
 All of it is invented demo data (CC0).
 """
@@ -29,7 +29,7 @@ SEED = 20270309
 N_DRIVES = 40
 SIGMA_M = 4.0
 SAMPLE_S = 2.0
-BASE_RATE_PER_KM = 0.6
+BASE_RATE_PER_KM = 1.5
 HOT_FACTOR = 3.0
 HOT_STREET = "Tillerman Avenue"
 TZ = dt.timezone(dt.timedelta(hours=-3))
@@ -44,6 +44,7 @@ def main(out: Path = HERE) -> None:
     edges = net.edges
     hot = edges.index[edges["name"] == HOT_STREET]
     hot_edges = set(hot[: max(1, len(hot) // 4)])  # one stretch of the avenue
+    mean_exposure = float((edges["exposure_km"] * edges["length"]).sum() / edges["length"].sum())
     drives_dir = out / "drives"
     drives_dir.mkdir(exist_ok=True)
     events = []
@@ -75,7 +76,9 @@ def main(out: Path = HERE) -> None:
                 pts.append((p.x + rng.normal(0, SIGMA_M), p.y + rng.normal(0, SIGMA_M)))
                 times.append(t + dt.timedelta(seconds=j * e["travel_time"] / n))
             # events on this edge: Poisson in its km, planted factor on the hot stretch
-            rate = BASE_RATE_PER_KM * (HOT_FACTOR if (u, v, k) in hot_edges else 1.0)
+            # events follow the modelled pedestrian exposure (relative to the town's mean)
+            rel = edges.at[(u, v, k), "exposure_km"] / mean_exposure
+            rate = BASE_RATE_PER_KM * rel * (HOT_FACTOR if (u, v, k) in hot_edges else 1.0)
             for _ in range(rng.poisson(rate * e["length"] / 1000.0)):
                 f = rng.uniform(0.05, 0.95)
                 p = e["geometry"].interpolate(f, normalized=True)

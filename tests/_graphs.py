@@ -51,6 +51,26 @@ def _bulged(a: tuple[float, float], b: tuple[float, float], bulge: float, n: int
     return LineString(np.column_stack([ax + s * dx + off * nx_, ay + s * dy + off * ny_]))
 
 
+def _road_class(k: int, n: int) -> tuple[str, float, int | None]:
+    """Return highway, speed (km/h) and lanes of row or column k of an n x n grid."""
+    if k == n // 2:
+        return "secondary", 50.0, 2
+    if k % 4 == 3:
+        return "tertiary", 40.0, 1
+    return "residential", 30.0, None
+
+
+def _add_link(graph: nx.MultiDiGraph, a: int, b: int, geom: LineString, oneway: bool,
+              attrs: dict[str, Any]) -> None:
+    """Add edge a -> b (and b -> a with the reversed geometry unless one-way)."""
+    directions = [(a, b, geom)] if oneway else [(a, b, geom), (b, a, geom.reverse())]
+    for u, v, g in directions:
+        length = float(g.length)
+        graph.add_edge(u, v, geometry=g, length=length,
+                       travel_time=length / (attrs["speed_kph"] / 3.6), oneway=oneway,
+                       reversed=False, **attrs)
+
+
 def grid_graph(
     n: int = 8,
     *,
@@ -69,93 +89,67 @@ def grid_graph(
     """
     rng = np.random.default_rng(seed)
     x0, y0 = _TO_XY.transform(*CENTRE_LONLAT)
-    G = nx.MultiDiGraph(crs=CRS, name=f"grid {n}x{n}")
+    graph = nx.MultiDiGraph(crs=CRS, name=f"grid {n}x{n}")
     half = (n - 1) / 2.0
 
     def nid(r: int, c: int) -> int:
         return 10_000 + r * n + c
 
-    xy = {}
-    for r in range(n):
-        for c in range(n):
-            x, y = x0 + (c - half) * block_m, y0 + (r - half) * block_m
-            xy[nid(r, c)] = (x, y)
+    xy = {nid(r, c): (x0 + (c - half) * block_m, y0 + (r - half) * block_m)
+          for r in range(n) for c in range(n)}
     lon, lat = _TO_LONLAT.transform([p[0] for p in xy.values()], [p[1] for p in xy.values()])
     for (node, (x, y)), lo, la in zip(xy.items(), lon, lat, strict=True):
-        G.add_node(node, x=x, y=y, lon=float(lo), lat=float(la), street_count=0)
-
+        graph.add_node(node, x=x, y=y, lon=float(lo), lat=float(la), street_count=0)
+    links = [("row", r, nid(r, c), nid(r, c + 1)) for r in range(n) for c in range(n - 1)]
+    links += [("col", c, nid(r, c), nid(r + 1, c)) for c in range(n) for r in range(n - 1)]
     osmid = 500_000
-    links = []
-    for r in range(n):
-        for c in range(n - 1):
-            links.append(("row", r, nid(r, c), nid(r, c + 1)))
-    for c in range(n):
-        for r in range(n - 1):
-            links.append(("col", c, nid(r, c), nid(r + 1, c)))
     for axis, k, a, b in links:
         osmid += 1
-        mid = n // 2
-        if k == mid:
-            highway, speed, lanes = "secondary", 50.0, 2
-        elif k % 4 == 3:
-            highway, speed, lanes = "tertiary", 40.0, 1
-        else:
-            highway, speed, lanes = "residential", 30.0, None
+        highway, speed, lanes = _road_class(k, n)
         oneway = (axis == "row" and k % 4 == 2) or (axis == "col" and k % 4 == 1)
         if oneway and (k // 4) % 2 == 1:
             a, b = b, a
         name = f"Row {k + 1} Street" if axis == "row" else f"Column {k + 1} Avenue"
         curved = rng.random() < curved_share
         geom = _bulged(xy[a], xy[b], 14.0) if curved else LineString([xy[a], xy[b]])
-        variants: list[tuple[LineString, dict[str, Any]]] = [
-            (geom, {"highway": highway, "speed_kph": speed, "lanes": lanes, "name": name,
-                    "osmid": osmid})
-        ]
+        _add_link(graph, a, b, geom, oneway, {"highway": highway, "speed_kph": speed,
+                                              "lanes": lanes, "name": name, "osmid": osmid})
         if rng.random() < parallel_share:
             osmid += 1
-            variants.append(
-                (_bulged(xy[a], xy[b], -35.0), {"highway": "service", "speed_kph": 20.0,
-                                               "lanes": None, "name": "", "osmid": osmid})
-            )
-        for g, attrs in variants:
-            directions = [(a, b, g)] if oneway else [(a, b, g), (b, a, g.reverse())]
-            for u, v, gg in directions:
-                length = float(gg.length)
-                G.add_edge(
-                    u, v, geometry=gg, length=length,
-                    travel_time=length / (attrs["speed_kph"] / 3.6), oneway=oneway,
-                    reversed=False, **attrs,
-                )
-    for node in G.nodes:
-        G.nodes[node]["street_count"] = len(set(G.predecessors(node)) | set(G.successors(node)))
-    return G
+            _add_link(graph, a, b, _bulged(xy[a], xy[b], -35.0), oneway,
+                      {"highway": "service", "speed_kph": 20.0, "lanes": None, "name": "",
+                       "osmid": osmid})
+    for node in graph.nodes:
+        neighbours = set(graph.predecessors(node)) | set(graph.successors(node))
+        graph.nodes[node]["street_count"] = len(neighbours)
+    return graph
 
 
-def path_length(G: nx.MultiDiGraph, edges: Sequence[Edge]) -> float:
+def path_length(graph: nx.MultiDiGraph, edges: Sequence[Edge]) -> float:
     """Return the summed ``length`` of edges."""
-    return float(sum(G.edges[e]["length"] for e in edges))
+    return float(sum(graph.edges[e]["length"] for e in edges))
 
 
-def random_drive(G: nx.MultiDiGraph, length_m: float, rng: np.random.Generator) -> list[Edge]:
+def random_drive(graph: nx.MultiDiGraph, length_m: float, rng: np.random.Generator) -> list[Edge]:
     """Return a random drive of about ``length_m`` along out-edges, never turning back."""
-    nodes = list(G.nodes)
+    nodes = list(graph.nodes)
     u = nodes[int(rng.integers(len(nodes)))]
     prev = None
     edges: list[Edge] = []
     total = 0.0
     while total < length_m:
-        options = [(a, b, k) for a, b, k in G.out_edges(u, keys=True) if b != prev]
+        options = [(a, b, k) for a, b, k in graph.out_edges(u, keys=True) if b != prev]
         if not options:
-            options = list(G.out_edges(u, keys=True))
+            options = list(graph.out_edges(u, keys=True))
         e = options[int(rng.integers(len(options)))]
         edges.append(e)
-        total += G.edges[e]["length"]
+        total += graph.edges[e]["length"]
         prev, u = e[0], e[1]
     return edges
 
 
 def sample_trace(
-    G: nx.MultiDiGraph,
+    graph: nx.MultiDiGraph,
     edges: Sequence[Edge],
     *,
     spacing_m: float,
@@ -165,7 +159,7 @@ def sample_trace(
     """Return lon, lat fixes every ``spacing_m`` along the drive with Gaussian noise (m)."""
     coords: list[tuple[float, float]] = []
     for e in edges:
-        part = list(G.edges[e]["geometry"].coords)
+        part = list(graph.edges[e]["geometry"].coords)
         coords.extend(part if not coords else part[1:])
     line = LineString(coords)
     s = np.append(np.arange(0.0, line.length, spacing_m), line.length)

@@ -14,6 +14,8 @@ def add_network(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--network", required=True, type=Path, metavar="DIR",
                         help="network folder written by 'routerisk build'")
     add_profile(parser, "profile to score with (default: the one the network was built with)")
+    parser.add_argument("--overlay", type=Path, metavar="FILE",
+                        help="overlay from 'routerisk watch' (extra weight or closures)")
 
 
 def add_profile(parser: argparse.ArgumentParser, text: str) -> None:
@@ -27,5 +29,10 @@ def profile_of(args: argparse.Namespace) -> Profile | None:
 
 
 def network_of(args: argparse.Namespace) -> Network:
-    """Load ``--network`` (re-tagged with ``--profile`` when given)."""
-    return load_network(args.network, profile=profile_of(args))
+    """Load ``--network`` (re-tagged with ``--profile``, with ``--overlay`` applied)."""
+    net = load_network(args.network, profile=profile_of(args))
+    if getattr(args, "overlay", None):
+        from ..overlay import apply_overlay
+
+        net = apply_overlay(net, args.overlay)
+    return net
