@@ -38,6 +38,10 @@ DRIVE_EXCLUDE = {
     "motorcar": "no",
     "service": "alley|driveway|emergency_access|parking|parking_aisle|private",
 }
+# osmium's fixed-point coordinates: degrees * 1e7 in int32; valid within +-180 / +-90 degrees.
+_PRECISION = 10_000_000
+_LON_MAX = 180 * _PRECISION
+_LAT_MAX = 90 * _PRECISION
 WAY_KEYS = ("highway", "name", "lanes", "maxspeed", "oneway", "junction", "sidewalk", "ref",
             "hazard", "maxspeed:conditional", "access")
 
@@ -189,14 +193,15 @@ def read_osm(
             members = member_ways.get(obj.id)
             if not (drivable or wanted or members):
                 continue
-            refs = np.fromiter((n.ref for n in obj.nodes), dtype=np.int64)
-            ok = np.fromiter((n.location.valid() for n in obj.nodes), dtype=bool,
-                             count=len(refs))
-            coords = np.array(
-                [(n.location.lon, n.location.lat) if v else (np.nan, np.nan)
-                 for n, v in zip(obj.nodes, ok, strict=True)],
-                dtype=float,
-            ).reshape(-1, 2)
+            # one pass over the node list: id and fixed-point coordinates (osmium keeps
+            # 1e-7 degree integers; lon = x / 1e7 is exactly what Location.lon returns)
+            arr = np.array([(n.ref, n.x, n.y) for n in obj.nodes], dtype=np.int64
+                           ).reshape(-1, 3)
+            refs = arr[:, 0].copy()
+            xi, yi = arr[:, 1], arr[:, 2]
+            ok = (xi >= -_LON_MAX) & (xi <= _LON_MAX) & (yi >= -_LAT_MAX) & (yi <= _LAT_MAX)
+            coords = np.column_stack([xi / _PRECISION, yi / _PRECISION])
+            coords[~ok] = np.nan
             nbad = int((~ok).sum())
             missing += nbad
             if drivable:

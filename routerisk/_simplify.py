@@ -277,7 +277,9 @@ def simplify(re: RawEdges, *, simplify: bool = True) -> SimpleGraph:
     e_int = np.flatnonzero(inter[src])
     x = src[e_int]
     p = nb_sum[x] - dst[e_int]
-    look = np.searchsorted(sp, p * n + x)
+    look = np.minimum(np.searchsorted(sp, p * n + x), m - 1)
+    if (sp[look] != p * n + x).any():  # pragma: no cover - regular nodes always have it
+        raise NeedsReference("chain without a previous edge")
     prev[e_int] = order[look]
     root, rank, resolved = _rank_chains(prev)
     # path edges: resolved edges whose chain starts endpoint -> interstitial
@@ -354,8 +356,8 @@ def simplify(re: RawEdges, *, simplify: bool = True) -> SimpleGraph:
     counts = np.concatenate([np.full(len(ke), 2, dtype=np.int64), path_len + 1])
     flat = np.concatenate([np.column_stack([src[ke], dst[ke]]).ravel(), path_nodes_l])
     srt = np.lexsort((k, sl, u))
-    g = _take_edges(u, v, k, length, tmpl, flat, counts, srt)
-    g = SimpleGraph(n, *g, templates=templates, simplified=True)
+    u, v, k, length, tmpl, flat, off = _take_edges(u, v, k, length, tmpl, flat, counts, srt)
+    g = SimpleGraph(n, u, v, k, length, tmpl, templates, flat, off, True)
     return _remove_rings(g)
 
 
@@ -412,11 +414,11 @@ def largest_strong_part(g: SimpleGraph, nodes_in_graph: np.ndarray) -> SimpleGra
     return _subset(g, np.flatnonzero(ok))
 
 
-def isolated_nodes(re: RawEdges) -> bool:
-    """Return True when some node of the raw graph has no edge."""
+def isolated_nodes(re: RawEdges) -> np.ndarray:
+    """Return a flag per node of the raw graph: True when it has no edge."""
     has = np.zeros(len(re.node_ids), dtype=bool)
     has[re.src] = has[re.dst] = True
-    return not has.all()
+    return ~has
 
 
 # ----------------------------------------------------------------------- normalise, speeds
@@ -468,25 +470,30 @@ class Frames:
 
 
 def _column(values: list[Any], tmpl: np.ndarray) -> Any:
-    """Return the column of per-edge values taken from per-template ``values``."""
-    present = [v for v in values if v is not _MISSING]
-    kinds = {type(v) for v in present}
-    missing = len(present) < len(values) and bool(
-        np.isin(np.flatnonzero([v is _MISSING for v in values]), tmpl).any())
+    """Return the column of per-edge values taken from per-template ``values``.
+
+    The dtype is the one pandas infers for a list of dicts holding these values (missing
+    keys read as NaN), found on one row per distinct value kind.
+    """
+    used = np.unique(tmpl)
+    reps = [values[t] for t in used.tolist()]
+    missing = any(r is _MISSING for r in reps)
+    sample: list[dict[str, Any]] = []
+    kinds: set[type] = set()
+    for r in reps:
+        if r is not _MISSING and type(r) not in kinds:
+            kinds.add(type(r))
+            sample.append({"c": r})
+    if missing:
+        sample.append({})
+    dtype = pd.DataFrame(sample)["c"].dtype
     obj = np.empty(len(values), dtype=object)
-    obj[:] = [np.nan if v is _MISSING else v for v in values]
-    if kinds <= {float} or (kinds <= {int, float} and (missing or float in kinds)):
-        return np.asarray([np.nan if v is _MISSING else float(v) for v in values],
-                          dtype=float)[tmpl]
-    if kinds <= {int} and not missing:
-        return np.asarray(present, dtype=np.int64)[tmpl] if len(present) == len(values) else (
-            np.asarray([0 if v is _MISSING else v for v in values], dtype=np.int64)[tmpl])
-    if kinds <= {bool} and not missing:
-        return np.asarray([bool(v) if v is not _MISSING else False for v in values])[tmpl]
-    # let pandas infer as it does for a list of dicts (strings -> its string dtype)
-    sample = [{"c": obj[i]} for i in range(len(values))]
-    dtype = pd.DataFrame(sample + ([{"c": np.nan}] if missing else []))["c"].dtype
-    return pd.array(obj[tmpl], dtype=dtype)
+    for i, val in enumerate(values):
+        obj[i] = np.nan if val is _MISSING else val
+    col = obj[tmpl]
+    if isinstance(dtype, np.dtype) and dtype.kind in "fiub":
+        return col.astype(dtype)
+    return pd.array(col, dtype=dtype)
 
 
 def build_frames(raw: RawOSM, *, largest_component: bool = True,
@@ -501,17 +508,14 @@ def build_frames(raw: RawOSM, *, largest_component: bool = True,
     from . import loader
 
     re = raw_edges(raw)
-    if isolated_nodes(re) and (not largest_component):
+    iso = isolated_nodes(re)
+    if iso.any() and not largest_component:
         raise NeedsReference("nodes without edges")
     g = simplify(re, simplify=simplify_graph)
     if largest_component:
-        present = np.zeros(g.n_nodes, dtype=bool)
+        present = iso.copy()
         present[g.u] = present[g.v] = True
-        if simplify_graph:
-            nodes_in = np.flatnonzero(present)
-        else:
-            nodes_in = np.arange(g.n_nodes)
-        g = largest_strong_part(g, nodes_in)
+        g = largest_strong_part(g, np.flatnonzero(present))
     if len(g.u) == 0:
         return Frames(gpd.GeoDataFrame(), gpd.GeoDataFrame(), {}, [])
     # nodes of the graph in its order (before projection): all nodes with edges
@@ -624,37 +628,33 @@ def graph_from_frames(fr: Frames) -> nx.MultiDiGraph:
     """Return the MultiDiGraph the loader's osmnx pipeline built, from its frames."""
     G = nx.MultiDiGraph(**fr.graph_attrs)
     e = fr.edges
+    nd = fr.nodes
+    G.add_nodes_from(nd.index.tolist())
     cols = [c for c in fr.graph_columns if c in e.columns]
-    arrays = []
+    lists, masks = [], []
     for c in cols:
-        col = e[c]
         if c == "geometry":
-            arrays.append(np.asarray(col.array, dtype=object))
+            a = np.asarray(e.geometry.array, dtype=object)
         else:
-            arrays.append(col.to_numpy(dtype=object))
-    notnull = [~pd.isna(a) if a.dtype == object else np.ones(len(a), bool) for a in arrays]
-    for a, nn, c in zip(arrays, notnull, cols, strict=True):
-        lists = np.fromiter((isinstance(x, list) for x in a), dtype=bool, count=len(a))
-        nn |= lists
+            a = e[c].to_numpy(dtype=object)
+        nn = ~pd.isna(a)
+        lists.append(a.tolist())
+        masks.append(None if nn.all() else nn.tolist())
     u = e.index.get_level_values(0).tolist()
     v = e.index.get_level_values(1).tolist()
     k = e.index.get_level_values(2).tolist()
-    lists = [a.tolist() for a in arrays]
-    full = all(nn.all() for nn in notnull)
-    if full:
-        rows = (dict(zip(cols, vals, strict=True)) for vals in zip(*lists, strict=True))
+    full = [c for c, mk in zip(cols, masks, strict=True) if mk is None]
+    if len(full) == len(cols):
+        rows: Any = (dict(zip(cols, vals, strict=True)) for vals in zip(*lists, strict=True))
     else:
-        masks = [nn.tolist() for nn in notnull]
-
-        def gen():
+        def gen() -> Any:
+            spec = list(zip(cols, lists, masks, strict=True))
             for i in range(len(u)):
-                yield {c: lst[i] for c, lst, mk in zip(cols, lists, masks, strict=True)
-                       if mk[i]}
+                yield {c: lst[i] for c, lst, mk in spec if mk is None or mk[i]}
 
         rows = gen()
     G.add_edges_from(zip(u, v, k, rows, strict=False))
-    nd = fr.nodes
+    ids = nd.index.tolist()
     for c in ("x", "y", "lon", "lat"):
-        nx.set_node_attributes(G, dict(zip(nd.index.tolist(), nd[c].tolist(), strict=True)),
-                               name=c)
+        nx.set_node_attributes(G, dict(zip(ids, nd[c].tolist(), strict=True)), name=c)
     return G

@@ -435,8 +435,7 @@ def suggest_routes(net: Any, routes: list[Any], departs: list[dt.datetime] | Non
     idx = index or matching.RoadIndex(net.graph)
     sug = Suggester(Scorer(net))
     out = []
-    for r in routes:
-        m = matching.to_edges(idx, r)
+    for r, m in zip(routes, matching.to_edges_many(idx, routes), strict=True):
         times = departs or ([r.depart] if r.depart is not None else [])
         if not times:
             raise RouteInputError("no departure time: give --depart or a 'depart' property",

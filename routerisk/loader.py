@@ -2,8 +2,13 @@
 
 The graph follows osmnx conventions (``networkx.MultiDiGraph``; nodes with ``x``/``y``;
 edges with ``osmid``, ``highway``, ``name``, ``oneway``, ``length`` ...). Topology
-simplification, the largest strongly connected part, speeds and travel times come from
-osmnx itself; projection is to the local UTM zone chosen by pyproj.
+simplification, the largest strongly connected part, speeds and travel times follow osmnx
+exactly; projection is to the local UTM zone chosen by pyproj.
+
+The work is done on arrays by :mod:`routerisk._simplify` (the osmnx steps are pure Python
+and dominated the build); :func:`graph_from_raw_reference` keeps the osmnx pipeline itself,
+used for the rare inputs the array version hands back and by the tests that check both give
+the same graph.
 """
 
 from __future__ import annotations
@@ -21,7 +26,7 @@ from pyproj.aoi import AreaOfInterest
 from pyproj.database import query_utm_crs_info
 from shapely import LineString
 
-from . import speeds
+from . import _simplify, speeds
 from ._osm import RawOSM, read_osm
 from .errors import EmptyNetworkError, OfflineError
 
@@ -153,10 +158,10 @@ def _add_speeds(G: nx.MultiDiGraph) -> None:
     ox.routing.add_edge_travel_times(G)
 
 
-def graph_from_raw(
+def graph_from_raw_reference(
     raw: RawOSM, *, largest_component: bool = True, simplify: bool = True
 ) -> nx.MultiDiGraph:
-    """Build the projected drivable graph from an already-read OSM file."""
+    """Build the projected drivable graph with osmnx's own (pure-Python) steps."""
     if not raw.ways:
         raise EmptyNetworkError("holds no drivable roads (after the drive filter)",
                                 path=raw.path)
@@ -179,6 +184,54 @@ def graph_from_raw(
         d.pop("reversed", None)
     G.graph["crs"] = crs.to_string()
     G.graph["source"] = Path(raw.path).name
+    return G
+
+
+def _fast_frames(raw: RawOSM, largest_component: bool, simplify: bool
+                 ) -> _simplify.Frames | None:
+    """Return the array-built frames, or None when osmnx's own steps must be used."""
+    if not raw.ways:
+        raise EmptyNetworkError("holds no drivable roads (after the drive filter)",
+                                path=raw.path)
+    try:
+        fr = _simplify.build_frames(raw, largest_component=largest_component,
+                                    simplify_graph=simplify)
+    except _simplify.NeedsReference as why:
+        log.info("%s: %s; using osmnx's own simplification", raw.path, why)
+        return None
+    if len(fr.edges) == 0:
+        raise EmptyNetworkError("holds no connected drivable roads", path=raw.path)
+    return fr
+
+
+def frames_from_raw(
+    raw: RawOSM, *, largest_component: bool = True, simplify: bool = True
+) -> _simplify.Frames:
+    """Return the nodes and edges GeoDataFrames of the projected drivable graph.
+
+    They equal ``osmnx.convert.graph_to_gdfs(graph_from_raw(raw))``, built without the
+    graph.
+    """
+    fr = _fast_frames(raw, largest_component, simplify)
+    if fr is None:
+        G = graph_from_raw_reference(raw, largest_component=largest_component,
+                                     simplify=simplify)
+        nodes, edges = ox.convert.graph_to_gdfs(G)
+        cols = list(dict.fromkeys(k for _, _, d in G.edges(data=True) for k in d))
+        fr = _simplify.Frames(nodes, edges, dict(G.graph), cols)
+    return fr
+
+
+def graph_from_raw(
+    raw: RawOSM, *, largest_component: bool = True, simplify: bool = True
+) -> nx.MultiDiGraph:
+    """Build the projected drivable graph from an already-read OSM file."""
+    fr = _fast_frames(raw, largest_component, simplify)
+    if fr is None:
+        G = graph_from_raw_reference(raw, largest_component=largest_component,
+                                     simplify=simplify)
+    else:
+        G = _simplify.graph_from_frames(fr)
     log.info("graph_from_raw returned graph with %d nodes and %d edges",
              G.number_of_nodes(), G.number_of_edges())
     return G

@@ -8,7 +8,7 @@ transformer) and pass it to the functions here:
   an edge is fine: the edge is split at the projection) and joins consecutive waypoints by the
   fastest path (travel time, Dijkstra on the CSR matrix);
 - :func:`match_trace` matches a recorded, noisy trace with a hidden Markov model decoded by
-  Viterbi, after Newson, prs. and Krumm, J. (2009), "Hidden Markov map matching through noise and
+  Viterbi, after Newson, P. and Krumm, J. (2009), "Hidden Markov map matching through noise and
   sparseness", ACM SIGSPATIAL GIS '09, pp. 336-343 [published];
 - :func:`to_edges` picks one of the two per route (see :func:`is_dense_trace`).
 
@@ -245,10 +245,10 @@ class RoadIndex:
 
     Notes
     -----
-    Candidate search runs on a second STRtree, of the straight segments of each distinct
-    geometry (the two directions of a two-way street share one), and projects points on
-    segments with numpy; this is several times faster than shapely's per-pair distance and
-    line_locate_point.
+    Candidate search does not use the STRtree: the straight segments of each distinct
+    geometry (the two directions of a two-way street share one) sit in a uniform 50 m grid,
+    and points are projected on them with numpy, several times faster for many points than
+    shapely's per-pair distance and line_locate_point.
     """
 
     def __init__(self, graph: nx.MultiDiGraph) -> None:
@@ -745,10 +745,8 @@ def _pair_costs(
     if at_nodes:
         tail = np.where(f <= 0.0, 0.0, tail)
         lead = np.where(f >= 1.0, 0.0, lead)
-    # which candidates leave towards a next layer, with which limit step
-    out = np.zeros(lay.n, dtype=bool)
+    # the candidates that leave towards a next layer, and with which limit step
     has = np.flatnonzero(np.diff(prs.first) > 0)
-    out[has] = True
     step_t = np.full(lay.n, -1, dtype=np.int64)
     step_t[has] = np.searchsorted(_LIMIT_STEPS, limit_t[has])
     cand_step = step_t[lay.cand_layer]
@@ -762,14 +760,17 @@ def _pair_costs(
         order = index.spatial_order(nodes)
         rank = np.empty(len(nodes), dtype=np.int64)
         rank[order] = np.arange(len(nodes))
-        block_of_node = rank // per_block
-        for k in range(int(block_of_node.max()) + 1):
-            mine = sel[block_of_node[inv] == k] if block_of_node.max() else sel
+        cand_blk = (rank // per_block)[inv]
+        by = np.argsort(cand_blk, kind="stable")
+        cuts = np.searchsorted(cand_blk[by], np.arange(int(cand_blk.max()) + 2))
+        for k in range(len(cuts) - 1):
+            mine = sel[by[cuts[k]:cuts[k + 1]]]
             res = index.distances(weight, nodes[order[k * per_block:(k + 1) * per_block]],
                                   float(_LIMIT_STEPS[step]))
             cand_block[mine] = len(results)
             cand_row[mine] = res.rows(leave[mine])
             results.append(res)
+
     def fill(res: _Dist, sel: Any) -> np.ndarray:
         a, b = prs.a[sel], prs.b[sel]
         assert res.dist is not None

@@ -131,6 +131,35 @@ def _rule_polygons(profile: Profile) -> dict[str, gpd.GeoSeries]:
     return out
 
 
+def _feature_filter(profile: Profile) -> Any:
+    """Return the profile's source predicate behind a cheap test of the tag keys.
+
+    A selector matches only objects that carry its first key, so an object carrying none of
+    those keys is no source; most OSM objects are dropped by this test alone.
+    """
+    want = sources.feature_filter(profile)
+    first: dict[str, set[str] | None] = {}
+    for cat in profile.categories:
+        for sel in cat.selectors:
+            if not sel.tags:
+                return want  # a selector without keys matches everything
+            key, values = sel.tags[0]
+            if values is None or first.get(key, set()) is None:
+                first[key] = None
+            else:
+                first[key] = first.get(key, set()) | set(values)  # type: ignore[operator]
+    tests = tuple(first.items())
+
+    def quick(tags: Any) -> bool:
+        for key, values in tests:
+            val = tags.get(key)
+            if val is not None and (values is None or val in values):
+                return want(tags)
+        return False
+
+    return quick
+
+
 def build_network(
     source: str | Path,
     *,
@@ -141,10 +170,10 @@ def build_network(
     """Read an OSM file, build the road graph, extract sources and tag every edge."""
     profile = profile or load_profile()
     check_timezone(timezone)
-    raw = read_osm(source, feature_filter=sources.feature_filter(profile))
-    G = loader.graph_from_raw(raw, largest_component=largest_component)
-    crs = G.graph["crs"]
-    nodes, edges = ox.convert.graph_to_gdfs(G)
+    raw = read_osm(source, feature_filter=_feature_filter(profile))
+    frames = loader.frames_from_raw(raw, largest_component=largest_component)
+    crs = frames.graph_attrs["crs"]
+    nodes, edges = frames.nodes, frames.edges
     edges = edges[[c for c in edges.columns if c in EDGE_KEEP]]
     src = sources.sources_from_raw(raw, profile, crs=crs)
     cross = sources.crossings_from_raw(raw, crs=crs)

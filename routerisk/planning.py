@@ -848,10 +848,6 @@ class _Timeline:
             return False
         return not (i < len(starts) and starts[i] < e)
 
-    def idle_before(self, v: int, s: int) -> int:
-        i = bisect.bisect_right(self.starts[v], s)
-        return s - self.ends[v][i - 1] if i > 0 else s + 10**12
-
     def blockers(self, v: int, s: int, e: int) -> list[int]:
         """Return the jobs on ``v`` whose occupancy overlaps ``[s, e)``."""
         starts, ends, jobs = self.starts[v], self.ends[v], self.jobs[v]
@@ -903,10 +899,17 @@ class _Search:
 
     def vehicle_for(self, o: _Opt) -> int | None:
         """Return the fitting vehicle leaving the least idle time before ``o`` (best fit)."""
-        fitting = [v for v in o.vehicles if self.tl.fits(v, o.s, o.e)]
-        if not fitting:
-            return None
-        return min(fitting, key=lambda v: (self.tl.idle_before(v, o.s), v))
+        best, best_idle = None, 0
+        s, e = o.s, o.e
+        for v in o.vehicles:  # Timeline.fits inlined, with the idle time before (hot loop)
+            starts, ends = self.tl.starts[v], self.tl.ends[v]
+            i = bisect.bisect_right(starts, s)
+            if (i > 0 and ends[i - 1] > s) or (i < len(starts) and starts[i] < e):
+                continue
+            idle = s - ends[i - 1] if i > 0 else s + 10**12
+            if best is None or idle < best_idle:
+                best, best_idle = v, idle
+        return best
 
     def best_insert(self, j: int) -> _Placement | None:
         """Return the least-risk fitting placement of job ``j`` (options sorted by risk)."""
@@ -1002,7 +1005,7 @@ class _Search:
     def _insert_unplaced(self) -> bool:
         """Insert unplaced jobs, directly or by moving the single job that blocks a start."""
         changed = False
-        movable: set[int] | None = None
+        others: dict[int, list[_Placement]] = {}
         for u, opts in enumerate(self.usable):
             if u in self.sol or not opts:
                 continue
@@ -1011,41 +1014,42 @@ class _Search:
                 self.place(u, p)
                 changed = True
                 continue
-            if movable is None:
-                movable = self._movable()
-            if self._eject_for(u, movable):
+            if self._eject_for(u, others):
                 changed = True
-                movable = None
+                others.clear()
         return changed
 
-    def _movable(self) -> set[int]:
-        """Return the placed jobs that have a fitting placement other than their own."""
-        found = set()
-        for j in sorted(self.sol):
-            here = self.lift(j)
-            if any(
-                (o, v) != here and self.tl.fits(v, o.s, o.e)
-                for o in self.usable[j]
-                for v in o.vehicles
-            ):
-                found.add(j)
-            self.place(j, here)
+    def _other_places(self, j: int) -> list[_Placement]:
+        """Return the placements of placed job ``j`` that fit if it moved, by risk."""
+        here = self.lift(j)
+        found = [
+            (o, v)
+            for o in self.usable[j]
+            for v in o.vehicles
+            if (o, v) != here and self.tl.fits(v, o.s, o.e)
+        ]
+        self.place(j, here)
         return found
 
-    def _eject_for(self, u: int, movable: set[int]) -> bool:
+    def _eject_for(self, u: int, others: dict[int, list[_Placement]]) -> bool:
         """Place ``u`` where exactly one job is in the way, if that job can move elsewhere.
 
-        A job in ``movable`` is the only kind worth trying: placing ``u`` only takes room away.
+        ``others`` caches each blocker's other fitting placements; placements only get added
+        while it is kept (the caller clears it after a move), so it stays a superset.
         """
         for o in self.usable[u]:
             for v in o.vehicles:
                 blocking = self.tl.blockers(v, o.s, o.e)
-                if len(blocking) != 1 or blocking[0] not in movable:
+                if len(blocking) != 1:
                     continue
                 b = blocking[0]
+                if b not in others:
+                    others[b] = self._other_places(b)
+                if not others[b]:
+                    continue
                 old = self.lift(b)
                 self.place(u, (o, v))
-                pb = self.best_insert(b)
+                pb = next((p for p in others[b] if self.tl.fits(p[1], p[0].s, p[0].e)), None)
                 if pb is not None:
                     self.place(b, pb)
                     return True

@@ -322,8 +322,7 @@ def score_routes(net: Any, routes: list[Any], departs: list[_dt.datetime] | None
     idx = index or matching.RoadIndex(net.graph)
     scorer = Scorer(net)
     out = []
-    for r in routes:
-        matched = matching.to_edges(idx, r)
+    for r, matched in zip(routes, matching.to_edges_many(idx, routes), strict=True):
         times = departs or ([r.depart] if r.depart is not None else [])
         if not times:
             raise RouteInputError("no departure time: give --depart or a 'depart' property",

@@ -160,6 +160,20 @@ def test_one_way_streets_are_followed(grid, index):
     assert all(grid.has_edge(*e) for e in around.edges)
 
 
+def test_join_widens_the_bound_when_the_road_detour_is_long(grid, index):
+    # 48 m apart on a one-way street, driven backwards: round the block, far beyond the first
+    # Dijkstra bound (1.5 x straight distance at the median speed + 30 s)
+    e = (nid(2, 3), nid(2, 4), 0)
+    a, b = on_edge(grid, e, 0.9), on_edge(grid, e, 0.5)
+    m = join_waypoints(index, PlannedRoute(name="back", lonlat=[a, b]))
+    tt = grid.edges[e]["travel_time"]
+    expect = 0.1 * tt + nx.shortest_path_length(grid, e[1], e[0], weight="travel_time") + 0.5 * tt
+    assert m.time_s == pytest.approx(expect, rel=1e-9)
+    assert m.edges[0] == e and m.edges[-1] == e and len(m.edges) > 3
+    assert m.fractions[0] == pytest.approx(0.1) and m.fractions[-1] == pytest.approx(0.5)
+    assert_connected(m)
+
+
 def test_off_network_waypoint_names_route_point_and_distance(grid, index, tmp_path):
     xy = np.array([[grid.nodes[nid(3, 7)]["x"] + 500.0, grid.nodes[nid(3, 7)]["y"]]])
     far = to_lonlat(xy)[0].tolist()  # 500 m east of the last column
