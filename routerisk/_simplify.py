@@ -66,7 +66,7 @@ class RawEdges:
     src: np.ndarray  # node positions, edges in insertion order
     dst: np.ndarray
     length: np.ndarray  # metres (great circle, as osmnx)
-    group: np.ndarray  # way index * 2 + reversed flag
+    group: np.ndarray  # way index
     groups: list[dict[str, Any]]  # raw attributes of each group (without length)
 
 
@@ -92,8 +92,7 @@ def raw_edges(raw: RawOSM) -> RawEdges:
         for key in EDGE_TAGS:
             if key in tags:
                 base[key] = tags[key]
-        groups.append(base)
-        groups.append({**base, "reversed": True})
+        groups.append(base)  # "reversed" is dropped at the end; kept for the key order
         if r:
             refs_l.append(w.refs[::-1])
             ll_l.append(w.lonlat[::-1])
@@ -130,7 +129,7 @@ def raw_edges(raw: RawOSM) -> RawEdges:
     pa, pb = node_pos[a[idx]], node_pos[b[idx]]
     src = np.where(back, pb, pa)
     dst = np.where(back, pa, pb)
-    group = pw[idx] * 2 + np.where(back, True, rev[pw[idx]]).astype(np.int64)
+    group = pw[idx]
     return RawEdges(node_ids, lon, lat, src, dst, lengths[idx], group, groups)
 
 
@@ -453,6 +452,27 @@ def _normalise(d: dict[str, Any]) -> dict[str, Any]:
     return d
 
 
+def _normalise_all(templates: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    """Normalise every template, once per distinct content (ways differ mostly by osmid)."""
+    cache: dict[Any, dict[str, Any]] = {}
+    out = []
+    for t in templates:
+        try:
+            key = tuple((k, v) for k, v in t.items() if k != "osmid")
+            hash(key)
+        except TypeError:  # merged lists
+            out.append(_normalise(t))
+            continue
+        d = cache.get(key)
+        if d is None:
+            d = cache[key] = _normalise(t)
+        if "osmid" in t:
+            d = dict(d)
+            d["osmid"] = int(t["osmid"][0]) if isinstance(t["osmid"], list) else t["osmid"]
+        out.append(d)
+    return out
+
+
 def _is_null(val: Any) -> bool:
     if isinstance(val, list):
         return False
@@ -529,7 +549,7 @@ def build_frames(raw: RawOSM, *, largest_component: bool = True,
     px, py = tr.transform(re.lon, re.lat)
     px, py = np.asarray(px, dtype=float), np.asarray(py, dtype=float)
     # normalised templates and their attribute values
-    norm = [_normalise(t) for t in g.templates]
+    norm = _normalise_all(g.templates)
     used, first_row = np.unique(g.template, return_index=True)
     # speeds (osmnx add_edge_speeds with the loader's class defaults)
     tm_hw = [d["highway"] for d in norm]
