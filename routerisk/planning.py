@@ -77,6 +77,7 @@ from __future__ import annotations
 
 import bisect
 import csv
+import io
 import logging
 import math
 import re
@@ -277,7 +278,9 @@ def read_runs(path: str | Path) -> list[RunSpec]:
         runs.append(run)
     if not runs:
         raise InputFileError("the RUNS file holds no runs", path=p)
-    logger.info("read_runs read %d runs (%d jobs) from %s", len(runs), sum(r.repeat for r in runs), p)
+    logger.info(
+        "read_runs read %d runs (%d jobs) from %s", len(runs), sum(r.repeat for r in runs), p
+    )
     return runs
 
 
@@ -301,10 +304,14 @@ def _yaml_rows(path: Path) -> list[tuple[_Where, dict[str, Any]]]:
     if isinstance(data, dict):
         unknown = sorted(str(k) for k in data if k != "runs")
         if unknown:
-            raise InputFileError("unknown top-level key (expected only 'runs')", path=path, field=unknown[0])
+            raise InputFileError(
+                "unknown top-level key (expected only 'runs')", path=path, field=unknown[0]
+            )
         data = data.get("runs")
     if not isinstance(data, list):
-        raise InputFileError("expected a list of runs (or a 'runs:' key holding one)", path=path, field=prefix)
+        raise InputFileError(
+            "expected a list of runs (or a 'runs:' key holding one)", path=path, field=prefix
+        )
     rows = []
     for i, item in enumerate(data):
         where = _Where(path, f"{prefix}[{i}]", csv=False)
@@ -318,7 +325,7 @@ def _yaml_rows(path: Path) -> list[tuple[_Where, dict[str, Any]]]:
 
 
 def _csv_rows(path: Path) -> list[tuple[_Where, dict[str, Any]]]:
-    reader = csv.reader(_read_text(path).splitlines())
+    reader = csv.reader(io.StringIO(_read_text(path), newline=""))
     try:
         header = [h.strip() for h in next(reader)]
     except StopIteration:
@@ -326,14 +333,17 @@ def _csv_rows(path: Path) -> list[tuple[_Where, dict[str, Any]]]:
     known = CSV_COLUMNS + _CSV_EXTRA
     for col in header:
         if col not in known:
-            raise InputFileError(f"unknown column (known: {', '.join(known)})", path=path, field=col)
+            raise InputFileError(
+                f"unknown column (known: {', '.join(known)})", path=path, field=col
+            )
         if header.count(col) > 1:
             raise InputFileError("column given twice", path=path, field=col)
     for col in ("name", "earliest", "latest"):
         if col not in header:
             raise InputFileError("required column missing", path=path, field=col)
     rows = []
-    for line_no, values in enumerate(reader, start=2):
+    for values in reader:
+        line_no = reader.line_num
         if not any(v.strip() for v in values):
             continue
         where = _Where(path, f"line {line_no}", csv=True)
@@ -342,8 +352,8 @@ def _csv_rows(path: Path) -> list[tuple[_Where, dict[str, Any]]]:
                 f"line {line_no}: {len(values)} values for {len(header)} columns", path=path
             )
         cells = {h: v.strip() for h, v in zip(header, values, strict=True) if v.strip()}
-        row: dict[str, Any] = {k: cells[k] for k in ("name", "route", "route_name", "earliest",
-                                                       "latest", "vehicle", "repeat") if k in cells}
+        plain = ("name", "route", "route_name", "earliest", "latest", "vehicle", "repeat")
+        row: dict[str, Any] = {k: cells[k] for k in plain if k in cells}
         for end in ("start", "end"):
             lat, lon = cells.get(f"{end}_lat"), cells.get(f"{end}_lon")
             if lat is None and lon is None:
@@ -356,7 +366,8 @@ def _csv_rows(path: Path) -> list[tuple[_Where, dict[str, Any]]]:
             try:
                 row["repeat"] = int(row["repeat"])
             except ValueError:
-                raise where.error("repeat", f"repeat {row['repeat']!r} is not a whole number") from None
+                message = f"repeat {row['repeat']!r} is not a whole number"
+                raise where.error("repeat", message) from None
         rows.append((where, row))
     return rows
 
@@ -591,7 +602,8 @@ class Schedule:
     lower_bound
         Proven lower bound on the total risk of any schedule placing as many jobs.
     method
-        ``"milp-aggregated"``, ``"milp-per-vehicle"``, ``"heuristic"`` or ``"naive"``.
+        ``"milp-aggregated"``, ``"milp-per-vehicle"``, ``"heuristic"``, ``"naive"``, or
+        ``"none"`` when no job has a usable candidate.
     notes
         Remarks: unproven job counts, overlaps and rule breaks of a naive plan, ...
     seconds
@@ -802,7 +814,10 @@ def _prepare(
             (c, cand)
             for c, cand in enumerate(job.candidates)
             if (job.earliest is None or axis.floor(cand.start) >= axis.floor(job.earliest))
-            and (job.latest is None or axis.ceil(cand.start, cand.duration) <= axis.ceil(job.latest))
+            and (
+                job.latest is None
+                or axis.ceil(cand.start, cand.duration) <= axis.ceil(job.latest)
+            )
         ]
         if job.candidates and not in_window:
             reason = "window too short: no candidate start and end fit between earliest and latest"
@@ -966,7 +981,10 @@ class _Search:
         order = sorted(prefs, key=lambda j: (min(p[0] for p in prefs[j]), len(self.usable[j]), j))
         for j in order:
             for _, _, o, v in sorted(prefs[j], key=lambda p: (p[0], p[1], p[2].cand, p[3])):
-                chosen = self.vehicle_for(o) if v < 0 else (v if self.tl.fits(v, o.s, o.e) else None)
+                if v < 0:
+                    chosen = self.vehicle_for(o)
+                else:
+                    chosen = v if self.tl.fits(v, o.s, o.e) else None
                 if chosen is not None:
                     self.place(j, (o, chosen))
                     break
@@ -978,16 +996,15 @@ class _Search:
         Earliest end first is the classic greedy rule for fitting many intervals.
         """
         while True:
-            best: tuple[_Opt, int] | None = None
+            best: _Placement | None = None
+            best_key: tuple[float, float, int] = (math.inf, math.inf, 0)
             for j, opts in enumerate(self.usable):
                 if j in self.sol:
                     continue
                 for o in opts:
-                    if best is not None and (o.e, o.risk, j) >= (best[0].e, best[0].risk, best[0].job):
-                        continue
-                    v = self.vehicle_for(o)
-                    if v is not None:
-                        best = (o, v)
+                    key = (o.e, o.risk, j)
+                    if key < best_key and (v := self.vehicle_for(o)) is not None:
+                        best, best_key = (o, v), key
             if best is None:
                 return
             self.place(best[0].job, best)
@@ -1412,7 +1429,8 @@ def _optimise(
         return best.sol, status, bound
     remaining = deadline - time.perf_counter()
     if remaining <= 0:
-        notes.append("time limit reached before the integer programme ran; the gap is against the linear relaxation")
+        notes.append("time limit reached before the integer programme ran; "
+                     "the gap is against the linear relaxation")
         return best.sol, "time_limit", bound
     keep, fix_one = _reduced_cost_fixing(lp, upper - bound)
     res = _mip(model, model.risk, min_count=target, keep=keep, fix_one=fix_one,
@@ -1550,7 +1568,9 @@ def _schedule(
             )
         )
     origin = _Axis([a.start for a in assignments]).origin
-    assignments.sort(key=lambda a: (fleet.index(a.vehicle), _minutes_between(origin, a.start), a.job))
+    assignments.sort(
+        key=lambda a: (fleet.index(a.vehicle), _minutes_between(origin, a.start), a.job)
+    )
     unplaced = tuple(
         Unplaced(j, job.run, job.repetition, reasons.get(j, blocked))
         for j, job in enumerate(jobs)

@@ -326,7 +326,8 @@ def test_heuristic_on_a_larger_day_brackets_the_optimum():
     for j in range(25):
         duration = rng.choice([30.0, 45.0, 60.0])
         cands = tuple(
-            Candidate(420 + 15 * k, duration, rng.uniform(1, 10), rule_breaks=int(rng.random() < 0.1))
+            Candidate(420 + 15 * k, duration, rng.uniform(1, 10),
+                      rule_breaks=int(rng.random() < 0.1))
             for k in range(20)
         )
         jobs.append(Job(f"r{j}", cands, vehicle=rng.choice(["A", "B", "C", None, None])))
@@ -446,7 +447,7 @@ def test_clock_helpers():
 
 def test_read_yaml_runs(tmp_path: Path):
     (tmp_path / "routes").mkdir()
-    (tmp_path / "routes" / "loops.geojson").write_text('{"type": "FeatureCollection", "features": []}')
+    (tmp_path / "routes" / "loops.geojson").write_text('{"type": "FeatureCollection"}')
     path = tmp_path / "day.yaml"
     path.write_text(
         """
@@ -500,7 +501,9 @@ def test_read_csv_runs(tmp_path: Path):
     assert (b.earliest, b.latest, b.vehicle, b.repeat, b.where) == (600, 660, "V7", 2, "line 3")
 
 
-_GOOD = {"name": "a", "start": "[1, 2]", "end": "[1, 3]", "earliest": '"09:00"', "latest": '"10:00"'}
+_GOOD = {
+    "name": "a", "start": "[1, 2]", "end": "[1, 3]", "earliest": '"09:00"', "latest": '"10:00"'
+}
 
 
 def _yaml_run(**changes: str | None) -> str:
