@@ -1,0 +1,76 @@
+"""``routerisk suggest`` on the sample town, and its map in headless chromium."""
+
+from __future__ import annotations
+
+import json
+
+import pytest
+
+from routerisk import datasets, routes
+from routerisk.alternatives import suggest_routes
+from routerisk.cli import main
+from routerisk.network import load_network
+from routerisk.scoring import Scorer
+
+from ._browser import inspect_page, needs_chromium
+
+
+@pytest.fixture(scope="module")
+def town_suggestions(town_net):
+    planned = routes.read_routes(datasets.get_path("routes"), default_tz=town_net.timezone)
+    return suggest_routes(town_net, planned)
+
+
+def test_school_run_gets_a_much_lower_exposure_alternative(town_net, town_suggestions):
+    s = next(x for x in town_suggestions if x.name == "school-run")
+    assert s.planned.rule_breaks  # the plan passes the school at dismissal, inside the rule
+    good = [a for a in s.alternatives if a.within_bounds and a.risk_change_pct <= -30.0]
+    assert good, [(a.risk_change_pct, a.time_change_pct) for a in s.alternatives]
+    for a in s.alternatives:
+        assert a.time_change_pct <= 25.0 + 1e-9
+        # re-scored independently: a fresh scorer on a freshly loaded network
+        rescored = Scorer(town_net).score("check", a.edges, s.planned.depart)
+        assert rescored.rule_breaks == []
+        assert rescored.risk == pytest.approx(a.score.risk)
+
+
+def test_alternatives_keep_start_end_and_required_points(town_suggestions):
+    for s in town_suggestions:
+        for a in s.alternatives:
+            assert a.edges[0][0] == s.planned_edges[0][0]
+            assert a.edges[-1][1] == s.planned_edges[-1][1]
+
+
+def test_json_output(town_dir, capsys):
+    code = main(["suggest", str(datasets.get_path("routes")), "--network", str(town_dir),
+                 "--json"])
+    data = json.loads(capsys.readouterr().out)
+    assert code == 0 and set(data) == {"routes", "profile"}
+    alt = data["routes"][0]["alternatives"][0]
+    assert set(alt) >= {"length_km", "duration_min", "risk", "risk_change_pct",
+                        "time_change_pct", "rule_breaks"}
+
+
+def test_bad_options(town_dir, capsys):
+    code = main(["suggest", str(datasets.get_path("routes")), "--network", str(town_dir),
+                 "--count", "0"])
+    assert code == 2 and "--count" in capsys.readouterr().err
+
+
+@needs_chromium
+@pytest.mark.browser
+def test_map_loads_offline_with_layers_and_side_panel(town_dir, tmp_path, capsys):
+    page = tmp_path / "alternatives.html"
+    assert main(["suggest", str(datasets.get_path("routes")), "--network", str(town_dir),
+                 "--map", str(page)]) == 0
+    capsys.readouterr()
+    res = inspect_page(page, screenshot=tmp_path / "alternatives.png", script=(
+        "[document.querySelectorAll('.leaflet-control-layers-selector').length,"
+        " !!document.getElementById('rr-side'), !!document.getElementById('rr-legend'),"
+        " (document.getElementById('rr-side')||{}).textContent || '']"))
+    assert res["errors"] == [] and res["requests"] == []
+    n_layers, side, legend, side_text = res["value"]
+    net = load_network(town_dir)
+    # network + 7 source layers + rule zones + (plan + alternatives) per route
+    assert n_layers >= 1 + 7 + len(net.profile.rules) + 4 * 2
+    assert side and legend and "school-run" in side_text
