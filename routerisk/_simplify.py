@@ -678,3 +678,43 @@ def graph_from_frames(fr: Frames) -> nx.MultiDiGraph:
     for c in ("x", "y", "lon", "lat"):
         nx.set_node_attributes(G, dict(zip(ids, nd[c].tolist(), strict=True)), name=c)
     return G
+
+
+def graph_from_gdfs(nodes: gpd.GeoDataFrame, edges: gpd.GeoDataFrame, *,
+                    graph_attrs: dict[str, Any]) -> nx.MultiDiGraph:
+    """Return ``osmnx.convert.graph_from_gdfs(nodes, edges, graph_attrs=...)``, column-wise.
+
+    The same nodes and edges in the same order with the same attribute dicts (null values
+    left out, lists kept), without osmnx's per-row checks of every value.
+    """
+    G = nx.MultiDiGraph(**graph_attrs)
+    cols = edges.columns.to_list()
+    lists, masks = [], []
+    for c in cols:
+        a = edges[c].to_numpy(dtype=object)
+        nn = ~pd.isna(a)
+        lists.append(a.tolist())
+        masks.append(None if nn.all() else nn.tolist())
+    idx = edges.index
+    u = idx.get_level_values(0).tolist()
+    v = idx.get_level_values(1).tolist()
+    k = idx.get_level_values(2).tolist()
+    spec = list(zip(cols, lists, masks, strict=True))
+    full = [(c, lst) for c, lst, mk in spec if mk is None]
+    part = [(c, lst, mk) for c, lst, mk in spec if mk is not None]
+
+    def rows() -> Any:
+        if not part:
+            yield from (dict(zip(cols, vals, strict=True)) for vals in zip(*lists, strict=True))
+            return
+        for i in range(len(u)):
+            yield {c: lst[i] for c, lst, mk in spec if mk is None or mk[i]}
+
+    del full
+    G.add_edges_from(zip(u, v, k, rows(), strict=False))
+    G.add_nodes_from(set(nodes.index) - set(G.nodes))
+    df = nodes.drop(columns=nodes.active_geometry_name) if (
+        nodes.active_geometry_name is not None) else pd.DataFrame(nodes)
+    for col in df.columns:
+        nx.set_node_attributes(G, values=df[col].dropna().to_dict(), name=col)
+    return G

@@ -20,7 +20,6 @@ from typing import Any
 
 import networkx as nx
 import numpy as np
-import osmnx as ox
 import pyproj
 from pyproj.aoi import AreaOfInterest
 from pyproj.database import query_utm_crs_info
@@ -63,6 +62,8 @@ def utm_crs(lon: float, lat: float) -> pyproj.CRS:
 
 def _graph_from_raw(raw: RawOSM) -> nx.MultiDiGraph:
     """Create the unsimplified lon/lat graph (one edge per consecutive node pair)."""
+    import osmnx as ox
+
     G = nx.MultiDiGraph(crs="epsg:4326", created_with="routerisk")
     for way in raw.ways:
         tags = way.tags
@@ -151,6 +152,8 @@ def _normalise_edges(G: nx.MultiDiGraph) -> None:
 
 
 def _add_speeds(G: nx.MultiDiGraph) -> None:
+    import osmnx as ox
+
     observed = {d["highway"] for _, _, d in G.edges(data=True) if "maxspeed" in d}
     classes = {d["highway"] for _, _, d in G.edges(data=True)}
     hwy = {c: DEFAULT_CLASS_KPH.get(c, FALLBACK_KPH) for c in classes - observed}
@@ -162,6 +165,8 @@ def graph_from_raw_reference(
     raw: RawOSM, *, largest_component: bool = True, simplify: bool = True
 ) -> nx.MultiDiGraph:
     """Build the projected drivable graph with osmnx's own (pure-Python) steps."""
+    import osmnx as ox
+
     if not raw.ways:
         raise EmptyNetworkError("holds no drivable roads (after the drive filter)",
                                 path=raw.path)
@@ -214,6 +219,8 @@ def frames_from_raw(
     """
     fr = _fast_frames(raw, largest_component, simplify)
     if fr is None:
+        import osmnx as ox
+
         G = graph_from_raw_reference(raw, largest_component=largest_component,
                                      simplify=simplify)
         nodes, edges = ox.convert.graph_to_gdfs(G)
@@ -257,6 +264,8 @@ def graph_from_file(
 
 def graph_from_place(query: str, *, largest_component: bool = True) -> nx.MultiDiGraph:
     """Download a drivable graph for a place name through osmnx (needs the internet)."""
+    import osmnx as ox
+
     try:
         G = ox.graph_from_place(query, network_type="drive", simplify=True,
                                 retain_all=not largest_component)

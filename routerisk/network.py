@@ -19,12 +19,11 @@ from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 import geopandas as gpd
 import networkx as nx
 import numpy as np
-import osmnx as ox
 import pandas as pd
 import pyogrio
 import yaml
 
-from . import __version__, loader, sources, tagging
+from . import __version__, _simplify, loader, sources, tagging
 from ._io import atomic_directory, dumps_json, sha256_file
 from ._osm import read_osm
 from .errors import NetworkFolderError, OptionError, ProfileError
@@ -73,10 +72,12 @@ class Network:
 
     @cached_property
     def graph(self) -> nx.MultiDiGraph:
-        """Return the tagged graph (osmnx conventions), built on first use."""
-        G = ox.convert.graph_from_gdfs(self.nodes, self.edges, graph_attrs={
+        """Return the tagged graph (osmnx conventions), built on first use.
+
+        The same graph as ``osmnx.convert.graph_from_gdfs(nodes, edges)``, built column-wise.
+        """
+        return _simplify.graph_from_gdfs(self.nodes, self.edges, graph_attrs={
             "crs": self.edges.crs.to_string()})
-        return G
 
     @property
     def length_km(self) -> float:
@@ -235,6 +236,18 @@ def _profile_doc(profile: Profile) -> Any:
     raise ProfileError("profile has no readable source file", path=profile.source)
 
 
+def _use_arrow() -> bool:
+    """Return True when pyarrow is installed: pyogrio then reads layers about 4x faster.
+
+    Both ways give the same frames (same columns, dtypes and values).
+    """
+    try:
+        import pyarrow  # noqa: F401
+    except ImportError:
+        return False
+    return True
+
+
 def load_network(folder: str | Path, *, profile: Profile | None = None,
                  verify: bool = True) -> Network:
     """Read a network folder written by :func:`save_network`.
@@ -265,13 +278,16 @@ def load_network(folder: str | Path, *, profile: Profile | None = None,
     if verify and sha256_file(gpkg) != meta.get("gpkg_sha256"):
         raise NetworkFolderError("network.gpkg does not match its checksum; rebuild",
                                  path=gpkg, field="gpkg_sha256")
+    arrow = _use_arrow()
     try:
         layers = {name for name, _ in pyogrio.list_layers(gpkg)}
-        edges = pyogrio.read_dataframe(gpkg, layer="edges")
-        nodes = pyogrio.read_dataframe(gpkg, layer="nodes")
-        src = (pyogrio.read_dataframe(gpkg, layer="sources") if "sources" in layers else
+        edges = pyogrio.read_dataframe(gpkg, layer="edges", use_arrow=arrow)
+        nodes = pyogrio.read_dataframe(gpkg, layer="nodes", use_arrow=arrow)
+        src = (pyogrio.read_dataframe(gpkg, layer="sources", use_arrow=arrow)
+               if "sources" in layers else
                gpd.GeoDataFrame(columns=sources.COLUMNS, geometry="geometry", crs=edges.crs))
-        cross = (pyogrio.read_dataframe(gpkg, layer="crossings") if "crossings" in layers else
+        cross = (pyogrio.read_dataframe(gpkg, layer="crossings", use_arrow=arrow)
+                 if "crossings" in layers else
                  gpd.GeoDataFrame({"osmid": [], "crossing": []}, geometry=[], crs=edges.crs))
     except Exception as exc:  # noqa: BLE001 - GDAL errors of many kinds
         raise NetworkFolderError(f"cannot read network.gpkg ({exc})", path=gpkg) from exc

@@ -115,8 +115,9 @@ __all__ = [
 
 TimeLike = float | int | datetime
 
-#: Route file suffixes a RUNS file may refer to.
-ROUTE_SUFFIXES = (".geojson", ".json", ".gpx", ".csv")
+#: Route file suffixes a RUNS file may refer to (those :func:`routerisk.routes.read_routes`
+#: recognises).
+ROUTE_SUFFIXES = (".geojson", ".json", ".gpx", ".xml", ".csv", ".txt")
 #: Columns of a CSV RUNS file (``route_name`` is accepted as an optional extra column).
 CSV_COLUMNS = (
     "name",
