@@ -118,3 +118,20 @@ def _stage_watch(net: Any, out: Path, echo: Callable[[str], None]) -> dict[str, 
 
 
 _STAGES.append(_stage_watch)
+
+
+def _stage_plan(net: Any, out: Path, echo: Callable[[str], None]) -> dict[str, Any]:
+    import datetime as dt
+
+    from . import dayplan, planning
+
+    runs = planning.read_runs(datasets.get_path("runs"))
+    plan = dayplan.plan_day(net, runs, dt.date(2027, 3, 9), vehicles=2)
+    dayplan.write_outputs(net, plan, out / "day_plan")
+    d = plan.to_dict()
+    echo(f"day plan {d['date']}: {len(d['runs'])} runs placed ({d['status']}), total risk "
+         f"{d['total_risk']:.2f} against {d['naive_total_risk']:.2f} for the naive plan")
+    return {"day_plan": d}
+
+
+_STAGES.append(_stage_plan)

@@ -167,18 +167,23 @@ class Scorer:
                                                       strict=True)}
         self.out_degree = pd.Series(self.index.get_level_values(0)).value_counts().to_dict()
         self._geoms = e.geometry.to_numpy()
+        self._bands = e["band"].to_numpy()
+        self._row_of: dict[tuple[int, int, int], int] | None = None
         import pyproj
 
         self._to_ll = pyproj.Transformer.from_crs(e.crs, "EPSG:4326", always_xy=True)
 
     def positions(self, edges: list[tuple[int, int, int]]) -> np.ndarray:
         """Return row positions of (u, v, key) edges; raise KeyError for unknown ones."""
-        mi = pd.MultiIndex.from_tuples(edges, names=self.index.names)
-        pos = self.index.get_indexer(mi)
-        if (pos < 0).any():
-            bad = edges[int(np.flatnonzero(pos < 0)[0])]
-            raise KeyError(f"edge {bad} is not in the network")
-        return pos
+        if self._row_of is None:
+            self._row_of = {(int(u), int(v), int(k)): i for i, (u, v, k) in
+                            enumerate(self.index)}
+        row_of = self._row_of
+        try:
+            return np.fromiter((row_of[(int(e[0]), int(e[1]), int(e[2]))] for e in edges),
+                               dtype=np.int64, count=len(edges))
+        except KeyError as exc:
+            raise KeyError(f"edge {exc.args[0]} is not in the network") from None
 
     def network_risk_per_km(self, minutes: np.ndarray) -> np.ndarray:
         """Return the network's length-weighted average risk per km at each minute."""
@@ -210,17 +215,18 @@ class Scorer:
         length_km = float(km.sum())
         expected = float((km * self.network_risk_per_km(minutes)).sum())
         times = [local + _dt.timedelta(seconds=float(s)) for s in enter_s]
-        seg = pd.DataFrame({
+        cols: dict[str, Any] = {
             "seq": np.arange(len(pos)), "u": [e[0] for e in edges], "v": [e[1] for e in edges],
             "key": [e[2] for e in edges], "street": self.names[pos], "length_m": km * 1000.0,
-            "time": [t.isoformat(timespec="seconds") for t in times], "risk": total, "baseline": base_part,
-            "crossings": self.cross[pos] * frac, "crossing_part": cross_part,
-            "band": self.net.edges["band"].to_numpy()[pos],
-        })
+            "time": [t.isoformat(timespec="seconds") for t in times], "risk": total,
+            "baseline": base_part, "crossings": self.cross[pos] * frac,
+            "crossing_part": cross_part, "band": self._bands[pos],
+        }
         for j, c in enumerate(self.cats):
-            seg[f"part_{c}"] = cat_parts[:, j]
-            seg[f"infl_{c}"] = self.infl[pos, j]
-        seg["_pos"] = pos
+            cols[f"part_{c}"] = cat_parts[:, j]
+            cols[f"infl_{c}"] = self.infl[pos, j]
+        cols["_pos"] = pos
+        seg = pd.DataFrame(cols)
         by_cat = {"baseline": float(base_part.sum()), "crossings": float(cross_part.sum())}
         by_cat.update({c: float(cat_parts[:, j].sum()) for j, c in enumerate(self.cats)})
         share = {c: float((km * self.infl[pos, j]).sum() / length_km) if length_km else 0.0
@@ -236,6 +242,28 @@ class Scorer:
             hotspots=self.hotspots(seg, cat_parts, base_part, cross_part),
             segments=seg,
         )
+
+    def quick(self, pos: np.ndarray, depart: _dt.datetime, *,
+              fractions: np.ndarray | None = None) -> tuple[float, float, int]:
+        """Return (risk, duration in minutes, number of rule breaks) without the details.
+
+        The same arithmetic as :meth:`score`, for screening many candidate start times.
+        """
+        frac = np.ones(len(pos)) if fractions is None else np.asarray(fractions, dtype=float)
+        km = self.km[pos] * frac
+        tt = self.tt[pos] * frac
+        enter_s = np.concatenate([[0.0], np.cumsum(tt)[:-1]])
+        local = depart.astimezone(self.tz)
+        m0 = local.weekday() * 1440 + local.hour * 60 + local.minute + local.second / 60.0
+        minutes = np.floor(m0 + enter_s / 60.0).astype(np.int64) % MINUTES_PER_WEEK
+        mult = self.mult_table[:, minutes].T
+        sev = self.sev[pos]
+        risk = float((sev * km * (self.base[pos] + (mult * self.exp[pos]) @ self.w)).sum()
+                     + (sev * self.profile.crossing_weight * self.cross[pos] * frac).sum())
+        breaks = 0
+        if self.profile.rules:
+            breaks = int((self.rule_cover[pos] & self.rule_time[:, minutes].T).sum())
+        return risk, float(tt.sum() / 60.0), breaks
 
     def rule_breaks(self, pos: np.ndarray, minutes: np.ndarray, times: list[_dt.datetime],
                     edges: list[tuple[int, int, int]]) -> list[dict[str, Any]]:
