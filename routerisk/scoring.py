@@ -198,13 +198,7 @@ class Scorer:
         length, time and crossings of a partial edge scale with it.
         """
         pos = self.positions(edges)
-        frac = np.ones(len(pos)) if fractions is None else np.asarray(fractions, dtype=float)
-        km = self.km[pos] * frac
-        tt = self.tt[pos] * frac
-        enter_s = np.concatenate([[0.0], np.cumsum(tt)[:-1]])
-        local = depart.astimezone(self.tz)
-        m0 = local.weekday() * 1440 + local.hour * 60 + local.minute + local.second / 60.0
-        minutes = np.floor(m0 + enter_s / 60.0).astype(np.int64) % MINUTES_PER_WEEK
+        frac, km, tt, enter_s, local, minutes = self._timeline(pos, depart, fractions)
         mult = self.mult_table[:, minutes].T  # (n, C)
         sev = self.sev[pos]
         cat_parts = (sev * km)[:, None] * self.w[None, :] * mult * self.exp[pos]
@@ -243,12 +237,10 @@ class Scorer:
             segments=seg,
         )
 
-    def quick(self, pos: np.ndarray, depart: _dt.datetime, *,
-              fractions: np.ndarray | None = None) -> tuple[float, float, int]:
-        """Return (risk, duration in minutes, number of rule breaks) without the details.
-
-        The same arithmetic as :meth:`score`, for screening many candidate start times.
-        """
+    def _timeline(self, pos: np.ndarray, depart: _dt.datetime,
+                  fractions: np.ndarray | None) -> tuple[np.ndarray, np.ndarray, np.ndarray,
+                                                       np.ndarray, _dt.datetime, np.ndarray]:
+        """Return shares, km, seconds, entry offsets, local departure and entry minutes."""
         frac = np.ones(len(pos)) if fractions is None else np.asarray(fractions, dtype=float)
         km = self.km[pos] * frac
         tt = self.tt[pos] * frac
@@ -256,6 +248,15 @@ class Scorer:
         local = depart.astimezone(self.tz)
         m0 = local.weekday() * 1440 + local.hour * 60 + local.minute + local.second / 60.0
         minutes = np.floor(m0 + enter_s / 60.0).astype(np.int64) % MINUTES_PER_WEEK
+        return frac, km, tt, enter_s, local, minutes
+
+    def quick(self, pos: np.ndarray, depart: _dt.datetime, *,
+              fractions: np.ndarray | None = None) -> tuple[float, float, int]:
+        """Return (risk, duration in minutes, number of rule breaks) without the details.
+
+        The same arithmetic as :meth:`score`, for screening many candidate start times.
+        """
+        frac, km, tt, enter_s, local, minutes = self._timeline(pos, depart, fractions)
         mult = self.mult_table[:, minutes].T
         sev = self.sev[pos]
         risk = float((sev * km * (self.base[pos] + (mult * self.exp[pos]) @ self.w)).sum()
