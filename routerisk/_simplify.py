@@ -29,6 +29,7 @@ nodes would be kept, where osmnx's order comes from Python sets.
 from __future__ import annotations
 
 import logging
+import operator
 from dataclasses import dataclass
 from typing import Any
 
@@ -699,19 +700,40 @@ def graph_from_gdfs(nodes: gpd.GeoDataFrame, edges: gpd.GeoDataFrame, *,
     u = idx.get_level_values(0).tolist()
     v = idx.get_level_values(1).tolist()
     k = idx.get_level_values(2).tolist()
-    spec = list(zip(cols, lists, masks, strict=True))
-    full = [(c, lst) for c, lst, mk in spec if mk is None]
-    part = [(c, lst, mk) for c, lst, mk in spec if mk is not None]
+    partial = [j for j, mk in enumerate(masks) if mk is not None]
+    if partial:
+        # rows sharing a pattern of null columns share the list of kept columns
+        bits = np.zeros(len(u), dtype=np.int64)
+        pat_cols: list[int] = partial[:62]
+        for b, j in enumerate(pat_cols):
+            bits |= np.asarray(masks[j], dtype=np.int64) << b
+        if len(partial) > 62:  # pragma: no cover - not with the columns routerisk writes
+            pat_cols = []
+        pats, inv = np.unique(bits, return_inverse=True)
+        keep = []
+        for pat in pats.tolist():
+            js = [j for j in range(len(cols)) if masks[j] is None or (
+                pat_cols and j in pat_cols and pat >> pat_cols.index(j) & 1)]
+            keep.append((tuple(cols[j] for j in js), operator.itemgetter(*js) if len(js) > 1
+                         else (lambda row, j=js[0]: (row[j],)) if js else (lambda row: ())))
+        inv_l = inv.tolist()
 
     def rows() -> Any:
-        if not part:
+        if not partial:
             yield from (dict(zip(cols, vals, strict=True)) for vals in zip(*lists, strict=True))
             return
-        for i in range(len(u)):
-            yield {c: lst[i] for c, lst, mk in spec if mk is None or mk[i]}
+        if not pat_cols:  # pragma: no cover
+            for i in range(len(u)):
+                yield {c: lists[j][i] for j, c in enumerate(cols)
+                       if masks[j] is None or masks[j][i]}
+            return
+        for i, vals in enumerate(zip(*lists, strict=True)):
+            names, get = keep[inv_l[i]]
+            yield dict(zip(names, get(vals), strict=True))
 
-    del full
-    G.add_edges_from(zip(u, v, k, rows(), strict=False))
+    add = G.add_edge  # one call per edge: add_edges_from copies every dict twice
+    for a, b, key, d in zip(u, v, k, rows(), strict=False):
+        add(a, b, key, **d)
     G.add_nodes_from(set(nodes.index) - set(G.nodes))
     df = nodes.drop(columns=nodes.active_geometry_name) if (
         nodes.active_geometry_name is not None) else pd.DataFrame(nodes)

@@ -8,7 +8,7 @@ from pathlib import Path
 from typing import Any
 
 from . import CAUTION, datasets, mapview
-from ._io import atomic_directory, dumps_json
+from ._io import atomic_directory, dumps_json, provenance, provenance_line
 from .network import build_network, save_network
 
 log = logging.getLogger(__name__)
@@ -32,6 +32,9 @@ def run_demo(out: str | Path, *, force: bool = False,
             part = stage(net, tmp, echo)
             if part:
                 summary.update(part)
+        summary["made_from"] = provenance(
+            profile=net.profile.fingerprint, network=net,
+            inputs={k: datasets.get_path(k) for k in ("routes", "area", "events", "drives")})
         (tmp / "summary.json").write_text(dumps_json(summary) + "\n", encoding="utf-8")
     echo(CAUTION)
     return summary
@@ -45,7 +48,8 @@ def _stage_score(net: Any, out: Path, echo: Callable[[str], None]) -> dict[str, 
 
     planned = routes.read_routes(datasets.get_path("routes"), default_tz=net.timezone)
     scores = scoring.score_routes(net, planned)
-    routemap.write_outputs(net, scores, out / "scores")
+    routemap.write_outputs(net, scores, out / "scores",
+                           inputs={"routes": datasets.get_path("routes")})
     echo("scores: " + "; ".join(f"{s.name} risk {s.risk:.2f} (index {s.relative_index:.2f}, "
                                f"{len(s.rule_breaks)} rule breaks)" for s in scores))
     return {"scores": [s.to_dict() for s in scores]}
@@ -57,7 +61,9 @@ def _stage_suggest(net: Any, out: Path, echo: Callable[[str], None]) -> dict[str
 
     planned = routes.read_routes(datasets.get_path("routes"), default_tz=net.timezone)
     result = suggest_routes(net, planned)
-    mapview.save(routemap.suggestion_map(net, result), out / "alternatives_map.html")
+    mapview.save(routemap.suggestion_map(net, result,
+                                         inputs={"routes": datasets.get_path("routes")}),
+                 out / "alternatives_map.html")
     for s in result:
         best = min((a.risk_change_pct for a in s.alternatives), default=0.0)
         echo(f"alternatives for {s.name}: {len(s.alternatives)}, best risk change {best:+.0f} %")
@@ -94,9 +100,12 @@ def _stage_evidence(net: Any, out: Path, echo: Callable[[str], None]) -> dict[st
     frame = evidence.segments_from_drives(net, datasets.get_path("drives"))
     plan = plan.with_exposure(evidence.distance_by_exposure(
         frame, needed=plan.miles_no_failure, units=inputs.units))
-    (out / "evidence.txt").write_text("\n".join(evidence.describe(plan)) + "\n",
-                                      encoding="utf-8")
-    evidence.plot_upper_limit(plan, out / "evidence_chart.png")
+    made_from = provenance(profile=net.profile.fingerprint, network=net,
+                           inputs={"drives": datasets.get_path("drives")})
+    lines = evidence.describe(plan)
+    lines.insert(-1, f"Made from: {provenance_line(made_from)}.")
+    (out / "evidence.txt").write_text("\n".join(lines) + "\n", encoding="utf-8")
+    evidence.plot_upper_limit(plan, out / "evidence_chart.png", made_from=made_from)
     echo(f"evidence: {plan.miles_no_failure / 1e6:.0f} million mi with no event to show the "
          f"target; the sample drives cover {frame['length_m'].sum() / 1609.344:.1f} mi")
     return {"evidence": plan.to_json()}
@@ -109,7 +118,9 @@ def _stage_watch(net: Any, out: Path, echo: Callable[[str], None]) -> dict[str, 
     from . import watch
 
     result = watch.watch(net, datasets.get_path("events"), datasets.get_path("drives"))
-    watch.write_outputs(net, result, out / "warnings")
+    watch.write_outputs(net, result, out / "warnings",
+                        inputs={"events": datasets.get_path("events"),
+                                "drives": datasets.get_path("drives")})
     flagged = result.segments[result.segments["flagged"]]
     streets = sorted(set(flagged["street"]))
     echo(f"early warnings: {len(result.matched)} events matched, {len(flagged)} segment(s) "

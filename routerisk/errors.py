@@ -65,5 +65,9 @@ class OfflineError(RouteriskError):
     """An online source was asked for but the network cannot be reached."""
 
 
-class OutputExistsError(RouteriskError):
-    """An output already exists and ``--force`` was not given."""
+class OutputError(RouteriskError):
+    """An output cannot be written (a file in the way, no permission, disk full)."""
+
+
+class OutputExistsError(OutputError):
+    """An output already exists and ``--force`` was not given (or is of the other kind)."""

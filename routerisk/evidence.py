@@ -26,13 +26,10 @@ All rates inside the module are events per unit distance (per mile or per kilome
 
 from __future__ import annotations
 
-import contextlib
 import io
 import json
 import logging
 import math
-import os
-import tempfile
 from dataclasses import asdict, dataclass, field, replace
 from pathlib import Path
 from typing import Any, Literal
@@ -42,7 +39,7 @@ import pandas as pd
 from scipy import stats
 
 from . import CAUTION
-from ._io import check_target
+from ._io import provenance_line, write_bytes_atomic
 from .errors import InputFileError, OptionError
 
 logger = logging.getLogger(__name__)
@@ -806,24 +803,8 @@ def read_segments(path: str | Path) -> pd.DataFrame:
 # ---------------------------------------------------------------------------------------------
 
 
-def _write_bytes_atomic(path: str | Path, data: bytes) -> Path:
-    target = check_target(path, force=True)
-    target.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent)
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            fh.write(data)
-            fh.flush()
-            os.fsync(fh.fileno())
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes 0600; give the usual file mode
-        os.replace(tmp, target)
-    except BaseException:
-        with contextlib.suppress(FileNotFoundError):
-            os.unlink(tmp)
-        raise
-    return target
+def _write_bytes_atomic(path: str | Path, data: bytes, *, force: bool = True) -> Path:
+    return write_bytes_atomic(path, data, force=force)
 
 
 def _upper_curve(plan: EvidencePlan, distances: np.ndarray) -> np.ndarray:
@@ -831,7 +812,8 @@ def _upper_curve(plan: EvidencePlan, distances: np.ndarray) -> np.ndarray:
     return np.asarray(count0 / distances * plan.inputs.per)
 
 
-def plot_upper_limit(plan: EvidencePlan, path: str | Path) -> Path:
+def plot_upper_limit(plan: EvidencePlan, path: str | Path, *, force: bool = True,
+                     made_from: dict[str, Any] | None = None) -> Path:
     """Draw the zero-event upper limit of the rate against distance, with the target line.
 
     Uses matplotlib's Agg canvas directly (no pyplot, no global backend change) and writes
@@ -842,7 +824,12 @@ def plot_upper_limit(plan: EvidencePlan, path: str | Path) -> Path:
     plan
         The evidence plan.
     path
-        Output PNG file (replaced if present).
+        Output PNG file (replaced if present with ``force``, else refused).
+    force
+        Replace an existing file.
+    made_from
+        Provenance (:func:`routerisk._io.provenance`) to record in the PNG's
+        ``Description`` text chunk.
 
     Returns
     -------
@@ -882,8 +869,11 @@ def plot_upper_limit(plan: EvidencePlan, path: str | Path) -> Path:
     fig.text(0.01, 0.01, CAUTION, fontsize=6, wrap=True, va="bottom", color="#444444")
     fig.subplots_adjust(bottom=0.2)
     buf = io.BytesIO()
-    fig.savefig(buf, format="png")
-    out = _write_bytes_atomic(path, buf.getvalue())
+    meta: dict[str, str | None] = {"Software": None}
+    if made_from is not None:
+        meta["Description"] = provenance_line(made_from)
+    fig.savefig(buf, format="png", metadata=meta)
+    out = _write_bytes_atomic(path, buf.getvalue(), force=force)
     logger.info("plot_upper_limit wrote %s", out)
     return out
 

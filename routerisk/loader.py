@@ -13,6 +13,7 @@ the same graph.
 
 from __future__ import annotations
 
+import functools
 import logging
 import math
 from pathlib import Path
@@ -49,6 +50,7 @@ _ONEWAY = {"yes", "true", "1", "-1", "reverse", "T", "F"}
 _REVERSED = {"-1", "reverse", "T"}
 
 
+@functools.lru_cache(maxsize=256)
 def utm_crs(lon: float, lat: float) -> pyproj.CRS:
     """Return the WGS 84 UTM zone CRS that contains the point (chosen by pyproj)."""
     infos = query_utm_crs_info(

@@ -49,11 +49,23 @@ def _leaflet_assets() -> tuple[str, str]:
     return js, css
 
 
+#: Characters that html.escape leaves alone but that mean something inside a JavaScript
+#: template literal, where folium puts tooltip text (`` `<div> {{ text }} </div>` ``): a
+#: backtick ends the literal, ``${`` starts code and a backslash starts an escape. As HTML
+#: character references they show as themselves in the page and mean nothing to the script.
+_JS_LITERAL = str.maketrans({"`": "&#96;", "$": "&#36;", "\\": "&#92;"})
+
+
 def escape(value: Any) -> str:
-    """Return ``value`` as HTML-escaped text (None and NaN become an empty string)."""
+    """Return ``value`` as HTML-escaped text (None and NaN become an empty string).
+
+    Besides ``& < > " '``, the backtick, ``$`` and the backslash become character
+    references, so the text is inert inside the JavaScript template literals folium builds
+    tooltips with, and shows as itself in the page.
+    """
     if value is None or (isinstance(value, float) and np.isnan(value)):
         return ""
-    return html.escape(str(value), quote=True)
+    return html.escape(str(value), quote=True).translate(_JS_LITERAL)
 
 
 def new_map(bounds: tuple[float, float, float, float], *, tiles: str | None = None,
@@ -126,6 +138,16 @@ def add_panel(m: folium.Map, html_text: str, *, position: str = "bottomright",
     m.add_child(_Panel(html_text, position=position, dom_id=dom_id))
 
 
+def add_provenance(m: folium.Map, prov: dict[str, Any]) -> None:
+    """Record the provenance (tool version, profile, input checksums) in the page header."""
+    from ._io import dumps_json
+
+    text = dumps_json(prov).replace("\n", " ")
+    m.get_root().header.add_child(Element(
+        f'<meta name="routerisk-provenance" content="{escape(text)}">'),
+        name="routerisk_provenance")
+
+
 def legend_html(title: str, items: list[tuple[str, str]], *, extra: str = "") -> str:
     """Return legend HTML: a title, colour swatches with labels, and the caution."""
     rows = "".join(
@@ -165,7 +187,8 @@ def add_lines(m: folium.Map | folium.FeatureGroup, gdf: gpd.GeoDataFrame, *, nam
         data.to_json(drop_id=True),
         style_function=lambda f: {"color": f["properties"]["_colour"], "weight": weight,
                                   "opacity": opacity},
-        popup=folium.GeoJsonPopup(fields=list(fields), aliases=list(fields.values()),
+        popup=folium.GeoJsonPopup(fields=list(fields),
+                                  aliases=[escape(a) for a in fields.values()],
                                   labels=True) if fields else None,
         name=escape(name),
     ).add_to(layer)
@@ -253,4 +276,7 @@ def network_map(net, *, tiles: str | None = None, title: str = "Pedestrian expos
     items += [(CATEGORY_COLOURS.get(c.name, "#555"), c.label) for c in prof.categories]
     add_panel(m, legend_html(title, items, extra=f"<div>profile {escape(prof.name)} "
                                                  f"{escape(prof.fingerprint)}</div>"))
+    from ._io import provenance
+
+    add_provenance(m, provenance(profile=prof.fingerprint, network=net))
     return m

@@ -167,8 +167,13 @@ def build_network(
     profile: Profile | None = None,
     timezone: str = "UTC",
     largest_component: bool = True,
+    tagger: Any = None,
 ) -> Network:
-    """Read an OSM file, build the road graph, extract sources and tag every edge."""
+    """Read an OSM file, build the road graph, extract sources and tag every edge.
+
+    ``tagger`` replaces :func:`routerisk.tagging.tag_edges` (same arguments and result),
+    e.g. the tiled tagging of :mod:`routerisk.partition` on a Dask cluster.
+    """
     profile = profile or load_profile()
     check_timezone(timezone)
     raw = read_osm(source, feature_filter=_feature_filter(profile))
@@ -178,7 +183,8 @@ def build_network(
     edges = edges[[c for c in edges.columns if c in EDGE_KEEP]]
     src = sources.sources_from_raw(raw, profile, crs=crs)
     cross = sources.crossings_from_raw(raw, crs=crs)
-    tagged = tagging.tag_edges(edges, src, cross, profile, polygons=_rule_polygons(profile))
+    tag = tagger or tagging.tag_edges
+    tagged = tag(edges, src, cross, profile, polygons=_rule_polygons(profile))
     meta = {
         "format_version": FORMAT_VERSION,
         "routerisk_version": __version__,

@@ -19,18 +19,25 @@ import pandas as pd
 import yaml
 
 from .errors import InputFileError
-from .profile import DAYS, MINUTES_PER_WEEK, Rule
+from .profile import DAYS, MAX_FACTOR, MINUTES_PER_WEEK, Rule
 
 RULE_NAME = "early-warning overlay"
 
 
 def write_overlay(path: str | Path, rows: list[dict[str, Any]], *, profile: str,
-                  source: str, force: bool = True) -> Path:
-    """Write an overlay file (atomically) for the given edge rows."""
+                  source: str, force: bool = True,
+                  made_from: dict[str, Any] | None = None) -> Path:
+    """Write an overlay file (atomically) for the given edge rows.
+
+    ``made_from`` (tool version, profile, input checksums) is recorded as is.
+    """
     from ._io import write_text_atomic
 
-    doc = {"version": 1, "kind": "routerisk-overlay", "profile": profile, "from": source,
-           "edges": rows}
+    doc: dict[str, Any] = {"version": 1, "kind": "routerisk-overlay", "profile": profile,
+                           "from": source}
+    if made_from is not None:
+        doc["made_from"] = made_from
+    doc["edges"] = rows
     return write_text_atomic(path, yaml.safe_dump(doc, sort_keys=False), force=force)
 
 
@@ -79,9 +86,9 @@ def apply_overlay(net: Any, path: str | Path) -> Any:
             raise InputFileError("edge is not in this network", path=p, field=f) from exc
         fac = r.get("factor", 1.0)
         if isinstance(fac, bool) or not isinstance(fac, int | float) or not fac >= 1.0 or \
-                not np.isfinite(fac):
-            raise InputFileError(f"factor must be a number >= 1, got {fac!r}", path=p,
-                                 field=f"{f}.factor")
+                not fac <= MAX_FACTOR:
+            raise InputFileError(f"factor must be a number from 1 to {MAX_FACTOR:g}, got "
+                                 f"{fac!r}", path=p, field=f"{f}.factor")
         factor[pos] = max(factor[pos], float(fac))
         if r.get("closed"):
             closed[pos] = True

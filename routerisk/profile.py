@@ -26,6 +26,9 @@ from .errors import ProfileError
 DAYS = ("mon", "tue", "wed", "thu", "fri", "sat", "sun")
 DECAYS = ("none", "linear", "gaussian")
 MINUTES_PER_WEEK = 7 * 24 * 60
+#: Largest weight, multiplier or baseline a profile may set: far above any sensible value,
+#: and small enough that every risk sum stays a finite number.
+MAX_FACTOR = 1e6
 DEFAULT_PROFILE = Path(__file__).with_name("data") / "default.yaml"
 
 
@@ -243,7 +246,15 @@ class _Reader:
     def number(self, value: Any, key: str, *, low: float = 0.0, strict: bool = False,
                high: float = math.inf) -> float:
         if isinstance(value, bool) or not isinstance(value, int | float):
-            raise self.fail(key, f"must be a number, got {value!r}")
+            hint = ""
+            if isinstance(value, str):
+                try:
+                    float(value)
+                    hint = (" (read as text: YAML needs a sign in the exponent, "
+                            "e.g. 1.0e+3, or a plain number)")
+                except ValueError:
+                    pass
+            raise self.fail(key, f"must be a number, got {value!r}{hint}")
         v = float(value)
         if not math.isfinite(v):
             raise self.fail(key, f"must be finite, got {value!r}")
@@ -287,7 +298,8 @@ class _Reader:
             if start == end:
                 raise self.fail(f"{k}.end", "window has zero length (start equals end)")
             mult = (
-                self.number(w["multiplier"], f"{k}.multiplier") if with_multiplier else 1.0
+                self.number(w["multiplier"], f"{k}.multiplier", high=MAX_FACTOR)
+                if with_multiplier else 1.0
             )
             out.append(Window(tuple(days), start, end % 1440 if end == 1440 else end, mult))
         if with_multiplier:
@@ -322,12 +334,14 @@ def parse_profile(data: Any, *, path: str | Path = "<profile>") -> Profile:
     by_class = r.mapping(bl.get("by_road_class", {}), "baseline.by_road_class",
                          set(map(str, bl.get("by_road_class", {}) or {})))
     baseline = tuple(sorted(
-        (str(k), r.number(v, f"baseline.by_road_class.{k}")) for k, v in by_class.items()
+        (str(k), r.number(v, f"baseline.by_road_class.{k}", high=MAX_FACTOR))
+        for k, v in by_class.items()
     ))
     sidewalk_raw = bl.get("sidewalk", {}) or {}
     r.mapping(sidewalk_raw, "baseline.sidewalk", set(map(str, sidewalk_raw)))
     sidewalk = tuple(sorted(
-        (str(k), r.number(v, f"baseline.sidewalk.{k}")) for k, v in sidewalk_raw.items()
+        (str(k), r.number(v, f"baseline.sidewalk.{k}", high=MAX_FACTOR))
+        for k, v in sidewalk_raw.items()
     ))
 
     tps_raw = d.get("time_profiles", {}) or {}
@@ -338,7 +352,7 @@ def parse_profile(data: Any, *, path: str | Path = "<profile>") -> Profile:
         r.mapping(t, k, {"default", "windows"}, {"windows"})
         tps.append(TimeProfile(
             str(tname),
-            r.number(t.get("default", 1.0), f"{k}.default"),
+            r.number(t.get("default", 1.0), f"{k}.default", high=MAX_FACTOR),
             r.windows(t["windows"], f"{k}.windows", with_multiplier=True),
         ))
     tp_names = {t.name for t in tps}
@@ -383,7 +397,7 @@ def parse_profile(data: Any, *, path: str | Path = "<profile>") -> Profile:
             name=str(cname),
             label=str(c.get("label", cname)),
             selectors=tuple(selectors),
-            weight=r.number(c["weight"], f"{k}.weight"),
+            weight=r.number(c["weight"], f"{k}.weight", high=MAX_FACTOR),
             radius_m=r.number(c["radius_m"], f"{k}.radius_m", strict=True, high=5000),
             decay=decay,
             time_profile=tp,
@@ -456,11 +470,13 @@ def parse_profile(data: Any, *, path: str | Path = "<profile>") -> Profile:
         description=str(d.get("description", "")).strip(),
         sample_spacing_m=spacing,
         baseline_by_class=baseline,
-        baseline_default=r.number(bl.get("default", 0.2), "baseline.default"),
+        baseline_default=r.number(bl.get("default", 0.2), "baseline.default",
+                                  high=MAX_FACTOR),
         sidewalk=sidewalk,
         time_profiles=tuple(tps),
         categories=tuple(cats),
-        crossing_weight=r.number(d.get("crossing_weight", 0.0), "crossing_weight"),
+        crossing_weight=r.number(d.get("crossing_weight", 0.0), "crossing_weight",
+                                 high=MAX_FACTOR),
         severity_outcome=outcome,
         reference_mph=ref,
         bands=tuple(bands),

@@ -351,7 +351,8 @@ def _stable_ids(text: str) -> str:
 
 
 def page(title: str, body: Sequence[str], *, facts: Sequence[tuple[str, Any]] = (),
-         toc: Sequence[tuple[str, str]] = ()) -> str:
+         toc: Sequence[tuple[str, str]] = (), provenance: Mapping[str, Any] | None = None
+         ) -> str:
     """Return a complete, self-contained HTML page.
 
     Parameters
@@ -364,7 +365,17 @@ def page(title: str, body: Sequence[str], *, facts: Sequence[tuple[str, Any]] = 
         ``(label, value)`` pairs shown under the title (escaped): profile, data date, licence.
     toc
         ``(anchor id, label)`` pairs for a table of contents.
+    provenance
+        What the page was made from (:func:`routerisk._io.provenance`): recorded in a
+        ``<meta name="routerisk-provenance">`` element and shown as a fact line.
     """
+    prov_meta = ""
+    if provenance is not None:
+        from ._io import dumps_json, provenance_line
+
+        facts = [*facts, ("made from", provenance_line(dict(provenance)))]
+        prov_meta = ('<meta name="routerisk-provenance" content="'
+                     f'{escape(dumps_json(dict(provenance)).replace(chr(10), " "))}">')
     fact_html = pairs_html(facts) if facts else ""
     nav = ""
     if toc:
@@ -375,6 +386,7 @@ def page(title: str, body: Sequence[str], *, facts: Sequence[tuple[str, Any]] = 
         '<html lang="en"><head><meta charset="utf-8">'
         f'<meta http-equiv="Content-Security-Policy" content="{escape(CSP)}">'
         '<meta name="viewport" content="width=device-width, initial-scale=1">'
+        f"{prov_meta}"
         f"<title>{escape(title)}</title><style>{PAGE_CSS}</style></head><body>"
         f"<header><h1>{escape(title)}</h1>{caution_html()}{fact_html}{nav}</header>"
         "<main>" + "".join(body) + "</main>"

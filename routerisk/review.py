@@ -50,9 +50,9 @@ from shapely import STRtree
 from shapely.geometry.base import BaseGeometry
 
 from . import CAUTION, __version__, report
-from ._io import atomic_directory, check_target, dumps_json, write_text_atomic
+from ._io import atomic_directory, check_target, dumps_json, provenance, write_text_atomic
 from .errors import InputFileError, OptionError
-from .profile import DAYS, MINUTES_PER_WEEK, Profile
+from .profile import DAYS, MAX_FACTOR, MINUTES_PER_WEEK, Profile
 from .scoring import rules_in_force
 from .tagging import CROSSING_SNAP_M
 
@@ -252,9 +252,9 @@ def parse_what_if(specs: Sequence[str], profile: Profile, *,
             except ValueError:
                 raise OptionError(f"weight must be a number, got {value!r} in {spec!r}",
                                   field=option) from None
-            if not math.isfinite(w) or w < 0:
-                raise OptionError(f"weight must be a finite number >= 0, got {value!r}",
-                                  field=option)
+            if not math.isfinite(w) or w < 0 or w > MAX_FACTOR:
+                raise OptionError(f"weight must be a finite number >= 0 and <= "
+                                  f"{MAX_FACTOR:g}, got {value!r}", field=option)
             changes.append(Change("weight", target, w, spec))
         else:
             raise OptionError(f"unknown kind {kind!r} in {spec!r}; {WHAT_IF_HELP}",
@@ -748,11 +748,13 @@ class Review:
     area_shapes: list[Area] = field(default_factory=list, repr=False)
     clipped: dict[str, gpd.GeoDataFrame] = field(default_factory=dict, repr=False)
     sources: gpd.GeoDataFrame | None = field(default=None, repr=False)
+    provenance: dict[str, Any] = field(default_factory=dict)
 
     def to_json(self) -> dict[str, Any]:
         """Return the JSON document of ``routerisk review --json``."""
         return {
             "areas": self.areas,
+            "inputs": self.provenance.get("inputs", {}),
             "profile": self.profile.fingerprint,
             "profile_name": self.profile.name,
             "network": {k: self.meta.get(k) for k in ("source_name", "source_sha256",
@@ -814,8 +816,11 @@ def review_areas(net: Network, areas: Sequence[Area], *, at: int | None = None,
             "areas": rows,
         })
     log.info("review_areas reviewed %d areas with %d what-ifs", len(areas), len(what_ifs))
+    files = sorted({a.source for a in areas if a.source and Path(a.source).is_file()})
+    prov = provenance(profile=net.profile.fingerprint, network=net, inputs={
+        ("areas" if i == 0 else f"areas_{i + 1}"): f for i, f in enumerate(files)})
     return Review(results, net.profile, dict(net.meta), scenarios, at, list(areas), clipped,
-                  net.sources)
+                  net.sources, prov)
 
 
 def _compare(base: dict[str, Any], new: dict[str, Any]) -> dict[str, Any]:
@@ -876,6 +881,12 @@ def comparison_table(review: Review) -> pd.DataFrame:
         row["parts_at_peak"] = len(a["allowed_parts"])
         row["largest_part_share_at_peak"] = a["connectivity"]["peak"]["largest_share"]
         row["hotspot_top"] = a["hotspots"][0]["street"] if a["hotspots"] else ""
+        # what the figures were made from, on every row (CSV has no place for metadata)
+        row["profile"] = prof.fingerprint
+        row["routerisk_version"] = __version__
+        row["network_source_sha256"] = review.meta.get("source_sha256", "")
+        row["area_file_sha256"] = review.provenance.get("inputs", {}).get(
+            "areas", {}).get("sha256", "")
         rows.append(row)
     return pd.DataFrame(rows)
 
@@ -1232,4 +1243,5 @@ def review_html(review: Review) -> str:
         "the closed edges; edges that cross the boundary count as in the area."),
         anchor_id="method"))
     names = ", ".join(a["name"] for a in review.areas)
-    return r.page(f"Area review: {names}", body, facts=facts, toc=toc)
+    return r.page(f"Area review: {names}", body, facts=facts, toc=toc,
+                  provenance=review.provenance or None)

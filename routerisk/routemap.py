@@ -18,7 +18,7 @@ import pandas as pd  # noqa: E402
 from shapely import LineString  # noqa: E402
 from shapely.ops import substring  # noqa: E402
 
-from . import CAUTION, __version__, mapview  # noqa: E402
+from . import CAUTION, mapview  # noqa: E402
 from ._io import dumps_json, write_text_atomic  # noqa: E402
 from .scoring import RouteScore  # noqa: E402
 
@@ -175,27 +175,40 @@ def route_map(net: Any, scores: list[RouteScore], *, tiles: str | None = None,
     return m
 
 
-def output_meta(net: Any) -> dict[str, Any]:
-    """Return what every output records: tool version, profile, input checksum, caution."""
-    return {"routerisk_version": __version__, "profile": net.profile.fingerprint,
-            "network_source_sha256": net.meta.get("source_sha256"), "caution": CAUTION}
+def output_meta(net: Any, inputs: dict[str, Any] | None = None) -> dict[str, Any]:
+    """Return what every output records: tool version, profile, input checksums, caution.
+
+    ``inputs`` maps a role (``routes``) to an input file; the network's OSM source and
+    overlay are always recorded.
+    """
+    from ._io import provenance
+
+    prov = provenance(profile=net.profile.fingerprint, network=net, inputs=inputs)
+    return {**prov, "network_source_sha256": net.meta.get("source_sha256"), "caution": CAUTION}
 
 
 def write_outputs(net: Any, scores: list[RouteScore], out: str | Path, *,
-                  force: bool = False, tiles: str | None = None) -> Path:
-    """Write routes.csv, segments.geojson and map.html into ``out`` atomically."""
-    from ._io import atomic_directory
+                  force: bool = False, tiles: str | None = None,
+                  inputs: dict[str, Any] | None = None) -> Path:
+    """Write routes.csv, segments.geojson and map.html into ``out`` atomically.
 
-    meta = output_meta(net)
+    Each records the tool version, the profile fingerprint and the input checksums
+    (``inputs``: role -> file, e.g. ``{"routes": path}``; the network source always).
+    """
+    from ._io import atomic_directory, provenance_line
+
+    meta = output_meta(net, inputs)
+    table = ranking_table(scores)
+    csv_text = (f"# {CAUTION}\n# {provenance_line(meta)}\n"
+                + _round_floats(table).to_csv(index=False, lineterminator="\n"))
+    geojson = geojson_text(segments_gdf(net, scores), meta)
+    m = route_map(net, scores, tiles=tiles)
+    mapview.add_provenance(m, {k: meta[k] for k in ("routerisk_version", "profile", "inputs")})
+    page = mapview.render(m)
     with atomic_directory(out, force=force) as tmp:
-        table = ranking_table(scores)
-        (tmp / "routes.csv").write_text(
-            f"# {CAUTION}\n" + _round_floats(table).to_csv(index=False, lineterminator="\n"),
-            encoding="utf-8")
-        (tmp / "segments.geojson").write_text(geojson_text(segments_gdf(net, scores), meta),
-                                              encoding="utf-8")
-        (tmp / "map.html").write_text(mapview.render(route_map(net, scores, tiles=tiles)),
-                                      encoding="utf-8")
+        (tmp / "routes.csv").write_text(csv_text, encoding="utf-8")
+        (tmp / "segments.geojson").write_text(geojson, encoding="utf-8")
+        (tmp / "map.html").write_text(page, encoding="utf-8")
     return Path(out)
 
 
@@ -224,7 +237,8 @@ def tradeoff_chart(s: Any) -> str:
     return png_data_uri(fig)
 
 
-def suggestion_map(net: Any, suggestions: list[Any], *, tiles: str | None = None) -> Any:
+def suggestion_map(net: Any, suggestions: list[Any], *, tiles: str | None = None,
+                   inputs: dict[str, Any] | None = None) -> Any:
     """Return one offline map: network by band, sources, rule zones, plans and alternatives.
 
     Each planned route and each alternative is its own switchable layer; a side panel lists
@@ -292,4 +306,7 @@ def suggestion_map(net: Any, suggestions: list[Any], *, tiles: str | None = None
     mapview.add_panel(m, mapview.legend_html("Lower-exposure alternatives", items,
                                              extra=f"<div>profile {mapview.escape(prof.name)} "
                                                    f"{mapview.escape(prof.fingerprint)}</div>"))
+    from ._io import provenance
+
+    mapview.add_provenance(m, provenance(profile=prof.fingerprint, network=net, inputs=inputs))
     return m

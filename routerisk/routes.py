@@ -69,6 +69,9 @@ __all__ = [
 REQUIRED_POINT_TOLERANCE_M = 30.0
 
 _EARTH_RADIUS_M = 6_371_008.8
+#: Years a route time may carry (dates near the ends of the calendar overflow when a
+#: drive's duration is added).
+_YEARS = (1900, 2200)
 _ROUTE_TYPES = ("LineString", "MultiLineString")
 _OTHER_GEOMETRIES = ("Point", "MultiPoint", "Polygon", "MultiPolygon", "GeometryCollection")
 _TRUE = frozenset({"1", "true", "yes", "y", "t"})
@@ -331,6 +334,9 @@ def _parse_time(
             path=path,
             field=field,
         ) from None
+    if not _YEARS[0] <= dt.year <= _YEARS[1]:
+        raise RouteInputError(f"year {dt.year} is outside {_YEARS[0]}-{_YEARS[1]}: "
+                              f"{_short(value)}", path=path, field=field)
     if dt.tzinfo is None:
         if tz is not None:
             dt = dt.replace(tzinfo=tz)

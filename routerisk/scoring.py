@@ -77,6 +77,9 @@ from typing import Any  # noqa: E402
 LEFT_TURN_MIN_DEG = 45.0
 LEFT_TURN_MAX_DEG = 150.0
 HOTSPOTS = 5
+#: Departure years accepted (a drive's times are added to the departure, so dates near the
+#: ends of Python's calendar would overflow).
+YEARS = (1900, 2200)
 
 
 @dataclass
@@ -336,6 +339,9 @@ def parse_depart(text: str, tz: Any) -> _dt.datetime:
     except ValueError as exc:
         raise OptionError(f"not an ISO 8601 date and time: {text!r} (e.g. 2027-03-09T08:05)",
                           field="--depart") from exc
+    if not YEARS[0] <= t.year <= YEARS[1]:
+        raise OptionError(f"year {t.year} is outside {YEARS[0]}-{YEARS[1]}: {text!r}",
+                          field="--depart")
     return t.replace(tzinfo=tz) if t.tzinfo is None else t
 
 

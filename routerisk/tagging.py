@@ -48,14 +48,17 @@ def sample_points(geoms: np.ndarray, spacing: float) -> tuple[np.ndarray, np.nda
 
 def near_pairs(points: np.ndarray, sources: np.ndarray, radius: float, *,
                point_tree: STRtree | None = None) -> tuple[np.ndarray, np.ndarray]:
-    """Return (point index, source index) of every pair within ``radius``, by point.
+    """Return (point index, source index) of every pair within ``radius``.
 
     With ``point_tree`` (an STRtree of ``points``) the sources query the points; the pairs
     are the same as when the points query a tree of the sources.
     """
     if point_tree is None:
-        return STRtree(sources).query(points, predicate="dwithin", distance=radius)
-    si, pi = point_tree.query(sources, predicate="dwithin", distance=radius)
+        pi, si = STRtree(sources).query(points, predicate="dwithin", distance=radius)
+    else:
+        si, pi = point_tree.query(sources, predicate="dwithin", distance=radius)
+    # by point, then by source: sums over stacked sources add in source order, not in the
+    # order a tree happens to visit them (so a tile of the network adds them the same way)
     order = np.lexsort((si, pi))
     return pi[order], si[order]
 
@@ -107,19 +110,16 @@ def baseline(edges: pd.DataFrame, profile: Profile) -> np.ndarray:
     return base * mult
 
 
-def rule_flags(edges: gpd.GeoDataFrame, sources: gpd.GeoDataFrame, profile: Profile,
-               polygons: dict[str, gpd.GeoSeries] | None = None) -> pd.DataFrame:
-    """Return one bool column ``rule_<i>`` per hard rule: True where the rule covers the edge.
-
-    Whether it is in force at a given time is the rule's weekly window, applied when driving.
-    """
+def _rule_arrays(edges: gpd.GeoDataFrame, src_geoms: np.ndarray, src_cat: np.ndarray,
+                 profile: Profile, polygons: dict[str, gpd.GeoSeries] | None
+                 ) -> dict[str, np.ndarray]:
     geoms = edges.geometry.to_numpy()
     edge_tree: STRtree | None = None
     out = {}
     for i, rule in enumerate(profile.rules):
         flag = np.zeros(len(edges), dtype=bool)
         if rule.category is not None:
-            src = sources.geometry[sources["category"] == rule.category].to_numpy()
+            src = src_geoms[src_cat == rule.category]
             if len(src):
                 if edge_tree is None:
                     edge_tree = STRtree(geoms)
@@ -132,7 +132,18 @@ def rule_flags(edges: gpd.GeoDataFrame, sources: gpd.GeoDataFrame, profile: Prof
         if rule.road_classes:
             flag |= edges["highway"].isin(rule.road_classes).to_numpy()
         out[f"rule_{i}"] = flag
-    return pd.DataFrame(out, index=edges.index)
+    return out
+
+
+def rule_flags(edges: gpd.GeoDataFrame, sources: gpd.GeoDataFrame, profile: Profile,
+               polygons: dict[str, gpd.GeoSeries] | None = None) -> pd.DataFrame:
+    """Return one bool column ``rule_<i>`` per hard rule: True where the rule covers the edge.
+
+    Whether it is in force at a given time is the rule's weekly window, applied when driving.
+    """
+    return pd.DataFrame(_rule_arrays(edges, sources.geometry.to_numpy(),
+                                     sources["category"].to_numpy(), profile, polygons),
+                        index=edges.index)
 
 
 def tag_edges(
@@ -158,36 +169,47 @@ def tag_edges(
     polygons
         Rule name -> polygons, for rules that name a polygons file.
     """
-    out = edges.copy()
-    geoms = out.geometry.to_numpy()
+    n = len(edges)
+    geoms = edges.geometry.to_numpy()
+    src_geoms = sources.geometry.to_numpy()
+    src_cat = sources["category"].to_numpy()
     pts, owner = sample_points(geoms, profile.sample_spacing_m)
     point_tree = STRtree(pts) if len(pts) else None
+    new: dict[str, np.ndarray] = {}
     for cat in profile.categories:
-        src = sources.geometry[sources["category"] == cat.name].to_numpy()
-        exp, share = category_exposure(pts, owner, len(out), src, cat, point_tree=point_tree)
-        out[f"exp_{cat.name}"] = exp
-        out[f"infl_{cat.name}"] = share
-    n_cross = np.zeros(len(out), dtype=np.int64)
+        src = src_geoms[src_cat == cat.name]
+        exp, share = category_exposure(pts, owner, n, src, cat, point_tree=point_tree)
+        new[f"exp_{cat.name}"] = exp
+        new[f"infl_{cat.name}"] = share
+    n_cross = np.zeros(n, dtype=np.int64)
     if len(crossings):
         ci, ei = STRtree(geoms).query(crossings.geometry.to_numpy(), predicate="dwithin",
                                       distance=CROSSING_SNAP_M)
-        n_cross = np.bincount(ei, minlength=len(out)).astype(np.int64)
-    out["crossings"] = n_cross
-    out["baseline"] = baseline(out, profile)
-    out["severity"] = severity_factor(out["speed_kph"].to_numpy(dtype=float),
+        n_cross = np.bincount(ei, minlength=n).astype(np.int64)
+    new["crossings"] = n_cross
+    new["baseline"] = baseline(edges, profile)
+    new["severity"] = severity_factor(edges["speed_kph"].to_numpy(dtype=float),
                                       outcome=profile.severity_outcome,
                                       reference_mph=profile.reference_mph)
-    weights = np.array([c.weight for c in profile.categories])
-    exp_cols = [f"exp_{c.name}" for c in profile.categories]
-    # Exposure per km at multiplier 1 (the weights as given), and the band it falls in.
-    per_km = out["baseline"].to_numpy() + out[exp_cols].to_numpy() @ weights
-    length_km = out["length"].to_numpy(dtype=float) / 1000.0
+    # Exposure per km at multiplier 1 (the weights as given), and the band it falls in;
+    # summed category by category (not a BLAS product, whose rounding depends on the
+    # number of rows), so a tile of the network gets the same values as the whole.
+    per_km = new["baseline"].copy()
+    for c in profile.categories:
+        per_km = per_km + new[f"exp_{c.name}"] * c.weight
+    length_km = edges["length"].to_numpy(dtype=float) / 1000.0
     with np.errstate(divide="ignore", invalid="ignore"):
         cross_per_km = np.where(length_km > 0, profile.crossing_weight * n_cross / length_km, 0)
-    out["exposure_km"] = per_km + cross_per_km
-    out["band"] = profile.band_of(out["exposure_km"].to_numpy())
-    flags = rule_flags(out, sources, profile, polygons)
-    for col in flags:
-        out[col] = flags[col].to_numpy()
+    new["exposure_km"] = per_km + cross_per_km
+    new["band"] = profile.band_of(new["exposure_km"])
+    new.update(_rule_arrays(edges, src_geoms, src_cat, profile, polygons))
+    out = edges.copy()
+    again = [c for c in new if c in out.columns]
+    for c in again:  # re-tagging tagged edges: replace in place, as before
+        out[c] = new.pop(c)
+    if new:
+        added = pd.DataFrame(new, index=out.index)
+        out = gpd.GeoDataFrame(pd.concat([pd.DataFrame(out), added], axis=1),
+                               geometry=edges.geometry.name, crs=edges.crs)
     log.info("tag_edges tagged %d edges with %d sample points", len(out), len(pts))
     return out

@@ -32,6 +32,8 @@ log = logging.getLogger(__name__)
 MAX_TIME_GAP_S = 30.0
 MAX_OFFSET_M = 50.0
 GROUPS = ("street", "band", "hour")
+#: Event years accepted (as for route times, routerisk.routes).
+YEARS = (1900, 2200)
 
 
 @dataclass
@@ -175,6 +177,15 @@ def watch(net: Any, events_path: str | Path, drives_folder: str | Path, *, q: fl
     good, bad = early_warning.read_events(events_path, tz=net.timezone)
     rejected = bad[["row", "reason"]].copy() if len(bad) else pd.DataFrame(
         columns=["row", "reason"])
+    if len(good):  # times beyond the nanosecond calendar cannot be placed on any drive
+        years = pd.DatetimeIndex(good["time"]).year
+        odd = np.asarray((years < YEARS[0]) | (years > YEARS[1]))
+        if odd.any():
+            rejected = pd.concat([rejected, pd.DataFrame({
+                "row": good["row"].to_numpy()[odd],
+                "reason": f"time outside the years {YEARS[0]}-{YEARS[1]}"})],
+                ignore_index=True)
+            good = good.loc[~odd].reset_index(drop=True)
     drives = read_drives(net, drives_folder)
     matched, off = match_events(net, good, drives)
     rejected = pd.concat([rejected, off], ignore_index=True).sort_values("row", kind="stable")
@@ -273,20 +284,27 @@ def cusum_chart(result: WatchResult, groups: list[str]) -> bytes:
 
 
 def write_outputs(net: Any, result: WatchResult, out: str | Path, *, force: bool = False,
-                  close: bool = False) -> Path:
-    """Write overlay.yaml, segments.csv, map.html and report.html into ``out``."""
-    from . import CAUTION, mapview, overlay, report
-    from ._io import atomic_directory
+                  close: bool = False, inputs: dict[str, Any] | None = None) -> Path:
+    """Write overlay.yaml, segments.csv, map.html and report.html into ``out``.
 
+    Each records the tool version, the profile fingerprint and the checksums of the
+    network source and of ``inputs`` (role -> file or folder: events, drives).
+    """
+    from . import CAUTION, mapview, overlay, report
+    from ._io import atomic_directory, provenance, provenance_line
+
+    prov = provenance(profile=net.profile.fingerprint, network=net, inputs=inputs)
     seg = result.segments
     flagged = seg[seg["flagged"]]
     with atomic_directory(out, force=force) as tmp:
         overlay.write_overlay(tmp / "overlay.yaml", overlay.flagged_rows(flagged, close=close),
-                              profile=net.profile.fingerprint, source="routerisk watch")
+                              profile=net.profile.fingerprint, source="routerisk watch",
+                              made_from=prov)
         cols = ["u", "v", "key", "street", "band", "events", "km", "expected", "eb_rate",
                 "eb_ratio", "p_value", "q_value", "flagged"]
-        (tmp / "segments.csv").write_text(f"# {CAUTION}\n" + seg[cols].round(6).to_csv(
-            index=False, lineterminator="\n"), encoding="utf-8")
+        (tmp / "segments.csv").write_text(
+            f"# {CAUTION}\n# {provenance_line(prov)}\n"
+            + seg[cols].round(6).to_csv(index=False, lineterminator="\n"), encoding="utf-8")
         edges = net.edges.reset_index()
         ll = net.edges.to_crs("EPSG:4326").total_bounds
         m = mapview.new_map(tuple(ll))
@@ -306,6 +324,7 @@ def write_outputs(net: Any, result: WatchResult, out: str | Path, *, force: bool
                                       "p_value": "p-value"})
         mapview.add_panel(m, mapview.legend_html("Early warnings", [
             ("#c1121f", "segment flagged (FDR-controlled)"), ("#b9b4a8", "network")]))
+        mapview.add_provenance(m, prov)
         (tmp / "map.html").write_text(mapview.render(m), encoding="utf-8")
         groups = list(result.alerts["group"].astype(str)[:5]) or list(
             result.periods.groupby("group")["events"].sum().sort_values(ascending=False)
@@ -329,8 +348,8 @@ def write_outputs(net: Any, result: WatchResult, out: str | Path, *, force: bool
                  ("CUSUM", f"shift x{result.design.ratio:g}, in-control ARL "
                            f"{result.design.arl0:.0f} days (target "
                            f"{result.design.arl0_target:g})")]
-        (tmp / "report.html").write_text(report.page("Early warnings", body, facts=facts),
-                                         encoding="utf-8")
+        (tmp / "report.html").write_text(report.page("Early warnings", body, facts=facts,
+                                                     provenance=prov), encoding="utf-8")
     return Path(out)
 
 

@@ -26,6 +26,15 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="keep every connected part, not only the largest")
     parser.add_argument("--place", metavar="QUERY",
                         help="download the roads for a place name instead (needs internet)")
+    parser.add_argument("--workers", type=int, metavar="N",
+                        help="tag on a local Dask cluster of N worker processes, tile by tile "
+                             "(needs the 'scale' extra: dask, distributed, dask-geopandas)")
+    parser.add_argument("--scheduler", metavar="ADDRESS",
+                        help="tag on a running Dask scheduler instead, e.g. "
+                             "tcp://10.0.0.5:8786 (its workers need routerisk installed)")
+    parser.add_argument("--tile-m", type=float, metavar="M",
+                        help="tile side in metres for --workers / --scheduler (default 3000; "
+                             "results do not depend on it)")
     parser.add_argument("--force", action="store_true", help="replace an existing folder")
     parser.add_argument("--json", action="store_true", help="print the summary as JSON")
 
@@ -40,9 +49,22 @@ def run(args: argparse.Namespace) -> int:
                           field="--place")
     if args.source is None:
         raise OptionError("give an OSM file (or --place)", field="SOURCE")
-    net = network.build_network(args.source, profile=profile_of(args),
-                                timezone=network.check_timezone(args.timezone),
-                                largest_component=not args.all_parts)
+    timezone = network.check_timezone(args.timezone)
+    if args.workers is None and args.scheduler is None:
+        if args.tile_m is not None:
+            raise OptionError("--tile-m needs --workers or --scheduler", field="--tile-m")
+        net = network.build_network(args.source, profile=profile_of(args), timezone=timezone,
+                                    largest_component=not args.all_parts)
+    else:
+        from .. import partition
+
+        tile_m = partition.DEFAULT_TILE_M if args.tile_m is None else args.tile_m
+        partition.check_tile(tile_m)
+        with partition.cluster(workers=args.workers, scheduler=args.scheduler) as client:
+            net = network.build_network(
+                args.source, profile=profile_of(args), timezone=timezone,
+                largest_component=not args.all_parts,
+                tagger=partition.tagger(client=client, tile_m=tile_m))
     network.save_network(net, args.out, force=args.force)
     summary = net.summary()
     if args.json:

@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 
 from .. import evidence
-from .._io import dumps_json
+from .._io import check_target, dumps_json, provenance
 from ..errors import OptionError
 
 HELP = "plan how much test driving a statistical safety claim needs"
@@ -44,6 +44,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     add("--segments", metavar="FILE.geojson",
         help="scored segments (routerisk score --out) to split the evidence by exposure")
     add("--chart", metavar="FILE.png", help="write a chart of the upper limit against distance")
+    add("--force", action="store_true", help="replace an existing --chart")
     add("--json", action="store_true", help="print JSON instead of sentences")
 
 
@@ -73,6 +74,8 @@ def run(args: argparse.Namespace) -> int:
     """Run ``routerisk evidence``; return the exit status."""
     if args.chart is not None and not args.chart.lower().endswith(".png"):
         raise OptionError(f"must name a .png file, got {args.chart!r}", field="--chart")
+    if args.chart is not None:
+        check_target(args.chart, force=args.force, folder=False)  # before any work
     kwargs = {
         name: _number(getattr(args, name), option, required=True)
         for name, option in (
@@ -97,6 +100,7 @@ def run(args: argparse.Namespace) -> int:
         ),
     )
     plan = evidence.plan_evidence(inputs)
+    net = None
     if args.segments is not None and args.drives is not None:
         raise OptionError("give --segments or --drives, not both", field="--drives")
     if args.drives is not None:
@@ -104,7 +108,8 @@ def run(args: argparse.Namespace) -> int:
             raise OptionError("--drives needs --network DIR", field="--network")
         from ..network import load_network
 
-        frame = evidence.segments_from_drives(load_network(args.network), args.drives)
+        net = load_network(args.network)
+        frame = evidence.segments_from_drives(net, args.drives)
         exposure = evidence.distance_by_exposure(
             frame, needed=plan.miles_no_failure, units=inputs.units, path=args.drives
         )
@@ -115,10 +120,13 @@ def run(args: argparse.Namespace) -> int:
             frame, needed=plan.miles_no_failure, units=inputs.units, path=args.segments
         )
         plan = plan.with_exposure(exposure)
+    made_from = provenance(
+        profile=net.profile.fingerprint if net is not None else None, network=net,
+        inputs={"drives": args.drives, "segments": args.segments})
     if args.chart is not None:
-        evidence.plot_upper_limit(plan, args.chart)
+        evidence.plot_upper_limit(plan, args.chart, force=args.force, made_from=made_from)
     if args.json:
-        print(dumps_json(plan.to_json()))
+        print(dumps_json({**plan.to_json(), "made_from": made_from}))
     else:
         lines = evidence.describe(plan)  # ends with the caution
         if args.chart is not None:

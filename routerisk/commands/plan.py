@@ -7,7 +7,7 @@ import datetime as dt
 from pathlib import Path
 
 from .. import CAUTION, dayplan, planning
-from .._io import dumps_json
+from .._io import check_target, dumps_json
 from ..errors import OptionError
 from ._common import add_network, network_of
 
@@ -37,8 +37,8 @@ def run(args: argparse.Namespace) -> int:
         date = dt.date.fromisoformat(args.date)
     except ValueError as exc:
         raise OptionError(f"not a date YYYY-MM-DD: {args.date!r}", field="--date") from exc
-    if args.out and args.out.exists() and not args.force:
-        raise OptionError("already exists; pass --force to replace it", field="--out")
+    if args.out:
+        check_target(args.out, force=args.force, folder=True)  # before any work
     net = network_of(args)
     runs = planning.read_runs(args.runs)
     plan = dayplan.plan_day(net, runs, date, vehicles=args.vehicles, step_min=args.step,

@@ -94,9 +94,9 @@ def run(args: argparse.Namespace) -> int:
         raise OptionError(f"must name an .html file, got {args.report!r}", field="--report")
     if args.top < 0:
         raise OptionError(f"must be >= 0, got {args.top}", field="--top")
-    for target in (args.out, args.report):
+    for target, folder in ((args.out, True), (args.report, False)):
         if target is not None:
-            check_target(target, force=args.force)
+            check_target(target, force=args.force, folder=folder)
     at = review.parse_time(args.at) if args.at is not None else None
     profile = load_profile(args.profile) if args.profile else None
     net = load_network(args.network, profile=profile)

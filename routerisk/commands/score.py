@@ -6,7 +6,7 @@ import argparse
 from pathlib import Path
 
 from .. import CAUTION, routemap, routes, scoring
-from .._io import dumps_json
+from .._io import check_target, dumps_json, provenance
 from ._common import add_network, network_of
 
 HELP = "score planned routes or recorded drives (GeoJSON, GPX, CSV) at departure times"
@@ -29,15 +29,20 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Run ``score``."""
+    if args.out:
+        check_target(args.out, force=args.force, folder=True)  # before any work
     net = network_of(args)
     departs = [scoring.parse_depart(d, net.timezone) for d in (args.depart or [])]
     planned = routes.read_routes(args.routes, default_tz=net.timezone)
     scores = scoring.score_routes(net, planned, departs)
     if args.out:
-        routemap.write_outputs(net, scores, args.out, force=args.force, tiles=args.tiles)
+        routemap.write_outputs(net, scores, args.out, force=args.force, tiles=args.tiles,
+                               inputs={"routes": args.routes})
     if args.json:
         print(dumps_json({"routes": [s.to_dict() for s in scores],
-                          "profile": net.profile.fingerprint}))
+                          "profile": net.profile.fingerprint,
+                          "made_from": provenance(profile=net.profile.fingerprint, network=net,
+                                                  inputs={"routes": args.routes})}))
     else:
         table = routemap.ranking_table(scores)
         cols = ["rank", "name", "depart", "length_km", "duration_min", "risk", "risk_per_km",

@@ -6,7 +6,7 @@ import argparse
 from pathlib import Path
 
 from .. import CAUTION, mapview, routemap, routes, scoring
-from .._io import dumps_json
+from .._io import check_target, dumps_json
 from ..alternatives import suggest_routes
 from ..errors import OptionError
 from ._common import add_network, network_of
@@ -51,8 +51,8 @@ def run(args: argparse.Namespace) -> int:
         raise OptionError("must be at least 1", field="--count")
     if args.keep_every is not None and args.keep_every < 1:
         raise OptionError("must be at least 1", field="--keep-every")
-    if args.map and args.map.exists() and not args.force:
-        raise OptionError("already exists; pass --force to replace it", field="--map")
+    if args.map:
+        check_target(args.map, force=args.force, folder=False)  # before any work
     net = network_of(args)
     departs = [scoring.parse_depart(d, net.timezone) for d in (args.depart or [])]
     planned = routes.read_routes(args.routes, default_tz=net.timezone)
@@ -61,7 +61,9 @@ def run(args: argparse.Namespace) -> int:
                             max_extra_length=args.max_extra_length,
                             min_difference=args.min_difference, keep_every=args.keep_every)
     if args.map:
-        mapview.save(routemap.suggestion_map(net, result, tiles=args.tiles), args.map)
+        mapview.save(routemap.suggestion_map(net, result, tiles=args.tiles,
+                                             inputs={"routes": args.routes}),
+                     args.map, force=args.force)
     if args.json:
         print(dumps_json({"routes": [s.to_dict() for s in result],
                           "profile": net.profile.fingerprint}))

@@ -6,7 +6,7 @@ import argparse
 from pathlib import Path
 
 from .. import CAUTION, watch
-from .._io import dumps_json
+from .._io import check_target, dumps_json, provenance
 from ._common import network_of
 
 HELP = "flag segments and streets where logged safety events exceed what exposure explains"
@@ -42,13 +42,18 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace) -> int:
     """Run ``watch``."""
     args.overlay = None
+    if args.out:
+        check_target(args.out, force=args.force, folder=True)  # before any work
     net = network_of(args)
     result = watch.watch(net, args.events, args.drives, q=args.fdr, shift=args.shift,
                          arl0=args.arl0, group=args.group, use_exposure=not args.no_exposure)
     if args.out:
-        watch.write_outputs(net, result, args.out, force=args.force, close=args.close)
+        watch.write_outputs(net, result, args.out, force=args.force, close=args.close,
+                            inputs={"events": args.events, "drives": args.drives})
     if args.json:
-        print(dumps_json(result.to_dict()))
+        print(dumps_json({**result.to_dict(), "made_from": provenance(
+            profile=net.profile.fingerprint, network=net,
+            inputs={"events": args.events, "drives": args.drives})}))
         return 0
     flagged = result.segments[result.segments["flagged"]]
     print(f"{len(result.matched)} events matched to driven segments, "

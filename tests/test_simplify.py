@@ -1,0 +1,163 @@
+"""The array-built road graph (routerisk._simplify) against osmnx's own pipeline.
+
+Reference library: osmnx (simplify_graph with its default arguments, largest_component,
+add_edge_speeds, add_edge_travel_times, project_graph, graph_to_gdfs, graph_from_gdfs), run
+by ``loader.graph_from_raw_reference`` on the same read of the same file.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import osmnx as ox
+import pandas as pd
+import pytest
+import shapely
+
+from routerisk import _simplify, datasets, loader, synthetic
+from routerisk._osm import read_osm
+from routerisk.network import load_network
+
+from . import _osm_snippets as osm
+
+# Stated tolerance on lengths and travel times (the brief: 1e-6 relative; sums of the same
+# segment lengths in the same order agree far closer, so this is generous).
+REL = 1e-6
+
+
+@pytest.fixture(scope="module")
+def city(tmp_path_factory):
+    """A generated city of about 3,000 edges (routerisk.synthetic, invented, CC0)."""
+    path = tmp_path_factory.mktemp("city") / "city.osm.pbf"
+    synthetic.write_city(path, edges=3000, seed=5)
+    return path
+
+
+def _assert_same_frames(ref_nodes, ref_edges, fr):
+    assert list(fr.edges.columns) == list(ref_edges.columns)
+    assert fr.edges.index.equals(ref_edges.index)  # same (u, v, key), same order
+    assert list(fr.edges.index.names) == ["u", "v", "key"]
+    assert fr.edges.crs == ref_edges.crs and fr.nodes.crs == ref_nodes.crs
+    for col in ref_edges.columns:
+        a, b = ref_edges[col], fr.edges[col]
+        if col == "geometry":
+            assert shapely.equals_exact(np.asarray(a.array), np.asarray(b.array), 0).all()
+        elif col in ("length", "travel_time"):
+            assert a.dtype == b.dtype
+            np.testing.assert_allclose(b.to_numpy(), a.to_numpy(), rtol=REL, atol=0)
+        else:
+            pd.testing.assert_series_equal(a, b, check_exact=True)
+    pd.testing.assert_frame_equal(fr.nodes.drop(columns="geometry"),
+                                  ref_nodes.drop(columns="geometry"), check_exact=True)
+    assert shapely.equals_exact(np.asarray(fr.nodes.geometry.array),
+                                np.asarray(ref_nodes.geometry.array), 0).all()
+
+
+def _assert_same_graph(G0, G1):
+    assert G0.graph == G1.graph
+    assert list(G0.nodes) == list(G1.nodes)
+    for (_, a), (_, b) in zip(G0.nodes(data=True), G1.nodes(data=True), strict=True):
+        assert list(a.items()) == list(b.items())
+    e0 = list(G0.edges(keys=True, data=True))
+    e1 = list(G1.edges(keys=True, data=True))
+    assert [e[:3] for e in e0] == [e[:3] for e in e1]
+    for (*_, a), (*_, b) in zip(e0, e1, strict=True):
+        assert list(a) == list(b)  # same attributes in the same order
+        for k in a:
+            assert type(a[k]) is type(b[k]), k
+            if k == "geometry":
+                assert a[k].equals_exact(b[k], 0)
+            elif k in ("length", "travel_time"):
+                assert b[k] == pytest.approx(a[k], rel=REL)
+            else:
+                assert a[k] == b[k], k
+
+
+def _check(path, **kw):
+    raw = read_osm(path)
+    G0 = loader.graph_from_raw_reference(raw, **kw)
+    n0, e0 = ox.convert.graph_to_gdfs(G0)
+    fr = _simplify.build_frames(raw, largest_component=kw.get("largest_component", True),
+                                simplify_graph=kw.get("simplify", True))  # no fallback
+    _assert_same_frames(n0, e0, fr)
+    _assert_same_graph(G0, loader.graph_from_raw(raw, **kw))
+    return G0
+
+
+@pytest.mark.parametrize("kw", [{}, {"simplify": False}, {"largest_component": False},
+                                {"simplify": False, "largest_component": False}])
+def test_real_extract(real_pbf, kw):
+    # Real OSM data (pyogrio's sample.osm.pbf, ODbL): curves, way breaks, one-ways.
+    G = _check(real_pbf, **kw)
+    assert G.number_of_edges() > 50
+
+
+@pytest.mark.parametrize("kw", [{}, {"simplify": False}])
+def test_sample_town(kw):
+    _check(datasets.get_path("town"), **kw)
+
+
+def test_generated_city(city):
+    G = _check(city)
+    # the generator counts the same simplification independently (its own rules 1-3)
+    assert G.number_of_edges() > 2500
+
+
+def _chain_file(tmp_path, extra):
+    """A square of two-way streets with a shape-node chain on its south side."""
+    parts = [osm.node(i, 38.5 + 0.001 * (i // 10), -38.0 + 0.001 * (i % 10))
+             for i in (0, 1, 2, 3, 4, 10, 14, 20, 24)]
+    parts += [osm.way(1, [0, 1, 2, 3, 4], highway="residential", name="South"),
+              osm.way(2, [4, 14, 24], highway="residential", name="East"),
+              osm.way(3, [24, 20], highway="residential", name="North"),
+              osm.way(4, [20, 10, 0], highway="residential", name="West"),
+              osm.way(5, [10, 14], highway="tertiary", name="Middle")]
+    return osm.write(tmp_path / "chain.osm", parts + extra)
+
+
+@pytest.mark.parametrize("case", ["plain", "oneway chain", "ring without endpoints",
+                                  "loop with one endpoint", "mixed ways on a chain"])
+def test_small_patterns(tmp_path, case):
+    extra = {
+        "plain": [],
+        "oneway chain": [osm.node(30, 38.49, -37.999), osm.node(31, 38.49, -37.998),
+                         osm.way(6, [1, 30, 31, 3], highway="residential", oneway="yes"),
+                         osm.way(7, [3, 2], highway="residential", oneway="-1")],
+        "ring without endpoints": [osm.node(40 + i, 38.52 + 0.0005 * (i % 2),
+                                            -38.0 + 0.0005 * (i // 2)) for i in range(4)]
+        + [osm.way(8, [40, 41, 43, 42, 40], highway="residential")],
+        "loop with one endpoint": [osm.node(50, 38.49, -38.001), osm.node(51, 38.489,
+                                                                           -38.0)]
+        + [osm.way(9, [0, 50, 51, 0], highway="residential", name="Loop")],
+        "mixed ways on a chain": [osm.node(60, 38.4995, -37.9985),
+                                  osm.way(10, [2, 60], highway="residential", name="Spur",
+                                          lanes="2", maxspeed="30 mph"),
+                                  osm.way(11, [60, 14], highway="secondary", lanes="3",
+                                          maxspeed="40", sidewalk="both")],
+    }[case]
+    path = _chain_file(tmp_path, extra)
+    _check(path, largest_component=False)
+    _check(path)
+
+
+def test_parallel_duplicates_use_osmnx(tmp_path):
+    # A way digitised twice over shape nodes: osmnx's walk keeps one copy; the array code
+    # hands this pattern back, and the loader's result is still osmnx's graph.
+    dup = [osm.node(70, 38.499, -37.999), osm.node(71, 38.499, -37.998),
+           osm.way(20, [1, 70, 71, 3], highway="residential", name="Bypass", oneway="yes"),
+           osm.way(21, [1, 70, 71, 3], highway="residential", name="Bypass", oneway="yes")]
+    path = _chain_file(tmp_path, dup)
+    raw = read_osm(path)
+    with pytest.raises(_simplify.NeedsReference):
+        _simplify.build_frames(raw)
+    _assert_same_graph(loader.graph_from_raw_reference(raw), loader.graph_from_raw(raw))
+    n0, e0 = ox.convert.graph_to_gdfs(loader.graph_from_raw_reference(raw))
+    fr = loader.frames_from_raw(raw)
+    pd.testing.assert_frame_equal(fr.edges.drop(columns="geometry"),
+                                  e0.drop(columns="geometry"))
+
+
+def test_network_graph_equals_osmnx_graph_from_gdfs(town_dir):
+    net = load_network(town_dir)
+    ref = ox.convert.graph_from_gdfs(net.nodes, net.edges,
+                                     graph_attrs={"crs": net.edges.crs.to_string()})
+    _assert_same_graph(ref, net.graph)
