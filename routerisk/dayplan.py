@@ -199,24 +199,36 @@ def timeline_png(plan: DayPlan) -> bytes:
     return report.png_bytes(fig)
 
 
-def write_outputs(net: Any, plan: DayPlan, out: str | Path, *, force: bool = False) -> Path:
-    """Write schedule.csv, plan.json, map.html and report.html into ``out`` atomically."""
+def write_outputs(net: Any, plan: DayPlan, out: str | Path, *, force: bool = False,
+                  inputs: dict[str, Any] | None = None) -> Path:
+    """Write schedule.csv, plan.json, map.html and report.html into ``out`` atomically.
+
+    Each records the tool version, the profile fingerprint and the input checksums
+    (``inputs``: role -> file, e.g. ``{"runs": path}``; the network source always).
+    """
     import pandas as pd
 
     from . import CAUTION, mapview, report, routemap
-    from ._io import atomic_directory, dumps_json
+    from ._io import atomic_directory, dumps_json, provenance_line
 
     data = plan.to_dict()
+    routes_used = sorted({str(r.route) for r in plan.runs if r.route is not None})
+    ins = dict(inputs or {})
+    for i, path in enumerate(routes_used):
+        ins.setdefault("routes" if i == 0 else f"routes_{i + 1}", path)
+    meta = routemap.output_meta(net, ins)
+    prov = {k: meta[k] for k in ("routerisk_version", "profile", "inputs")}
     with atomic_directory(out, force=force) as tmp:
         table = pd.DataFrame(data["runs"], columns=["vehicle", "name", "repetition", "start",
                                                     "end", "route", "risk", "rule_breaks"])
-        (tmp / "schedule.csv").write_text(f"# {CAUTION}\n" + table.to_csv(
+        (tmp / "schedule.csv").write_text(f"# {CAUTION}\n# {provenance_line(meta)}\n"
+                                          + table.to_csv(
             index=False, lineterminator="\n"), encoding="utf-8")
-        (tmp / "plan.json").write_text(dumps_json({**data, "profile": net.profile.fingerprint,
-                                                   "caution": CAUTION}) + "\n",
+        (tmp / "plan.json").write_text(dumps_json({**data, "routerisk": meta}) + "\n",
                                        encoding="utf-8")
         scores = [opt.score for _, opt in plan.chosen()]
         m = routemap.route_map(net, scores, title=f"Test runs on {plan.date.isoformat()}")
+        mapview.add_provenance(m, prov)
         (tmp / "map.html").write_text(mapview.render(m), encoding="utf-8")
         unplaced = pd.DataFrame(data["unplaced"], columns=["name", "repetition", "reason"])
         body = [
@@ -233,6 +245,7 @@ def write_outputs(net: Any, plan: DayPlan, out: str | Path, *, force: bool = Fal
         ]
         facts = [("date", plan.date.isoformat()),
                  ("profile", f"{net.profile.name} ({net.profile.fingerprint})")]
-        (tmp / "report.html").write_text(report.page("Daily test plan", body, facts=facts),
+        (tmp / "report.html").write_text(report.page("Daily test plan", body, facts=facts,
+                                                     provenance=prov),
                                          encoding="utf-8")
     return Path(out)

@@ -138,7 +138,8 @@ def _stage_plan(net: Any, out: Path, echo: Callable[[str], None]) -> dict[str, A
 
     runs = planning.read_runs(datasets.get_path("runs"))
     plan = dayplan.plan_day(net, runs, dt.date(2027, 3, 9), vehicles=2)
-    dayplan.write_outputs(net, plan, out / "day_plan")
+    dayplan.write_outputs(net, plan, out / "day_plan",
+                          inputs={"runs": datasets.get_path("runs")})
     d = plan.to_dict()
     echo(f"day plan {d['date']}: {len(d['runs'])} runs placed ({d['status']}), total risk "
          f"{d['total_risk']:.2f} against {d['naive_total_risk']:.2f} for the naive plan")

@@ -108,9 +108,6 @@ def test_every_demo_output_records_version_profile_and_inputs(two_demos):
     assert not missing, missing
 
 
-@pytest.mark.xfail(strict=True, reason="routerisk/dayplan.py outputs (plan.json, "
-                   "schedule.csv, map.html, report.html) do not record the tool version and "
-                   "the input checksums")
 def test_day_plan_outputs_record_provenance(two_demos):
     d = two_demos[0]
     missing = _missing_provenance(d, _outputs(d, day_plan=True))

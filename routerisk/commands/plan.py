@@ -44,7 +44,8 @@ def run(args: argparse.Namespace) -> int:
     plan = dayplan.plan_day(net, runs, date, vehicles=args.vehicles, step_min=args.step,
                             turnaround_min=args.turnaround)
     if args.out:
-        dayplan.write_outputs(net, plan, args.out, force=args.force)
+        dayplan.write_outputs(net, plan, args.out, force=args.force,
+                              inputs={"runs": args.runs})
     if args.json:
         print(dumps_json(plan.to_dict()))
         return 0
