@@ -230,7 +230,7 @@ def save_network(net: Network, out: str | Path, *, force: bool = False) -> Path:
         (tmp / PROFILE).write_text(yaml.safe_dump(_profile_doc(net.profile), sort_keys=False),
                                    encoding="utf-8")
         meta = {**net.meta, "complete": True, "gpkg_sha256": sha256_file(gpkg),
-                "summary": net.summary()}
+                "profile_sha256": sha256_file(tmp / PROFILE), "summary": net.summary()}
         (tmp / META).write_text(dumps_json(meta) + "\n", encoding="utf-8")
     return Path(out)
 
@@ -297,8 +297,19 @@ def load_network(folder: str | Path, *, profile: Profile | None = None,
                  gpd.GeoDataFrame({"osmid": [], "crossing": []}, geometry=[], crs=edges.crs))
     except Exception as exc:  # noqa: BLE001 - GDAL errors of many kinds
         raise NetworkFolderError(f"cannot read network.gpkg ({exc})", path=gpkg) from exc
-    saved_profile = parse_profile(yaml.safe_load((d / PROFILE).read_text(encoding="utf-8")),
-                                  path=d / PROFILE)
+    prof_path = d / PROFILE
+    if not prof_path.is_file():
+        raise NetworkFolderError("incomplete network folder: profile.yaml missing", path=d,
+                                 field=PROFILE)
+    if verify and sha256_file(prof_path) != meta.get("profile_sha256"):
+        raise NetworkFolderError("profile.yaml does not match its checksum (edited after the "
+                                 "build?); rebuild, or pass the new profile with --profile",
+                                 path=prof_path, field="profile_sha256")
+    try:
+        saved_profile = parse_profile(yaml.safe_load(prof_path.read_text(encoding="utf-8")),
+                                      path=prof_path)
+    except yaml.YAMLError as exc:
+        raise NetworkFolderError("profile.yaml is not valid YAML", path=prof_path) from exc
     edges = edges.set_index(["u", "v", "key"])
     edges["lanes"] = edges["lanes"].astype("float64") if "lanes" in edges else np.nan
     if "oneway" in edges:

@@ -449,18 +449,13 @@ CASES: dict[str, Case] = {
     "network: gpkg missing": Case(_score_net(_rm("network.gpkg")), ("network.gpkg",),
                                   ("out",), town=True),
     "network: profile.yaml missing": Case(_score_net(_rm("profile.yaml")), ("profile.yaml",),
-                                          ("out",), town=True,
-                                          xfail="routerisk/network.py load_network reads "
-                                                "profile.yaml unchecked (FileNotFoundError)"),
+                                          ("out",), town=True),
     "network: profile.yaml edited": Case(_score_net(lambda d: (d / "profile.yaml").write_text(
         (d / "profile.yaml").read_text().replace("weight: 3.0", "weight: 30.0"))),
-        ("profile.yaml",), ("out",), town=True,
-        xfail="routerisk/network.py records no checksum of profile.yaml, so an edited copy "
-              "silently scores edges tagged with the old weights"),
+        ("profile.yaml",), ("out",), town=True),
     "network: profile.yaml not YAML": Case(_score_net(
         lambda d: (d / "profile.yaml").write_text("version: [1\n")), ("profile.yaml",),
-        ("out",), town=True, xfail="routerisk/network.py load_network lets the YAML error "
-                                   "through (traceback)"),
+        ("out",), town=True),
     "network: profile of other categories": Case(lambda t, town: [
         "score", str(_good_routes(t)), "--network", str(town), "--out", str(t / "out"),
         "--profile", str(_profile(t, lambda d: _set(d, "categories.school.select",
