@@ -426,26 +426,10 @@ def isolated_nodes(re: RawEdges) -> np.ndarray:
 
 def _normalise(d: dict[str, Any]) -> dict[str, Any]:
     """Apply the loader's edge normalisation to one attribute dict (a copy)."""
-    from . import loader, speeds
+    from . import loader
 
     d = dict(d)
-    d["highway"] = loader._first_class(d.get("highway"))
-    d["name"] = loader._name(d.get("name"))
-    d["lanes"] = loader._lanes(d["lanes"]) if "lanes" in d else None
-    d["oneway"] = bool(d["oneway"]) if not isinstance(d.get("oneway"), list) else any(
-        d["oneway"])
-    if isinstance(d.get("sidewalk"), list):
-        d["sidewalk"] = str(d["sidewalk"][0])
-    if isinstance(d.get("osmid"), list):
-        d["osmid"] = int(d["osmid"][0])
-    if "maxspeed" in d:
-        d["maxspeed_raw"] = d["maxspeed"] if isinstance(d["maxspeed"], str) else ";".join(
-            map(str, d["maxspeed"]))
-        kph = speeds.parse_maxspeed(d["maxspeed"])
-        if kph is None:
-            del d["maxspeed"]
-        else:
-            d["maxspeed"] = f"{kph:.4f}"
+    loader.normalise_attrs(d)
     if "geometry" not in d:
         d["geometry"] = None
     d["speed_kph"] = None
@@ -469,7 +453,8 @@ def _normalise_all(templates: list[dict[str, Any]]) -> list[dict[str, Any]]:
             d = cache[key] = _normalise(t)
         if "osmid" in t:
             d = dict(d)
-            d["osmid"] = int(t["osmid"][0]) if isinstance(t["osmid"], list) else t["osmid"]
+            d["osmid"] = min(int(x) for x in t["osmid"]) if isinstance(t["osmid"], list) \
+                else t["osmid"]
         out.append(d)
     return out
 

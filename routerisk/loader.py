@@ -100,7 +100,8 @@ def _graph_from_raw(raw: RawOSM) -> nx.MultiDiGraph:
 
 def _first_class(value: Any) -> str:
     if isinstance(value, list):
-        ranked = sorted(value, key=lambda v: CLASS_RANK.index(v) if v in CLASS_RANK else 99)
+        ranked = sorted(value, key=lambda v: (CLASS_RANK.index(v) if v in CLASS_RANK else 99,
+                                              str(v)))
         return str(ranked[0])
     return str(value)
 
@@ -123,30 +124,39 @@ def _name(value: Any) -> str:
     if value is None or (isinstance(value, float) and math.isnan(value)):
         return ""
     if isinstance(value, list):
-        return " / ".join(dict.fromkeys(str(v) for v in value if v))
+        return " / ".join(sorted({str(v) for v in value if v}))
     return str(value)
 
 
+def normalise_attrs(d: dict[str, Any]) -> None:
+    """Give one edge's attributes one road class, name, lane count and a parsed maxspeed.
+
+    Merged edges carry lists in an order that follows Python's hash seed (osmnx merges with
+    ``set``); every choice here is independent of that order, so builds are reproducible.
+    """
+    d["highway"] = _first_class(d.get("highway"))
+    d["name"] = _name(d.get("name"))
+    d["lanes"] = _lanes(d["lanes"]) if "lanes" in d else None
+    d["oneway"] = bool(d["oneway"]) if not isinstance(d.get("oneway"), list) else any(
+        d["oneway"])
+    if isinstance(d.get("sidewalk"), list):
+        d["sidewalk"] = sorted(str(x) for x in d["sidewalk"])[0]
+    if isinstance(d.get("osmid"), list):
+        d["osmid"] = min(int(x) for x in d["osmid"])
+    if "maxspeed" in d:
+        d["maxspeed_raw"] = d["maxspeed"] if isinstance(d["maxspeed"], str) else ";".join(
+            sorted(map(str, d["maxspeed"])))
+        kph = speeds.parse_maxspeed(d["maxspeed"])
+        if kph is None:
+            del d["maxspeed"]
+        else:
+            d["maxspeed"] = f"{kph:.4f}"
+
+
 def _normalise_edges(G: nx.MultiDiGraph) -> None:
-    """Give every edge one road class, name, lane count and a parsed maxspeed string."""
+    """Normalise every edge's attributes and give straight edges a geometry."""
     for u, v, d in G.edges(data=True):
-        d["highway"] = _first_class(d.get("highway"))
-        d["name"] = _name(d.get("name"))
-        d["lanes"] = _lanes(d["lanes"]) if "lanes" in d else None
-        d["oneway"] = bool(d["oneway"]) if not isinstance(d.get("oneway"), list) else any(
-            d["oneway"])
-        if isinstance(d.get("sidewalk"), list):
-            d["sidewalk"] = str(d["sidewalk"][0])
-        if isinstance(d.get("osmid"), list):
-            d["osmid"] = int(d["osmid"][0])
-        if "maxspeed" in d:
-            d["maxspeed_raw"] = d["maxspeed"] if isinstance(d["maxspeed"], str) else ";".join(
-                map(str, d["maxspeed"]))
-            kph = speeds.parse_maxspeed(d["maxspeed"])
-            if kph is None:
-                del d["maxspeed"]
-            else:
-                d["maxspeed"] = f"{kph:.4f}"
+        normalise_attrs(d)
         if "geometry" not in d:
             d["geometry"] = LineString(
                 [(G.nodes[u]["x"], G.nodes[u]["y"]), (G.nodes[v]["x"], G.nodes[v]["y"])]

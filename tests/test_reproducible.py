@@ -136,9 +136,6 @@ _PRINT_EDGES = (
 )
 
 
-@pytest.mark.xfail(strict=True, reason="routerisk/_simplify.py and osmnx merge edge "
-                   "attributes as list(set(values)), and routerisk/loader.py joins names "
-                   "and picks sidewalk[0] in that order, which follows PYTHONHASHSEED")
 def test_merged_edges_do_not_depend_on_the_hash_seed(tmp_path):
     src = tmp_path / "merge.osm"
     src.write_text(MERGE_OSM, encoding="utf-8")
