@@ -183,9 +183,13 @@ def tag_edges(
         new[f"infl_{cat.name}"] = share
     n_cross = np.zeros(n, dtype=np.int64)
     if len(crossings):
-        ci, ei = STRtree(geoms).query(crossings.geometry.to_numpy(), predicate="dwithin",
-                                      distance=CROSSING_SNAP_M)
-        n_cross = np.bincount(ei, minlength=n).astype(np.int64)
+        cpts = crossings.geometry.to_numpy()
+        ci, ei = STRtree(geoms).query(cpts, predicate="dwithin", distance=CROSSING_SNAP_M)
+        # A crossing at a node belongs to the edges arriving there, not to those leaving it,
+        # so a route driving through the node passes it once.
+        along = shapely.line_locate_point(geoms[ei], cpts[ci])
+        keep = along > CROSSING_SNAP_M
+        n_cross = np.bincount(ei[keep], minlength=n).astype(np.int64)
     new["crossings"] = n_cross
     new["baseline"] = baseline(edges, profile)
     new["severity"] = severity_factor(edges["speed_kph"].to_numpy(dtype=float),

@@ -306,9 +306,6 @@ def test_splitting_an_edge_keeps_the_route_risk(lengths, data, srcs, cross, w, s
         assert b.by_category[k] == pytest.approx(v, rel=1e-9, abs=1e-12)
 
 
-@pytest.mark.xfail(strict=True, reason="routerisk/tagging.py counts a crossing for every edge "
-                   "within 1 m, so a crossing at a node counts once for the edge that arrives "
-                   "and again for the edge that leaves it")
 def test_a_crossing_at_a_node_counts_once_along_a_route():
     prof = _profile(timed=False, crossing_weight=0.5)
     src = _sources([], [])
