@@ -216,6 +216,16 @@ def _clean_for_gpkg(df: gpd.GeoDataFrame) -> gpd.GeoDataFrame:
 
 def save_network(net: Network, out: str | Path, *, force: bool = False) -> Path:
     """Write the network folder atomically; return its path."""
+    # GDAL stamps each layer with the time of writing; a fixed date keeps builds identical.
+    before = pyogrio.get_gdal_config_option("OGR_CURRENT_DATE")
+    pyogrio.set_gdal_config_options({"OGR_CURRENT_DATE": "2000-01-01T00:00:00.000Z"})
+    try:
+        return _save(net, out, force=force)
+    finally:
+        pyogrio.set_gdal_config_options({"OGR_CURRENT_DATE": before})
+
+
+def _save(net: Network, out: str | Path, *, force: bool) -> Path:
     with atomic_directory(out, force=force) as tmp:
         gpkg = tmp / GPKG
         edges = _clean_for_gpkg(net.edges.reset_index())

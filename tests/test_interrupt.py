@@ -1,9 +1,10 @@
 """Nothing lost: ``routerisk build`` killed at random points never leaves a half folder.
 
 ``python -m routerisk build`` runs as a subprocess on the sample town and gets SIGKILL (no
-clean-up code can run) after a delay. The delays are seeded and spread over the run as
-measured first: a third before the folder is being written, the rest while it is written and
-moved into place. After each kill the target folder either does not exist or is refused by
+clean-up code can run) at seeded points spread over the run as measured first: a third
+before the folder is being written, the rest while it is written and moved into place
+(counted from the moment the hidden temporary folder appears, so machine load does not
+shift them out of that phase). After each kill the target folder either does not exist or is refused by
 ``load_network`` (NetworkFolderError), or it loads as a complete, checksum-valid network.
 When an existing complete folder is replaced with ``--force``, the folder is at every kill
 either the old one or the new one, never missing and never a mix.
@@ -59,18 +60,30 @@ def _measure(out: Path) -> tuple[float, float]:
     return (t_save if t_save is not None else 0.8 * total), total
 
 
-def _delays(rng: random.Random, n: int, t_save: float, total: float) -> list[float]:
-    """Return n delays, stratified: a third over [t_save / 2, t_save], the rest over
-    [t_save, total] (writing the folder and moving it into place)."""
+def _delays(rng: random.Random, n: int, t_save: float, total: float
+            ) -> list[tuple[str, float]]:
+    """Return n kill points, stratified: a third at [t_save / 2, t_save] from the start, the
+    rest at [0, 1.2 x the writing time] after the hidden folder appears (so a slower or
+    faster machine still kills while the folder is written and moved into place)."""
     first = n // 3
-    out = [t_save / 2 + (t_save / 2) * (i + rng.random()) / max(first, 1) for i in range(first)]
+    out = [("start", t_save / 2 + (t_save / 2) * (i + rng.random()) / max(first, 1))
+           for i in range(first)]
     rest = n - first
-    out += [t_save + (total - t_save) * (i + rng.random()) / rest for i in range(rest)]
+    writing = max(total - t_save, 0.05)
+    out += [("writing", 1.2 * writing * (i + rng.random()) / rest) for i in range(rest)]
     return out
 
 
-def _kill_after(proc: subprocess.Popen, delay: float) -> bool:
-    """SIGKILL ``proc`` (our own child, by its pid) after ``delay``; True if it was killed."""
+def _kill_at(proc: subprocess.Popen, out: Path, point: tuple[str, float]) -> bool:
+    """SIGKILL ``proc`` (our own child, by its pid) at ``point``; True if it was killed.
+
+    ``("start", s)``: s seconds after the start; ``("writing", s)``: s seconds after the
+    hidden ``.name.*.part`` folder appears.
+    """
+    phase, delay = point
+    if phase == "writing":
+        while proc.poll() is None and not _parts(out):
+            time.sleep(0.005)
     try:
         proc.wait(timeout=delay)
     except subprocess.TimeoutExpired:
@@ -101,19 +114,20 @@ def test_killed_build_leaves_no_folder_or_a_complete_one(timing, tmp_path):
     _, t_save, total = timing
     rng = random.Random(SEED)
     outcomes = []
-    for i, delay in enumerate(_delays(rng, TRIES, t_save, total)):
+    for i, point in enumerate(_delays(rng, TRIES, t_save, total)):
         out = tmp_path / f"try{i}" / "net"
         out.parent.mkdir()
-        killed = _kill_after(_start(out, "--timezone", "Etc/GMT+3"), delay)
+        killed = _kill_at(_start(out, "--timezone", "Etc/GMT+3"), out, point)
+        label = (point[0], round(point[1], 2))
         visible = sorted(p.name for p in out.parent.iterdir() if not p.name.startswith("."))
         assert visible in ([], ["net"]), visible  # nothing else in sight
         if out.exists():
             _check_complete(out)  # a folder at the final path is always a whole one
-            outcomes.append((round(delay, 2), killed, "complete"))
+            outcomes.append((label, killed, "complete"))
         else:
             with pytest.raises(NetworkFolderError):
                 load_network(out)
-            outcomes.append((round(delay, 2), killed, "absent"))
+            outcomes.append((label, killed, "absent"))
     assert any(k for _, k, _ in outcomes), f"no try was killed mid-way: {outcomes}"
 
 
@@ -121,19 +135,20 @@ def test_killed_force_replacement_keeps_old_or_new(timing, tmp_path):
     old_src, t_save, total = timing
     rng = random.Random(SEED + 1)
     seen = []
-    for i, delay in enumerate(_delays(rng, FORCE_TRIES, t_save, total)):
+    for i, point in enumerate(_delays(rng, FORCE_TRIES, t_save, total)):
         out = tmp_path / f"try{i}" / "net"
         out.parent.mkdir()
         shutil.copytree(old_src, out)
         old_sha = json.loads((out / "meta.json").read_text())["gpkg_sha256"]
-        killed = _kill_after(_start(out, "--timezone", "UTC", "--force"), delay)
+        killed = _kill_at(_start(out, "--timezone", "UTC", "--force"), out, point)
+        label = (point[0], round(point[1], 2))
         meta = _check_complete(out)  # never missing, never refused
         which = {"Etc/GMT+3": "old", "UTC": "new"}[meta["timezone"]]
         if which == "old":
             assert meta["gpkg_sha256"] == old_sha
         visible = sorted(p.name for p in out.parent.iterdir() if not p.name.startswith("."))
         assert visible == ["net"], visible
-        seen.append((round(delay, 2), killed, which))
+        seen.append((label, killed, which))
     assert any(k for _, k, _ in seen), f"no try was killed mid-way: {seen}"
 
 

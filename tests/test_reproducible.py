@@ -52,9 +52,6 @@ def test_demo_twice_gives_identical_bytes(two_demos, capsys):
     assert not differ, f"files that differ between two identical runs: {differ}"
 
 
-@pytest.mark.xfail(strict=True, reason="routerisk/network.py save_network lets GDAL stamp "
-                   "gpkg_contents.last_change with the current time; meta.json records "
-                   "the resulting checksum")
 def test_network_folder_is_byte_identical_too(two_demos):
     a, b = (_files(d) for d in two_demos)
     differ = sorted(n for n in GPKG_STAMPED if a[n] != b[n])

@@ -6,7 +6,7 @@ import argparse
 from pathlib import Path
 
 from .. import network
-from .._io import dumps_json
+from .._io import check_target, dumps_json
 from ..errors import OptionError
 from ._common import add_profile, profile_of
 
@@ -49,6 +49,7 @@ def run(args: argparse.Namespace) -> int:
                           field="--place")
     if args.source is None:
         raise OptionError("give an OSM file (or --place)", field="SOURCE")
+    check_target(args.out, force=args.force, folder=True)  # refuse before the work
     timezone = network.check_timezone(args.timezone)
     if args.workers is None and args.scheduler is None:
         if args.tile_m is not None:
