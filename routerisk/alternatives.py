@@ -8,11 +8,20 @@ line. Diversity comes from a penalty method: the edges of chosen paths cost more
 searches, so later alternatives differ from earlier ones. Every shortest path is a Dijkstra run
 of ``scipy.sparse.csgraph`` on arrays; networkx is not on the hot path.
 
+The search runs on the part of the network that can lie on a path within the time bound: an
+edge ``(u, v)`` of a leg from ``a`` to ``b`` is kept when the fastest time ``a -> u``, plus the
+edge, plus the fastest time ``v -> b`` fits the leg's share of the bound (two Dijkstra runs
+bounded by that time, one on the reversed network). No path within the bound is lost, and on a
+city graph the kept part is a small ellipse around the plan. Only when nothing within the
+bounds lowers the risk is the search repeated on a wider part (three times the plan's time) to
+show the best candidate that breaks the fewest bounds.
+
 The edge risk used during the search is evaluated at the time the vehicle is expected to reach
 the edge (the fastest arrival from the start, plus the route's own earlier legs); every
-candidate is then re-scored exactly edge by edge with :class:`routerisk.scoring.Scorer`, and a
-candidate that breaks a hard rule at the time it drives an edge is repaired by closing that
-edge and searching again, never returned as rule-abiding.
+candidate is then checked exactly edge by edge (entry time from its own cumulative travel
+time), and a candidate that breaks a hard rule at the time it drives an edge is repaired by
+closing that edge and searching again, never returned as rule-abiding. The chosen
+alternatives are scored in full with :class:`routerisk.scoring.Scorer`.
 """
 
 from __future__ import annotations
@@ -35,6 +44,10 @@ log = logging.getLogger(__name__)
 PENALTY = 1.6  # cost factor on the edges of already chosen paths (diversity)
 MAX_REPAIRS = 8
 EPS = 1e-9
+#: Where nothing within the bounds lowers the risk, candidates up to this many times the
+#: plan's travel time are searched to show the best one that breaks the fewest bounds.
+RELAXED_TIME_FACTOR = 3.0
+_TINY = 1e-12  # csgraph needs positive arc costs
 
 
 @dataclass
@@ -49,6 +62,7 @@ class Alternative:
     overlap_with_plan: float
     within_bounds: bool
     label: str = ""
+    bounds_broken: list[str] = field(default_factory=list)
 
     def to_dict(self) -> dict[str, Any]:
         """Return the JSON form of ``routerisk suggest``."""
@@ -61,6 +75,7 @@ class Alternative:
             "length_change_pct": round(self.length_change_pct, 3),
             "shared_length_with_plan": round(self.overlap_with_plan, 4),
             "within_bounds": self.within_bounds,
+            "bounds_broken": list(self.bounds_broken),
         })
         return d
 
@@ -83,6 +98,79 @@ class Suggestion:
                 "front": [[round(t, 4), round(r, 6)] for t, r in self.front]}
 
 
+class Arcs:
+    """Directed arcs between ``n`` nodes, ready for repeated Dijkstra runs on new costs.
+
+    Arcs are sorted by (source, target) once; parallel arcs are collapsed to the cheapest
+    for each cost vector. Costs passed to :meth:`solve` are aligned with :attr:`rows`.
+
+    Parameters
+    ----------
+    src, dst
+        Node positions (``0 .. n-1``) of each arc.
+    n
+        Number of nodes.
+    rows
+        An identifier of each arc (the network's edge row); kept in arc order.
+    """
+
+    def __init__(self, src: np.ndarray, dst: np.ndarray, n: int, rows: np.ndarray) -> None:
+        order = np.lexsort((dst, src))
+        s, d = src[order], dst[order]
+        self.rows = np.asarray(rows)[order]
+        self.src, self.dst, self.n = s, d, int(n)
+        new = np.ones(len(s), dtype=bool)
+        new[1:] = (s[1:] != s[:-1]) | (d[1:] != d[:-1])
+        self.starts = np.flatnonzero(new)
+        self.group = np.cumsum(new) - 1
+        self.multi = len(self.starts) < len(s)
+        pair_s = s[self.starts]
+        self.indices = d[self.starts].astype(np.int32)
+        self.indptr = np.searchsorted(pair_s, np.arange(self.n + 1)).astype(np.int32)
+        self.key = pair_s.astype(np.int64) * self.n + self.indices
+
+    def matrix(self, cost: np.ndarray) -> tuple[csr_matrix, np.ndarray]:
+        """Return the cheapest-arc matrix for ``cost`` and the arc chosen for each pair."""
+        if self.multi:
+            pmin = np.minimum.reduceat(cost, self.starts) if len(cost) else cost
+            hit = np.flatnonzero(cost <= pmin[self.group])
+            g = self.group[hit]
+            first = np.ones(len(hit), dtype=bool)
+            first[1:] = g[1:] != g[:-1]
+            best = hit[first]
+        else:
+            pmin, best = cost, np.arange(len(cost))
+        mat = csr_matrix((np.maximum(pmin, _TINY), self.indices, self.indptr),
+                         shape=(self.n, self.n))
+        return mat, best
+
+    def solve(self, cost: np.ndarray, origin: int, limit: float = np.inf
+              ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Return (distance, predecessor, chosen arc per pair) from ``origin``.
+
+        Arcs with infinite cost are closed; nodes farther than ``limit`` stay unreached.
+        """
+        mat, best = self.matrix(cost)
+        dist, pred = dijkstra(mat, directed=True, indices=origin, return_predecessors=True,
+                              limit=limit)
+        return dist, pred, best
+
+    def path(self, pred: np.ndarray, best: np.ndarray, origin: int, target: int
+             ) -> np.ndarray | None:
+        """Return the arc positions of the path ``origin -> target`` (None if unreached)."""
+        if origin == target:
+            return np.zeros(0, dtype=np.int64)
+        if pred[target] < 0:
+            return None
+        nodes = [target]
+        while nodes[-1] != origin:
+            nodes.append(int(pred[nodes[-1]]))
+        nodes.reverse()
+        a = np.asarray(nodes, dtype=np.int64)
+        pair = np.searchsorted(self.key, a[:-1] * self.n + a[1:])
+        return best[pair]
+
+
 class RouteGraph:
     """Array form of the network for fast shortest paths (one row per directed edge)."""
 
@@ -98,54 +186,150 @@ class RouteGraph:
         self.keys = idx.get_level_values(2).to_numpy()
         self.n = len(self.node_ids)
         self.m = len(u)
+        rows = np.arange(self.m)
+        self.arcs = Arcs(self.src, self.dst, self.n, rows)
+        self._tt_mats: tuple[csr_matrix, csr_matrix] | None = None
 
-    def shortest(self, cost: np.ndarray, origin: int, target: int | None = None
+    def shortest(self, cost: np.ndarray, origin: int, limit: float = np.inf
                  ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Return (distance, predecessor, best parallel edge) from ``origin`` on ``cost``.
+        """Return (distance, predecessor, chosen arc per pair) from ``origin`` on ``cost``.
 
-        Edges with infinite cost are closed. Parallel edges keep the cheapest.
+        ``cost`` has one value per edge row; infinite costs close edges. Parallel edges keep
+        the cheapest. Pass the result to :meth:`path_edges`.
         """
-        ok = np.isfinite(cost)
-        s, d, c, e = self.src[ok], self.dst[ok], cost[ok], np.flatnonzero(ok)
-        order = np.lexsort((c, d, s))
-        s, d, c, e = s[order], d[order], c[order], e[order]
-        first = np.ones(len(s), dtype=bool)
-        first[1:] = (s[1:] != s[:-1]) | (d[1:] != d[:-1])
-        s, d, c, e = s[first], d[first], c[first], e[first]
-        # csgraph treats explicit zeros as missing edges: lift them to a tiny positive cost
-        mat = csr_matrix((np.maximum(c, 1e-12), (s, d)), shape=(self.n, self.n))
-        best = csr_matrix((e.astype(np.float64) + 1, (s, d)), shape=(self.n, self.n))
-        dist, pred = dijkstra(mat, directed=True, indices=origin, return_predecessors=True,
-                              min_only=False)
-        return dist, pred, best
+        return self.arcs.solve(np.asarray(cost, dtype=float)[self.arcs.rows], origin, limit)
 
-    def path_edges(self, pred: np.ndarray, best: csr_matrix, origin: int, target: int
+    def path_edges(self, pred: np.ndarray, best: np.ndarray, origin: int, target: int
                    ) -> list[int] | None:
         """Return the edge rows of the path from ``origin`` to ``target`` (None if none)."""
-        if origin == target:
-            return []
-        if pred[target] < 0:
-            return None
-        nodes = [target]
-        while nodes[-1] != origin:
-            nodes.append(int(pred[nodes[-1]]))
-        nodes.reverse()
-        rows = [int(best[a, b]) - 1 for a, b in zip(nodes[:-1], nodes[1:], strict=True)]
-        return rows
+        arcs = self.arcs.path(pred, best, origin, target)
+        return None if arcs is None else [int(r) for r in self.arcs.rows[arcs]]
 
-    def as_tuples(self, rows: list[int]) -> list[tuple[int, int, int]]:
+    def as_tuples(self, rows: Any) -> list[tuple[int, int, int]]:
         """Return (u, v, key) tuples of edge rows."""
-        ids = self.node_ids
-        return [(int(ids[self.src[r]]), int(ids[self.dst[r]]), int(self.keys[r])) for r in rows]
+        rows = np.asarray(rows, dtype=np.int64)
+        u = self.node_ids[self.src[rows]]
+        v = self.node_ids[self.dst[rows]]
+        return [(int(a), int(b), int(k)) for a, b, k in zip(u, v, self.keys[rows], strict=True)]
+
+    def time_tree(self, node: int, limit_s: float = np.inf, *, reverse: bool = False
+                  ) -> np.ndarray:
+        """Return the fastest times (seconds) from ``node``, or to it with ``reverse``.
+
+        Nodes farther than ``limit_s`` are left at infinity (the search stops there).
+        """
+        if self._tt_mats is None:
+            fwd, _ = self.arcs.matrix(self.scorer.tt[self.arcs.rows])
+            self._tt_mats = (fwd, fwd.T.tocsr())
+        mat = self._tt_mats[1 if reverse else 0]
+        return dijkstra(mat, directed=True, indices=node, limit=limit_s)
+
+    def leg(self, origin: int, target: int, budget_s: float = np.inf, *,
+            d_from: np.ndarray | None = None) -> Leg | None:
+        """Return the part of the network on paths ``origin -> target`` within ``budget_s``.
+
+        An edge ``(u, v)`` is kept when the fastest time to ``u`` plus the edge plus the
+        fastest time from ``v`` to the target fits the budget, so every path within the
+        budget stays. ``d_from`` may pass the times from ``origin`` already computed (with a
+        limit of at least ``budget_s``). Returns None when the target cannot be reached.
+        """
+        if d_from is None:
+            d_from = self.time_tree(origin, budget_s)
+        if not np.isfinite(d_from[target]) or d_from[target] > budget_s * (1 + 1e-9) + 1e-6:
+            return None
+        d_to = self.time_tree(target, budget_s, reverse=True)
+        if origin == target:
+            return Leg(self, None, origin, target, np.zeros(0), 0.0)
+        through = d_from[self.src] + self.scorer.tt + d_to[self.dst]
+        keep = np.isfinite(through)
+        if np.isfinite(budget_s):
+            keep &= through <= budget_s * (1 + 1e-9) + 1e-6
+        rows = np.flatnonzero(keep)
+        nodes = np.unique(np.concatenate([self.src[rows], self.dst[rows]]))
+        arcs = Arcs(np.searchsorted(nodes, self.src[rows]),
+                    np.searchsorted(nodes, self.dst[rows]), len(nodes), rows)
+        o, t = int(np.searchsorted(nodes, origin)), int(np.searchsorted(nodes, target))
+        return Leg(self, arcs, o, t, d_from[self.src[arcs.rows]], float(d_from[target]))
 
 
-def _shared_share(a: list[int], b: list[int], km: np.ndarray) -> float:
+@dataclass
+class Leg:
+    """The searchable part of one leg: arcs (with network rows), ends, entry times."""
+
+    graph: RouteGraph
+    arcs: Arcs | None  # None for a leg that starts where it ends
+    origin: int
+    target: int
+    enter_s: np.ndarray  # fastest arrival at each arc's start (seconds), aligned with arcs
+    fastest_s: float
+
+    @property
+    def rows(self) -> np.ndarray:
+        """Network edge rows of the arcs."""
+        return np.zeros(0, dtype=np.int64) if self.arcs is None else self.arcs.rows
+
+    def front(self, tt: np.ndarray, risk: np.ndarray) -> list[np.ndarray]:
+        """Return the supported (time, risk) points, fast to safe, as edge rows.
+
+        ``tt`` and ``risk`` are aligned with :attr:`rows`; infinite values close arcs.
+        """
+        if self.arcs is None:
+            return [np.zeros(0, dtype=np.int64)]
+        arcs = self.arcs
+
+        def solve(a: float, b: float, bound: float = np.inf
+                  ) -> tuple[float, float, np.ndarray] | None:
+            cost = a * tt + b * risk
+            lim = bound * (1 + 1e-6) + 1e-9 if np.isfinite(bound) else np.inf
+            _, pred, best = arcs.solve(cost, self.origin, lim)
+            p = arcs.path(pred, best, self.origin, self.target)
+            if p is None:
+                return None
+            return float(tt[p].sum()), float(risk[p].sum()), p
+
+        fast = solve(1.0, 1e-9)
+        safe = solve(1e-9, 1.0)
+        if fast is None or safe is None:
+            return []
+        points = {fast[2].tobytes(): fast, safe[2].tobytes(): safe}
+        stack = [(fast, safe)]
+        while stack:
+            p, q = stack.pop()
+            # weight making p and q equal: a*(tp - tq) = b*(rq - rp)
+            a, b = p[1] - q[1], q[0] - p[0]
+            if a <= EPS or b <= EPS:
+                continue
+            line = a * p[0] + b * p[1]
+            r = solve(a, b, line)
+            if r is None or r[2].tobytes() in points:
+                continue
+            if a * r[0] + b * r[1] < line - 1e-9 * line:
+                points[r[2].tobytes()] = r
+                stack.extend([(p, r), (r, q)])
+        out = sorted(points.values(), key=lambda x: (x[0], x[1]))
+        return [arcs.rows[x[2]] for x in out]
+
+
+def _shared_share(a: np.ndarray, b: np.ndarray, km: np.ndarray) -> float:
     """Return the share of path ``a``'s length that path ``b`` also drives."""
+    a = np.asarray(a, dtype=np.int64)
     la = km[a].sum()
     if la == 0:
         return 1.0
     common = np.isin(a, np.asarray(b, dtype=np.int64))
-    return float(km[np.asarray(a)[common]].sum() / la)
+    return float(km[a[common]].sum() / la)
+
+
+@dataclass
+class _Candidate:
+    """A rule-abiding candidate path with its quick score and the bounds it breaks."""
+
+    rows: np.ndarray
+    risk: float
+    minutes: float
+    km: float
+    overlap: float
+    broken: list[str]
 
 
 class Suggester:
@@ -163,93 +347,135 @@ class Suggester:
         sc = scorer
         self.tt = sc.tt
         self.km = sc.km
+        self._sev_km = sc.sev * sc.km
+        self._fixed_risk = (sc.sev * sc.km * sc.base
+                            + sc.sev * sc.profile.crossing_weight * sc.cross)
+        if sc.profile.rules:
+            # minutes in force, counted cumulatively over three copies of the week, so a
+            # window around any minute is one subtraction
+            three = np.tile(sc.rule_time.astype(np.int32), 3)
+            self._rule_cum = np.concatenate(
+                [np.zeros((len(sc.profile.rules), 1), dtype=np.int32),
+                 np.cumsum(three, axis=1, dtype=np.int32)], axis=1)
 
     # -- costs -------------------------------------------------------------------------
-    def _risk_at(self, minutes: np.ndarray) -> np.ndarray:
+    def _risk_at(self, minutes: np.ndarray, rows: np.ndarray | None = None) -> np.ndarray:
+        """Return the risk of edges (all, or ``rows``) entered at the given minutes."""
         sc = self.scorer
-        mult = sc.mult_table[:, minutes % MINUTES_PER_WEEK].T  # (m, C)
-        cat = (sc.sev * sc.km)[:, None] * sc.w[None, :] * mult * sc.exp
-        return (sc.sev * sc.km * sc.base + cat.sum(axis=1)
-                + sc.sev * sc.profile.crossing_weight * sc.cross)
+        sel = slice(None) if rows is None else rows
+        mult = sc.mult_table[:, np.asarray(minutes) % MINUTES_PER_WEEK].T  # (k, C)
+        cat = self._sev_km[sel][:, None] * sc.w[None, :] * mult * sc.exp[sel]
+        return self._fixed_risk[sel] + cat.sum(axis=1)
 
-    def _closed(self, minutes: np.ndarray, slack_min: float) -> np.ndarray:
+    def _closed(self, minutes: np.ndarray, slack_min: float,
+                rows: np.ndarray | None = None) -> np.ndarray:
         """Return edges covered by a rule in force within +-slack of the expected minute."""
         sc = self.scorer
+        n = self.g.m if rows is None else len(rows)
         if not sc.profile.rules:
-            return np.zeros(self.g.m, dtype=bool)
-        closed = np.zeros(self.g.m, dtype=bool)
-        offsets = np.arange(-int(slack_min), int(slack_min) + 1, 1)
-        for off in offsets:
-            t = (minutes + off) % MINUTES_PER_WEEK
-            closed |= (sc.rule_cover & sc.rule_time[:, t].T).any(axis=1)
-        return closed
+            return np.zeros(n, dtype=bool)
+        sel = slice(None) if rows is None else rows
+        s = min(int(slack_min), MINUTES_PER_WEEK)
+        t = np.asarray(minutes, dtype=np.int64) % MINUTES_PER_WEEK + MINUTES_PER_WEEK
+        near = (self._rule_cum[:, t + s + 1] - self._rule_cum[:, t - s]) > 0  # (R, k)
+        return (sc.rule_cover[sel] & near.T).any(axis=1)
 
-    def _leg_costs(self, origin: int, m0: float, slack_min: float):
-        """Risk and closure of every edge at its expected entry time on a leg from origin."""
-        dist, _, _ = self.g.shortest(self.tt, origin)
-        arrive = dist[self.g.src]
-        arrive = np.where(np.isfinite(arrive), arrive, 0.0)
-        minutes = np.floor(m0 + arrive / 60.0).astype(np.int64)
-        return self._risk_at(minutes), self._closed(minutes, slack_min)
+    def _leg_costs(self, leg: Leg, m0: float, slack_min: float
+                   ) -> tuple[np.ndarray, np.ndarray]:
+        """Risk and closure of the leg's edges at their expected entry minutes."""
+        minutes = np.floor(m0 + leg.enter_s / 60.0).astype(np.int64)
+        return self._risk_at(minutes, leg.rows), self._closed(minutes, slack_min, leg.rows)
 
     # -- the search --------------------------------------------------------------------
-    def _leg_front(self, origin: int, target: int, risk: np.ndarray, closed: np.ndarray,
-                   penalty: np.ndarray) -> list[list[int]]:
-        """Return the supported (time, risk) front of paths from origin to target."""
-        tt = np.where(closed, np.inf, self.tt * penalty)
-        rk = np.where(closed, np.inf, risk * penalty)
-
-        def solve(a: float, b: float) -> tuple[float, float, list[int]] | None:
-            cost = a * tt + b * rk
-            _, pred, best = self.g.shortest(cost, origin)
-            rows = self.g.path_edges(pred, best, origin, target)
-            if rows is None:
+    def _legs_within(self, anchors: list[int], budget_s: float) -> list[Leg] | None:
+        """Return the searchable part of every leg for a route time budget (None if none)."""
+        g = self.g
+        pairs = list(zip(anchors[:-1], anchors[1:], strict=True))
+        trees = [g.time_tree(a, budget_s) for a, _ in pairs]
+        fastest = [float(d[b]) for d, (_, b) in zip(trees, pairs, strict=True)]
+        if not all(np.isfinite(fastest)):
+            return None
+        total = sum(fastest)
+        legs = []
+        for (a, b), d, f in zip(pairs, trees, fastest, strict=True):
+            leg = g.leg(a, b, budget_s - (total - f), d_from=d)
+            if leg is None:
                 return None
-            return float(tt[rows].sum()), float(rk[rows].sum()), rows
+            legs.append(leg)
+        return legs
 
-        fast = solve(1.0, 1e-9)
-        safe = solve(1e-9, 1.0)
-        if fast is None or safe is None:
-            return []
-        points = {tuple(fast[2]): fast, tuple(safe[2]): safe}
-        stack = [(fast, safe)]
-        while stack:
-            p, q = stack.pop()
-            # weight making p and q equal: a*(tp - tq) = b*(rq - rp)
-            a, b = p[1] - q[1], q[0] - p[0]
-            if a <= EPS or b <= EPS:
-                continue
-            r = solve(a, b)
-            if r is None or tuple(r[2]) in points:
-                continue
-            if a * r[0] + b * r[1] < a * p[0] + b * p[1] - 1e-9 * (a * p[0] + b * p[1]):
-                points[tuple(r[2])] = r
-                stack.extend([(p, r), (r, q)])
-        out = sorted(points.values(), key=lambda x: (x[0], x[1]))
-        return [x[2] for x in out]
-
-    def _legs(self, anchors: list[int], m0: float, slack: float, penalty: np.ndarray,
-              extra_closed: np.ndarray) -> list[list[int]]:
-        """Return candidate full paths through the anchors (supported points per leg)."""
-        legs: list[list[list[int]]] = []
+    def _paths(self, legs: list[Leg], m0: float, slack: float, penalty: np.ndarray,
+               extra_closed: np.ndarray | None, cache: dict[Any, Any]) -> list[np.ndarray]:
+        """Return candidate full paths through the legs (supported points per leg)."""
+        fronts: list[list[np.ndarray]] = []
         t = m0
-        for a, b in zip(anchors[:-1], anchors[1:], strict=True):
-            risk, closed = self._leg_costs(a, t, slack)
-            front = self._leg_front(a, b, risk, closed | extra_closed, penalty)
+        for i, leg in enumerate(legs):
+            key = (i, t)
+            if key not in cache:
+                cache[key] = self._leg_costs(leg, t, slack)
+            risk, closed = cache[key]
+            rows = leg.rows
+            shut = closed if extra_closed is None else closed | extra_closed[rows]
+            pen = penalty[rows]
+            front = leg.front(np.where(shut, np.inf, self.tt[rows] * pen),
+                              np.where(shut, np.inf, risk * pen))
             if not front:
                 return []
-            legs.append(front)
+            fronts.append(front)
             t += float(self.tt[front[0]].sum()) / 60.0
         # combine legs: pair the i-th point of each leg's front (from fast to safe)
-        k = max(len(f) for f in legs)
+        k = max(len(f) for f in fronts)
         paths = []
         for i in range(k):
-            rows: list[int] = []
-            for f in legs:
-                rows.extend(f[min(i, len(f) - 1) if k == 1 else
-                              round(i * (len(f) - 1) / max(k - 1, 1))])
-            paths.append(rows)
+            parts = [f[min(i, len(f) - 1) if k == 1 else round(i * (len(f) - 1) / max(k - 1, 1))]
+                     for f in fronts]
+            paths.append(np.concatenate(parts).astype(np.int64))
         return paths
+
+    def _breaking(self, rows: np.ndarray, depart: dt.datetime) -> np.ndarray:
+        """Return the rows a path drives while a hard rule covering them is in force."""
+        sc = self.scorer
+        if not sc.profile.rules or not len(rows):
+            return np.zeros(0, dtype=np.int64)
+        minutes = sc._timeline(rows, depart, None)[5]
+        hit = (sc.rule_cover[rows] & sc.rule_time[:, minutes].T).any(axis=1)
+        return rows[hit]
+
+    def _search(self, legs: list[Leg], depart: dt.datetime, m0: float, slack: float,
+                rounds: int, judge: Any) -> tuple[list[_Candidate], list[tuple[float, float]]]:
+        """Run the penalty rounds on the legs; return rule-abiding candidates and the front."""
+        penalty = np.ones(self.g.m)
+        cache: dict[Any, Any] = {}
+        seen: dict[bytes, _Candidate] = {}
+        front: list[tuple[float, float]] = []
+        for rnd in range(rounds):
+            for rows in self._paths(legs, m0, slack, penalty, None, cache):
+                rows = self._repair(rows, legs, depart, m0, slack, penalty, cache)
+                if rows is None or not len(rows):
+                    continue
+                cand = judge(rows)
+                if rnd == 0:
+                    front.append((cand.minutes, cand.risk))
+                seen.setdefault(rows.tobytes(), cand)
+                penalty[rows] *= PENALTY
+        return list(seen.values()), front
+
+    def _repair(self, rows: np.ndarray, legs: list[Leg], depart: dt.datetime, m0: float,
+                slack: float, penalty: np.ndarray, cache: dict[Any, Any]) -> np.ndarray | None:
+        """Close the edges a path drives against a rule and search again (None if stuck)."""
+        extra: np.ndarray | None = None
+        for _ in range(MAX_REPAIRS):
+            bad = self._breaking(rows, depart)
+            if not len(bad):
+                return rows
+            if extra is None:
+                extra = np.zeros(self.g.m, dtype=bool)
+            extra[bad] = True
+            paths = self._paths(legs, m0, slack, penalty, extra, cache)
+            if not paths:
+                return None
+            rows = paths[-1]  # the lowest-risk point of the repaired front
+        return None
 
     def suggest(self, name: str, planned: list[tuple[int, int, int]], depart: dt.datetime, *,
                 via: list[int] | None = None, count: int = 3, max_extra_time: float = 0.25,
@@ -280,7 +506,7 @@ class Suggester:
         """
         sc = self.scorer
         plan = sc.score(name, planned, depart)
-        plan_rows = list(sc.positions(planned))
+        plan_rows = sc.positions(planned)
         g = self.g
         via = list(via or [])
         if not via and planned[0][0] == planned[-1][1]:
@@ -294,85 +520,73 @@ class Suggester:
         slack = max(2.0, plan.duration_min * max_extra_time + 1.0)
         t_max = plan.duration_min * (1 + max_extra_time) + 1e-9
         l_max = None if max_extra_length is None else plan.length_km * (1 + max_extra_length)
-        penalty = np.ones(g.m)
-        seen: dict[tuple[int, ...], Alternative] = {}
-        front: list[tuple[float, float]] = []
-        extra_closed = np.zeros(g.m, dtype=bool)
-        for rnd in range(rounds):
-            for rows in self._legs(anchors, m0, slack, penalty, extra_closed):
-                alt = self._exact(name, rows, depart, plan, plan_rows, t_max, l_max,
-                                  m0, slack, anchors, penalty)
-                if alt is None:
-                    continue
-                key = tuple(sc.positions(alt.edges))
-                if rnd == 0:
-                    front.append((alt.score.duration_min, alt.score.risk))
-                seen.setdefault(key, alt)
-                penalty[list(key)] *= PENALTY
-        pool = sorted(seen.values(), key=lambda a: (len(a.score.rule_breaks),
-                                                    not a.within_bounds, a.score.risk,
-                                                    a.score.duration_min))
-        good = [a for a in pool if a.within_bounds and not a.score.rule_breaks
-                and a.score.risk < plan.risk - 1e-12]
-        chosen = self._diverse(good, plan_rows, count, min_difference)
+
+        def judge(rows: np.ndarray) -> _Candidate:
+            risk, minutes, _ = sc.quick(rows, depart)
+            km = float(self.km[rows].sum())
+            overlap = _shared_share(rows, plan_rows, self.km)
+            broken = []
+            if minutes > t_max:
+                broken.append("extra time")
+            if l_max is not None and km > l_max + 1e-9:
+                broken.append("extra length")
+            if 1.0 - overlap < min_difference - 1e-12:
+                broken.append("difference from the plan")
+            if not risk < plan.risk - 1e-12:
+                broken.append("lower risk")
+            return _Candidate(rows, risk, minutes, km, overlap, broken)
+
+        budget = plan.duration_min * 60.0 * (1 + max_extra_time) * (1 + 1e-9) + 1e-6
+        legs = self._legs_within(anchors, budget)
+        cands, front = self._search(legs, depart, m0, slack, rounds, judge) if legs else ([], [])
+        chosen = self._diverse([c for c in cands if not c.broken], count, min_difference)
         note = ""
         if not chosen:
+            wide = plan.duration_min * 60.0 * RELAXED_TIME_FACTOR
+            if wide > budget:
+                wider = self._legs_within(anchors, wide)
+                if wider:
+                    more, _ = self._search(wider, depart, m0, slack, rounds, judge)
+                    known = {c.rows.tobytes() for c in cands}
+                    cands += [c for c in more if c.rows.tobytes() not in known]
+            pool = sorted(cands, key=lambda c: (len(c.broken), c.risk, c.minutes))
             note = ("no alternative lowers the risk within the bounds (extra time, length, "
                     "hard rules, difference from the plan); shown: the best candidate, the one "
                     "that breaks the fewest") if pool else "no alternative route found"
             chosen = pool[:1]
-        for i, a in enumerate(chosen, 1):
-            a.label = f"alternative {i}"
-        return Suggestion(name, plan, planned, chosen, sorted(set(front)), note)
+        alts = [self._alternative(name, c, plan, depart, f"alternative {i}")
+                for i, c in enumerate(chosen, 1)]
+        return Suggestion(name, plan, planned, alts, sorted(set(front)), note)
 
-    def _diverse(self, pool: list[Alternative], plan_rows: list[int], count: int,
-                 min_difference: float) -> list[Alternative]:
-        """Pick, lowest risk first, alternatives that differ enough from the plan and each other."""
-        sc = self.scorer
-        chosen: list[Alternative] = []
-        for alt in sorted(pool, key=lambda a: (a.score.risk, a.score.duration_min)):
-            rows = list(sc.positions(alt.edges))
-            if 1.0 - alt.overlap_with_plan < min_difference:
+    def _alternative(self, name: str, c: _Candidate, plan: RouteScore, depart: dt.datetime,
+                     label: str) -> Alternative:
+        """Score a chosen candidate in full and state its changes against the plan."""
+        edges = self.g.as_tuples(c.rows)
+        s = self.scorer.score(name, edges, depart)
+
+        def change(new: float, old: float) -> float:
+            return 100.0 * (new - old) / old if old else 0.0
+
+        return Alternative(
+            edges=edges, score=s, risk_change_pct=change(s.risk, plan.risk),
+            time_change_pct=change(s.duration_min, plan.duration_min),
+            length_change_pct=change(s.length_km, plan.length_km),
+            overlap_with_plan=c.overlap,
+            within_bounds=not {"extra time", "extra length"} & set(c.broken),
+            label=label, bounds_broken=list(c.broken))
+
+    def _diverse(self, pool: list[_Candidate], count: int, min_difference: float
+                 ) -> list[_Candidate]:
+        """Pick, lowest risk first, candidates that differ enough from each other."""
+        chosen: list[_Candidate] = []
+        for c in sorted(pool, key=lambda c: (c.risk, c.minutes)):
+            if any(1.0 - _shared_share(c.rows, d.rows, self.km) < min_difference
+                   for d in chosen):
                 continue
-            if any(1.0 - _shared_share(rows, list(sc.positions(c.edges)), sc.km) <
-                   min_difference for c in chosen):
-                continue
-            chosen.append(alt)
+            chosen.append(c)
             if len(chosen) == count:
                 break
         return chosen
-
-    def _exact(self, name, rows, depart, plan, plan_rows, t_max, l_max, m0, slack, anchors,
-               penalty) -> Alternative | None:
-        """Score a candidate exactly; close edges it drives against a rule and retry."""
-        sc = self.scorer
-        if not rows:
-            return None
-        extra = np.zeros(self.g.m, dtype=bool)
-        for _ in range(MAX_REPAIRS):
-            edges = self.g.as_tuples(rows)
-            s = sc.score(name, edges, depart)
-            if not s.rule_breaks:
-                break
-            for b in s.rule_breaks:
-                extra[sc.positions([tuple(b["edge"])])[0]] = True
-            paths = self._legs(anchors, m0, slack, penalty, extra)
-            if not paths:
-                return None
-            rows = paths[-1]  # the lowest-risk point of the repaired front
-        else:
-            return None
-        within = s.duration_min <= t_max and (l_max is None or s.length_km <= l_max + 1e-9)
-        return Alternative(
-            edges=edges, score=s,
-            risk_change_pct=100.0 * (s.risk - plan.risk) / plan.risk if plan.risk else 0.0,
-            time_change_pct=100.0 * (s.duration_min - plan.duration_min) / plan.duration_min
-            if plan.duration_min else 0.0,
-            length_change_pct=100.0 * (s.length_km - plan.length_km) / plan.length_km
-            if plan.length_km else 0.0,
-            overlap_with_plan=_shared_share(rows, plan_rows, sc.km),
-            within_bounds=bool(within),
-        )
 
 
 def front_by_brute_force(pairs: list[tuple[float, float]]) -> list[tuple[float, float]]:

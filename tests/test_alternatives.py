@@ -8,7 +8,7 @@ import networkx as nx
 import numpy as np
 import pytest
 
-from routerisk.alternatives import RouteGraph, Suggester, front_by_brute_force
+from routerisk.alternatives import Arcs, RouteGraph, Suggester, front_by_brute_force
 from routerisk.profile import parse_profile
 from routerisk.scoring import Scorer
 
@@ -44,11 +44,57 @@ def test_finds_every_supported_point_by_brute_force(seed):
         rows = [G[a][b]["row"] for a, b in zip(path[:-1], path[1:], strict=True)]
         pairs.append((round(float(tt[rows].sum()), 9), round(float(risk[rows].sum()), 9)))
     expected = front_by_brute_force(pairs)
-    found = sug._leg_front(g.node_of[origin], g.node_of[target], risk,
-                           np.zeros(g.m, dtype=bool), np.ones(g.m))
+    leg = g.leg(g.node_of[origin], g.node_of[target])
+    found = leg.front(tt[leg.rows], risk[leg.rows])
     got = sorted({(round(float(tt[r].sum()), 9), round(float(risk[r].sum()), 9))
                   for r in found})
     assert got == expected
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_time_bounded_leg_keeps_every_path_within_the_bound(seed):
+    # Reference: brute force over all simple paths (networkx.all_simple_paths) of a 4x4 grid.
+    # Every path within the time budget must survive the pruning, and the search on the
+    # pruned part must find exactly the supported points of the simple paths left in it.
+    net = random_grid(_flat_profile(), n=4, seed=seed)
+    sc = Scorer(net)
+    sug = Suggester(sc)
+    g = RouteGraph(sc)
+    risk = sug._risk_at(np.zeros(g.m, dtype=np.int64))
+    tt = sc.tt
+    G = nx.DiGraph()
+    for row, (u, v, _k) in enumerate(sc.index):
+        G.add_edge(u, v, row=row)
+    origin, target = 1, 16
+    paths = [[G[a][b]["row"] for a, b in zip(p[:-1], p[1:], strict=True)]
+             for p in nx.all_simple_paths(G, origin, target)]
+    fastest = min(float(tt[r].sum()) for r in paths)
+    budget = 1.3 * fastest
+    leg = g.leg(g.node_of[origin], g.node_of[target], budget)
+    kept = set(leg.rows.tolist())
+    assert {r for p in paths if tt[p].sum() <= budget for r in p} <= kept
+    assert len(kept) < g.m  # something was pruned
+    pairs = [(round(float(tt[r].sum()), 9), round(float(risk[r].sum()), 9)) for r in paths
+             if set(r) <= kept]
+    found = leg.front(tt[leg.rows], risk[leg.rows])
+    got = sorted({(round(float(tt[r].sum()), 9), round(float(risk[r].sum()), 9))
+                  for r in found})
+    assert got == front_by_brute_force(pairs)
+    assert got[0][0] == round(fastest, 9)
+    assert g.leg(g.node_of[origin], g.node_of[target], 0.99 * fastest) is None
+
+
+def test_arcs_take_the_cheapest_parallel_edge():
+    # three nodes, two parallel arcs 0->1 (costs 5 and 2) and one 1->2; hand-computed
+    arcs = Arcs(np.array([0, 0, 1]), np.array([1, 1, 2]), 3, np.array([10, 11, 12]))
+    cost = np.array([{10: 5.0, 11: 2.0, 12: 1.0}[int(r)] for r in arcs.rows])
+    dist, pred, best = arcs.solve(cost, 0)
+    assert dist.tolist() == [0.0, 2.0, 3.0]
+    assert arcs.rows[arcs.path(pred, best, 0, 2)].tolist() == [11, 12]
+    cost[arcs.rows == 11] = np.inf  # closed: the dearer parallel arc is used
+    dist, pred, best = arcs.solve(cost, 0)
+    assert arcs.rows[arcs.path(pred, best, 0, 2)].tolist() == [10, 12]
+    assert arcs.path(pred, best, 2, 2).tolist() == []
 
 
 def test_alternatives_never_break_hard_rules():
