@@ -68,7 +68,6 @@ def rules_in_force(edges: pd.DataFrame, profile: Profile, minutes: np.ndarray | 
 # ----------------------------------------------------------------------------- routes
 
 import datetime as _dt  # noqa: E402
-import math  # noqa: E402
 from dataclasses import dataclass, field  # noqa: E402
 from typing import Any  # noqa: E402
 
@@ -172,6 +171,7 @@ class Scorer:
         self._geoms = e.geometry.to_numpy()
         self._bands = e["band"].to_numpy()
         self._row_of: dict[tuple[int, int, int], int] | None = None
+        self._heads: tuple[np.ndarray, np.ndarray] | None = None
         import pyproj
 
         self._to_ll = pyproj.Transformer.from_crs(e.crs, "EPSG:4326", always_xy=True)
@@ -290,44 +290,50 @@ class Scorer:
                  cross_part: np.ndarray, n: int = HOTSPOTS) -> list[dict[str, Any]]:
         """Return the ``n`` segments that contribute most risk, with the reasons."""
         total = seg["risk"].to_numpy()
-        order = np.lexsort((seg["seq"].to_numpy(), -total))[:n]
-        labels = {c.name: c.label for c in self.profile.categories}
+        seq = seg["seq"].to_numpy()
+        street, tcol = seg["street"].to_numpy(), seg["time"].to_numpy()
+        u, v, k = (seg[c].to_numpy() for c in ("u", "v", "key"))
+        order = np.lexsort((seq, -total))[:n]
+        labels = [c.label for c in self.profile.categories]  # in the order of self.cats
+        grand = total.sum()
         out = []
         for i in order:
-            parts = {labels[c]: cat_parts[i, j] for j, c in enumerate(self.cats)}
+            parts = {lab: cat_parts[i, j] for j, lab in enumerate(labels)}
             parts["street baseline"] = base_part[i]
             parts["crossings"] = cross_part[i]
-            reasons = [k for k, v in sorted(parts.items(), key=lambda kv: (-kv[1], kv[0]))
-                       if v > 0.05 * total[i]][:3]
-            out.append({"street": str(seg["street"].iat[i]), "seq": int(seg["seq"].iat[i]),
-                        "edge": [int(seg["u"].iat[i]), int(seg["v"].iat[i]),
-                                 int(seg["key"].iat[i])],
-                        "risk": _round(total[i]), "time": seg["time"].iat[i],
-                        "share": _round(total[i] / total.sum() if total.sum() else 0.0),
+            reasons = [k_ for k_, val in sorted(parts.items(), key=lambda kv: (-kv[1], kv[0]))
+                       if val > 0.05 * total[i]][:3]
+            out.append({"street": str(street[i]), "seq": int(seq[i]),
+                        "edge": [int(u[i]), int(v[i]), int(k[i])],
+                        "risk": _round(total[i]), "time": tcol[i],
+                        "share": _round(total[i] / grand if grand else 0.0),
                         "reasons": reasons})
         return out
 
-    def _heading(self, pos: int, at_end: bool) -> float:
-        g = self._geoms[pos].coords
-        (x0, y0), (x1, y1) = (g[-2], g[-1]) if at_end else (g[0], g[1])
-        return math.atan2(y1 - y0, x1 - x0)
+    def _headings(self) -> tuple[np.ndarray, np.ndarray]:
+        """Return each edge's heading (radians) leaving its start and reaching its end."""
+        if self._heads is None:
+            import shapely
+
+            xy, which = shapely.get_coordinates(self._geoms, return_index=True)
+            first = np.searchsorted(which, np.arange(len(self._geoms)))
+            last = np.searchsorted(which, np.arange(len(self._geoms)), side="right") - 1
+            start = np.arctan2(xy[first + 1, 1] - xy[first, 1], xy[first + 1, 0] - xy[first, 0])
+            end = np.arctan2(xy[last, 1] - xy[last - 1, 1], xy[last, 0] - xy[last - 1, 0])
+            self._heads = (start, end)
+        return self._heads
 
     def left_turns(self, edges: list[tuple[int, int, int]]) -> int:
         """Count left turns across traffic between consecutive edges (right-hand traffic)."""
         if len(edges) < 2:
             return 0
         pos = self.positions(edges)
-        n = 0
-        for i in range(len(edges) - 1):
-            node = edges[i][1]
-            if self.out_degree.get(node, 0) < 3:  # no choice at this node: not a junction
-                continue
-            a = self._heading(pos[i], True)
-            b = self._heading(pos[i + 1], False)
-            turn = math.degrees((b - a + math.pi) % (2 * math.pi) - math.pi)  # + = left
-            if LEFT_TURN_MIN_DEG <= turn <= LEFT_TURN_MAX_DEG:
-                n += 1
-        return n
+        start, end = self._headings()
+        a, b = end[pos[:-1]], start[pos[1:]]
+        turn = np.degrees((b - a + np.pi) % (2 * np.pi) - np.pi)  # + = left
+        junction = np.fromiter((self.out_degree.get(e[1], 0) >= 3 for e in edges[:-1]),
+                               dtype=bool, count=len(edges) - 1)  # else no choice there
+        return int((junction & (turn >= LEFT_TURN_MIN_DEG) & (turn <= LEFT_TURN_MAX_DEG)).sum())
 
 
 def parse_depart(text: str, tz: Any) -> _dt.datetime:
