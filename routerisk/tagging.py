@@ -28,6 +28,23 @@ log = logging.getLogger(__name__)
 
 #: A crossing node counts for an edge when it lies within this distance of its geometry (m).
 CROSSING_SNAP_M = 1.0
+#: Sample points handled at once while tagging (bounds the memory of large networks).
+CHUNK_POINTS = 1_000_000
+
+
+def _sample_counts(geoms: np.ndarray, spacing: float) -> np.ndarray:
+    """Return the number of samples of each line (see :func:`sample_points`)."""
+    return np.maximum(1, np.ceil(shapely.length(geoms) / spacing - 1e-9)).astype(np.int64)
+
+
+def _chunks(geoms: np.ndarray, spacing: float, size: int) -> list[tuple[int, int]]:
+    """Return (start, stop) ranges of lines holding about ``size`` samples each."""
+    if len(geoms) == 0:
+        return []
+    ends = np.cumsum(_sample_counts(geoms, spacing))
+    cuts = np.searchsorted(ends, np.arange(size, int(ends[-1]), size), side="right")
+    bounds = np.unique(np.concatenate([[0], cuts, [len(geoms)]]))
+    return [(int(a), int(b)) for a, b in zip(bounds[:-1], bounds[1:], strict=True)]
 
 
 def sample_points(geoms: np.ndarray, spacing: float) -> tuple[np.ndarray, np.ndarray]:
@@ -36,8 +53,7 @@ def sample_points(geoms: np.ndarray, spacing: float) -> tuple[np.ndarray, np.nda
     A line of length L gets n = max(1, ceil(L / spacing)) samples at the midpoints of n
     equal pieces, so the mean over its samples is the midpoint-rule length average.
     """
-    lengths = shapely.length(geoms)
-    n = np.maximum(1, np.ceil(lengths / spacing - 1e-9)).astype(np.int64)
+    n = _sample_counts(geoms, spacing)
     owner = np.repeat(np.arange(len(geoms)), n)
     starts = np.cumsum(n) - n
     j = np.arange(owner.size) - np.repeat(starts, n)
@@ -173,14 +189,24 @@ def tag_edges(
     geoms = edges.geometry.to_numpy()
     src_geoms = sources.geometry.to_numpy()
     src_cat = sources["category"].to_numpy()
-    pts, owner = sample_points(geoms, profile.sample_spacing_m)
-    point_tree = STRtree(pts) if len(pts) else None
     new: dict[str, np.ndarray] = {}
-    for cat in profile.categories:
-        src = src_geoms[src_cat == cat.name]
-        exp, share = category_exposure(pts, owner, n, src, cat, point_tree=point_tree)
-        new[f"exp_{cat.name}"] = exp
-        new[f"infl_{cat.name}"] = share
+    by_cat = {c.name: src_geoms[src_cat == c.name] for c in profile.categories}
+    for c in profile.categories:
+        new[f"exp_{c.name}"] = np.zeros(n)
+        new[f"infl_{c.name}"] = np.zeros(n)
+    n_points = 0
+    # Edges in chunks of about CHUNK_POINTS sample points: an edge's values depend only on
+    # its own samples, so the result is the same as in one piece, with bounded memory.
+    for lo, hi in _chunks(geoms, profile.sample_spacing_m, CHUNK_POINTS):
+        pts, owner = sample_points(geoms[lo:hi], profile.sample_spacing_m)
+        n_points += len(pts)
+        point_tree = STRtree(pts) if len(pts) else None
+        for cat in profile.categories:
+            exp, share = category_exposure(pts, owner, hi - lo, by_cat[cat.name], cat,
+                                           point_tree=point_tree)
+            new[f"exp_{cat.name}"][lo:hi] = exp
+            new[f"infl_{cat.name}"][lo:hi] = share
+        del pts, owner, point_tree
     n_cross = np.zeros(n, dtype=np.int64)
     if len(crossings):
         cpts = crossings.geometry.to_numpy()
@@ -215,5 +241,5 @@ def tag_edges(
         added = pd.DataFrame(new, index=out.index)
         out = gpd.GeoDataFrame(pd.concat([pd.DataFrame(out), added], axis=1),
                                geometry=edges.geometry.name, crs=edges.crs)
-    log.info("tag_edges tagged %d edges with %d sample points", len(out), len(pts))
+    log.info("tag_edges tagged %d edges with %d sample points", len(out), n_points)
     return out

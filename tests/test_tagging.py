@@ -110,3 +110,18 @@ def test_rule_flag_within_distance():
     out = tagging.tag_edges(_edges([LineString([(0, 0), (100, 0)]),
                                     LineString([(0, 50), (100, 50)])]), src, empty, _profile())
     assert out["rule_0"].tolist() == [True, False]
+
+
+def test_tagging_in_small_chunks_gives_the_same_columns(town_net, monkeypatch):
+    # The sample town tagged in pieces of 7 sample points must equal the one-piece tagging
+    # value for value (each edge's exposure depends only on its own samples).
+    net = town_net
+    cols = [c for c in net.edges.columns if c.startswith(("exp_", "infl_"))] + [
+        "exposure_km", "crossings"]
+    plain = tagging.tag_edges(net.edges, net.sources, net.crossings, net.profile)
+    monkeypatch.setattr(tagging, "CHUNK_POINTS", 7)
+    assert len(tagging._chunks(net.edges.geometry.to_numpy(), 10.0, 7)) > 100
+    chunked = tagging.tag_edges(net.edges, net.sources, net.crossings, net.profile)
+    for c in cols:
+        np.testing.assert_array_equal(chunked[c].to_numpy(), plain[c].to_numpy(), err_msg=c)
+    assert plain["exp_school"].gt(0).any()
