@@ -5,11 +5,18 @@ ways and nodes (plus one cheap relations-only pass when the profile asks for pol
 may be multipolygon relations). Clipped extracts are expected: way node references whose
 node is missing split the way into the runs of nodes that exist, and relations keep the
 members that exist.
+
+The file must be a consistent snapshot: a node, way or relation id that appears twice is an
+error naming it (the ids are collected as the file is read and checked once at the end, by
+sorting). A node the read uses (a road's node, a crossing, a source) whose coordinates lie
+outside -90..90 latitude or -180..180 longitude is an error naming the node; a node that
+nothing uses changes nothing and is not looked at.
 """
 
 from __future__ import annotations
 
 import logging
+from array import array
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -42,6 +49,9 @@ DRIVE_EXCLUDE = {
 _PRECISION = 10_000_000
 _LON_MAX = 180 * _PRECISION
 _LAT_MAX = 90 * _PRECISION
+# osmium's coordinate of an undefined location: a way node reference whose node is not in
+# the file (a clipped extract), or a node written without coordinates.
+_UNDEFINED = 2**31 - 1
 WAY_KEYS = ("highway", "name", "lanes", "maxspeed", "oneway", "junction", "sidewalk", "ref",
             "hazard", "maxspeed:conditional", "access")
 
@@ -117,6 +127,46 @@ def _check_path(path: str | Path) -> Path:
     return p
 
 
+def _degrees(v: int) -> str:
+    """Return a fixed-point coordinate as decimal degrees, without trailing zeros."""
+    return f"{v / _PRECISION:.7f}".rstrip("0").rstrip(".")
+
+
+def _bad_location(p: Path, node_id: int, x: int, y: int) -> InputFileError:
+    """Return the error for a used node whose fixed-point location ``x, y`` is not valid."""
+    if not -_LAT_MAX <= y <= _LAT_MAX and y != _UNDEFINED:
+        msg = f"latitude {_degrees(y)} out of range -90..90"
+    elif not -_LON_MAX <= x <= _LON_MAX and x != _UNDEFINED:
+        msg = f"longitude {_degrees(x)} out of range -180..180"
+    else:
+        msg = "no valid location (latitude or longitude missing or out of range)"
+    return InputFileError(msg, path=p, field=f"node {node_id}")
+
+
+def _check_unique(p: Path, ids: dict[str, array]) -> None:
+    """Raise when an id appears more than once among the objects of one type.
+
+    ``ids`` maps ``node``, ``way``, ``relation`` to every id read, in file order. Sorting and
+    comparing neighbours costs far less than a set lookup per object while reading.
+    """
+    firsts = []
+    repeated = 0
+    for kind, seen in ids.items():
+        if len(seen) < 2:
+            continue
+        a = np.sort(np.frombuffer(seen, dtype=np.int64))
+        same = a[1:] == a[:-1]
+        if same.any():
+            dup = np.unique(a[1:][same])
+            repeated += len(dup)
+            firsts.append(f"{kind} {int(dup[0])}")
+    if firsts:
+        raise InputFileError(
+            f"duplicate id: the file holds this object more than once ({repeated} repeated "
+            f"id{'s' if repeated != 1 else ''} in all); an OSM file holds each object once",
+            path=p, field=", ".join(firsts))
+
+
 def _osmium_file(p: Path) -> osmium.io.File:
     name = p.name.lower()
     fmt = ""
@@ -144,11 +194,14 @@ def read_osm(
     crossings: dict[int, tuple[float, float, str]] = {}
     signals: set[int] = set()
     missing = 0
+    ids = {kind: array("q") for kind in ("node", "way", "relation")}
+    node_ids, way_ids, rel_ids = ids["node"].append, ids["way"].append, ids["relation"].append
     try:
         # Pass 1 (relations only): which ways are members of wanted multipolygons.
         member_ways: dict[int, list[tuple[int, str]]] = {}
         rel_tags: dict[int, dict[str, str]] = {}
         for rel in osmium.FileProcessor(_osmium_file(p), osmium.osm.RELATION):
+            rel_ids(rel.id)
             tags = dict(rel.tags)
             if tags.get("type") not in ("multipolygon", "boundary") or not want(tags):
                 continue
@@ -160,10 +213,9 @@ def read_osm(
             rid: RawFeature("relation", rid, t) for rid, t in rel_tags.items()
         }
 
+        # every node comes through (not filtered out in osmium) so that its id is seen once
         fp = osmium.FileProcessor(_osmium_file(p), osmium.osm.NODE | osmium.osm.WAY)
-        untagged_nodes = osmium.filter.EmptyTagFilter()
-        untagged_nodes.enable_for(osmium.osm.NODE)  # ways stay: multipolygon members are bare
-        fp = fp.with_locations().with_filter(untagged_nodes)
+        fp = fp.with_locations()
         header = fp.header
         box = header.box()
         bounds = None
@@ -173,20 +225,26 @@ def read_osm(
         timestamp = header.get("osmosis_replication_timestamp") or header.get("timestamp") or None
         for obj in fp:
             if obj.is_node():
+                node_ids(obj.id)
                 tags = obj.tags
+                if not tags:  # most nodes: only their location matters, kept by osmium
+                    continue
                 hw = tags.get("highway")
                 if hw == "crossing":
                     loc = obj.location
+                    if not loc.valid():
+                        raise _bad_location(p, obj.id, loc.x, loc.y)
                     crossings[obj.id] = (loc.lon, loc.lat, tags.get("crossing", "unknown"))
                 elif hw == "traffic_signals":
                     signals.add(obj.id)
-                td = None
                 if want(tags):
-                    td = dict(tags)
                     loc = obj.location
-                    features.append(RawFeature("node", obj.id, td,
+                    if not loc.valid():
+                        raise _bad_location(p, obj.id, loc.x, loc.y)
+                    features.append(RawFeature("node", obj.id, dict(tags),
                                                [np.array([[loc.lon, loc.lat]])]))
                 continue
+            way_ids(obj.id)
             tags = obj.tags
             drivable = is_drivable(tags)
             wanted = want(tags)
@@ -201,8 +259,16 @@ def read_osm(
             xi, yi = arr[:, 1], arr[:, 2]
             ok = (xi >= -_LON_MAX) & (xi <= _LON_MAX) & (yi >= -_LAT_MAX) & (yi <= _LAT_MAX)
             coords = np.column_stack([xi / _PRECISION, yi / _PRECISION])
-            coords[~ok] = np.nan
-            nbad = int((~ok).sum())
+            nbad = 0
+            if not ok.all():
+                # undefined: the node is not in the file (clipped); anything else is a node
+                # in the file with impossible coordinates
+                wrong = ~ok & ~((xi == _UNDEFINED) & (yi == _UNDEFINED))
+                if wrong.any():
+                    i = int(np.argmax(wrong))
+                    raise _bad_location(p, int(refs[i]), int(xi[i]), int(yi[i]))
+                coords[~ok] = np.nan
+                nbad = int((~ok).sum())
             missing += nbad
             if drivable:
                 td = {k: tags.get(k) for k in WAY_KEYS if k in tags}
@@ -222,9 +288,16 @@ def read_osm(
                         rel_parts[rid].lonlat.append(run)
                         rel_parts[rid].roles.append(role)
         features.extend(f for f in rel_parts.values() if f.lonlat)
+    except osmium.InvalidLocationError as exc:
+        # the parser refuses a coordinate it cannot read (nan, inf, 1e3, beyond +-214.7)
+        msg = str(exc).strip().splitlines()[0] if str(exc).strip() else "invalid location"
+        raise InputFileError(f"{msg}; coordinates must be decimal degrees within -90..90 "
+                             "latitude and -180..180 longitude", path=p,
+                             field="node coordinates") from exc
     except RuntimeError as exc:
         msg = str(exc).strip().splitlines()[0] if str(exc).strip() else "unreadable"
         raise InputFileError(f"cannot read as OSM data ({msg})", path=p) from exc
+    _check_unique(p, ids)
     if missing:
         log.info("%s: %d way node references point to nodes not in the file (clipped "
                  "extract); kept the runs of nodes that exist", p, missing)

@@ -227,6 +227,35 @@ def _duplicate_ids(tmp: Path) -> Path:
                                            osm.way(1000, [5, 6, 7], highway="primary")])
 
 
+def _duplicate_node(tmp: Path) -> Path:
+    # grid node 6 written a second time somewhere else; ways are all distinct
+    return _grid(tmp, "dupe_node.osm", extra=[osm.node(6, 38.7, -38.3)])
+
+
+def _repeated_way(tmp: Path) -> Path:
+    # way 1001 written twice with exactly the same content: still not a consistent file
+    return _grid(tmp, "twice.osm", extra=[osm.way(1001, [5, 6, 7, 8], highway="residential",
+                                                  name="Row 1 Street", maxspeed="25 mph")])
+
+
+def _lon200(tmp: Path) -> Path:
+    # grid node 7 moved to longitude 200 (osmium reads it; it is no place on Earth)
+    text = _grid(tmp, "lon200.osm").read_text()
+    old = osm.node(7, 38.501, -37.998)
+    assert old in text
+    return _write(tmp / "lon200.osm", text.replace(old, osm.node(7, 38.501, 200.0)))
+
+
+def _bad_crossing(tmp: Path) -> Path:
+    # a tagged crossing node far off the map, used by no road: the crossing itself is read
+    return _grid(tmp, "crossing.osm", extra=[osm.node(50, -91.0, -38.0, highway="crossing")])
+
+
+def _nan_coordinate(tmp: Path) -> Path:
+    text = _grid(tmp, "nan.osm").read_text()
+    return _write(tmp / "nan.osm", text.replace('lat="38.5000000"', 'lat="nan"', 1))
+
+
 def _lat95(tmp: Path) -> Path:
     return osm.write(tmp / "lat95.osm", [
         osm.node(1, 95.0, -38.0), osm.node(2, 95.001, -38.0), osm.node(3, 95.002, -38.0),
@@ -294,14 +323,22 @@ CASES: dict[str, Case] = {
     "build: a folder as SOURCE": Case(_build(lambda t: (t / "folder.osm").mkdir() or
                                              t / "folder.osm"), ("folder.osm",), ("out",)),
     "build: no drivable roads": Case(_build(_no_roads), ("paths.osm",), ("out",)),
-    "build: duplicate ids": Case(_build(_duplicate_ids), ("dupes.osm", "1000"), ("out",),
-                                 xfail="routerisk/_osm.py accepts a way id (or node id) that "
-                                       "appears twice with other content"),
+    "build: duplicate ids": Case(_build(_duplicate_ids), ("dupes.osm", "1000"), ("out",)),
+    "build: duplicate node id only": Case(_build(_duplicate_node), ("dupe_node.osm", "node 6",
+                                                                    "duplicate"), ("out",)),
+    "build: same way twice, same content": Case(_build(_repeated_way), ("twice.osm",
+                                                                        "way 1001",
+                                                                        "duplicate"),
+                                                ("out",)),
     "build: latitude 95": Case(_build(_lat95), ("lat95.osm",), ("out",)),
-    "build: latitude 95 named as such": Case(_build(_lat95), ("lat95.osm", "range"), ("out",),
-                                             xfail="routerisk/_osm.py counts out-of-range "
-                                                   "coordinates as missing nodes and then "
-                                                   "says 'no drivable roads'"),
+    "build: latitude 95 named as such": Case(_build(_lat95), (
+        "lat95.osm", "node 1", "latitude 95 out of range -90..90"), ("out",)),
+    "build: longitude 200 on a road": Case(_build(_lon200), (
+        "lon200.osm", "node 7", "longitude 200 out of range -180..180"), ("out",)),
+    "build: crossing node at latitude -91": Case(_build(_bad_crossing), (
+        "crossing.osm", "node 50", "latitude -91 out of range"), ("out",)),
+    "build: coordinate not a number": Case(_build(_nan_coordinate), ("nan.osm", "nan"),
+                                           ("out",)),
     "build: --out under a file": Case(lambda t, _: [
         "build", str(_grid(t)), "--out", str(_write(t / "afile", "x") / "out")],
         ("afile",), ("afile/out",)),

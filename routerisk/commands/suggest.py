@@ -6,7 +6,7 @@ import argparse
 from pathlib import Path
 
 from .. import CAUTION, mapview, routemap, routes, scoring
-from .._io import check_target, dumps_json
+from .._io import check_target, dumps_json, provenance
 from ..alternatives import suggest_routes
 from ..errors import OptionError
 from ._common import add_network, network_of
@@ -65,8 +65,11 @@ def run(args: argparse.Namespace) -> int:
                                              inputs={"routes": args.routes}),
                      args.map, force=args.force)
     if args.json:
+        # the same record as score's JSON and the map: tool version, profile, input checksums
         print(dumps_json({"routes": [s.to_dict() for s in result],
-                          "profile": net.profile.fingerprint}))
+                          "profile": net.profile.fingerprint,
+                          "made_from": provenance(profile=net.profile.fingerprint, network=net,
+                                                  inputs={"routes": args.routes})}))
         return 0
     for s in result:
         p = s.planned
