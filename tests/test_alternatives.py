@@ -25,30 +25,33 @@ def _flat_profile(rules=()):
         "rules": list(rules)})
 
 
+def _grid_case(seed):
+    """A seeded 4x4 grid: route graph, edge times, edge risks and every simple path 1 -> 16."""
+    net = random_grid(_flat_profile(), n=4, seed=seed)
+    sc = Scorer(net)
+    g = RouteGraph(sc)
+    risk = Suggester(sc)._risk_at(np.zeros(g.m, dtype=np.int64))
+    G = nx.DiGraph()
+    for row, (u, v, _k) in enumerate(sc.index):
+        G.add_edge(u, v, row=row)
+    paths = [[G[a][b]["row"] for a, b in zip(p[:-1], p[1:], strict=True)]
+             for p in nx.all_simple_paths(G, 1, 16)]
+    return g, sc.tt, risk, paths
+
+
+def _points(rows_list, tt, risk):
+    return sorted({(round(float(tt[r].sum()), 9), round(float(risk[r].sum()), 9))
+                   for r in rows_list})
+
+
 @pytest.mark.parametrize("seed", range(6))
 def test_finds_every_supported_point_by_brute_force(seed):
     # Reference: brute force over all simple paths (networkx.all_simple_paths) of a 4x4 grid;
     # the supported points are the vertices of the lower-left convex hull of (time, risk).
-    net = random_grid(_flat_profile(), n=4, seed=seed)
-    sc = Scorer(net)
-    sug = Suggester(sc)
-    g = RouteGraph(sc)
-    risk = sug._risk_at(np.zeros(g.m, dtype=np.int64))
-    tt = sc.tt
-    G = nx.DiGraph()
-    for row, (u, v, _k) in enumerate(sc.index):
-        G.add_edge(u, v, row=row)
-    origin, target = 1, 16
-    pairs = []
-    for path in nx.all_simple_paths(G, origin, target):
-        rows = [G[a][b]["row"] for a, b in zip(path[:-1], path[1:], strict=True)]
-        pairs.append((round(float(tt[rows].sum()), 9), round(float(risk[rows].sum()), 9)))
-    expected = front_by_brute_force(pairs)
-    leg = g.leg(g.node_of[origin], g.node_of[target])
-    found = leg.front(tt[leg.rows], risk[leg.rows])
-    got = sorted({(round(float(tt[r].sum()), 9), round(float(risk[r].sum()), 9))
-                  for r in found})
-    assert got == expected
+    g, tt, risk, paths = _grid_case(seed)
+    expected = front_by_brute_force(_points(paths, tt, risk))
+    leg = g.leg(g.node_of[1], g.node_of[16])
+    assert _points(leg.front(tt[leg.rows], risk[leg.rows]), tt, risk) == expected
 
 
 @pytest.mark.parametrize("seed", range(6))
@@ -56,32 +59,17 @@ def test_time_bounded_leg_keeps_every_path_within_the_bound(seed):
     # Reference: brute force over all simple paths (networkx.all_simple_paths) of a 4x4 grid.
     # Every path within the time budget must survive the pruning, and the search on the
     # pruned part must find exactly the supported points of the simple paths left in it.
-    net = random_grid(_flat_profile(), n=4, seed=seed)
-    sc = Scorer(net)
-    sug = Suggester(sc)
-    g = RouteGraph(sc)
-    risk = sug._risk_at(np.zeros(g.m, dtype=np.int64))
-    tt = sc.tt
-    G = nx.DiGraph()
-    for row, (u, v, _k) in enumerate(sc.index):
-        G.add_edge(u, v, row=row)
-    origin, target = 1, 16
-    paths = [[G[a][b]["row"] for a, b in zip(p[:-1], p[1:], strict=True)]
-             for p in nx.all_simple_paths(G, origin, target)]
+    g, tt, risk, paths = _grid_case(seed)
     fastest = min(float(tt[r].sum()) for r in paths)
     budget = 1.3 * fastest
-    leg = g.leg(g.node_of[origin], g.node_of[target], budget)
+    leg = g.leg(g.node_of[1], g.node_of[16], budget)
     kept = set(leg.rows.tolist())
     assert {r for p in paths if tt[p].sum() <= budget for r in p} <= kept
     assert len(kept) < g.m  # something was pruned
-    pairs = [(round(float(tt[r].sum()), 9), round(float(risk[r].sum()), 9)) for r in paths
-             if set(r) <= kept]
-    found = leg.front(tt[leg.rows], risk[leg.rows])
-    got = sorted({(round(float(tt[r].sum()), 9), round(float(risk[r].sum()), 9))
-                  for r in found})
-    assert got == front_by_brute_force(pairs)
+    got = _points(leg.front(tt[leg.rows], risk[leg.rows]), tt, risk)
+    assert got == front_by_brute_force(_points([r for r in paths if set(r) <= kept], tt, risk))
     assert got[0][0] == round(fastest, 9)
-    assert g.leg(g.node_of[origin], g.node_of[target], 0.99 * fastest) is None
+    assert g.leg(g.node_of[1], g.node_of[16], 0.99 * fastest) is None
 
 
 def test_arcs_take_the_cheapest_parallel_edge():
