@@ -18,9 +18,11 @@ tag                    tagging.tag_edges                                        
                                                                                     + sjoin with the edges (flags only)
 load_network           network.load_network (graph stays lazy)                      -
 graph                  Network.graph (the networkx graph, on first use)             osmnx.convert.graph_from_gdfs
-paths                  100 shortest paths, alternatives.RouteGraph (csgraph)        networkx.shortest_path, same pairs
+paths                  100 two-point routes joined, matching.join_waypoints         networkx.shortest_path, same pairs
+                       (snapping + bounded csgraph Dijkstra; index built untimed)
 score                  1,000 routes of about 5 km, scoring.Scorer.score             -
 suggest                20 routes, alternatives.Suggester.suggest (per route)        -
+suggest_long           the same for 20 routes of about 15 km (a wider search)       -
 review                 review.review_areas on a quarter of the city                 -
 tag_dask               partition.tag_partitioned on a local cluster (2 workers)     tagging.tag_edges
 =====================  ===========================================================  ==========================================
@@ -52,6 +54,7 @@ MARK_BEGIN = "<!-- bench_all:begin -->"
 MARK_END = "<!-- bench_all:end -->"
 DEPART = "2027-03-09T08:05"
 ROUTE_KM = 5.0
+LONG_ROUTE_KM = 15.0
 
 # --------------------------------------------------------------------------------- children
 
@@ -180,7 +183,7 @@ def child_graph_osmnx(a: dict[str, Any]) -> dict[str, Any]:
 
 
 def child_routes(a: dict[str, Any]) -> dict[str, Any]:
-    """Pick about 1,000 routes of about 5 km: shortest-length paths between node pairs."""
+    """Pick ``routes`` routes of about ``route_km``: shortest-length paths between node pairs."""
     import numpy as np
     from scipy.sparse import csr_matrix
     from scipy.sparse.csgraph import dijkstra
@@ -202,12 +205,13 @@ def child_routes(a: dict[str, Any]) -> dict[str, Any]:
     rng = np.random.default_rng(7)
     routes: list[dict[str, Any]] = []
     want = int(a["routes"])
+    route_m = float(a.get("route_km", ROUTE_KM)) * 1000
     tries = 0
     while len(routes) < want and tries < 400:
         tries += 1
         o = int(rng.integers(len(ids)))
         dist, pred = dijkstra(mat, indices=o, return_predecessors=True)
-        near = np.flatnonzero((dist > 0.9 * ROUTE_KM * 1000) & (dist < 1.1 * ROUTE_KM * 1000))
+        near = np.flatnonzero((dist > 0.9 * route_m) & (dist < 1.1 * route_m))
         if len(near) == 0:
             continue
         for t_ in rng.choice(near, size=min(25, len(near)), replace=False).tolist():
@@ -223,7 +227,13 @@ def child_routes(a: dict[str, Any]) -> dict[str, Any]:
     Path(a["routes_file"]).write_text(json.dumps(routes))
     km = [sum(float(w[row[(int(np.searchsorted(ids, x[0])), int(np.searchsorted(ids, x[1])))]])
               for x in r["edges"]) / 1000 for r in routes[:50]]
-    return {"routes": len(routes), "mean_km_first50": float(np.mean(km))}
+    return {"routes": len(routes), "mean_km_first50": float(np.mean(km)) if km else None}
+
+
+def child_routes_long(a: dict[str, Any]) -> dict[str, Any]:
+    """Pick the long routes for ``suggest_long`` (about three times the usual length)."""
+    return child_routes({**a, "routes": a["suggest"], "route_km": LONG_ROUTE_KM,
+                         "routes_file": a["long_routes_file"]})
 
 
 def _routes(a: dict[str, Any]) -> list[dict[str, Any]]:
@@ -268,28 +278,55 @@ def child_suggest(a: dict[str, Any]) -> dict[str, Any]:
         s = sug.suggest(f"r{i}", [tuple(x) for x in r["edges"]], depart)
         per.append(time.perf_counter() - t)
         found += len(s.alternatives)
+    if not per:
+        raise SystemExit("no route of the wanted length in this city")
     return {"routes": len(routes), "timed": t_init + sum(per), "init_s": t_init,
             "per_route_mean_s": float(np.mean(per)), "per_route_max_s": float(np.max(per)),
             "alternatives": found}
 
 
+def child_suggest_long(a: dict[str, Any]) -> dict[str, Any]:
+    """Suggest for the long routes (about 15 km), where the searched ellipse is widest."""
+    res = child_suggest({**a, "routes_file": a["long_routes_file"]})
+    long = json.loads(Path(a["long_routes_file"]).read_text())
+    res["route_km_target"] = LONG_ROUTE_KM
+    res["routes_found"] = len(long)
+    return res
+
+
+def _pairs_lonlat(net: Any, pairs: list[tuple[int, int]]) -> list[Any]:
+    """Return each pair's two node positions as (lon, lat) arrays."""
+    import numpy as np
+    import pyproj
+
+    to_wgs = pyproj.Transformer.from_crs(net.crs, "EPSG:4326", always_xy=True)
+    nodes = net.nodes
+    out = []
+    for o, d in pairs:
+        x = np.array([nodes.at[o, "x"], nodes.at[d, "x"]], dtype=float)
+        y = np.array([nodes.at[o, "y"], nodes.at[d, "y"]], dtype=float)
+        lon, lat = to_wgs.transform(x, y)
+        out.append(np.column_stack([lon, lat]))
+    return out
+
+
 def child_paths(a: dict[str, Any]) -> dict[str, Any]:
-    from routerisk.alternatives import RouteGraph
-    from routerisk.scoring import Scorer
+    """Join each pair as a two-point route: the fastest-path join every command uses."""
+    from routerisk.matching import RoadIndex, join_waypoints
+    from routerisk.routes import PlannedRoute
 
     net = _net(a["net"])
     pairs = [(r["origin"], r["target"]) for r in _routes(a)[: int(a["pairs"])]]
-    g = RouteGraph(Scorer(net))
-    tt = g.scorer.tt
     t = time.perf_counter()
-    costs = []
-    for o, d in pairs:
-        _, pred, best = g.shortest(tt, g.node_of[o])
-        rows = g.path_edges(pred, best, g.node_of[o], g.node_of[d])
-        costs.append(float(tt[rows].sum()))
+    idx = RoadIndex(net.graph)
+    t_index = time.perf_counter() - t
+    routes = [PlannedRoute(f"p{i}", ll) for i, ll in enumerate(_pairs_lonlat(net, pairs))]
+    t = time.perf_counter()
+    costs = [float(join_waypoints(idx, r).time_s) for r in routes]
     secs = time.perf_counter() - t
     Path(a["paths_file"]).write_text(json.dumps(costs))
-    return {"pairs": len(pairs), "timed": secs, "per_pair_ms": 1000 * secs / len(pairs)}
+    return {"pairs": len(pairs), "timed": secs, "per_pair_ms": 1000 * secs / len(pairs),
+            "index_s": t_index}
 
 
 def child_paths_nx(a: dict[str, Any]) -> dict[str, Any]:
@@ -369,9 +406,11 @@ ROWS = [
      "dask"),
     ("load saved network", "load_network", None, "< 3 s at 100k", "load_network"),
     ("networkx graph (lazy)", "graph", "graph_osmnx", "", None),
-    ("shortest paths (100 pairs)", "paths", "paths_nx", "", None),
+    ("fastest-path joins (100 pairs)", "paths", "paths_nx", "", None),
     ("score 1,000 routes", "score", None, "< 5 s", "score"),
     ("suggest 20 routes", "suggest", None, "< 2 s per route at 100k", "suggest"),
+    ("suggest 20 long routes", "suggest_long", None, "< 2 s per route at 100k; < 10 s at 1M",
+     "suggest"),
     ("area review (1/4 of the city)", "review", None, "", None),
 ]
 
@@ -398,11 +437,12 @@ def bench_size(edges: int, seed: int, *, skip: set[str], keep: Path | None) -> d
     gen_s = time.perf_counter() - t
     a = {"pbf": str(pbf), "xml": str(xml), "net": str(tmp / "net"), "routes": 1000,
          "suggest": 20, "pairs": 100, "routes_file": str(tmp / "routes.json"),
-         "paths_file": str(tmp / "paths.json")}
+         "paths_file": str(tmp / "paths.json"),
+         "long_routes_file": str(tmp / "long_routes.json")}
     stages: dict[str, Any] = {}
     order = ["build", "load", "osmnx_load", "tag", "tag_sjoin", "tag_dask", "load_network",
              "graph", "graph_osmnx", "routes", "paths", "paths_nx", "score", "suggest",
-             "review"]
+             "routes_long", "suggest_long", "review"]
     for st in order:
         if st in skip:
             continue
@@ -430,7 +470,10 @@ def _table(records: list[dict[str, Any]]) -> list[dict[str, Any]]:
             b = st.get(base) if base else None
             bs = _seconds(b, base) if base else None
             extra = ""
-            if ours == "suggest" and r and "error" not in r:
+            if ours == "suggest_long" and r and "error" not in r:
+                extra = (f"{r['routes']} routes of ~{r['route_km_target']:g} km: mean "
+                         f"{r['per_route_mean_s']:.2f} s, max {r['per_route_max_s']:.2f} s")
+            elif ours == "suggest" and r and "error" not in r:
                 extra = f"mean {r['per_route_mean_s']:.2f} s, max {r['per_route_max_s']:.2f} s"
             elif ours == "score" and r and "error" not in r:
                 extra = f"{r['per_route_ms']:.2f} ms per route"
