@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import json
 import logging
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from functools import cached_property
 from pathlib import Path
@@ -96,8 +97,13 @@ class Network:
             "profile": self.profile.fingerprint,
         }
 
-    def retag(self, profile: Profile) -> Network:
-        """Return this network tagged with another profile (same categories and selectors)."""
+    def retag(self, profile: Profile, *, tagger: Callable[..., gpd.GeoDataFrame] | None = None
+              ) -> Network:
+        """Return this network tagged with another profile (same categories and selectors).
+
+        ``tagger`` replaces :func:`routerisk.tagging.tag_edges` (e.g. a tiled one from
+        :func:`routerisk.partition.tagger`); the values are the same.
+        """
         if profile.fingerprint == self.profile.fingerprint:
             return self
         old = {c.name: c.selectors for c in self.profile.categories}
@@ -108,8 +114,9 @@ class Network:
                     "built with; rebuild the network with this profile",
                     path=profile.source, field=f"categories.{c.name}.select")
         base = self.edges[[c for c in self.edges.columns if c in EDGE_KEEP]]
-        edges = tagging.tag_edges(base, self.sources, self.crossings, profile,
-                                  polygons=_rule_polygons(profile))
+        tag = tagging.tag_edges if tagger is None else tagger
+        edges = tag(base, self.sources, self.crossings, profile,
+                    polygons=_rule_polygons(profile))
         return Network(edges, self.nodes, self.sources, self.crossings, profile,
                        {**self.meta, "profile": profile.fingerprint})
 

@@ -1,4 +1,4 @@
-"""Tagging and area-review sums partitioned by spatial tiles, run on Dask.
+"""Tagging and area review partitioned by spatial tiles, run on Dask.
 
 For areas larger than one machine handles comfortably, the edges are cut into square tiles
 (each edge belongs to the tile of its midpoint) and each tile is tagged on its own by
@@ -12,8 +12,11 @@ the single-machine run, bit for bit (``tests/test_partition.py``), whatever the 
 The tiles run as tasks on a ``dask.distributed`` cluster: :func:`cluster` starts a local
 one (two worker processes by default) or connects to a running scheduler by its address,
 so the same code runs on this machine or on many (the workers need routerisk installed).
-The area review's length sums run per tile as partitions of a ``dask_geopandas``
-GeoDataFrame. ``client=None`` runs the same tiles one after the other in this process.
+The area review clips the edges to each area tile by tile (:func:`clipper`, the heavy step of
+a review: one polygon intersection per edge), so a review on tiles reports the same figures
+as one on a single machine; its length sums alone can also run as partitions of a
+``dask_geopandas`` GeoDataFrame (:func:`review_sums`). ``client=None`` runs the same tiles
+one after the other in this process.
 
 Dask, distributed and dask-geopandas are optional; they are imported only here, on use.
 """
@@ -161,16 +164,23 @@ def tag_partitioned(
              len(parts), tile_m, halo_m(profile))
     if not parts:
         return tagging.tag_edges(edges, sources, crossings, profile, polygons=polygons)
-    args = [(edges.iloc[e], sources.iloc[s], crossings.iloc[c]) for e, s, c in parts]
+
+    def tiles(batch: list[int]) -> list[tuple[gpd.GeoDataFrame, ...]]:
+        # the frames of a batch are cut only when it is sent, so at most one batch of
+        # copies is alive in this process at a time
+        return [(edges.iloc[parts[i][0]], sources.iloc[parts[i][1]],
+                 crossings.iloc[parts[i][2]]) for i in batch]
+
     batches = _batches([len(p[0]) for p in parts], task_edges)
     if client is None:
-        results = _tag_tiles(args, profile, polygons)
+        results = [r for b in batches for r in _tag_tiles(tiles(b), profile, polygons)]
     else:
         prof = client.scatter(profile, broadcast=True)
         polys = client.scatter(polygons, broadcast=True) if polygons else None
-        futures = [client.submit(_tag_tiles, [args[i] for i in b], prof, polys, pure=False)
+        futures = [client.submit(_tag_tiles, tiles(b), prof, polys, pure=False)
                    for b in batches]
         results = [r for batch in client.gather(futures) for r in batch]
+        del futures
     rows = np.concatenate([p[0] for p in parts])
     out = pd.concat(results)
     back = np.empty(len(rows), dtype=np.int64)
@@ -246,7 +256,60 @@ def cluster(*, workers: int | None = None, scheduler: str | None = None,
         lc.close()
 
 
-# ------------------------------------------------------------------------ area review sums
+# ------------------------------------------------------------------------ area review
+
+
+def _clip_tiles(tiles: list[gpd.GeoDataFrame], geometry: Any) -> list[gpd.GeoDataFrame]:
+    """Clip a batch of tiles to one area, each on its own (one task on a worker)."""
+    from .review import clip_edges
+
+    return [clip_edges(t, geometry) for t in tiles]
+
+
+def clip_partitioned(edges: gpd.GeoDataFrame, geometry: Any, *,
+                     tile_m: float = DEFAULT_TILE_M, client: Any = None,
+                     tree: STRtree | None = None, task_edges: int = 20_000
+                     ) -> gpd.GeoDataFrame:
+    """Return the same frame as :func:`routerisk.review.clip_edges`, clipped tile by tile.
+
+    The edges whose bounding boxes meet the area are picked here with the index; their
+    intersections with the area (the costly part) run per tile, as tasks on ``client``'s
+    workers or, with None, one after the other in this process. Each edge is clipped on its
+    own, so the values are those of the single-machine clip, bit for bit, in the same order.
+    """
+    check_tile(tile_m)
+    geoms = edges.geometry.to_numpy()
+    tree = tree if tree is not None else STRtree(geoms)
+    rows = np.sort(tree.query(geometry))
+    sub = edges.iloc[rows]
+    if len(sub) == 0:
+        return _clip_tiles([sub], geometry)[0]
+    tiles = tile_ids(sub, tile_m)
+    order = np.argsort(tiles, kind="stable")
+    cuts = np.flatnonzero(np.diff(tiles[order])) + 1
+    parts = [sub.iloc[np.sort(r)] for r in np.split(order, cuts)]
+    if client is None:
+        results = _clip_tiles(parts, geometry)
+    else:
+        area = client.scatter(geometry, broadcast=True)
+        futures = [client.submit(_clip_tiles, [parts[i] for i in b], area, pure=False)
+                   for b in _batches([len(p) for p in parts], task_edges)]
+        results = [r for batch in client.gather(futures) for r in batch]
+    out = pd.concat(results)
+    out = out.iloc[np.argsort(edges.index.get_indexer(out.index), kind="stable")]
+    return gpd.GeoDataFrame(out, geometry=edges.geometry.name, crs=edges.crs)
+
+
+def clipper(*, client: Any = None, tile_m: float = DEFAULT_TILE_M) -> Any:
+    """Return a drop-in for :func:`routerisk.review.clip_edges` that clips by tiles."""
+    check_tile(tile_m)
+
+    def clip(edges: gpd.GeoDataFrame, geometry: Any, *, tree: STRtree | None = None
+             ) -> gpd.GeoDataFrame:
+        return clip_partitioned(edges, geometry, tile_m=tile_m, client=client, tree=tree)
+
+    return clip
+
 
 
 def _area_sums(part: pd.DataFrame, areas: list[Any], categories: list[str],

@@ -35,7 +35,7 @@ import dataclasses
 import logging
 import math
 import re
-from collections.abc import Iterable, Sequence
+from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -373,9 +373,11 @@ class _Context:
     hourly_mult: np.ndarray  # (168, n_categories) mean multiplier in each hour
     force_hour: np.ndarray  # (n_rules, 168) rule in force at some minute of the hour
     source_trees: dict[str, tuple[STRtree, np.ndarray, np.ndarray]]
+    clip: Callable[..., gpd.GeoDataFrame]  # clip_edges, or a drop-in that clips by tiles
 
     @classmethod
-    def of(cls, net: Network) -> _Context:
+    def of(cls, net: Network, clip: Callable[..., gpd.GeoDataFrame] | None = None
+           ) -> _Context:
         prof = net.profile
         mult = prof.multipliers(np.arange(MINUTES_PER_WEEK))
         hourly = mult.reshape(HOURS_PER_WEEK, 60, -1).mean(axis=1)
@@ -388,7 +390,8 @@ class _Context:
             if len(part):
                 g = part.geometry.to_numpy()
                 trees[c.name] = (STRtree(g), g, part["name"].fillna("").astype(str).to_numpy())
-        return cls(net, STRtree(net.edges.geometry.to_numpy()), hourly, force, trees)
+        return cls(net, STRtree(net.edges.geometry.to_numpy()), hourly, force, trees,
+                   clip or clip_edges)
 
 
 def _closed_matrix(clip: pd.DataFrame, profile: Profile, force_hour: np.ndarray
@@ -615,7 +618,7 @@ def _review_area(ctx: _Context, area: Area, *, at: int | None = None, top: int =
     """
     net = ctx.net
     prof = net.profile
-    clip = clip_edges(net.edges, area.geometry, tree=ctx.tree)
+    clip = ctx.clip(net.edges, area.geometry, tree=ctx.tree)
     if len(clip) == 0:
         raise InputFileError(f"area {area.name!r} lies entirely off the road network",
                              path=area.source, field=area.field)
@@ -772,7 +775,9 @@ class Review:
 
 def review_areas(net: Network, areas: Sequence[Area], *, at: int | None = None,
                  what_ifs: Sequence[WhatIf] = (), top: int = 10,
-                 high_bands: Sequence[str] | None = None) -> Review:
+                 high_bands: Sequence[str] | None = None,
+                 clipper: Callable[..., gpd.GeoDataFrame] | None = None,
+                 tagger: Callable[..., gpd.GeoDataFrame] | None = None) -> Review:
     """Review every area on ``net``; with what-ifs, again on re-tagged copies.
 
     Parameters
@@ -789,10 +794,15 @@ def review_areas(net: Network, areas: Sequence[Area], *, at: int | None = None,
         Number of hot spots per area.
     high_bands
         Bands that count as high for clusters (default: the upper half of the bands).
+    clipper, tagger
+        Drop-ins for :func:`clip_edges` and :func:`routerisk.tagging.tag_edges` (the what-ifs
+        re-tag), e.g. :func:`routerisk.partition.clipper` and
+        :func:`routerisk.partition.tagger` to run tile by tile on a Dask cluster; the
+        figures are the same.
     """
     if not areas:
         raise InputFileError("no area to review")
-    ctx = _Context.of(net)
+    ctx = _Context.of(net, clipper)
     results = []
     clipped = {}
     for area in areas:
@@ -802,8 +812,8 @@ def review_areas(net: Network, areas: Sequence[Area], *, at: int | None = None,
     scenarios = []
     for wi in what_ifs:
         prof2 = apply_what_if(net.profile, wi)
-        net2 = net.retag(prof2)
-        ctx2 = _Context.of(net2)
+        net2 = net.retag(prof2, tagger=tagger)
+        ctx2 = _Context.of(net2, clipper)
         rows = []
         for area, base in zip(areas, results, strict=True):
             fig2, _ = _review_area(ctx2, area, at=at, top=top, high_bands=high_bands)

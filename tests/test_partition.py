@@ -12,7 +12,8 @@ pytest.importorskip("dask")
 pytest.importorskip("distributed")
 pytest.importorskip("dask_geopandas")
 
-from routerisk import partition, synthetic, tagging  # noqa: E402
+from routerisk import datasets, partition, review, synthetic, tagging  # noqa: E402
+from routerisk.cli import main  # noqa: E402
 from routerisk.network import EDGE_KEEP, build_network  # noqa: E402
 from routerisk.review import Area, review_areas  # noqa: E402
 
@@ -121,6 +122,52 @@ def test_review_sums_match_review(town_net, client):
                 assert g["km_by_band"][b] == pytest.approx(km, abs=6e-5)
             for c, km in r["km_in_influence"].items():
                 assert g["km_in_influence"][c] == pytest.approx(km, abs=6e-5)
+
+
+def _town_areas(net):
+    x0, y0, x1, y1 = net.edges.total_bounds
+    return [Area("west half", 0, box(x0, y0, (x0 + x1) / 2, y1), "test", "f[0]"),
+            Area("centre", 1, box(x0 + 500, y0 + 400, x1 - 500, y1 - 400), "test", "f[1]")]
+
+
+@pytest.mark.parametrize("tile_m", [140.0, 900.0])
+def test_clip_on_tiles_identical(town_net, client, tile_m):
+    for area in _town_areas(town_net):
+        single = review.clip_edges(town_net.edges, area.geometry)
+        for cl in (None, client):
+            tiles = partition.clip_partitioned(town_net.edges, area.geometry, tile_m=tile_m,
+                                               client=cl, task_edges=50)
+            assert tiles.index.equals(single.index)
+            assert list(tiles.columns) == list(single.columns)
+            for c in ("clip_m", "clip_share", "length", "exposure_km"):
+                assert np.array_equal(tiles[c].to_numpy(), single[c].to_numpy()), c
+            assert all(a.equals_exact(b, 0) for a, b in zip(tiles.geometry, single.geometry,
+                                                             strict=True))
+
+
+def test_review_on_tiles_gives_the_same_figures(town_net, client):
+    # the whole review (km, bands, influence, closures, connectivity, hot spots) and a
+    # weight what-if (re-tagged on tiles) agree exactly with the single-machine review
+    areas = _town_areas(town_net)
+    wi = [review.parse_what_if(["weight:school=5"], town_net.profile)]
+    single = review_areas(town_net, areas, what_ifs=wi).to_json()
+    tiled = review_areas(town_net, areas, what_ifs=wi,
+                         clipper=partition.clipper(client=client, tile_m=400.0),
+                         tagger=partition.tagger(client=client, tile_m=400.0)).to_json()
+    assert tiled == single
+    assert single["areas"][0]["network_km"] > 10
+
+
+def test_review_command_on_a_local_cluster(town_dir, tmp_path, capsys):
+    # --workers starts a local cluster of worker processes: same JSON as the plain run
+    area = str(datasets.get_path("area"))
+    assert main(["review", area, "--network", str(town_dir), "--json"]) == 0
+    plain = capsys.readouterr().out
+    assert main(["review", area, "--network", str(town_dir), "--json", "--workers", "1",
+                 "--tile-m", "800"]) == 0
+    assert capsys.readouterr().out == plain
+    assert main(["review", area, "--network", str(town_dir), "--tile-m", "800"]) == 2
+    assert "--tile-m" in capsys.readouterr().err
 
 
 def test_bad_options():

@@ -3,8 +3,12 @@
 from __future__ import annotations
 
 import argparse
+import contextlib
+from collections.abc import Iterator
 from pathlib import Path
+from typing import Any
 
+from ..errors import OptionError
 from ..network import Network, load_network
 from ..profile import Profile, load_profile
 
@@ -36,3 +40,35 @@ def network_of(args: argparse.Namespace) -> Network:
 
         net = apply_overlay(net, args.overlay)
     return net
+
+
+def add_cluster(parser: argparse.ArgumentParser, work: str) -> None:
+    """Add ``--workers``, ``--scheduler`` and ``--tile-m`` (the work named by ``work``)."""
+    parser.add_argument("--workers", type=int, metavar="N",
+                        help=f"{work} on a local Dask cluster of N worker processes, tile by "
+                             "tile (needs the 'scale' extra: dask, distributed, dask-geopandas)")
+    parser.add_argument("--scheduler", metavar="ADDRESS",
+                        help=f"{work} on a running Dask scheduler instead, e.g. "
+                             "tcp://10.0.0.5:8786 (its workers need routerisk installed)")
+    parser.add_argument("--tile-m", type=float, metavar="M",
+                        help="tile side in metres for --workers / --scheduler (default 3000; "
+                             "results do not depend on it)")
+
+
+@contextlib.contextmanager
+def cluster_of(args: argparse.Namespace) -> Iterator[tuple[Any, float] | None]:
+    """Yield (Dask client, tile side) when ``--workers`` or ``--scheduler`` is given, else None.
+
+    The cluster is closed on leaving the block.
+    """
+    if args.workers is None and args.scheduler is None:
+        if args.tile_m is not None:
+            raise OptionError("--tile-m needs --workers or --scheduler", field="--tile-m")
+        yield None
+        return
+    from .. import partition
+
+    tile_m = partition.DEFAULT_TILE_M if args.tile_m is None else args.tile_m
+    partition.check_tile(tile_m)
+    with partition.cluster(workers=args.workers, scheduler=args.scheduler) as client:
+        yield client, tile_m

@@ -8,7 +8,7 @@ from pathlib import Path
 from .. import network
 from .._io import check_target, dumps_json
 from ..errors import OptionError
-from ._common import add_profile, profile_of
+from ._common import add_cluster, add_profile, cluster_of, profile_of
 
 HELP = "build a tagged road network folder from an OpenStreetMap file (offline)"
 
@@ -26,15 +26,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="keep every connected part, not only the largest")
     parser.add_argument("--place", metavar="QUERY",
                         help="download the roads for a place name instead (needs internet)")
-    parser.add_argument("--workers", type=int, metavar="N",
-                        help="tag on a local Dask cluster of N worker processes, tile by tile "
-                             "(needs the 'scale' extra: dask, distributed, dask-geopandas)")
-    parser.add_argument("--scheduler", metavar="ADDRESS",
-                        help="tag on a running Dask scheduler instead, e.g. "
-                             "tcp://10.0.0.5:8786 (its workers need routerisk installed)")
-    parser.add_argument("--tile-m", type=float, metavar="M",
-                        help="tile side in metres for --workers / --scheduler (default 3000; "
-                             "results do not depend on it)")
+    add_cluster(parser, "tag")
     parser.add_argument("--force", action="store_true", help="replace an existing folder")
     parser.add_argument("--json", action="store_true", help="print the summary as JSON")
 
@@ -51,21 +43,14 @@ def run(args: argparse.Namespace) -> int:
         raise OptionError("give an OSM file (or --place)", field="SOURCE")
     check_target(args.out, force=args.force, folder=True)  # refuse before the work
     timezone = network.check_timezone(args.timezone)
-    if args.workers is None and args.scheduler is None:
-        if args.tile_m is not None:
-            raise OptionError("--tile-m needs --workers or --scheduler", field="--tile-m")
-        net = network.build_network(args.source, profile=profile_of(args), timezone=timezone,
-                                    largest_component=not args.all_parts)
-    else:
-        from .. import partition
+    with cluster_of(args) as tiles:
+        tagger = None
+        if tiles is not None:
+            from .. import partition
 
-        tile_m = partition.DEFAULT_TILE_M if args.tile_m is None else args.tile_m
-        partition.check_tile(tile_m)
-        with partition.cluster(workers=args.workers, scheduler=args.scheduler) as client:
-            net = network.build_network(
-                args.source, profile=profile_of(args), timezone=timezone,
-                largest_component=not args.all_parts,
-                tagger=partition.tagger(client=client, tile_m=tile_m))
+            tagger = partition.tagger(client=tiles[0], tile_m=tiles[1])
+        net = network.build_network(args.source, profile=profile_of(args), timezone=timezone,
+                                    largest_component=not args.all_parts, tagger=tagger)
     network.save_network(net, args.out, force=args.force)
     summary = net.summary()
     if args.json:

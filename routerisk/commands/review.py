@@ -10,6 +10,7 @@ from .._io import check_target, dumps_json
 from ..errors import OptionError
 from ..network import load_network
 from ..profile import load_profile
+from ._common import add_cluster, cluster_of
 
 HELP = "review proposed test areas: exposure, hot spots, closures under the hard rules"
 
@@ -52,6 +53,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     add("--top", type=int, default=10, metavar="N", help="hot spots per area (default 10)")
     add("--high-from", dest="high_from", metavar="BAND",
         help="lowest band counted as high for clusters (default: upper half of the bands)")
+    add_cluster(parser, "clip the areas (and re-tag for --profile and weight what-ifs)")
 
 
 def _text(doc: dict[str, Any]) -> list[str]:
@@ -99,12 +101,21 @@ def run(args: argparse.Namespace) -> int:
             check_target(target, force=args.force, folder=folder)
     at = review.parse_time(args.at) if args.at is not None else None
     profile = load_profile(args.profile) if args.profile else None
-    net = load_network(args.network, profile=profile)
-    high = review.high_bands_from(net.profile, args.high_from) if args.high_from else None
-    what_ifs = [review.parse_what_if(specs, net.profile) for specs in (args.what_if or [])]
-    areas = review.read_areas(args.area, crs=net.crs)
-    result = review.review_areas(net, areas, at=at, what_ifs=what_ifs, top=args.top,
-                                 high_bands=high)
+    with cluster_of(args) as tiles:
+        clipper = tagger = None
+        if tiles is not None:
+            from .. import partition
+
+            clipper = partition.clipper(client=tiles[0], tile_m=tiles[1])
+            tagger = partition.tagger(client=tiles[0], tile_m=tiles[1])
+        net = load_network(args.network)
+        if profile is not None:
+            net = net.retag(profile, tagger=tagger)
+        high = review.high_bands_from(net.profile, args.high_from) if args.high_from else None
+        what_ifs = [review.parse_what_if(specs, net.profile) for specs in (args.what_if or [])]
+        areas = review.read_areas(args.area, crs=net.crs)
+        result = review.review_areas(net, areas, at=at, what_ifs=what_ifs, top=args.top,
+                                     high_bands=high, clipper=clipper, tagger=tagger)
     written = review.write_review(result, out=args.out, report_path=args.report,
                                   force=args.force)
     doc = result.to_json()
