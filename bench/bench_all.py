@@ -140,19 +140,25 @@ def child_tag_sjoin(a: dict[str, Any]) -> dict[str, Any]:
 def child_tag_dask(a: dict[str, Any]) -> dict[str, Any]:
     from routerisk import partition, tagging
 
+    import resource
+
     net, base = _tag_inputs(a)
     with partition.cluster(workers=2) as client:
         t = time.perf_counter()
         out = partition.tag_partitioned(base, net.sources, net.crossings, net.profile,
                                         client=client)
         secs = time.perf_counter() - t
+        workers = client.run(lambda: resource.getrusage(resource.RUSAGE_SELF).ru_maxrss)
+    # the peak of the partitioned run itself, before the single-machine check below
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
     single = tagging.tag_edges(base, net.sources, net.crossings, net.profile)
     cols = [c for c in single.columns if c.startswith(("exp_", "infl_", "rule_"))
             or c == "crossings"]
     same = all(__import__("numpy").array_equal(single[c].to_numpy(), out[c].to_numpy())
                for c in cols)
     return {"edges": len(out), "timed": secs, "tiles": partition.last_tile_count(),
-            "identical_to_single_machine": bool(same)}
+            "identical_to_single_machine": bool(same), "peak_mib": peak,
+            "worker_peak_mib": [v / 1024 for _, v in sorted(workers.items())]}
 
 
 def child_load_network(a: dict[str, Any]) -> dict[str, Any]:
@@ -391,7 +397,7 @@ def _child_main(stage: str, args_json: str) -> None:
     t0 = time.perf_counter()
     res = CHILDREN[stage](json.loads(args_json))
     res["child_s"] = time.perf_counter() - t0
-    res["peak_mib"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+    res.setdefault("peak_mib", resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024)
     res.setdefault("timed", res["child_s"])
     print(json.dumps(res))
 
@@ -482,6 +488,9 @@ def _table(records: list[dict[str, Any]]) -> list[dict[str, Any]]:
             elif ours == "tag_dask" and r and "error" not in r:
                 extra = (f"{r['tiles']} tiles, identical: "
                          f"{'yes' if r['identical_to_single_machine'] else 'NO'}")
+                if r.get("worker_peak_mib"):
+                    extra += ("; workers' peak MiB "
+                              + " / ".join(f"{w:.0f}" for w in r["worker_peak_mib"]))
             elif ours == "load_network" and r and "error" not in r:
                 extra = f"+ {r['import_s']:.2f} s imports"
             elif ours == "load" and r and "error" not in r:
@@ -524,6 +533,34 @@ def markdown(rows: list[dict[str, Any]]) -> str:
     return "\n".join(out)
 
 
+def memory_growth(records: list[dict[str, Any]]) -> str:
+    """Return a markdown table of each stage's peak memory against the edge count.
+
+    Growth is compared with the edges: a stage grows no faster than linearly when its peak
+    grows by a smaller factor than the edges between two sizes (the import floor of a fresh
+    interpreter, about 200 MiB, makes small sizes look cheap).
+    """
+    recs = sorted((r for r in records if r.get("stages")), key=lambda r: r["drive_edges"])
+    if len(recs) < 2:
+        return ""
+    head = " / ".join(f"{r['drive_edges']:,}" for r in recs)
+    pairs = list(zip(recs[:-1], recs[1:], strict=True))
+    grow = " / ".join(f"{b['drive_edges'] / a['drive_edges']:.1f}x" for a, b in pairs)
+    out = [f"| stage | peak MiB ({head} edges) | peak growth (edges {grow}) | "
+           "no faster than linear |",
+           "| --- | --- | --- | --- |"]
+    for name, ours, *_ in ROWS:
+        peaks = [r["stages"].get(ours, {}).get("peak_mib") for r in recs]
+        if any(p is None for p in peaks):
+            continue
+        ratios = [b / a for a, b in zip(peaks[:-1], peaks[1:], strict=True)]
+        edges = [b["drive_edges"] / a["drive_edges"] for a, b in pairs]
+        ok = all(x <= e for x, e in zip(ratios, edges, strict=True))
+        out.append(f"| {name} | {' / '.join(f'{p:.0f}' for p in peaks)} | "
+                   f"{' / '.join(f'{x:.2f}x' for x in ratios)} | {'yes' if ok else 'NO'} |")
+    return "\n".join(out)
+
+
 def _write_results_md(table: str) -> None:
     md = HERE / "RESULTS.md"
     text = md.read_text(encoding="utf-8") if md.exists() else ""
@@ -549,11 +586,14 @@ def main() -> None:
     ap.add_argument("--seed", type=int, default=1)
     ap.add_argument("--skip", default="", help="comma-separated stages to leave out")
     ap.add_argument("--keep", type=Path, help="keep the generated files in this folder")
+    ap.add_argument("--report-only", action="store_true",
+                    help="rewrite RESULTS.md from the recorded results without running")
     args = ap.parse_args()
     sys.path.insert(0, str(ROOT))
     skip = {s for s in args.skip.split(",") if s}
     RESULTS.mkdir(exist_ok=True)
-    for size in [int(s) for s in args.sizes.split(",") if s]:
+    sizes = [] if args.report_only else [int(s) for s in args.sizes.split(",") if s]
+    for size in sizes:
         keep = args.keep / str(size) if args.keep else None
         rec = bench_size(size, args.seed, skip=skip, keep=keep)
         (RESULTS / f"all_{size}.json").write_text(json.dumps(rec, indent=2, sort_keys=True)
@@ -561,7 +601,9 @@ def main() -> None:
         print(markdown(_table([rec])), flush=True)
     records = [json.loads(p.read_text()) for p in sorted(
         RESULTS.glob("all_*.json"), key=lambda p: int(p.stem.split("_")[1]))]
-    _write_results_md(markdown(_table(records)))
+    growth = memory_growth(records)
+    _write_results_md(markdown(_table(records))
+                      + (f"\n\nPeak memory against edges:\n\n{growth}" if growth else ""))
 
 
 if __name__ == "__main__":
