@@ -245,8 +245,9 @@ def cluster(*, workers: int | None = None, scheduler: str | None = None,
             client.close()
         return
     n = workers or 2
+    # ":0": the scheduler's HTTP endpoint takes a free port, so two local clusters never clash
     lc = LocalCluster(n_workers=n if processes else 1, threads_per_worker=1 if processes
-                      else n, processes=processes, dashboard_address=None,
+                      else n, processes=processes, dashboard_address=":0",
                       silence_logs=logging.WARNING)
     client = Client(lc)
     try:
