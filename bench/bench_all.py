@@ -6,8 +6,9 @@ Run by hand (not part of the tests)::
     python bench/bench_all.py --sizes 1000000      # 1M (minutes; about 3 GiB)
 
 For each size a seeded invented city (routerisk.synthetic.write_city) is written as PBF and
-XML, then every stage runs in a fresh interpreter, so its wall time and peak memory
-(``ru_maxrss``) are its own:
+XML, then every stage runs in a fresh interpreter, so its wall time and peak memory are its own
+(``VmHWM`` of ``/proc/self/status``: the high-water mark of this process's own memory; Linux's
+``ru_maxrss`` would carry over the parent's size at the fork before the exec):
 
 =====================  ===========================================================  ==========================================
 stage                  routerisk                                                    baseline in the same run
@@ -57,6 +58,20 @@ ROUTE_KM = 5.0
 LONG_ROUTE_KM = 15.0
 
 # --------------------------------------------------------------------------------- children
+
+
+def peak_mib() -> float:
+    """Return this process's peak resident memory in MiB (VmHWM; ru_maxrss elsewhere)."""
+    try:
+        with open("/proc/self/status", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith("VmHWM:"):
+                    return int(line.split()[1]) / 1024
+    except OSError:
+        pass
+    import resource
+
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
 
 
 def _net(folder: str) -> Any:
@@ -140,17 +155,15 @@ def child_tag_sjoin(a: dict[str, Any]) -> dict[str, Any]:
 def child_tag_dask(a: dict[str, Any]) -> dict[str, Any]:
     from routerisk import partition, tagging
 
-    import resource
-
     net, base = _tag_inputs(a)
     with partition.cluster(workers=2) as client:
         t = time.perf_counter()
         out = partition.tag_partitioned(base, net.sources, net.crossings, net.profile,
                                         client=client)
         secs = time.perf_counter() - t
-        workers = client.run(lambda: resource.getrusage(resource.RUSAGE_SELF).ru_maxrss)
+        workers = client.run(peak_mib)
     # the peak of the partitioned run itself, before the single-machine check below
-    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+    peak = peak_mib()
     single = tagging.tag_edges(base, net.sources, net.crossings, net.profile)
     cols = [c for c in single.columns if c.startswith(("exp_", "infl_", "rule_"))
             or c == "crossings"]
@@ -158,7 +171,7 @@ def child_tag_dask(a: dict[str, Any]) -> dict[str, Any]:
                for c in cols)
     return {"edges": len(out), "timed": secs, "tiles": partition.last_tile_count(),
             "identical_to_single_machine": bool(same), "peak_mib": peak,
-            "worker_peak_mib": [v / 1024 for _, v in sorted(workers.items())]}
+            "worker_peak_mib": [v for _, v in sorted(workers.items())]}
 
 
 def child_load_network(a: dict[str, Any]) -> dict[str, Any]:
@@ -392,12 +405,10 @@ def _run(stage: str, args: dict[str, Any], *, timeout: float = 3600) -> dict[str
 
 
 def _child_main(stage: str, args_json: str) -> None:
-    import resource
-
     t0 = time.perf_counter()
     res = CHILDREN[stage](json.loads(args_json))
     res["child_s"] = time.perf_counter() - t0
-    res.setdefault("peak_mib", resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024)
+    res.setdefault("peak_mib", peak_mib())
     res.setdefault("timed", res["child_s"])
     print(json.dumps(res))
 

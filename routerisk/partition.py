@@ -110,9 +110,49 @@ def split(edges: gpd.GeoDataFrame, sources: gpd.GeoDataFrame, crossings: gpd.Geo
 
 def _tag_tiles(tiles: list[tuple[gpd.GeoDataFrame, gpd.GeoDataFrame, gpd.GeoDataFrame]],
                profile: Profile, polygons: dict[str, gpd.GeoSeries] | None
-               ) -> list[gpd.GeoDataFrame]:
-    """Tag a batch of tiles, each on its own (one task on a worker)."""
-    return [tagging.tag_edges(e, s, c, profile, polygons=polygons) for e, s, c in tiles]
+               ) -> list[tuple[pd.DataFrame, list[str]]]:
+    """Tag a batch of tiles, each on its own (one task on a worker).
+
+    Returns each tile's tagged frame without its geometry (the caller has it already, and
+    it is the bulk of what would travel back), with the tagged frame's column order.
+    """
+    out = []
+    for e, s, c in tiles:
+        t = tagging.tag_edges(e, s, c, profile, polygons=polygons)
+        out.append((pd.DataFrame(t.drop(columns=t.geometry.name)), list(t.columns)))
+    return out
+
+
+def _run_bounded(client: Any, fn: Any, batches: list[Any], *args: Any) -> list[Any]:
+    """Run ``fn(batch, *args)`` for every batch on ``client``, a few tasks in flight at once.
+
+    Only about two tasks per worker are submitted ahead, so the inputs waiting at the
+    scheduler (which, for a local cluster, lives in this process) stay a few batches, not
+    the whole network. Results come back in batch order.
+    """
+    from distributed import as_completed
+
+    n_workers = max(1, len(client.scheduler_info().get("workers", {})))
+    window = 2 * n_workers
+    todo = iter(range(len(batches)))
+    index: dict[Any, int] = {}
+    results: dict[int, Any] = {}
+    running = as_completed()
+
+    def submit_next() -> None:
+        i = next(todo, None)
+        if i is not None:
+            fut = client.submit(fn, batches[i](), *args, pure=False)
+            index[fut.key] = i
+            running.add(fut)
+
+    for _ in range(window):
+        submit_next()
+    for fut in running:
+        results[index.pop(fut.key)] = fut.result()
+        fut.release()
+        submit_next()
+    return [results[i] for i in range(len(batches))]
 
 
 def _batches(sizes: list[int], min_edges: int) -> list[list[int]]:
@@ -165,28 +205,30 @@ def tag_partitioned(
     if not parts:
         return tagging.tag_edges(edges, sources, crossings, profile, polygons=polygons)
 
-    def tiles(batch: list[int]) -> list[tuple[gpd.GeoDataFrame, ...]]:
-        # the frames of a batch are cut only when it is sent, so at most one batch of
-        # copies is alive in this process at a time
-        return [(edges.iloc[parts[i][0]], sources.iloc[parts[i][1]],
-                 crossings.iloc[parts[i][2]]) for i in batch]
+    def tiles(batch: list[int]) -> Any:
+        # the frames of a batch are cut only when it is sent
+        return lambda: [(edges.iloc[parts[i][0]], sources.iloc[parts[i][1]],
+                         crossings.iloc[parts[i][2]]) for i in batch]
 
-    batches = _batches([len(p[0]) for p in parts], task_edges)
+    batches = [tiles(b) for b in _batches([len(p[0]) for p in parts], task_edges)]
     if client is None:
-        results = [r for b in batches for r in _tag_tiles(tiles(b), profile, polygons)]
+        done = [_tag_tiles(b(), profile, polygons) for b in batches]
     else:
         prof = client.scatter(profile, broadcast=True)
         polys = client.scatter(polygons, broadcast=True) if polygons else None
-        futures = [client.submit(_tag_tiles, tiles(b), prof, polys, pure=False)
-                   for b in batches]
-        results = [r for batch in client.gather(futures) for r in batch]
-        del futures
+        done = _run_bounded(client, _tag_tiles, batches, prof, polys)
+    results = [r for batch in done for r in batch]
+    del done
+    columns = results[0][1]
     rows = np.concatenate([p[0] for p in parts])
-    out = pd.concat(results)
+    out = pd.concat([frame for frame, _ in results])
+    del results
     back = np.empty(len(rows), dtype=np.int64)
     back[rows] = np.arange(len(rows))
     out = out.iloc[back]
-    return gpd.GeoDataFrame(out, geometry=edges.geometry.name, crs=edges.crs)
+    geom = edges.geometry.name
+    out[geom] = edges.geometry.to_numpy()  # rows are in the order of ``edges`` again
+    return gpd.GeoDataFrame(out[columns], geometry=geom, crs=edges.crs)
 
 
 def tagger(*, client: Any = None, tile_m: float = DEFAULT_TILE_M) -> Any:
@@ -293,9 +335,10 @@ def clip_partitioned(edges: gpd.GeoDataFrame, geometry: Any, *,
         results = _clip_tiles(parts, geometry)
     else:
         area = client.scatter(geometry, broadcast=True)
-        futures = [client.submit(_clip_tiles, [parts[i] for i in b], area, pure=False)
+        batches = [(lambda b=b: [parts[i] for i in b])
                    for b in _batches([len(p) for p in parts], task_edges)]
-        results = [r for batch in client.gather(futures) for r in batch]
+        results = [r for batch in _run_bounded(client, _clip_tiles, batches, area)
+                   for r in batch]
     out = pd.concat(results)
     out = out.iloc[np.argsort(edges.index.get_indexer(out.index), kind="stable")]
     return gpd.GeoDataFrame(out, geometry=edges.geometry.name, crs=edges.crs)

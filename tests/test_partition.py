@@ -62,6 +62,9 @@ def _assert_identical(single, parts):
     for c in ("baseline", "severity", "exposure_km"):
         assert np.array_equal(single[c].to_numpy(), parts[c].to_numpy()), c
     assert (single["band"] == parts["band"]).all()
+    assert parts.crs == single.crs and parts.geometry.name == single.geometry.name
+    assert parts.geometry.geom_equals_exact(single.geometry, 0).all()
+    assert list(parts.dtypes) == list(single.dtypes)
 
 
 def test_halo_covers_the_largest_reach(default_profile):
