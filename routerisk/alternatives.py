@@ -47,6 +47,9 @@ EPS = 1e-9
 #: Where nothing within the bounds lowers the risk, candidates up to this many times the
 #: plan's travel time are searched to show the best one that breaks the fewest bounds.
 RELAXED_TIME_FACTOR = 3.0
+#: An alternative this much shorter than the plan (share of length) gets a caveat: the risk
+#: it saves may come from driving less, not from safer streets.
+SHORTER_CAVEAT = 0.2
 _TINY = 1e-12  # csgraph needs positive arc costs
 
 
@@ -63,6 +66,7 @@ class Alternative:
     within_bounds: bool
     label: str = ""
     bounds_broken: list[str] = field(default_factory=list)
+    caveats: list[str] = field(default_factory=list)
 
     def to_dict(self) -> dict[str, Any]:
         """Return the JSON form of ``routerisk suggest``."""
@@ -76,6 +80,7 @@ class Alternative:
             "shared_length_with_plan": round(self.overlap_with_plan, 4),
             "within_bounds": self.within_bounds,
             "bounds_broken": list(self.bounds_broken),
+            "caveats": list(self.caveats),
         })
         return d
 
@@ -567,13 +572,20 @@ class Suggester:
         def change(new: float, old: float) -> float:
             return 100.0 * (new - old) / old if old else 0.0
 
+        length_change = change(s.length_km, plan.length_km)
+        caveats = []
+        if length_change < -100.0 * SHORTER_CAVEAT:
+            caveats.append(
+                f"{-length_change:.0f} % shorter than the plan (risk per km "
+                f"{change(s.risk_per_km, plan.risk_per_km):+.0f} %): check it still covers "
+                "the driving the test needs, or mark required points in the route file")
         return Alternative(
             edges=edges, score=s, risk_change_pct=change(s.risk, plan.risk),
             time_change_pct=change(s.duration_min, plan.duration_min),
-            length_change_pct=change(s.length_km, plan.length_km),
+            length_change_pct=length_change,
             overlap_with_plan=c.overlap,
             within_bounds=not {"extra time", "extra length"} & set(c.broken),
-            label=label, bounds_broken=list(c.broken))
+            label=label, bounds_broken=list(c.broken), caveats=caveats)
 
     def _diverse(self, pool: list[_Candidate], count: int, min_difference: float
                  ) -> list[_Candidate]:

@@ -284,12 +284,16 @@ def suggestion_map(net: Any, suggestions: list[Any], *, tiles: str | None = None
                 change = f"risk {score.risk:.3f}, {score.duration_min:.1f} min"
             else:
                 change = (f"risk {alt.risk_change_pct:+.0f} %, time "
-                          f"{alt.time_change_pct:+.0f} %"
+                          f"{alt.time_change_pct:+.0f} %, length "
+                          f"{alt.length_change_pct:+.0f} %"
                           + ("" if alt.within_bounds else ", outside the bounds")
                           + (f", breaks {len(score.rule_breaks)} rule(s)"
-                             if score.rule_breaks else ""))
+                             if score.rule_breaks else "")
+)
+            notes = "".join(f"<br><small><i>{mapview.escape(c)}</i></small>"
+                            for c in (alt.caveats if alt is not None else []))
             rows_html.append(f"<li><b>{mapview.escape(s.name)}</b> {mapview.escape(label)}: "
-                             f"{mapview.escape(change)}</li>")
+                             f"{mapview.escape(change)}{notes}</li>")
         if s.note:
             rows_html.append(f"<li><i>{mapview.escape(s.name)}: {mapview.escape(s.note)}</i>"
                              "</li>")

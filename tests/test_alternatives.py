@@ -115,3 +115,22 @@ def test_alternatives_differ_from_plan_and_each_other():
     for alt in s.alternatives:
         assert 1 - alt.overlap_with_plan >= 0.3 - 1e-9
         assert alt.score.risk < s.planned.risk
+
+
+def test_much_shorter_alternative_carries_a_caveat():
+    # a plan from node 1 to node 11 of a 5x5 grid that goes round three sides of it
+    # (1 -> 5 -> 25 -> 21 -> 11); a direct route is far shorter, and its lower risk partly
+    # comes from driving less: such alternatives say so
+    net = random_grid(_flat_profile(), n=5, seed=4)
+    sc = Scorer(net)
+    nodes = [1, 2, 3, 4, 5, 10, 15, 20, 25, 24, 23, 22, 21, 16, 11]
+    edges = [(a, b, 0) for a, b in zip(nodes[:-1], nodes[1:], strict=True)]
+    s = Suggester(sc).suggest("detour", edges, DEPART, count=3, max_extra_time=0.25)
+    assert s.alternatives
+    for alt in s.alternatives:
+        shorter = alt.length_change_pct < -20.0
+        assert bool(alt.caveats) == shorter
+        if shorter:
+            assert "shorter than the plan" in alt.caveats[0]
+            assert "required points" in alt.to_dict()["caveats"][0]
+    assert any(a.caveats for a in s.alternatives)

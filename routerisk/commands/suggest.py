@@ -79,6 +79,8 @@ def run(args: argparse.Namespace) -> int:
             print(f"  {a.label}: risk {a.score.risk:.3f} ({a.risk_change_pct:+.1f} %), "
                   f"{a.score.duration_min:.1f} min ({a.time_change_pct:+.1f} %), "
                   f"{len(a.score.rule_breaks)} rule break(s)")
+            for c in a.caveats:
+                print(f"    caveat: {c}")
         if s.note:
             print(f"  note: {s.note}")
     if args.map:
