@@ -272,11 +272,13 @@ def _use_arrow() -> bool:
 
 
 def load_network(folder: str | Path, *, profile: Profile | None = None,
-                 verify: bool = True) -> Network:
+                 verify: bool = True, tagger: Callable[..., gpd.GeoDataFrame] | None = None
+                 ) -> Network:
     """Read a network folder written by :func:`save_network`.
 
     Refuses a folder that is missing, incomplete, of another format version, or whose
-    files do not match the checksums it records.
+    files do not match the checksums it records. With ``profile`` the network is re-tagged
+    (by ``tagger`` when given, see :meth:`Network.retag`).
     """
     d = Path(folder)
     if not d.is_dir():
@@ -337,7 +339,7 @@ def load_network(folder: str | Path, *, profile: Profile | None = None,
         # A profile with polygon files hashes them too; the copy sits elsewhere, so recompute.
         log.debug("saved profile fingerprint differs from meta; using meta's record")
     if profile is not None:
-        net = net.retag(profile)
+        net = net.retag(profile, tagger=tagger)
     return net
 
 

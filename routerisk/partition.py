@@ -123,17 +123,18 @@ def _tag_tiles(tiles: list[tuple[gpd.GeoDataFrame, gpd.GeoDataFrame, gpd.GeoData
     return out
 
 
-def _run_bounded(client: Any, fn: Any, batches: list[Any], *args: Any) -> list[Any]:
-    """Run ``fn(batch, *args)`` for every batch on ``client``, a few tasks in flight at once.
+def _run_bounded(client: Any, fn: Any, batches: list[list[int]], make: Any, *args: Any
+                 ) -> list[Any]:
+    """Run ``fn(make(batch), *args)`` for every batch on ``client``, a few tasks in flight.
 
-    Only about two tasks per worker are submitted ahead, so the inputs waiting at the
-    scheduler (which, for a local cluster, lives in this process) stay a few batches, not
-    the whole network. Results come back in batch order.
+    Only about two tasks per worker are submitted ahead, and a batch's inputs are made by
+    ``make`` only when it is submitted, so the inputs waiting at the scheduler (which, for a
+    local cluster, lives in this process) stay a few batches, not the whole network.
+    Results come back in batch order.
     """
     from distributed import as_completed
 
     n_workers = max(1, len(client.scheduler_info().get("workers", {})))
-    window = 2 * n_workers
     todo = iter(range(len(batches)))
     index: dict[Any, int] = {}
     results: dict[int, Any] = {}
@@ -142,11 +143,11 @@ def _run_bounded(client: Any, fn: Any, batches: list[Any], *args: Any) -> list[A
     def submit_next() -> None:
         i = next(todo, None)
         if i is not None:
-            fut = client.submit(fn, batches[i](), *args, pure=False)
+            fut = client.submit(fn, make(batches[i]), *args, pure=False)
             index[fut.key] = i
             running.add(fut)
 
-    for _ in range(window):
+    for _ in range(2 * n_workers):
         submit_next()
     for fut in running:
         results[index.pop(fut.key)] = fut.result()
@@ -205,18 +206,17 @@ def tag_partitioned(
     if not parts:
         return tagging.tag_edges(edges, sources, crossings, profile, polygons=polygons)
 
-    def tiles(batch: list[int]) -> Any:
-        # the frames of a batch are cut only when it is sent
-        return lambda: [(edges.iloc[parts[i][0]], sources.iloc[parts[i][1]],
-                         crossings.iloc[parts[i][2]]) for i in batch]
+    def tiles(batch: list[int]) -> list[tuple[gpd.GeoDataFrame, ...]]:
+        return [(edges.iloc[parts[i][0]], sources.iloc[parts[i][1]],
+                 crossings.iloc[parts[i][2]]) for i in batch]
 
-    batches = [tiles(b) for b in _batches([len(p[0]) for p in parts], task_edges)]
+    batches = _batches([len(p[0]) for p in parts], task_edges)
     if client is None:
-        done = [_tag_tiles(b(), profile, polygons) for b in batches]
+        done = [_tag_tiles(tiles(b), profile, polygons) for b in batches]
     else:
         prof = client.scatter(profile, broadcast=True)
         polys = client.scatter(polygons, broadcast=True) if polygons else None
-        done = _run_bounded(client, _tag_tiles, batches, prof, polys)
+        done = _run_bounded(client, _tag_tiles, batches, tiles, prof, polys)
     results = [r for batch in done for r in batch]
     del done
     columns = results[0][1]
@@ -335,10 +335,9 @@ def clip_partitioned(edges: gpd.GeoDataFrame, geometry: Any, *,
         results = _clip_tiles(parts, geometry)
     else:
         area = client.scatter(geometry, broadcast=True)
-        batches = [(lambda b=b: [parts[i] for i in b])
-                   for b in _batches([len(p) for p in parts], task_edges)]
-        results = [r for batch in _run_bounded(client, _clip_tiles, batches, area)
-                   for r in batch]
+        done = _run_bounded(client, _clip_tiles, _batches([len(p) for p in parts], task_edges),
+                            lambda b: [parts[i] for i in b], area)
+        results = [r for batch in done for r in batch]
     out = pd.concat(results)
     out = out.iloc[np.argsort(edges.index.get_indexer(out.index), kind="stable")]
     return gpd.GeoDataFrame(out, geometry=edges.geometry.name, crs=edges.crs)

@@ -288,8 +288,7 @@ def suggestion_map(net: Any, suggestions: list[Any], *, tiles: str | None = None
                           f"{alt.length_change_pct:+.0f} %"
                           + ("" if alt.within_bounds else ", outside the bounds")
                           + (f", breaks {len(score.rule_breaks)} rule(s)"
-                             if score.rule_breaks else "")
-)
+                             if score.rule_breaks else ""))
             notes = "".join(f"<br><small><i>{mapview.escape(c)}</i></small>"
                             for c in (alt.caveats if alt is not None else []))
             rows_html.append(f"<li><b>{mapview.escape(s.name)}</b> {mapview.escape(label)}: "

@@ -108,9 +108,7 @@ def run(args: argparse.Namespace) -> int:
 
             clipper = partition.clipper(client=tiles[0], tile_m=tiles[1])
             tagger = partition.tagger(client=tiles[0], tile_m=tiles[1])
-        net = load_network(args.network)
-        if profile is not None:
-            net = net.retag(profile, tagger=tagger)
+        net = load_network(args.network, profile=profile, tagger=tagger)
         high = review.high_bands_from(net.profile, args.high_from) if args.high_from else None
         what_ifs = [review.parse_what_if(specs, net.profile) for specs in (args.what_if or [])]
         areas = review.read_areas(args.area, crs=net.crs)
