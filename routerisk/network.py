@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import json
 import logging
+import re
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from functools import cached_property
@@ -47,6 +48,36 @@ def check_timezone(name: str) -> str:
     except (ZoneInfoNotFoundError, ValueError) as exc:
         raise OptionError(f"unknown time zone {name!r} (use an IANA name such as "
                           "'Etc/GMT+3' or 'UTC')", field="--timezone") from exc
+    return name
+
+
+def infer_timezone(lon: float, lat: float) -> str:
+    """Return the IANA time zone at ``lon``, ``lat`` from an offline lookup (timezonefinder).
+
+    Open sea gets the nautical zone (``Etc/GMT+3`` at 38 degrees west). Raises OptionError when
+    the lookup has no answer, asking for ``--timezone``.
+    """
+    from timezonefinder import TimezoneFinder
+
+    name = TimezoneFinder().timezone_at(lng=float(lon), lat=float(lat))
+    if not name:
+        raise OptionError(f"no time zone is known at lon {lon:.4f}, lat {lat:.4f}; give the "
+                          "area's time zone (an IANA name)", field="--timezone")
+    return str(name)
+
+
+def zone_label(name: str) -> str:
+    """Return a time zone as people read it: ``Etc/GMT+3`` -> ``UTC-03:00``.
+
+    The ``Etc/GMT`` names carry the POSIX sign (``Etc/GMT+3`` is three hours *behind* UTC),
+    which misleads; other names are returned with nothing changed.
+    """
+    m = re.fullmatch(r"Etc/GMT([+-])(\d{1,2})", name)
+    if m:
+        sign = "-" if m.group(1) == "+" else "+"
+        return f"UTC{sign}{int(m.group(2)):02d}:00"
+    if name in ("UTC", "Etc/UTC", "Etc/GMT", "GMT", "Etc/GMT0", "Etc/GMT+0", "Etc/GMT-0"):
+        return "UTC+00:00"
     return name
 
 
@@ -95,6 +126,7 @@ class Network:
             "sources": {c: int(counts.get(c, 0)) for c in self.profile.category_names},
             "crossings": int(len(self.crossings)),
             "profile": self.profile.fingerprint,
+            "timezone": self.meta.get("timezone", "UTC"),
         }
 
     def retag(self, profile: Profile, *, tagger: Callable[..., gpd.GeoDataFrame] | None = None
@@ -172,17 +204,22 @@ def build_network(
     source: str | Path,
     *,
     profile: Profile | None = None,
-    timezone: str = "UTC",
+    timezone: str | None = None,
     largest_component: bool = True,
     tagger: Any = None,
 ) -> Network:
     """Read an OSM file, build the road graph, extract sources and tag every edge.
 
+    ``timezone`` is the area's local time zone (an IANA name); without it the zone is looked
+    up offline at the centre of the network's nodes (:func:`infer_timezone`), and
+    ``meta["timezone_source"]`` says which.
+
     ``tagger`` replaces :func:`routerisk.tagging.tag_edges` (same arguments and result),
     e.g. the tiled tagging of :mod:`routerisk.partition` on a Dask cluster.
     """
     profile = profile or load_profile()
-    check_timezone(timezone)
+    if timezone is not None:
+        check_timezone(timezone)
     raw = read_osm(source, feature_filter=_feature_filter(profile))
     frames = loader.frames_from_raw(raw, largest_component=largest_component)
     crs = frames.graph_attrs["crs"]
@@ -192,6 +229,11 @@ def build_network(
     cross = sources.crossings_from_raw(raw, crs=crs)
     tag = tagger or tagging.tag_edges
     tagged = tag(edges, src, cross, profile, polygons=_rule_polygons(profile))
+    zone_source = "given"
+    if timezone is None:
+        lon, lat = nodes["lon"].astype(float), nodes["lat"].astype(float)
+        timezone = infer_timezone((lon.min() + lon.max()) / 2, (lat.min() + lat.max()) / 2)
+        zone_source = "looked up offline at the centre of the extract (timezonefinder)"
     meta = {
         "format_version": FORMAT_VERSION,
         "routerisk_version": __version__,
@@ -202,6 +244,7 @@ def build_network(
         "missing_node_refs": raw.missing_refs,
         "crs": crs,
         "timezone": timezone,
+        "timezone_source": zone_source,
         "data_licence": "OpenStreetMap data: ODbL 1.0 (c) OpenStreetMap contributors, "
                         "unless the source file says otherwise",
     }

@@ -1216,7 +1216,7 @@ def review_html(review: Review) -> str:
         ("data date", ts),
         ("data licence", meta.get("data_licence")
          or "OpenStreetMap data: ODbL 1.0 (c) OpenStreetMap contributors"),
-        ("local time zone", meta.get("timezone", "UTC")),
+        ("local time zone", _zone_text(meta.get("timezone", "UTC"))),
         ("lengths", LENGTH_BASIS),
     ]
     if review.at is not None:
@@ -1255,3 +1255,10 @@ def review_html(review: Review) -> str:
     names = ", ".join(a["name"] for a in review.areas)
     return r.page(f"Area review: {names}", body, facts=facts, toc=toc,
                   provenance=review.provenance or None)
+
+
+def _zone_text(name: str) -> str:
+    from .network import zone_label
+
+    label = zone_label(name)
+    return name if label == name else f"{label} ({name})"

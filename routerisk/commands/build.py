@@ -20,8 +20,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--out", required=True, type=Path, metavar="DIR",
                         help="network folder to write")
     add_profile(parser, "exposure profile (default: the bundled default profile)")
-    parser.add_argument("--timezone", default="UTC", metavar="TZ",
-                        help="the area's local time zone, IANA name (default UTC)")
+    parser.add_argument("--timezone", default=None, metavar="TZ",
+                        help="the area's local time zone, IANA name (default: looked up "
+                             "offline from the extract's location)")
     parser.add_argument("--all-parts", action="store_true",
                         help="keep every connected part, not only the largest")
     parser.add_argument("--place", metavar="QUERY",
@@ -42,7 +43,7 @@ def run(args: argparse.Namespace) -> int:
     if args.source is None:
         raise OptionError("give an OSM file (or --place)", field="SOURCE")
     check_target(args.out, force=args.force, folder=True)  # refuse before the work
-    timezone = network.check_timezone(args.timezone)
+    timezone = None if args.timezone is None else network.check_timezone(args.timezone)
     with cluster_of(args) as tiles:
         tagger = None
         if tiles is not None:
@@ -60,4 +61,8 @@ def run(args: argparse.Namespace) -> int:
         print(f"wrote {args.out}: {summary['nodes']} nodes, {summary['edges']} edges, "
               f"{summary['length_km']:.1f} km of directed road; sources: {srcs}; "
               f"profile {summary['profile']}")
+        zone = net.meta["timezone"]
+        how = "given" if net.meta["timezone_source"] == "given" else "looked up from the location"
+        print(f"local time zone: {zone} ({network.zone_label(zone)}, {how}); times without "
+              "an offset are read in it (change with --timezone)")
     return 0
