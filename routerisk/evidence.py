@@ -1088,7 +1088,8 @@ def describe(plan: EvidencePlan) -> list[str]:
         lines.append(
             f"Every exposure band and every category must reach the figure separately: each "
             f"needs {_human(plan.miles_no_failure)} {u} with no event of its own"
-            + (f"; to state all {m} results at once with {conf} familywise confidence, Bonferroni asks "
+            + (f"; to state all {m} results at once with {conf} familywise confidence, "
+               f"Bonferroni asks "
                f"{_human(plan.by_band[0]['needed_bonferroni'])} {u} of each and Holm between "
                f"that and {_human(plan.miles_no_failure)} {u} (most driven stratum first)."
                if m and plan.by_band and "needed_bonferroni" in plan.by_band[0] else ".")
