@@ -76,6 +76,13 @@ MAX_ALLOWED_EVENTS = 1_000_000
 """Largest event count accepted in the "k events allowed" table."""
 
 _MAX_EXACT_COUNT = 10**12  # beyond this the exact power search stops (improvement too small)
+_SCAN_EXACT_COUNT = 1 << 22  # up to this critical count every count is tried (no bisection)
+
+SURPRISE_P = 1e-6
+"""Warn when at least the observed events would happen with less probability at the benchmark."""
+
+NORMAL_GAP = 0.10
+"""Warn when the normal approximation differs from the exact power distance by more."""
 
 
 # ---------------------------------------------------------------------------------------------
@@ -255,8 +262,10 @@ def distance_power_exact(
     ``P(X <= c(n) | target n)`` falls between the jumps ``n_c`` (a saw-tooth in ``n``). The
     smallest distance with power ``P`` is therefore one of the ``n_c``: the first ``c`` with
     ``poisson.cdf(c, target n_c) >= P``. That power at ``n_c`` rises with ``c`` (checked
-    numerically over a grid of confidences and improvements), so ``c`` is found by doubling
-    and bisection.
+    numerically over a grid of confidences and improvements). ``c`` is bracketed by doubling,
+    then every count up to the bracket is tried (no monotonicity assumed) up to 2**22; beyond
+    that the bracket is bisected. The result is never shorter than the zero-event distance
+    ``-ln(1 - C) / benchmark`` of the same test (checked).
 
     Because of the saw-tooth, a slightly longer distance can have slightly less power.
 
@@ -291,12 +300,24 @@ def distance_power_exact(
             lo, hi = hi, hi * 2
             if hi > _MAX_EXACT_COUNT:
                 return None
-        while hi - lo > 1:  # invariant: not reached(lo), reached(hi)
-            mid = (lo + hi) // 2
-            lo, hi = (lo, mid) if reached(mid) else (mid, hi)
-        best = hi
+        if hi <= _SCAN_EXACT_COUNT:  # scan every count: no monotonicity assumed
+            counts = np.arange(0, hi + 1)
+            mean0s = stats.chi2.ppf(confidence, 2 * counts + 2) / 2.0
+            powers = stats.poisson.cdf(counts, ratio * mean0s)
+            best = int(np.flatnonzero(powers >= power)[0])
+        else:
+            while hi - lo > 1:  # invariant: not reached(lo), reached(hi)
+                mid = (lo + hi) // 2
+                lo, hi = (lo, mid) if reached(mid) else (mid, hi)
+            best = hi
     mean0, achieved = _exact_power_at(best, confidence, ratio)
-    return ExactPower(distance=mean0 / benchmark, max_events=best, achieved=achieved)
+    distance = mean0 / benchmark
+    # soundness: any exact test needs at least the zero-event distance at the same level
+    floor = distance_zero_events(benchmark, confidence)
+    if distance < floor * (1.0 - 1e-12):
+        raise AssertionError(f"exact power distance {distance:g} below the zero-event "
+                             f"distance {floor:g}")
+    return ExactPower(distance=distance, max_events=best, achieved=achieved)
 
 
 def upper_rate(distance: float, events: int, confidence: float) -> float:
@@ -398,8 +419,9 @@ class EvidenceInputs:
     observed
         Distance already driven (>= 0), or None.
     events
-        Events seen in ``observed`` (whole number >= 0, at most
-        ``observed x benchmark rate x 1000``), or None; given together with ``observed``.
+        Events seen in ``observed`` (whole number >= 0; > 0 needs ``observed > 0``), or None;
+        given together with ``observed``. Far more events than the benchmark predicts are
+        accepted with a warning in :attr:`EvidencePlan.warnings`.
     allowed_events
         Event counts of the "k events allowed" table (default 0..3).
     """
@@ -454,8 +476,11 @@ class EvidenceInputs:
             if observed < 0:
                 raise OptionError(f"must be >= 0, got {observed:g}", field="--observed")
             put(self, "observed", observed)
-            limit = observed * (self.benchmark / self.per) * 1000.0
-            put(self, "events", _count(self.events, "--events", limit=limit))
+            events = _count(self.events, "--events", limit=math.inf)
+            if observed == 0 and events > 0:
+                raise OptionError(f"{events} events in a distance of 0 is impossible; give the "
+                                  "distance driven with --observed", field="--events")
+            put(self, "events", events)
         allowed = [_count(k, "--allowed-events", limit=MAX_ALLOWED_EVENTS)
                    for k in self.allowed_events]
         if not allowed:
@@ -495,10 +520,15 @@ class EvidencePlan:
     allowed_events
         ``[{"events": k, "miles": n_k, "years": y_k}, ...]`` (Garwood limits).
     miles_power, years_power
-        Distance to show the improvement over the benchmark with the asked power (normal
-        approximation, Kalra and Paddock); None when ``improvement == 0``.
+        Distance to show the improvement over the benchmark with the asked power, from the
+        exact Poisson test (the headline); None when ``improvement == 0`` or the exact search
+        gives up.
+    miles_power_normal_approx, years_power_normal_approx
+        The same from the normal approximation of Kalra and Paddock (2016), for comparison;
+        a warning is added when it differs from the exact figure by more than 10 %.
     miles_power_exact, years_power_exact, events_power_exact, power_exact_achieved
-        The exact Poisson test: its distance, the most events it may see there, its power.
+        The exact Poisson test: its distance (same as ``miles_power``), the most events it may
+        see there, its power.
     power_note
         Why the power figures are None, else None.
     upper_rate
@@ -509,6 +539,13 @@ class EvidencePlan:
         observations.
     upper_rate_note
         Why ``upper_rate`` is None although observations were given, else None.
+    warnings
+        One-line warnings (surprising event counts, a poor normal approximation).
+    strata
+        Number of strata (bands plus categories) with exposure tables, else None. Each must
+        reach the distance on its own; ``by_band`` and ``by_category`` rows carry ``needed``
+        (unadjusted), ``needed_bonferroni`` and ``needed_holm`` (confidence adjusted for the
+        number of strata) with the matching ``still_needed*``.
     """
 
     inputs: EvidenceInputs
@@ -528,8 +565,12 @@ class EvidencePlan:
     upper_rate: float | None
     shown: bool | None
     upper_rate_note: str | None = None
+    miles_power_normal_approx: float | None = None
+    years_power_normal_approx: float | None = None
+    warnings: list[str] = field(default_factory=list)
     by_band: list[dict[str, Any]] | None = field(default=None)
     by_category: list[dict[str, Any]] | None = field(default=None)
+    strata: int | None = None
 
     def to_json(self) -> dict[str, Any]:
         """Return the plan as a JSON-ready dict (inputs under ``"inputs"``)."""
@@ -544,8 +585,35 @@ class EvidencePlan:
 
     def with_exposure(self, exposure: ExposureEvidence) -> EvidencePlan:
         """Return a copy carrying the exposure-stratified tables as lists of records."""
-        return replace(self, by_band=_records(exposure.by_band),
-                       by_category=_records(exposure.by_category))
+        by_band = _records(exposure.by_band)
+        by_category = _records(exposure.by_category)
+        strata = _adjust_strata(by_band + by_category, self.inputs.target_per_unit,
+                                self.inputs.confidence)
+        return replace(self, by_band=by_band, by_category=by_category, strata=strata)
+
+
+def _adjust_strata(rows: list[dict[str, Any]], target: float, confidence: float) -> int:
+    """Add unadjusted, Bonferroni and Holm zero-event distances to each stratum row (in place).
+
+    With ``m`` strata and ``alpha = 1 - C``, Bonferroni asks every stratum for confidence
+    ``1 - alpha / m``. Holm's step-down asks the stratum with the most driving (smallest
+    p-value when no event happened) for ``1 - alpha / m``, the next for
+    ``1 - alpha / (m - 1)``, ..., the least driven for ``C`` itself; a stratum's Holm figure
+    holds once every stratum ranked before it has reached its own.
+    """
+    m = len(rows)
+    alpha = 1.0 - confidence
+    order = sorted(range(m), key=lambda i: -float(rows[i]["driven"]))  # stable for ties
+    for rank, i in enumerate(order):
+        row = rows[i]
+        driven = float(row["driven"])
+        needed = distance_zero_events(target, confidence)
+        bonf = distance_zero_events(target, 1.0 - alpha / m)
+        holm = distance_zero_events(target, 1.0 - alpha / (m - rank))
+        row.update(needed=needed, needed_bonferroni=bonf, needed_holm=holm,
+                   still_needed_bonferroni=max(bonf - driven, 0.0),
+                   still_needed_holm=max(holm - driven, 0.0))
+    return m
 
 
 def _records(frame: pd.DataFrame) -> list[dict[str, Any]]:
@@ -579,7 +647,8 @@ def plan_evidence(inputs: EvidenceInputs) -> EvidencePlan:
         n_k = distance_allowed_events(lam1, c, k)
         table.append({"events": k, "miles": n_k, "years": n_k / per_year})
 
-    miles_power = years_power = None
+    miles_power = years_power = normal_n = normal_years = None
+    warnings: list[str] = []
     exact_n = exact_years = exact_achieved = None
     exact_events: int | None = None
     note = None
@@ -587,19 +656,39 @@ def plan_evidence(inputs: EvidenceInputs) -> EvidencePlan:
         note = ("with no improvement the target equals the benchmark, so no amount of "
                 "driving gives power to show an improvement; power figures are not defined")
     else:
-        miles_power = distance_power_normal(lam0, lam1, c, inputs.power)
-        years_power = miles_power / per_year
+        normal_n = distance_power_normal(lam0, lam1, c, inputs.power)
+        normal_years = normal_n / per_year
         exact = distance_power_exact(lam0, lam1, c, inputs.power)
         if exact is None:
-            note = "the improvement is too small for the exact power search"
+            note = ("the improvement is too small for the exact power search; only the normal "
+                    "approximation is given")
         else:
             exact_n, exact_events, exact_achieved = exact.distance, exact.max_events, exact.achieved
             exact_years = exact_n / per_year
+            miles_power, years_power = exact_n, exact_years
+            gap = normal_n / exact_n - 1.0
+            if abs(gap) > NORMAL_GAP:
+                warnings.append(
+                    f"the normal approximation of the power distance ({normal_n:.4g} "
+                    f"{inputs.units}) is {_pct(abs(gap))} {'above' if gap > 0 else 'below'} "
+                    f"the exact Poisson figure ({exact_n:.4g} {inputs.units}, "
+                    f"{max(normal_n, exact_n) / min(normal_n, exact_n):.3g} times the other); "
+                    "use the exact figure")
 
     upper = shown = upper_note = None
     if inputs.observed is not None and inputs.events is not None:
         limit = upper_rate(inputs.observed, inputs.events, c)
         shown = bool(limit < lam1)
+        expected = lam0 * inputs.observed
+        if inputs.events > 0:
+            surprise = float(stats.poisson.sf(inputs.events - 1, expected))
+            if surprise < SURPRISE_P:
+                warnings.append(
+                    f"{inputs.events} events in {inputs.observed:.4g} {inputs.units} is far above "
+                    f"the {expected:.3g} the benchmark predicts (probability "
+                    f"{f'{surprise:.2g}' if surprise > 0 else 'below 1e-300'} of "
+                    "at least that many at the benchmark rate); check --events, --observed, "
+                    "--benchmark and --per")
         if math.isfinite(limit):
             upper = limit * inputs.per
         else:
@@ -623,6 +712,9 @@ def plan_evidence(inputs: EvidenceInputs) -> EvidencePlan:
         upper_rate=upper,
         shown=shown,
         upper_rate_note=upper_note,
+        miles_power_normal_approx=normal_n,
+        years_power_normal_approx=normal_years,
+        warnings=warnings,
     )
     logger.info(
         "plan_evidence: target %.4g per %g %s, %.4g %s with no event (%.3g years)",
@@ -894,7 +986,24 @@ def _human(x: float) -> str:
     return f"{x:.3g}"
 
 
+def _pct(share: float) -> str:
+    """Return a share as a percentage with enough digits, never rounded up to 0 % or 100 %.
+
+    The number of decimals grows until the shown value is within 0.5 % of both the share and
+    its distance to 100 % (so 0.999 is "99.9 %", 0.9994 is "99.94 %", 0.2 is "20 %").
+    """
+    value = 100.0 * share
+    tol = 0.005 * min(abs(value), abs(100.0 - value)) if 0 < share < 1 else 0.0
+    for decimals in range(13):
+        text = f"{value:.{decimals}f}"
+        if abs(float(text) - value) <= tol:
+            break
+    return f"{text}%"
+
+
 def _years(y: float) -> str:
+    if y < 0.1:
+        return f"{y:.2g}"
     return f"{y:,.1f}" if y < 100 else f"{y:,.0f}"
 
 
@@ -914,11 +1023,11 @@ def describe(plan: EvidencePlan) -> list[str]:
     inp = plan.inputs
     u = inp.units
     per = f"{_human(inp.per)} {u}"
-    conf = f"{inp.confidence:.0%}"
+    conf = _pct(inp.confidence)
     fleet = (f"{inp.fleet:g} vehicles driving {inp.hours_per_day:g} h a day at "
              f"{inp.speed:g} {u}/h, {DAYS_PER_YEAR} days a year "
              f"({_human(plan.fleet_miles_per_year)} {u} a year)")
-    better = (f"which is {inp.improvement:.0%} better than" if inp.improvement > 0
+    better = (f"which is {_pct(inp.improvement)} better than" if inp.improvement > 0
               else "the same as")
     lines = [
         f"Target: fewer than {plan.target_rate:.4g} events per {per}, {better} the benchmark "
@@ -937,19 +1046,22 @@ def describe(plan: EvidencePlan) -> list[str]:
             ", the "
             f"distance grows to {_human(row['miles'])} {u} ({_years(row['years'])} years)."
         )
-    if plan.miles_power is not None and plan.years_power is not None:
-        lines.append(
-            f"To have a probability of {inp.power:.0%} of showing, at {conf} confidence, that the fleet "
-            f"beats the benchmark when it truly is {inp.improvement:.0%} better, it must drive "
-            f"about {_human(plan.miles_power)} {u} ({_years(plan.years_power)} years; normal "
-            "approximation as in Kalra and Paddock 2016)."
-        )
-    if (plan.miles_power_exact is not None and plan.years_power_exact is not None
+    if (plan.miles_power is not None and plan.years_power is not None
             and plan.events_power_exact is not None):
         lines.append(
-            f"The exact count-based test needs {_human(plan.miles_power_exact)} {u} "
-            f"({_years(plan.years_power_exact)} years), and the claim then holds if no more than "
-            f"{plan.events_power_exact} events happen in that distance."
+            f"To have a probability of {_pct(inp.power)} of showing, at {conf} confidence, that "
+            f"the fleet beats the benchmark when it truly is {_pct(inp.improvement)} better, it "
+            f"must drive {_human(plan.miles_power)} {u} ({_years(plan.years_power)} years; exact "
+            "Poisson test), and the claim then holds if "
+            + (f"no more than {plan.events_power_exact} events happen"
+               if plan.events_power_exact else "no event happens")
+            + " in that distance."
+        )
+    if plan.miles_power_normal_approx is not None and plan.years_power_normal_approx is not None:
+        lines.append(
+            f"The normal approximation of Kalra and Paddock (2016) gives "
+            f"{_human(plan.miles_power_normal_approx)} {u} "
+            f"({_years(plan.years_power_normal_approx)} years)."
         )
     if plan.power_note:
         lines.append(f"Power figures: {plan.power_note}.")
@@ -964,22 +1076,35 @@ def describe(plan: EvidencePlan) -> list[str]:
             )
         else:
             lines.append(f"Driven so far: {plan.upper_rate_note}; the claim is not shown.")
+    def still(row: dict[str, Any]) -> str:
+        text = f"still needed {_human(row['still_needed'])} {u}"
+        if "still_needed_bonferroni" in row:
+            text += (f" (Bonferroni {_human(row['still_needed_bonferroni'])}, "
+                     f"Holm {_human(row['still_needed_holm'])})")
+        return text + "."
+
     if plan.by_band is not None:
+        m = plan.strata
         lines.append(
-            f"Each exposure band on its own needs {_human(plan.miles_no_failure)} {u} "
-            "with no event:"
+            f"Every exposure band and every category must reach the figure separately: each "
+            f"needs {_human(plan.miles_no_failure)} {u} with no event of its own"
+            + (f"; to state all {m} results at once with {conf} familywise confidence, "
+               f"Bonferroni asks "
+               f"{_human(plan.by_band[0]['needed_bonferroni'])} {u} of each and Holm between "
+               f"that and {_human(plan.miles_no_failure)} {u} (most driven stratum first)."
+               if m and plan.by_band and "needed_bonferroni" in plan.by_band[0] else ".")
         )
         for row in plan.by_band:
             lines.append(
                 f"  band {row['band']}: driven {_human(row['driven'])} {u} "
-                f"({row['share']:.0%} of all), still needed {_human(row['still_needed'])} {u}."
+                f"({row['share']:.0%} of all), {still(row)}"
             )
     if plan.by_category:
         lines.append("Driving inside the influence of each category:")
         for row in plan.by_category:
             lines.append(
                 f"  {row['category']}: driven {_human(row['driven'])} {u} "
-                f"({row['share']:.0%} of all), still needed {_human(row['still_needed'])} {u}."
+                f"({row['share']:.0%} of all), {still(row)}"
             )
     lines.append(CAUTION)
     return lines

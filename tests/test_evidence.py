@@ -51,11 +51,14 @@ def test_kalra_paddock_power_figure() -> None:
     # Kalra and Paddock (2016), Transp. Res. Part A 94:182-193: about 11 billion miles and about
     # 518 years for the fleet above, to show a 20 % improvement at 95 % / 80 % power
     # [secondary: figures from a secondary copy, not checked against the paper]
-    assert plan.miles_power == pytest.approx(11e9, rel=0.05)
-    assert plan.years_power == pytest.approx(518, abs=1.0)
+    # (the normal approximation is no longer the headline: miles_power_normal_approx)
+    assert plan.miles_power_normal_approx == pytest.approx(11e9, rel=0.05)
+    assert plan.years_power_normal_approx == pytest.approx(518, abs=1.0)
     # the score form of the normal approximation does not reproduce the quoted figure
     score = evidence.distance_power_normal(1.09e-8, 0.872e-8, 0.95, 0.8, variance="score")
-    assert score > 1.15 * plan.miles_power
+    assert score > 1.15 * plan.miles_power_normal_approx
+    # the headline is the exact Poisson test [computed, no published source]
+    assert plan.miles_power == plan.miles_power_exact == pytest.approx(12.91e9, rel=0.001)
 
 
 def test_garwood_upper_count_limits() -> None:
@@ -291,8 +294,14 @@ def test_cli_json_reference(capsys: pytest.CaptureFixture[str]) -> None:
     data = _cli_json(capsys, "--benchmark", "1.09", "--per", "1e8",
                      "--observed", "3e8", "--events", "0")
     assert REQUIRED_KEYS <= set(data)
-    assert data["miles_power"] == pytest.approx(11.34e9, rel=0.001)
-    assert data["years_power"] == pytest.approx(518.0, abs=0.1)
+    # headline: exact Poisson test [computed, see test_exact_power_reference_case]
+    assert data["miles_power"] == pytest.approx(12.91e9, rel=0.001)
+    assert data["years_power"] == pytest.approx(589.5, abs=0.5)
+    # Kalra and Paddock (2016), Transp. Res. Part A 94:182-193, normal approximation [secondary]
+    assert data["miles_power_normal_approx"] == pytest.approx(11.34e9, rel=0.001)
+    assert data["years_power_normal_approx"] == pytest.approx(518.0, abs=0.1)
+    # the two differ by 12 % (> 10 %): warned
+    assert any("normal approximation" in w for w in data["warnings"])  # type: ignore[union-attr]
     assert data["target_rate"] == pytest.approx(0.872)
     assert data["shown"] is False  # 3e8 mi without an event: limit 0.9986 > 0.872 per 1e8
     assert data["upper_rate"] == pytest.approx(0.9986, abs=1e-4)
@@ -338,7 +347,7 @@ def test_cli_plain_output_and_chart(tmp_path: object,
         (["--observed", "1e6", "--events", "-1"], "--events"),
         (["--observed", "1e6", "--events", "1.5"], "--events"),
         (["--observed", "1e6", "--events", "inf"], "--events"),
-        (["--observed", "1e6", "--events", "1000"], "--events"),  # > 1e6 x 1.1e-8 x 1000
+        (["--observed", "0", "--events", "1"], "--events"),  # events in no distance
         (["--observed", "1e6"], "--events"),
         (["--events", "2"], "--observed"),
         (["--allowed-events", "1", "-2"], "--allowed-events"),
@@ -367,3 +376,118 @@ def test_library_rejects_bad_values() -> None:
     assert err.value.field == "--speed"
     with pytest.raises(OptionError):
         _inputs(events=True, observed=1e9)  # a bool is not a count
+
+
+# --- issue 17, points 7-9 ------------------------------------------------------------------
+
+
+def test_real_event_counts_are_accepted_with_a_warning_when_surprising(
+        capsys: pytest.CaptureFixture[str]) -> None:
+    # 1 event in 1000 mi at 1.09 per 100 million: unlikely but possible; the old cap
+    # (observed x rate x 1000 = 0.0109) refused it
+    data = _cli_json(capsys, "--benchmark", "1.09", "--per", "1e8", "--improvement", "0.2",
+                     "--observed", "1000", "--events", "1")
+    assert data["shown"] is False
+    # scipy.stats.poisson: P(X >= 1 | 1.09e-5) = 1.09e-5 > 1e-6, so no event-count warning
+    assert stats.poisson.sf(0, 1000 * 1.09e-8) > 1e-6
+    assert not [w for w in data["warnings"] if "events in" in w]  # type: ignore[union-attr]
+    # 1000 events in 1 million mi at 11 per billion (0.011 expected): accepted, warned once
+    assert main(["evidence", "--benchmark", "11", "--per", "1e9", "--observed", "1e6",
+                 "--events", "1000", "--json"]) == 0
+    captured = capsys.readouterr()
+    data = json.loads(captured.out)
+    surprise = [w for w in data["warnings"] if "events in" in w]
+    assert len(surprise) == 1 and "far above" in surprise[0]
+    lines = [line for line in captured.err.splitlines() if "events in" in line]
+    assert len(lines) == 1 and lines[0].startswith("routerisk: warning: ")
+    # the threshold is the exact Poisson tail (scipy.stats.poisson.sf) below 1e-6
+    mu = 1e8 * 1.09e-8  # 1.09 expected events
+    k = next(k for k in range(1, 100) if stats.poisson.sf(k - 1, mu) < 1e-6)  # P(X >= k)
+
+    def warned(events: int) -> bool:
+        plan = evidence.plan_evidence(_inputs(observed=1e8, events=events))
+        return any("events in" in w for w in plan.warnings)
+
+    assert warned(k) and not warned(k - 1)
+    # impossible inputs are still refused
+    with pytest.raises(OptionError) as err:
+        _inputs(observed=0.0, events=2)
+    assert err.value.field == "--events"
+    assert evidence.plan_evidence(_inputs(observed=10.0, events=10**7)).upper_rate > 0
+
+
+def test_power_headline_is_exact_at_large_improvement(
+        capsys: pytest.CaptureFixture[str]) -> None:
+    plan = evidence.plan_evidence(_inputs(improvement=0.999))
+    lam0 = 1.09e-8
+    # hand calculation: with 0 events allowed the exact test rejects from -ln(0.05) / lam0 =
+    # 274.8 million mi, where its power is exp(-0.001 x 2.996) = 0.997 >= 0.8
+    assert plan.miles_power == pytest.approx(-math.log(0.05) / lam0, rel=1e-9)
+    assert plan.miles_power == pytest.approx(274.84e6, rel=1e-4)
+    assert plan.events_power_exact == 0
+    # normal approximation, Kalra and Paddock (2016) form with scipy.stats.norm quantiles
+    z = stats.norm.ppf(0.95) + stats.norm.ppf(0.8)
+    assert plan.miles_power_normal_approx == pytest.approx(
+        z**2 * 0.001 * lam0 / (0.999 * lam0) ** 2, rel=1e-9)
+    assert plan.miles_power_normal_approx == pytest.approx(568_343, rel=1e-5)
+    assert any("normal approximation" in w for w in plan.warnings)
+    text = " ".join(evidence.describe(plan))
+    assert "99.9% better" in text and "100%" not in text
+    assert main(["evidence", "--benchmark", "1.09", "--per", "1e8", "--improvement",
+                 "0.999"]) == 0
+    assert "normal approximation" in capsys.readouterr().err
+
+
+def test_exact_power_never_below_zero_event_distance() -> None:
+    lam0 = 1e-8
+    for c in (0.8, 0.95, 0.999):
+        for improvement in (0.001, 0.05, 0.2, 0.5, 0.9, 0.999, 0.999999):
+            got = evidence.distance_power_exact(lam0, (1 - improvement) * lam0, c, 0.8)
+            assert got is not None
+            assert got.distance >= evidence.distance_zero_events(lam0, c) * (1 - 1e-12)
+            if got.max_events < 3000:  # brute force (scipy.stats) on the smaller cases
+                n, k = _brute_exact_power(lam0, (1 - improvement) * lam0, c, 0.8)
+                assert got.max_events == k and got.distance == pytest.approx(n, rel=1e-12)
+
+
+@pytest.mark.parametrize(("share", "text"), [
+    (0.2, "20%"), (0.95, "95%"), (0.999, "99.9%"), (0.9994, "99.94%"), (0.99999, "99.999%"),
+    (0.001, "0.1%"), (0.5, "50%"),
+])
+def test_percentages_are_never_rounded_up_to_100(share: float, text: str) -> None:
+    assert evidence._pct(share) == text
+
+
+def test_strata_bonferroni_and_holm(tmp_path: object,
+                                    capsys: pytest.CaptureFixture[str]) -> None:
+    plan = evidence.plan_evidence(_inputs(benchmark=11.0, per=1e9))
+    target = plan.inputs.target_per_unit
+    exposure = evidence.distance_by_exposure(_segments(), needed=plan.miles_no_failure)
+    plan = plan.with_exposure(exposure)
+    assert plan.strata == 4  # 2 bands + 2 categories
+    rows = {r.get("band", r.get("category")): r for r in plan.by_band + plan.by_category}
+    alpha = 0.05
+
+    def n(conf: float) -> float:  # zero-event distance -ln(1 - C) / target, hand calculation
+        return -math.log(1 - conf) / target
+
+    for row in rows.values():
+        assert row["needed"] == pytest.approx(n(0.95))
+        # Bonferroni: confidence 1 - alpha / m for every stratum
+        assert row["needed_bonferroni"] == pytest.approx(n(1 - alpha / 4))
+        assert row["still_needed_bonferroni"] == pytest.approx(
+            n(1 - alpha / 4) - row["driven"])
+    # Holm (1979) step-down: most driven first at alpha / 4, then alpha / 3, alpha / 2, alpha;
+    # driven: low 3.0, high 1.5, school 1.5 (tie: bands first), transit 1.0
+    for name, m_left in (("low", 4), ("high", 3), ("school", 2), ("transit", 1)):
+        assert rows[name]["needed_holm"] == pytest.approx(n(1 - alpha / m_left))
+    assert rows["transit"]["needed_holm"] == pytest.approx(rows["transit"]["needed"])
+    seg = tmp_path / "segments.geojson"  # type: ignore[operator]
+    _write_geojson(seg, _segments())
+    assert main(["evidence", "--benchmark", "11", "--per", "1e9", "--segments", str(seg)]) == 0
+    out = capsys.readouterr().out
+    assert "must reach the figure separately" in out
+    assert "Bonferroni" in out and "Holm" in out
+    data = _cli_json(capsys, "--benchmark", "11", "--per", "1e9", "--segments", str(seg))
+    assert data["strata"] == 4
+    assert data["by_band"][0]["needed_bonferroni"] == pytest.approx(n(1 - alpha / 4))  # type: ignore[index]

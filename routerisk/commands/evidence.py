@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import sys
 
 from .. import evidence
 from .._io import check_target, dumps_json, provenance
@@ -11,8 +12,9 @@ from ..errors import OptionError
 HELP = "plan how much test driving a statistical safety claim needs"
 
 _JSON_NOTE = (
-    "JSON keys miles_no_failure, years_no_failure, miles_power, years_power, upper_rate, "
-    "target_rate, shown; distances in the chosen unit (km with --units km), rates per --per."
+    "JSON keys miles_no_failure, years_no_failure, miles_power, years_power (exact Poisson "
+    "test), miles_power_normal_approx, upper_rate, target_rate, shown, warnings; distances in "
+    "the chosen unit (km with --units km), rates per --per."
 )
 
 
@@ -125,6 +127,8 @@ def run(args: argparse.Namespace) -> int:
         inputs={"drives": args.drives, "segments": args.segments})
     if args.chart is not None:
         evidence.plot_upper_limit(plan, args.chart, force=args.force, made_from=made_from)
+    for warning in plan.warnings:
+        print(f"routerisk: warning: {warning}", file=sys.stderr)
     if args.json:
         print(dumps_json({**plan.to_json(), "made_from": made_from}))
     else:
