@@ -17,7 +17,7 @@ from pathlib import Path
 
 FLAGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
          "--no-first-run", "--disable-component-update", "--disable-sync", "--disable-quic",
-         "--virtual-time-budget=4000"]
+         "--remote-allow-origins=*", "--virtual-time-budget=4000"]
 
 
 def main() -> int:

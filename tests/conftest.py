@@ -41,3 +41,13 @@ def town_dir(town_net, tmp_path_factory) -> Path:
     out = tmp_path_factory.mktemp("town") / "net"
     save_network(town_net, out)
     return out
+
+
+def pytest_terminal_summary(terminalreporter):
+    """Print how many browser tests ran, so a missing chromium is never silent."""
+    from ._browser import CHROMIUM
+
+    ran = [r for k in ("passed", "failed") for r in terminalreporter.stats.get(k, [])
+           if "browser" in getattr(r, "keywords", {})]
+    terminalreporter.write_line(
+        f"browser tests run: {len(ran)} (chromium: {CHROMIUM or 'not found, skipped'})")
