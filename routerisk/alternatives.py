@@ -51,6 +51,8 @@ RELAXED_TIME_FACTOR = 3.0
 #: it saves may come from driving less, not from safer streets.
 SHORTER_CAVEAT = 0.2
 _TINY = 1e-12  # csgraph needs positive arc costs
+#: The plan's fixed partial ends: (head rows, head shares, tail rows, tail shares), or None.
+_Ends = tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray] | None
 
 
 @dataclass
@@ -67,6 +69,7 @@ class Alternative:
     label: str = ""
     bounds_broken: list[str] = field(default_factory=list)
     caveats: list[str] = field(default_factory=list)
+    fractions: np.ndarray | None = None  # share of each edge driven (None: all whole)
 
     def to_dict(self) -> dict[str, Any]:
         """Return the JSON form of ``routerisk suggest``."""
@@ -95,6 +98,7 @@ class Suggestion:
     alternatives: list[Alternative]
     front: list[tuple[float, float]] = field(default_factory=list)  # (minutes, risk)
     note: str = ""
+    planned_fractions: np.ndarray | None = None  # share of each planned edge driven
 
     def to_dict(self) -> dict[str, Any]:
         """Return the JSON form of one route of ``routerisk suggest``."""
@@ -315,21 +319,27 @@ class Leg:
         return [arcs.rows[x[2]] for x in out]
 
 
-def _shared_share(a: np.ndarray, b: np.ndarray, km: np.ndarray) -> float:
-    """Return the share of path ``a``'s length that path ``b`` also drives."""
+def _shared_share(a: np.ndarray, b: np.ndarray, km: np.ndarray,
+                  a_frac: np.ndarray | None = None) -> float:
+    """Return the share of path ``a``'s length that path ``b`` also drives.
+
+    ``a_frac`` gives the share of each of ``a``'s edges driven (partial first and last edges).
+    """
     a = np.asarray(a, dtype=np.int64)
-    la = km[a].sum()
+    la_e = km[a] if a_frac is None else km[a] * np.asarray(a_frac, dtype=float)
+    la = la_e.sum()
     if la == 0:
         return 1.0
     common = np.isin(a, np.asarray(b, dtype=np.int64))
-    return float(km[a[common]].sum() / la)
+    return float(la_e[common].sum() / la)
 
 
 @dataclass
 class _Candidate:
     """A rule-abiding candidate path with its quick score and the bounds it breaks."""
 
-    rows: np.ndarray
+    rows: np.ndarray  # the whole route: the plan's partial ends (if any) included
+    fractions: np.ndarray  # share of each row driven
     risk: float
     minutes: float
     km: float
@@ -437,17 +447,30 @@ class Suggester:
             paths.append(np.concatenate(parts).astype(np.int64))
         return paths
 
-    def _breaking(self, rows: np.ndarray, depart: dt.datetime) -> np.ndarray:
-        """Return the rows a path drives while a hard rule covering them is in force."""
+    def _breaking(self, rows: np.ndarray, depart: dt.datetime, ends: _Ends = None
+                  ) -> np.ndarray:
+        """Return the rows a path drives while a hard rule covering them is in force.
+
+        ``ends`` = (head rows, head shares, tail rows, tail shares): the plan's fixed partial
+        ends driven before and after ``rows``; times run from ``depart`` over the whole route,
+        and only rows of the searched part are returned (the ends cannot be avoided).
+        """
         sc = self.scorer
         if not sc.profile.rules or not len(rows):
             return np.zeros(0, dtype=np.int64)
-        minutes = sc._timeline(rows, depart, None)[5]
+        if ends is None:
+            minutes = sc._timeline(rows, depart, None)[5]
+        else:
+            h, hf, t, tf = ends
+            full = np.concatenate([h, rows, t]).astype(np.int64)
+            minutes = sc._timeline(full, depart, np.concatenate([hf, np.ones(len(rows)), tf])
+                                   )[5][len(h):len(h) + len(rows)]
         hit = (sc.rule_cover[rows] & sc.rule_time[:, minutes].T).any(axis=1)
         return rows[hit]
 
     def _search(self, legs: list[Leg], depart: dt.datetime, m0: float, slack: float,
-                rounds: int, judge: Any) -> tuple[list[_Candidate], list[tuple[float, float]]]:
+                rounds: int, judge: Any, ends: _Ends = None
+                ) -> tuple[list[_Candidate], list[tuple[float, float]]]:
         """Run the penalty rounds on the legs; return rule-abiding candidates and the front."""
         penalty = np.ones(self.g.m)
         cache: dict[Any, Any] = {}
@@ -455,7 +478,7 @@ class Suggester:
         front: list[tuple[float, float]] = []
         for rnd in range(rounds):
             for rows in self._paths(legs, m0, slack, penalty, None, cache):
-                rows = self._repair(rows, legs, depart, m0, slack, penalty, cache)
+                rows = self._repair(rows, legs, depart, m0, slack, penalty, cache, ends)
                 if rows is None or not len(rows):
                     continue
                 cand = judge(rows)
@@ -466,11 +489,12 @@ class Suggester:
         return list(seen.values()), front
 
     def _repair(self, rows: np.ndarray, legs: list[Leg], depart: dt.datetime, m0: float,
-                slack: float, penalty: np.ndarray, cache: dict[Any, Any]) -> np.ndarray | None:
+                slack: float, penalty: np.ndarray, cache: dict[Any, Any], ends: _Ends = None
+                ) -> np.ndarray | None:
         """Close the edges a path drives against a rule and search again (None if stuck)."""
         extra: np.ndarray | None = None
         for _ in range(MAX_REPAIRS):
-            bad = self._breaking(rows, depart)
+            bad = self._breaking(rows, depart, ends)
             if not len(bad):
                 return rows
             if extra is None:
@@ -483,6 +507,7 @@ class Suggester:
         return None
 
     def suggest(self, name: str, planned: list[tuple[int, int, int]], depart: dt.datetime, *,
+                fractions: np.ndarray | None = None,
                 via: list[int] | None = None, count: int = 3, max_extra_time: float = 0.25,
                 max_extra_length: float | None = None, min_difference: float = 0.3,
                 rounds: int = 4) -> Suggestion:
@@ -496,6 +521,11 @@ class Suggester:
             The planned route's edges.
         depart
             Departure time (aware).
+        fractions
+            Share of each planned edge driven, as the matcher gives it (partial first and last
+            edges); the plan is scored with them exactly as ``routerisk score`` does. A partial
+            first (last) edge is where the vehicle starts (ends), so every alternative drives
+            the same part of it and the search runs from its end (to its start) node.
         via
             Node ids the alternative must pass in order (besides the start and the end).
         count
@@ -510,26 +540,43 @@ class Suggester:
             Penalty rounds for diverse alternatives.
         """
         sc = self.scorer
-        plan = sc.score(name, planned, depart)
+        n_plan = len(planned)
+        frac = (np.ones(n_plan) if fractions is None
+                else np.asarray(fractions, dtype=float).copy())
+        plan = sc.score(name, planned, depart, fractions=frac)
         plan_rows = sc.positions(planned)
         g = self.g
+        # a partial first / last edge is fixed: every alternative starts (ends) on it as the
+        # plan does, so the plan and its alternatives cover the same start and end points
+        head = 1 if n_plan and frac[0] < 1.0 - 1e-12 else 0
+        tail = 1 if n_plan > head and frac[-1] < 1.0 - 1e-12 else 0
+        head_rows, tail_rows = plan_rows[:head], plan_rows[n_plan - tail:]
+        head_frac, tail_frac = frac[:head], frac[n_plan - tail:]
+        middle = planned[head:n_plan - tail]
+        start = planned[0][1] if head else planned[0][0]
+        end = planned[-1][0] if tail else planned[-1][1]
+        ends_s = float((sc.tt[head_rows] * head_frac).sum() + (sc.tt[tail_rows] * tail_frac).sum())
+        depart_mid = depart + dt.timedelta(seconds=float((sc.tt[head_rows] * head_frac).sum()))
+        ends = (head_rows, head_frac, tail_rows, tail_frac) if head or tail else None
         via = list(via or [])
-        if not via and planned[0][0] == planned[-1][1]:
+        if not via and middle and start == end:
             # a loop: keep its far half by passing the node halfway along it
-            half = np.searchsorted(np.cumsum(sc.km[plan_rows]), sc.km[plan_rows].sum() / 2)
-            via = [planned[min(int(half), len(planned) - 1)][1]]
-        anchors = [g.node_of[planned[0][0]], *[g.node_of[int(n)] for n in via],
-                   g.node_of[planned[-1][1]]]
-        local = depart.astimezone(sc.tz)
+            mid_rows = plan_rows[head:n_plan - tail]
+            half = np.searchsorted(np.cumsum(sc.km[mid_rows]), sc.km[mid_rows].sum() / 2)
+            via = [middle[min(int(half), len(middle) - 1)][1]]
+        anchors = [g.node_of[start], *[g.node_of[int(n)] for n in via], g.node_of[end]]
+        local = depart_mid.astimezone(sc.tz)
         m0 = local.weekday() * 1440 + local.hour * 60 + local.minute + local.second / 60.0
         slack = max(2.0, plan.duration_min * max_extra_time + 1.0)
         t_max = plan.duration_min * (1 + max_extra_time) + 1e-9
         l_max = None if max_extra_length is None else plan.length_km * (1 + max_extra_length)
 
         def judge(rows: np.ndarray) -> _Candidate:
-            risk, minutes, _ = sc.quick(rows, depart)
-            km = float(self.km[rows].sum())
-            overlap = _shared_share(rows, plan_rows, self.km)
+            full = np.concatenate([head_rows, rows, tail_rows]).astype(np.int64)
+            ffrac = np.concatenate([head_frac, np.ones(len(rows)), tail_frac])
+            risk, minutes, _ = sc.quick(full, depart, fractions=ffrac)
+            km = float((self.km[full] * ffrac).sum())
+            overlap = _shared_share(full, plan_rows, self.km, ffrac)
             broken = []
             if minutes > t_max:
                 broken.append("extra time")
@@ -539,19 +586,22 @@ class Suggester:
                 broken.append("difference from the plan")
             if not risk < plan.risk - 1e-12:
                 broken.append("lower risk")
-            return _Candidate(rows, risk, minutes, km, overlap, broken)
+            return _Candidate(full, ffrac, risk, minutes, km, overlap, broken)
 
-        budget = plan.duration_min * 60.0 * (1 + max_extra_time) * (1 + 1e-9) + 1e-6
+        # the legs' share of the time bound: the fixed partial ends take their own time
+        budget = (plan.duration_min * 60.0 * (1 + max_extra_time) * (1 + 1e-9) + 1e-6
+                  - ends_s)
         legs = self._legs_within(anchors, budget)
-        cands, front = self._search(legs, depart, m0, slack, rounds, judge) if legs else ([], [])
+        cands, front = (self._search(legs, depart, m0, slack, rounds, judge, ends) if legs
+                        else ([], []))
         chosen = self._diverse([c for c in cands if not c.broken], count, min_difference)
         note = ""
         if not chosen:
-            wide = plan.duration_min * 60.0 * RELAXED_TIME_FACTOR
+            wide = plan.duration_min * 60.0 * RELAXED_TIME_FACTOR - ends_s
             if wide > budget:
                 wider = self._legs_within(anchors, wide)
                 if wider:
-                    more, _ = self._search(wider, depart, m0, slack, rounds, judge)
+                    more, _ = self._search(wider, depart, m0, slack, rounds, judge, ends)
                     known = {c.rows.tobytes() for c in cands}
                     cands += [c for c in more if c.rows.tobytes() not in known]
             pool = sorted(cands, key=lambda c: (len(c.broken), c.risk, c.minutes))
@@ -561,13 +611,14 @@ class Suggester:
             chosen = pool[:1]
         alts = [self._alternative(name, c, plan, depart, f"alternative {i}")
                 for i, c in enumerate(chosen, 1)]
-        return Suggestion(name, plan, planned, alts, sorted(set(front)), note)
+        return Suggestion(name, plan, planned, alts, sorted(set(front)), note,
+                          planned_fractions=frac)
 
     def _alternative(self, name: str, c: _Candidate, plan: RouteScore, depart: dt.datetime,
                      label: str) -> Alternative:
         """Score a chosen candidate in full and state its changes against the plan."""
         edges = self.g.as_tuples(c.rows)
-        s = self.scorer.score(name, edges, depart)
+        s = self.scorer.score(name, edges, depart, fractions=c.fractions)
 
         def change(new: float, old: float) -> float:
             return 100.0 * (new - old) / old if old else 0.0
@@ -585,14 +636,15 @@ class Suggester:
             length_change_pct=length_change,
             overlap_with_plan=c.overlap,
             within_bounds=not {"extra time", "extra length"} & set(c.broken),
-            label=label, bounds_broken=list(c.broken), caveats=caveats)
+            label=label, bounds_broken=list(c.broken), caveats=caveats,
+            fractions=c.fractions)
 
     def _diverse(self, pool: list[_Candidate], count: int, min_difference: float
                  ) -> list[_Candidate]:
         """Pick, lowest risk first, candidates that differ enough from each other."""
         chosen: list[_Candidate] = []
         for c in sorted(pool, key=lambda c: (c.risk, c.minutes)):
-            if any(1.0 - _shared_share(c.rows, d.rows, self.km) < min_difference
+            if any(1.0 - _shared_share(c.rows, d.rows, self.km, c.fractions) < min_difference
                    for d in chosen):
                 continue
             chosen.append(c)
@@ -668,7 +720,8 @@ def suggest_routes(net: Any, routes: list[Any], departs: list[dt.datetime] | Non
                                   path=r.source or None, field=f"route {r.name!r}")
         via = via_nodes(m, r, every=keep_every)
         for t in times:
-            out.append(sug.suggest(r.name, list(m.edges), t, via=via, count=count,
+            out.append(sug.suggest(r.name, list(m.edges), t,
+                                   fractions=np.asarray(m.fractions), via=via, count=count,
                                    max_extra_time=max_extra_time,
                                    max_extra_length=max_extra_length,
                                    min_difference=min_difference))

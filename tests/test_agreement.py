@@ -1,0 +1,56 @@
+"""``score`` and ``suggest`` give one number for one planned route (the sample town)."""
+
+from __future__ import annotations
+
+import json
+
+import pytest
+
+from routerisk import datasets
+from routerisk.cli import main
+
+
+def _json(capsys, args: list[str]) -> dict:
+    assert main(args) == 0
+    return json.loads(capsys.readouterr().out)
+
+
+def test_score_and_suggest_agree_on_the_planned_route(town_dir, capsys):
+    src = str(datasets.get_path("routes"))
+    scored = _json(capsys, ["score", src, "--network", str(town_dir), "--json"])["routes"]
+    suggested = _json(capsys, ["suggest", src, "--network", str(town_dir), "--json"])["routes"]
+    assert len(scored) == len(suggested) >= 4
+    for sc, sg in zip(scored, suggested, strict=True):
+        p = sg["planned"]
+        assert (sc["name"], sc["depart"]) == (sg["name"], p["depart"])
+        for key in ("risk", "length_km", "duration_min", "crossings"):
+            assert p[key] == pytest.approx(sc[key], rel=1e-9, abs=0.0), (sc["name"], key)
+        for a in sg["alternatives"]:
+            # every change is stated against that same planned figure
+            assert a["risk_change_pct"] == pytest.approx(
+                100.0 * (a["risk"] - p["risk"]) / p["risk"], abs=2e-3)
+            assert a["length_change_pct"] == pytest.approx(
+                100.0 * (a["length_km"] - p["length_km"]) / p["length_km"], abs=2e-3)
+
+
+def test_library_figures_agree_unrounded(town_net):
+    from routerisk import routes
+    from routerisk.alternatives import suggest_routes
+    from routerisk.scoring import score_routes
+
+    planned = routes.read_routes(datasets.get_path("routes"), default_tz=town_net.timezone)
+    scores = score_routes(town_net, planned)
+    sugs = suggest_routes(town_net, planned)
+    assert any(f < 1.0 for s in sugs for f in s.planned_fractions)  # partial ends are present
+    for sc, sg in zip(scores, sugs, strict=True):
+        for key in ("risk", "length_km", "duration_min"):
+            assert getattr(sg.planned, key) == pytest.approx(getattr(sc, key), rel=1e-9,
+                                                             abs=0.0), (sc.name, key)
+        for a in sg.alternatives:
+            # alternatives drive the plan's partial first and last edges the same way
+            assert a.edges[0] == sg.planned_edges[0] or sg.planned_fractions[0] == 1.0
+            assert a.edges[-1] == sg.planned_edges[-1] or sg.planned_fractions[-1] == 1.0
+            assert a.fractions[0] == sg.planned_fractions[0] or sg.planned_fractions[0] == 1.0
+            assert a.fractions[-1] == sg.planned_fractions[-1] or sg.planned_fractions[-1] == 1.0
+            assert a.risk_change_pct == pytest.approx(
+                100.0 * (a.score.risk - sg.planned.risk) / sg.planned.risk, rel=1e-12)
