@@ -46,6 +46,7 @@ class _Parser(argparse.ArgumentParser):
     _argv: list[str] = []
 
     def error(self, message: str) -> typing.NoReturn:
+        """Raise the complaint as one line (an unknown option, if any, comes first)."""
         if self._subparsers is None:
             unknown = _unknown(self, self._argv)
             if unknown:
@@ -57,6 +58,7 @@ class _Parser(argparse.ArgumentParser):
         raise _UsageError(f"{command}: {text}" if command else text)
 
     def parse_known_args(self, args=None, namespace=None):  # type: ignore[no-untyped-def]
+        """Parse as argparse does; in a sub-command, anything left over is an error."""
         self._argv = list(sys.argv[1:] if args is None else args)
         ns, extra = super().parse_known_args(args, namespace)
         if extra and self._subparsers is None:
