@@ -68,6 +68,7 @@ def rules_in_force(edges: pd.DataFrame, profile: Profile, minutes: np.ndarray | 
 # ----------------------------------------------------------------------------- routes
 
 import datetime as _dt  # noqa: E402
+import re  # noqa: E402
 from dataclasses import dataclass, field  # noqa: E402
 from typing import Any  # noqa: E402
 
@@ -336,10 +337,16 @@ class Scorer:
         return int((junction & (turn >= LEFT_TURN_MIN_DEG) & (turn <= LEFT_TURN_MAX_DEG)).sum())
 
 
+_DATE_ONLY = re.compile(r"\d{4}-?\d{2}-?\d{2}")
+
+
 def parse_depart(text: str, tz: Any) -> _dt.datetime:
     """Parse an ISO 8601 departure; a value without offset is local time in ``tz``."""
     from .errors import OptionError
 
+    if _DATE_ONLY.fullmatch(text.strip()):
+        raise OptionError(f"{text.strip()!r} is a date without a time (it would mean midnight); "
+                          f"give the time too, e.g. {text.strip()}T08:00", field="--depart")
     try:
         t = _dt.datetime.fromisoformat(text.strip())
     except ValueError as exc:

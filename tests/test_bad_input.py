@@ -463,6 +463,35 @@ CASES: dict[str, Case] = {
                                          town=True),
     "score: existing --out": Case(_score(_good_routes), ("out", "--force"), keep=("out",),
                                   setup=_existing("out", folder=True), town=True),
+    "score: a YAML runs file as ROUTES": Case(_score(lambda t: datasets.get_path("runs")), (
+        "runs.yaml", "YAML runs file", "routerisk plan", "expected a route file",
+        "route,lat,lon"), ("out",), town=True),
+    "score: a runs file named .csv": Case(_score(lambda t: _write(
+        t / "runs.csv", datasets.get_path("runs").read_text(encoding="utf-8"))),
+        ("runs.csv", "YAML runs file", "expected a route file"), ("out",), town=True),
+    "score: an OSM PBF as ROUTES": Case(_score(lambda t: _write(
+        t / "town.osm.pbf", _grid_pbf_bytes(t))), ("town.osm.pbf", "OpenStreetMap extract",
+                                                   "expected a route file"),
+        ("out",), town=True),
+    "score: an OSM PBF named .geojson": Case(_score(lambda t: _write(
+        t / "pbf.geojson", _grid_pbf_bytes(t))), ("pbf.geojson", "OpenStreetMap extract"),
+        ("out",), town=True),
+    "score: OSM XML named .gpx": Case(_score(lambda t: _grid(t, "roads.gpx")),
+                                      ("roads.gpx", "OpenStreetMap extract",
+                                       "expected a route file"), ("out",), town=True),
+    "score: a gzip file as ROUTES": Case(_score(lambda t: _write(
+        t / "r.csv.gz", gzip.compress(b"route,lat,lon\n"))), ("r.csv.gz", "compressed",
+                                                               "expected a route file"),
+        ("out",), town=True),
+    "score: --netwrok typo": Case(lambda t, town: [
+        "score", str(_good_routes(t)), "--netwrok", str(town), "--out", str(t / "out")],
+        ("--netwrok", "unknown option", "did you mean --network?"), ("out",), town=True),
+    "score: abbreviated --net": Case(lambda t, town: [
+        "score", str(_good_routes(t)), "--net", str(town), "--out", str(t / "out")],
+        ("unknown option --net", "did you mean --network?"), ("out",), town=True),
+    "score: --depart date only": Case(_score(_good_routes, "--depart", "2026-03-03"),
+                                      ("--depart", "2026-03-03T08:00", "midnight"), ("out",),
+                                      town=True),
     "score: overlay not an overlay": Case(_score(_good_routes, "--overlay", "OVERLAY"),
                                           ("ov.yaml", "kind"), ("out",), town=True),
     # ---- the network folder
@@ -516,6 +545,18 @@ CASES: dict[str, Case] = {
     "suggest: point off the network": Case(lambda t, town: [
         "suggest", str(_geojson(t, [list(A), [-38.0, 38.56]])), "--network", str(town),
         "--map", str(t / "alt.html")], ("routes.geojson", "point 1"), ("alt.html",), town=True),
+    "suggest: --max-extra-time 25": Case(lambda t, town: [
+        "suggest", str(_good_routes(t)), "--network", str(town), "--max-extra-time", "25",
+        "--map", str(t / "alt.html")], ("--max-extra-time", "fraction", "0.25 means 25 %"),
+        ("alt.html",), town=True),
+    "suggest: --depart date only": Case(lambda t, town: [
+        "suggest", str(_good_routes(t)), "--network", str(town), "--depart", "2026-03-03",
+        "--map", str(t / "alt.html")], ("--depart", "2026-03-03T08:00"), ("alt.html",),
+        town=True),
+    "suggest: unknown option": Case(lambda t, town: [
+        "suggest", str(_good_routes(t)), "--network", str(town), "--max-extra-tme", "0.2",
+        "--map", str(t / "alt.html")], ("--max-extra-tme", "did you mean --max-extra-time?"),
+        ("alt.html",), town=True),
     # ---- review: area polygons
     "review: area missing": Case(_review(lambda t: t / "noarea.geojson"), ("noarea.geojson",),
                                  ("out",), town=True),
@@ -751,6 +792,21 @@ def test_debug_shows_the_traceback(tmp_path):
     # in-process, --debug re-raises the error itself
     with pytest.raises(RouteriskError):
         main(["--debug", "build", str(tmp_path / "nowhere.osm"), "--out", str(tmp_path / "o")])
+
+
+def test_broken_pipe_is_quiet(tmp_path, town_dir):
+    # `routerisk score ... --json | head -1`: the reader goes away; no traceback, no noise
+    env = {**os.environ, "PYTHONPATH": str(ROOT)}
+    argv = [sys.executable, "-m", "routerisk", "score", str(_good_routes(tmp_path)),
+            "--network", str(town_dir), "--json"]
+    proc = subprocess.Popen(argv, env=env, cwd=ROOT, stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE)
+    proc.stdout.close()  # before the command prints anything
+    err = proc.stderr.read().decode()
+    proc.stderr.close()
+    code = proc.wait(timeout=120)
+    assert code in (0, 1), (code, err)
+    assert "Traceback" not in err and "BrokenPipe" not in err and "Exception ignored" not in err
 
 
 def test_events_beyond_the_calendar_are_left_out(tmp_path, capsys, town_dir):

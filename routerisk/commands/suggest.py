@@ -14,13 +14,19 @@ from ._common import add_network, network_of
 HELP = "suggest lower-exposure alternatives to planned routes within a time bound"
 
 
+_MAX_SHARE = 5.0  # a share above this is almost surely a percentage typed as such
+
+
 def _share(text: str) -> float:
     try:
         v = float(text)
     except ValueError:
         v = float("nan")
-    if not 0.0 <= v <= 10.0:
-        raise argparse.ArgumentTypeError(f"must be a share between 0 and 10, got {text!r}")
+    if not 0.0 <= v <= _MAX_SHARE:
+        hint = (f"; it is a fraction: 0.25 means 25 % (did you mean {v / 100:g}?)"
+                if _MAX_SHARE < v <= 1000 else "")
+        raise argparse.ArgumentTypeError(
+            f"must be a share between 0 and {_MAX_SHARE:g}, got {text!r}{hint}")
     return v
 
 
