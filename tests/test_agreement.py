@@ -54,3 +54,31 @@ def test_library_figures_agree_unrounded(town_net):
             assert a.fractions[-1] == sg.planned_fractions[-1] or sg.planned_fractions[-1] == 1.0
             assert a.risk_change_pct == pytest.approx(
                 100.0 * (a.score.risk - sg.planned.risk) / sg.planned.risk, rel=1e-12)
+
+
+def test_score_and_suggest_agree_on_a_real_extract(real_pbf, tmp_path, capsys):
+    """Real extract: pyogrio's sample.osm.pbf (OpenStreetMap data, ODbL 1.0)."""
+    from routerisk.network import build_network, save_network
+
+    net = build_network(real_pbf)
+    out = save_network(net, tmp_path / "net")
+    edges = net.edges.to_crs(4326)
+    lines = list(edges.geometry)
+    feats = []
+    for i, (a, b) in enumerate([(0, len(lines) // 2), (3, len(lines) - 4), (7, len(lines) // 3)]):
+        p = lines[a].interpolate(0.3, normalized=True)
+        q = lines[b].interpolate(0.7, normalized=True)
+        feats.append({"type": "Feature", "properties": {"name": f"real-{i}",
+                                                        "depart": "2026-07-07T08:30"},
+                      "geometry": {"type": "LineString", "coordinates": [[p.x, p.y],
+                                                                         [q.x, q.y]]}})
+    src = tmp_path / "routes.geojson"
+    src.write_text(json.dumps({"type": "FeatureCollection", "features": feats}))
+    scored = _json(capsys, ["score", str(src), "--network", str(out), "--json"])["routes"]
+    suggested = _json(capsys, ["suggest", str(src), "--network", str(out), "--json"])["routes"]
+    assert len(scored) == len(suggested) == 3
+    for sc, sg in zip(scored, suggested, strict=True):
+        assert sc["length_km"] > 0 and sc["risk"] > 0
+        p = sg["planned"]
+        for key in ("risk", "length_km", "duration_min", "crossings"):
+            assert p[key] == pytest.approx(sc[key], rel=1e-9, abs=0.0), (sc["name"], key)
