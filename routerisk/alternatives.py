@@ -555,8 +555,9 @@ class Suggester:
         middle = planned[head:n_plan - tail]
         start = planned[0][1] if head else planned[0][0]
         end = planned[-1][0] if tail else planned[-1][1]
-        ends_s = float((sc.tt[head_rows] * head_frac).sum() + (sc.tt[tail_rows] * tail_frac).sum())
-        depart_mid = depart + dt.timedelta(seconds=float((sc.tt[head_rows] * head_frac).sum()))
+        head_s = float((sc.tt[head_rows] * head_frac).sum())
+        ends_s = head_s + float((sc.tt[tail_rows] * tail_frac).sum())
+        depart_mid = depart + dt.timedelta(seconds=head_s)
         ends = (head_rows, head_frac, tail_rows, tail_frac) if head or tail else None
         via = list(via or [])
         if not via and middle and start == end:

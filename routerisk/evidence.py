@@ -604,11 +604,11 @@ def _adjust_strata(rows: list[dict[str, Any]], target: float, confidence: float)
     m = len(rows)
     alpha = 1.0 - confidence
     order = sorted(range(m), key=lambda i: -float(rows[i]["driven"]))  # stable for ties
+    needed = distance_zero_events(target, confidence)
+    bonf = distance_zero_events(target, 1.0 - alpha / m) if m else needed
     for rank, i in enumerate(order):
         row = rows[i]
         driven = float(row["driven"])
-        needed = distance_zero_events(target, confidence)
-        bonf = distance_zero_events(target, 1.0 - alpha / m)
         holm = distance_zero_events(target, 1.0 - alpha / (m - rank))
         row.update(needed=needed, needed_bonferroni=bonf, needed_holm=holm,
                    still_needed_bonferroni=max(bonf - driven, 0.0),

@@ -72,12 +72,12 @@ def zone_label(name: str) -> str:
     The ``Etc/GMT`` names carry the POSIX sign (``Etc/GMT+3`` is three hours *behind* UTC),
     which misleads; other names are returned with nothing changed.
     """
+    if name in ("UTC", "Etc/UTC", "Etc/GMT", "GMT", "Etc/GMT0", "Etc/GMT+0", "Etc/GMT-0"):
+        return "UTC+00:00"
     m = re.fullmatch(r"Etc/GMT([+-])(\d{1,2})", name)
     if m:
         sign = "-" if m.group(1) == "+" else "+"
         return f"UTC{sign}{int(m.group(2)):02d}:00"
-    if name in ("UTC", "Etc/UTC", "Etc/GMT", "GMT", "Etc/GMT0", "Etc/GMT+0", "Etc/GMT-0"):
-        return "UTC+00:00"
     return name
 
 

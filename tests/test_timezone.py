@@ -41,6 +41,7 @@ def test_zone_label_reads_etc_names_the_right_way_round():
     assert zone_label("Etc/GMT+3") == "UTC-03:00"
     assert zone_label("Etc/GMT-10") == "UTC+10:00"
     assert zone_label("UTC") == "UTC+00:00"
+    assert zone_label("Etc/GMT+0") == "UTC+00:00"
     assert zone_label("Europe/London") == "Europe/London"
 
 
