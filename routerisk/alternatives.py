@@ -41,6 +41,7 @@ from .scoring import RouteScore, Scorer
 
 log = logging.getLogger(__name__)
 
+HARD_RULES = "hard rules"  # the bound a candidate breaks when no detour avoids a rule zone
 PENALTY = 1.6  # cost factor on the edges of already chosen paths (diversity)
 MAX_REPAIRS = 8
 EPS = 1e-9
@@ -99,11 +100,19 @@ class Suggestion:
     front: list[tuple[float, float]] = field(default_factory=list)  # (minutes, risk)
     note: str = ""
     planned_fractions: np.ndarray | None = None  # share of each planned edge driven
+    #: why no alternative met every bound (plain sentences; empty when some did)
+    reasons: list[str] = field(default_factory=list)
+    #: what the user can change to get one (plain sentences)
+    next_steps: list[str] = field(default_factory=list)
+    #: nearest departures (ISO, area time) at which the planned route breaks no hard rule
+    rule_free_departures: dict[str, str | None] | None = None
 
     def to_dict(self) -> dict[str, Any]:
         """Return the JSON form of one route of ``routerisk suggest``."""
         return {"name": self.name, "planned": self.planned.to_dict(),
                 "alternatives": [a.to_dict() for a in self.alternatives], "note": self.note,
+                "reasons": list(self.reasons), "next_steps": list(self.next_steps),
+                "rule_free_departures": self.rule_free_departures,
                 "front": [[round(t, 4), round(r, 6)] for t, r in self.front]}
 
 
@@ -336,7 +345,8 @@ def _shared_share(a: np.ndarray, b: np.ndarray, km: np.ndarray,
 
 @dataclass
 class _Candidate:
-    """A rule-abiding candidate path with its quick score and the bounds it breaks."""
+    """A candidate path with its quick score and the bounds it breaks (``hard rules``: no
+    detour found around a rule zone in force)."""
 
     rows: np.ndarray  # the whole route: the plan's partial ends (if any) included
     fractions: np.ndarray  # share of each row driven
@@ -420,8 +430,12 @@ class Suggester:
         return legs
 
     def _paths(self, legs: list[Leg], m0: float, slack: float, penalty: np.ndarray,
-               extra_closed: np.ndarray | None, cache: dict[Any, Any]) -> list[np.ndarray]:
-        """Return candidate full paths through the legs (supported points per leg)."""
+               extra_closed: np.ndarray | None, cache: dict[Any, Any], *,
+               rules: bool = True) -> list[np.ndarray]:
+        """Return candidate full paths through the legs (supported points per leg).
+
+        ``rules=False`` ignores the hard rules (only to show what breaks them).
+        """
         fronts: list[list[np.ndarray]] = []
         t = m0
         for i, leg in enumerate(legs):
@@ -429,6 +443,8 @@ class Suggester:
             if key not in cache:
                 cache[key] = self._leg_costs(leg, t, slack)
             risk, closed = cache[key]
+            if not rules:
+                closed = np.zeros(len(closed), dtype=bool)
             rows = leg.rows
             shut = closed if extra_closed is None else closed | extra_closed[rows]
             pen = penalty[rows]
@@ -478,10 +494,16 @@ class Suggester:
         front: list[tuple[float, float]] = []
         for rnd in range(rounds):
             for rows in self._paths(legs, m0, slack, penalty, None, cache):
-                rows = self._repair(rows, legs, depart, m0, slack, penalty, cache, ends)
-                if rows is None or not len(rows):
+                rows, abiding = self._repair(rows, legs, depart, m0, slack, penalty, cache,
+                                             ends)
+                if not len(rows):
                     continue
                 cand = judge(rows)
+                if not abiding:
+                    # kept only to show the user what was found and why it failed
+                    cand.broken.append(HARD_RULES)
+                    seen.setdefault(rows.tobytes(), cand)
+                    continue
                 if rnd == 0:
                     front.append((cand.minutes, cand.risk))
                 seen.setdefault(rows.tobytes(), cand)
@@ -490,21 +512,26 @@ class Suggester:
 
     def _repair(self, rows: np.ndarray, legs: list[Leg], depart: dt.datetime, m0: float,
                 slack: float, penalty: np.ndarray, cache: dict[Any, Any], ends: _Ends = None
-                ) -> np.ndarray | None:
-        """Close the edges a path drives against a rule and search again (None if stuck)."""
+                ) -> tuple[np.ndarray, bool]:
+        """Close the edges a path drives against a rule and search again.
+
+        Return the path and whether it abides by every hard rule; when no repair works the
+        path as found is returned with ``False`` (shown to the user, never as rule-abiding).
+        """
         extra: np.ndarray | None = None
+        found = rows
         for _ in range(MAX_REPAIRS):
             bad = self._breaking(rows, depart, ends)
             if not len(bad):
-                return rows
+                return rows, True
             if extra is None:
                 extra = np.zeros(self.g.m, dtype=bool)
             extra[bad] = True
             paths = self._paths(legs, m0, slack, penalty, extra, cache)
             if not paths:
-                return None
+                return found, False
             rows = paths[-1]  # the lowest-risk point of the repaired front
-        return None
+        return found, False
 
     def suggest(self, name: str, planned: list[tuple[int, int, int]], depart: dt.datetime, *,
                 fractions: np.ndarray | None = None,
@@ -597,7 +624,12 @@ class Suggester:
                         else ([], []))
         chosen = self._diverse([c for c in cands if not c.broken], count, min_difference)
         note = ""
+        why = _Why()
         if not chosen:
+            within = list(cands)
+            if not cands and legs and sc.profile.rules:
+                # every path is shut by a rule in force: show the best path that breaks it
+                cands = self._rule_breaking(legs, depart, m0, slack, judge, ends)
             wide = plan.duration_min * 60.0 * RELAXED_TIME_FACTOR - ends_s
             if wide > budget:
                 wider = self._legs_within(anchors, wide)
@@ -605,15 +637,125 @@ class Suggester:
                     more, _ = self._search(wider, depart, m0, slack, rounds, judge, ends)
                     known = {c.rows.tobytes() for c in cands}
                     cands += [c for c in more if c.rows.tobytes() not in known]
-            pool = sorted(cands, key=lambda c: (len(c.broken), c.risk, c.minutes))
+            pool = sorted(cands, key=lambda c: (HARD_RULES in c.broken, len(c.broken),
+                                                c.risk, c.minutes))
             note = ("no alternative lowers the risk within the bounds (extra time, length, "
                     "hard rules, difference from the plan); shown: the best candidate, the one "
                     "that breaks the fewest") if pool else "no alternative route found"
             chosen = pool[:1]
+            why = self._why_none(plan, within, cands, legs is not None, max_extra_time)
+        ends_note = self._ends_in_force(plan, head, tail)
+        if ends_note:
+            why.reasons.append(ends_note)
+            why.steps.append("move the start or the end of the route out of the rule zone, or "
+                             "depart when the rule is not in force")
+        departures = None
+        if plan.rule_breaks and (ends_note or not any(HARD_RULES not in c.broken
+                                                      for c in chosen)):
+            departures = self._rule_free_departures(plan_rows, frac, depart)
+            why.steps.append(_departure_step(departures, depart))
         alts = [self._alternative(name, c, plan, depart, f"alternative {i}")
                 for i, c in enumerate(chosen, 1)]
         return Suggestion(name, plan, planned, alts, sorted(set(front)), note,
-                          planned_fractions=frac)
+                          planned_fractions=frac, reasons=why.reasons, next_steps=why.steps,
+                          rule_free_departures=None if departures is None else {
+                              k: (None if t is None else t.isoformat(timespec="seconds"))
+                              for k, t in departures.items()})
+
+    def _rule_breaking(self, legs: list[Leg], depart: dt.datetime, m0: float, slack: float,
+                       judge: Any, ends: _Ends) -> list[_Candidate]:
+        """Return the trade-off paths found with the hard rules ignored, marked as such."""
+        out = []
+        for rows in self._paths(legs, m0, slack, np.ones(self.g.m), None, {}, rules=False):
+            if not len(rows):
+                continue
+            cand = judge(rows)
+            if len(self._breaking(rows, depart, ends)):
+                cand.broken.append(HARD_RULES)
+            out.append(cand)
+        return out
+
+    # -- saying why nothing was found ---------------------------------------------------
+    def _why_none(self, plan: RouteScore, within: list[_Candidate], every: list[_Candidate],
+                  joined: bool, max_extra_time: float) -> _Why:
+        """Explain in plain sentences why no candidate met every bound, and what to change."""
+        why = _Why()
+        if not joined:
+            why.reasons.append("no route joins the start, the via points and the end within "
+                               f"the time bound (+{100 * max_extra_time:.0f} % of the plan's "
+                               "time)")
+        n = len(within)
+        if n:
+            counts = {b: sum(b in c.broken for c in within) for b in _BOUND_WORDS}
+            parts = [f"{k} {_BOUND_WORDS[b]}" for b, k in counts.items() if k]
+            why.reasons.append(f"{n} candidate route{'s' if n != 1 else ''} within the time "
+                               "bound: " + "; ".join(parts))
+            if counts[HARD_RULES] == n:
+                why.reasons.append("no path within the time bound avoids the rule zones while "
+                                   "their rules are in force")
+        elif joined and every and all(HARD_RULES in c.broken for c in every):
+            why.reasons.append("no path within the time bound avoids the rule zones while "
+                               "their rules are in force: each one is closed on every way "
+                               "through")
+        elif joined and plan.segments is not None and len(plan.segments) <= 2:
+            why.reasons.append("the route drives only its partial first and last edges, which "
+                               "every alternative keeps: there is no part to change")
+        elif joined:
+            why.reasons.append("the search found no candidate route within the time bound")
+        # the least extra time at which a rule-abiding, lower-risk, different route exists
+        ok = [c for c in every
+              if not set(c.broken) - {"extra time"} and "extra time" in c.broken]
+        if ok:
+            best = min(ok, key=lambda c: c.minutes)
+            need = best.minutes / plan.duration_min - 1.0 if plan.duration_min else 0.0
+            share = float(np.ceil(need * 100.0 + 1e-9) / 100.0)
+            why.steps.append(f"a rule-abiding alternative with lower risk needs more time: "
+                             f"--max-extra-time {share:.2f} (it takes {best.minutes:.1f} min "
+                             f"against the plan's {plan.duration_min:.1f})")
+        elif every and all("difference from the plan" in c.broken for c in every
+                           if HARD_RULES not in c.broken and "lower risk" not in c.broken):
+            if any(HARD_RULES not in c.broken and "lower risk" not in c.broken for c in every):
+                why.steps.append("lower-risk routes exist but share most of the plan: a "
+                                 "smaller --min-difference would show them")
+        return why
+
+    def _ends_in_force(self, plan: RouteScore, head: int, tail: int) -> str:
+        """Return a sentence when the fixed partial start or end lies in a rule zone in force."""
+        if not plan.rule_breaks or not (head or tail):
+            return ""
+        seq = plan.segments["seq"].to_numpy()
+        last = int(seq[-1]) if len(seq) else -1
+        fixed = {0: "starts"} if head else {}
+        if tail:
+            fixed[last] = "ends"
+        said = []
+        for b in plan.rule_breaks:
+            i = _seq_of(plan, b)
+            if i in fixed:
+                said.append(f"the route {fixed.pop(i)} on {b['street'] or 'an unnamed street'}"
+                            f" inside the zone of the rule '{b['rule']}' while it is in force")
+        if not said:
+            return ""
+        return ("; ".join(said) + ": every route from this start or to this end breaks it "
+                "there, the alternatives too")
+
+    def _rule_free_departures(self, rows: np.ndarray, frac: np.ndarray, depart: dt.datetime
+                              ) -> dict[str, dt.datetime | None]:
+        """Return the nearest earlier and later departures (whole minutes of shift, within a
+        week) at which the planned route itself breaks no hard rule."""
+        sc = self.scorer
+        minutes = sc._timeline(rows, depart, frac)[5]
+        bad = np.zeros(MINUTES_PER_WEEK, dtype=bool)
+        for r in range(len(sc.profile.rules)):
+            for m in np.unique(minutes[sc.rule_cover[rows, r]]):
+                bad |= np.roll(sc.rule_time[r], -int(m))  # bad[d]: in force at m + d
+        shift = np.arange(1, MINUTES_PER_WEEK)
+        later = shift[~bad[shift]]
+        earlier = shift[~bad[(MINUTES_PER_WEEK - shift) % MINUTES_PER_WEEK]]
+        local = depart.astimezone(sc.tz)
+        return {"earlier": (local - dt.timedelta(minutes=int(earlier[0]))) if len(earlier)
+                else None,
+                "later": (local + dt.timedelta(minutes=int(later[0]))) if len(later) else None}
 
     def _alternative(self, name: str, c: _Candidate, plan: RouteScore, depart: dt.datetime,
                      label: str) -> Alternative:
@@ -636,7 +778,7 @@ class Suggester:
             time_change_pct=change(s.duration_min, plan.duration_min),
             length_change_pct=length_change,
             overlap_with_plan=c.overlap,
-            within_bounds=not {"extra time", "extra length"} & set(c.broken),
+            within_bounds=not {"extra time", "extra length", HARD_RULES} & set(c.broken),
             label=label, bounds_broken=list(c.broken), caveats=caveats,
             fractions=c.fractions)
 
@@ -652,6 +794,58 @@ class Suggester:
             if len(chosen) == count:
                 break
         return chosen
+
+
+@dataclass
+class _Why:
+    reasons: list[str] = field(default_factory=list)
+    steps: list[str] = field(default_factory=list)
+
+
+#: the bounds a candidate can break, as the explanation counts them
+_BOUND_WORDS = {
+    HARD_RULES: "pass a rule zone while its rule is in force and no detour avoids it",
+    "extra time": "take longer than the time bound",
+    "extra length": "are longer than the length bound",
+    "difference from the plan": "share too much of the plan",
+    "lower risk": "do not lower the risk",
+}
+
+
+def _seq_of(plan: RouteScore, brk: dict[str, Any]) -> int:
+    """Return the position in the route of the edge a rule-break record names."""
+    seg = plan.segments
+    u, v, k = brk["edge"]
+    hit = seg.index[(seg["u"] == u) & (seg["v"] == v) & (seg["key"] == k)
+                    & (seg["time"] == brk["time"])]
+    return int(seg.loc[hit[0], "seq"]) if len(hit) else -1
+
+
+def _departure_step(deps: dict[str, dt.datetime | None], depart: dt.datetime) -> str:
+    """Say the nearest departures at which the planned route breaks no hard rule."""
+    said = [f"at {_readable(t)} ({_shift(t - depart)} {w})"
+            for w, t in (("later", deps["later"]), ("earlier", deps["earlier"])) if t]
+    if not said:
+        return "no departure in the week avoids the rules on this route"
+    return "the planned route breaks no hard rule if it departs " + " or ".join(said)
+
+
+def _shift(d: dt.timedelta) -> str:
+    """Return a shift of departure in words: '1 h 5 min'."""
+    mins = abs(int(round(d.total_seconds() / 60.0)))
+    days, rest = divmod(mins, 1440)
+    h, m = divmod(rest, 60)
+    words = [f"{days} d"] * bool(days) + [f"{h} h"] * bool(h) + [f"{m} min"] * bool(m)
+    return " ".join(words) or "0 min"
+
+
+def _readable(t: dt.datetime) -> str:
+    """Return a departure as people read it: 'Tue 9 Mar 2027 09:01 (UTC-03:00)'."""
+    off = t.utcoffset() or dt.timedelta(0)
+    mins = int(off.total_seconds() // 60)
+    sign = "+" if mins >= 0 else "-"
+    return (f"{t:%a} {t.day} {t:%b %Y %H:%M} "
+            f"(UTC{sign}{abs(mins) // 60:02d}:{abs(mins) % 60:02d})")
 
 
 def front_by_brute_force(pairs: list[tuple[float, float]]) -> list[tuple[float, float]]:

@@ -296,6 +296,9 @@ def suggestion_map(net: Any, suggestions: list[Any], *, tiles: str | None = None
         if s.note:
             rows_html.append(f"<li><i>{mapview.escape(s.name)}: {mapview.escape(s.note)}</i>"
                              "</li>")
+        rows_html.extend(f"<li><small>{word}: {mapview.escape(t)}</small></li>"
+                         for word, texts in (("why", s.reasons), ("next step", s.next_steps))
+                         for t in texts)
     folium.LayerControl(collapsed=True).add_to(m)
     charts = "".join(f'<img alt="trade-off" style="width:290px" src="{tradeoff_chart(s)}">'
                      for s in suggestions)

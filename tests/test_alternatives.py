@@ -134,3 +134,71 @@ def test_much_shorter_alternative_carries_a_caveat():
             assert "shorter than the plan" in alt.caveats[0]
             assert "required points" in alt.to_dict()["caveats"][0]
     assert any(a.caveats for a in s.alternatives)
+
+
+def _cut_case():
+    """A 5x5 grid whose end node 25 lies in a rule zone in force on Tuesdays 10:00-12:00."""
+    rule = {"name": "school zone", "category": "school", "within_m": 10,
+            "windows": [{"days": ["tue"], "start": "10:00", "end": "12:00"}]}
+    net = random_grid(_flat_profile([rule]), n=5, seed=3)
+    v = net.edges.index.get_level_values(1)
+    net.edges["rule_0"] = np.asarray(v == 25)  # every way into the end is in the zone
+    planned = nx.shortest_path(net.graph, 1, 25, weight="travel_time")
+    edges = [(a, b, 0) for a, b in zip(planned[:-1], planned[1:], strict=True)]
+    return net, edges
+
+
+def test_no_rule_abiding_route_says_why_and_shows_the_best_candidate():
+    net, edges = _cut_case()
+    s = Suggester(Scorer(net)).suggest("p", edges, DEPART, count=3, max_extra_time=0.5)
+    assert s.planned.rule_breaks
+    # the best candidate is shown, marked as breaking the hard rules, never as within bounds
+    assert len(s.alternatives) == 1
+    alt = s.alternatives[0]
+    assert "hard rules" in alt.bounds_broken and not alt.within_bounds
+    assert Scorer(net).score("check", alt.edges, DEPART).rule_breaks  # independent re-score
+    assert any("no path within the time bound avoids the rule zones" in r for r in s.reasons)
+    assert any("breaks no hard rule if it departs" in t for t in s.next_steps)
+
+
+def test_nearest_rule_free_departures_are_the_nearest():
+    # Checked by re-scoring the plan minute by minute around the named departures.
+    net, edges = _cut_case()
+    sc = Scorer(net)
+    s = Suggester(sc).suggest("p", edges, DEPART, count=1, max_extra_time=0.5)
+    later = dt.datetime.fromisoformat(s.rule_free_departures["later"])
+    earlier = dt.datetime.fromisoformat(s.rule_free_departures["earlier"])
+    one = dt.timedelta(minutes=1)
+
+    def breaks(t):
+        return len(sc.score("p", edges, t).rule_breaks)
+
+    assert breaks(later) == 0 and breaks(later - one) > 0
+    assert breaks(earlier) == 0 and breaks(earlier + one) > 0
+    assert earlier < DEPART < later
+    assert later.astimezone(TZ).hour == 11 or later.astimezone(TZ).hour == 12
+
+
+def test_route_of_two_partial_edges_in_a_rule_zone_explains(town_net):
+    # Corvane: Kipperling Street next to the primary school, at school hours (rule 0).
+    sc = Scorer(town_net)
+    assert town_net.edges.loc[[(75, 160, 0), (160, 112, 0)], "rule_0"].all()
+    depart = dt.datetime(2027, 3, 9, 8, 0, tzinfo=TZ)  # a Tuesday, rule in force 07-09
+    s = Suggester(sc).suggest("z", [(75, 160, 0), (160, 112, 0)], depart,
+                              fractions=np.array([0.5, 0.5]))
+    assert s.alternatives == []
+    assert any("no part to change" in r for r in s.reasons)
+    assert any("starts on Kipperling Street inside the zone" in r for r in s.reasons)
+    assert s.rule_free_departures == {"earlier": "2027-03-09T06:59:00-03:00",
+                                      "later": "2027-03-09T09:00:00-03:00"}
+    d = s.to_dict()
+    assert d["reasons"] == s.reasons and d["next_steps"] == s.next_steps
+
+
+def test_routes_that_find_alternatives_carry_no_reasons():
+    net = random_grid(_flat_profile(), n=6, seed=11)
+    planned = nx.shortest_path(net.graph, 1, 36, weight="travel_time")
+    edges = [(a, b, 0) for a, b in zip(planned[:-1], planned[1:], strict=True)]
+    s = Suggester(Scorer(net)).suggest("p", edges, DEPART, count=3, max_extra_time=0.6)
+    assert s.alternatives and s.reasons == [] and s.next_steps == []
+    assert s.rule_free_departures is None

@@ -89,6 +89,10 @@ def run(args: argparse.Namespace) -> int:
                 print(f"    caveat: {c}")
         if s.note:
             print(f"  note: {s.note}")
+        for r in s.reasons:
+            print(f"  why: {r}")
+        for r in s.next_steps:
+            print(f"  next step: {r}")
     if args.map:
         print(f"wrote {args.map}")
     print(CAUTION)
