@@ -34,14 +34,16 @@ class Option:
     depart: dt.datetime
     scorer: Scorer
     run: str = ""
+    fractions: np.ndarray | None = None  # share of each edge driven (partial ends)
     _score: RouteScore | None = None
 
     @property
     def score(self) -> RouteScore:
-        """Return the exact, detailed score (computed once, on first use)."""
+        """Return the exact, detailed score (computed once, on first use), as ``score``
+        computes it: partial first and last edges included."""
         if self._score is None:
             self._score = self.scorer.score(f"{self.run} ({self.label})", self.edges,
-                                            self.depart)
+                                            self.depart, fractions=self.fractions)
         return self._score
 
 
@@ -128,34 +130,42 @@ def plan_day(net: Any, runs: list[planning.RunSpec], date: dt.date, *, vehicles:
         edges = list(m.edges)
         via = via_nodes(m, r)
         pos = scorer.positions(edges)
-        _, dur, _ = scorer.quick(pos, midnight + dt.timedelta(minutes=run.earliest))
+        frac = np.asarray(m.fractions, dtype=float)  # partial ends, as score drives them
+        _, dur, _ = scorer.quick(pos, midnight + dt.timedelta(minutes=run.earliest),
+                                 fractions=frac)
         cands, opts = [], []
-        alt_cache: dict[int, np.ndarray | None] = {}
+        alt_cache: dict[int, tuple[np.ndarray, np.ndarray] | None] = {}
         alt_edges: dict[int, list[tuple[int, int, int]]] = {}
         t = run.earliest
         while t + dur <= run.latest + 1e-9:
             depart = midnight + dt.timedelta(minutes=t)
-            risk, minutes, breaks = scorer.quick(pos, depart)
+            risk, minutes, breaks = scorer.quick(pos, depart, fractions=frac)
             cands.append(planning.Candidate(start=t, duration=minutes, risk=risk,
                                             rule_breaks=breaks, planned=True))
-            opts.append(Option("planned", edges, depart, scorer, run.name))
+            opts.append(Option("planned", edges, depart, scorer, run.name, frac))
             if breaks:
                 hour = t // 60
                 if hour not in alt_cache:
-                    res = sug.suggest(run.name, edges, depart, via=via, count=1,
-                                      max_extra_time=max_extra_time, min_difference=0.0)
+                    res = sug.suggest(run.name, edges, depart, fractions=frac, via=via,
+                                      count=1, max_extra_time=max_extra_time,
+                                      min_difference=0.0)
                     ok = [a for a in res.alternatives if not a.score.rule_breaks]
-                    alt_cache[hour] = scorer.positions(ok[0].edges) if ok else None
+                    alt_cache[hour] = ((scorer.positions(ok[0].edges),
+                                        np.ones(len(ok[0].edges))
+                                        if ok[0].fractions is None
+                                        else np.asarray(ok[0].fractions, dtype=float))
+                                       if ok else None)
                     if ok:
                         alt_edges[hour] = ok[0].edges
-                apos = alt_cache[hour]
-                if apos is not None:
-                    arisk, amin, abreaks = scorer.quick(apos, depart)
+                alt = alt_cache[hour]
+                if alt is not None:
+                    apos, afrac = alt
+                    arisk, amin, abreaks = scorer.quick(apos, depart, fractions=afrac)
                     if t + amin <= run.latest + 1e-9:
                         cands.append(planning.Candidate(start=t, duration=amin, risk=arisk,
                                                         rule_breaks=abreaks, planned=False))
                         opts.append(Option("alternative", alt_edges[hour], depart, scorer,
-                                            run.name))
+                                            run.name, afrac))
             t += step_min
         candidates[run.name] = cands
         options[run.name] = opts

@@ -82,3 +82,25 @@ def test_score_and_suggest_agree_on_a_real_extract(real_pbf, tmp_path, capsys):
         p = sg["planned"]
         for key in ("risk", "length_km", "duration_min", "crossings"):
             assert p[key] == pytest.approx(sc[key], rel=1e-9, abs=0.0), (sc["name"], key)
+
+
+
+def test_day_plan_scores_each_run_as_score_does(town_dir, tmp_path, capsys):
+    # every run `plan --json` places on its planned route has the risk `score --json` gives
+    # that route at that start (partial first and last edges included, as score drives them)
+    import yaml
+
+    runs_file = datasets.get_path("runs")
+    plan = _json(capsys, ["plan", str(runs_file), "--network", str(town_dir),
+                          "--date", "2027-03-09", "--json"])
+    spec = {r["name"]: r for r in yaml.safe_load(runs_file.read_text())["runs"]}
+    planned = [r for r in plan["runs"] if r["route"] == "planned"]
+    assert planned
+    src = str(runs_file.parent / "routes.geojson")
+    for r in planned:
+        want = spec[r["name"]].get("route_name", r["name"])
+        scored = [s for s in _json(capsys, ["score", src, "--network", str(town_dir),
+                                            "--depart", r["start"], "--json"])["routes"]
+                  if s["name"] == want]
+        assert len(scored) == 1
+        assert r["risk"] == pytest.approx(scored[0]["risk"], rel=1e-6, abs=1e-6), r["name"]
