@@ -22,7 +22,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from . import CAUTION, __version__
+from . import CAUTION, __version__, words
 from ._io import write_text_atomic
 
 if TYPE_CHECKING:  # pragma: no cover - typing only
@@ -65,10 +65,15 @@ background:#fff}figure.rr figcaption{font-size:12px;color:#555}
 iframe.rr-map{width:100%;border:1px solid #d9d4c7;background:#eeeae2}
 nav.rr-toc{font-size:13px;margin:8px 0}nav.rr-toc a{margin-right:12px}
 footer{font-size:12px;color:#555;padding-bottom:30px;margin-top:30px}
+.rr-words dt{font-weight:bold;margin-top:6px}.rr-words dd{margin:0 0 0 18px;max-width:60em}
 """
 
 
 # --------------------------------------------------------------------------- text and numbers
+
+
+#: columns shown as p-values ('< 0.001', not '0.000')
+_P_KEYS = frozenset({"p_value", "q_value", "p", "q", "p_poisson", "p_negbin"})
 
 
 def escape(value: Any) -> str:
@@ -163,7 +168,13 @@ def table_html(
             numeric = isinstance(value, int | float | np.integer | np.floating) and not (
                 isinstance(value, bool))
             cls = ' class="num"' if numeric else ""
-            cells.append(f"<td{cls}>{escape(fmt(value, digits=d))}</td>")
+            if numeric and key in _P_KEYS:
+                text = words.p_text(float(value))
+            elif words.is_iso_time(value):
+                text = words.when(value)  # local time as people read it
+            else:
+                text = fmt(value, digits=d)
+            cells.append(f"<td{cls}>{escape(text)}</td>")
         body.append("<tr>" + "".join(cells) + "</tr>")
     cap = f"<caption>{escape(caption)}</caption>" if caption else ""
     return (f'<div class="rr-scroll"><table class="rr">{cap}<thead><tr>{head}</tr></thead>'
@@ -176,8 +187,8 @@ def frame_html(df: pd.DataFrame, *, caption: str | None = None, index: bool = Tr
     data = df.reset_index() if index else df
     rows = [dict(zip(map(str, data.columns), r, strict=True))
             for r in data.itertuples(index=False, name=None)]
-    return table_html(rows, [(str(c), str(c)) for c in data.columns], caption=caption,
-                      digits=digits)
+    return table_html(rows, [(str(c), words.heading(str(c))) for c in data.columns],
+                      caption=caption, digits=digits)
 
 
 def pairs_html(pairs: Iterable[tuple[str, Any]], *, caption: str | None = None,
@@ -389,7 +400,8 @@ def page(title: str, body: Sequence[str], *, facts: Sequence[tuple[str, Any]] = 
         f"{prov_meta}"
         f"<title>{escape(title)}</title><style>{PAGE_CSS}</style></head><body>"
         f"<header><h1>{escape(title)}</h1>{caution_html()}{fact_html}{nav}</header>"
-        "<main>" + "".join(body) + "</main>"
+        "<main>" + "".join(body) + words.glossary_html(words.terms_in("".join(body)))
+        + "</main>"
         f"<footer>{caution_html()}<p>Made with routerisk {escape(__version__)}. Map data: "
         "OpenStreetMap contributors, ODbL 1.0.</p></footer>"
         "</body></html>\n"

@@ -1222,7 +1222,13 @@ def review_html(review: Review) -> str:
     if review.at is not None:
         facts.append(("chosen time", minute_label(review.at)))
     table = comparison_table(review)
-    body = [r.section("Areas side by side", r.frame_html(table, index=False, digits=3),
+    # one row per figure, one column per area: fits the page however many figures there are
+    from . import words
+
+    wide = table.drop(columns=["profile", "routerisk_version", "network_source_sha256",
+                               "area_file_sha256"], errors="ignore").set_index("area").T
+    wide.insert(0, "figure", [words.heading(str(c)) for c in wide.index])
+    body = [r.section("Areas side by side", r.frame_html(wide, index=False, digits=3),
                       r.figure_html(r.grouped_bar_chart(
                           [b.name for b in prof.bands],
                           {a["name"]: [a["km_by_band"][b.name] for b in prof.bands]

@@ -525,7 +525,7 @@ def test_report_is_self_contained_and_escaped(hostile_page: tuple[str, review.Re
     # hostile names appear only escaped
     assert HOSTILE not in page
     assert "&lt;script&gt;alert(1)&lt;/script&gt;" in page
-    assert "test-town.osm" in page and "2024-05-01T00:00:00Z" in page and "ODbL" in page
+    assert "test-town.osm" in page and "Wed 1 May 2024 00:00 UTC" in page and "ODbL" in page
     assert hostile_page[1].profile.fingerprint in page
 
 

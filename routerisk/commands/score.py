@@ -3,11 +3,22 @@
 from __future__ import annotations
 
 import argparse
+import textwrap
 from pathlib import Path
 
 from .. import CAUTION, routemap, routes, scoring
 from .._io import check_target, dumps_json, provenance
+from ..network import zone_label
 from ._common import add_network, network_of
+
+#: the text table's headings (short, so a row fits a terminal; meanings printed below)
+SHORT_HEADINGS = ["rank", "route", "departs", "km", "min", "risk", "risk/km", "rel. index",
+                  "rule breaks"]
+#: what the text table's figures mean, printed under it
+RISK_WORDS = ("risk: pedestrian exposure weighted by the chance a struck pedestrian dies at "
+              "the street's speed, summed along the route (points, comparable only under the "
+              "same profile); relative index: risk per km against the area's average km at the "
+              "same minutes under the same profile (1 = average); rank 1 = lowest total risk.")
 
 HELP = "score planned routes or recorded drives (GeoJSON, GPX, CSV) at departure times"
 
@@ -44,14 +55,22 @@ def run(args: argparse.Namespace) -> int:
                           "made_from": provenance(profile=net.profile.fingerprint, network=net,
                                                   inputs={"routes": args.routes})}))
     else:
+        from .. import words
+
         table = routemap.ranking_table(scores)
         cols = ["rank", "name", "depart", "length_km", "duration_min", "risk", "risk_per_km",
                 "relative_index", "rule_breaks"]
-        print(table[cols].to_string(index=False, float_format=lambda v: f"{v:.3f}"))
+        shown = table[cols].copy()
+        shown["depart"] = [words.when(t) for t in shown["depart"]]
+        shown.columns = SHORT_HEADINGS
+        print(shown.to_string(index=False, float_format=lambda v: f"{v:.3f}"))
+        print(textwrap.fill(f"times in {zone_label(net.timezone.key)}; " + RISK_WORDS, 100))
+        blocks = words.Blocks(net.edges) if any(s.rule_breaks for s in scores) else None
         for s in scores:
             for b in s.rule_breaks:
-                print(f"rule broken: {s.name}: {b['rule']} on {b['street'] or 'unnamed street'}"
-                      f" at {b['time']}")
+                where = blocks.label(*b["edge"]) if blocks else b["street"]
+                print(f"rule broken: {s.name}: {b['rule']} on {where or 'unnamed street'}"
+                      f" at {words.when(b['time'])}")
         if args.out:
             print(f"wrote {args.out}")
         print(CAUTION)
