@@ -1001,6 +1001,15 @@ def _pct(share: float) -> str:
     return f"{text}%"
 
 
+def _share_text(share: float) -> str:
+    """Return a share of distance in whole percent, never a driven share as '0%'."""
+    if 0 < share < 0.005:
+        return "under 1%"
+    if 0.995 < share < 1:
+        return "over 99%"
+    return f"{share:.0%}"
+
+
 def _years(y: float) -> str:
     if y < 0.1:
         return f"{y:.2g}"
@@ -1097,14 +1106,14 @@ def describe(plan: EvidencePlan) -> list[str]:
         for row in plan.by_band:
             lines.append(
                 f"  band {row['band']}: driven {_human(row['driven'])} {u} "
-                f"({row['share']:.0%} of all), {still(row)}"
+                f"({_share_text(row['share'])} of all), {still(row)}"
             )
     if plan.by_category:
         lines.append("Driving inside the influence of each category:")
         for row in plan.by_category:
             lines.append(
                 f"  {row['category']}: driven {_human(row['driven'])} {u} "
-                f"({row['share']:.0%} of all), {still(row)}"
+                f"({_share_text(row['share'])} of all), {still(row)}"
             )
     lines.append(CAUTION)
     return lines

@@ -491,3 +491,13 @@ def test_strata_bonferroni_and_holm(tmp_path: object,
     data = _cli_json(capsys, "--benchmark", "11", "--per", "1e9", "--segments", str(seg))
     assert data["strata"] == 4
     assert data["by_band"][0]["needed_bonferroni"] == pytest.approx(n(1 - alpha / 4))  # type: ignore[index]
+
+
+def test_a_small_driven_share_never_reads_as_zero():
+    # common practice, no source: a share that exists is not printed as "0%"
+    from routerisk.evidence import _share_text
+
+    assert _share_text(0.0046) == "under 1%"
+    assert _share_text(0.0) == "0%"
+    assert _share_text(0.997) == "over 99%"
+    assert _share_text(0.22) == "22%"
