@@ -637,8 +637,10 @@ class Suggester:
                     more, _ = self._search(wider, depart, m0, slack, rounds, judge, ends)
                     known = {c.rows.tobytes() for c in cands}
                     cands += [c for c in more if c.rows.tobytes() not in known]
-            pool = sorted(cands, key=lambda c: (HARD_RULES in c.broken, len(c.broken),
-                                                c.risk, c.minutes))
+            same = plan_rows.tobytes()
+            pool = sorted((c for c in cands if c.rows.tobytes() != same),  # not the plan
+                          key=lambda c: (HARD_RULES in c.broken, len(c.broken), c.risk,
+                                         c.minutes))
             note = ("no alternative lowers the risk within the bounds (extra time, length, "
                     "hard rules, difference from the plan); shown: the best candidate, the one "
                     "that breaks the fewest") if pool else "no alternative route found"
@@ -684,6 +686,16 @@ class Suggester:
             why.reasons.append("no route joins the start, the via points and the end within "
                                f"the time bound (+{100 * max_extra_time:.0f} % of the plan's "
                                "time)")
+        plan_rows = plan.segments["_pos"].to_numpy(dtype=np.int64).tobytes()
+        only_plan = bool(within) and all(c.rows.tobytes() == plan_rows for c in within)
+        if only_plan:
+            why.reasons.append("the only route found within the time bound is the plan itself")
+            within = []
+        others = [c for c in every if c.rows.tobytes() != plan_rows]
+        if joined and not others and len(plan.segments) > 2:
+            why.steps.append(f"no other route was found within {RELAXED_TIME_FACTOR:g} times "
+                             "the plan's time either: the streets here leave no other way; "
+                             "move the start or the end, or add via points elsewhere")
         n = len(within)
         if n:
             counts = {b: sum(b in c.broken for c in within) for b in _BOUND_WORDS}
@@ -693,6 +705,8 @@ class Suggester:
             if counts[HARD_RULES] == n:
                 why.reasons.append("no path within the time bound avoids the rule zones while "
                                    "their rules are in force")
+        elif only_plan:
+            pass
         elif joined and every and all(HARD_RULES in c.broken for c in every):
             why.reasons.append("no path within the time bound avoids the rule zones while "
                                "their rules are in force: each one is closed on every way "

@@ -82,7 +82,10 @@ def test_score_and_suggest_agree_on_a_real_extract(real_pbf, tmp_path, capsys):
         p = sg["planned"]
         for key in ("risk", "length_km", "duration_min", "crossings"):
             assert p[key] == pytest.approx(sc[key], rel=1e-9, abs=0.0), (sc["name"], key)
-
+        # the plan is never offered as its own alternative; when none is found it says why
+        assert all(a["shared_length_with_plan"] < 1.0 for a in sg["alternatives"])
+        if not sg["alternatives"]:
+            assert sg["reasons"]
 
 
 def test_day_plan_scores_each_run_as_score_does(town_dir, tmp_path, capsys):

@@ -63,6 +63,8 @@ def run(args: argparse.Namespace) -> int:
               f"profile {summary['profile']}")
         zone = net.meta["timezone"]
         how = "given" if net.meta["timezone_source"] == "given" else "looked up from the location"
-        print(f"local time zone: {zone} ({network.zone_label(zone)}, {how}); times without "
-              "an offset are read in it (change with --timezone)")
+        label = network.zone_label(zone)
+        shown = zone if label == zone else f"{label} ({zone})"
+        print(f"local time zone: {shown}, {how}; times without an offset are read in it "
+              "(change with --timezone)")
     return 0

@@ -9,6 +9,7 @@ from .. import CAUTION, mapview, routemap, routes, scoring
 from .._io import check_target, dumps_json, provenance
 from ..alternatives import suggest_routes
 from ..errors import OptionError
+from ..network import zone_label
 from ._common import add_network, network_of
 
 HELP = "suggest lower-exposure alternatives to planned routes within a time bound"
@@ -77,9 +78,12 @@ def run(args: argparse.Namespace) -> int:
                           "made_from": provenance(profile=net.profile.fingerprint, network=net,
                                                   inputs={"routes": args.routes})}))
         return 0
+    from .. import words
+
+    print(f"times in {zone_label(net.timezone.key)}")
     for s in result:
         p = s.planned
-        print(f"{s.name} at {p.depart.isoformat()}: planned risk {p.risk:.3f}, "
+        print(f"{s.name} at {words.when(p.depart)}: planned risk {p.risk:.3f}, "
               f"{p.duration_min:.1f} min, {len(p.rule_breaks)} rule break(s)")
         for a in s.alternatives:
             print(f"  {a.label}: risk {a.score.risk:.3f} ({a.risk_change_pct:+.1f} %), "
