@@ -188,7 +188,6 @@ def read_segments(path: str | Path) -> pd.DataFrame:
     return pd.DataFrame.from_records(rows)
 
 
-
 def segments_from_drives(net: Any, folder: str | Path) -> pd.DataFrame:
     """Map-match every GPX/GeoJSON/CSV drive in ``folder`` and return its driven segments.
 

@@ -52,7 +52,6 @@ NORMAL_GAP = 0.10
 """Warn when the normal approximation differs from the exact power distance by more."""
 
 
-
 def distance_zero_events(target: float, confidence: float) -> float:
     """Return the distance to drive with no event to show a rate below ``target``.
 

@@ -54,7 +54,6 @@ _GROUP_POINTS = 60_000
 Edge = tuple[Hashable, Hashable, Hashable]
 
 
-
 @dataclass(frozen=True, eq=False)
 class MatchedRoute:
     """Edges driven by one route, in order.

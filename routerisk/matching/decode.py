@@ -389,7 +389,6 @@ def _layer_bounds(layer_route: np.ndarray, n_routes: int) -> np.ndarray:
     return np.searchsorted(layer_route, np.arange(n_routes + 1)).astype(np.int64)
 
 
-
 def _off_network(
     index: RoadIndex, route: PlannedRoute, xy: np.ndarray, bad: np.ndarray, limit_m: float
 ) -> RouteInputError:

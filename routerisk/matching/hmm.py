@@ -64,7 +64,6 @@ def _thin(xy: np.ndarray, min_step: float, required: np.ndarray) -> np.ndarray:
     return keep
 
 
-
 def _positive(value: object, name: str) -> float:
     try:
         v = float(value)  # type: ignore[arg-type]

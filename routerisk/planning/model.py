@@ -29,7 +29,6 @@ from .runs import RunSpec
 TimeLike = float | int | datetime
 
 
-
 @dataclass(frozen=True)
 class Candidate:
     """One possible placement of a job.
@@ -223,7 +222,6 @@ def jobs_for_runs(
     return jobs
 
 
-
 _TICKS = 1000  # integer time units per minute; times are compared exactly on this scale
 _MINUTE = timedelta(minutes=1)
 
@@ -370,7 +368,6 @@ def _prepare(
     return usable, reasons
 
 
-
 def _check_turnaround(turnaround_min: float) -> None:
     if not (math.isfinite(turnaround_min) and turnaround_min >= 0):
         raise OptionError(f"turnaround must be 0 or more minutes, got {turnaround_min}",
@@ -430,7 +427,6 @@ def _schedule(
         notes=tuple(notes),
         seconds=seconds,
     )
-
 
 
 def overlaps(

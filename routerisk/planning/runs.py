@@ -57,7 +57,6 @@ _YAML_KEYS = (
 _CLOCK_RE = re.compile(r"^\s*(\d{1,2}):(\d{2})\s*$")
 
 
-
 @dataclass(frozen=True)
 class RunSpec:
     """One run of a test day, as read from a RUNS file.

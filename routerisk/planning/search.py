@@ -318,6 +318,5 @@ class _Search:
         return changed
 
 
-
 def _risk(sol: Mapping[int, _Placement]) -> float:
     return float(sum(p[0].risk for p in sol.values()))

@@ -68,7 +68,6 @@ def _search_from_x(
     return search
 
 
-
 def _rel_gap(value: float, bound: float | None) -> float | None:
     if bound is None:
         return None
@@ -160,7 +159,6 @@ def _optimise(
     if res.bound is not None:
         bound = max(bound, min(upper, res.bound))
     return best.sol, status, bound
-
 
 
 def solve_schedule(

@@ -116,7 +116,6 @@ class PlannedRoute:
         return len(self.lonlat)
 
 
-
 # A route under construction: its fields plus where in the file it came from.
 _Parsed = tuple[PlannedRoute, str]
 
@@ -128,7 +127,6 @@ def _resolve_tz(value: str | tzinfo | None) -> tzinfo | None:
         return ZoneInfo(str(value))
     except (ZoneInfoNotFoundError, ValueError) as exc:
         raise OptionError(f"unknown time zone {value!r}", field="default_tz") from exc
-
 
 
 def _short(value: object) -> str:
