@@ -79,7 +79,9 @@ LENGTH_BASIS = (
 HOUR_BASIS = (
     "closed_km_by_hour has 168 values, hour 0 = Monday 00:00-01:00 local time of the network; "
     "an edge is closed in an hour if any hard rule covering it is in force at any minute of "
-    "that hour."
+    "that hour. exposure_by_hour applies each category's time profile, and the baseline's "
+    "and the crossings' time profiles when the profile gives them (hour means of the "
+    "minute multipliers)."
 )
 INFLUENCE_BASIS = (
     "km_in_influence = clipped length x the edge's share of length inside the category's "
@@ -675,6 +677,13 @@ def _review_area(ctx: _Context, area: Area, *, at: int | None = None, top: int =
     fixed = float((km * (per_km - exp_mat @ weights)).sum())  # baseline and crossings
     by_cat = (km[:, None] * exp_mat * weights[None, :]).sum(axis=0)
     exposure_by_hour = fixed + ctx.hourly_mult @ by_cat
+    if prof.baseline_time_profile or prof.crossing_time_profile:
+        # baseline and crossings follow their own time profiles: the hour's mean multiplier
+        base_km = float((km * clip["baseline"].to_numpy(dtype=float)).sum())
+        base_h, cross_h = (np.asarray(a).reshape(HOURS_PER_WEEK, 60).mean(axis=1) for a in
+                           prof.street_multipliers(np.arange(MINUTES_PER_WEEK)))
+        exposure_by_hour = (base_km * base_h + (fixed - base_km) * cross_h
+                            + ctx.hourly_mult @ by_cat)
 
     cover, closed = _closed_matrix(clip, prof, ctx.force_hour)
     closed_by_hour = km @ closed
