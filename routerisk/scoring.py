@@ -33,7 +33,7 @@ def minute_of_week(ts: pd.Timestamp | pd.DatetimeIndex | pd.Series) -> np.ndarra
 
 #: How the relative index reads, said beside it on every output.
 RELATIVE_INDEX_NOTE = (
-    "relative index: the route's risk against as many km of the area's average street at the "
+    "relative index: route risk against as many km of the average street of the area at the "
     "same minutes under the same profile (1.0 = as exposed as the area then); it cannot be "
     "compared across profiles")
 
