@@ -1209,7 +1209,22 @@ def _profile_section(review: Review) -> str:
                      caption="Exposure bands"),
         r.note_html(f"Crossing weight {prof.crossing_weight:g}; severity outcome "
                     f"{prof.severity_outcome}. The weights are the profile's, not data."),
+        r.note_html(_model_text(prof)),
         anchor_id="profile")
+
+
+def _model_text(prof: Profile) -> str:
+    """Return the profile section's note on the time of the baseline, decay steps and scope."""
+    from .scoring import model_note
+
+    parts = [f"Baseline time profile: {prof.baseline_time_profile or 'none (the same at all hours)'}"
+             f"; crossing time profile: {prof.crossing_time_profile or 'none'}."]
+    steps = [c.name for c in prof.categories if c.decay == "gaussian"]
+    if steps:
+        parts.append(f"Gaussian decay ({', '.join(steps)}) is cut at the radius: nearness drops "
+                     "from exp(-2) = 0.135 to 0 there, a step (gaussian_smooth has none).")
+    parts.append(f"Risk {model_note(prof)}.")
+    return " ".join(parts)
 
 
 def review_html(review: Review) -> str:
