@@ -35,7 +35,9 @@ DEFAULT_PROFILE = Path(__file__).with_name("data") / "default.yaml"
 GAUSS_AT_RADIUS = math.exp(-2.0)
 #: Exponents of the power model of speed and crash counts (Nilsson 2004, re-estimated by
 #: Elvik 2009, TOI report 1034) **[memory]**: crashes change with (v1 / v0) ** exponent.
-#: Elvik reports lower exponents on urban roads than on rural roads (also from memory).
+#: Nilsson's own powers were 4 / 3 / 2 (fatal / serious casualty / casualty crashes); the
+#: model is less applicable on urban arterials, with smaller powers (Cameron and Elvik 2010,
+#: Accident Analysis & Prevention 42(6):1908-1915, from its abstract).
 POWER_MODEL_EXPONENTS = {"fatal": 4.6, "serious_injury": 3.5, "injury": 2.0}
 
 

@@ -191,7 +191,9 @@ def output_meta(net: Any, inputs: dict[str, Any] | None = None) -> dict[str, Any
     from ._io import provenance
 
     prov = provenance(profile=net.profile.fingerprint, network=net, inputs=inputs)
-    return {**prov, "network_source_sha256": net.meta.get("source_sha256"), "caution": CAUTION}
+    return {**prov, "network_source_sha256": net.meta.get("source_sha256"), "caution": CAUTION,
+            "model": scoring.model_note(net.profile),
+            "relative_index_note": scoring.RELATIVE_INDEX_NOTE}
 
 
 def write_outputs(net: Any, scores: list[RouteScore], out: str | Path, *,

@@ -210,6 +210,9 @@ class Scorer:
         total_km = self.km.sum()
         self.avg_base = float((self.sev * self.km * self.base).sum()) / total_km
         self.avg_cross = float((self.sev * prof.crossing_weight * self.cross).sum()) / total_km
+        self.avg_fixed = float((self.sev * self.km * self.base).sum() + (
+            self.sev * prof.crossing_weight * self.cross).sum()) / total_km  # both untimed
+        self._street_timed = bool(prof.baseline_time_profile or prof.crossing_time_profile)
         self.avg_cat = (self.sev * self.km) @ (self.exp * self.w) / total_km  # (C,)
         self.tz = net.timezone
         nodes = net.nodes
@@ -240,6 +243,8 @@ class Scorer:
         """Return the network's length-weighted average risk per km at each minute."""
         m = np.asarray(minutes) % MINUTES_PER_WEEK
         mult = self.mult_table[:, m].T  # (n, C)
+        if not self._street_timed:  # the same sum, bit for bit, as before the street profiles
+            return self.avg_fixed + mult @ self.avg_cat
         return (self.avg_base * self.base_mult[m] + self.avg_cross * self.cross_mult[m]
                 + mult @ self.avg_cat)
 

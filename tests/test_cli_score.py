@@ -195,5 +195,8 @@ def test_every_score_output_says_how_the_index_reads_and_what_is_modelled(town_d
     for note in (scoring.RELATIVE_INDEX_NOTE, data["model"]):
         assert f"# {note}\n" in csv
         assert mapview.escape(note) in page
+    meta = json.loads((tmp_path / "o" / "segments.geojson").read_text())["routerisk"]
+    assert meta["model"] == data["model"]
+    assert meta["relative_index_note"] == scoring.RELATIVE_INDEX_NOTE
     code, text, _ = _run(capsys, "score", routes, "--network", town_dir)
     assert code == 0 and scoring.RELATIVE_INDEX_NOTE in text and data["model"] in text

@@ -269,3 +269,33 @@ def test_likelihood_factor_enters_the_risk(tmp_path):
     # Nilsson's power model, re-estimated by Elvik (2009), all injury crashes: exponent
     # about 2.0 [memory, /work/shared/DOMAIN.md]
     assert s.risk == pytest.approx(0.59 * (40.0 / (25 * MPH_TO_KPH)) ** 2.0, rel=1e-12)
+
+
+def test_likelihood_on_the_sample_town_multiplies_each_segment(town_net, tmp_path):
+    # A profile with the power model on (fatal crashes, exponent 4.6, Elvik 2009 [memory]):
+    # each segment's risk is the segment's risk without it x (speed / 25 mph) ** 4.6.
+    import copy
+
+    import yaml
+
+    from routerisk import datasets, routes
+    from routerisk.profile import DEFAULT_PROFILE, load_profile
+    from routerisk.scoring import model_note, score_routes
+    from routerisk.severity import MPH_TO_KPH
+
+    doc = copy.deepcopy(yaml.safe_load(DEFAULT_PROFILE.read_text()))
+    doc["likelihood"] = {"model": "power", "crashes": "fatal", "reference_mph": 25}
+    (tmp_path / "like.yaml").write_text(yaml.safe_dump(doc))
+    prof = load_profile(tmp_path / "like.yaml")
+    net = town_net.retag(prof)
+    assert "likelihood" in net.edges and "likelihood" not in town_net.edges
+    planned = routes.read_routes(datasets.get_path("routes"), default_tz=town_net.timezone)
+    off = score_routes(town_net, planned)
+    on = score_routes(net, planned)
+    for a, b in zip(off, on, strict=True):
+        pos = b.segments["_pos"].to_numpy()
+        speed = net.edges["speed_kph"].to_numpy()[pos]
+        want = a.segments["risk"].to_numpy() * (speed / (25 * MPH_TO_KPH)) ** 4.6
+        assert b.segments["risk"].to_numpy() == pytest.approx(want, rel=1e-9)
+    assert "crash likelihood by speed (power model" in model_note(prof)
+    assert "exponent 4.6" in model_note(prof) and "off in this profile" not in model_note(prof)
