@@ -575,8 +575,7 @@ def _model_options(r: _Reader, d: Mapping[str, Any], prof: Profile) -> Profile:
                        strict=True, high=100)
         like = Likelihood(crashes, exponent, ref)
     return replace(prof, baseline_time_profile=found["baseline.time_profile"],
-                               crossing_time_profile=found["crossing_time_profile"],
-                               likelihood=like)
+                   crossing_time_profile=found["crossing_time_profile"], likelihood=like)
 
 
 def load_profile(path: str | Path | None = None) -> Profile:

@@ -1217,8 +1217,9 @@ def _model_text(prof: Profile) -> str:
     """Return the profile section's note on the time of the baseline, decay steps and scope."""
     from .scoring import model_note
 
-    parts = [f"Baseline time profile: {prof.baseline_time_profile or 'none (the same at all hours)'}"
-             f"; crossing time profile: {prof.crossing_time_profile or 'none'}."]
+    base = prof.baseline_time_profile or "none (the same at all hours)"
+    parts = [f"Baseline time profile: {base}; crossing time profile: "
+             f"{prof.crossing_time_profile or 'none'}."]
     steps = [c.name for c in prof.categories if c.decay == "gaussian"]
     if steps:
         parts.append(f"Gaussian decay ({', '.join(steps)}) is cut at the radius: nearness drops "

@@ -142,7 +142,7 @@ def test_relative_index_is_one_for_the_average_km():
 # -- issue 17, point 10: time profiles on the street baseline and on crossings -----------------
 
 def _timed_profile(**over):
-    """The hand profile with a night profile on the baseline and crossings (0.25 at 22-06)."""
+    """Return the hand profile with a night profile on baseline and crossings (0.25, 22-06)."""
     doc = {
         "version": 1, "name": "hand-timed",
         "time_profiles": {
