@@ -373,8 +373,9 @@ class Suggester:
         self.tt = sc.tt
         self.km = sc.km
         self._sev_km = sc.sev * sc.km
-        self._fixed_risk = (sc.sev * sc.km * sc.base
-                            + sc.sev * sc.profile.crossing_weight * sc.cross)
+        # baseline and crossings at multiplier 1 (each has its own optional time profile)
+        self._base_risk = sc.sev * sc.km * sc.base
+        self._cross_risk = sc.sev * sc.profile.crossing_weight * sc.cross
         if sc.profile.rules:
             # minutes in force, counted cumulatively over three copies of the week, so a
             # window around any minute is one subtraction
@@ -388,9 +389,11 @@ class Suggester:
         """Return the risk of edges (all, or ``rows``) entered at the given minutes."""
         sc = self.scorer
         sel = slice(None) if rows is None else rows
-        mult = sc.mult_table[:, np.asarray(minutes) % MINUTES_PER_WEEK].T  # (k, C)
+        m = np.asarray(minutes) % MINUTES_PER_WEEK
+        mult = sc.mult_table[:, m].T  # (k, C)
         cat = self._sev_km[sel][:, None] * sc.w[None, :] * mult * sc.exp[sel]
-        return self._fixed_risk[sel] + cat.sum(axis=1)
+        return (self._base_risk[sel] * sc.base_mult[m] + self._cross_risk[sel] * sc.cross_mult[m]
+                + cat.sum(axis=1))
 
     def _closed(self, minutes: np.ndarray, slack_min: float,
                 rows: np.ndarray | None = None) -> np.ndarray:

@@ -13,7 +13,7 @@ import json
 import math
 import tomllib
 from collections.abc import Mapping
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, replace
 from functools import cached_property
 from pathlib import Path
 from typing import Any
@@ -22,14 +22,23 @@ import numpy as np
 import yaml
 
 from .errors import ProfileError
+from .severity import MPH_TO_KPH
 
 DAYS = ("mon", "tue", "wed", "thu", "fri", "sat", "sun")
-DECAYS = ("none", "linear", "gaussian")
+DECAYS = ("none", "linear", "gaussian", "gaussian_smooth")
 MINUTES_PER_WEEK = 7 * 24 * 60
 #: Largest weight, multiplier or baseline a profile may set: far above any sensible value,
 #: and small enough that every risk sum stays a finite number.
 MAX_FACTOR = 1e6
 DEFAULT_PROFILE = Path(__file__).with_name("data") / "default.yaml"
+#: The plain gaussian's nearness at the radius (sigma = radius / 2): exp(-2) = 0.135.
+GAUSS_AT_RADIUS = math.exp(-2.0)
+#: Exponents of the power model of speed and crash counts (Nilsson 2004, re-estimated by
+#: Elvik 2009, TOI report 1034) **[memory]**: crashes change with (v1 / v0) ** exponent.
+#: Nilsson's own powers were 4 / 3 / 2 (fatal / serious casualty / casualty crashes); the
+#: model is less applicable on urban arterials, with smaller powers (Cameron and Elvik 2010,
+#: Accident Analysis & Prevention 42(6):1908-1915, from its abstract).
+POWER_MODEL_EXPONENTS = {"fatal": 4.6, "serious_injury": 3.5, "injury": 2.0}
 
 
 @dataclass(frozen=True)
@@ -114,6 +123,8 @@ class Category:
         else:  # gaussian, sigma = radius / 2, so nearness is exp(-2) at the radius
             sigma = self.radius_m / 2.0
             val = np.exp(-0.5 * (d / sigma) ** 2)
+            if self.decay == "gaussian_smooth":  # shifted and rescaled: 1 at 0, 0 at radius
+                val = (val - GAUSS_AT_RADIUS) / (1.0 - GAUSS_AT_RADIUS)
         return np.where(inside, np.clip(val, 0.0, 1.0), 0.0)
 
 
@@ -148,6 +159,23 @@ class Band:
 
 
 @dataclass(frozen=True)
+class Likelihood:
+    """Crash likelihood by speed: the power model, relative to a reference speed.
+
+    ``crashes`` names the published exponent used (``custom`` when the profile sets one).
+    """
+
+    crashes: str
+    exponent: float
+    reference_mph: float
+
+    def factor(self, speed_kph: np.ndarray | float) -> np.ndarray:
+        """Return (speed / reference) ** exponent for speeds in km/h (1 at the reference)."""
+        v = np.clip(np.asarray(speed_kph, dtype=float), 0.0, None)
+        return (v / (self.reference_mph * MPH_TO_KPH)) ** self.exponent
+
+
+@dataclass(frozen=True)
 class Profile:
     """A validated, frozen exposure profile. Build it with :func:`load_profile`."""
 
@@ -166,6 +194,11 @@ class Profile:
     rules: tuple[Rule, ...]
     source: str = ""
     extra_hash: str = field(default="", repr=False)
+    #: Optional time profiles of the street baseline and of crossings (None: multiplier 1).
+    baseline_time_profile: str | None = None
+    crossing_time_profile: str | None = None
+    #: Optional crash likelihood by speed (None: off, crashes do not depend on speed).
+    likelihood: Likelihood | None = None
 
     @property
     def category_names(self) -> tuple[str, ...]:
@@ -207,7 +240,26 @@ class Profile:
         d = asdict(self)
         d.pop("source")
         d.pop("extra_hash")
+        for key in _OPTIONAL_FIELDS:  # unset: the same content (and fingerprint) as before
+            if d.get(key) is None:
+                d.pop(key, None)
         return d
+
+    def street_multipliers(self, minute_of_week: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Return the baseline's and the crossings' time multipliers at the given minutes."""
+        m = np.asarray(minute_of_week, dtype=int) % MINUTES_PER_WEEK
+        return (self.by_minute_of(self.baseline_time_profile)[m],
+                self.by_minute_of(self.crossing_time_profile)[m])
+
+    def by_minute_of(self, name: str | None) -> np.ndarray:
+        """Return the 10,080 multipliers of time profile ``name`` (ones for None)."""
+        tp = self.time_profile(name)
+        return np.ones(MINUTES_PER_WEEK) if tp is None else tp.by_minute
+
+    def likelihood_factor(self, speed_kph: np.ndarray) -> np.ndarray:
+        """Return each speed's crash likelihood factor (ones when the profile has none)."""
+        v = np.asarray(speed_kph, dtype=float)
+        return np.ones(v.shape) if self.likelihood is None else self.likelihood.factor(v)
 
     @cached_property
     def fingerprint(self) -> str:
@@ -318,6 +370,10 @@ _TOP_KEYS = {
     "version", "name", "description", "sample_spacing_m", "baseline", "time_profiles",
     "categories", "crossing_weight", "severity", "bands", "rules",
 }
+#: Optional parts of the risk model, read by :func:`_model_options` (unset: as before).
+_MODEL_KEYS = {"crossing_time_profile", "likelihood"}
+_TOP_KEYS = _TOP_KEYS | _MODEL_KEYS
+_OPTIONAL_FIELDS = ("baseline_time_profile", "crossing_time_profile", "likelihood")
 
 
 def parse_profile(data: Any, *, path: str | Path = "<profile>") -> Profile:
@@ -330,7 +386,8 @@ def parse_profile(data: Any, *, path: str | Path = "<profile>") -> Profile:
     name = r.text(d["name"], "name")
     spacing = r.number(d.get("sample_spacing_m", 10), "sample_spacing_m", strict=True, high=500)
 
-    bl = r.mapping(d.get("baseline", {}), "baseline", {"by_road_class", "default", "sidewalk"})
+    bl = r.mapping(d.get("baseline", {}), "baseline",
+                   {"by_road_class", "default", "sidewalk", "time_profile"})
     by_class = r.mapping(bl.get("by_road_class", {}), "baseline.by_road_class",
                          set(map(str, bl.get("by_road_class", {}) or {})))
     baseline = tuple(sorted(
@@ -465,7 +522,7 @@ def parse_profile(data: Any, *, path: str | Path = "<profile>") -> Profile:
     if len({ru.name for ru in rules}) != len(rules):
         raise r.fail("rules", "rule names must be unique")
 
-    return Profile(
+    return _model_options(r, d, Profile(
         name=name,
         description=str(d.get("description", "")).strip(),
         sample_spacing_m=spacing,
@@ -483,7 +540,42 @@ def parse_profile(data: Any, *, path: str | Path = "<profile>") -> Profile:
         rules=tuple(rules),
         source=str(path),
         extra_hash="".join(extra),
-    )
+    ))
+
+
+def _model_options(r: _Reader, d: Mapping[str, Any], prof: Profile) -> Profile:
+    """Return ``prof`` with the optional model parts of ``d`` read and checked."""
+    names = {t.name for t in prof.time_profiles}
+    found: dict[str, Any] = {}
+    bl = d.get("baseline") or {}
+    for key, value in (("baseline.time_profile", bl.get("time_profile")),
+                       ("crossing_time_profile", d.get("crossing_time_profile"))):
+        if value is not None and (not isinstance(value, str) or value not in names):
+            raise r.fail(key, f"unknown time profile {value!r}")
+        found[key] = value
+    like = None
+    if d.get("likelihood") is not None:
+        lk = r.mapping(d["likelihood"], "likelihood",
+                       {"model", "crashes", "exponent", "reference_mph"})
+        if lk.get("model", "power") != "power":
+            raise r.fail("likelihood.model", f"must be power, got {lk['model']!r}")
+        if "crashes" in lk and "exponent" in lk:
+            raise r.fail("likelihood.exponent",
+                         "give crashes (a published exponent) or exponent, not both")
+        if "exponent" in lk:
+            crashes = "custom"
+            exponent = r.number(lk["exponent"], "likelihood.exponent", high=10)
+        else:
+            crashes = lk.get("crashes", "injury")
+            if crashes not in POWER_MODEL_EXPONENTS:
+                raise r.fail("likelihood.crashes", "must be one of "
+                             f"{', '.join(POWER_MODEL_EXPONENTS)}, got {crashes!r}")
+            exponent = POWER_MODEL_EXPONENTS[crashes]
+        ref = r.number(lk.get("reference_mph", prof.reference_mph), "likelihood.reference_mph",
+                       strict=True, high=100)
+        like = Likelihood(crashes, exponent, ref)
+    return replace(prof, baseline_time_profile=found["baseline.time_profile"],
+                   crossing_time_profile=found["crossing_time_profile"], likelihood=like)
 
 
 def load_profile(path: str | Path | None = None) -> Profile:

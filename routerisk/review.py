@@ -79,7 +79,9 @@ LENGTH_BASIS = (
 HOUR_BASIS = (
     "closed_km_by_hour has 168 values, hour 0 = Monday 00:00-01:00 local time of the network; "
     "an edge is closed in an hour if any hard rule covering it is in force at any minute of "
-    "that hour."
+    "that hour. exposure_by_hour applies each category's time profile, and the baseline's "
+    "and the crossings' time profiles when the profile gives them (hour means of the "
+    "minute multipliers)."
 )
 INFLUENCE_BASIS = (
     "km_in_influence = clipped length x the edge's share of length inside the category's "
@@ -675,6 +677,13 @@ def _review_area(ctx: _Context, area: Area, *, at: int | None = None, top: int =
     fixed = float((km * (per_km - exp_mat @ weights)).sum())  # baseline and crossings
     by_cat = (km[:, None] * exp_mat * weights[None, :]).sum(axis=0)
     exposure_by_hour = fixed + ctx.hourly_mult @ by_cat
+    if prof.baseline_time_profile or prof.crossing_time_profile:
+        # baseline and crossings follow their own time profiles: the hour's mean multiplier
+        base_km = float((km * clip["baseline"].to_numpy(dtype=float)).sum())
+        base_h, cross_h = (np.asarray(a).reshape(HOURS_PER_WEEK, 60).mean(axis=1) for a in
+                           prof.street_multipliers(np.arange(MINUTES_PER_WEEK)))
+        exposure_by_hour = (base_km * base_h + (fixed - base_km) * cross_h
+                            + ctx.hourly_mult @ by_cat)
 
     cover, closed = _closed_matrix(clip, prof, ctx.force_hour)
     closed_by_hour = km @ closed
@@ -1200,7 +1209,23 @@ def _profile_section(review: Review) -> str:
                      caption="Exposure bands"),
         r.note_html(f"Crossing weight {prof.crossing_weight:g}; severity outcome "
                     f"{prof.severity_outcome}. The weights are the profile's, not data."),
+        r.note_html(_model_text(prof)),
         anchor_id="profile")
+
+
+def _model_text(prof: Profile) -> str:
+    """Return the profile section's note on the time of the baseline, decay steps and scope."""
+    from .scoring import model_note
+
+    base = prof.baseline_time_profile or "none (the same at all hours)"
+    parts = [f"Baseline time profile: {base}; crossing time profile: "
+             f"{prof.crossing_time_profile or 'none'}."]
+    steps = [c.name for c in prof.categories if c.decay == "gaussian"]
+    if steps:
+        parts.append(f"Gaussian decay ({', '.join(steps)}) is cut at the radius: nearness drops "
+                     "from exp(-2) = 0.135 to 0 there, a step (gaussian_smooth has none).")
+    parts.append(f"Risk {model_note(prof)}.")
+    return " ".join(parts)
 
 
 def review_html(review: Review) -> str:

@@ -18,7 +18,7 @@ import pandas as pd  # noqa: E402
 from shapely import LineString  # noqa: E402
 from shapely.ops import substring  # noqa: E402
 
-from . import CAUTION, mapview  # noqa: E402
+from . import CAUTION, mapview, scoring  # noqa: E402
 from ._io import dumps_json, write_text_atomic  # noqa: E402
 from .scoring import RouteScore  # noqa: E402
 
@@ -171,8 +171,15 @@ def route_map(net: Any, scores: list[RouteScore], *, tiles: str | None = None,
                      strict=True))
     mapview.add_panel(m, mapview.legend_html(title, items, extra=table + chart +
                                              f"<div>profile {mapview.escape(net.profile.name)}"
-                                             f" {mapview.escape(net.profile.fingerprint)}</div>"))
+                                             f" {mapview.escape(net.profile.fingerprint)}</div>"
+                                             + _model_html(net.profile)))
     return m
+
+
+def _model_html(profile: Any) -> str:
+    """Return the map panel's lines on the relative index and on what the risk models."""
+    return "".join(f"<div style='font-size:10px'>{mapview.escape(t)}</div>" for t in
+                   (scoring.RELATIVE_INDEX_NOTE, scoring.model_note(profile)))
 
 
 def output_meta(net: Any, inputs: dict[str, Any] | None = None) -> dict[str, Any]:
@@ -184,7 +191,9 @@ def output_meta(net: Any, inputs: dict[str, Any] | None = None) -> dict[str, Any
     from ._io import provenance
 
     prov = provenance(profile=net.profile.fingerprint, network=net, inputs=inputs)
-    return {**prov, "network_source_sha256": net.meta.get("source_sha256"), "caution": CAUTION}
+    return {**prov, "network_source_sha256": net.meta.get("source_sha256"), "caution": CAUTION,
+            "model": scoring.model_note(net.profile),
+            "relative_index_note": scoring.RELATIVE_INDEX_NOTE}
 
 
 def write_outputs(net: Any, scores: list[RouteScore], out: str | Path, *,
@@ -200,6 +209,7 @@ def write_outputs(net: Any, scores: list[RouteScore], out: str | Path, *,
     meta = output_meta(net, inputs)
     table = ranking_table(scores)
     csv_text = (f"# {CAUTION}\n# {provenance_line(meta)}\n"
+                f"# {scoring.RELATIVE_INDEX_NOTE}\n# {scoring.model_note(net.profile)}\n"
                 + _round_floats(table).to_csv(index=False, lineterminator="\n"))
     geojson = geojson_text(segments_gdf(net, scores), meta)
     m = route_map(net, scores, tiles=tiles)

@@ -2,10 +2,17 @@
 
 The risk of an edge entered at minute ``t`` of the week (area local time, Monday 00:00 = 0):
 
-    risk = severity * (length_km * (baseline + sum_c weight_c * mult_c(t) * exp_c)
-                       + crossing_weight * crossings)
+    risk = speed_factor * (length_km * (baseline * mult_b(t)
+                                        + sum_c weight_c * mult_c(t) * exp_c)
+                           + crossing_weight * mult_x(t) * crossings)
 
-split into parts: ``baseline``, ``crossings`` and one per category.
+split into parts: ``baseline``, ``crossings`` and one per category. ``mult_b`` and ``mult_x``
+are the profile's optional baseline and crossing time profiles (1 when unset). The speed
+factor is the severity given a crash (Tefft 2013) times, when the profile turns it on, the
+crash likelihood by speed (power model): :func:`speed_factor`.
+
+The relative index of a route is its risk over the risk of as many km of the area's average
+street at the same minutes under the same profile; it cannot be compared across profiles.
 """
 
 from __future__ import annotations
@@ -24,6 +31,43 @@ def minute_of_week(ts: pd.Timestamp | pd.DatetimeIndex | pd.Series) -> np.ndarra
         np.int64)
 
 
+#: How the relative index reads, said beside it on every output.
+RELATIVE_INDEX_NOTE = (
+    "relative index: route risk against as many km of the average street of the area at the "
+    "same minutes under the same profile (1.0 = as exposed as the area then); it cannot be "
+    "compared across profiles")
+
+
+def model_note(profile: Profile) -> str:
+    """Return one line naming the parts of "risk" the profile models and those it does not."""
+    timed = [what for what, name in (("baseline", profile.baseline_time_profile),
+                                     ("crossings", profile.crossing_time_profile)) if name]
+    exposure = ("exposure (street baseline, crossings and nearby land uses by time of week"
+                + (f"; {' and '.join(timed)} timed too" if timed else
+                   "; baseline and crossings constant over the week") + ")")
+    severity = (f"severity given a crash (Tefft 2013, {profile.severity_outcome.replace('_', ' ')}"
+                f", reference {profile.reference_mph:g} mph)")
+    like = profile.likelihood
+    likelihood = ("crash likelihood by speed (power model, Nilsson 2004 as re-estimated by "
+                  f"Elvik 2009: {like.crashes.replace('_', ' ')} exponent {like.exponent:g}, "
+                  f"reference {like.reference_mph:g} mph)" if like is not None else None)
+    modelled = ", ".join(x for x in (exposure, severity, likelihood) if x)
+    missing = ("" if like is not None else "crash likelihood by speed (off in this profile), "
+               ) + "traffic and pedestrian counts, sight lines, driver or vehicle behaviour"
+    return f"modelled: {modelled}; not modelled: {missing}"
+
+
+def speed_factor(edges: pd.DataFrame) -> np.ndarray:
+    """Return each edge's speed factor: severity given a crash x crash likelihood by speed.
+
+    The likelihood column is written by tagging; a network tagged without one counts 1.
+    """
+    sev = edges["severity"].to_numpy(dtype=float)
+    if "likelihood" in edges:
+        sev = sev * edges["likelihood"].to_numpy(dtype=float)
+    return sev
+
+
 def edge_risk_parts(edges: pd.DataFrame, profile: Profile, minutes: np.ndarray | int
                     ) -> pd.DataFrame:
     """Return the risk parts of each edge row driven at the given minute(s) of the week.
@@ -40,14 +84,15 @@ def edge_risk_parts(edges: pd.DataFrame, profile: Profile, minutes: np.ndarray |
     n = len(edges)
     mins = np.broadcast_to(np.asarray(minutes, dtype=np.int64), (n,))
     mult = profile.multipliers(mins)
-    sev = edges["severity"].to_numpy(dtype=float)
+    base_mult, cross_mult = profile.street_multipliers(mins)
+    sev = speed_factor(edges)
     km = edges["length"].to_numpy(dtype=float) / 1000.0
-    parts = {"baseline": sev * km * edges["baseline"].to_numpy(dtype=float)}
+    parts = {"baseline": sev * km * edges["baseline"].to_numpy(dtype=float) * base_mult}
     for j, c in enumerate(profile.categories):
         parts[c.name] = sev * km * c.weight * mult[:, j] * edges[f"exp_{c.name}"].to_numpy(
             dtype=float)
-    parts["crossings"] = sev * profile.crossing_weight * edges["crossings"].to_numpy(
-        dtype=float)
+    parts["crossings"] = sev * profile.crossing_weight * cross_mult * edges[
+        "crossings"].to_numpy(dtype=float)
     out = pd.DataFrame(parts, index=edges.index)
     out["total"] = out.sum(axis=1)
     return out
@@ -142,7 +187,7 @@ class Scorer:
         self.index = e.index
         self.km = e["length"].to_numpy(dtype=float) / 1000.0
         self.tt = e["travel_time"].to_numpy(dtype=float)
-        self.sev = e["severity"].to_numpy(dtype=float)
+        self.sev = speed_factor(e)  # severity given a crash x likelihood (when set)
         self.base = e["baseline"].to_numpy(dtype=float)
         self.cross = e["crossings"].to_numpy(dtype=float)
         self.names = e["name"].fillna("").astype(str).to_numpy()
@@ -154,6 +199,8 @@ class Scorer:
         self.mult_table = np.stack([
             (prof.time_profile(c.time_profile).by_minute if c.time_profile else ones)
             for c in prof.categories])  # (C, 10080)
+        self.base_mult = prof.by_minute_of(prof.baseline_time_profile)  # (10080,)
+        self.cross_mult = prof.by_minute_of(prof.crossing_time_profile)  # (10080,)
         self.rule_cover = np.column_stack(
             [e[f"rule_{i}"].to_numpy(dtype=bool) for i in range(len(prof.rules))]
         ) if prof.rules else np.zeros((len(e), 0), dtype=bool)
@@ -161,8 +208,11 @@ class Scorer:
             np.zeros((0, MINUTES_PER_WEEK), dtype=bool))
         # network-wide sums for the relative index (linear in the multipliers)
         total_km = self.km.sum()
-        self.avg_base = float((self.sev * self.km * self.base).sum() + (
-            self.sev * prof.crossing_weight * self.cross).sum()) / total_km
+        self.avg_base = float((self.sev * self.km * self.base).sum()) / total_km
+        self.avg_cross = float((self.sev * prof.crossing_weight * self.cross).sum()) / total_km
+        self.avg_fixed = float((self.sev * self.km * self.base).sum() + (
+            self.sev * prof.crossing_weight * self.cross).sum()) / total_km  # both untimed
+        self._street_timed = bool(prof.baseline_time_profile or prof.crossing_time_profile)
         self.avg_cat = (self.sev * self.km) @ (self.exp * self.w) / total_km  # (C,)
         self.tz = net.timezone
         nodes = net.nodes
@@ -191,8 +241,12 @@ class Scorer:
 
     def network_risk_per_km(self, minutes: np.ndarray) -> np.ndarray:
         """Return the network's length-weighted average risk per km at each minute."""
-        mult = self.mult_table[:, np.asarray(minutes) % MINUTES_PER_WEEK].T  # (n, C)
-        return self.avg_base + mult @ self.avg_cat
+        m = np.asarray(minutes) % MINUTES_PER_WEEK
+        mult = self.mult_table[:, m].T  # (n, C)
+        if not self._street_timed:  # the same sum, bit for bit, as before the street profiles
+            return self.avg_fixed + mult @ self.avg_cat
+        return (self.avg_base * self.base_mult[m] + self.avg_cross * self.cross_mult[m]
+                + mult @ self.avg_cat)
 
     def score(self, name: str, edges: list[tuple[int, int, int]], depart: _dt.datetime, *,
               fractions: np.ndarray | None = None) -> RouteScore:
@@ -206,8 +260,9 @@ class Scorer:
         mult = self.mult_table[:, minutes].T  # (n, C)
         sev = self.sev[pos]
         cat_parts = (sev * km)[:, None] * self.w[None, :] * mult * self.exp[pos]
-        base_part = sev * km * self.base[pos]
-        cross_part = sev * self.profile.crossing_weight * self.cross[pos] * frac
+        base_part = sev * km * self.base[pos] * self.base_mult[minutes]
+        cross_part = (sev * self.profile.crossing_weight * self.cross[pos] * frac
+                      * self.cross_mult[minutes])
         total = base_part + cat_parts.sum(axis=1) + cross_part
         risk = float(total.sum())
         length_km = float(km.sum())
@@ -263,8 +318,10 @@ class Scorer:
         frac, km, tt, enter_s, local, minutes = self._timeline(pos, depart, fractions)
         mult = self.mult_table[:, minutes].T
         sev = self.sev[pos]
-        risk = float((sev * km * (self.base[pos] + (mult * self.exp[pos]) @ self.w)).sum()
-                     + (sev * self.profile.crossing_weight * self.cross[pos] * frac).sum())
+        risk = float((sev * km * (self.base[pos] * self.base_mult[minutes]
+                                  + (mult * self.exp[pos]) @ self.w)).sum()
+                     + (sev * self.profile.crossing_weight * self.cross[pos] * frac
+                        * self.cross_mult[minutes]).sum())
         breaks = 0
         if self.profile.rules:
             breaks = int((self.rule_cover[pos] & self.rule_time[:, minutes].T).sum())

@@ -1,5 +1,8 @@
 """Tag every edge with its exposure per category, crossings, baseline and severity.
 
+With a ``likelihood`` block in the profile, edges also get a ``likelihood`` column: the
+power-model crash likelihood factor of their speed (see :class:`routerisk.profile.Likelihood`).
+
 Exposure of an edge for a category is the length average of the decayed nearness to the
 category's nearest source (or the sum over sources when the category ``stack``s), sampled at
 the midpoints of equal pieces of at most ``sample_spacing_m`` along the edge geometry, so a
@@ -221,6 +224,10 @@ def tag_edges(
     new["severity"] = severity_factor(edges["speed_kph"].to_numpy(dtype=float),
                                       outcome=profile.severity_outcome,
                                       reference_mph=profile.reference_mph)
+    if profile.likelihood is not None or "likelihood" in edges.columns:
+        # crash likelihood by speed (power model), only when the profile asks for it, so
+        # networks tagged without it keep their columns; scoring multiplies it with severity
+        new["likelihood"] = profile.likelihood_factor(edges["speed_kph"].to_numpy(dtype=float))
     # Exposure per km at multiplier 1 (the weights as given), and the band it falls in;
     # summed category by category (not a BLAS product, whose rounding depends on the
     # number of rows), so a tile of the network gets the same values as the whole.

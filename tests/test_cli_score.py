@@ -169,3 +169,34 @@ def test_bad_inputs_exit_2(town_net, town_dir, tmp_path, capsys):
     code, _, err = _run(capsys, "score", datasets.get_path("routes"), "--network", town_dir,
                         "--depart", "next tuesday")
     assert code == 2 and "--depart" in err
+
+
+def test_every_score_output_says_how_the_index_reads_and_what_is_modelled(town_dir, tmp_path,
+                                                                         capsys):
+    # issue 17, points 10 and 11: the relative index is "against the area at the same
+    # minutes under the same profile", and each output names what "risk" models.
+    import routerisk
+    from routerisk import mapview, scoring
+
+    assert "same minutes under the same profile" in routerisk.CAUTION
+    assert "do not model" in routerisk.CAUTION and "crash likelihood" in routerisk.CAUTION
+    routes = datasets.get_path("routes")
+    code, stdout, _ = _run(capsys, "score", routes, "--network", town_dir, "--json",
+                           "--out", tmp_path / "o")
+    data = json.loads(stdout)
+    assert code == 0 and data["relative_index_note"] == scoring.RELATIVE_INDEX_NOTE
+    assert "same minutes under the same profile" in data["relative_index_note"]
+    assert data["model"].startswith("modelled: exposure")
+    assert "severity given a crash" in data["model"]
+    assert "crash likelihood by speed (off in this profile)" in data["model"]
+    assert "baseline and crossings timed too" in data["model"]
+    csv = (tmp_path / "o" / "routes.csv").read_text()
+    page = (tmp_path / "o" / "map.html").read_text()
+    for note in (scoring.RELATIVE_INDEX_NOTE, data["model"]):
+        assert f"# {note}\n" in csv
+        assert mapview.escape(note) in page
+    meta = json.loads((tmp_path / "o" / "segments.geojson").read_text())["routerisk"]
+    assert meta["model"] == data["model"]
+    assert meta["relative_index_note"] == scoring.RELATIVE_INDEX_NOTE
+    code, text, _ = _run(capsys, "score", routes, "--network", town_dir)
+    assert code == 0 and scoring.RELATIVE_INDEX_NOTE in text and data["model"] in text

@@ -29,7 +29,7 @@ from shapely import LineString, Point
 
 from routerisk.alternatives import RouteGraph, Suggester
 from routerisk.network import Network
-from routerisk.profile import MINUTES_PER_WEEK, parse_profile
+from routerisk.profile import DECAYS, MINUTES_PER_WEEK, parse_profile
 from routerisk.scoring import Scorer, edge_risk_parts, minute_of_week
 from routerisk.tagging import tag_edges
 
@@ -183,8 +183,8 @@ def _walk(net: Network, steps: int, data) -> list[tuple[int, int, int]]:
 
 @settings(max_examples=40, **SETTINGS)
 @given(edges=edge_sets(), srcs=sources_st, extra=point, cat=st.sampled_from(CATS),
-       decay=st.tuples(st.sampled_from(["none", "linear", "gaussian"]),
-                       st.sampled_from(["none", "linear", "gaussian"])),
+       decay=st.tuples(st.sampled_from(DECAYS),
+                       st.sampled_from(DECAYS)),
        stack=st.tuples(st.booleans(), st.booleans()),
        radius=st.tuples(st.floats(5, 150), st.floats(5, 150)))
 def test_adding_a_source_never_lowers_exposure(edges, srcs, extra, cat, decay, stack, radius):
@@ -279,8 +279,8 @@ def _chain_network(lengths: list[int], turns: list[bool], prof, srcs, cross,
 @given(lengths=st.lists(st.integers(1, 8), min_size=1, max_size=4), data=st.data(),
        srcs=sources_st, cross=crossings_st, w=weights_st,
        stack=st.tuples(st.booleans(), st.booleans()),
-       decay=st.tuples(st.sampled_from(["none", "linear", "gaussian"]),
-                       st.sampled_from(["none", "linear", "gaussian"])))
+       decay=st.tuples(st.sampled_from(DECAYS),
+                       st.sampled_from(DECAYS)))
 def test_splitting_an_edge_keeps_the_route_risk(lengths, data, srcs, cross, w, stack, decay):
     turns = data.draw(st.lists(st.booleans(), min_size=len(lengths), max_size=len(lengths)))
     j = data.draw(st.integers(0, len(lengths) - 1))

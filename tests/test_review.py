@@ -604,3 +604,38 @@ def test_cli_text_and_option_errors(hand_dir: Path, tmp_path: Path,
         assert main(["review", str(areas), "--network", str(hand_dir), *extra]) == 2
         err = capsys.readouterr().err
         assert field in err and len(err.strip().splitlines()) == 1
+
+
+def test_exposure_by_hour_follows_baseline_and_crossing_time_profiles(tmp_path: Path) -> None:
+    # issue 17, point 10. The hand profile plus a "nights" time profile (0.5 from 00:00 to
+    # 06:00, else 1) on the baseline and the crossings, and crossing weight 0.1.
+    # In Centre: baseline 0.5 on 0.8 directed km = 0.4. Crossings count as exposure per km x
+    # km in the area: (250, 0) lies on both directions of Alder x 200-300, fully inside:
+    # 2 x 0.1 = 0.2; (20, 0) on both directions of Alder x 0-100, half inside: 2 x 0.1 x 0.5
+    # = 0.1. Categories are the same at Monday 02:00 and 12:00 (school 0.5 outside 07-09,
+    # park 1), so hour 12 - hour 2 = (1 - 0.5) x (0.4 + 0.3) = 0.35; without the keys, 0.
+    text = PROFILE_YAML.replace("crossing_weight: 0.0", "crossing_weight: 0.1").replace(
+        "time_profiles:\n", "time_profiles:\n  nights:\n    default: 1.0\n    windows:\n"
+        "      - {days: [mon, tue, wed, thu, fri, sat, sun], start: \"00:00\", "
+        "end: \"06:00\", multiplier: 0.5}\n")
+    plain_p = tmp_path / "plain.yaml"
+    plain_p.write_text(text, encoding="utf-8")
+    timed_p = tmp_path / "timed.yaml"
+    timed_p.write_text(text.replace("  default: 0.5\ntime_profiles:",
+                                    "  default: 0.5\n  time_profile: nights\ntime_profiles:")
+                       + "crossing_time_profile: nights\n", encoding="utf-8")
+    assert load_profile(timed_p).baseline_time_profile == "nights"
+    plain = _one(make_network(plain_p), CENTRE)["exposure_by_hour"]
+    timed = _one(make_network(timed_p), CENTRE)["exposure_by_hour"]
+    assert plain[12] - plain[2] == pytest.approx(0.0, abs=1e-9)
+    assert timed[12] - timed[2] == pytest.approx(0.35, abs=1e-9)
+    assert timed[12] == pytest.approx(plain[12], abs=1e-9)  # multiplier 1 at noon: as before
+
+
+def test_profile_section_names_time_of_baseline_decay_step_and_model_scope() -> None:
+    # issue 17, points 10-12: the report says how the baseline is timed, where a gaussian
+    # decay has its step at the radius, and what "risk" models.
+    text = review._model_text(load_profile())
+    assert "Baseline time profile: street_presence" in text
+    assert "Gaussian decay (retail) is cut at the radius" in text and "0.135" in text
+    assert "severity given a crash" in text and "not modelled" in text

@@ -137,3 +137,165 @@ def test_relative_index_is_one_for_the_average_km():
     risks = [sc.score("e", [e], _at(11, 0)).risk for e in all_edges]
     avg = sum(risks) / (0.1 * len(all_edges))
     assert float(sc.network_risk_per_km([11 * 60 + 1440])[0]) == pytest.approx(avg)
+
+
+# -- issue 17, point 10: time profiles on the street baseline and on crossings -----------------
+
+def _timed_profile(**over):
+    """Return the hand profile with a night profile on baseline and crossings (0.25, 22-06)."""
+    doc = {
+        "version": 1, "name": "hand-timed",
+        "time_profiles": {
+            "school_days": {"default": 1.0, "windows": [
+                {"days": ["mon", "tue", "wed", "thu", "fri"], "start": "08:00", "end": "09:00",
+                 "multiplier": 3.0}]},
+            "streets": {"default": 1.0, "windows": [
+                {"days": ["mon", "tue", "wed", "thu", "fri", "sat", "sun"], "start": "22:00",
+                 "end": "06:00", "multiplier": 0.25}]}},
+        "baseline": {"time_profile": "streets"},
+        "crossing_time_profile": "streets",
+        "categories": {
+            "school": {"select": [{"amenity": "school"}], "weight": 2.0, "radius_m": 50,
+                       "time_profile": "school_days"},
+            "retail": {"select": [{"shop": "*"}], "weight": 1.0, "radius_m": 30}},
+        "crossing_weight": 0.1,
+    }
+    doc.update(over)
+    return parse_profile(doc)
+
+
+def _with_profile(prof) -> Network:
+    net = hand_network()
+    return Network(net.edges, net.nodes, net.sources, net.crossings, prof, net.meta)
+
+
+def test_old_profile_without_street_time_profiles_scores_as_before():
+    # The hand profile has neither key: its fingerprint is the one the previous release gave
+    # it (f7319ddbdee442bf, computed with the code before this change), and at 02:00 the
+    # baseline and crossings keep their daytime values, exactly as the formula without them.
+    prof = _profile()
+    assert prof.baseline_time_profile is None and prof.crossing_time_profile is None
+    assert prof.fingerprint == "f7319ddbdee442bf"
+    night = Scorer(hand_network()).score("hand", ROUTE, _at(2, 0))
+    assert night.risk == pytest.approx(0.59, abs=1e-12)  # the 11:00 figure, by hand above
+    assert night.by_category["baseline"] == pytest.approx(0.17, abs=1e-12)
+    assert night.by_category["crossings"] == pytest.approx(0.2, abs=1e-12)
+
+
+def test_street_time_profile_scales_baseline_and_crossings_at_night():
+    net = _with_profile(_timed_profile())
+    day = Scorer(net).score("hand", ROUTE, _at(11, 0))
+    night = Scorer(net).score("hand", ROUTE, _at(2, 0))
+    assert day.risk == pytest.approx(0.59, abs=1e-12)  # multiplier 1 by day: as before
+    # at 02:00: baseline 0.17 x 0.25, crossings 0.2 x 0.25, categories unchanged
+    assert night.by_category["baseline"] == pytest.approx(0.17 * 0.25, abs=1e-12)
+    assert night.by_category["crossings"] == pytest.approx(0.2 * 0.25, abs=1e-12)
+    assert night.by_category["school"] == pytest.approx(day.by_category["school"], abs=1e-12)
+    assert night.risk == pytest.approx(0.59 - 0.75 * 0.37, abs=1e-12)
+    # the segments and the quick screen agree with the total
+    assert night.segments["risk"].sum() == pytest.approx(night.risk)
+    sc = Scorer(net)
+    assert sc.quick(sc.positions(ROUTE), _at(2, 0))[0] == pytest.approx(night.risk)
+
+
+def test_relative_index_compares_with_the_area_at_the_same_minutes_under_the_profile():
+    # Every edge of the network driven once at 02:00 is the area's average km then: index 1.
+    net = _with_profile(_timed_profile())
+    sc = Scorer(net)
+    edges = list(net.edges.index)
+    risks = [sc.score("e", [e], _at(2, 0)).risk for e in edges]
+    assert float(sc.network_risk_per_km([2 * 60 + 1440])[0]) == pytest.approx(
+        sum(risks) / (0.1 * len(edges)))
+
+
+def test_edge_risk_parts_follow_the_street_time_profiles():
+    from routerisk.scoring import edge_risk_parts
+
+    prof = _timed_profile()
+    net = _with_profile(prof)
+    day = edge_risk_parts(net.edges, prof, 1440 + 11 * 60)
+    night = edge_risk_parts(net.edges, prof, 1440 + 2 * 60)
+    assert night["baseline"].to_numpy() == pytest.approx(0.25 * day["baseline"].to_numpy())
+    assert night["crossings"].to_numpy() == pytest.approx(0.25 * day["crossings"].to_numpy())
+    assert night["school"].to_numpy() == pytest.approx(day["school"].to_numpy())
+
+
+def test_quiet_industrial_loop_at_night_on_the_sample_town(town_net, tmp_path):
+    # Sample town, default profile: the industrial loop is (nearly) street baseline only.
+    # Before, its risk stayed at the daytime figure at night while the area's fell, so its
+    # relative index rose from 0.30 to 0.47; now the baseline follows street_presence
+    # (0.2 at night, 1.0 on weekday daytime, judgment in configs/default.yaml).
+    import copy
+
+    import yaml
+
+    from routerisk import datasets, routes
+    from routerisk.profile import DEFAULT_PROFILE, load_profile
+    from routerisk.scoring import score_routes
+
+    loop = [r for r in routes.read_routes(datasets.get_path("routes"),
+                                          default_tz=town_net.timezone)
+            if r.name == "industrial-loop"]
+    tz = town_net.timezone
+    day_t, night_t = (dt.datetime(2027, 3, 11, h, 0, tzinfo=tz) for h in (10, 2))  # Thursday
+    day, night = score_routes(town_net, loop, [day_t, night_t])
+    assert night.by_category["baseline"] == pytest.approx(0.2 * day.by_category["baseline"])
+    assert night.risk < 0.25 * day.risk
+    assert night.relative_index <= day.relative_index
+    # the same profile without the two keys gives the old behaviour: night = day
+    doc = copy.deepcopy(yaml.safe_load(DEFAULT_PROFILE.read_text()))
+    doc["baseline"].pop("time_profile")
+    doc.pop("crossing_time_profile")
+    (tmp_path / "old.yaml").write_text(yaml.safe_dump(doc))
+    old = town_net.retag(load_profile(tmp_path / "old.yaml"))
+    oday, onight = score_routes(old, loop, [day_t, night_t])
+    assert oday.risk == pytest.approx(day.risk, rel=1e-12)  # weekday daytime: multiplier 1
+    assert onight.by_category["baseline"] == pytest.approx(oday.by_category["baseline"])
+    assert onight.relative_index > 1.4 * oday.relative_index
+
+
+# -- issue 17, point 11: crash likelihood by speed --------------------------------------------
+
+def test_likelihood_factor_enters_the_risk(tmp_path):
+    # Edges of the hand network at 40 km/h; reference 25 mph; injury exponent 2.0.
+    from routerisk.severity import MPH_TO_KPH
+
+    prof = _timed_profile(likelihood={"crashes": "injury", "reference_mph": 25})
+    net = _with_profile(prof)
+    edges = net.edges.copy()
+    edges["likelihood"] = prof.likelihood_factor(edges["speed_kph"].to_numpy())
+    net = Network(edges, net.nodes, net.sources, net.crossings, prof, net.meta)
+    s = Scorer(net).score("hand", ROUTE, _at(11, 0))
+    # Nilsson's power model, re-estimated by Elvik (2009), all injury crashes: exponent
+    # about 2.0 [memory, /work/shared/DOMAIN.md]
+    assert s.risk == pytest.approx(0.59 * (40.0 / (25 * MPH_TO_KPH)) ** 2.0, rel=1e-12)
+
+
+def test_likelihood_on_the_sample_town_multiplies_each_segment(town_net, tmp_path):
+    # A profile with the power model on (fatal crashes, exponent 4.6, Elvik 2009 [memory]):
+    # each segment's risk is the segment's risk without it x (speed / 25 mph) ** 4.6.
+    import copy
+
+    import yaml
+
+    from routerisk import datasets, routes
+    from routerisk.profile import DEFAULT_PROFILE, load_profile
+    from routerisk.scoring import model_note, score_routes
+    from routerisk.severity import MPH_TO_KPH
+
+    doc = copy.deepcopy(yaml.safe_load(DEFAULT_PROFILE.read_text()))
+    doc["likelihood"] = {"model": "power", "crashes": "fatal", "reference_mph": 25}
+    (tmp_path / "like.yaml").write_text(yaml.safe_dump(doc))
+    prof = load_profile(tmp_path / "like.yaml")
+    net = town_net.retag(prof)
+    assert "likelihood" in net.edges and "likelihood" not in town_net.edges
+    planned = routes.read_routes(datasets.get_path("routes"), default_tz=town_net.timezone)
+    off = score_routes(town_net, planned)
+    on = score_routes(net, planned)
+    for a, b in zip(off, on, strict=True):
+        pos = b.segments["_pos"].to_numpy()
+        speed = net.edges["speed_kph"].to_numpy()[pos]
+        want = a.segments["risk"].to_numpy() * (speed / (25 * MPH_TO_KPH)) ** 4.6
+        assert b.segments["risk"].to_numpy() == pytest.approx(want, rel=1e-9)
+    assert "crash likelihood by speed (power model" in model_note(prof)
+    assert "exponent 4.6" in model_note(prof) and "off in this profile" not in model_note(prof)

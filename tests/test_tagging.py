@@ -125,3 +125,36 @@ def test_tagging_in_small_chunks_gives_the_same_columns(town_net, monkeypatch):
     for c in cols:
         np.testing.assert_array_equal(chunked[c].to_numpy(), plain[c].to_numpy(), err_msg=c)
     assert plain["exp_school"].gt(0).any()
+
+
+def test_likelihood_column_only_when_the_profile_asks():
+    # Two edges at 25 mph and 27.5 mph (10 % faster); reference 25 mph, exponent 3.5
+    # (serious injury crashes, Elvik 2009 re-estimate of Nilsson's power model [memory]).
+    lines = [LineString([(0, 0), (100, 0)]), LineString([(0, 50), (100, 50)])]
+    edges = _edges(lines)
+    edges["speed_kph"] = [25 * 1.609344, 27.5 * 1.609344]
+    empty = gpd.GeoDataFrame({"category": []}, geometry=[], crs=CRS)
+    nocross = gpd.GeoDataFrame({"osmid": []}, geometry=[], crs=CRS)
+    off = tagging.tag_edges(edges, empty, nocross, _profile())
+    assert "likelihood" not in off.columns
+    on_prof = _profile(likelihood={"crashes": "serious_injury", "reference_mph": 25})
+    on = tagging.tag_edges(edges, empty, nocross, on_prof)
+    assert on["likelihood"].to_numpy() == pytest.approx([1.0, 1.1 ** 3.5])
+    # severity is still Tefft's alone; scoring multiplies the two
+    assert on["severity"].to_numpy() == pytest.approx(off["severity"].to_numpy())
+    # re-tagging tagged edges with a profile without it resets the column to 1
+    again = tagging.tag_edges(on, empty, nocross, _profile())
+    assert again["likelihood"].tolist() == [1.0, 1.0]
+
+
+def test_gaussian_smooth_decay_in_tagging():
+    # One sample 5 m from a point source, radius 20 (sigma 10): the shifted gaussian.
+    line = [LineString([(0, 0), (10, 0)])]
+    prof = _profile(sample_spacing_m=10, categories={"school": {
+        "select": [{"amenity": ["school"]}], "weight": 2.0, "radius_m": 20,
+        "decay": "gaussian_smooth"}})
+    src = gpd.GeoDataFrame({"category": ["school"]}, geometry=[Point(5, 5)], crs=CRS)
+    nocross = gpd.GeoDataFrame({"osmid": []}, geometry=[], crs=CRS)
+    out = tagging.tag_edges(_edges(line), src, nocross, prof)
+    want = (np.exp(-0.5 * (5 / 10) ** 2) - np.exp(-2)) / (1 - np.exp(-2))
+    assert out["exp_school"].iloc[0] == pytest.approx(want)

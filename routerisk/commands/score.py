@@ -52,6 +52,8 @@ def run(args: argparse.Namespace) -> int:
     if args.json:
         print(dumps_json({"routes": [s.to_dict() for s in scores],
                           "profile": net.profile.fingerprint,
+                          "model": scoring.model_note(net.profile),
+                          "relative_index_note": scoring.RELATIVE_INDEX_NOTE,
                           "made_from": provenance(profile=net.profile.fingerprint, network=net,
                                                   inputs={"routes": args.routes})}))
     else:
@@ -73,5 +75,7 @@ def run(args: argparse.Namespace) -> int:
                       f" at {words.when(b['time'])}")
         if args.out:
             print(f"wrote {args.out}")
+        print(f"{scoring.RELATIVE_INDEX_NOTE}.")
+        print(f"{scoring.model_note(net.profile)}.")
         print(CAUTION)
     return 0
