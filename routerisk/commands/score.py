@@ -17,8 +17,7 @@ SHORT_HEADINGS = ["rank", "route", "departs", "km", "min", "risk", "risk/km", "r
 #: what the text table's figures mean, printed under it
 RISK_WORDS = ("risk: pedestrian exposure weighted by the chance a struck pedestrian dies at "
               "the street's speed, summed along the route (points, comparable only under the "
-              "same profile); relative index: risk per km against the area's average km at the "
-              "same minutes under the same profile (1 = average); rank 1 = lowest total risk.")
+              "same profile); rank 1 = lowest total risk.")
 
 HELP = "score planned routes or recorded drives (GeoJSON, GPX, CSV) at departure times"
 
