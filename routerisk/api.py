@@ -23,8 +23,8 @@ from typing import TYPE_CHECKING, Literal
 from .errors import OptionError, RouteriskError
 from .results import (
     Areas,
-    EvidenceResult,
     Events,
+    EvidenceResult,
     PlanResult,
     ReviewResult,
     Routes,
@@ -90,13 +90,12 @@ def _profile(profile: Profile | str | Path | None) -> Profile | None:
     return load_profile(profile)
 
 
-def _departs(net: Network, departs: Sequence[Departure]) -> list[dt.datetime]:
+def _departs(net: Network, departs: Sequence[Departure] | Departure) -> list[dt.datetime]:
     from .scoring import parse_depart
 
-    if isinstance(departs, str | dt.datetime):
-        departs = [departs]
+    items = [departs] if isinstance(departs, str | dt.datetime) else list(departs)
     out = []
-    for d in departs:
+    for d in items:
         if not isinstance(d, str | dt.datetime):
             raise OptionError(f"must be datetimes or ISO 8601 text, got {type(d).__name__}",
                               field="departs")

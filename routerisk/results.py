@@ -20,7 +20,7 @@ from __future__ import annotations
 import json
 from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
-from typing import TYPE_CHECKING, TypeVar, Union, overload
+from typing import TYPE_CHECKING, TypeAlias, TypeVar, overload
 
 if TYPE_CHECKING:
     import folium
@@ -39,9 +39,10 @@ if TYPE_CHECKING:
     from .watch import WatchResult as _Watch
 
 #: A JSON value, as ``to_dict()`` returns it.
-JSON = Union[dict[str, "JSON"], list["JSON"], str, int, float, bool, None]
+JSON: TypeAlias = "dict[str, JSON] | list[JSON] | str | int | float | bool | None"
 
 T = TypeVar("T")
+_Slice: TypeAlias = "slice[int | None, int | None, int | None]"  # positions, as in ``routes[:2]``
 
 
 class _Items(Sequence[T]):
@@ -53,9 +54,9 @@ class _Items(Sequence[T]):
     def __getitem__(self, i: int) -> T: ...
 
     @overload
-    def __getitem__(self, i: slice) -> Sequence[T]: ...
+    def __getitem__(self, i: _Slice) -> Sequence[T]: ...
 
-    def __getitem__(self, i: int | slice) -> T | Sequence[T]:
+    def __getitem__(self, i: int | _Slice) -> T | Sequence[T]:
         """Return one item, or a tuple of items for a slice."""
         return self._items[i]
 
@@ -96,7 +97,7 @@ class Routes(_Items["PlannedRoute"]):
 
         rows = [{"route": r.name, "point": i, "lon": float(lon), "lat": float(lat),
                  "time": None if r.times is None else r.times[i].isoformat(),
-                 "required": bool(r.required[i])}
+                 "required": bool(r.required[i])}  # type: ignore[index]
                 for r in self._items for i, (lon, lat) in enumerate(r.lonlat)]
         return pd.DataFrame(rows, columns=["route", "point", "lon", "lat", "time", "required"])
 
@@ -258,7 +259,8 @@ class ScoreResult:
         """Return the map of the routes coloured by risk per km, with the risk chart."""
         from .routemap import route_map
 
-        return route_map(self.network, list(self.scores))
+        m: folium.Map = route_map(self.network, list(self.scores))
+        return m
 
 
 @dataclass(frozen=True)
@@ -320,7 +322,8 @@ class SuggestResult:
         """Return the map of plans and alternatives with their trade-off charts."""
         from .routemap import suggestion_map
 
-        return suggestion_map(self.network, list(self.suggestions))
+        m: folium.Map = suggestion_map(self.network, list(self.suggestions))
+        return m
 
 
 @dataclass(frozen=True)
@@ -359,7 +362,8 @@ class ReviewResult:
         """Return the map of the areas: streets by band, hot spots, clusters, sources."""
         from .review import review_map
 
-        return review_map(self.review)
+        m: folium.Map = review_map(self.review)
+        return m
 
 
 @dataclass(frozen=True)
@@ -400,8 +404,9 @@ class PlanResult:
         """Return the map of the day's runs (``map.html`` of ``plan --out``)."""
         from .routemap import route_map
 
-        return route_map(self.network, [opt.score for _, opt in self.plan.chosen()],
-                         title=f"Test runs on {self.plan.date.isoformat()}")
+        m: folium.Map = route_map(self.network, [opt.score for _, opt in self.plan.chosen()],
+                                  title=f"Test runs on {self.plan.date.isoformat()}")
+        return m
 
 
 @dataclass(frozen=True)
@@ -472,5 +477,6 @@ class WatchResult:
         from .watch import flag_map
 
         net = self.network
-        return flag_map(net, self.result, provenance(profile=net.profile.fingerprint,
-                                                     network=net))
+        m: folium.Map = flag_map(net, self.result, provenance(
+            profile=net.profile.fingerprint, network=net))
+        return m

@@ -25,7 +25,7 @@ DEPARTS = ["2027-03-09T08:05", "2027-03-09T14:00"]  # a Tuesday: school windows 
 
 @pytest.fixture(scope="module")
 def net(town_dir):
-    """The saved sample town, loaded the way the commands load it."""
+    """Load the saved sample town the way the commands load it."""
     return rr.load_network(town_dir)
 
 
@@ -49,7 +49,7 @@ def _cli(capsys, *argv: str) -> dict:
 
 
 def _same(result_dict: dict) -> dict:
-    """The result's dict as the command prints it (same serialiser, same key order)."""
+    """Return the result's dict as the command prints it (same serialiser and key order)."""
     return json.loads(dumps_json(result_dict))
 
 
