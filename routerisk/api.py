@@ -40,6 +40,7 @@ if TYPE_CHECKING:
 
     from .network import Network
     from .profile import Profile
+    from .routes import PlannedRoute
 
 __all__ = [
     "build_network", "load_network", "read_routes", "read_drives", "read_events", "read_areas",
@@ -176,7 +177,11 @@ def load_network(folder: str | Path, *, profile: Profile | str | Path | None = N
     Examples
     --------
     >>> import routerisk as rr
-    >>> net = rr.load_network("corvane-net")  # doctest: +SKIP
+    >>> from routerisk.network import save_network
+    >>> built = rr.build_network(rr.datasets.get_path("town"), timezone="Etc/GMT+3")
+    >>> folder = save_network(built, "corvane-net")  # what routerisk build --out writes
+    >>> rr.load_network(folder).summary() == built.summary()
+    True
     """
     from .network import load_network as _load
 
@@ -300,8 +305,8 @@ def read_areas(path: str | Path, *, crs: str | int | pyproj.CRS) -> Areas:
     --------
     >>> import routerisk as rr
     >>> areas = rr.read_areas(rr.datasets.get_path("area"), crs="EPSG:32624")
-    >>> len(areas)
-    1
+    >>> [a.name for a in areas]
+    ['corvane-main', 'corvane-northwest']
     """
     import pyproj
 
@@ -339,7 +344,7 @@ def read_runs(path: str | Path) -> Runs:
 # ---------------------------------------------------------------------------- analyses
 
 
-def score_routes(network: Network, routes: Sequence[object], *,
+def score_routes(network: Network, routes: Sequence[PlannedRoute], *,
                  departs: Sequence[Departure] | Departure = ()) -> ScoreResult:
     """Score routes or recorded drives at their departure times.
 
@@ -377,7 +382,7 @@ def score_routes(network: Network, routes: Sequence[object], *,
         return ScoreResult(tuple(_score(network, list(routes), times)), network)
 
 
-def suggest_routes(network: Network, routes: Sequence[object], *,
+def suggest_routes(network: Network, routes: Sequence[PlannedRoute], *,
                    departs: Sequence[Departure] | Departure = (), count: int = 3,
                    max_extra_time: float = 0.25, max_extra_length: float | None = None,
                    min_difference: float = 0.3, keep_every: int | None = None
@@ -471,8 +476,9 @@ def review_areas(network: Network, areas: Areas, *, at: str | None = None,
     >>> import routerisk as rr
     >>> net = rr.build_network(rr.datasets.get_path("town"), timezone="Etc/GMT+3")
     >>> areas = rr.read_areas(rr.datasets.get_path("area"), crs=net.crs)
-    >>> rr.review_areas(net, areas).to_frame()["network_km"].iloc[0] > 0
-    True
+    >>> review = rr.review_areas(net, areas, at="wed 08:15")
+    >>> list(review.to_frame()["area"])
+    ['corvane-main', 'corvane-northwest']
     """
     import pyproj
 

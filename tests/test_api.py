@@ -173,6 +173,20 @@ def test_watch_same_as_command(capsys, town_dir, net, drives):
 # ------------------------------------------------------------------ results and inputs
 
 
+def test_network_same_as_build(capsys, net, tmp_path):
+    doc = _cli(capsys, "build", str(datasets.get_path("town")), "--out", str(tmp_path / "n"),
+               "--timezone", "Etc/GMT+3", "--json")
+    built = rr.build_network(datasets.get_path("town"), timezone="Etc/GMT+3")
+    assert _same(built.to_dict()) == doc
+    summary = net.to_dict()  # the loaded folder has the same summary
+    assert summary == doc and summary["edges"] == len(net.to_frame())
+    gdf = net.to_geodataframe()
+    assert gdf.crs == net.crs and {"u", "v", "key", "geometry"} <= set(gdf.columns)
+    assert "geometry" not in net.to_frame().columns
+    assert gdf["length"].sum() / 1000 == pytest.approx(summary["length_km"], abs=1e-3)
+    assert isinstance(net.to_map(), folium.Map)
+
+
 def test_maps_carry_the_caution(net, routes):
     result = rr.score_routes(net, routes[:1], departs=DEPARTS[0])
     m = result.to_map()

@@ -60,3 +60,14 @@ def test_api_reference_builds(tmp_path):
     for name in routerisk.api.__all__:  # every top-level function has its entry ...
         assert f'id="{name}"' in top, name
     assert top.count("Parameters") >= len(routerisk.api.__all__)  # ... with its parameters
+
+
+def test_api_examples_run(tmp_path, monkeypatch):
+    import doctest
+
+    from routerisk import api
+
+    monkeypatch.chdir(tmp_path)
+    result = doctest.testmod(api, optionflags=doctest.ELLIPSIS, verbose=False)
+    assert result.attempted >= 3 * len(api.__all__) - 5  # every function's example ran
+    assert result.failed == 0
