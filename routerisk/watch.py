@@ -393,4 +393,5 @@ def write_outputs(net: Any, result: WatchResult, out: str | Path, *, force: bool
     return Path(out)
 
 
-__all__ = ["watch", "write_outputs", "match_events", "read_drives", "dt"]
+__all__ = ["watch", "watch_matched", "check_settings", "write_outputs", "flag_map", "match_events",
+           "read_drives", "match_drives", "drive_files", "dt"]

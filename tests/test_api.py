@@ -157,6 +157,27 @@ def test_evidence_same_as_command(capsys, town_dir, net, drives):
     assert frame["miles"].tolist() == [r["miles"] for r in doc["allowed_events"]]
 
 
+def test_evidence_from_scored_segments_same_as_command(capsys, town_dir, net, routes,
+                                                       tmp_path):
+    path = str(datasets.get_path("routes"))
+    main(["score", path, "--network", str(town_dir), "--depart", DEPARTS[0], "--out",
+          str(tmp_path / "o")])
+    capsys.readouterr()
+    doc = _cli(capsys, "evidence", "--benchmark", "11", "--per", "1e9", "--segments",
+               str(tmp_path / "o" / "segments.geojson"), "--json")
+    segments = rr.score_routes(net, routes, departs=DEPARTS[0]).to_geodataframe()
+    got = _same(rr.plan_evidence(benchmark=11, per=1e9, segments=segments).to_dict())
+    # the file holds the segments rounded to 6 decimals; the tables agree to that
+    for key in ("by_band", "by_category"):
+        assert len(got[key]) == len(doc[key]) > 0
+        for a, b in zip(got[key], doc[key], strict=True):
+            assert a.keys() == b.keys()
+            for k, v in a.items():
+                assert v == (pytest.approx(b[k], rel=1e-6) if isinstance(v, float) else b[k])
+    assert {k: v for k, v in got.items() if k not in ("by_band", "by_category")} == {
+        k: v for k, v in doc.items() if k not in ("by_band", "by_category")}
+
+
 def test_watch_same_as_command(capsys, town_dir, net, drives):
     events = str(datasets.get_path("events"))
     doc = _cli(capsys, "watch", events, "--drives", str(datasets.get_path("drives")),
