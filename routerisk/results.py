@@ -185,7 +185,8 @@ class Areas(_Items["Area"]):
     def to_frame(self) -> pd.DataFrame:
         """Return one row per area: name, area in km², source."""
         gdf = self.to_geodataframe()
-        gdf["area_km2"] = gdf.geometry.area / 1e6
+        metric = gdf.to_crs(gdf.estimate_utm_crs()) if gdf.crs.is_geographic else gdf
+        gdf["area_km2"] = metric.geometry.area.to_numpy() / 1e6
         return gdf[["name", "area_km2", "source"]].copy()
 
     def to_dict(self) -> dict[str, JSON]:

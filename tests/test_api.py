@@ -223,6 +223,12 @@ def test_inputs_convert(net, routes):
     assert [f["properties"]["name"] for f in routes.to_dict()["features"]] == list(gdf["name"])
     events = rr.read_events(datasets.get_path("events"), timezone=net.timezone)
     assert len(events.to_geodataframe()) == len(events) == len(events.to_dict()["events"])
+    projected = rr.read_areas(datasets.get_path("area"), crs=net.crs).to_frame()
+    lonlat = rr.read_areas(datasets.get_path("area"), crs="EPSG:4326").to_frame()
+    assert projected["area_km2"].min() > 1.0  # km², not m² nor square degrees
+    # the same areas measured in the network's UTM zone and in an estimated one
+    assert lonlat["area_km2"].tolist() == pytest.approx(projected["area_km2"].tolist(),
+                                                        rel=1e-3)
 
 
 # -------------------------------------------------------------- errors name parameters
