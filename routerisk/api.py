@@ -12,15 +12,14 @@ parameter (``"departs"``, ``"fdr"``), never a command-line option.
 
 from __future__ import annotations
 
-import contextlib
 import datetime as dt
-import re
-from collections.abc import Iterator, Mapping, Sequence
-from datetime import tzinfo
+from collections.abc import Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING, Literal
 
-from .errors import OptionError, RouteriskError
+from ._params import parameters
+from .errors import OptionError
+from .inputs import read_areas, read_drives, read_events, read_routes, read_runs
 from .results import (
     Areas,
     Events,
@@ -36,7 +35,6 @@ from .results import (
 
 if TYPE_CHECKING:
     import pandas as pd
-    import pyproj
 
     from .network import Network
     from .profile import Profile
@@ -48,39 +46,8 @@ __all__ = [
     "watch_events",
 ]
 
-#: A time zone: an IANA name such as ``"Etc/GMT+3"`` or a tzinfo (``net.timezone``).
-TimeZone = str | tzinfo
 #: A departure: an aware datetime, or a naive one / ISO 8601 text read in the network's zone.
 Departure = dt.datetime | str
-
-
-def _param(flag: str) -> str:
-    """Return the parameter name of a command-line option: ``--max-extra-time`` -> ...time."""
-    return flag[2:].replace("-", "_") if flag.startswith("--") else flag
-
-
-@contextlib.contextmanager
-def _parameters(names: Mapping[str, str] | None = None) -> Iterator[None]:
-    """Re-raise a library error that names command-line options with the parameter names.
-
-    ``names`` maps an option to its parameter where the plain rule (``--hours-per-day`` ->
-    ``hours_per_day``) does not give it.
-    """
-    try:
-        yield
-    except RouteriskError as exc:
-        table = dict(names or {})
-
-        def swap(m: re.Match[str]) -> str:
-            return table.get(m.group(0), _param(m.group(0)))
-
-        flag = re.compile(r"(?<![\w-])--[a-z][a-z0-9-]*")
-        field = exc.field
-        new_field = None if field is None else flag.sub(swap, field)
-        message = flag.sub(swap, exc.message)
-        if new_field == field and message == exc.message:
-            raise
-        raise type(exc)(message, path=exc.path, field=new_field) from exc
 
 
 def _profile(profile: Profile | str | Path | None) -> Profile | None:
@@ -100,7 +67,7 @@ def _departs(net: Network, departs: Sequence[Departure] | Departure) -> list[dt.
         if not isinstance(d, str | dt.datetime):
             raise OptionError(f"must be datetimes or ISO 8601 text, got {type(d).__name__}",
                               field="departs")
-        with _parameters({"--depart": "departs"}):
+        with parameters({"--depart": "departs"}):
             out.append(parse_depart(d if isinstance(d, str) else d.isoformat(), net.timezone))
     return out
 
@@ -150,7 +117,7 @@ def build_network(source: str | Path, *, profile: Profile | str | Path | None = 
     """
     from . import network
 
-    with _parameters({"--timezone": "timezone"}):
+    with parameters({"--timezone": "timezone"}):
         zone = None if timezone is None else network.check_timezone(timezone)
         return network.build_network(source, profile=_profile(profile), timezone=zone,
                                      largest_component=largest_component)
@@ -189,156 +156,9 @@ def load_network(folder: str | Path, *, profile: Profile | str | Path | None = N
     if overlay is not None:
         from .overlay import apply_overlay
 
-        with _parameters():
+        with parameters():
             net = apply_overlay(net, overlay)
     return net
-
-
-# ----------------------------------------------------------------------------- inputs
-
-
-def read_routes(path: str | Path, *, timezone: TimeZone | None = None) -> Routes:
-    """Read the routes of a GeoJSON, GPX or CSV file.
-
-    Parameters
-    ----------
-    path
-        GeoJSON lines (``name``, optional ``depart`` and ``required``), GPX tracks and routes,
-        or CSV ``route,lat,lon[,time][,required]``.
-    timezone
-        The zone of times written without an offset; pass the network's ``net.timezone``.
-        Without it such times are an error.
-
-    Returns
-    -------
-    Routes
-        A sequence of :class:`routerisk.routes.PlannedRoute`, in file order.
-
-    Examples
-    --------
-    >>> import routerisk as rr
-    >>> routes = rr.read_routes(rr.datasets.get_path("routes"), timezone="Etc/GMT+3")
-    >>> len(routes) > 0
-    True
-    """
-    from . import routes
-
-    return Routes(routes.read_routes(path, default_tz=timezone))
-
-
-def read_drives(folder: str | Path, *, timezone: TimeZone | None = None) -> Routes:
-    """Read every recorded drive (GPX, GeoJSON or CSV with times) in a folder.
-
-    Parameters
-    ----------
-    folder
-        The drives folder; its ``.gpx``, ``.geojson`` and ``.csv`` files are read in name
-        order.
-    timezone
-        The zone of times written without an offset (pass ``net.timezone``).
-
-    Returns
-    -------
-    Routes
-        The drives, named by their route name; their ``source`` is the file.
-
-    Examples
-    --------
-    >>> import routerisk as rr
-    >>> drives = rr.read_drives(rr.datasets.get_path("drives"), timezone="Etc/GMT+3")
-    >>> all(d.times is not None for d in drives)
-    True
-    """
-    from . import routes
-    from .watch import drive_files
-
-    with _parameters({"--drives": "folder"}):
-        files = drive_files(folder)
-    return Routes([r for f in files for r in routes.read_routes(f, default_tz=timezone)])
-
-
-def read_events(path: str | Path, *, timezone: TimeZone | None = None) -> Events:
-    """Read an event log (CSV ``time,lat,lon,type[,vehicle,severity]`` or GeoJSON points).
-
-    Parameters
-    ----------
-    path
-        The event log.
-    timezone
-        The zone of times written without an offset (pass ``net.timezone``); without it
-        such rows are rejected.
-
-    Returns
-    -------
-    Events
-        The accepted events and the rejected records with their reasons.
-
-    Examples
-    --------
-    >>> import routerisk as rr
-    >>> events = rr.read_events(rr.datasets.get_path("events"), timezone="Etc/GMT+3")
-    >>> len(events) > 0
-    True
-    """
-    from .early_warning import read_events as _read
-
-    good, bad = _read(path, tz=timezone)
-    return Events(good, bad, str(path))
-
-
-def read_areas(path: str | Path, *, crs: str | int | pyproj.CRS) -> Areas:
-    """Read the polygons of a proposed test area file (GeoJSON or GeoPackage).
-
-    Parameters
-    ----------
-    path
-        Polygon or MultiPolygon features in any CRS; the ``name`` property names each area.
-    crs
-        The CRS to project to: pass the network's ``net.crs``.
-
-    Returns
-    -------
-    Areas
-        The areas in file order.
-
-    Examples
-    --------
-    >>> import routerisk as rr
-    >>> areas = rr.read_areas(rr.datasets.get_path("area"), crs="EPSG:32624")
-    >>> [a.name for a in areas]
-    ['corvane-main', 'corvane-northwest']
-    """
-    import pyproj
-
-    from .review import read_areas as _read
-
-    target = pyproj.CRS.from_user_input(crs)
-    return Areas(_read(path, crs=target), target)
-
-
-def read_runs(path: str | Path) -> Runs:
-    """Read the runs of a test day (YAML or CSV) for :func:`plan_day`.
-
-    Parameters
-    ----------
-    path
-        The runs file; route files it names are resolved against its folder.
-
-    Returns
-    -------
-    Runs
-        The validated runs, in file order.
-
-    Examples
-    --------
-    >>> import routerisk as rr
-    >>> runs = rr.read_runs(rr.datasets.get_path("runs"))
-    >>> len(runs) > 0
-    True
-    """
-    from .planning import read_runs as _read
-
-    return Runs(_read(path))
 
 
 # ---------------------------------------------------------------------------- analyses
@@ -378,7 +198,7 @@ def score_routes(network: Network, routes: Sequence[PlannedRoute], *,
     from .scoring import score_routes as _score
 
     times = _departs(network, departs)
-    with _parameters({"--depart": "departs"}):
+    with parameters({"--depart": "departs"}):
         return ScoreResult(tuple(_score(network, list(routes), times)), network)
 
 
@@ -436,7 +256,7 @@ def suggest_routes(network: Network, routes: Sequence[PlannedRoute], *,
     _share(max_extra_length, "max_extra_length")
     _share(min_difference, "min_difference")
     times = _departs(network, departs)
-    with _parameters({"--depart": "departs"}):
+    with parameters({"--depart": "departs"}):
         found = _suggest(network, list(routes), times, count=count,
                          max_extra_time=max_extra_time, max_extra_length=max_extra_length,
                          min_difference=min_difference, keep_every=keep_every)
@@ -495,7 +315,7 @@ def review_areas(network: Network, areas: Areas, *, at: str | None = None,
     minute = None
     if at is not None:
         minute = review.parse_time(at, option="at")
-    with _parameters({"--high-from": "high_from", "--what-if": "what_ifs"}):
+    with parameters({"--high-from": "high_from", "--what-if": "what_ifs"}):
         high = review.high_bands_from(network.profile, high_from) if high_from else None
         scenarios = [review.parse_what_if(list(specs), network.profile) for specs in what_ifs]
         found = review.review_areas(network, list(areas), at=minute, what_ifs=scenarios,
@@ -550,7 +370,7 @@ def plan_day(network: Network, runs: Runs, date: dt.date | str, *, vehicles: int
     for name, value in (("vehicles", vehicles), ("step_min", step_min)):
         if not isinstance(value, int):
             raise OptionError(f"must be a whole number, got {value!r}", field=name)
-    with _parameters({"--step": "step_min", "--turnaround": "turnaround_min"}):
+    with parameters({"--step": "step_min", "--turnaround": "turnaround_min"}):
         found = _plan(network, list(runs), date, vehicles=vehicles, step_min=step_min,
                       turnaround_min=turnaround_min)
     return PlanResult(found, network)
@@ -615,7 +435,7 @@ def plan_evidence(*, benchmark: float, per: float, improvement: float = 0.2,
         raise OptionError("give drives or segments, not both", field="drives")
     if drives is not None and network is None:
         raise OptionError("drives need the network to match them to", field="network")
-    with _parameters({"--per": "per"}):
+    with parameters({"--per": "per"}):
         inputs = evidence.EvidenceInputs(
             benchmark=benchmark, per=per, improvement=improvement, confidence=confidence,
             power=power, units=units, fleet=fleet, hours_per_day=hours_per_day, speed=speed,
@@ -675,7 +495,7 @@ def watch_events(network: Network, events: Events, drives: Routes, *, fdr: float
     """
     from . import watch
 
-    with _parameters({"--fdr": "fdr", "--drives": "drives"}):
+    with parameters({"--fdr": "fdr", "--drives": "drives"}):
         watch.check_settings(q=fdr, shift=shift, arl0=arl0, group=group)
         if not len(drives):
             raise OptionError("holds no drive", field="drives")

@@ -65,9 +65,12 @@ def test_api_reference_builds(tmp_path):
 def test_api_examples_run(tmp_path, monkeypatch):
     import doctest
 
-    from routerisk import api
+    from routerisk import api, inputs
 
     monkeypatch.chdir(tmp_path)
-    result = doctest.testmod(api, optionflags=doctest.ELLIPSIS, verbose=False)
-    assert result.attempted >= 3 * len(api.__all__) - 5  # every function's example ran
-    assert result.failed == 0
+    attempted = 0
+    for module in (api, inputs):
+        result = doctest.testmod(module, optionflags=doctest.ELLIPSIS, verbose=False)
+        assert result.failed == 0, module.__name__
+        attempted += result.attempted
+    assert attempted >= 3 * len(api.__all__)  # every function's example ran
