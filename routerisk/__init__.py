@@ -8,6 +8,16 @@ The package is flat, one pipeline stage per module::
     routerisk.severity   impact speed -> pedestrian death / severe injury probability
     routerisk.tagging    per-edge exposure, crossings and severity
     routerisk.network    saved network folder (GeoPackage + metadata)
+
+The top-level functions (:mod:`routerisk.api`) are the front door for notebooks and scripts::
+
+    import routerisk as rr
+    net = rr.load_network("corvane-net")
+    routes = rr.read_routes("routes.geojson", timezone=net.timezone)
+    rr.score_routes(net, routes, departs=["2027-03-09T08:05"]).to_frame()
+
+They are imported on first use, so ``import routerisk`` stays light (no geopandas,
+matplotlib, folium or dask).
 """
 
 from __future__ import annotations
@@ -26,4 +36,32 @@ CAUTION = (
     "testing is allowed."
 )
 
-__all__ = ["CAUTION", "__version__"]
+#: The top-level functions, each imported from routerisk.api on first use.
+_API = (
+    "build_network", "load_network", "read_routes", "read_drives", "read_events", "read_areas",
+    "read_runs", "score_routes", "suggest_routes", "review_areas", "plan_day", "plan_evidence",
+    "watch_events",
+)
+#: Light modules reachable as attributes (``rr.datasets.get_path("town")``).
+_MODULES = ("datasets", "errors", "api", "results")
+
+__all__ = ["CAUTION", "__version__", *_API, *_MODULES]
+
+
+def __getattr__(name: str) -> object:
+    """Import a top-level function (from routerisk.api) or a module on first use."""
+    import importlib
+
+    if name in _API:
+        value: object = getattr(importlib.import_module(".api", __name__), name)
+    elif name in _MODULES:
+        value = importlib.import_module(f".{name}", __name__)
+    else:
+        raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+    globals()[name] = value
+    return value
+
+
+def __dir__() -> list[str]:
+    """List the public names, the lazy ones included."""
+    return sorted({*globals(), *__all__})

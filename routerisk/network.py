@@ -15,7 +15,7 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from functools import cached_property
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 import geopandas as gpd
@@ -30,6 +30,9 @@ from ._io import atomic_directory, dumps_json, sha256_file
 from ._osm import read_osm
 from .errors import NetworkFolderError, OptionError, ProfileError
 from .profile import Profile, load_profile, parse_profile
+
+if TYPE_CHECKING:
+    import folium
 
 log = logging.getLogger(__name__)
 
@@ -128,6 +131,24 @@ class Network:
             "profile": self.profile.fingerprint,
             "timezone": self.meta.get("timezone", "UTC"),
         }
+
+    def to_frame(self) -> pd.DataFrame:
+        """Return the tagged edges without geometry (``u``, ``v``, ``key`` as columns)."""
+        return pd.DataFrame(self.edges.reset_index().drop(columns="geometry"))
+
+    def to_geodataframe(self) -> gpd.GeoDataFrame:
+        """Return the tagged edges (``u``, ``v``, ``key`` as columns) in the network's CRS."""
+        return self.edges.reset_index()
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return the summary ``routerisk build --json`` prints."""
+        return self.summary()
+
+    def to_map(self, *, tiles: str | None = None) -> folium.Map:
+        """Return the offline folium map of the edges by exposure band, with the sources."""
+        from . import mapview
+
+        return mapview.network_map(self, tiles=tiles)
 
     def retag(self, profile: Profile, *, tagger: Callable[..., gpd.GeoDataFrame] | None = None
               ) -> Network:

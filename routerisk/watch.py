@@ -79,8 +79,8 @@ class WatchResult:
                 "events_rejected": rej}
 
 
-def read_drives(net: Any, folder: str | Path, index: Any = None) -> list[Drive]:
-    """Read and map-match every drive with times in ``folder``."""
+def drive_files(folder: str | Path) -> list[Path]:
+    """Return the .gpx, .geojson and .csv files of a drives folder, sorted by name."""
     d = Path(folder)
     if not d.is_dir():
         raise InputFileError("drives folder not found", path=d, field="--drives")
@@ -88,23 +88,36 @@ def read_drives(net: Any, folder: str | Path, index: Any = None) -> list[Drive]:
     if not files:
         raise InputFileError("no .gpx, .geojson or .csv drives in the folder", path=d,
                              field="--drives")
+    return files
+
+
+def read_drives(net: Any, folder: str | Path, index: Any = None) -> list[Drive]:
+    """Read and map-match every drive with times in ``folder``."""
+    idx = index or matching.RoadIndex(net.graph)
+    out = []
+    for f in drive_files(folder):
+        out += match_drives(net, routes.read_routes(f, default_tz=net.timezone), idx)
+    return out
+
+
+def match_drives(net: Any, drives: list[Any], index: Any = None) -> list[Drive]:
+    """Map-match recorded drives (routes with times, named ``<file name>:<route name>``)."""
     idx = index or matching.RoadIndex(net.graph)
     eidx = net.edges.index
     km = net.edges["length"].to_numpy() / 1000.0
     out = []
-    for f in files:
-        for r in routes.read_routes(f, default_tz=net.timezone):
-            if r.times is None:
-                raise InputFileError("a drive needs a time at every point", path=f,
-                                     field=f"route {r.name!r}")
-            m = matching.match_trace(idx, r)
-            mi = pd.MultiIndex.from_tuples(list(m.edges), names=eidx.names)
-            pos = eidx.get_indexer(mi)
-            fe = np.asarray(m.point_edge)
-            fix_edge = np.where(fe >= 0, pos[np.clip(fe, 0, len(pos) - 1)], -1)
-            times = pd.DatetimeIndex(list(r.times)).tz_convert("UTC").as_unit("ns").asi8
-            out.append(Drive(f"{f.name}:{r.name}", times, fix_edge, pos,
-                             km[pos] * np.asarray(m.fractions)))
+    for r in drives:
+        if r.times is None:
+            raise InputFileError("a drive needs a time at every point", path=r.source or None,
+                                 field=f"route {r.name!r}")
+        m = matching.match_trace(idx, r)
+        mi = pd.MultiIndex.from_tuples(list(m.edges), names=eidx.names)
+        pos = eidx.get_indexer(mi)
+        fe = np.asarray(m.point_edge)
+        fix_edge = np.where(fe >= 0, pos[np.clip(fe, 0, len(pos) - 1)], -1)
+        times = pd.DatetimeIndex(list(r.times)).tz_convert("UTC").as_unit("ns").asi8
+        out.append(Drive(f"{Path(r.source).name}:{r.name}", times, fix_edge, pos,
+                         km[pos] * np.asarray(m.fractions)))
     return out
 
 
@@ -165,7 +178,15 @@ def _hour_label(ts: pd.Series, tz: Any) -> pd.Series:
 def watch(net: Any, events_path: str | Path, drives_folder: str | Path, *, q: float = 0.1,
           shift: float = 2.0, arl0: float = 500.0, group: str = "street",
           use_exposure: bool = True, pvalue: str = "poisson") -> WatchResult:
-    """Run the early-warning analysis; see the module docstring."""
+    """Run the early-warning analysis on an event log and a drives folder."""
+    check_settings(q=q, shift=shift, arl0=arl0, group=group)
+    good, bad = early_warning.read_events(events_path, tz=net.timezone)
+    return watch_matched(net, good, bad, read_drives(net, drives_folder), q=q, shift=shift,
+                         arl0=arl0, group=group, use_exposure=use_exposure, pvalue=pvalue)
+
+
+def check_settings(*, q: float, shift: float, arl0: float, group: str) -> None:
+    """Raise OptionError for a setting of :func:`watch` out of range."""
     if group not in GROUPS:
         raise OptionError(f"must be one of {', '.join(GROUPS)}", field="--group")
     if not 0 < q < 1:
@@ -174,7 +195,17 @@ def watch(net: Any, events_path: str | Path, drives_folder: str | Path, *, q: fl
         raise OptionError(f"must be above 1, got {shift}", field="--shift")
     if not arl0 > 1:
         raise OptionError(f"must be above 1, got {arl0}", field="--arl0")
-    good, bad = early_warning.read_events(events_path, tz=net.timezone)
+
+
+def watch_matched(net: Any, good: pd.DataFrame, bad: pd.DataFrame, drives: list[Drive], *,
+                  q: float = 0.1, shift: float = 2.0, arl0: float = 500.0,
+                  group: str = "street", use_exposure: bool = True,
+                  pvalue: str = "poisson") -> WatchResult:
+    """Run the early-warning analysis on read events (good, rejected) and matched drives.
+
+    See the module docstring; :func:`watch` reads the files and calls this.
+    """
+    check_settings(q=q, shift=shift, arl0=arl0, group=group)
     rejected = bad[["row", "reason"]].copy() if len(bad) else pd.DataFrame(
         columns=["row", "reason"])
     if len(good):  # times beyond the nanosecond calendar cannot be placed on any drive
@@ -186,7 +217,6 @@ def watch(net: Any, events_path: str | Path, drives_folder: str | Path, *, q: fl
                 "reason": f"time outside the years {YEARS[0]}-{YEARS[1]}"})],
                 ignore_index=True)
             good = good.loc[~odd].reset_index(drop=True)
-    drives = read_drives(net, drives_folder)
     matched, off = match_events(net, good, drives)
     rejected = pd.concat([rejected, off], ignore_index=True).sort_values("row", kind="stable")
     edges = net.edges
@@ -283,6 +313,35 @@ def cusum_chart(result: WatchResult, groups: list[str]) -> bytes:
     return report.png_bytes(fig)
 
 
+def flag_map(net: Any, result: WatchResult, prov: dict[str, Any] | None = None) -> Any:
+    """Return the map of the network with the flagged segments (folium), with provenance."""
+    import geopandas as gpd
+
+    from . import mapview
+
+    flagged = result.segments[result.segments["flagged"]]
+    edges = net.edges.reset_index()
+    ll = net.edges.to_crs("EPSG:4326").total_bounds
+    m = mapview.new_map(tuple(ll))
+    edges["_c"] = "#b9b4a8"
+    edges["street"] = edges["name"].fillna("")
+    mapview.add_lines(m, edges, name="network", colour_col="_c", fields={}, weight=2,
+                      opacity=0.6)
+    if len(flagged):
+        fl = flagged.merge(edges[["u", "v", "key", "geometry"]], on=["u", "v", "key"])
+        fl = gpd.GeoDataFrame(fl, geometry="geometry", crs=net.crs)
+        fl["_c"] = "#c1121f"
+        mapview.add_lines(m, fl, name="flagged segments", colour_col="_c", weight=7,
+                          fields={"street": "street", "events": "events",
+                                  "expected": "expected", "eb_rate": "EB rate per km",
+                                  "p_value": "p-value"})
+    mapview.add_panel(m, mapview.legend_html("Early warnings", [
+        ("#c1121f", "segment flagged (FDR-controlled)"), ("#b9b4a8", "network")]))
+    if prov is not None:
+        mapview.add_provenance(m, prov)
+    return m
+
+
 def write_outputs(net: Any, result: WatchResult, out: str | Path, *, force: bool = False,
                   close: bool = False, inputs: dict[str, Any] | None = None) -> Path:
     """Write overlay.yaml, segments.csv, map.html and report.html into ``out``.
@@ -305,26 +364,7 @@ def write_outputs(net: Any, result: WatchResult, out: str | Path, *, force: bool
         (tmp / "segments.csv").write_text(
             f"# {CAUTION}\n# {provenance_line(prov)}\n"
             + seg[cols].round(6).to_csv(index=False, lineterminator="\n"), encoding="utf-8")
-        edges = net.edges.reset_index()
-        ll = net.edges.to_crs("EPSG:4326").total_bounds
-        m = mapview.new_map(tuple(ll))
-        edges["_c"] = "#b9b4a8"
-        edges["street"] = edges["name"].fillna("")
-        mapview.add_lines(m, edges, name="network", colour_col="_c", fields={}, weight=2,
-                          opacity=0.6)
-        if len(flagged):
-            fl = flagged.merge(edges[["u", "v", "key", "geometry"]], on=["u", "v", "key"])
-            import geopandas as gpd
-
-            fl = gpd.GeoDataFrame(fl, geometry="geometry", crs=net.crs)
-            fl["_c"] = "#c1121f"
-            mapview.add_lines(m, fl, name="flagged segments", colour_col="_c", weight=7,
-                              fields={"street": "street", "events": "events",
-                                      "expected": "expected", "eb_rate": "EB rate per km",
-                                      "p_value": "p-value"})
-        mapview.add_panel(m, mapview.legend_html("Early warnings", [
-            ("#c1121f", "segment flagged (FDR-controlled)"), ("#b9b4a8", "network")]))
-        mapview.add_provenance(m, prov)
+        m = flag_map(net, result, prov)
         (tmp / "map.html").write_text(mapview.render(m), encoding="utf-8")
         groups = list(result.alerts["group"].astype(str)[:5]) or list(
             result.periods.groupby("group")["events"].sum().sort_values(ascending=False)
@@ -353,4 +393,5 @@ def write_outputs(net: Any, result: WatchResult, out: str | Path, *, force: bool
     return Path(out)
 
 
-__all__ = ["watch", "write_outputs", "match_events", "read_drives", "dt"]
+__all__ = ["watch", "watch_matched", "check_settings", "write_outputs", "flag_map", "match_events",
+           "read_drives", "match_drives", "drive_files", "dt"]

@@ -59,13 +59,28 @@ def test_window_too_short_is_reported(town_net, tmp_path):
     assert p.schedule.unplaced[0].reason
 
 
-def test_cli_json(town_dir, capsys):
+def test_cli_json(town_dir, plan, capsys):
     code = main(["plan", str(datasets.get_path("runs")), "--network", str(town_dir),
                  "--date", DATE.isoformat(), "--json"])
     data = json.loads(capsys.readouterr().out)
     assert code == 0
-    assert set(data) >= {"date", "runs", "total_risk", "naive_total_risk", "status"}
-    assert set(data["runs"][0]) >= {"name", "vehicle", "start", "end", "risk", "route"}
+    # the command prints the plan the library makes with its defaults (2 vehicles, 15 min)
+    assert data == json.loads(json.dumps(plan.to_dict()))
+    assert data["date"] == "2027-03-09" and data["status"] == "optimal"
+    assert data["unplaced"] == []
+    runs = planning.read_runs(datasets.get_path("runs"))
+    assert len(data["runs"]) == sum(r.repeat for r in runs)  # every repetition placed
+    assert data["total_risk"] == pytest.approx(sum(r["risk"] for r in data["runs"]), abs=1e-5)
+    assert data["total_risk"] <= data["naive_total_risk"]
+    window = {r.name: (r.earliest, r.latest) for r in runs}
+    for r in data["runs"]:
+        assert r["vehicle"] in ("av-1", "av-2") and r["rule_breaks"] == 0
+        assert r["start"].startswith("2027-03-09T") and r["start"] < r["end"]
+        start = int(r["start"][11:13]) * 60 + int(r["start"][14:16])
+        end_day = int(r["end"][8:10]) - 9
+        end = end_day * 1440 + int(r["end"][11:13]) * 60 + int(r["end"][14:16])
+        lo, hi = window[r["name"]]
+        assert lo <= start and end <= hi + 1  # inside the run's window (minute rounding)
 
 
 def test_cli_bad_date(town_dir, capsys):

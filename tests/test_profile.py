@@ -126,13 +126,22 @@ def test_time_profile_multipliers():
     assert m[:, j].tolist() == [3.0, 1.0, 0.2]
 
 
-def test_window_past_midnight():
-    prof = load_profile()
-    from routerisk.profile import Window
+def test_window_past_midnight(tmp_path, doc):
+    from routerisk.profile import MINUTES_PER_WEEK, Window
+
     w = Window(("sun",), 23 * 60, 60)  # Sunday 23:00 to Monday 01:00
-    mins = set(w.minutes().tolist())
-    assert 6 * 1440 + 23 * 60 in mins and 30 in mins and 90 not in mins
-    assert prof is not None
+    mins = w.minutes().tolist()
+    # exactly the two hours, wrapping from the end of the week to its start (Monday 00:00 = 0)
+    assert sorted(mins) == [*range(60), *range(6 * 1440 + 23 * 60, MINUTES_PER_WEEK)]
+    # the same window read from a profile file gives its multiplier in those minutes only
+    doc["time_profiles"] = {**doc.get("time_profiles", {}), "late": {
+        "default": 1.0, "windows": [{"days": ["sun"], "start": "23:00", "end": "01:00",
+                                     "multiplier": 3.0}]}}
+    prof = load_profile(_write(tmp_path, doc))
+    by_minute = prof.time_profile("late").by_minute
+    assert by_minute[6 * 1440 + 23 * 60] == 3.0 and by_minute[59] == 3.0
+    assert by_minute[60] == 1.0 and by_minute[6 * 1440 + 23 * 60 - 1] == 1.0
+    assert int((by_minute == 3.0).sum()) == 120
 
 
 # -- issue 17: time profiles on baseline and crossings, likelihood by speed, smooth gaussian --

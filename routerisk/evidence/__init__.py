@@ -39,6 +39,9 @@ from .exposure import (
 from .exposure import (
     segments_from_drives as segments_from_drives,
 )
+from .exposure import (
+    segments_of_drives as segments_of_drives,
+)
 from .formulas import (
     DAYS_PER_YEAR,
     MAX_ALLOWED_EVENTS,

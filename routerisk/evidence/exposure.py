@@ -195,29 +195,45 @@ def segments_from_drives(net: Any, folder: str | Path) -> pd.DataFrame:
     ``infl_<category>`` from the network, the input :func:`distance_by_exposure` takes.
     """
     from .. import matching, routes
+    from ..watch import drive_files
 
-    d = Path(folder)
-    if not d.is_dir():
-        raise InputFileError("drives folder not found", path=d, field="--drives")
-    files = sorted(p for p in d.iterdir() if p.suffix.lower() in (".gpx", ".geojson", ".csv"))
-    if not files:
-        raise InputFileError("no .gpx, .geojson or .csv drives in the folder", path=d,
-                             field="--drives")
     idx = matching.RoadIndex(net.graph)
+    frames = []
+    for f in drive_files(folder):
+        frames += _drive_segments(net, routes.read_routes(f, default_tz=net.timezone), idx)
+    return pd.concat(frames, ignore_index=True)
+
+
+def segments_of_drives(net: Any, drives: list[Any]) -> pd.DataFrame:
+    """Map-match read drives (routes) and return their driven segments.
+
+    The same frame as :func:`segments_from_drives`, for routes already read; each drive is
+    named ``<file name>:<route name>``.
+    """
+    from .. import matching
+
+    if not drives:
+        raise InputFileError("no drive given", field="drives")
+    return pd.concat(_drive_segments(net, drives, matching.RoadIndex(net.graph)),
+                     ignore_index=True)
+
+
+def _drive_segments(net: Any, drives: list[Any], idx: Any) -> list[pd.DataFrame]:
+    from .. import matching
+
     edges = net.edges
     cats = net.profile.category_names
     frames = []
-    for f in files:
-        for r in routes.read_routes(f, default_tz=net.timezone):
-            m = matching.to_edges(idx, r)
-            mi = pd.MultiIndex.from_tuples(list(m.edges), names=edges.index.names)
-            pos = edges.index.get_indexer(mi)
-            part = pd.DataFrame({
-                "drive": f"{f.name}:{r.name}",
-                "length_m": edges["length"].to_numpy()[pos] * np.asarray(m.fractions),
-                "band": edges["band"].to_numpy()[pos],
-            })
-            for c in cats:
-                part[f"infl_{c}"] = edges[f"infl_{c}"].to_numpy()[pos]
-            frames.append(part)
-    return pd.concat(frames, ignore_index=True)
+    for r in drives:
+        m = matching.to_edges(idx, r)
+        mi = pd.MultiIndex.from_tuples(list(m.edges), names=edges.index.names)
+        pos = edges.index.get_indexer(mi)
+        part = pd.DataFrame({
+            "drive": f"{Path(r.source).name}:{r.name}",
+            "length_m": edges["length"].to_numpy()[pos] * np.asarray(m.fractions),
+            "band": edges["band"].to_numpy()[pos],
+        })
+        for c in cats:
+            part[f"infl_{c}"] = edges[f"infl_{c}"].to_numpy()[pos]
+        frames.append(part)
+    return frames
