@@ -252,8 +252,10 @@ class Service:
             depart = None
             if spec.get("depart") is not None:
                 depart = self.departs({"depart": spec["depart"]}, key="depart")[0]
+            # via points shape the plan; ``suggest`` keeps them only when marked required
+            keep = bool(spec.get("keep_vias", False))
             return [routes.PlannedRoute(name.strip(), lonlat,
-                                        required=np.ones(len(lonlat), dtype=bool),
+                                        required=np.full(len(lonlat), keep, dtype=bool),
                                         depart=depart)]
         if "geojson" in spec:
             gj = spec["geojson"]
