@@ -249,7 +249,7 @@ def walk_through(s: Session, url: str, *, points: list[tuple[float, float]],
     s.click("#btn-compare-csv")
     out["csv"] = s.wait_download(".csv")
     shot("compare")
-    out["body_text"] = s.js("document.body.innerText")
+    out["body_text"] = s.js("document.body.textContent")
     out["tooltips"] = s.js("(() => { const t = []; netLayer.eachLayer(g => g.eachLayer(l => "
                            "{ const x = l.getTooltip(); if (x) t.push(x.getContent()"
                            ".textContent); })); return t; })()")

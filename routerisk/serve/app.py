@@ -379,9 +379,9 @@ class Service:
 
         area = doc.get("area")
         if isinstance(area, dict) and "file" in area:
-            path = up.write_file(area["file"], role=None)
+            path = up.write_file(area["file"], role="areas")
         elif isinstance(area, dict):
-            path = up.write("area.geojson", dumps_json(area), role=None)
+            path = up.write("area.geojson", dumps_json(area), role="areas")
         elif isinstance(area, str):
             raise RequestError(_PATH_REFUSED)
         else:

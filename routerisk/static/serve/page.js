@@ -36,7 +36,7 @@ async function api(path, body, label) {
     const resp = await fetch(path, body === undefined ? { headers, signal: ctl.signal } :
       { method: "POST", headers, body: JSON.stringify(body), signal: ctl.signal });
     const type = resp.headers.get("content-type") || "";
-    const doc = type.includes("json") ? await resp.json() : { text: await resp.text() };
+    const doc = type.startsWith("application/json") ? await resp.json() : { text: await resp.text() };
     if (!resp.ok) { showError(doc.error || ("request failed: " + resp.status)); return null; }
     if (doc.made_from) showProvenance(doc.made_from);
     return doc;
@@ -578,13 +578,13 @@ function nextSchoolMorning() {
   for (const r of info.rules) {
     const lab = el("label"); const box = el("input"); box.type = "checkbox"; box.checked = true;
     box.dataset.rule = r; lab.appendChild(box); lab.appendChild(document.createTextNode(" rule in force: " + r));
-    rt.appendChild(lab); rt.appendChild(el("br"));
+    rt.appendChild(lab);
   }
   const wi = $("weight-inputs");
   for (const c of info.categories) {
     const lab = el("label", c.label + " weight "); const inp = el("input");
     inp.type = "number"; inp.min = "0"; inp.step = "0.1"; inp.placeholder = "as is"; inp.dataset.cat = c.name;
-    lab.appendChild(inp); wi.appendChild(lab); wi.appendChild(document.createTextNode(" "));
+    lab.appendChild(inp); wi.appendChild(lab);
   }
   loadNetwork();
 })();
