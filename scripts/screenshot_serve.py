@@ -25,6 +25,7 @@ DEPART = ("2027-03-09", "08:10")  # a Tuesday at school arrival
 
 
 def main() -> int:
+    """Serve the sample town, walk through every pane, save the screenshots."""
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--out", type=Path, default=Path("serve_shots"))
     args = ap.parse_args()

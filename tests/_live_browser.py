@@ -18,7 +18,7 @@ import urllib.request
 from pathlib import Path
 from typing import Any
 
-from ._browser import CHROMIUM, FLAGS, _CDP, _free_port
+from ._browser import _CDP, CHROMIUM, FLAGS, _free_port
 
 
 class Session:

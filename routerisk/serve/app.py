@@ -57,7 +57,7 @@ from starlette.applications import Starlette
 from starlette.middleware import Middleware
 from starlette.middleware.trustedhost import TrustedHostMiddleware
 from starlette.requests import Request
-from starlette.responses import FileResponse, JSONResponse, Response
+from starlette.responses import FileResponse, Response
 from starlette.routing import Mount, Route
 from starlette.staticfiles import StaticFiles
 
@@ -76,8 +76,8 @@ EXPORT_STEP_M = 15.0
 #: Hosts the page answers when bound to loopback (a guard against DNS rebinding).
 LOOPBACK_HOSTS = ("127.0.0.1", "localhost", "::1", "[::1]")
 _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._ -]{0,120}$")
-TOKEN_HEADER = "x-routerisk-token"
-TOKEN_COOKIE = "routerisk_token"
+TOKEN_HEADER = "x-routerisk-token"  # noqa: S105 - a header name, not a secret
+TOKEN_COOKIE = "routerisk_token"  # noqa: S105 - a cookie name, not a secret
 
 
 class RequestError(Exception):
@@ -155,6 +155,10 @@ class Service:
         self.scorer = scoring.Scorer(net)
         self.scorer.positions([])  # build the lazy look-up before threads share it
         self.scorer._headings()
+        from ..alternatives import Suggester
+
+        self.suggester = Suggester(self.scorer)
+        self.suggester.g.time_tree(0, 1.0)  # build the lazy matrices before threads share them
         e = net.edges
         self.geoms_ll = gpd.GeoSeries(e.geometry.to_numpy(), crs=e.crs).to_crs(
             "EPSG:4326").to_numpy()
@@ -286,35 +290,33 @@ class Service:
                     substring(g, 0.0, f, normalized=True) if i == n - 1 else g
             pieces.append(g)
         feats = []
-        cats = [c for c in self.scorer.cats]
-        for i, g in enumerate(pieces):
-            xy = shapely.get_coordinates(g)
-            lon, lat = self._to_ll.transform(xy[:, 0], xy[:, 1])
-            row = seg.iloc[i]
+        cats = list(self.scorer.cats)
+        seq, street = seg["seq"].to_numpy(), seg["street"].to_numpy()
+        risk, length_m = seg["risk"].to_numpy(), seg["length_m"].to_numpy()
+        band, when = seg["band"].to_numpy(), seg["time"].to_numpy()
+        parts = np.column_stack([seg[f"part_{c}"].to_numpy() for c in cats]) if cats else \
+            np.zeros((len(seg), 0))
+        xy, which = shapely.get_coordinates(pieces, return_index=True)
+        ll = np.round(np.column_stack(self._to_ll.transform(xy[:, 0], xy[:, 1])), 6)
+        cuts = np.searchsorted(which, np.arange(1, len(pieces)))
+        for i, coords in enumerate(np.split(ll, cuts)):
             feats.append({"type": "Feature", "geometry": {
-                "type": "LineString",
-                "coordinates": [[round(float(a), 6), round(float(b), 6)]
-                                for a, b in zip(lon, lat, strict=True)]},
+                "type": "LineString", "coordinates": coords.tolist()},
                 "properties": {
-                    "seq": int(row["seq"]), "street": str(row["street"]),
-                    "risk": round(float(row["risk"]), 6),
-                    "risk_per_km": round(float(row["risk"]) / max(row["length_m"], 1e-9)
-                                         * 1000.0, 6),
-                    "band": str(row["band"]), "time": str(row["time"]),
-                    "parts": {c: round(float(row[f"part_{c}"]), 6) for c in cats}}})
+                    "seq": int(seq[i]), "street": str(street[i]), "risk": _r6(risk[i]),
+                    "risk_per_km": _r6(risk[i] / max(length_m[i], 1e-9) * 1000.0),
+                    "band": str(band[i]), "time": str(when[i]),
+                    "parts": {c: _r6(parts[i, j]) for j, c in enumerate(cats)}}})
         # the driven line, dense enough to be read back as a trace (see EXPORT_STEP_M)
-        coords = []
-        for g in pieces:
-            xy = shapely.get_coordinates(shapely.segmentize(g, EXPORT_STEP_M))
-            for p in xy:
-                if not coords or np.hypot(*(p - coords[-1])) > 1e-6:
-                    coords.append(p)
-        xy = np.array(coords)
-        lon, lat = self._to_ll.transform(xy[:, 0], xy[:, 1])
+        dense = shapely.get_coordinates(shapely.segmentize(np.array(pieces, dtype=object),
+                                                           EXPORT_STEP_M))
+        step = np.hypot(*np.diff(dense, axis=0).T)
+        dense = dense[np.concatenate([[True], step > 1e-6])]
+        lon, lat = self._to_ll.transform(dense[:, 0], dense[:, 1])
+        line = np.round(np.column_stack([lon, lat]), 7)
         return {"name": s.name, "depart": s.depart.isoformat(),
                 "segments": {"type": "FeatureCollection", "features": feats},
-                "line": [[round(float(a), 7), round(float(b), 7)]
-                         for a, b in zip(lon, lat, strict=True)]}
+                "line": line.tolist()}
 
     # ---------------------------------------------------------------- the endpoints' work
 
@@ -322,7 +324,8 @@ class Service:
         """Score the route(s) of a request as ``routerisk score`` does."""
         departs = self.departs(doc)
         planned = self.route_input(doc, up)
-        scores = scoring.score_routes(self.net, planned, departs, index=self.index)
+        scores = scoring.score_routes(self.net, planned, departs, index=self.index,
+                                     scorer=self.scorer)
         return {"routes": [s.to_dict() for s in scores], "drawn": [self.drawn(s) for s in scores],
                 "profile": self.net.profile.fingerprint}
 
@@ -365,7 +368,8 @@ class Service:
         departs = self.departs(doc)
         planned = self.route_input(doc, up)
         result = suggest_routes(self.net, planned, departs, count=count,
-                                keep_every=keep_every, index=self.index, **shares)
+                                keep_every=keep_every, index=self.index,
+                                suggester=self.suggester, **shares)
         drawn = []
         for s in result:
             drawn.append({"planned": self.drawn(s.planned),
@@ -489,6 +493,10 @@ class Service:
                 "zoom": zoom, "metres_per_pixel": round(mpp, 3)}
 
 
+def _r6(x: float) -> float:
+    return round(float(x), 6)
+
+
 _PATH_REFUSED = ("the server reads no file by path; send the file's content "
                  "(open it on the page)")
 
@@ -597,7 +605,7 @@ def _is_data(exc: RouteriskError) -> bool:
     return type(exc).__name__ in ("EmptyNetworkError",)
 
 
-def create_app(net: Any, *, token: str | None = None, loopback: bool = True,
+def create_app(net: Any, *, token: str | None = None, loopback: bool = True,  # noqa: C901
                max_upload: int = MAX_UPLOAD_BYTES, workers: int = 4) -> Starlette:
     """Return the ASGI application on a loaded network.
 
