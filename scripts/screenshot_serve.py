@@ -45,10 +45,11 @@ def main() -> int:
     with tempfile.TemporaryDirectory() as dl, LiveServer(create_app(net)) as server, \
             Session(downloads=Path(dl)) as s:
         seen = walk_through(s, server.url, points=POINTS, corners=CORNERS, depart=DEPART,
-                            shots=args.out)
+                            plan_files=[datasets.get_path("runs"), datasets.get_path("routes")],
+                            plan_date=DEPART[0], shots=args.out)
         problems = s.seen()
     print(f"score {seen['score']}, picked {seen['picked_label']} {seen['picked']}, "
-          f"area {seen['area_km']} km; console errors: {len(problems['errors'])}")
+          f"area {seen['area_km']} km; {seen.get('plan_summary')}; console errors: {len(problems['errors'])}")
     for name in ("route", "week", "area", "plan", "compare"):
         print(args.out / f"{name}.png")
     return 0

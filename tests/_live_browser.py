@@ -121,6 +121,13 @@ class Session:
         """Return the text of ``selector``."""
         return self.js(f"document.querySelector({json.dumps(selector)}).textContent")
 
+    def set_files(self, selector: str, files: list[Path]) -> None:
+        """Choose ``files`` in the file input ``selector`` (as a person picking them would)."""
+        root = self.cdp.call("DOM.getDocument")["root"]["nodeId"]
+        node = self.cdp.call("DOM.querySelector", nodeId=root, selector=selector)["nodeId"]
+        self.cdp.call("DOM.setFileInputFiles", nodeId=node, files=[str(f) for f in files])
+        self.cdp.drain(0.3)
+
     def screenshot(self, path: Path) -> None:
         """Save a PNG of the window."""
         shot = self.cdp.call("Page.captureScreenshot", format="png")
@@ -193,6 +200,7 @@ class LiveServer:
 
 def walk_through(s: Session, url: str, *, points: list[tuple[float, float]],
                  corners: list[tuple[float, float]], depart: tuple[str, str],
+                 plan_files: list[Path] | None = None, plan_date: str = "",
                  shots: Path | None = None) -> dict[str, Any]:
     """Use every pane of the planning page as a person would; return what the page showed.
 
@@ -243,6 +251,14 @@ def walk_through(s: Session, url: str, *, points: list[tuple[float, float]],
     out["area_ring"] = s.js("S.area")
     shot("area")
     s.click("#tabs button[data-pane=plan]")
+    if plan_files:
+        s.set_files("#plan-files", plan_files)
+        s.wait(f"$('plan-files-list').textContent.split(', ').length === {len(plan_files)}")
+        s.js(f"$('plan-date').value = {json.dumps(plan_date)}; true")
+        s.click("#btn-plan")
+        s.wait("!$('plan-result').hidden && $('busy').hidden", timeout=120)
+        out["plan_summary"] = s.text("#plan-summary")
+        out["plan_rows"] = s.js("$('plan-rows').children.length")
     shot("plan")
     s.click("#tabs button[data-pane=compare]")
     out["compare_rows"] = s.js("$('compare-rows').children.length")

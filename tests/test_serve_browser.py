@@ -11,12 +11,13 @@ payload shows as text.
 from __future__ import annotations
 
 import dataclasses
+import datetime as dt
 
 import numpy as np
 import pytest
 from shapely.geometry import Polygon
 
-from routerisk import CAUTION, review, routes
+from routerisk import CAUTION, datasets, dayplan, planning, review, routes
 from routerisk.scoring import parse_depart, score_routes
 from routerisk.serve.app import create_app
 
@@ -46,7 +47,9 @@ def test_planning_page_end_to_end(hostile_net, tmp_path):
     downloads = tmp_path / "downloads"
     downloads.mkdir()
     with LiveServer(create_app(hostile_net)) as server, Session(downloads=downloads) as s:
-        seen = walk_through(s, server.url, points=POINTS, corners=CORNERS, depart=DEPART)
+        seen = walk_through(s, server.url, points=POINTS, corners=CORNERS, depart=DEPART,
+                            plan_files=[datasets.get_path("runs"), datasets.get_path("routes")],
+                            plan_date=DEPART[0])
         problems = s.seen()
     net, tz = hostile_net, hostile_net.timezone
     depart = parse_depart("T".join(DEPART), tz)
@@ -74,6 +77,12 @@ def test_planning_page_end_to_end(hostile_net, tmp_path):
     figures = review.review_areas(net, [review.Area("drawn area", 0, geom, "", "")])
     assert seen["area_km"] == f"{figures.areas[0]['network_km']:.3f}"
     assert float(seen["area_km"]) > 1.0
+
+    # the day plan of the runs file opened on the page is the plan command's
+    plan = dayplan.plan_day(net, planning.read_runs(datasets.get_path("runs")),
+                            dt.date.fromisoformat(DEPART[0])).to_dict()
+    assert f"total risk {plan['total_risk']:.3f}" in seen["plan_summary"]
+    assert seen["plan_rows"] == len(plan["runs"])
 
     # the comparison holds the plan and the alternatives, downloadable with the caution
     assert seen["compare_rows"] >= 2

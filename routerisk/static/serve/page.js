@@ -86,6 +86,7 @@ function riskColour(perKm) {
 /* ------------------------------------------------------------------ map */
 
 const map = L.map("map", { zoomControl: true, preferCanvas: false });
+map.attributionControl.setPrefix('<a href="static/leaflet/LICENSE" target="_blank">Leaflet</a> (BSD-2), served locally');
 const netLayer = L.layerGroup().addTo(map);
 const srcLayer = L.layerGroup().addTo(map);
 const routeLayer = L.layerGroup().addTo(map);
