@@ -215,7 +215,7 @@ def walk_through(s: Session, url: str, *, points: list[tuple[float, float]],
     out: dict[str, Any] = {}
     s.goto(url)
     s.wait("typeof S !== 'undefined' && S.info !== null && netLayer.getLayers().length > 0")
-    s.wait("document.querySelectorAll('#map path').length > 50")
+    s.wait("S.networkShown > 50")
     for lat, lon in points:
         s.click_map(lat, lon)
     out["placed"] = s.js("S.points.length")

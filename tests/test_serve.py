@@ -321,3 +321,41 @@ def test_loopback_server_refuses_other_host_names(client):
 def test_non_loopback_host_needs_a_token(town_dir, capsys):
     err = _cli_error(capsys, ["serve", "--network", str(town_dir), "--host", "0.0.0.0"])
     assert "--token" in err and "loopback" in err
+
+
+def test_kept_via_points_are_kept_as_suggest_keeps_required_points(client, town_dir, tmp_path,
+                                                                   capsys):
+    pts = _waypoints()
+    doc = _ok(client.post("/api/alternatives", json={
+        "route": {"waypoints": pts, "name": "clicked", "keep_vias": True},
+        "departs": ["2027-03-09T15:05"], "max_extra_time": 0.5}))
+    f = tmp_path / "clicked.geojson"
+    f.write_text(json.dumps({"type": "FeatureCollection", "features": [{
+        "type": "Feature", "properties": {"name": "clicked", "required": [0, 1, 2]},
+        "geometry": {"type": "LineString", "coordinates": pts}}]}))
+    cli = _cli(capsys, ["suggest", str(f), "--network", str(town_dir), "--json",
+                        "--depart", "2027-03-09T15:05", "--max-extra-time", "0.5"])
+    assert doc["routes"] == cli["routes"]
+    loose = _ok(client.post("/api/alternatives", json={
+        "route": {"waypoints": pts, "name": "clicked"},
+        "departs": ["2027-03-09T15:05"], "max_extra_time": 0.5}))
+    assert loose["routes"] != doc["routes"]  # the via point constrains the search
+
+
+def test_serve_command_loads_the_network_and_prints_the_address(town_dir, capsys,
+                                                                monkeypatch):
+    import uvicorn
+
+    started = {}
+    monkeypatch.setattr(uvicorn, "run", lambda app, **kw: started.update(app=app, **kw))
+    assert main(["serve", "--network", str(town_dir), "--port", "9876"]) == 0
+    out = capsys.readouterr().out
+    assert "http://127.0.0.1:9876/" in out and CAUTION in out
+    assert started["host"] == "127.0.0.1" and started["port"] == 9876
+    c = TestClient(started["app"], base_url="http://127.0.0.1")
+    assert _ok(c.get("/api/info"))["edges"] > 0
+    assert main(["serve", "--network", str(town_dir), "--host", "0.0.0.0",
+                 "--token", "long-enough-secret"]) == 0
+    assert "?token=long-enough-secret" in capsys.readouterr().out
+    err = _cli_error(capsys, ["serve", "--network", str(town_dir), "--demo"])
+    assert "--network DIR or --demo" in err

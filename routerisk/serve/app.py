@@ -169,15 +169,15 @@ class Service:
         v = e.index.get_level_values(1).to_numpy()
         length = e["length"].to_numpy(dtype=float)
         # one feature per street segment: the two directions of a two-way street share a key
-        key = [(min(a, b), max(a, b), round(x, 1)) for a, b, x in zip(u, v, length, strict=True)]
-        order = np.lexsort((np.arange(len(e)), -rank))
-        seen: set[tuple[Any, ...]] = set()
-        keep = []
-        for i in order:
-            if key[i] not in seen:
-                seen.add(key[i])
-                keep.append(i)
-        keep_a = np.sort(np.array(keep, dtype=np.int64))
+        # (end nodes in either order and the length to 0.1 m); the higher band is kept
+        import pandas as pd
+
+        keys = pd.DataFrame({"a": np.minimum(u, v), "b": np.maximum(u, v),
+                             "m": np.round(length, 1), "rank": -rank,
+                             "row": np.arange(len(e))})
+        first = keys.sort_values(["rank", "row"], kind="stable").drop_duplicates(
+            ["a", "b", "m"])
+        keep_a = np.sort(first["row"].to_numpy(dtype=np.int64))
         self._view_rows = keep_a
         self._view_tree = shapely.STRtree(self.geoms_ll[keep_a])
         self._rank = rank
@@ -473,11 +473,14 @@ class Service:
             hits = np.sort(hits[order[:MAX_FEATURES]])
         tol = mpp / 111_320.0
         geoms = shapely.simplify(self.geoms_ll[hits], tol, preserve_topology=False)
+        digits = 6 if zoom >= 15 else 5
+        xy, which = shapely.get_coordinates(geoms, return_index=True)
+        xy = np.round(xy, digits)
+        cuts = np.searchsorted(which, np.arange(1, len(hits)))
         feats = []
-        for i, g in zip(hits, geoms, strict=True):
-            xy = np.round(shapely.get_coordinates(g), 6)
+        for i, coords in zip(hits, np.split(xy, cuts) if len(hits) else [], strict=True):
             feats.append({"type": "Feature",
-                          "geometry": {"type": "LineString", "coordinates": xy.tolist()},
+                          "geometry": {"type": "LineString", "coordinates": coords.tolist()},
                           "properties": {"band": self._bands[i], "street": self._names[i],
                                          "km": round(float(self._length[i]) / 1000.0, 4)}})
         inside = np.flatnonzero((self._src_xy[:, 0] >= w) & (self._src_xy[:, 0] <= e)
@@ -554,7 +557,9 @@ def _answer(svc: Service, payload: dict[str, Any], up: _Upload | None,
     payload = dict(payload)
     payload.setdefault("made_from", svc.made_from(up))
     payload["caution"] = CAUTION
-    return Response(dumps_json(payload), status_code=status, media_type="application/json")
+    body = json.dumps(payload, sort_keys=True, separators=(",", ":"), ensure_ascii=False,
+                      allow_nan=False)
+    return Response(body, status_code=status, media_type="application/json")
 
 
 def _error(svc: Service, message: str, status: int, up: _Upload | None = None) -> Response:
@@ -679,8 +684,7 @@ def create_app(net: Any, *, token: str | None = None, loopback: bool = True,  # 
          for name in ("score", "week", "alternatives", "review", "plan")]
     middleware = []
     if loopback:
-        middleware.append(Middleware(TrustedHostMiddleware, allowed_hosts=[
-            *LOOPBACK_HOSTS, "testserver"]))
+        middleware.append(Middleware(TrustedHostMiddleware, allowed_hosts=list(LOOPBACK_HOSTS)))
     if token:
         middleware.append(Middleware(_TokenCheck, token=token))
     app = Starlette(routes=[

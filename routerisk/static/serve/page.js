@@ -87,6 +87,7 @@ function riskColour(perKm) {
 
 const map = L.map("map", { zoomControl: true, preferCanvas: false });
 map.attributionControl.setPrefix('<a href="static/leaflet/LICENSE" target="_blank">Leaflet</a> (BSD-2), served locally');
+const netCanvas = L.canvas({ padding: 0.2 });  // thousands of street segments: one canvas
 const netLayer = L.layerGroup().addTo(map);
 const srcLayer = L.layerGroup().addTo(map);
 const routeLayer = L.layerGroup().addTo(map);
@@ -102,8 +103,9 @@ async function loadNetwork() {
   if (!resp.ok) return;
   const doc = await resp.json();
   clearLayerGroups([netLayer, srcLayer]);
+  S.networkShown = doc.edges.features.length;
   L.geoJSON(doc.edges, {
-    interactive: true,
+    interactive: true, renderer: netCanvas,
     style: (f) => ({ color: bandColour(f.properties.band), weight: 2, opacity: 0.55 }),
     onEachFeature: (f, layer) => tip(layer, (f.properties.street || "unnamed street") + " · " +
       f.properties.band),
@@ -113,7 +115,7 @@ async function loadNetwork() {
   for (const s of doc.sources) {
     const c = cats[s.category] || { colour: "#888", label: s.category };
     const m = L.circleMarker([s.lat, s.lon], { radius: 3, color: c.colour, weight: 1,
-      fillOpacity: 0.8, interactive: true });
+      fillOpacity: 0.8, interactive: true, renderer: netCanvas });
     tip(m, c.label + (s.name ? ": " + s.name : ""));
     m.addTo(srcLayer);
   }
