@@ -267,8 +267,9 @@ def walk_through(s: Session, url: str, *, points: list[tuple[float, float]],
     shot("compare")
     out["body_text"] = s.js("document.body.textContent")
     out["tooltips"] = s.js("(() => { const t = []; netLayer.eachLayer(g => g.eachLayer(l => "
-                           "{ const x = l.getTooltip(); if (x) t.push(x.getContent()"
-                           ".textContent); })); return t; })()")
+                           "{ const x = l.getTooltip(); if (x) { let c = x.getContent(); "
+                           "if (typeof c === 'function') c = c(l); t.push(c.textContent); } "
+                           "})); return t; })()")
     out["img_x"] = s.js("document.querySelectorAll('img[src=\"x\"]').length")
     out["caution"] = s.text("#caution")
     return out

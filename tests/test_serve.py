@@ -289,10 +289,16 @@ def test_network_layer_is_simplified_by_zoom(client, monkeypatch):
     bbox = f"{w},{s},{e},{n}"
     near = _ok(client.get("/api/network", params={"bbox": bbox, "zoom": 17}))
     far = _ok(client.get("/api/network", params={"bbox": bbox, "zoom": 12}))
-    n_near, n_far = len(near["edges"]["features"]), len(far["edges"]["features"])
+    n_near, n_far = near["segments"], far["segments"]
     assert 0 < n_far < n_near < info["edges"]  # two directions sent once, short ones dropped
-    pts = lambda d: sum(len(f["geometry"]["coordinates"]) for f in d["edges"]["features"])  # noqa: E731
-    assert pts(far) < pts(near)
+    assert n_near == len(near["edges"]["features"])
+    # far away a band's segments travel together
+    assert len(far["edges"]["features"]) == len({f["properties"]["band"]
+                                                  for f in far["edges"]["features"]})
+    assert sum(f["properties"]["segments"] for f in far["edges"]["features"]) == n_far
+    far_pts = sum(len(line) for f in far["edges"]["features"]
+                  for line in f["geometry"]["coordinates"])
+    assert far_pts < sum(len(f["geometry"]["coordinates"]) for f in near["edges"]["features"])
     assert {f["properties"]["band"] for f in near["edges"]["features"]} <= {
         b["name"] for b in info["bands"]}
     monkeypatch.setattr(serve_app, "MAX_FEATURES", 10)

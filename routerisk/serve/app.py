@@ -69,6 +69,8 @@ from ..errors import OptionError, RouteriskError
 MAX_UPLOAD_BYTES = 5 * 1024 * 1024
 #: Most edges ``/api/network`` sends for one view (the highest bands, then the longest, win).
 MAX_FEATURES = 6000
+#: Below this zoom ``/api/network`` sends one MultiLineString per band (no street labels).
+MERGE_BELOW_ZOOM = 14
 #: Most exposure sources ``/api/network`` sends for one view.
 MAX_SOURCES = 2000
 #: Spacing (m) of the points of an exported line: dense, so it is read back as a trace.
@@ -223,6 +225,8 @@ class Service:
             "timezone_label": zone_label(self.net.meta.get("timezone", "UTC")),
             "profile_name": prof.name,
             "edges": int(len(self.net.edges)),
+            "data_licence": self.net.meta.get("data_licence"),
+            "source_name": self.net.meta.get("source_name"),
             "routerisk_version": __version__,
         }
 
@@ -458,7 +462,8 @@ class Service:
         higher band); at zoom ``z`` one screen pixel is ``156543 cos(lat) / 2**z`` metres, so
         geometries are simplified to one pixel and, below zoom 16, segments shorter than two
         pixels are left out; at most :data:`MAX_FEATURES` segments are sent (highest band,
-        then longest, first) and ``truncated`` says when some were left out.
+        then longest, first) and ``truncated`` says when some were left out. Below zoom
+        :data:`MERGE_BELOW_ZOOM` the segments of a band travel as one MultiLineString.
         """
         w, s, e, n = bbox
         box = shapely.box(w, s, e, n)
@@ -477,12 +482,22 @@ class Service:
         xy, which = shapely.get_coordinates(geoms, return_index=True)
         xy = np.round(xy, digits)
         cuts = np.searchsorted(which, np.arange(1, len(hits)))
+        lines = np.split(xy, cuts) if len(hits) else []
         feats = []
-        for i, coords in zip(hits, np.split(xy, cuts) if len(hits) else [], strict=True):
-            feats.append({"type": "Feature",
-                          "geometry": {"type": "LineString", "coordinates": coords.tolist()},
-                          "properties": {"band": self._bands[i], "street": self._names[i],
-                                         "km": round(float(self._length[i]) / 1000.0, 4)}})
+        if zoom < MERGE_BELOW_ZOOM:  # a far view: one MultiLineString per band, no labels
+            for b in sorted(set(self._bands[hits]), key=lambda x: int(
+                    self._rank[hits][self._bands[hits] == x][0])):
+                sel = [c.tolist() for i, c in zip(hits, lines, strict=True)
+                       if self._bands[i] == b]
+                feats.append({"type": "Feature",
+                              "geometry": {"type": "MultiLineString", "coordinates": sel},
+                              "properties": {"band": b, "street": "", "segments": len(sel)}})
+        else:
+            for i, coords in zip(hits, lines, strict=True):
+                feats.append({"type": "Feature",
+                              "geometry": {"type": "LineString", "coordinates": coords.tolist()},
+                              "properties": {"band": self._bands[i], "street": self._names[i],
+                                             "segments": 1}})
         inside = np.flatnonzero((self._src_xy[:, 0] >= w) & (self._src_xy[:, 0] <= e)
                                 & (self._src_xy[:, 1] >= s) & (self._src_xy[:, 1] <= n))
         src_trunc = len(inside) > MAX_SOURCES
@@ -492,6 +507,7 @@ class Service:
                     "category": str(self._src_cat[i]), "name": str(self._src_name[i])}
                    for i in inside]
         return {"edges": {"type": "FeatureCollection", "features": feats},
+                "segments": int(len(hits)),
                 "sources": sources, "truncated": bool(truncated or src_trunc),
                 "zoom": zoom, "metres_per_pixel": round(mpp, 3)}
 
@@ -630,6 +646,7 @@ def create_app(net: Any, *, token: str | None = None, loopback: bool = True,  # 
     """
     svc = Service(net, max_upload=max_upload)
     limiter = anyio.CapacityLimiter(workers)
+    view_limiter = anyio.CapacityLimiter(2)  # the map layer never waits behind long work
     static = resources.files("routerisk") / "static"
     page = Path(str(static / "serve" / "index.html"))
 
@@ -653,7 +670,7 @@ def create_app(net: Any, *, token: str | None = None, loopback: bool = True,  # 
                 or parts[0] >= parts[2] or parts[1] >= parts[3]:
             return _error(svc, "bbox must be W,S,E,N in degrees (W < E, S < N), zoom 0-24", 400)
         result = await anyio.to_thread.run_sync(svc.network, tuple(parts), zoom,
-                                                limiter=limiter)
+                                                limiter=view_limiter)
         return _answer(svc, result, None)
 
     async def export(request: Request) -> Response:

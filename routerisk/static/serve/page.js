@@ -67,8 +67,8 @@ function download(name, text, type) {
 }
 
 function tip(layer, text) {
-  const t = el("div", text);
-  layer.bindTooltip(t, { sticky: true });
+  // the label is made when first shown (thousands of segments carry one)
+  layer.bindTooltip(() => el("div", text), { sticky: true });
 }
 
 function bandColour(name) {
@@ -95,6 +95,7 @@ const markLayer = L.layerGroup().addTo(map);
 let netTimer = null;
 
 async function loadNetwork() {
+  const t0 = performance.now();
   const b = map.getBounds();
   const q = [b.getWest(), b.getSouth(), b.getEast(), b.getNorth()].map((x) => x.toFixed(6));
   const headers = token ? { "X-Routerisk-Token": token } : {};
@@ -102,13 +103,14 @@ async function loadNetwork() {
     { headers });
   if (!resp.ok) return;
   const doc = await resp.json();
+  const t1 = performance.now();
   clearLayerGroups([netLayer, srcLayer]);
-  S.networkShown = doc.edges.features.length;
+  S.networkShown = doc.segments;
   L.geoJSON(doc.edges, {
     interactive: true, renderer: netCanvas,
     style: (f) => ({ color: bandColour(f.properties.band), weight: 2, opacity: 0.55 }),
-    onEachFeature: (f, layer) => tip(layer, (f.properties.street || "unnamed street") + " · " +
-      f.properties.band),
+    onEachFeature: (f, layer) => tip(layer, (f.properties.segments > 1 ? "streets" :
+      (f.properties.street || "unnamed street")) + " · " + f.properties.band),
   }).addTo(netLayer);
   const cats = {};
   for (const c of S.info.categories) cats[c.name] = c;
@@ -119,10 +121,10 @@ async function loadNetwork() {
     tip(m, c.label + (s.name ? ": " + s.name : ""));
     m.addTo(srcLayer);
   }
+  S.networkTimes = { fetch_ms: Math.round(t1 - t0), draw_ms: Math.round(performance.now() - t1) };
 }
 function clearLayerGroups(groups) { for (const g of groups) g.clearLayers(); }
 
-map.on("moveend", () => { clearTimeout(netTimer); netTimer = setTimeout(loadNetwork, 150); });
 map.on("click", (ev) => {
   if (S.drawing) { addVertex(ev.latlng); return; }
   if (currentPane() === "route") addPoint(ev.latlng);
@@ -572,6 +574,8 @@ function nextSchoolMorning() {
   if (!info) return;
   S.info = info;
   $("caution").textContent = info.caution;
+  $("data-licence").textContent = "Network " + (info.source_name || "") + ". " +
+    (info.data_licence || "") + ". Leaflet: BSD-2-Clause, served from this machine.";
   $("tz-label").textContent = "local time " + info.timezone_label;
   $("depart-date").value = nextSchoolMorning(); $("depart-time").value = "08:00";
   $("plan-date").value = nextSchoolMorning();
@@ -590,4 +594,6 @@ function nextSchoolMorning() {
     lab.appendChild(inp); wi.appendChild(lab);
   }
   loadNetwork();
+  // later moves reload the layer for the new view (the first view is loaded above)
+  map.on("moveend", () => { clearTimeout(netTimer); netTimer = setTimeout(loadNetwork, 150); });
 })();
