@@ -180,11 +180,36 @@ def test_exported_alternative_rescores_to_the_same_risk(client, town_dir, tmp_pa
 
 
 def test_malformed_request_body_is_a_400_json_error(client):
-    for body in (b"{bad", b"[1, 2]", b"\xff\xfe"):
-        r = client.post("/api/score", content=body)
-        assert r.status_code == 400
-        assert r.json()["error"].startswith("request body:")
-        assert r.json()["caution"] == CAUTION
+    for endpoint in ("score", "week", "alternatives", "review", "plan", "export"):
+        for body in (b"{bad", b"[1, 2]", b"\xff\xfe", b""):
+            r = client.post(f"/api/{endpoint}", content=body)
+            assert r.status_code == 400, (endpoint, body)
+            assert r.json()["error"].startswith("request body:")
+            assert r.json()["caution"] == CAUTION
+
+
+def test_odd_but_well_formed_requests_are_4xx_not_500(client):
+    odd = [
+        ("score", {}), ("score", {"route": {"waypoints": [[0, 0]]}}),
+        ("score", {"route": {"waypoints": _waypoints()}, "departs": [8]}),
+        ("score", {"route": {"file": {"name": "", "text": "x"}}}),
+        ("week", {"route": {"waypoints": _waypoints()}, "date": "someday"}),
+        ("alternatives", {"route": {"waypoints": _waypoints()}, "count": "3"}),
+        ("alternatives", {"route": {"waypoints": _waypoints()}, "max_extra_time": 25}),
+        ("review", {"area": {"type": "FeatureCollection", "features": []}}),
+        ("review", {"area": json.loads(datasets.get_path("area").read_text()),
+                    "what_if": [["weight:nothing=2"]]}),
+        ("plan", {"runs": {"name": "runs.txt", "text": "x"}, "date": "2027-03-09"}),
+        ("plan", {"runs": _file(datasets.get_path("runs")), "date": "2027-03-09"}),
+        ("export", {"line": [[0, 0]]}),
+    ]
+    for endpoint, payload in odd:
+        r = client.post(f"/api/{endpoint}", json=payload)
+        assert 400 <= r.status_code < 500, (endpoint, payload, r.text)
+        assert r.json()["error"] and "\n" not in r.json()["error"]
+    raw = b'{"route": {"file": {"name": "x.geojson", "text": "\\ud800"}}}'  # a lone surrogate
+    r = client.post("/api/score", content=raw)
+    assert r.status_code == 400 and "surrogate" in r.json()["error"]
 
 
 def _same_error(client, capsys, monkeypatch, tmp_path, endpoint, payload, args):

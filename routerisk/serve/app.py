@@ -125,7 +125,11 @@ class _Upload:
             raise RequestError(_PATH_REFUSED)
         if not _NAME.match(name):
             raise RequestError(f"file name {name!r}: use letters, digits, '.', '_', '-' only")
-        data = text.encode("utf-8")
+        try:
+            data = text.encode("utf-8")
+        except UnicodeEncodeError:
+            raise RequestError(f"file {name!r}: the text holds an unpaired surrogate "
+                               "(not a Unicode text)") from None
         if len(data) > self.max_bytes:
             raise RequestError(_too_big(len(data), self.max_bytes), status=413)
         p = self.folder / name
