@@ -17,7 +17,8 @@ Endpoints (JSON in, JSON out; every answer carries ``made_from`` and ``caution``
     box, simplified for the zoom level (see :data:`MAX_FEATURES` and :func:`Service.network`).
 ``POST /api/score``
     ``{"route": ROUTE, "departs": [ISO, ...]}``; ROUTE is ``{"waypoints": [[lon, lat], ...],
-    "name": ...}``, ``{"geojson": {...}}`` or ``{"file": {"name": ..., "text": ...}}``.
+    "name": ..., "keep_vias": false}`` (via points required only with ``keep_vias``),
+    ``{"geojson": {...}}`` or ``{"file": {"name": ..., "text": ...}}``.
 ``POST /api/week``
     ``{"route": ROUTE, "date": ISO date}``: the route's risk departing at each of the 168
     hours of that date's week (Monday 00:00 first), with :meth:`routerisk.scoring.Scorer.quick`.

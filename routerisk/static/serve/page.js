@@ -515,7 +515,7 @@ function drawCompare() {
     const s = c.s, tr = el("tr");
     tr.appendChild(el("td", i + 1));
     tr.appendChild(el("td", s.name));
-    tr.appendChild(el("td", s.depart.slice(0, 16).replace("T", " ")));
+    tr.appendChild(el("td", s.depart.slice(5, 16).replace("T", " ")));
     for (const [v, d] of [[s.length_km, 2], [s.duration_min, 1], [s.risk, 3], [s.risk_per_km, 3],
       [s.relative_index, 2]]) tr.appendChild(el("td", fmt(v, d), "num"));
     tr.appendChild(el("td", s.rule_breaks.length, "num"));
