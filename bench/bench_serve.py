@@ -26,10 +26,10 @@ sys.path.insert(0, str(HERE.parent))
 def _routes(net, n: int, seed: int = 2) -> list[list[list[float]]]:
     import numpy as np
 
-    G = net.graph
+    g = net.graph
     rng = np.random.default_rng(seed)
-    nodes = np.array(sorted(G.nodes))
-    xy = np.array([[G.nodes[k]["x"], G.nodes[k]["y"]] for k in nodes])
+    nodes = np.array(sorted(g.nodes))
+    xy = np.array([[g.nodes[k]["x"], g.nodes[k]["y"]] for k in nodes])
     out = []
     while len(out) < n:
         pick = [int(rng.integers(len(nodes)))]
@@ -40,12 +40,13 @@ def _routes(net, n: int, seed: int = 2) -> list[list[list[float]]]:
                 break
             pick.append(int(rng.choice(near)))
         if len(pick) == 4:
-            out.append([[float(G.nodes[nodes[i]]["lon"]), float(G.nodes[nodes[i]]["lat"])]
+            out.append([[float(g.nodes[nodes[i]]["lon"]), float(g.nodes[nodes[i]]["lat"])]
                         for i in pick])
     return out
 
 
 def main() -> None:
+    """Build the city, serve it, time the requests and the page, write the results."""
     import httpx
 
     from routerisk.network import build_network

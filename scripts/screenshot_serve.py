@@ -49,7 +49,8 @@ def main() -> int:
                             plan_date=DEPART[0], shots=args.out)
         problems = s.seen()
     print(f"score {seen['score']}, picked {seen['picked_label']} {seen['picked']}, "
-          f"area {seen['area_km']} km; {seen.get('plan_summary')}; console errors: {len(problems['errors'])}")
+          f"area {seen['area_km']} km; {seen.get('plan_summary')}; "
+          f"console errors: {len(problems['errors'])}")
     for name in ("route", "week", "area", "plan", "compare"):
         print(args.out / f"{name}.png")
     return 0
