@@ -49,7 +49,7 @@ from collections.abc import Awaitable, Callable, Iterator
 from dataclasses import dataclass
 from importlib import resources
 from pathlib import Path
-from typing import Any
+from typing import Any, cast
 
 import anyio
 import numpy as np
@@ -350,7 +350,7 @@ class Service:
         monday = day - dt.timedelta(days=day.weekday())
         planned = self.route_input(doc, up)[0]
         m = matching.to_edges(self.index, planned)
-        pos = self.scorer.positions(list(m.edges))
+        pos = self.scorer.positions(cast("list[tuple[int, int, int]]", list(m.edges)))
         frac = np.asarray(m.fractions)
         tz = self.net.timezone
         hours = []
@@ -371,14 +371,16 @@ class Service:
         keep_every = _integer(doc, "keep_every", None)
         if keep_every is not None and keep_every < 1:
             raise OptionError("must be at least 1", field="--keep-every")
-        shares = {k: _share(doc, k, d) for k, d in (("max_extra_time", 0.25),
-                                                    ("max_extra_length", None),
-                                                    ("min_difference", 0.3))}
+        max_extra_time = _share(doc, "max_extra_time", 0.25)
+        min_difference = _share(doc, "min_difference", 0.3)
+        assert max_extra_time is not None and min_difference is not None  # they have defaults
         departs = self.departs(doc)
         planned = self.route_input(doc, up)
         result = suggest_routes(self.net, planned, departs, count=count,
                                 keep_every=keep_every, index=self.index,
-                                suggester=self.suggester, **shares)
+                                suggester=self.suggester, max_extra_time=max_extra_time,
+                                max_extra_length=_share(doc, "max_extra_length", None),
+                                min_difference=min_difference)
         drawn = []
         for s in result:
             drawn.append({"planned": self.drawn(s.planned),
@@ -674,7 +676,8 @@ def create_app(net: Any, *, token: str | None = None, loopback: bool = True,  # 
         if len(parts) != 4 or not all(map(math.isfinite, parts)) or not 0 <= zoom <= 24 \
                 or parts[0] >= parts[2] or parts[1] >= parts[3]:
             return _error(svc, "bbox must be W,S,E,N in degrees (W < E, S < N), zoom 0-24", 400)
-        result = await anyio.to_thread.run_sync(svc.network, tuple(parts), zoom,
+        bbox = (parts[0], parts[1], parts[2], parts[3])
+        result = await anyio.to_thread.run_sync(svc.network, bbox, zoom,
                                                 limiter=view_limiter)
         return _answer(svc, result, None)
 
