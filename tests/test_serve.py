@@ -390,3 +390,14 @@ def test_serve_command_loads_the_network_and_prints_the_address(town_dir, capsys
     assert "?token=long-enough-secret" in capsys.readouterr().out
     err = _cli_error(capsys, ["serve", "--network", str(town_dir), "--demo"])
     assert "--network DIR or --demo" in err
+
+
+def test_serve_demo_builds_the_sample_town(town_net, capsys, monkeypatch):
+    import uvicorn
+
+    started = {}
+    monkeypatch.setattr(uvicorn, "run", lambda app, **kw: started.update(app=app, **kw))
+    assert main(["serve", "--demo"]) == 0
+    assert "http://127.0.0.1:8765/" in capsys.readouterr().out
+    info = _ok(TestClient(started["app"], base_url="http://127.0.0.1").get("/api/info"))
+    assert info["edges"] == len(town_net.edges) and info["source_name"] == "corvane.osm"
