@@ -917,13 +917,17 @@ def via_nodes(matched: Any, route: Any, *, every: int | None = None) -> list[int
 def suggest_routes(net: Any, routes: list[Any], departs: list[dt.datetime] | None = None, *,
                    count: int = 3, max_extra_time: float = 0.25,
                    max_extra_length: float | None = None, min_difference: float = 0.3,
-                   keep_every: int | None = None, index: Any = None) -> list[Suggestion]:
-    """Suggest alternatives for each planned route at each departure time."""
+                   keep_every: int | None = None, index: Any = None,
+                   suggester: Suggester | None = None) -> list[Suggestion]:
+    """Suggest alternatives for each planned route at each departure time.
+
+    ``index`` and ``suggester`` (of ``net``) may be given to reuse them across calls.
+    """
     from . import matching
     from .errors import RouteInputError
 
     idx = index or matching.RoadIndex(net.graph)
-    sug = Suggester(Scorer(net))
+    sug = suggester or Suggester(Scorer(net))
     out = []
     for r, m in zip(routes, matching.to_edges_many(idx, routes), strict=True):
         times = departs or ([r.depart] if r.depart is not None else [])

@@ -416,16 +416,18 @@ def parse_depart(text: str, tz: Any) -> _dt.datetime:
 
 
 def score_routes(net: Any, routes: list[Any], departs: list[_dt.datetime] | None = None, *,
-                 index: Any = None) -> list[RouteScore]:
+                 index: Any = None, scorer: Scorer | None = None) -> list[RouteScore]:
     """Score planned routes (from :func:`routerisk.routes.read_routes`) on a network.
 
     Each route is scored at every time in ``departs``; without any, at its own ``depart``.
+    ``index`` and ``scorer`` (a :class:`matching.RoadIndex` and a :class:`Scorer` of ``net``)
+    may be given to reuse them across calls.
     """
     from . import matching
     from .errors import RouteInputError
 
     idx = index or matching.RoadIndex(net.graph)
-    scorer = Scorer(net)
+    scorer = scorer or Scorer(net)
     out = []
     for r, matched in zip(routes, matching.to_edges_many(idx, routes), strict=True):
         times = departs or ([r.depart] if r.depart is not None else [])
