@@ -29,11 +29,13 @@ working.
 
 from .common import REQUIRED_POINT_TOLERANCE_M, PlannedRoute
 from .files import read_routes, routes_to_geojson, write_routes
+from .gpxfile import gpx_text
 
 __all__ = [
     "REQUIRED_POINT_TOLERANCE_M",
     "PlannedRoute",
     "read_routes",
     "routes_to_geojson",
+    "gpx_text",
     "write_routes",
 ]

@@ -119,7 +119,7 @@ def _read_gpx(path: Path, raw: bytes) -> list[_Parsed]:
     return routes
 
 
-def _gpx_text(routes: Sequence[PlannedRoute]) -> str:
+def gpx_text(routes: Sequence[PlannedRoute]) -> str:
     ns = "http://www.topografix.com/GPX/1/1"
     root = ET.Element("gpx", {"version": "1.1", "creator": "routerisk", "xmlns": ns})
     for r in routes:
@@ -140,3 +140,6 @@ def _gpx_text(routes: Sequence[PlannedRoute]) -> str:
                 ET.SubElement(pt, "type").text = "required"
     ET.indent(root)
     return '<?xml version="1.0" encoding="UTF-8"?>\n' + ET.tostring(root, encoding="unicode") + "\n"
+
+
+_gpx_text = gpx_text  # the name used inside the package

@@ -459,7 +459,7 @@ class Service:
         depart = self.departs(doc, key="depart")[0] if doc.get("depart") else None
         r = routes.PlannedRoute(name.strip(), np.array(line, dtype=float), depart=depart)
         if fmt == "gpx":
-            return routes._gpx_text([r]), "application/gpx+xml"
+            return routes.gpx_text([r]), "application/gpx+xml"
         return dumps_json(routes.routes_to_geojson([r])) + "\n", "application/geo+json"
 
     def network(self, bbox: tuple[float, float, float, float], zoom: int) -> dict[str, Any]:
