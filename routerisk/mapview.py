@@ -520,12 +520,22 @@ def background_items() -> list[tuple[str | None, str]]:
             (area_swatch(CONTEXT_STYLE["building"]["fillColor"]), "building")]
 
 
-def category_items(profile: Any) -> list[tuple[str | None, str]]:
-    """Return the legend rows of the exposure sources (one symbol per category)."""
+def category_items(profile: Any, sources: gpd.GeoDataFrame | None = None
+                   ) -> list[tuple[str | None, str]]:
+    """Return the legend rows of the exposure sources drawn (one symbol per category).
+
+    With ``sources`` only the categories present in it are listed, and the grounds row only
+    when some source is an area.
+    """
+    present = None if sources is None else set(sources["category"])
+    cats = [c for c in profile.categories if present is None or c.name in present]
+    if not cats:
+        return []
     rows: list[tuple[str | None, str]] = [(None, "exposure sources (grouped when many)")]
-    rows += [(symbol_svg(category_shape(c.name)), c.label) for c in profile.categories]
-    rows.append((area_swatch("#ffffff", stroke=SYMBOL_INK, dash="3 2", opacity=0.3),
-                 "source grounds (outline)"))
+    rows += [(symbol_svg(category_shape(c.name)), c.label) for c in cats]
+    if sources is None or sources.geom_type.isin(["Polygon", "MultiPolygon"]).any():
+        rows.append((area_swatch("#ffffff", stroke=SYMBOL_INK, dash="3 2", opacity=0.3),
+                     "source grounds (outline)"))
     return rows
 
 
@@ -776,7 +786,7 @@ def network_map(net: Any, *, tiles: str | Path | TileSource | None = None,
     layer_control(m)
     items: list[tuple[str | None, str]] = [(None, "street exposure per km"),
                                            *cls.legend_items()[1:], (None, cls.legend_items()[0][1])]
-    items += category_items(prof)
+    items += category_items(prof, net.sources)
     add_panel(m, legend_html(title, items, extra=f"<div>profile {escape(prof.name)} "
                                                  f"{escape(prof.fingerprint)}</div>"))
     from ._io import provenance

@@ -307,7 +307,7 @@ def write_outputs(net: Any, result: WatchResult, out: str | Path, *, force: bool
             + seg[cols].round(6).to_csv(index=False, lineterminator="\n"), encoding="utf-8")
         edges = net.edges.reset_index()
         ll = net.edges.to_crs("EPSG:4326").total_bounds
-        m = mapview.new_map(tuple(ll))
+        m = mapview.new_map(tuple(ll), context=net)
         edges["_c"] = "#b9b4a8"
         edges["street"] = edges["name"].fillna("")
         mapview.add_lines(m, edges, name="network", colour_col="_c", fields={}, weight=2,
@@ -322,6 +322,7 @@ def write_outputs(net: Any, result: WatchResult, out: str | Path, *, force: bool
                               fields={"street": "street", "events": "events",
                                       "expected": "expected", "eb_rate": "EB rate per km",
                                       "p_value": "p-value"})
+        mapview.layer_control(m)
         mapview.add_panel(m, mapview.legend_html("Early warnings", [
             ("#c1121f", "segment flagged (FDR-controlled)"), ("#b9b4a8", "network")]))
         mapview.add_provenance(m, prov)
