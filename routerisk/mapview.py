@@ -35,8 +35,9 @@ from ._io import write_text_atomic
 BAND_RAMP = ("#ead06c", "#df9139", "#c4553a", "#8d2b52", "#471c45")
 BAND_COLOURS = BAND_RAMP
 #: Planned routes and alternatives: each has its own dash pattern and a colour from a
-#: qualitative set kept away from the ramp (ink, cobalt, teal, violet, slate, olive).
-ROUTE_COLOURS = ("#111111", "#1f5fbf", "#0f8a7e", "#7a4fc4", "#51606f", "#6b7a1a")
+#: qualitative set kept away from the ramp (ink, cyan, violet, olive, navy, grey), picked so
+#: that every pair stays apart for deuteranopia and protanopia too (docs/colour_check.md).
+ROUTE_COLOURS = ("#111111", "#00a3c4", "#7a4fc4", "#6b7a1a", "#274060", "#808080")
 ROUTE_DASHES = (None, "10 6", "2 6", "14 5 3 5", "6 3", "1 4 8 4")
 #: Exposure categories are told apart by the point symbol; every symbol is drawn in ink.
 CATEGORY_SHAPES = {"school": "triangle", "campus": "square", "retail": "circle",
