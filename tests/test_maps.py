@@ -246,3 +246,16 @@ def test_many_shops_show_as_few_clusters(town_net, tmp_path):
     assert res["errors"] == [] and res["requests"] == []
     clusters, icons = res["value"]
     assert clusters >= 1 and icons < 100  # 300+ points, far fewer icons at the first zoom
+
+
+def test_hostile_name_in_the_background_is_escaped(town_net):
+    ctx = town_net.context.copy()
+    i = int(np.flatnonzero(ctx["kind"].to_numpy() == "street")[0])
+    ctx.iloc[i, ctx.columns.get_loc("name")] = "<img src=x onerror=alert(3)>`${x}`"
+    net = Network(town_net.edges, town_net.nodes, town_net.sources, town_net.crossings,
+                  town_net.profile, town_net.meta, ctx)
+    text = mapview.render(mapview.network_map(net))
+    assert "<img src=x onerror=alert(3)>" not in text
+    assert "${x}" not in text
+    # drawn, as inert text (folium writes & as \u0026 inside its JSON)
+    assert "\\u0026lt;img src=x onerror=alert(3)\\u0026gt;" in text
