@@ -417,6 +417,7 @@ def add_context(m: folium.Map, context: Any, bounds: tuple[float, float, float, 
         ctx = ctx.to_crs("EPSG:4326")
     if len(ctx) == 0:
         return
+    m._rr_background = set(ctx["kind"])  # type: ignore[attr-defined]
     layer = folium.FeatureGroup(name="background: streets, water, parks, buildings",
                                 show=True)
     for kind in ("park", "water", "building"):
@@ -511,14 +512,21 @@ def rule_break_svg(size: int = 18) -> str:
             '<rect x="8" y="12" width="2" height="2" fill="#111"/></svg>')
 
 
-def background_items() -> list[tuple[str | None, str]]:
-    """Return the legend rows of the light background layer."""
-    return [(None, "background (same OSM extract)"),
-            (line_swatch(STREET_COLOUR, width=4, casing="#bdb7ab"),
-             "street (name on hover)"),
-            (area_swatch(CONTEXT_STYLE["water"]["fillColor"]), "water"),
-            (area_swatch(CONTEXT_STYLE["park"]["fillColor"]), "park, green space"),
-            (area_swatch(CONTEXT_STYLE["building"]["fillColor"]), "building")]
+def background_items(kinds: Any = None) -> list[tuple[str | None, str]]:
+    """Return the legend rows of the light background layer (only ``kinds`` when given)."""
+    rows = {"street": (line_swatch(STREET_COLOUR, width=4, casing="#bdb7ab"),
+                       "street (name on hover)"),
+            "water": (area_swatch(CONTEXT_STYLE["water"]["fillColor"]), "water"),
+            "park": (area_swatch(CONTEXT_STYLE["park"]["fillColor"]), "park, green space"),
+            "building": (area_swatch(CONTEXT_STYLE["building"]["fillColor"]), "building")}
+    keep = [rows[k] for k in ("street", "water", "park", "building")
+            if kinds is None or k in kinds]
+    return [(None, "background (same OSM extract)"), *keep] if keep else []
+
+
+def background_of(m: folium.Map) -> set[str]:
+    """Return the kinds of background :func:`add_context` drew on ``m``."""
+    return set(getattr(m, "_rr_background", set()))
 
 
 def category_items(profile: Any, sources: gpd.GeoDataFrame | None = None
@@ -584,15 +592,18 @@ def add_provenance(m: folium.Map, prov: dict[str, Any]) -> None:
 
 
 def legend_html(title: str, items: list[tuple[str | None, str]], *, extra: str = "",
-                background: bool = True) -> str:
+                background: Any = True) -> str:
     """Return a collapsible legend: a title, a row per drawn thing, and the caution.
 
     Each item is ``(swatch, label)``: a colour (drawn as a line), an SVG swatch from
     :func:`line_swatch`, :func:`area_swatch`, :func:`symbol_svg`, or None for a sub-heading.
-    ``background`` adds the rows of the light background layer.
+    ``background`` adds the rows of the light background layer: True for all its kinds, or
+    the kinds drawn (:func:`background_of`); False or empty for none.
     """
     rows = []
-    for swatch, text in [*items, *(background_items() if background else [])]:
+    bg = [] if background is False else background_items(
+        None if background is True else background)
+    for swatch, text in [*items, *bg]:
         if swatch is None:
             rows.append(f"<h5>{escape(text)}</h5>")
             continue
@@ -789,7 +800,8 @@ def network_map(net: Any, *, tiles: str | Path | TileSource | None = None,
                                            *cls.legend_items()[1:], (None, cls.legend_items()[0][1])]
     items += category_items(prof, net.sources)
     add_panel(m, legend_html(title, items, extra=f"<div>profile {escape(prof.name)} "
-                                                 f"{escape(prof.fingerprint)}</div>"))
+                                                 f"{escape(prof.fingerprint)}</div>",
+                             background=background_of(m)))
     from ._io import provenance
 
     add_provenance(m, provenance(profile=prof.fingerprint, network=net))

@@ -1021,7 +1021,8 @@ def review_map(review: Review, *, tiles: Any = None, bands: str = "fixed") -> fo
     items += (mapview.category_items(prof, drawn) if drawn is not None else [])
     mapview.add_panel(m, mapview.legend_html(
         "Area review", items, extra=f"<div>profile {mapview.escape(prof.name)} "
-                                    f"{mapview.escape(prof.fingerprint)}</div>"))
+                                    f"{mapview.escape(prof.fingerprint)}</div>",
+        background=mapview.background_of(m)))
     return m
 
 

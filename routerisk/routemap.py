@@ -230,7 +230,8 @@ def route_map(net: Any, scores: list[RouteScore], *, tiles: Any = None,
                       position="topleft", dom_id="rr-side")
     mapview.add_panel(m, mapview.legend_html(title, items, extra=(
         f"<div>profile {mapview.escape(net.profile.name)}"
-        f" {mapview.escape(net.profile.fingerprint)}</div>")))
+        f" {mapview.escape(net.profile.fingerprint)}</div>"),
+        background=mapview.background_of(m)))
     return m
 
 
@@ -373,7 +374,8 @@ def suggestion_map(net: Any, suggestions: list[Any], *, tiles: Any = None,
     items += mapview.category_items(prof, net.sources)
     mapview.add_panel(m, mapview.legend_html("Lower-exposure alternatives", items,
                                              extra=f"<div>profile {mapview.escape(prof.name)} "
-                                                   f"{mapview.escape(prof.fingerprint)}</div>"))
+                                                   f"{mapview.escape(prof.fingerprint)}</div>",
+                                             background=mapview.background_of(m)))
     from ._io import provenance
 
     mapview.add_provenance(m, provenance(profile=prof.fingerprint, network=net, inputs=inputs))

@@ -324,7 +324,8 @@ def write_outputs(net: Any, result: WatchResult, out: str | Path, *, force: bool
                                       "p_value": "p-value"})
         mapview.layer_control(m)
         mapview.add_panel(m, mapview.legend_html("Early warnings", [
-            ("#c1121f", "segment flagged (FDR-controlled)"), ("#b9b4a8", "network")]))
+            ("#c1121f", "segment flagged (FDR-controlled)"), ("#b9b4a8", "network")],
+            background=mapview.background_of(m)))
         mapview.add_provenance(m, prov)
         (tmp / "map.html").write_text(mapview.render(m), encoding="utf-8")
         groups = list(result.alerts["group"].astype(str)[:5]) or list(

@@ -40,8 +40,13 @@ def test_real_extract_context_has_buildings(real_pbf):
     """Real extract: pyogrio's sample.osm.pbf (OpenStreetMap data, ODbL 1.0)."""
     from routerisk.network import build_network
 
-    ctx = build_network(real_pbf).context
-    assert {"street", "park", "building"} <= set(ctx["kind"])
+    net = build_network(real_pbf)
+    assert {"street", "park", "building"} <= set(net.context["kind"])
+    m = mapview.new_map(tuple(net.edges.to_crs(4326).total_bounds), context=net)
+    drawn = mapview.background_of(m)
+    assert {"street", "park", "building"} <= drawn and "water" not in drawn
+    legend = mapview.legend_html("t", [], background=drawn)
+    assert "<span>building</span>" in legend and "<span>water</span>" not in legend
 
 
 def test_folder_without_context_draws_streets_from_edges(town_net, tmp_path):
