@@ -362,7 +362,10 @@ _CSS = (
     ".rr-cluster{background:rgba(255,255,255,.9);border:2px solid #23303c;border-radius:50%;"
     "width:26px;height:26px;display:flex;align-items:center;justify-content:center;"
     "font:11px system-ui,sans-serif;color:#23303c}"
-    ".rr-symbol{background:none;border:none}")
+    ".rr-symbol{background:none;border:none}"
+    ".rr-street-label{background:rgba(255,255,255,.75);border:none;box-shadow:none;"
+    "padding:0 3px;font:11px system-ui,sans-serif;color:#4a4a4a}"
+    ".rr-street-label:before{display:none}")
 
 
 def new_map(bounds: tuple[float, float, float, float], *,
@@ -442,7 +445,7 @@ def add_context(m: folium.Map, context: Any, bounds: tuple[float, float, float, 
         for part, tip in ((streets[~named], False), (streets[named], True)):
             if len(part) == 0:
                 continue
-            folium.GeoJson(
+            gj = folium.GeoJson(
                 part[["name", "_w", "geometry"]].to_json(drop_id=True),
                 name="streets",
                 style_function=lambda f: {"color": STREET_COLOUR, "weight":
@@ -451,7 +454,55 @@ def add_context(m: folium.Map, context: Any, bounds: tuple[float, float, float, 
                 if tip else None,
                 interactive=tip,
             ).add_to(layer)
+            if tip:
+                layer.add_to(m)
+                m.add_child(_StreetLabels(gj, layer))
     layer.add_to(m)
+
+
+#: From this zoom on, street names are written along the streets (below it: on hover).
+LABELS_FROM_ZOOM = 17
+
+
+class _StreetLabels(MacroElement):
+    """Write each named background street's name on it from :data:`LABELS_FROM_ZOOM` on.
+
+    The names are the escaped text of the GeoJSON properties, shown as tooltip content.
+    """
+
+    _template = Template("""
+{% macro script(this, kwargs) %}
+(function () {
+    var map = {{ this._parent.get_name() }}, streets = {{ this.streets.get_name() }},
+        group = {{ this.group.get_name() }};
+    function update() {
+        var on = map.getZoom() >= {{ this.zoom }} && map.hasLayer(group);
+        streets.eachLayer(function (l) {
+            var name = l.feature && l.feature.properties.name;
+            if (!name) { return; }
+            if (on && !l._rrLabel) {
+                l._rrLabel = L.tooltip({permanent: true, direction: 'center',
+                                        className: 'rr-street-label', interactive: false})
+                    .setContent(name).setLatLng(l.getCenter());
+                map.addLayer(l._rrLabel);
+            } else if (!on && l._rrLabel) {
+                map.removeLayer(l._rrLabel);
+                l._rrLabel = null;
+            }
+        });
+    }
+    map.on('zoomend overlayadd overlayremove', update);
+    update();
+})();
+{% endmacro %}
+""")
+
+    def __init__(self, streets: folium.GeoJson, group: folium.FeatureGroup) -> None:
+        super().__init__()
+        self._name = "StreetLabels"
+        self.streets = streets
+        self.group = group
+        self.zoom = LABELS_FROM_ZOOM
 
 
 # ----------------------------------------------------------------------------- legends
@@ -515,7 +566,7 @@ def rule_break_svg(size: int = 18) -> str:
 def background_items(kinds: Any = None) -> list[tuple[str | None, str]]:
     """Return the legend rows of the light background layer (only ``kinds`` when given)."""
     rows = {"street": (line_swatch(STREET_COLOUR, width=4, casing="#bdb7ab"),
-                       "street (name on hover)"),
+                       "street (name on hover; written from zoom 17)"),
             "water": (area_swatch(CONTEXT_STYLE["water"]["fillColor"]), "water"),
             "park": (area_swatch(CONTEXT_STYLE["park"]["fillColor"]), "park, green space"),
             "building": (area_swatch(CONTEXT_STYLE["building"]["fillColor"]), "building")}

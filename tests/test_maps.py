@@ -264,3 +264,24 @@ def test_hostile_name_in_the_background_is_escaped(town_net):
     assert "${x}" not in text
     # drawn, as inert text (folium writes & as \u0026 inside its JSON)
     assert "\\u0026lt;img src=x onerror=alert(3)\\u0026gt;" in text
+
+
+@needs_chromium
+@pytest.mark.browser
+def test_street_names_are_written_at_close_zoom(town_net, tmp_path):
+    page = tmp_path / "names.html"
+    mapview.save(mapview.network_map(town_net), page)
+    res = inspect_page(page, script=f"""(() => {{
+        // labels on the map (a removed one fades out of the page 200 ms later)
+        const n = () => Object.values(map_0000._layers).filter(
+            l => l instanceof L.Tooltip && l.options.className === 'rr-street-label').length;
+        const before = n();
+        map_0000.setZoom({mapview.LABELS_FROM_ZOOM}, {{animate: false}});
+        const after = n();
+        const shown = document.querySelectorAll('.rr-street-label').length;
+        map_0000.setZoom({mapview.LABELS_FROM_ZOOM - 2}, {{animate: false}});
+        return [before, after, shown, n()];
+    }})()""")
+    assert res["errors"] == []
+    before, after, shown, back = res["value"]
+    assert before == 0 and after > 0 and shown == after and back == 0
