@@ -847,8 +847,9 @@ def network_map(net: Any, *, tiles: str | Path | TileSource | None = None,
               fields=fields, casing="#5b5347", weight=3.5)
     add_sources(m, net.sources, labels={c.name: c.label for c in prof.categories})
     layer_control(m)
-    items: list[tuple[str | None, str]] = [(None, "street exposure per km"),
-                                           *cls.legend_items()[1:], (None, cls.legend_items()[0][1])]
+    legend = cls.legend_items()
+    items: list[tuple[str | None, str]] = [(None, "street exposure per km"), *legend[1:],
+                                           (None, legend[0][1])]
     items += category_items(prof, net.sources)
     add_panel(m, legend_html(title, items, extra=f"<div>profile {escape(prof.name)} "
                                                  f"{escape(prof.fingerprint)}</div>",

@@ -2,8 +2,9 @@
 
 A folder holds ``network.gpkg`` (layers ``edges``, ``nodes``, ``sources``, ``crossings``, and
 ``context``, the streets, water, parks and buildings maps draw behind the routes; any GIS opens
-it; a folder without ``context`` still loads), ``profile.yaml`` (the profile used) and ``meta.json`` (format version,
-tool version, profile fingerprint, input checksum, CRS, time zone), written last. The folder
+it; a folder without ``context`` still loads), ``profile.yaml`` (the profile used) and
+``meta.json`` (format version, tool version, profile fingerprint, input checksum, CRS, time
+zone), written last. The folder
 is assembled under a hidden temporary name and moved into place only when complete.
 """
 

@@ -20,7 +20,8 @@ from routerisk.network import Network, load_network, save_network
 from ._browser import inspect_page, needs_chromium
 
 # A 1x1 PNG (common practice, no source: the smallest valid PNG, one grey pixel).
-PNG = base64.b64decode("iVBORw0KGgoAAAANSUhEUgAAAAEAAAABCAAAAAA6fptVAAAACklEQVR4nGNoAAAAggCBd81ytgAAAABJRU5ErkJggg==")
+PNG = base64.b64decode("iVBORw0KGgoAAAANSUhEUgAAAAEAAAABCAAAAAA6fptVAAAACklEQVR4nGNoAAAAggCB"
+                       "d81ytgAAAABJRU5ErkJggg==")
 
 
 def test_build_saves_the_context_layer(town_net, town_dir):
@@ -139,7 +140,7 @@ def test_score_map_legend_names_every_drawn_thing(town_net):
 
 
 def _many_shops(net):
-    """The sample town with 300 more shop points around one shop (a crowded centre)."""
+    """Return the sample town with 300 more shop points around one shop (a crowded centre)."""
     import pandas as pd
 
     src = net.sources
@@ -285,3 +286,21 @@ def test_street_names_are_written_at_close_zoom(town_net, tmp_path):
     assert res["errors"] == []
     before, after, shown, back = res["value"]
     assert before == 0 and after > 0 and shown == after and back == 0
+
+
+def test_review_takes_tiles_and_bands(town_dir, tmp_path, capsys):
+    folder = tmp_path / "tiles"
+    (folder / "13" / "4000").mkdir(parents=True)
+    (folder / "13" / "4000" / "3000.png").write_bytes(PNG)
+    area = str(datasets.get_path("area"))
+    assert main(["review", area, "--network", str(town_dir), "--report",
+                 str(tmp_path / "r.html"), "--tiles", str(folder), "--bands",
+                 "quantiles"]) == 0
+    text = (tmp_path / "r.html").read_text()
+    assert folder.resolve().as_uri() in text
+    assert "quantiles of street length on this map" in text
+    capsys.readouterr()
+    assert main(["review", area, "--network", str(town_dir), "--report",
+                 str(tmp_path / "s.html"), "--tiles", str(tmp_path / "none")]) == 2
+    assert len(capsys.readouterr().err.strip().splitlines()) == 1
+    assert not (tmp_path / "s.html").exists()

@@ -101,7 +101,7 @@ def run(args: argparse.Namespace) -> int:
         if target is not None:
             check_target(target, force=args.force, folder=folder)
     at = review.parse_time(args.at) if args.at is not None else None
-    tiles = tiles_of(args)
+    map_tiles = tiles_of(args)
     profile = load_profile(args.profile) if args.profile else None
     with cluster_of(args) as tiles:
         clipper = tagger = None
@@ -117,7 +117,7 @@ def run(args: argparse.Namespace) -> int:
         result = review.review_areas(net, areas, at=at, what_ifs=what_ifs, top=args.top,
                                      high_bands=high, clipper=clipper, tagger=tagger)
     written = review.write_review(result, out=args.out, report_path=args.report,
-                                  force=args.force, tiles=tiles, bands=args.bands)
+                                  force=args.force, tiles=map_tiles, bands=args.bands)
     doc = result.to_json()
     if args.json:
         print(dumps_json(doc))
