@@ -1250,7 +1250,8 @@ def review_html(review: Review, *, tiles: Any = None, bands: str = "fixed") -> s
                           title="km by exposure band (directed)", ylabel="km"),
                           alt="km by exposure band per area"),
                       anchor_id="compare")]
-    body.append(r.section("Map", r.map_html(review_map(review, tiles=tiles, bands=bands), title="map of the areas"),
+    body.append(r.section("Map", r.map_html(review_map(review, tiles=tiles, bands=bands),
+                                            title="map of the areas"),
                           r.note_html("Streets are drawn once per segment; hot spots have a "
                                       "dark halo. The map works offline."), anchor_id="map"))
     toc = [("compare", "side by side"), ("map", "map")]
