@@ -56,6 +56,28 @@ WAY_KEYS = ("highway", "name", "lanes", "maxspeed", "oneway", "junction", "sidew
             "hazard", "maxspeed:conditional", "access")
 
 
+# Ways drawn as the light background of maps (streets, water, parks, buildings), by tag.
+_WATER = {"natural": {"water"}, "waterway": {"riverbank", "river", "canal", "stream", "dock"},
+          "landuse": {"reservoir", "basin"}}
+_PARK = {"leisure": {"park", "garden", "playground", "pitch", "common", "nature_reserve"},
+         "landuse": {"grass", "forest", "meadow", "recreation_ground", "village_green",
+                     "cemetery"},
+         "natural": {"wood", "scrub", "grassland"}}
+
+
+def context_kind(tags: Mapping[str, str]) -> str | None:
+    """Return the background kind of a way (street, water, park, building) or None."""
+    if "highway" in tags and tags.get("area") != "yes":
+        return "street"
+    if "building" in tags:
+        return "building"
+    for kind, table in (("water", _WATER), ("park", _PARK)):
+        for key, values in table.items():
+            if tags.get(key) in values:
+                return kind
+    return None
+
+
 def _compile_filter() -> list[tuple[str, object]]:
     import re
 
@@ -109,6 +131,8 @@ class RawOSM:
     bounds: tuple[float, float, float, float] | None
     missing_refs: int
     timestamp: str | None
+    #: background ways for maps: (kind, osm id, name, highway, closed, lon/lat runs)
+    context: list[tuple[str, int, str, str, list[np.ndarray]]] = field(default_factory=list)
 
 
 def _check_path(path: str | Path) -> Path:
@@ -194,6 +218,7 @@ def read_osm(
     crossings: dict[int, tuple[float, float, str]] = {}
     signals: set[int] = set()
     missing = 0
+    context: list[tuple[str, int, str, str, list[np.ndarray]]] = []
     ids = {kind: array("q") for kind in ("node", "way", "relation")}
     node_ids, way_ids, rel_ids = ids["node"].append, ids["way"].append, ids["relation"].append
     try:
@@ -249,7 +274,8 @@ def read_osm(
             drivable = is_drivable(tags)
             wanted = want(tags)
             members = member_ways.get(obj.id)
-            if not (drivable or wanted or members):
+            ctx = context_kind(tags)
+            if not (drivable or wanted or members or ctx):
                 continue
             # one pass over the node list: id and fixed-point coordinates (osmium keeps
             # 1e-7 degree integers; lon = x / 1e7 is exactly what Location.lon returns)
@@ -281,6 +307,11 @@ def read_osm(
                 runs = [coords[r] for r in _runs(ok) if len(r) >= 2]
                 if runs:
                     features.append(RawFeature("way", obj.id, dict(tags), runs))
+            if ctx:
+                runs = [coords] if nbad == 0 else [coords[r] for r in _runs(ok) if len(r) >= 2]
+                if runs:
+                    context.append((ctx, obj.id, tags.get("name", ""),
+                                    tags.get("highway", ""), runs))
             if members:
                 runs = [coords[r] for r in _runs(ok) if len(r) >= 2]
                 for rid, role in members:
@@ -301,7 +332,8 @@ def read_osm(
     if missing:
         log.info("%s: %d way node references point to nodes not in the file (clipped "
                  "extract); kept the runs of nodes that exist", p, missing)
-    return RawOSM(str(p), ways, features, crossings, signals, bounds, missing, timestamp)
+    return RawOSM(str(p), ways, features, crossings, signals, bounds, missing, timestamp,
+                  context)
 
 
 def _runs(ok: np.ndarray) -> list[np.ndarray]:

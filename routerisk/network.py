@@ -1,8 +1,10 @@
 """The saved network folder: the tagged road graph that every later command reads.
 
-A folder holds ``network.gpkg`` (layers ``edges``, ``nodes``, ``sources``, ``crossings``;
-any GIS opens it), ``profile.yaml`` (the profile used) and ``meta.json`` (format version,
-tool version, profile fingerprint, input checksum, CRS, time zone), written last. The folder
+A folder holds ``network.gpkg`` (layers ``edges``, ``nodes``, ``sources``, ``crossings``, and
+``context``, the streets, water, parks and buildings maps draw behind the routes; any GIS opens
+it; a folder without ``context`` still loads), ``profile.yaml`` (the profile used) and
+``meta.json`` (format version, tool version, profile fingerprint, input checksum, CRS, time
+zone), written last. The folder
 is assembled under a hidden temporary name and moved into place only when complete.
 """
 
@@ -94,6 +96,8 @@ class Network:
     crossings: gpd.GeoDataFrame
     profile: Profile
     meta: dict[str, Any] = field(default_factory=dict)
+    #: background of maps (streets, water, parks, buildings); None in folders built before it
+    context: gpd.GeoDataFrame | None = None
 
     @property
     def crs(self) -> Any:
@@ -171,7 +175,7 @@ class Network:
         edges = tag(base, self.sources, self.crossings, profile,
                     polygons=_rule_polygons(profile))
         return Network(edges, self.nodes, self.sources, self.crossings, profile,
-                       {**self.meta, "profile": profile.fingerprint})
+                       {**self.meta, "profile": profile.fingerprint}, self.context)
 
 
 def _rule_polygons(profile: Profile) -> dict[str, gpd.GeoSeries]:
@@ -271,7 +275,10 @@ def build_network(
     }
     nodes = nodes[[c for c in ("x", "y", "lon", "lat", "street_count", "geometry")
                    if c in nodes.columns]]
-    return Network(tagged, nodes, src, cross, profile, meta)
+    from . import _context
+
+    return Network(tagged, nodes, src, cross, profile, meta,
+                   _context.context_from_raw(raw, crs=crs))
 
 
 def _clean_for_gpkg(df: gpd.GeoDataFrame) -> gpd.GeoDataFrame:
@@ -308,6 +315,9 @@ def _save(net: Network, out: str | Path, *, force: bool) -> Path:
                                     promote_to_multi=False)
         if len(net.crossings):
             pyogrio.write_dataframe(_clean_for_gpkg(net.crossings), gpkg, layer="crossings")
+        if net.context is not None and len(net.context):
+            pyogrio.write_dataframe(_clean_for_gpkg(net.context), gpkg, layer="context",
+                                    promote_to_multi=False)
         (tmp / PROFILE).write_text(yaml.safe_dump(_profile_doc(net.profile), sort_keys=False),
                                    encoding="utf-8")
         meta = {**net.meta, "complete": True, "gpkg_sha256": sha256_file(gpkg),
@@ -378,6 +388,8 @@ def load_network(folder: str | Path, *, profile: Profile | None = None,
         cross = (pyogrio.read_dataframe(gpkg, layer="crossings", use_arrow=arrow)
                  if "crossings" in layers else
                  gpd.GeoDataFrame({"osmid": [], "crossing": []}, geometry=[], crs=edges.crs))
+        context = (pyogrio.read_dataframe(gpkg, layer="context", use_arrow=arrow)
+                   if "context" in layers else None)
     except Exception as exc:  # noqa: BLE001 - GDAL errors of many kinds
         raise NetworkFolderError(f"cannot read network.gpkg ({exc})", path=gpkg) from exc
     prof_path = d / PROFILE
@@ -398,7 +410,7 @@ def load_network(folder: str | Path, *, profile: Profile | None = None,
     if "oneway" in edges:
         edges["oneway"] = edges["oneway"].astype(bool)
     nodes = nodes.set_index("osmid")
-    net = Network(edges, nodes, src, cross, saved_profile, meta)
+    net = Network(edges, nodes, src, cross, saved_profile, meta, context)
     if saved_profile.fingerprint != meta.get("profile"):
         # A profile with polygon files hashes them too; the copy sits elsewhere, so recompute.
         log.debug("saved profile fingerprint differs from meta; using meta's record")

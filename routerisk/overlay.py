@@ -107,7 +107,7 @@ def apply_overlay(net: Any, path: str | Path) -> Any:
     digest = hashlib.sha256(p.read_bytes()).hexdigest()
     new_prof = dataclasses.replace(prof, rules=rules, extra_hash=prof.extra_hash + digest)
     return Network(edges, net.nodes, net.sources, net.crossings, new_prof,
-                   {**net.meta, "overlay_sha256": digest})
+                   {**net.meta, "overlay_sha256": digest}, net.context)
 
 
 @dataclasses.dataclass(frozen=True)

@@ -761,6 +761,8 @@ class Review:
     clipped: dict[str, gpd.GeoDataFrame] = field(default_factory=dict, repr=False)
     sources: gpd.GeoDataFrame | None = field(default=None, repr=False)
     provenance: dict[str, Any] = field(default_factory=dict)
+    #: the map's light background around the areas (streets, water, parks, buildings)
+    context: gpd.GeoDataFrame | None = field(default=None, repr=False)
 
     def to_json(self) -> dict[str, Any]:
         """Return the JSON document of ``routerisk review --json``."""
@@ -838,8 +840,13 @@ def review_areas(net: Network, areas: Sequence[Area], *, at: int | None = None,
     files = sorted({a.source for a in areas if a.source and Path(a.source).is_file()})
     prov = provenance(profile=net.profile.fingerprint, network=net, inputs={
         ("areas" if i == 0 else f"areas_{i + 1}"): f for i, f in enumerate(files)})
+    from . import _context
+
+    shapes = gpd.GeoSeries([a.geometry for a in areas], crs=net.crs).to_crs("EPSG:4326")
+    w, s, e, n = shapes.total_bounds
+    context = _context.for_view(net, (w, s, e, n))
     return Review(results, net.profile, dict(net.meta), scenarios, at, list(areas), clipped,
-                  net.sources, prov)
+                  net.sources, prov, context)
 
 
 def _compare(base: dict[str, Any], new: dict[str, Any]) -> dict[str, Any]:
@@ -916,7 +923,8 @@ def review_csv(review: Review) -> str:
 
 
 def write_review(review: Review, *, out: str | Path | None = None,
-                 report_path: str | Path | None = None, force: bool = False) -> list[Path]:
+                 report_path: str | Path | None = None, force: bool = False,
+                 tiles: Any = None, bands: str = "fixed") -> list[Path]:
     """Write ``areas.csv``, ``areas.json`` and ``report.html`` to ``out``, and/or a report.
 
     The folder is assembled under a temporary name and moved into place when complete.
@@ -928,7 +936,7 @@ def write_review(review: Review, *, out: str | Path | None = None,
         check_target(out, force=force)
     if report_path is not None:
         check_target(report_path, force=force)
-    page = review_html(review)
+    page = review_html(review, tiles=tiles, bands=bands)
     if out is not None:
         with atomic_directory(out, force=force) as tmp:
             write_text_atomic(tmp / "areas.csv", review_csv(review))
@@ -943,8 +951,12 @@ def write_review(review: Review, *, out: str | Path | None = None,
 # ------------------------------------------------------------------------------ map and HTML
 
 
-def review_map(review: Review) -> folium.Map:
-    """Return the offline map of the areas: streets by band, hot spots, clusters, sources."""
+def review_map(review: Review, *, tiles: Any = None, bands: str = "fixed") -> folium.Map:
+    """Return the offline map of the areas: streets by class, hot spots, sources, background.
+
+    ``bands`` is ``fixed`` (the profile's bands) or ``quantiles`` (length-weighted quantiles
+    of the streets in the areas); the legend prints the thresholds.
+    """
     import folium
 
     from . import mapview
@@ -956,7 +968,8 @@ def review_map(review: Review) -> folium.Map:
         crs=next(iter(review.clipped.values())).crs)
     w, s, e, n = shapes.to_crs("EPSG:4326").total_bounds
     pad_x, pad_y = (e - w) * 0.05 + 1e-4, (n - s) * 0.05 + 1e-4
-    m = mapview.new_map((w - pad_x, s - pad_y, e + pad_x, n + pad_y))
+    m = mapview.new_map((w - pad_x, s - pad_y, e + pad_x, n + pad_y), tiles=tiles,
+                        context=review.context)
     outline = shapes.to_crs("EPSG:4326")
     outline["name"] = outline["name"].map(mapview.escape)
     layer = folium.FeatureGroup(name="proposed test areas", show=True)
@@ -975,7 +988,6 @@ def review_map(review: Review) -> folium.Map:
         clip["area"] = a["name"]
         clip["street"] = clip["name"].fillna("").astype(str)
         clip["in_area_km"] = clip["clip_m"] / 1000.0
-        clip["_colour"] = clip["band"].map(lambda b: mapview.band_colour(prof, b))
         frames.append(clip)
         spots = {(h["u"], h["v"], h["key"]): h for h in a["hotspots"]}
         if spots:
@@ -988,6 +1000,9 @@ def review_map(review: Review) -> folium.Map:
             hot_frames.append(hs)
     streets = gpd.GeoDataFrame(pd.concat(frames, ignore_index=True), geometry="geometry",
                                crs=shapes.crs)
+    cls = mapview.classes_for(prof, streets["exposure_km"], mode=bands,
+                              weights=streets["clip_m"])
+    streets["_colour"] = cls.colour_of(streets["exposure_km"])
     fields = {"area": "area", "street": "street", "highway": "road class",
               "band": "exposure band", "exposure_km": "exposure per km",
               "in_area_km": "km in area", "speed_kph": "speed km/h", "crossings": "crossings"}
@@ -998,20 +1013,25 @@ def review_map(review: Review) -> folium.Map:
                           opacity=0.45, fields={"area": "area", "street": "street",
                                                 "_exposure": "exposure",
                                                 "reasons": "reasons"})
-    mapview.add_lines(m, streets, name="streets in the areas by exposure band",
-                      colour_col="_colour", fields=fields)
+    mapview.add_lines(m, streets, name="streets in the areas by exposure",
+                      colour_col="_colour", fields=fields, casing="#5b5347", weight=3.5)
     src = _sources_near(review, shapes)
-    if src is not None and len(src):
-        mapview.add_sources(m, src, labels={c.name: c.label for c in prof.categories})
-    folium.LayerControl(collapsed=False).add_to(m)
-    items = [(mapview.band_colour(prof, b.name), f"{b.name} (from {b.lower:g} per km)")
-             for b in prof.bands]
-    items.append((HOTSPOT_COLOUR, "hot spot (dark halo)"))
-    items += [(mapview.CATEGORY_COLOURS.get(c.name, "#555"), c.label)
-              for c in prof.categories]
+    drawn = src if src is not None and len(src) else None
+    if drawn is not None:
+        mapview.add_sources(m, drawn, labels={c.name: c.label for c in prof.categories})
+    mapview.layer_control(m)
+    legend = cls.legend_items()
+    items: list[tuple[str | None, str]] = [(None, "street exposure per km"), *legend[1:],
+                                           (None, legend[0][1])]
+    items.append((mapview.line_swatch(HOTSPOT_COLOUR, width=11, opacity=0.45),
+                  "hot spot (dark halo)"))
+    items.append((mapview.area_swatch("#ffffff", stroke="#1d3557", dash="6 4", opacity=0.1),
+                  "proposed test area"))
+    items += (mapview.category_items(prof, drawn) if drawn is not None else [])
     mapview.add_panel(m, mapview.legend_html(
         "Area review", items, extra=f"<div>profile {mapview.escape(prof.name)} "
-                                    f"{mapview.escape(prof.fingerprint)}</div>"))
+                                    f"{mapview.escape(prof.fingerprint)}</div>",
+        background=mapview.background_of(m)))
     return m
 
 
@@ -1228,7 +1248,7 @@ def _model_text(prof: Profile) -> str:
     return " ".join(parts)
 
 
-def review_html(review: Review) -> str:
+def review_html(review: Review, *, tiles: Any = None, bands: str = "fixed") -> str:
     """Return the self-contained HTML report of a review."""
     r = report
     prof = review.profile
@@ -1261,7 +1281,8 @@ def review_html(review: Review) -> str:
                           title="km by exposure band (directed)", ylabel="km"),
                           alt="km by exposure band per area"),
                       anchor_id="compare")]
-    body.append(r.section("Map", r.map_html(review_map(review), title="map of the areas"),
+    body.append(r.section("Map", r.map_html(review_map(review, tiles=tiles, bands=bands),
+                                            title="map of the areas"),
                           r.note_html("Streets are drawn once per segment; hot spots have a "
                                       "dark halo. The map works offline."), anchor_id="map"))
     toc = [("compare", "side by side"), ("map", "map")]

@@ -22,7 +22,6 @@ from . import CAUTION, mapview, scoring  # noqa: E402
 from ._io import dumps_json, write_text_atomic  # noqa: E402
 from .scoring import RouteScore  # noqa: E402
 
-RISK_COLOURS = ("#3f7f6e", "#9bb53f", "#c9a227", "#d2632b", "#8e2a58")
 
 
 def png_data_uri(fig: Any) -> str:
@@ -108,8 +107,10 @@ def risk_chart(scores: list[RouteScore], title: str = "Risk along the route") ->
         seg = s.segments
         d = np.concatenate([[0], np.cumsum(seg["length_m"].to_numpy()) / 1000.0])
         r = np.concatenate([[0], np.cumsum(seg["risk"].to_numpy())])
-        ax.plot(d, r, color=mapview.ROUTE_COLOURS[i % len(mapview.ROUTE_COLOURS)],
-                label=f"{s.name} @ {s.depart.strftime('%a %H:%M')}", lw=1.8)
+        dash = mapview.ROUTE_DASHES[i % len(mapview.ROUTE_DASHES)]
+        style = {"dashes": [float(x) / 2 for x in dash.split()]} if dash else {}
+        ax.plot(d, r, color="#333333", label=f"{s.name} @ {s.depart.strftime('%a %H:%M')}",
+                lw=1.8, **style)
     ax.set_xlabel("distance driven (km)")
     ax.set_ylabel("cumulative risk")
     ax.set_title(title, fontsize=10)
@@ -120,45 +121,98 @@ def risk_chart(scores: list[RouteScore], title: str = "Risk along the route") ->
     return png_data_uri(fig)
 
 
-def _risk_colour(values: np.ndarray) -> list[str]:
-    if len(values) == 0:
-        return []
-    per_km = values
-    qs = np.quantile(per_km, [0.2, 0.4, 0.6, 0.8])
-    idx = np.searchsorted(qs, per_km, side="right")
-    return [RISK_COLOURS[i] for i in idx]
+def _rule_zone_layer(m: Any, net: Any, edges: Any, *, bounds: Any = None) -> list[str]:
+    """Draw each hard rule's zone as a wide translucent band; return the rules drawn."""
+    prof = net.profile
+    drawn = []
+    for i, rule in enumerate(prof.rules):
+        col = f"rule_{i}"
+        part = edges[edges[col]] if col in edges else edges.iloc[0:0]
+        if bounds is not None and len(part):
+            w, s, e, n = bounds
+            ll = part.to_crs("EPSG:4326")
+            part = part[ll.intersects(_box(w, s, e, n)).to_numpy()]
+        if len(part):
+            part = part.assign(_z=mapview.RULE_ZONE_COLOUR, rule=rule.name)
+            mapview.add_lines(m, part, name=f"hard-rule zone: {rule.name}", colour_col="_z",
+                              fields={"street": "street", "rule": "rule"}, weight=12,
+                              opacity=0.28)
+            drawn.append(rule.name)
+    return drawn
 
 
-def route_map(net: Any, scores: list[RouteScore], *, tiles: str | None = None,
-              title: str = "Scored test routes") -> Any:
-    """Return a map of the routes coloured by segment risk per km, with chart and caution."""
+def _box(w: float, s: float, e: float, n: float) -> Any:
+    import shapely
+
+    dx, dy = (e - w) * 0.15 + 2e-4, (n - s) * 0.15 + 2e-4
+    return shapely.box(w - dx, s - dy, e + dx, n + dy)
+
+
+def rule_zone_items(drawn: list[str]) -> list[tuple[str | None, str]]:
+    """Return the legend rows of the rule zones drawn."""
+    return [(mapview.line_swatch(mapview.RULE_ZONE_COLOUR, width=10, opacity=0.28),
+             f"hard-rule zone: {name}") for name in drawn]
+
+
+def _add_rule_breaks(m: Any, scores: list[RouteScore]) -> int:
     import folium
 
+    n = 0
+    svg = mapview.rule_break_svg()
+    layer = folium.FeatureGroup(name="rule breaks", show=True)
+    for s in scores:
+        for b in s.rule_breaks:
+            folium.Marker([round(b["lat"], 7), round(b["lon"], 7)],
+                          icon=folium.DivIcon(html=svg, icon_size=(18, 18), icon_anchor=(9, 9),
+                                              class_name="rr-symbol"),
+                          tooltip=mapview.escape(f"rule broken: {b['rule']} on "
+                                                 f"{b['street']} at {b['time']}")).add_to(layer)
+            n += 1
+    if n:
+        layer.add_to(m)
+    return n
+
+
+def route_map(net: Any, scores: list[RouteScore], *, tiles: Any = None,
+              title: str = "Scored test routes", bands: str = "fixed") -> Any:
+    """Return a map of the routes coloured by segment risk per km, with chart and caution.
+
+    Segments are classed by their risk per km at the time driven: ``bands="fixed"`` uses
+    the profile's band bounds (risk per km is exposure per km scaled by the hour's
+    multipliers and the speed's severity, so the bounds keep their meaning), ``quantiles``
+    cuts the segments shown by length. The legend prints the thresholds. Each route keeps
+    its own dash pattern, so overlapping routes stay apart.
+    """
     gdf = segments_gdf(net, scores)
     ll = gdf.total_bounds if len(gdf) else net.edges.to_crs("EPSG:4326").total_bounds
-    m = mapview.new_map(tuple(ll), tiles=tiles)
-    per_km = np.where(gdf["length_m"] > 0, gdf["risk"] / (gdf["length_m"] / 1000.0), 0.0)
+    m = mapview.new_map(tuple(ll), tiles=tiles, context=net)
+    per_km = np.where(gdf["length_m"] > 0, gdf["risk"] / (gdf["length_m"] / 1000.0), 0.0) \
+        if len(gdf) else np.zeros(0)
     gdf["risk_per_km"] = per_km
-    gdf["_c"] = _risk_colour(per_km)
+    cls = mapview.classes_for(net.profile, per_km, mode=bands,
+                              weights=gdf["length_m"] if len(gdf) else None,
+                              unit="risk per km")
+    gdf["_c"] = cls.colour_of(per_km)
+    edges = net.edges.reset_index()
+    edges["street"] = edges["name"].fillna("")
+    zones = _rule_zone_layer(m, net, edges, bounds=tuple(ll))
     fields = {"route": "route", "street": "street", "time": "entered", "risk": "risk",
               "risk_per_km": "risk per km", "band": "exposure band"}
     for c in net.profile.categories:
         fields[f"part_{c.name}"] = f"part: {c.label.lower()}"
     fields["baseline"] = "part: street baseline"
     fields["crossing_part"] = "part: crossings"
-    for s in scores:
+    route_items: list[tuple[str | None, str]] = [(None, "routes (one dash pattern each)")]
+    for i, s in enumerate(scores):
         key = (gdf["route"] == s.name) & (gdf["depart"] == s.depart.isoformat())
-        mapview.add_lines(m, gdf[key].to_crs(net.crs), name=f"{s.name} @ "
-                          f"{s.depart.strftime('%a %d %b %H:%M')}", colour_col="_c",
-                          fields=fields, weight=6)
-    for s in scores:
-        for b in s.rule_breaks:
-            folium.CircleMarker([b["lat"], b["lon"]], radius=7, color="#000", weight=2,
-                                fill=True, fill_color="#ffffff", fill_opacity=1,
-                                tooltip=mapview.escape(f"rule broken: {b['rule']} on "
-                                                       f"{b['street']} at {b['time']}")
-                                ).add_to(m)
-    folium.LayerControl(collapsed=False).add_to(m)
+        dash = mapview.ROUTE_DASHES[i % len(mapview.ROUTE_DASHES)]
+        label = f"{s.name} @ {s.depart.strftime('%a %d %b %H:%M')}"
+        mapview.add_lines(m, gdf[key].to_crs(net.crs), name=label, colour_col="_c",
+                          fields=fields, weight=6, dash=dash, casing="#2b2b2b")
+        route_items.append((mapview.line_swatch("#8a8a8a", dash=dash, width=5,
+                                                casing="#2b2b2b"), label))
+    n_breaks = _add_rule_breaks(m, scores)
+    mapview.layer_control(m)
     rows = "".join(
         f"<tr><td>{mapview.escape(s.name)}</td><td>{s.depart.strftime('%a %H:%M')}</td>"
         f"<td>{s.risk:.3f}</td><td>{s.relative_index:.2f}</td><td>{len(s.rule_breaks)}</td>"
@@ -166,13 +220,18 @@ def route_map(net: Any, scores: list[RouteScore], *, tiles: str | None = None,
     table = ("<table style='font-size:11px'><tr><th>route</th><th>depart</th><th>risk</th>"
              f"<th>index</th><th>rule breaks</th></tr>{rows}</table>")
     chart = f'<img alt="risk along distance" style="width:300px" src="{risk_chart(scores)}">'
-    items = list(zip(RISK_COLOURS, ["lowest fifth of segments by risk per km", "second fifth",
-                                    "middle fifth", "fourth fifth", "highest fifth"],
-                     strict=True))
-    mapview.add_panel(m, mapview.legend_html(title, items, extra=table + chart +
-                                             f"<div>profile {mapview.escape(net.profile.name)}"
-                                             f" {mapview.escape(net.profile.fingerprint)}</div>"
-                                             + _model_html(net.profile)))
+    legend = cls.legend_items()
+    items: list[tuple[str | None, str]] = [(None, "segment risk per km at the time driven"),
+                                           *legend[1:], (None, legend[0][1]), *route_items]
+    items += rule_zone_items(zones)
+    if n_breaks:
+        items.append((mapview.rule_break_svg(14), "hard rule broken here"))
+    mapview.add_panel(m, mapview.collapsible("Routes, risk and chart", table + chart),
+                      position="topleft", dom_id="rr-side")
+    mapview.add_panel(m, mapview.legend_html(title, items, extra=(
+        f"<div>profile {mapview.escape(net.profile.name)}"
+        f" {mapview.escape(net.profile.fingerprint)}</div>" + _model_html(net.profile)),
+        background=mapview.background_of(m)))
     return m
 
 
@@ -197,8 +256,8 @@ def output_meta(net: Any, inputs: dict[str, Any] | None = None) -> dict[str, Any
 
 
 def write_outputs(net: Any, scores: list[RouteScore], out: str | Path, *,
-                  force: bool = False, tiles: str | None = None,
-                  inputs: dict[str, Any] | None = None) -> Path:
+                  force: bool = False, tiles: Any = None,
+                  inputs: dict[str, Any] | None = None, bands: str = "fixed") -> Path:
     """Write routes.csv, segments.geojson and map.html into ``out`` atomically.
 
     Each records the tool version, the profile fingerprint and the input checksums
@@ -212,7 +271,7 @@ def write_outputs(net: Any, scores: list[RouteScore], out: str | Path, *,
                 f"# {scoring.RELATIVE_INDEX_NOTE}\n# {scoring.model_note(net.profile)}\n"
                 + _round_floats(table).to_csv(index=False, lineterminator="\n"))
     geojson = geojson_text(segments_gdf(net, scores), meta)
-    m = route_map(net, scores, tiles=tiles)
+    m = route_map(net, scores, tiles=tiles, bands=bands)
     mapview.add_provenance(m, {k: meta[k] for k in ("routerisk_version", "profile", "inputs")})
     page = mapview.render(m)
     with atomic_directory(out, force=force) as tmp:
@@ -247,49 +306,44 @@ def tradeoff_chart(s: Any) -> str:
     return png_data_uri(fig)
 
 
-def suggestion_map(net: Any, suggestions: list[Any], *, tiles: str | None = None,
-                   inputs: dict[str, Any] | None = None) -> Any:
-    """Return one offline map: network by band, sources, rule zones, plans and alternatives.
+def suggestion_map(net: Any, suggestions: list[Any], *, tiles: Any = None,
+                   inputs: dict[str, Any] | None = None, bands: str = "fixed") -> Any:
+    """Return one offline map: network by class, sources, rule zones, plans and alternatives.
 
-    Each planned route and each alternative is its own switchable layer; a side panel lists
-    them with their risk and time changes and shows the trade-off chart of each route.
+    Each planned route and each alternative is its own switchable layer, drawn in its own
+    colour and dash pattern (planned: solid ink); a side panel lists them with their risk
+    and time changes and shows the trade-off chart of each route.
     """
-    import folium
-
     prof = net.profile
     ll = net.edges.to_crs("EPSG:4326").total_bounds
-    m = mapview.new_map(tuple(ll), tiles=tiles)
+    m = mapview.new_map(tuple(ll), tiles=tiles, context=net)
     edges = net.edges.reset_index()
-    edges["_c"] = edges["band"].map(lambda b: mapview.band_colour(prof, b))
+    cls = mapview.classes_for(prof, edges["exposure_km"], mode=bands, weights=edges["length"])
+    edges["_c"] = cls.colour_of(edges["exposure_km"])
     edges["street"] = edges["name"].fillna("")
-    mapview.add_lines(m, edges, name="network by exposure band", colour_col="_c",
+    mapview.add_lines(m, edges, name="network by exposure", colour_col="_c",
                       fields={"street": "street", "band": "exposure band",
-                              "exposure_km": "exposure per km"}, weight=2, opacity=0.6)
+                              "exposure_km": "exposure per km"}, weight=2.5, opacity=0.8)
+    zones = _rule_zone_layer(m, net, edges)
     mapview.add_sources(m, net.sources, labels={c.name: c.label for c in prof.categories})
-    zone_cols = [f"rule_{i}" for i in range(len(prof.rules))]
-    for i, rule in enumerate(prof.rules):
-        part = edges[edges[zone_cols[i]]] if zone_cols[i] in edges else edges.iloc[0:0]
-        if len(part):
-            part = part.assign(_z="#5a4fcf", rule=rule.name)
-            mapview.add_lines(m, part, name=f"hard-rule zone: {rule.name}", colour_col="_z",
-                              fields={"street": "street", "rule": "rule"}, weight=7,
-                              opacity=0.35)
     fields = {"street": "street", "time": "entered", "risk": "risk", "band": "exposure band"}
     for c in prof.categories:
         fields[f"part_{c.name}"] = f"part: {c.label.lower()}"
     fields["baseline"] = "part: street baseline"
     fields["crossing_part"] = "part: crossings"
     rows_html = []
+    n_alt = 0
     for s in suggestions:
         options = [("planned", s.planned, None)] + [(a.label, a.score, a) for a in
                                                      s.alternatives]
         for j, (label, score, alt) in enumerate(options):
             gdf = segments_gdf(net, [score]).to_crs(net.crs)
-            gdf["_c"] = "#1d1d1d" if alt is None else mapview.ROUTE_COLOURS[
-                (j) % len(mapview.ROUTE_COLOURS)]
+            k = j % len(mapview.ROUTE_COLOURS)
+            gdf["_c"] = mapview.ROUTE_COLOURS[k]
+            n_alt = max(n_alt, j)
             mapview.add_lines(m, gdf, name=f"{s.name}: {label}", colour_col="_c",
                               fields=fields, weight=5 if alt is None else 4,
-                              opacity=0.9 if alt is None else 0.75)
+                              opacity=0.95, dash=mapview.ROUTE_DASHES[k])
             if alt is None:
                 change = f"risk {score.risk:.3f}, {score.duration_min:.1f} min"
             else:
@@ -301,27 +355,39 @@ def suggestion_map(net: Any, suggestions: list[Any], *, tiles: str | None = None
                              if score.rule_breaks else ""))
             notes = "".join(f"<br><small><i>{mapview.escape(c)}</i></small>"
                             for c in (alt.caveats if alt is not None else []))
-            rows_html.append(f"<li><b>{mapview.escape(s.name)}</b> {mapview.escape(label)}: "
-                             f"{mapview.escape(change)}{notes}</li>")
+            sw = mapview.line_swatch(mapview.ROUTE_COLOURS[k], dash=mapview.ROUTE_DASHES[k])
+            rows_html.append(f"<li>{sw} <b>{mapview.escape(s.name)}</b> "
+                             f"{mapview.escape(label)}: {mapview.escape(change)}{notes}</li>")
         if s.note:
             rows_html.append(f"<li><i>{mapview.escape(s.name)}: {mapview.escape(s.note)}</i>"
                              "</li>")
         rows_html.extend(f"<li><small>{word}: {mapview.escape(t)}</small></li>"
                          for word, texts in (("why", s.reasons), ("next step", s.next_steps))
                          for t in texts)
-    folium.LayerControl(collapsed=True).add_to(m)
+    n_breaks = _add_rule_breaks(m, [x for s in suggestions for x in
+                                    [s.planned, *(a.score for a in s.alternatives)]])
+    mapview.layer_control(m, collapsed=True)
     charts = "".join(f'<img alt="trade-off" style="width:290px" src="{tradeoff_chart(s)}">'
                      for s in suggestions)
-    side = (f"<h4>Planned routes and alternatives</h4><ul style='padding-left:16px;margin:0'>"
-            f"{''.join(rows_html)}</ul>{charts}")
-    mapview.add_panel(m, f"<div style='max-height:80vh;overflow:auto'>{side}</div>",
+    side = (f"<ul style='padding-left:4px;margin:0;list-style:none'>{''.join(rows_html)}</ul>"
+            f"{charts}")
+    mapview.add_panel(m, mapview.collapsible("Planned routes and alternatives", side),
                       position="topleft", dom_id="rr-side")
-    items = [(mapview.band_colour(prof, b.name), f"network: {b.name}") for b in prof.bands]
-    items.append(("#1d1d1d", "planned route"))
-    items += [(mapview.ROUTE_COLOURS[i], f"alternative {i}") for i in range(1, 4)]
+    legend = cls.legend_items()
+    items: list[tuple[str | None, str]] = [(None, "network exposure per km"), *legend[1:],
+                                           (None, legend[0][1]),
+                                           (None, "routes (colour and dash pattern)")]
+    items.append((mapview.line_swatch(mapview.ROUTE_COLOURS[0]), "planned route"))
+    items += [(mapview.line_swatch(mapview.ROUTE_COLOURS[i], dash=mapview.ROUTE_DASHES[i]),
+               f"alternative {i}") for i in range(1, max(n_alt, 1) + 1)]
+    items += rule_zone_items(zones)
+    if n_breaks:
+        items.append((mapview.rule_break_svg(14), "hard rule broken here"))
+    items += mapview.category_items(prof, net.sources)
     mapview.add_panel(m, mapview.legend_html("Lower-exposure alternatives", items,
                                              extra=f"<div>profile {mapview.escape(prof.name)} "
-                                                   f"{mapview.escape(prof.fingerprint)}</div>"))
+                                                   f"{mapview.escape(prof.fingerprint)}</div>",
+                                             background=mapview.background_of(m)))
     from ._io import provenance
 
     mapview.add_provenance(m, provenance(profile=prof.fingerprint, network=net, inputs=inputs))

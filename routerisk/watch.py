@@ -322,7 +322,7 @@ def flag_map(net: Any, result: WatchResult, prov: dict[str, Any] | None = None) 
     flagged = result.segments[result.segments["flagged"]]
     edges = net.edges.reset_index()
     ll = net.edges.to_crs("EPSG:4326").total_bounds
-    m = mapview.new_map(tuple(ll))
+    m = mapview.new_map(tuple(ll), context=net)
     edges["_c"] = "#b9b4a8"
     edges["street"] = edges["name"].fillna("")
     mapview.add_lines(m, edges, name="network", colour_col="_c", fields={}, weight=2,
@@ -335,8 +335,10 @@ def flag_map(net: Any, result: WatchResult, prov: dict[str, Any] | None = None) 
                           fields={"street": "street", "events": "events",
                                   "expected": "expected", "eb_rate": "EB rate per km",
                                   "p_value": "p-value"})
+    mapview.layer_control(m)
     mapview.add_panel(m, mapview.legend_html("Early warnings", [
-        ("#c1121f", "segment flagged (FDR-controlled)"), ("#b9b4a8", "network")]))
+        ("#c1121f", "segment flagged (FDR-controlled)"), ("#b9b4a8", "network")],
+        background=mapview.background_of(m)))
     if prov is not None:
         mapview.add_provenance(m, prov)
     return m

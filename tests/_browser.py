@@ -90,6 +90,13 @@ def inspect_page(page: Path, *, screenshot: Path | None = None, script: str = "1
         cdp.call("Page.navigate", url=page.resolve().as_uri())
         cdp.drain(3.0)
         value = cdp.call("Runtime.evaluate", expression=script, returnByValue=True)
+        # a script that is not ready yet returns null: on a loaded machine a heavy page
+        # (a report with a map inside) may need longer than the first wait
+        for _ in range(24):
+            if value.get("result", {}).get("value") is not None:
+                break
+            cdp.drain(0.5)
+            value = cdp.call("Runtime.evaluate", expression=script, returnByValue=True)
         if screenshot is not None:
             import base64
 

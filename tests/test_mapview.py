@@ -57,6 +57,7 @@ def test_renders_in_headless_chromium_offline(town_map, tmp_path):
     assert res["errors"] == []
     assert res["requests"] == []
     n_layers, n_canvas, legend = res["value"]
-    assert n_layers == 1 + 7  # streets by band + one layer per source category
+    # background + streets by class + one layer per source category
+    assert n_layers == 1 + 1 + 7
     assert n_canvas >= 1 and legend
     assert (tmp_path / "map.png").stat().st_size > 10000

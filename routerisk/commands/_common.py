@@ -72,3 +72,23 @@ def cluster_of(args: argparse.Namespace) -> Iterator[tuple[Any, float] | None]:
     partition.check_tile(tile_m)
     with partition.cluster(workers=args.workers, scheduler=args.scheduler) as client:
         yield client, tile_m
+
+
+def add_map_options(parser: argparse.ArgumentParser) -> None:
+    """Add ``--tiles SOURCE`` and ``--bands fixed|quantiles`` (map options, both optional)."""
+    parser.add_argument("--tiles", metavar="SOURCE",
+                        help="optional background tiles: an .mbtiles file (embedded), a "
+                             "folder of z/x/y tiles, or a URL template with {z}/{x}/{y} "
+                             "(online); the maps never need them")
+    parser.add_argument("--bands", choices=("fixed", "quantiles"), default="fixed",
+                        help="map classes: the profile's fixed bands (default; comparable "
+                             "across areas) or quantiles of the streets shown")
+
+
+def tiles_of(args: argparse.Namespace) -> Any:
+    """Return the checked ``--tiles`` source (None without one); a bad one is an error."""
+    if getattr(args, "tiles", None) is None:
+        return None
+    from ..mapview import tile_source
+
+    return tile_source(args.tiles)

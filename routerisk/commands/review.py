@@ -10,7 +10,7 @@ from .._io import check_target, dumps_json
 from ..errors import OptionError
 from ..network import load_network
 from ..profile import load_profile
-from ._common import add_cluster, cluster_of
+from ._common import add_cluster, add_map_options, cluster_of, tiles_of
 
 HELP = "review proposed test areas: exposure, hot spots, closures under the hard rules"
 
@@ -53,6 +53,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     add("--top", type=int, default=10, metavar="N", help="hot spots per area (default 10)")
     add("--high-from", dest="high_from", metavar="BAND",
         help="lowest band counted as high for clusters (default: upper half of the bands)")
+    add_map_options(parser)
     add_cluster(parser, "clip the areas (and re-tag for --profile and weight what-ifs)")
 
 
@@ -100,6 +101,7 @@ def run(args: argparse.Namespace) -> int:
         if target is not None:
             check_target(target, force=args.force, folder=folder)
     at = review.parse_time(args.at) if args.at is not None else None
+    map_tiles = tiles_of(args)
     profile = load_profile(args.profile) if args.profile else None
     with cluster_of(args) as tiles:
         clipper = tagger = None
@@ -115,7 +117,7 @@ def run(args: argparse.Namespace) -> int:
         result = review.review_areas(net, areas, at=at, what_ifs=what_ifs, top=args.top,
                                      high_bands=high, clipper=clipper, tagger=tagger)
     written = review.write_review(result, out=args.out, report_path=args.report,
-                                  force=args.force)
+                                  force=args.force, tiles=map_tiles, bands=args.bands)
     doc = result.to_json()
     if args.json:
         print(dumps_json(doc))

@@ -9,7 +9,7 @@ from pathlib import Path
 from .. import CAUTION, routemap, routes, scoring
 from .._io import check_target, dumps_json, provenance
 from ..network import zone_label
-from ._common import add_network, network_of
+from ._common import add_map_options, add_network, network_of, tiles_of
 
 #: the text table's headings (short, so a row fits a terminal; meanings printed below)
 SHORT_HEADINGS = ["rank", "route", "departs", "km", "min", "risk", "risk/km", "rel. index",
@@ -34,19 +34,21 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--out", type=Path, metavar="DIR",
                         help="write routes.csv, segments.geojson and map.html here")
     parser.add_argument("--force", action="store_true", help="replace an existing --out")
-    parser.add_argument("--tiles", metavar="URL", help="online background tiles (optional)")
+    add_map_options(parser)
 
 
 def run(args: argparse.Namespace) -> int:
     """Run ``score``."""
     if args.out:
         check_target(args.out, force=args.force, folder=True)  # before any work
+    tiles = tiles_of(args)
     net = network_of(args)
     departs = [scoring.parse_depart(d, net.timezone) for d in (args.depart or [])]
     planned = routes.read_routes(args.routes, default_tz=net.timezone)
     scores = scoring.score_routes(net, planned, departs)
     if args.out:
-        routemap.write_outputs(net, scores, args.out, force=args.force, tiles=args.tiles,
+        routemap.write_outputs(net, scores, args.out, force=args.force, tiles=tiles,
+                               bands=args.bands,
                                inputs={"routes": args.routes})
     if args.json:
         print(dumps_json({"routes": [s.to_dict() for s in scores],

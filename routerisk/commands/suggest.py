@@ -10,7 +10,7 @@ from .._io import check_target, dumps_json, provenance
 from ..alternatives import suggest_routes
 from ..errors import OptionError
 from ..network import zone_label
-from ._common import add_network, network_of
+from ._common import add_map_options, add_network, network_of, tiles_of
 
 HELP = "suggest lower-exposure alternatives to planned routes within a time bound"
 
@@ -48,7 +48,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="also keep every Nth waypoint as a required via point")
     parser.add_argument("--map", type=Path, metavar="FILE", help="write the HTML map here")
     parser.add_argument("--force", action="store_true", help="replace an existing --map")
-    parser.add_argument("--tiles", metavar="URL", help="online background tiles (optional)")
+    add_map_options(parser)
     parser.add_argument("--json", action="store_true", help="print the result as JSON")
 
 
@@ -60,6 +60,7 @@ def run(args: argparse.Namespace) -> int:
         raise OptionError("must be at least 1", field="--keep-every")
     if args.map:
         check_target(args.map, force=args.force, folder=False)  # before any work
+    tiles = tiles_of(args)
     net = network_of(args)
     departs = [scoring.parse_depart(d, net.timezone) for d in (args.depart or [])]
     planned = routes.read_routes(args.routes, default_tz=net.timezone)
@@ -68,7 +69,7 @@ def run(args: argparse.Namespace) -> int:
                             max_extra_length=args.max_extra_length,
                             min_difference=args.min_difference, keep_every=args.keep_every)
     if args.map:
-        mapview.save(routemap.suggestion_map(net, result, tiles=args.tiles,
+        mapview.save(routemap.suggestion_map(net, result, tiles=tiles, bands=args.bands,
                                              inputs={"routes": args.routes}),
                      args.map, force=args.force)
     if args.json:
