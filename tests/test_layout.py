@@ -30,7 +30,8 @@ NOT_YET_SPLIT = {
     "early_warning.py": 1040,  # empirical Bayes, Benjamini-Hochberg, Poisson CUSUM
     "alternatives.py": 923,  # lower-exposure alternatives
     "_simplify.py": 727,  # the vectorised graph build
-    "serve/app.py": 748,  # the planning page API: routes, requests, network layer
+    "serve/app.py": 748,
+    "mapview.py": 860,  # folium maps: background, classes, legends, symbols, tiles  # the planning page API: routes, requests, network layer
 }
 
 
