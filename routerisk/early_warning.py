@@ -818,8 +818,8 @@ def _lattice(value: float, grid: int) -> int:
     return int(round(value * grid))
 
 
-def _arl_lattice(mean: float, kk: int, hh: int, grid: int) -> float:
-    """Return the zero-start ARL of the lattice chart (states 0..hh in units of 1/grid)."""
+def _transient(mean: float, kk: int, hh: int, grid: int) -> sparse.csc_matrix:
+    """Return the transient transition matrix of the lattice chart (states 0..hh)."""
     n = hh + 1
     i = np.arange(n)
     # to state 0: i + grid x - kk <= 0  <=>  x <= (kk - i) / grid
@@ -835,9 +835,15 @@ def _arl_lattice(mean: float, kk: int, hh: int, grid: int) -> float:
         rows.append(i[ok])
         cols.append(j[ok])
         vals.append(np.full(int(ok.sum()), pmf[x]))
-    q = sparse.csc_matrix(
+    return sparse.csc_matrix(
         (np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))), shape=(n, n)
     )
+
+
+def _arl_lattice(mean: float, kk: int, hh: int, grid: int) -> float:
+    """Return the zero-start ARL of the lattice chart (states 0..hh in units of 1/grid)."""
+    q = _transient(mean, kk, hh, grid)
+    n = hh + 1
     a = (sparse.identity(n, format="csc") - q).tocsc()
     arl = np.atleast_1d(sparse_linalg.spsolve(a, np.ones(n)))
     return float(arl[0])
@@ -1038,3 +1044,141 @@ def cusum_alerts(
         out = out.sort_values([period, group], kind="stable").reset_index(drop=True)
     log.info("cusum_alerts: %d groups, %d alarmed", work["g"].nunique(), len(out))
     return out
+
+
+# ---------------------------------------------------------------------------------------------
+# Over-dispersion
+# ---------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class Dispersion:
+    """Whether unit counts vary more than Poisson noise around ``E_i m``.
+
+    Attributes
+    ----------
+    pearson_chi2, df, pearson_ratio, pearson_p
+        Pearson's ``X2 = sum (k_i - E_i m)**2 / (E_i m)`` with the pooled rate ``m``, its
+        degrees of freedom ``n - 1``, ``X2 / df`` and the upper tail ``chi2.sf(X2, df)``
+        (scipy). With many small expected counts the chi-square reference is rough; the
+        likelihood-ratio test below is the one that decides.
+    prior
+        The negative binomial (gamma-Poisson) fit by maximum likelihood (NB2 with the
+        exposure as offset, the model statsmodels' ``NegativeBinomial(loglike_method="nb2")``
+        fits with an intercept only).
+    lr_stat, lr_p
+        ``2 (loglik_NB - loglik_Poisson)`` and its p-value against the boundary mixture
+        ``0.5 chi2(0) + 0.5 chi2(1)`` (1/shape = 0 lies on the edge of the parameter space;
+        Self and Liang 1987, JASA 82:605-610 [memory]).
+    alpha
+        Level of the test.
+    """
+
+    pearson_chi2: float
+    df: int
+    pearson_ratio: float
+    pearson_p: float
+    prior: GammaPrior
+    lr_stat: float
+    lr_p: float
+    alpha: float
+
+    @property
+    def significant(self) -> bool:
+        """Return True when the likelihood-ratio test rejects Poisson at ``alpha``."""
+        return bool(self.lr_p < self.alpha)
+
+    @property
+    def inv_shape(self) -> float:
+        """Return ``1 / shape`` of the fitted negative binomial (0 when collapsed)."""
+        return 0.0 if self.prior.collapsed else 1.0 / self.prior.shape
+
+    def as_dict(self) -> dict[str, Any]:
+        """Return the test as JSON-safe, rounded values."""
+        return {
+            "pearson_chi2": round(self.pearson_chi2, 6), "df": self.df,
+            "pearson_ratio": round(self.pearson_ratio, 6),
+            "pearson_p": float(f"{self.pearson_p:.6g}"),
+            "negbin_inv_shape": round(self.inv_shape, 6),
+            "lr_stat": round(self.lr_stat, 6), "lr_p": float(f"{self.lr_p:.6g}"),
+            "alpha": self.alpha, "significant": self.significant,
+        }
+
+
+def dispersion_test(events: ArrayLike, exposure: ArrayLike, *, alpha: float = 0.05
+                    ) -> Dispersion:
+    """Test the unit counts for extra-Poisson variation (see :class:`Dispersion`).
+
+    Parameters
+    ----------
+    events, exposure
+        Counts ``k_i`` and weighted exposures ``E_i`` per unit, as for :func:`fit_gamma_prior`.
+    alpha
+        Level of the likelihood-ratio test; 0.05 is a convention [practice].
+    """
+    if not 0 < alpha < 1:
+        raise OptionError(f"must be between 0 and 1, got {alpha}", field="alpha")
+    k = _counts(events, "events")
+    e = _positive(exposure, "km", allow_zero=True)
+    prior = fit_gamma_prior(k, e, method="likelihood")
+    use = e > 0
+    k, e = k[use], e[use]
+    m = k.sum() / e.sum()
+    df = max(int(k.size) - 1, 1)
+    x2 = float(np.sum((k - e * m) ** 2 / (e * m))) if m > 0 else 0.0
+    ll0 = _nb_loglik(k, e, float(m), 0.0)
+    ll1 = ll0 if prior.collapsed else _nb_loglik(k, e, prior.mean, 1.0 / prior.shape)
+    lr = max(0.0, 2.0 * (ll1 - ll0))
+    lr_p = 1.0 if lr <= 0 else 0.5 * float(stats.chi2.sf(lr, 1))
+    return Dispersion(x2, df, x2 / df, float(stats.chi2.sf(x2, df)), prior, lr, lr_p, alpha)
+
+
+# ---------------------------------------------------------------------------------------------
+# A family of CUSUM charts
+# ---------------------------------------------------------------------------------------------
+
+
+def family_arl(designs: list[CusumDesign], *, tol: float = 1e-12, max_steps: int = 20000
+               ) -> float:
+    """Return the in-control run length of a family of independent charts run together.
+
+    The family alarms at the first alarm of any chart, so its run length is the minimum of
+    the charts' run lengths and ``P(RL_F > t) = prod_i P(RL_i > t)`` for independent
+    charts. Each chart's survival ``P(RL_i > t)`` is the zero-start entry of ``Q_i^t 1``
+    for its lattice Markov chain (Brook and Evans 1972) [memory], so the sum
+    ``ARL_F = sum_t P(RL_F > t)`` is exact for the lattice charts, each chart seeing one
+    period at its own ``mu0`` per step. Once the survival ratio from step to step settles
+    (the chain's leading eigenvalue) the tail is summed as a geometric series.
+    """
+    if not designs:
+        raise OptionError("no charts in the family", field="charts")
+    qs = [_transient(d.mu0, _lattice(d.k, d.grid), _lattice(d.h, d.grid), d.grid)
+          for d in designs]
+    q = sparse.block_diag(qs, format="csr")
+    starts = np.concatenate([[0], np.cumsum([m.shape[0] for m in qs])[:-1]])
+    v = np.ones(q.shape[0])
+    total, surv, prev_ratio = 0.0, 1.0, -1.0
+    for _ in range(max_steps):
+        total += surv
+        v = q @ v
+        new = float(np.prod(v[starts]))
+        if new <= 0:
+            return total
+        ratio = new / surv
+        surv = new
+        if surv < 1e-15 or abs(ratio - prev_ratio) < tol:
+            return total + surv / (1.0 - ratio) if ratio < 1 else math.inf
+        prev_ratio = ratio
+    return total + surv / (1.0 - prev_ratio) if prev_ratio < 1 else math.inf
+
+
+def false_alarms_per(days: float, designs: list[CusumDesign],
+                     shares: ArrayLike | None = None) -> float:
+    """Return the expected false alarms of a family over ``days`` periods of driving.
+
+    Chart ``i`` runs on a share ``s_i`` of the periods (1 by default) and alarms falsely
+    about once per ``arl0_i`` of its own periods, so the family gives
+    ``days * sum_i s_i / arl0_i`` (the renewal rate; each chart restarted after an alarm).
+    """
+    s = np.ones(len(designs)) if shares is None else np.asarray(shares, dtype=float)
+    return float(days * np.sum(s / np.array([d.arl0 for d in designs])))
