@@ -331,7 +331,7 @@ def _hour_of_week(hour_bin: np.ndarray) -> np.ndarray:
                     dtype=object)
 
 
-def _units(edges: pd.DataFrame, unit: str) -> pd.DataFrame:
+def discovery_units(edges: pd.DataFrame, unit: str) -> pd.DataFrame:
     """Return one row per network edge: its unit id, street and direction in the unit.
 
     ``segment``: each directed edge is its own unit. ``block``: an edge and its reverse
@@ -497,7 +497,7 @@ def watch(net: Any, events_path: str | Path, drives_folder: str | Path, *, q: fl
     mean = float((expo * km)[driven].sum() / km[driven].sum()) if driven.any() else 0.0
     weights = {"modelled": np.maximum(expo / mean if mean > 0 else np.ones(n), 1e-6),
                "distance": np.ones(n)}
-    mem = _units(edges, unit)
+    mem = discovery_units(edges, unit)
     mem["events"], mem["km"] = counts, km
     mem["band"] = edges["band"].astype(str).to_numpy()
     for kind in EXPECTED:
@@ -514,7 +514,7 @@ def watch(net: Any, events_path: str | Path, drives_folder: str | Path, *, q: fl
         used[kind] = "negbin" if nb else "poisson"
         parts[kind], _ = early_warning.unit_rates(
             tab, weight="weight", q=q, method="likelihood" if nb else "moments",
-            pvalue="prior" if nb else "poisson")
+            pvalue="prior_loo" if nb else "poisson")
     rates = parts[expected].copy()
     for col in ("street", "band", "u", "v", "key", "events_forward", "events_backward",
                 "km_forward", "km_backward"):
@@ -804,4 +804,5 @@ def write_outputs(net: Any, result: WatchResult, out: str | Path, *, force: bool
     return Path(out)
 
 
-__all__ = ["watch", "write_outputs", "match_events", "read_drives", "split_by_hour", "dt"]
+__all__ = ["discovery_units", "watch", "write_outputs", "match_events", "read_drives",
+           "split_by_hour", "dt"]
