@@ -453,6 +453,27 @@ def _nb_loglik(k: NDArray[np.float64], e: NDArray[np.float64], m: float, phi: fl
     return float(np.sum(ll))
 
 
+def _nb_score(k: NDArray[np.float64], e: NDArray[np.float64], m: float, phi: float
+              ) -> NDArray[np.float64]:
+    """Return the gradient of :func:`_nb_loglik` in ``(log m, phi)``.
+
+    ``d/dlog m = sum (k - x) / (1 + phi x)`` and ``d/dphi = sum [sum_{j<k} j / (1 + j phi)
+    + log1p(phi x) / phi**2 - (1/phi + k) x / (1 + phi x)]`` with ``x = E m``; below
+    ``phi = 1e-8`` the last two terms take their limit ``x**2 / 2 - k x``.
+    """
+    x = e * m
+    kmax = int(k.max()) if k.size else 0
+    j = np.arange(kmax)
+    cum = np.concatenate([[0.0], np.cumsum(j / (1.0 + j * phi))])
+    ki = k.astype(np.int64)
+    d_logm = np.sum((k - x) / (1.0 + phi * x))
+    if phi < 1e-8:
+        rest = x * x / 2.0 - k * x
+    else:
+        rest = np.log1p(phi * x) / phi**2 - (1.0 / phi + k) * x / (1.0 + phi * x)
+    return np.array([float(d_logm), float(np.sum(cum[ki] + rest))])
+
+
 def _lgamma1(k: NDArray[np.float64]) -> NDArray[np.float64]:
     return np.asarray(gammaln(k + 1.0), dtype=float)
 
@@ -462,6 +483,7 @@ def fit_gamma_prior(
     exposure: ArrayLike,
     *,
     method: Literal["moments", "likelihood"] = "moments",
+    start: tuple[float, float] | None = None,
 ) -> GammaPrior:
     r"""Fit the gamma prior of the unit rate across units.
 
@@ -509,7 +531,8 @@ def fit_gamma_prior(
     ``a / b = m``). The likelihood fit collapses likewise when ``1 / a`` reaches 0.
 
     **Likelihood fit.** Maximises the negative-binomial marginal likelihood in ``(log m,
-    phi = 1 / a)`` with L-BFGS-B, ``0 <= phi <= 1e4``, started at the moment estimate.
+    phi = 1 / a)`` with L-BFGS-B and the analytic score, ``0 <= phi <= 1e4``, started at the
+    moment estimate or at ``start = (m, phi)`` when given (e.g. a fit to nearly the same data).
     """
     if method not in ("moments", "likelihood"):
         raise OptionError(f"unknown method {method!r} (moments, likelihood)", field="method")
@@ -536,11 +559,15 @@ def fit_gamma_prior(
     phi0 = v_mom / (m * m) if v_mom > 0 else 0.1
     x0 = np.array([math.log(m), min(max(phi0, 1e-3), 10.0)])
 
+    if start is not None and start[0] > 0:
+        x0 = np.array([math.log(start[0]), min(max(start[1], 1e-6), _PHI_MAX)])
+
     def neg(theta: NDArray[np.float64]) -> float:
         return -_nb_loglik(k, e, math.exp(float(theta[0])), float(theta[1]))
 
     res = optimize.minimize(
-        neg, x0, method="L-BFGS-B", bounds=[(None, None), (0.0, _PHI_MAX)],
+        neg, x0, jac=lambda th: -_nb_score(k, e, math.exp(float(th[0])), float(th[1])),
+        method="L-BFGS-B", bounds=[(None, None), (0.0, _PHI_MAX)],
         options={"ftol": 1e-14, "gtol": 1e-10, "maxiter": 2000},
     )
     m_ml, phi = math.exp(float(res.x[0])), float(res.x[1])
@@ -575,6 +602,49 @@ def _prior_pvalues(
     return np.asarray(stats.nbinom.sf(k - 1, prior.shape, p), dtype=float)
 
 
+def _refit(k: NDArray[np.float64], e: NDArray[np.float64], start: tuple[float, float]
+           ) -> GammaPrior:
+    """Refit the likelihood prior from a nearby optimum by Newton steps on the score.
+
+    Used when one unit is left out: the optimum moves little, so a few Newton steps (Hessian
+    by central differences of the analytic score) converge; anything else (an optimum at or
+    near 1/shape = 0, a Hessian that is not negative definite, no convergence) falls back to
+    :func:`fit_gamma_prior`, which the result equals to optimiser precision.
+    """
+    m0, phi0 = start
+    use = e > 0
+    kk, ee = k[use], e[use]
+    if m0 > 0 and phi0 > 1e-6 and kk.sum() > 0:
+        th = np.array([math.log(m0), phi0])
+        for _ in range(30):
+            g = _nb_score(kk, ee, math.exp(th[0]), th[1])
+            hs = np.empty((2, 2))
+            for j in range(2):
+                d = 1e-6 * max(1.0, abs(th[j]))
+                up, dn = th.copy(), th.copy()
+                up[j] += d
+                dn[j] -= d
+                hs[:, j] = (_nb_score(kk, ee, math.exp(up[0]), up[1])
+                            - _nb_score(kk, ee, math.exp(dn[0]), dn[1])) / (2 * d)
+            hs = (hs + hs.T) / 2
+            if not (hs[0, 0] < 0 and np.linalg.det(hs) > 0):
+                break
+            step = np.linalg.solve(hs, g)
+            th = th - step
+            if th[1] <= 1e-6:
+                break
+            if np.all(np.abs(step) < 1e-10 * np.maximum(1.0, np.abs(th))):
+                m, phi = math.exp(th[0]), float(th[1])
+                m_pool, _ = _moment_fit(kk, ee)
+                if _nb_loglik(kk, ee, m, phi) > _nb_loglik(kk, ee, m_pool, 0.0):
+                    _, v_mom = _moment_fit(kk, ee)
+                    a = 1.0 / phi
+                    return GammaPrior(a, a / m, m, m * m * phi, v_mom, "likelihood", False,
+                                      int(kk.size))
+                break
+    return fit_gamma_prior(k, e, method="likelihood", start=start)
+
+
 def loo_prior_pvalues(events: ArrayLike, exposure: ArrayLike) -> NDArray[np.float64]:
     """Return each unit's negative binomial tail ``P(X >= k_i)`` under a prior fitted without it.
 
@@ -585,9 +655,13 @@ def loo_prior_pvalues(events: ArrayLike, exposure: ArrayLike) -> NDArray[np.floa
     e = _positive(exposure, "km", allow_zero=True)
     p = np.ones(k.size)
     keep = np.ones(k.size, dtype=bool)
+    if not np.any((k > 0) & (e > 0)):
+        return p
+    full = fit_gamma_prior(k, e, method="likelihood")
+    start = (full.mean, 0.0 if full.collapsed else 1.0 / full.shape)
     for i in np.flatnonzero((k > 0) & (e > 0)).tolist():
         keep[i] = False
-        prior = fit_gamma_prior(k[keep], e[keep], method="likelihood")
+        prior = _refit(k[keep], e[keep], start)
         keep[i] = True
         p[i] = float(_prior_pvalues(k[i:i + 1], e[i:i + 1], prior)[0])
     return p
