@@ -379,30 +379,9 @@ def discovery_units(edges: pd.DataFrame, unit: str) -> pd.DataFrame:
     ends: dict[int, tuple[int, int, int]] = {}
     seen: dict[str, int] = {}
     for b in sorted(set(block.tolist())):
-        members = [p for p in np.flatnonzero(block == b).tolist()]
-        adj: dict[int, list[tuple[int, int]]] = {}
-        for p in members:
-            a, c, _ = pairs[p]
-            adj.setdefault(int(a), []).append((p, int(c)))
-            adj.setdefault(int(c), []).append((p, int(a)))
-        tips = sorted(n for n, lst in adj.items() if len(lst) == 1)
-        start = tips[0] if tips else min(adj)
-        pos, cur, used = {start: 0}, start, set()
-        while True:
-            nxt = [(p, o) for p, o in adj[cur] if p not in used]
-            if not nxt:
-                break
-            p, o = min(nxt)
-            used.add(p)
-            if o in pos:
-                break
-            pos[o] = len(pos)
-            cur = o
-        for p in members:  # pairs the walk missed (should not happen) keep a stable order
-            for nd in (int(pairs[p][0]), int(pairs[p][1])):
-                pos.setdefault(nd, len(pos))
+        members = np.flatnonzero(block == b).tolist()
+        pos, start, end = _walk_block([(int(pairs[p][0]), int(pairs[p][1])) for p in members])
         order[b] = pos
-        end = tips[-1] if len(tips) > 1 else cur
         name = f"{start}-{end}"
         seen[name] = seen.get(name, 0) + 1
         if seen[name] > 1:
@@ -416,6 +395,31 @@ def discovery_units(edges: pd.DataFrame, unit: str) -> pd.DataFrame:
     out["end_v"] = [ends[b][1] for b in eb]
     out["end_key"] = [ends[b][2] for b in eb]
     return out
+
+
+def _walk_block(links: list[tuple[int, int]]) -> tuple[dict[int, int], int, int]:
+    """Walk a run of node pairs from its smaller end; return node order, start and end node."""
+    adj: dict[int, list[tuple[int, int]]] = {}
+    for p, (a, c) in enumerate(links):
+        adj.setdefault(a, []).append((p, c))
+        adj.setdefault(c, []).append((p, a))
+    tips = sorted(n for n, lst in adj.items() if len(lst) == 1)
+    start = tips[0] if tips else min(adj)
+    pos, cur, used = {start: 0}, start, set()
+    while True:
+        nxt = [(p, o) for p, o in adj[cur] if p not in used]
+        if not nxt:
+            break
+        p, o = min(nxt)
+        used.add(p)
+        if o in pos:
+            break
+        pos[o] = len(pos)
+        cur = o
+    for a, c in links:  # nodes the walk missed (should not happen) keep a stable order
+        pos.setdefault(a, len(pos))
+        pos.setdefault(c, len(pos))
+    return pos, start, tips[-1] if len(tips) > 1 else cur
 
 
 def _check_options(q: float, shift: float, arl0: float, arl0_family: float | None,

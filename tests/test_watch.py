@@ -67,7 +67,27 @@ def test_block_is_one_discovery_with_counts_per_direction(town_net, result):
     assert pd.DataFrame({"p": pair, "u": units["unit"]}).groupby("p")["u"].nunique().max() == 1
     seg_units = watch.discovery_units(town_net.edges, "segment")
     assert seg_units["unit"].nunique() == len(town_net.edges)
-    assert units["unit"].nunique() < len(town_net.edges) / 2 + 1
+    assert units["unit"].nunique() == len(set(pair)) < len(town_net.edges)
+
+
+def test_block_merges_the_run_between_intersections():
+    # 1-2-3 is one street through node 2, where nothing else meets (likewise 3-5-6 through
+    # node 5); node 3 is an intersection; at node 6 the street name changes, so 5-6 and 6-7
+    # stay apart.
+    links = [(1, 2, "Alder"), (2, 3, "Alder"), (3, 4, "Birch"), (3, 5, "Birch"),
+             (5, 6, "Birch"), (6, 7, "Cedar")]
+    rows = [(a, b, n) for a, b, n in links] + [(b, a, n) for a, b, n in links[:3]]
+    edges = pd.DataFrame({"name": [n for *_, n in rows]},
+                         index=pd.MultiIndex.from_tuples([(a, b, 0) for a, b, _ in rows],
+                                                         names=["u", "v", "key"]))
+    units = watch.discovery_units(edges, "block").set_index(["u", "v"])
+    assert units.loc[(1, 2), "unit"] == units.loc[(3, 2), "unit"] == "1-3"
+    assert units.loc[(1, 2), "forward"] and not units.loc[(3, 2), "forward"]
+    assert units.loc[(2, 3), "forward"] and not units.loc[(2, 1), "forward"]
+    assert units.loc[(3, 4), "unit"] != units.loc[(3, 5), "unit"]
+    assert units.loc[(3, 5), "unit"] == units.loc[(5, 6), "unit"] == "3-6"  # through node 5
+    assert units.loc[(5, 6), "unit"] != units.loc[(6, 7), "unit"]
+    assert units["unit"].nunique() == 4
 
 
 def test_modelled_and_distance_expectations_are_both_computed(result):
