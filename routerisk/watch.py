@@ -725,9 +725,11 @@ def write_outputs(net: Any, result: WatchResult, out: str | Path, *, force: bool
                 "eb_ratio", "p_value", "q_value", "flagged", "expected_modelled",
                 "expected_distance", "flagged_modelled", "flagged_distance", "disagree"]
         head = _comment([CAUTION, LIMITS, *how, provenance_line(prov)])
+        table = seg[cols].round(6)
+        for col in ("p_value", "q_value"):  # small p-values keep their digits
+            table[col] = [f"{x:.6g}" for x in seg[col]]
         (tmp / "segments.csv").write_text(
-            head + seg[cols].round(6).to_csv(index=False, lineterminator="\n"),
-            encoding="utf-8")
+            head + table.to_csv(index=False, lineterminator="\n"), encoding="utf-8")
         (tmp / "charts.csv").write_text(
             head + result.designs.round(6).to_csv(index=False, lineterminator="\n"),
             encoding="utf-8")
