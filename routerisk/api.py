@@ -454,7 +454,10 @@ def plan_evidence(*, benchmark: float, per: float, improvement: float = 0.2,
 def watch_events(network: Network, events: Events, drives: Routes, *, fdr: float = 0.1,
                  shift: float = 2.0, arl0: float = 500.0,
                  group: Literal["street", "band", "hour"] = "street",
-                 use_exposure: bool = True) -> WatchResult:
+                 unit: Literal["block", "segment"] = "block",
+                 test: Literal["auto", "negbin", "poisson"] = "auto",
+                 expected: Literal["modelled", "distance"] = "modelled",
+                 arl0_family: float | None = None) -> WatchResult:
     """Flag segments and groups where logged safety events run ahead of the miles driven.
 
     The same figures as ``routerisk watch``: events placed on the edges driven at their
@@ -476,8 +479,16 @@ def watch_events(network: Network, events: Events, drives: Routes, *, fdr: float
         In-control average run length of the CUSUM, in days (> 1).
     group
         CUSUM groups: ``"street"``, ``"band"`` or ``"hour"`` (of the week).
-    use_exposure
-        Weight the expected counts by modelled exposure (else by km driven only).
+    unit
+        Unit of discovery: ``"block"`` (both directions of a street block, merged between
+        intersections) or ``"segment"`` (each directed edge).
+    test
+        P-values: ``"auto"`` (negative binomial when the counts are over-dispersed),
+        ``"negbin"`` or ``"poisson"``.
+    expected
+        Expected counts by ``"modelled"`` exposure or by ``"distance"`` driven only.
+    arl0_family
+        In-control run length of the whole family of CUSUM charts, in days (optional).
 
     Returns
     -------
@@ -495,12 +506,12 @@ def watch_events(network: Network, events: Events, drives: Routes, *, fdr: float
     """
     from . import watch
 
-    with parameters({"--fdr": "fdr", "--drives": "drives"}):
-        watch.check_settings(q=fdr, shift=shift, arl0=arl0, group=group)
+    with parameters({"--fdr": "fdr", "--drives": "drives", "--arl0-family": "arl0_family"}):
+        opts = dict(q=fdr, shift=shift, arl0=arl0, arl0_family=arl0_family, group=group,
+                    unit=unit, test=test, expected=expected)
+        watch.check_settings(**opts)
         if not len(drives):
             raise OptionError("holds no drive", field="drives")
         matched = watch.match_drives(network, list(drives))
-        found = watch.watch_matched(network, events.events, events.rejected, matched, q=fdr,
-                                    shift=shift, arl0=arl0, group=group,
-                                    use_exposure=use_exposure)
+        found = watch.watch_matched(network, events.events, events.rejected, matched, **opts)
     return WatchResult(found, network)

@@ -21,7 +21,14 @@ def available() -> list[str]:
 
 
 def _folder() -> Path:
-    """Return the folder of the sample area: installed package data, or a source checkout."""
+    """Return the folder of the sample area: a source checkout's, else the installed one.
+
+    A source tree's ``sample_area/`` beside the package comes first, so that a checkout run
+    with ``PYTHONPATH`` (or a second worktree beside an editable install) reads its own files.
+    """
+    here = Path(__file__).resolve().parents[1] / "sample_area"
+    if (here / _FILES["town"]).is_file():
+        return here
     try:
         return Path(str(resources.files("routerisk.sample_area")))
     except ModuleNotFoundError:  # running from a source tree: sample_area/ beside the package

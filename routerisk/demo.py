@@ -123,8 +123,9 @@ def _stage_watch(net: Any, out: Path, echo: Callable[[str], None]) -> dict[str, 
                                 "drives": datasets.get_path("drives")})
     flagged = result.segments[result.segments["flagged"]]
     streets = sorted(set(flagged["street"]))
-    echo(f"early warnings: {len(result.matched)} events matched, {len(flagged)} segment(s) "
-         f"flagged ({', '.join(streets) or 'none'}), {len(result.alerts)} CUSUM alert(s)")
+    echo(f"early warnings: {len(result.matched)} events matched, {len(flagged)} "
+         f"{result.unit}(s) flagged ({', '.join(streets) or 'none'}; {result.test_used} test), "
+         f"{len(result.alerts)} CUSUM alert(s)")
     return {"warnings": result.to_dict()}
 
 

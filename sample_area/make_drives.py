@@ -2,9 +2,22 @@
 
 Deterministic (fixed seed): ``python sample_area/make_drives.py`` writes ``drives/*.gpx`` and
 ``events.csv`` beside this file. The drives walk fastest paths between fixed street corners of
-Corvane at 2 s sampling with Gaussian GPS noise (sigma 4 m); the events are a Poisson process
-along the driven kilometres at a base rate scaled by each street's modelled exposure, three times higher on one planted hot spot
-(a block of Tillerman Avenue), so the early-warning demo has something true to find.
+Corvane at 2 s sampling with Gaussian GPS noise (sigma 4 m). The events are a Poisson process
+along the driven kilometres whose rate does **not** follow the tool's exposure weights exactly,
+so the early-warning demo cannot merely confirm its own model:
+
+- the rate rises as each street's modelled exposure (relative to the town's mean) to the
+  power ``EXPOSURE_POWER`` = 0.75, not in proportion to it;
+- every street block (both directions of an edge pair and the run between intersections, as
+  ``routerisk watch --unit block`` merges them) carries its own gamma-distributed factor
+  (mean 1, shape ``BLOCK_SHAPE``), shared by both directions: unexplained differences between
+  blocks, i.e. over-dispersion;
+- one planted hot spot, the block of Tillerman Avenue between its corners ``HOT_BLOCK``, has
+  ``HOT_FACTOR`` times the rate (and no random factor), and every other drive passes it,
+  alternating direction.
+
+``tests/test_watch.py`` checks that the default ``watch`` (block units, negative binomial
+p-values chosen by the over-dispersion test) flags the planted block and at most one other.
 All of it is invented demo data (CC0).
 """
 
@@ -24,14 +37,18 @@ sys.path.insert(0, str(HERE.parent))
 
 from routerisk import datasets  # noqa: E402
 from routerisk.network import build_network  # noqa: E402
+from routerisk.watch import discovery_units  # noqa: E402
 
 SEED = 20270309
 N_DRIVES = 40
 SIGMA_M = 4.0
 SAMPLE_S = 2.0
 BASE_RATE_PER_KM = 1.5
-HOT_FACTOR = 3.0
+EXPOSURE_POWER = 0.75
+BLOCK_SHAPE = 6.0
+HOT_FACTOR = 4.0
 HOT_STREET = "Tillerman Avenue"
+HOT_BLOCK = "2-3"
 TZ = dt.timezone(dt.timedelta(hours=-3))
 
 
@@ -42,8 +59,14 @@ def main(out: Path = HERE) -> None:
     to_ll = pyproj.Transformer.from_crs(net.crs, "EPSG:4326", always_xy=True)
     nodes = sorted(G.nodes)
     edges = net.edges
-    hot = edges.index[edges["name"] == HOT_STREET]
-    hot_edges = set(hot[: max(1, len(hot) // 4)])  # one stretch of the avenue
+    blocks = discovery_units(edges, "block")
+    block_of = dict(zip(edges.index, blocks["unit"], strict=True))
+    names = sorted(set(blocks["unit"]))
+    factor = dict(zip(names, rng.gamma(BLOCK_SHAPE, 1.0 / BLOCK_SHAPE, len(names)),
+                      strict=True))
+    factor[HOT_BLOCK] = HOT_FACTOR
+    hot_edges = sorted(e for e, b in block_of.items() if b == HOT_BLOCK)
+    assert hot_edges and all(edges.at[e, "name"] == HOT_STREET for e in hot_edges)
     mean_exposure = float((edges["exposure_km"] * edges["length"]).sum() / edges["length"].sum())
     drives_dir = out / "drives"
     drives_dir.mkdir(exist_ok=True)
@@ -57,7 +80,7 @@ def main(out: Path = HERE) -> None:
                 break
         # route through a hot edge on every other drive so the hot spot is driven enough
         if d % 2 == 0:
-            hu, hv, _ = sorted(hot_edges)[d % len(hot_edges)]
+            hu, hv, _ = hot_edges[(d // 2) % len(hot_edges)]
             path = (nx.shortest_path(G, a, hu, weight="travel_time")[:-1]
                     + nx.shortest_path(G, hu, b, weight="travel_time"))
             if hv not in path:
@@ -75,10 +98,10 @@ def main(out: Path = HERE) -> None:
             for j, p in enumerate(xy):
                 pts.append((p.x + rng.normal(0, SIGMA_M), p.y + rng.normal(0, SIGMA_M)))
                 times.append(t + dt.timedelta(seconds=j * e["travel_time"] / n))
-            # events on this edge: Poisson in its km, planted factor on the hot stretch
-            # events follow the modelled pedestrian exposure (relative to the town's mean)
+            # events on this edge: Poisson in its km at a rate that follows a power (0.75)
+            # of the modelled exposure, times the block's own factor (HOT_FACTOR on the hot spot)
             rel = edges.at[(u, v, k), "exposure_km"] / mean_exposure
-            rate = BASE_RATE_PER_KM * rel * (HOT_FACTOR if (u, v, k) in hot_edges else 1.0)
+            rate = BASE_RATE_PER_KM * rel ** EXPOSURE_POWER * factor[block_of[(u, v, k)]]
             for _ in range(rng.poisson(rate * e["length"] / 1000.0)):
                 f = rng.uniform(0.05, 0.95)
                 p = e["geometry"].interpolate(f, normalized=True)

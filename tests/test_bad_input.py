@@ -817,7 +817,7 @@ def test_events_beyond_the_calendar_are_left_out(tmp_path, capsys, town_dir):
     ev = _write(tmp_path / "events.csv", "time,lat,lon,type\n"
                 "9999-12-31T23:59:59+14:00,38.4890,-38.0000,stop\n"
                 "0001-01-01T00:00:00-12:00,38.4890,-38.0000,stop\n"
-                "2027-03-01T08:10:03-03:00,38.4893403,-37.9999431,stop\n")
+                "2027-03-01T08:02:03-03:00,38.4892562,-38.0069354,stop\n")  # drive-01
     assert main(["watch", str(ev), "--drives", str(drives), "--network", str(town_dir),
                  "--json"]) == 0
     doc = json.loads(capsys.readouterr().out)

@@ -602,3 +602,122 @@ def test_cusum_design_errors():
         ew.design_cusum(0.0)
     with pytest.raises(OptionError):
         ew.design_cusum(1.0, arl0=1.0)
+
+
+# ---------------------------------------------------------------------------------------------
+# Over-dispersion, negative binomial and leave-one-out prior predictive p-values
+# ---------------------------------------------------------------------------------------------
+
+
+def _nb_units(seed, n=150, inv_shape=0.3):
+    rng = np.random.default_rng(seed)
+    e = rng.uniform(0.2, 5.0, n)
+    theta = rng.gamma(1 / inv_shape, inv_shape, n) if inv_shape > 0 else np.ones(n)
+    return rng.poisson(1.3 * e * theta).astype(float), e
+
+
+def test_dispersion_pearson_is_scipys_chi_square():
+    # Pearson chi-square with the pooled rate and n - 1 degrees of freedom; tail from
+    # scipy.stats.chi2 (reference library), statistic computed here independently.
+    k, e = _nb_units(3)
+    d = ew.dispersion_test(k, e)
+    m = k.sum() / e.sum()
+    x2 = float(np.sum((k - e * m) ** 2 / (e * m)))
+    assert d.pearson_chi2 == pytest.approx(x2, rel=1e-12)
+    assert d.df == k.size - 1
+    assert d.pearson_ratio == pytest.approx(x2 / (k.size - 1), rel=1e-12)
+    assert d.pearson_p == pytest.approx(stats.chi2.sf(x2, k.size - 1), rel=1e-9)
+
+
+def test_negative_binomial_fit_matches_statsmodels():
+    # Reference library: statsmodels NegativeBinomial (NB2, loglike_method="nb2") with an
+    # intercept and the exposure as offset fits the same model as fit_gamma_prior's
+    # likelihood method: mean E m, Var = mu (1 + alpha mu), alpha = 1/shape.
+    sm = pytest.importorskip("statsmodels.api")
+    k, e = _nb_units(5, inv_shape=0.3)
+    ref = sm.NegativeBinomial(k, np.ones((k.size, 1)), exposure=e, loglike_method="nb2").fit(
+        disp=0, maxiter=500, method="bfgs", gtol=1e-10)
+    mine = ew.dispersion_test(k, e)
+    assert mine.prior.mean == pytest.approx(math.exp(ref.params[0]), rel=1e-4)
+    assert mine.inv_shape == pytest.approx(ref.params[1], rel=1e-3)
+    ll_pois = float(np.sum(stats.poisson.logpmf(k, e * k.sum() / e.sum())))  # scipy
+    assert mine.lr_stat == pytest.approx(2 * (ref.llf - ll_pois), rel=1e-5)
+    # boundary mixture 0.5 chi2(0) + 0.5 chi2(1) (Self and Liang 1987) [memory]
+    assert mine.lr_p == pytest.approx(0.5 * stats.chi2.sf(mine.lr_stat, 1), rel=1e-9)
+    assert mine.significant
+
+
+def test_dispersion_not_significant_for_poisson_counts():
+    # Poisson counts with a common rate: the likelihood-ratio test rejects at 5 % in about
+    # 5 % of samples at most; over 40 seeded samples at most 6 rejections (binomial tail,
+    # derived here: P(X >= 7 | n=40, p=0.05) ~ 0.014 under an exact 5 % test).
+    rejected = sum(ew.dispersion_test(*_nb_units(100 + s, inv_shape=0.0)).significant
+                   for s in range(40))
+    assert rejected <= 6, rejected
+
+
+def test_loo_prior_pvalues_equal_explicit_refits():
+    # Each unit's tail under the prior fitted by maximum likelihood on the other units,
+    # recomputed here by plain refits; the tail itself is scipy.stats.nbinom.sf.
+    k, e = _nb_units(8, n=60, inv_shape=0.4)
+    k[0] += 25  # a hot unit
+    p = ew.loo_prior_pvalues(k, e)
+    for i in range(k.size):
+        if k[i] == 0:
+            assert p[i] == 1.0
+            continue
+        keep = np.arange(k.size) != i
+        pr = ew.fit_gamma_prior(k[keep], e[keep], method="likelihood")
+        ref = stats.nbinom.sf(k[i] - 1, pr.shape, pr.rate / (pr.rate + e[i]))
+        assert p[i] == pytest.approx(ref, rel=1e-5, abs=1e-12), i
+    # the hot unit stands out more against a prior it did not help to fit
+    full = ew.unit_rates(pd.DataFrame({"unit": range(k.size), "events": k, "km": e}),
+                         method="likelihood", pvalue="prior")[0]["p_value"].to_numpy()
+    assert p[0] < full[0]
+
+
+# ---------------------------------------------------------------------------------------------
+# A family of charts
+# ---------------------------------------------------------------------------------------------
+
+
+def _family_run_lengths(designs, runs, seed, chunk=128):
+    """Simulate the family's run length: the first day any of the charts alarms."""
+    rng = np.random.default_rng(seed)
+    rl = np.full(runs, np.inf)
+    s = np.zeros((len(designs), runs))
+    t0 = 0
+    alive = np.ones(runs, dtype=bool)
+    while alive.any():
+        first = np.full(runs, np.inf)
+        for j, d in enumerate(designs):
+            x = rng.poisson(d.mu0, (runs, chunk))
+            path = ew.cusum_path(x, d.mu0, design=d, start=s[j])
+            over = d.alarm(path)
+            hit = over.any(axis=1)
+            first[hit] = np.minimum(first[hit], np.argmax(over[hit], axis=1) + 1)
+            s[j] = path[:, -1]
+        new = alive & np.isfinite(first)
+        rl[new] = t0 + first[new]
+        alive &= ~new
+        t0 += chunk
+    return rl
+
+
+def test_family_run_length_matches_simulation_within_ten_percent():
+    # Each of 6 charts designed at 60 x 6 = 360 periods (the --arl0-family design); the exact
+    # combined run length (product of the charts' Markov-chain survival functions) is checked
+    # by a seeded simulation of all six charts together, 3000 runs, within 10 %.
+    mus = [0.2, 0.5, 0.8, 1.2, 2.0, 3.5]
+    designs = [ew.design_cusum(m, ratio=2.0, arl0=60 * len(mus)) for m in mus]
+    exact = ew.family_arl(designs)
+    rl = _family_run_lengths(designs, 3000, seed=17)
+    sim, se = rl.mean(), rl.std() / math.sqrt(rl.size)
+    msg = f"family ARL exact {exact:.1f}, simulated {sim:.1f} +- {se:.1f}"
+    assert sim == pytest.approx(exact, rel=0.10), msg
+    assert exact == pytest.approx(60, rel=0.15), msg  # the design meets its family target
+    # a single chart's "family" is the chart itself
+    assert ew.family_arl(designs[:1]) == pytest.approx(designs[0].arl0, rel=1e-6)
+    # renewal rate: 30 x sum 1/ARL0_i false alarms per 30 periods
+    assert ew.false_alarms_per(30, designs) == pytest.approx(
+        30 * sum(1 / d.arl0 for d in designs), rel=1e-12)

@@ -70,6 +70,7 @@ EXTRA_INPUTS = {
     "review/areas.json": ("area",), "review/report.html": ("area",),
     "review/areas.csv": ("area",), "warnings/overlay.yaml": ("events", "drives"),
     "warnings/segments.csv": ("events", "drives"), "warnings/map.html": ("events", "drives"),
+    "warnings/charts.csv": ("events", "drives"),
     "warnings/report.html": ("events", "drives"), "evidence.txt": ("drives",),
     "evidence_chart.png": ("drives",), "summary.json": ("routes", "area", "events", "drives"),
 }
