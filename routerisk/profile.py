@@ -486,6 +486,21 @@ def parse_profile(data: Any, *, path: str | Path = "<profile>") -> Profile:
     )
 
 
+def safe_load_yaml(text: str) -> Any:
+    """Return ``yaml.safe_load(text)``, parsed by libyaml when PyYAML has it (ten times faster).
+
+    Both build the same values with the same constructor; on a syntax error the text is read
+    again by the pure-Python parser so the error message is PyYAML's usual one.
+    """
+    loader = getattr(yaml, "CSafeLoader", None)
+    if loader is not None:
+        try:
+            return yaml.load(text, Loader=loader)  # noqa: S506 - a safe loader
+        except yaml.YAMLError:
+            pass
+    return yaml.safe_load(text)
+
+
 def load_profile(path: str | Path | None = None) -> Profile:
     """Read and validate a profile file (YAML or TOML); None reads the bundled default."""
     p = DEFAULT_PROFILE if path is None else Path(path)
@@ -496,7 +511,7 @@ def load_profile(path: str | Path | None = None) -> Profile:
         if p.suffix.lower() == ".toml":
             data = tomllib.loads(text)
         else:
-            data = yaml.safe_load(text)
+            data = safe_load_yaml(text)
     except (yaml.YAMLError, tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
         first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
         raise ProfileError(f"cannot parse: {first}", path=p) from exc

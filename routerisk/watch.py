@@ -25,13 +25,14 @@ import pyproj
 import shapely
 
 from . import early_warning, matching, routes
+from ._cli_text import WATCH_GROUPS
 from .errors import InputFileError, OptionError
 
 log = logging.getLogger(__name__)
 
 MAX_TIME_GAP_S = 30.0
 MAX_OFFSET_M = 50.0
-GROUPS = ("street", "band", "hour")
+GROUPS = WATCH_GROUPS
 #: Event years accepted (as for route times, routerisk.routes).
 YEARS = (1900, 2200)
 

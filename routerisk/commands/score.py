@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from .. import CAUTION, routemap, routes, scoring
+from .. import CAUTION
 from .._io import check_target, dumps_json, provenance
 from ._common import add_network, network_of
 
@@ -29,6 +29,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Run ``score``."""
+    from .. import routes, scoring
+
     if args.out:
         check_target(args.out, force=args.force, folder=True)  # before any work
     net = network_of(args)
@@ -36,7 +38,9 @@ def run(args: argparse.Namespace) -> int:
     planned = routes.read_routes(args.routes, default_tz=net.timezone)
     scores = scoring.score_routes(net, planned, departs)
     if args.out:
-        routemap.write_outputs(net, scores, args.out, force=args.force, tiles=args.tiles,
+        from ..routemap import write_outputs
+
+        write_outputs(net, scores, args.out, force=args.force, tiles=args.tiles,
                                inputs={"routes": args.routes})
     if args.json:
         print(dumps_json({"routes": [s.to_dict() for s in scores],
@@ -44,7 +48,9 @@ def run(args: argparse.Namespace) -> int:
                           "made_from": provenance(profile=net.profile.fingerprint, network=net,
                                                   inputs={"routes": args.routes})}))
     else:
-        table = routemap.ranking_table(scores)
+        from ..routemap import ranking_table
+
+        table = ranking_table(scores)
         cols = ["rank", "name", "depart", "length_km", "duration_min", "risk", "risk_per_km",
                 "relative_index", "rule_breaks"]
         print(table[cols].to_string(index=False, float_format=lambda v: f"{v:.3f}"))

@@ -5,7 +5,8 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from .. import CAUTION, watch
+from .. import CAUTION
+from .._cli_text import WATCH_GROUPS
 from .._io import check_target, dumps_json, provenance
 from ._common import network_of
 
@@ -26,7 +27,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="rate ratio the CUSUM is tuned to detect (2.0)")
     parser.add_argument("--arl0", type=float, default=500.0,
                         help="in-control average run length of the CUSUM, in days (500)")
-    parser.add_argument("--group", default="street", choices=watch.GROUPS,
+    parser.add_argument("--group", default="street", choices=WATCH_GROUPS,
                         help="CUSUM groups: street, band or hour (of week)")
     parser.add_argument("--no-exposure", action="store_true",
                         help="expected counts from km driven only, not weighted by exposure")
@@ -41,6 +42,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Run ``watch``."""
+    from .. import watch
+
     args.overlay = None
     if args.out:
         check_target(args.out, force=args.force, folder=True)  # before any work
