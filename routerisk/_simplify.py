@@ -71,10 +71,31 @@ class RawEdges:
     groups: list[dict[str, Any]]  # raw attributes of each group (without length)
 
 
+#: osmnx's ``osmnx.distance.EARTH_RADIUS_M`` (metres).
+EARTH_RADIUS_M = 6_371_009
+
+
+def great_circle(lat1: np.ndarray, lon1: np.ndarray, lat2: np.ndarray, lon2: np.ndarray
+                 ) -> np.ndarray:
+    """Return ``osmnx.distance.great_circle`` (haversine, metres) in the same operations.
+
+    Written out here because importing osmnx (and through it matplotlib.pyplot) costs more
+    than a second of start-up; tests/test_simplify.py checks the values are osmnx's to the bit.
+    """
+    y1 = np.deg2rad(lat1)
+    y2 = np.deg2rad(lat2)
+    delta_y = y2 - y1
+    x1 = np.deg2rad(lon1)
+    x2 = np.deg2rad(lon2)
+    delta_x = x2 - x1
+    h = np.sin(delta_y / 2) ** 2 + np.cos(y1) * np.cos(y2) * np.sin(delta_x / 2) ** 2
+    h = np.minimum(1, h)
+    arc = 2 * np.arcsin(np.sqrt(h))
+    return arc * EARTH_RADIUS_M
+
+
 def raw_edges(raw: RawOSM) -> RawEdges:
     """Return the raw edges of the drivable ways of ``raw``, in osmnx insertion order."""
-    from osmnx.distance import great_circle
-
     ways = raw.ways
     nw = len(ways)
     counts = np.fromiter((len(w.refs) for w in ways), dtype=np.int64, count=nw)

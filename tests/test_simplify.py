@@ -161,3 +161,16 @@ def test_network_graph_equals_osmnx_graph_from_gdfs(town_dir):
     ref = ox.convert.graph_from_gdfs(net.nodes, net.edges,
                                      graph_attrs={"crs": net.edges.crs.to_string()})
     _assert_same_graph(ref, net.graph)
+
+
+def test_great_circle_is_osmnx_to_the_bit(real_pbf):
+    # reference: osmnx.distance.great_circle (the function _simplify writes out)
+    rng = np.random.default_rng(3)
+    lat = rng.uniform(-89, 89, (2, 5000))
+    lon = rng.uniform(-180, 180, (2, 5000))
+    lat[1, :50] = lat[0, :50]
+    lon[1, :50] = lon[0, :50]  # zero distances
+    ours = _simplify.great_circle(lat[0], lon[0], lat[1], lon[1])
+    theirs = ox.distance.great_circle(lat[0], lon[0], lat[1], lon[1])
+    assert np.array_equal(ours, theirs)
+    assert _simplify.EARTH_RADIUS_M == ox.distance.EARTH_RADIUS_M
