@@ -102,8 +102,9 @@ def _median(xs: list[float]) -> float:
     return round(statistics.median(xs), 3)
 
 
-def bench(work: Path, names: list[str], repeat: int) -> dict[str, Any]:
-    """Run the interleaved rounds; return the record."""
+def bench(work: Path, names: list[str], repeat: int, *, warm: bool = True,
+          out: Path | None = None) -> dict[str, Any]:
+    """Run the interleaved rounds; return the record (also written to ``out`` each round)."""
     py = sys.executable
     files = _prepare(work, names)
     net_dir = work / "net"
@@ -126,9 +127,11 @@ def bench(work: Path, names: list[str], repeat: int) -> dict[str, Any]:
     jobs["--version"] = [py, "-m", "routerisk", "--version"]
     times: dict[str, list[tuple[float, float]]] = {k: [] for k in jobs}
     for key, cmd in jobs.items():  # warm-up: byte-code caches, the town network
-        _timed(cmd, work)
-        print(f"warm: {key}", file=sys.stderr, flush=True)
+        if warm or not key.startswith(("build ", "osmnx ")) or key == "build town":
+            _timed(cmd, work)
+            print(f"warm: {key}", file=sys.stderr, flush=True)
     del times["build town"]  # only made the network that score reads
+    rec: dict[str, Any] = {}
     for r in range(repeat):
         for name in files:  # interleaved: ours, then theirs, then the other order
             pair = [f"build {name}", f"osmnx {name}"]
@@ -137,11 +140,20 @@ def bench(work: Path, names: list[str], repeat: int) -> dict[str, Any]:
         for key in ("score one route", "--help", "--version"):
             times[key].append(_timed(jobs[key], work))
         print(f"round {r + 1} of {repeat} done", file=sys.stderr, flush=True)
+        rec = _record(times, list(files), r + 1)
+        if out is not None:  # after every round, so a stopped run keeps what it measured
+            out.write_text(json.dumps(rec, indent=2, sort_keys=True) + "\n", encoding="utf-8")
+    shutil.rmtree(net_dir, ignore_errors=True)
+    return rec
+
+
+def _record(times: dict[str, list[tuple[float, float]]], names: list[str], rounds: int
+            ) -> dict[str, Any]:
     rec: dict[str, Any] = {
         "machine": {"cpus": os.cpu_count(), "python": platform.python_version(),
                     "platform": platform.platform(),
                     "load_average_at_end": [round(x, 2) for x in os.getloadavg()]},
-        "repeat": repeat,
+        "repeat": rounds,
         "median_wall_s": {k: _median([w for w, _ in v]) for k, v in times.items()},
         "median_cpu_s": {k: _median([c for _, c in v]) for k, v in times.items()},
         "runs": {k: [[round(w, 3), round(c, 3)] for w, c in v] for k, v in times.items()},
@@ -151,8 +163,7 @@ def bench(work: Path, names: list[str], repeat: int) -> dict[str, Any]:
                              / rec["median_wall_s"][f"osmnx {name}"], 3),
                "cpu": round(rec["median_cpu_s"][f"build {name}"]
                             / rec["median_cpu_s"][f"osmnx {name}"], 3)}
-        for name in files}
-    shutil.rmtree(net_dir, ignore_errors=True)
+        for name in names}
     return rec
 
 
@@ -184,6 +195,8 @@ def main() -> None:
                     help="folder for the generated inputs (kept for the next run)")
     ap.add_argument("--inputs", default=",".join(INPUTS), help="comma-separated inputs")
     ap.add_argument("--markdown", action="store_true", help="print the recorded table only")
+    ap.add_argument("--no-warm-builds", action="store_true",
+                    help="skip the untimed first run of the builds (caches already warm)")
     args = ap.parse_args()
     out = RESULTS / "cli.json"
     if not args.markdown:
@@ -191,9 +204,8 @@ def main() -> None:
         bad = sorted(set(names) - set(INPUTS))
         if bad:
             raise SystemExit(f"unknown inputs {bad}; known: {', '.join(INPUTS)}")
-        rec = bench(args.work.resolve(), names, args.repeat)
         RESULTS.mkdir(exist_ok=True)
-        out.write_text(json.dumps(rec, indent=2, sort_keys=True) + "\n", encoding="utf-8")
+        bench(args.work.resolve(), names, args.repeat, warm=not args.no_warm_builds, out=out)
     print(markdown(json.loads(out.read_text(encoding="utf-8"))))
 
 
