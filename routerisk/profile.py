@@ -492,12 +492,15 @@ def safe_load_yaml(text: str) -> Any:
     Both build the same values with the same constructor; on a syntax error the text is read
     again by the pure-Python parser so the error message is PyYAML's usual one.
     """
-    loader = getattr(yaml, "CSafeLoader", None)
-    if loader is not None:
+    fast = getattr(yaml, "CSafeLoader", None)  # libyaml's parser, PyYAML's safe constructor
+    if fast is not None:
+        parser = fast(text)
         try:
-            return yaml.load(text, Loader=loader)  # noqa: S506 - a safe loader
+            return parser.get_single_data()
         except yaml.YAMLError:
             pass
+        finally:
+            parser.dispose()
     return yaml.safe_load(text)
 
 
