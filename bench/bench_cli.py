@@ -175,7 +175,8 @@ def markdown(rec: dict[str, Any]) -> str:
     w, c = rec["median_wall_s"], rec["median_cpu_s"]
     rows = ["| input | routerisk build, s (wall / CPU) | osmnx process, s (wall / CPU) | "
             "ratio wall | ratio CPU |", "| --- | ---: | ---: | ---: | ---: |"]
-    for name, r in rec["ratios"].items():
+    for name in [n for n in INPUTS if n in rec["ratios"]]:
+        r = rec["ratios"][name]
         rows.append(f"| {label[name]} | {w[f'build {name}']:.2f} / {c[f'build {name}']:.2f} | "
                     f"{w[f'osmnx {name}']:.2f} / {c[f'osmnx {name}']:.2f} | {r['wall']:.2f} | "
                     f"{r['cpu']:.2f} |")
