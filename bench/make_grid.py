@@ -40,8 +40,9 @@ def write_grid(out: str | Path, size: int, *, seed: int = 0) -> dict[str, int]:
 
     for i in range(size):
         for j in range(size):
-            lines.append(f'  <node id="{nid(i, j)}" version="1" lat="{lat0 + (i - half) * dlat:.7f}"'
-                         f' lon="{lon0 + (j - half) * dlon:.7f}"/>')
+            lat, lon = lat0 + (i - half) * dlat, lon0 + (j - half) * dlon
+            lines.append(f'  <node id="{nid(i, j)}" version="1" lat="{lat:.7f}"'
+                         f' lon="{lon:.7f}"/>')
     rng = np.random.default_rng(seed)
     extra = size * size + 1
     pois = []

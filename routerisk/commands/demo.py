@@ -5,7 +5,6 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-
 HELP = "run every stage on the bundled invented town of Corvane and write maps and reports"
 
 
