@@ -22,8 +22,10 @@ found by pointer jumping (list ranking) on the edge arrays. Interstitial nodes w
 directed edges made of parallel duplicates (``a -> x`` twice) walk in osmnx in ways that
 depend on the traversal, so for those rare inputs :func:`build_frames` raises
 :class:`NeedsReference` and the loader uses the osmnx pipeline instead; it does the same when
-the largest strongly connected part is tied or smaller than half the graph, or when isolated
-nodes would be kept, where osmnx's order comes from Python sets.
+isolated nodes would be kept (``--all-parts``), where osmnx's order comes from Python sets.
+A largest strongly connected part that is tied or smaller than half the graph (clipped or
+fragmented extracts) is ordered by networkx itself on a bare copy of the graph, as osmnx
+orders it (:func:`largest_strong_part`).
 """
 
 from __future__ import annotations
@@ -71,10 +73,31 @@ class RawEdges:
     groups: list[dict[str, Any]]  # raw attributes of each group (without length)
 
 
+#: osmnx's ``osmnx.distance.EARTH_RADIUS_M`` (metres).
+EARTH_RADIUS_M = 6_371_009
+
+
+def great_circle(lat1: np.ndarray, lon1: np.ndarray, lat2: np.ndarray, lon2: np.ndarray
+                 ) -> np.ndarray:
+    """Return ``osmnx.distance.great_circle`` (haversine, metres) in the same operations.
+
+    Written out here because importing osmnx (and through it matplotlib.pyplot) costs more
+    than a second of start-up; tests/test_simplify.py checks the values are osmnx's to the bit.
+    """
+    y1 = np.deg2rad(lat1)
+    y2 = np.deg2rad(lat2)
+    delta_y = y2 - y1
+    x1 = np.deg2rad(lon1)
+    x2 = np.deg2rad(lon2)
+    delta_x = x2 - x1
+    h = np.sin(delta_y / 2) ** 2 + np.cos(y1) * np.cos(y2) * np.sin(delta_x / 2) ** 2
+    h = np.minimum(1, h)
+    arc = 2 * np.arcsin(np.sqrt(h))
+    return arc * EARTH_RADIUS_M
+
+
 def raw_edges(raw: RawOSM) -> RawEdges:
     """Return the raw edges of the drivable ways of ``raw``, in osmnx insertion order."""
-    from osmnx.distance import great_circle
-
     ways = raw.ways
     nw = len(ways)
     counts = np.fromiter((len(w.refs) for w in ways), dtype=np.int64, count=nw)
@@ -393,11 +416,20 @@ def _remove_rings(g: SimpleGraph) -> SimpleGraph:
     return _subset(g, np.flatnonzero(ok))
 
 
-def largest_strong_part(g: SimpleGraph, nodes_in_graph: np.ndarray) -> SimpleGraph:
+def largest_strong_part(g: SimpleGraph, nodes_in_graph: np.ndarray,
+                        node_ids: np.ndarray | None = None) -> SimpleGraph:
     """Keep the largest strongly connected part, in osmnx's node and edge order.
 
-    ``nodes_in_graph`` are the node positions of the graph in its node order (nodes without
-    edges included).
+    ``nodes_in_graph`` are the node positions of the graph in its order (nodes without
+    edges included); ``node_ids`` the OSM ids of all positions.
+
+    osmnx keeps ``nx.MultiDiGraph(G.subgraph(largest))``. When the part holds at least half
+    the nodes its edges come in the graph's order; when it holds fewer (a clipped or
+    fragmented extract), networkx walks the nodes in the order of the part's Python set,
+    and when parts tie, ``max`` takes the first one networkx finds. For those cases the
+    edges are ordered by running networkx itself on a bare copy of the graph (the node ids,
+    node order and edge order of osmnx's graph, no attributes), which gives the same set and
+    so the same order (tests/test_simplify.py, fragmented and tied inputs).
     """
     n = g.n_nodes
     mat = sparse.coo_matrix((np.ones(len(g.u)), (g.u, g.v)), shape=(n, n)).tocsr()
@@ -408,10 +440,26 @@ def largest_strong_part(g: SimpleGraph, nodes_in_graph: np.ndarray) -> SimpleGra
         return g
     big = sizes.max()
     if (sizes == big).sum() > 1 or 2 * big < len(nodes_in_graph):
-        raise NeedsReference("largest strongly connected part tied or under half the nodes")
+        if node_ids is None:
+            raise NeedsReference("largest strongly connected part tied or under half the nodes")
+        return _subset(g, _networkx_part_order(g, nodes_in_graph, node_ids))
     keep_lab = lab_g[np.flatnonzero(sizes[inv] == big)[0]]
     ok = (lab[g.u] == keep_lab) & (lab[g.v] == keep_lab)
     return _subset(g, np.flatnonzero(ok))
+
+
+def _networkx_part_order(g: SimpleGraph, nodes_in_graph: np.ndarray, node_ids: np.ndarray
+                         ) -> np.ndarray:
+    """Return the edge positions of osmnx's largest strong part, in its edge order."""
+    bare = nx.MultiDiGraph()
+    bare.add_nodes_from(node_ids[nodes_in_graph].tolist())
+    uid, vid, keys = node_ids[g.u].tolist(), node_ids[g.v].tolist(), g.key.tolist()
+    bare.add_edges_from(zip(uid, vid, keys, strict=True))
+    largest = max(nx.strongly_connected_components(bare), key=len)
+    kept = nx.MultiDiGraph(bare.subgraph(largest))
+    where = {e: i for i, e in enumerate(zip(uid, vid, keys, strict=True))}
+    return np.fromiter((where[e] for e in kept.edges(keys=True)), dtype=np.int64,
+                       count=kept.number_of_edges())
 
 
 def isolated_nodes(re: RawEdges) -> np.ndarray:
@@ -521,7 +569,7 @@ def build_frames(raw: RawOSM, *, largest_component: bool = True,
     if largest_component:
         present = iso.copy()
         present[g.u] = present[g.v] = True
-        g = largest_strong_part(g, np.flatnonzero(present))
+        g = largest_strong_part(g, np.flatnonzero(present), re.node_ids)
     if len(g.u) == 0:
         return Frames(gpd.GeoDataFrame(), gpd.GeoDataFrame(), {}, [])
     # nodes of the graph in its order (before projection): all nodes with edges

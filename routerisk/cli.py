@@ -1,7 +1,9 @@
 """Command line of routerisk: parse, call the library, print. No logic lives here.
 
 Each sub-command is a module in :mod:`routerisk.commands` with ``HELP`` (one line),
-``add_arguments(parser)`` and ``run(args) -> int``.
+``add_arguments(parser)`` and ``run(args) -> int``; add its name to ``COMMANDS``. Every
+command module is imported for ``--help``, so it imports the library (numpy, geopandas ...)
+inside ``run``, not at the top (tests/test_startup.py checks).
 """
 
 from __future__ import annotations

@@ -21,17 +21,21 @@ from typing import TYPE_CHECKING, Any
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 import geopandas as gpd
-import networkx as nx
 import numpy as np
 import pandas as pd
 import pyogrio
 import yaml
 
-from . import __version__, _simplify, loader, sources, tagging
+from . import __version__
 from ._io import atomic_directory, dumps_json, sha256_file
-from ._osm import read_osm
 from .errors import NetworkFolderError, OptionError, ProfileError
-from .profile import Profile, load_profile, parse_profile
+from .profile import Profile, load_profile, parse_profile, safe_load_yaml
+
+if TYPE_CHECKING:
+    import networkx as nx
+
+# Building and tagging (osmium, scipy, the graph code) are imported where they are used, so
+# that loading a saved network for scoring stays quick.
 
 if TYPE_CHECKING:
     import folium
@@ -115,6 +119,8 @@ class Network:
 
         The same graph as ``osmnx.convert.graph_from_gdfs(nodes, edges)``, built column-wise.
         """
+        from . import _simplify
+
         return _simplify.graph_from_gdfs(self.nodes, self.edges, graph_attrs={
             "crs": self.edges.crs.to_string()})
 
@@ -170,6 +176,8 @@ class Network:
                     f"category {c.name!r} selects other OSM objects than the network was "
                     "built with; rebuild the network with this profile",
                     path=profile.source, field=f"categories.{c.name}.select")
+        from . import tagging
+
         base = self.edges[[c for c in self.edges.columns if c in EDGE_KEEP]]
         tag = tagging.tag_edges if tagger is None else tagger
         edges = tag(base, self.sources, self.crossings, profile,
@@ -202,6 +210,8 @@ def _feature_filter(profile: Profile) -> Any:
     A selector matches only objects that carry its first key, so an object carrying none of
     those keys is no source; most OSM objects are dropped by this test alone.
     """
+    from . import sources
+
     want = sources.feature_filter(profile)
     first: dict[str, set[str] | None] = {}
     for cat in profile.categories:
@@ -242,6 +252,9 @@ def build_network(
     ``tagger`` replaces :func:`routerisk.tagging.tag_edges` (same arguments and result),
     e.g. the tiled tagging of :mod:`routerisk.partition` on a Dask cluster.
     """
+    from . import loader, sources, tagging
+    from ._osm import read_osm
+
     profile = profile or load_profile()
     if timezone is not None:
         check_timezone(timezone)
@@ -303,21 +316,37 @@ def save_network(net: Network, out: str | Path, *, force: bool = False) -> Path:
         pyogrio.set_gdal_config_options({"OGR_CURRENT_DATE": before})
 
 
+def _write_arrow() -> bool:
+    """Return True when pyogrio can write through Arrow (pyarrow, pyogrio >= 0.8, GDAL >= 3.8).
+
+    The GeoPackage is the same file either way (tests/test_network.py compares the bytes);
+    through Arrow it is written several times faster.
+    """
+    try:
+        major, minor = (int(p) for p in pyogrio.__version__.split(".")[:2])
+    except ValueError:
+        return False
+    return _use_arrow() and (major, minor) >= (0, 8) and pyogrio.__gdal_version__ >= (3, 8, 0)
+
+
 def _save(net: Network, out: str | Path, *, force: bool) -> Path:
+    arrow = _write_arrow()
     with atomic_directory(out, force=force) as tmp:
         gpkg = tmp / GPKG
         edges = _clean_for_gpkg(net.edges.reset_index())
         edges["lanes"] = edges["lanes"].astype("float64") if "lanes" in edges else np.nan
-        pyogrio.write_dataframe(edges, gpkg, layer="edges")
-        pyogrio.write_dataframe(_clean_for_gpkg(net.nodes.reset_index()), gpkg, layer="nodes")
+        pyogrio.write_dataframe(edges, gpkg, layer="edges", use_arrow=arrow)
+        pyogrio.write_dataframe(_clean_for_gpkg(net.nodes.reset_index()), gpkg, layer="nodes",
+                                use_arrow=arrow)
         if len(net.sources):
             pyogrio.write_dataframe(_clean_for_gpkg(net.sources), gpkg, layer="sources",
-                                    promote_to_multi=False)
+                                    promote_to_multi=False, use_arrow=arrow)
         if len(net.crossings):
-            pyogrio.write_dataframe(_clean_for_gpkg(net.crossings), gpkg, layer="crossings")
+            pyogrio.write_dataframe(_clean_for_gpkg(net.crossings), gpkg, layer="crossings",
+                                    use_arrow=arrow)
         if net.context is not None and len(net.context):
             pyogrio.write_dataframe(_clean_for_gpkg(net.context), gpkg, layer="context",
-                                    promote_to_multi=False)
+                                    promote_to_multi=False, use_arrow=arrow)
         (tmp / PROFILE).write_text(yaml.safe_dump(_profile_doc(net.profile), sort_keys=False),
                                    encoding="utf-8")
         meta = {**net.meta, "complete": True, "gpkg_sha256": sha256_file(gpkg),
@@ -329,7 +358,7 @@ def _save(net: Network, out: str | Path, *, force: bool) -> Path:
 def _profile_doc(profile: Profile) -> Any:
     src = Path(profile.source) if profile.source else None
     if src is not None and src.is_file():
-        return yaml.safe_load(src.read_text(encoding="utf-8"))
+        return safe_load_yaml(src.read_text(encoding="utf-8"))
     raise ProfileError("profile has no readable source file", path=profile.source)
 
 
@@ -343,6 +372,12 @@ def _use_arrow() -> bool:
     except ImportError:
         return False
     return True
+
+
+def _source_columns() -> list[str]:
+    from .sources import COLUMNS
+
+    return list(COLUMNS)
 
 
 def load_network(folder: str | Path, *, profile: Profile | None = None,
@@ -384,7 +419,7 @@ def load_network(folder: str | Path, *, profile: Profile | None = None,
         nodes = pyogrio.read_dataframe(gpkg, layer="nodes", use_arrow=arrow)
         src = (pyogrio.read_dataframe(gpkg, layer="sources", use_arrow=arrow)
                if "sources" in layers else
-               gpd.GeoDataFrame(columns=sources.COLUMNS, geometry="geometry", crs=edges.crs))
+               gpd.GeoDataFrame(columns=_source_columns(), geometry="geometry", crs=edges.crs))
         cross = (pyogrio.read_dataframe(gpkg, layer="crossings", use_arrow=arrow)
                  if "crossings" in layers else
                  gpd.GeoDataFrame({"osmid": [], "crossing": []}, geometry=[], crs=edges.crs))
@@ -401,7 +436,7 @@ def load_network(folder: str | Path, *, profile: Profile | None = None,
                                  "build?); rebuild, or pass the new profile with --profile",
                                  path=prof_path, field="profile_sha256")
     try:
-        saved_profile = parse_profile(yaml.safe_load(prof_path.read_text(encoding="utf-8")),
+        saved_profile = parse_profile(safe_load_yaml(prof_path.read_text(encoding="utf-8")),
                                       path=prof_path)
     except yaml.YAMLError as exc:
         raise NetworkFolderError("profile.yaml is not valid YAML", path=prof_path) from exc

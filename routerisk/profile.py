@@ -578,6 +578,24 @@ def _model_options(r: _Reader, d: Mapping[str, Any], prof: Profile) -> Profile:
                    crossing_time_profile=found["crossing_time_profile"], likelihood=like)
 
 
+def safe_load_yaml(text: str) -> Any:
+    """Return ``yaml.safe_load(text)``, parsed by libyaml when PyYAML has it (ten times faster).
+
+    Both build the same values with the same constructor; on a syntax error the text is read
+    again by the pure-Python parser so the error message is PyYAML's usual one.
+    """
+    fast = getattr(yaml, "CSafeLoader", None)  # libyaml's parser, PyYAML's safe constructor
+    if fast is not None:
+        parser = fast(text)
+        try:
+            return parser.get_single_data()
+        except yaml.YAMLError:
+            pass
+        finally:
+            parser.dispose()
+    return yaml.safe_load(text)
+
+
 def load_profile(path: str | Path | None = None) -> Profile:
     """Read and validate a profile file (YAML or TOML); None reads the bundled default."""
     p = DEFAULT_PROFILE if path is None else Path(path)
@@ -588,7 +606,7 @@ def load_profile(path: str | Path | None = None) -> Profile:
         if p.suffix.lower() == ".toml":
             data = tomllib.loads(text)
         else:
-            data = yaml.safe_load(text)
+            data = safe_load_yaml(text)
     except (yaml.YAMLError, tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
         first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
         raise ProfileError(f"cannot parse: {first}", path=p) from exc

@@ -460,16 +460,24 @@ class WatchResult:
     network: Network
 
     def to_frame(self) -> pd.DataFrame:
-        """Return one row per driven segment: events, km, expected, EB rate, p, flag."""
+        """Return one row per unit (street block or segment): events, km, expected, EB
+        rate, p, flag."""
         return self.result.segments.copy()
 
     def to_geodataframe(self) -> gpd.GeoDataFrame:
-        """Return :meth:`to_frame` with each segment's geometry, in the network CRS."""
+        """Return :meth:`to_frame` with each unit's geometry (the union of the edges it holds,
+        both directions of a block), in the network CRS."""
         import geopandas as gpd
+        import shapely
 
         geoms = self.network.edges.reset_index()[["u", "v", "key", "geometry"]]
-        seg = self.result.segments.merge(geoms, on=["u", "v", "key"], how="left")
-        return gpd.GeoDataFrame(seg, geometry="geometry", crs=self.network.crs)
+        mem = self.result.members[["unit", "u", "v", "key"]].merge(
+            geoms, on=["u", "v", "key"], how="left")
+        shapes = {unit: shapely.line_merge(shapely.union_all(list(g["geometry"])))
+                  for unit, g in mem.groupby("unit", sort=False)}
+        seg = self.result.segments.copy()
+        return gpd.GeoDataFrame(seg, geometry=[shapes.get(u) for u in seg["unit"]],
+                                crs=self.network.crs)
 
     def to_dict(self) -> dict[str, JSON]:
         """Return the document ``watch --json`` prints."""

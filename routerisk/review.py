@@ -50,6 +50,7 @@ from shapely import STRtree
 from shapely.geometry.base import BaseGeometry
 
 from . import CAUTION, __version__, report
+from ._cli_text import WHAT_IF_HELP  # also shown by review --help
 from ._io import atomic_directory, check_target, dumps_json, provenance, write_text_atomic
 from .errors import InputFileError, OptionError
 from .profile import DAYS, MAX_FACTOR, MINUTES_PER_WEEK, Profile
@@ -208,13 +209,6 @@ class WhatIf:
 
     label: str
     changes: tuple[Change, ...]
-
-
-WHAT_IF_HELP = (
-    "rule:<rule name>=off drops that hard rule; rule:<rule name>=on keeps it but puts it in "
-    "force at every hour of the week; weight:<category>=<number> sets a category weight. "
-    "Several SPECs after one --what-if form one scenario; repeat --what-if for more scenarios."
-)
 
 
 def parse_what_if(specs: Sequence[str], profile: Profile, *,

@@ -9,19 +9,18 @@ from pathlib import Path
 from typing import Any
 
 import geopandas as gpd
-import matplotlib
+import numpy as np
+import pandas as pd
+from shapely import LineString
+from shapely.ops import substring
 
-matplotlib.use("Agg")
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-import pandas as pd  # noqa: E402
-from shapely import LineString  # noqa: E402
-from shapely.ops import substring  # noqa: E402
+from . import CAUTION, scoring
+from . import _aggplot as plt  # figures on the Agg canvas; the user's backend is left alone
+from ._io import dumps_json, write_text_atomic
+from ._lazy import lazy_module
+from .scoring import RouteScore
 
-from . import CAUTION, mapview, scoring  # noqa: E402
-from ._io import dumps_json, write_text_atomic  # noqa: E402
-from .scoring import RouteScore  # noqa: E402
-
+mapview = lazy_module("routerisk.mapview")  # folium is imported when a map is drawn
 
 
 def png_data_uri(fig: Any) -> str:

@@ -33,6 +33,9 @@ log = logging.getLogger(__name__)
 CROSSING_SNAP_M = 1.0
 #: Sample points handled at once while tagging (bounds the memory of large networks).
 CHUNK_POINTS = 1_000_000
+#: Lines with more vertices than this are sampled with numpy instead of GEOS (faster there;
+#: the same points; measured on the shared bench machine: break-even near 20 vertices).
+MANY_VERTICES = 24
 
 
 def _sample_counts(geoms: np.ndarray, spacing: float) -> np.ndarray:
@@ -61,8 +64,82 @@ def sample_points(geoms: np.ndarray, spacing: float) -> tuple[np.ndarray, np.nda
     starts = np.cumsum(n) - n
     j = np.arange(owner.size) - np.repeat(starts, n)
     frac = (j + 0.5) / np.repeat(n, n)
-    pts = shapely.line_interpolate_point(geoms[owner], frac, normalized=True)
+    # GEOS walks a line from its start for every point; numpy walks it once. Both give the
+    # same points to the last bit; numpy pays off on lines with many vertices.
+    many_lines = np.flatnonzero(shapely.get_num_coordinates(geoms) > MANY_VERTICES)
+    if len(many_lines) == 0:
+        return shapely.line_interpolate_point(geoms[owner], frac, normalized=True), owner
+    many = np.isin(owner, many_lines)
+    pts = np.empty(owner.size, dtype=object)
+    pts[~many] = shapely.line_interpolate_point(geoms[owner[~many]], frac[~many],
+                                                normalized=True)
+    pts[many] = interpolate_normalized(geoms[many_lines],
+                                       np.searchsorted(many_lines, owner[many]), frac[many])
     return pts, owner
+
+
+def interpolate_normalized(geoms: np.ndarray, owner: np.ndarray, frac: np.ndarray
+                           ) -> np.ndarray:
+    """Return ``shapely.line_interpolate_point(geoms[owner], frac, normalized=True)``.
+
+    Computed with numpy along the vertex arrays in the very operations GEOS performs
+    (``LengthIndexedLine.extractPoint``: segment lengths summed in vertex order, the first
+    segment whose running length exceeds ``frac * length``, then ``p0 + (p1 - p0) * t``), so
+    the points are the same to the last bit (tests/test_tagging.py compares them), without
+    walking each line once per point. Lines that are not simple 2-D LineStrings are left to
+    GEOS.
+    """
+    if len(owner) == 0:
+        return shapely.line_interpolate_point(geoms[owner], frac, normalized=True)
+    kinds = shapely.get_type_id(geoms)
+    if (np.any(kinds != shapely.GeometryType.LINESTRING) or np.any(shapely.has_z(geoms))
+            or np.any(shapely.is_empty(geoms))):
+        return shapely.line_interpolate_point(geoms[owner], frac, normalized=True)
+    xy, line = shapely.get_coordinates(geoms, return_index=True)
+    n_vert = np.bincount(line, minlength=len(geoms))
+    if np.any(n_vert < 2):
+        return shapely.line_interpolate_point(geoms[owner], frac, normalized=True)
+    vstart = np.cumsum(n_vert) - n_vert
+    # segment s joins vertices s + line(s) and s + line(s) + 1
+    n_seg = n_vert - 1
+    sline = np.repeat(np.arange(len(geoms)), n_seg)
+    sstart = np.cumsum(n_seg) - n_seg
+    pos = np.arange(sline.size) - np.repeat(sstart, n_seg)
+    v0 = vstart[sline] + pos
+    d = xy[v0 + 1] - xy[v0]
+    seglen = np.sqrt(d[:, 0] * d[:, 0] + d[:, 1] * d[:, 1])
+    # running length in vertex order, line by line (as GEOS adds: 0.0 + l0 + l1 + ...)
+    cum = seglen.copy()
+    for k in range(1, int(n_seg.max())):
+        at = sstart[n_seg > k] + k
+        cum[at] = cum[at - 1] + seglen[at]
+    total = cum[sstart + n_seg - 1]
+    target = frac * total[owner]
+    # first segment of the line whose running length exceeds the target: count the
+    # segments of the same line with running length <= target (ties go to the segment)
+    keys_line = np.concatenate([sline, owner])
+    keys_val = np.concatenate([cum, target])
+    kind = np.concatenate([np.zeros(sline.size, np.int8), np.ones(owner.size, np.int8)])
+    order = np.lexsort((kind, keys_val, keys_line))
+    is_seg = kind[order] == 0
+    before = np.cumsum(is_seg) - is_seg  # segments sorted before each entry
+    p_order = order[~is_seg] - sline.size
+    k = np.empty(owner.size, np.int64)
+    k[p_order] = before[~is_seg] - sstart[owner[p_order]]
+    past = k >= n_seg[owner]  # beyond the end: the last vertex
+    k_safe = np.minimum(k, n_seg[owner] - 1)
+    s = sstart[owner] + k_safe
+    done_before = np.where(k_safe > 0, cum[np.maximum(s - 1, 0)], 0.0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t = (target - done_before) / seglen[s]
+    p0 = xy[v0[s]]
+    p1 = xy[v0[s] + 1]
+    out = (p1 - p0) * t[:, None] + p0
+    out = np.where((t <= 0.0)[:, None], p0, out)
+    out = np.where((t >= 1.0)[:, None], p1, out)
+    last = xy[vstart[owner] + n_vert[owner] - 1]
+    out = np.where(past[:, None], last, out)
+    return shapely.points(out)
 
 
 def near_pairs(points: np.ndarray, sources: np.ndarray, radius: float, *,
@@ -113,6 +190,28 @@ def category_exposure(
     exposure = np.bincount(owner, weights=near, minlength=n_edges) / counts
     share = np.bincount(owner, weights=inside.astype(float), minlength=n_edges) / counts
     return exposure, share
+
+
+#: Extra reach (m) when picking the edges to sample, so that a sample point that rounding puts
+#: a hair nearer to a source than its edge is never missed.
+REACH_MARGIN_M = 1.0
+
+
+def reached_edges(geoms: np.ndarray, by_cat: dict[str, np.ndarray], profile: Profile
+                  ) -> np.ndarray:
+    """Return the positions (ascending) of the edges within reach of some source.
+
+    An edge farther than every category's radius from each of that category's sources has
+    no sample point within any radius: its exposure and influence share are exactly 0, as
+    sampling would give, so only the edges returned here are sampled. The reach is the
+    largest radius of a category that has sources, plus ``REACH_MARGIN_M``.
+    """
+    radii = [c.radius_m for c in profile.categories if len(by_cat[c.name])]
+    if not radii or len(geoms) == 0:
+        return np.zeros(0, dtype=np.int64)
+    src = np.concatenate([by_cat[c.name] for c in profile.categories if len(by_cat[c.name])])
+    _, ei = STRtree(geoms).query(src, predicate="dwithin", distance=max(radii) + REACH_MARGIN_M)
+    return np.unique(ei).astype(np.int64)
 
 
 def baseline(edges: pd.DataFrame, profile: Profile) -> np.ndarray:
@@ -198,17 +297,20 @@ def tag_edges(
         new[f"exp_{c.name}"] = np.zeros(n)
         new[f"infl_{c.name}"] = np.zeros(n)
     n_points = 0
+    reach = reached_edges(geoms, by_cat, profile)
+    near_geoms = geoms[reach]
     # Edges in chunks of about CHUNK_POINTS sample points: an edge's values depend only on
     # its own samples, so the result is the same as in one piece, with bounded memory.
-    for lo, hi in _chunks(geoms, profile.sample_spacing_m, CHUNK_POINTS):
-        pts, owner = sample_points(geoms[lo:hi], profile.sample_spacing_m)
+    for lo, hi in _chunks(near_geoms, profile.sample_spacing_m, CHUNK_POINTS):
+        pts, owner = sample_points(near_geoms[lo:hi], profile.sample_spacing_m)
         n_points += len(pts)
         point_tree = STRtree(pts) if len(pts) else None
+        rows = reach[lo:hi]
         for cat in profile.categories:
             exp, share = category_exposure(pts, owner, hi - lo, by_cat[cat.name], cat,
                                            point_tree=point_tree)
-            new[f"exp_{cat.name}"][lo:hi] = exp
-            new[f"infl_{cat.name}"][lo:hi] = share
+            new[f"exp_{cat.name}"][rows] = exp
+            new[f"infl_{cat.name}"][rows] = share
         del pts, owner, point_tree
     n_cross = np.zeros(n, dtype=np.int64)
     if len(crossings):

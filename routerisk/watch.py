@@ -41,16 +41,17 @@ import pyproj
 import shapely
 
 from . import early_warning, matching, routes
+from ._cli_text import WATCH_EXPECTED, WATCH_GROUPS, WATCH_TESTS, WATCH_UNITS
 from .errors import InputFileError, OptionError
 
 log = logging.getLogger(__name__)
 
 MAX_TIME_GAP_S = 30.0
 MAX_OFFSET_M = 50.0
-GROUPS = ("street", "band", "hour")
-UNITS = ("block", "segment")
-TESTS = ("auto", "negbin", "poisson")
-EXPECTED = ("modelled", "distance")
+GROUPS = WATCH_GROUPS
+UNITS = WATCH_UNITS
+TESTS = WATCH_TESTS
+EXPECTED = WATCH_EXPECTED
 #: Days over which expected false alarms are reported ("per month").
 MONTH_DAYS = 30.0
 #: Event years accepted (as for route times, routerisk.routes).

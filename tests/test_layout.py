@@ -31,7 +31,9 @@ NOT_YET_SPLIT = {
     "alternatives.py": 923,  # lower-exposure alternatives
     "_simplify.py": 727,  # the vectorised graph build
     "serve/app.py": 748,
-    "mapview.py": 860,  # folium maps: background, classes, legends, symbols, tiles  # the planning page API: routes, requests, network layer
+    "mapview.py": 860,
+    "watch.py": 867,  # drives, events, units, periods, charts, outputs
+    "profile.py": 615,  # profile schema, validation, fingerprint  # folium maps: background, classes, legends, symbols, tiles  # the planning page API: routes, requests, network layer
 }
 
 

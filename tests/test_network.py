@@ -56,3 +56,33 @@ def test_retag_with_other_weights(town_dir):
     assert net.profile.fingerprint == strict.fingerprint
     assert len(net.profile.rules) == 3
     assert net.edges["rule_0"].sum() > load_network(town_dir).edges["rule_0"].sum()
+
+
+def _folder_bytes(folder):
+    return {p.name: p.read_bytes() for p in sorted(folder.iterdir())}
+
+
+def test_saving_through_arrow_gives_the_same_folder_every_run(town_net, tmp_path, monkeypatch):
+    import pyogrio
+
+    from routerisk import network
+
+    pytest.importorskip("pyarrow")
+    assert network._write_arrow()  # pyogrio 0.13, GDAL 3.12 here
+    calls = []
+    real = pyogrio.write_dataframe
+
+    def spy(*args, **kw):
+        calls.append(kw.get("use_arrow"))
+        return real(*args, **kw)
+
+    monkeypatch.setattr(pyogrio, "write_dataframe", spy)
+    network.save_network(town_net, tmp_path / "a")
+    network.save_network(town_net, tmp_path / "b")
+    assert calls and all(c is True for c in calls)
+    assert _folder_bytes(tmp_path / "a") == _folder_bytes(tmp_path / "b")
+    # without Arrow pyogrio writes the very same file
+    monkeypatch.setattr(network, "_write_arrow", lambda: False)
+    network.save_network(town_net, tmp_path / "c")
+    assert calls[-1] is False
+    assert _folder_bytes(tmp_path / "a") == _folder_bytes(tmp_path / "c")

@@ -161,3 +161,65 @@ def test_network_graph_equals_osmnx_graph_from_gdfs(town_dir):
     ref = ox.convert.graph_from_gdfs(net.nodes, net.edges,
                                      graph_attrs={"crs": net.edges.crs.to_string()})
     _assert_same_graph(ref, net.graph)
+
+
+def test_great_circle_is_osmnx_to_the_bit(real_pbf):
+    # reference: osmnx.distance.great_circle (the function _simplify writes out)
+    rng = np.random.default_rng(3)
+    lat = rng.uniform(-89, 89, (2, 5000))
+    lon = rng.uniform(-180, 180, (2, 5000))
+    lat[1, :50] = lat[0, :50]
+    lon[1, :50] = lon[0, :50]  # zero distances
+    ours = _simplify.great_circle(lat[0], lon[0], lat[1], lon[1])
+    theirs = ox.distance.great_circle(lat[0], lon[0], lat[1], lon[1])
+    assert np.array_equal(ours, theirs)
+    assert _simplify.EARTH_RADIUS_M == ox.distance.EARTH_RADIUS_M
+
+
+def _fragmented_city(tmp_path, seed: int, bands: int) -> object:
+    """A generated city (invented, CC0) with the ways across ``bands`` thin north-south strips
+    removed, as a clip or a cut would leave it: several parts, none holding half the nodes."""
+    import xml.etree.ElementTree as ET
+
+    whole = tmp_path / f"whole{seed}.osm"
+    synthetic.write_city(whole, edges=3000, seed=seed)
+    root = ET.parse(whole).getroot()
+    lon = {n.get("id"): float(n.get("lon")) for n in root.findall("node")}
+    cuts = np.quantile(np.array(list(lon.values())), np.arange(1, bands + 1) / (bands + 1))
+    for w in list(root.findall("way")):
+        xs = np.array([lon[nd.get("ref")] for nd in w.findall("nd")])
+        if any(((xs > c - 0.001) & (xs < c + 0.001)).any() for c in cuts):
+            root.remove(w)
+    out = tmp_path / f"fragmented{seed}.osm"
+    ET.ElementTree(root).write(out)
+    return out
+
+
+@pytest.mark.parametrize("seed, bands", [(5, 2), (6, 3), (7, 5)])
+def test_fragmented_extracts_take_the_array_path(tmp_path, seed, bands):
+    path = _fragmented_city(tmp_path, seed, bands)
+    raw = read_osm(path)
+    re = _simplify.raw_edges(raw)
+    g = _simplify.simplify(re)
+    n = g.n_nodes
+    mat = _simplify.sparse.coo_matrix((np.ones(len(g.u)), (g.u, g.v)), shape=(n, n))
+    _, lab = _simplify.csgraph.connected_components(mat, directed=True, connection="strong")
+    present = _simplify.isolated_nodes(re)
+    present[g.u] = present[g.v] = True
+    sizes = np.bincount(lab[present])
+    assert 2 * sizes.max() < present.sum()  # the case that used osmnx's own steps
+    _check(path)  # build_frames without any fallback equals osmnx's pipeline
+
+
+def test_tied_parts_take_the_array_path(tmp_path):
+    # two separate squares of two-way streets of the same size: the parts tie
+    parts = []
+    for s, base in enumerate((0, 100)):
+        ids = [base + i for i in range(4)]
+        for i, (dy, dx) in zip(ids, [(0, 0), (0, 1), (1, 1), (1, 0)], strict=True):
+            parts.append(osm.node(i, 38.5 + 0.001 * dy, -38.0 + 0.001 * dx + 0.01 * s))
+        parts.append(osm.way(10 + s, ids + [ids[0]], highway="residential", name=f"Sq {s}"))
+        parts.append(osm.node(base + 50, 38.5005, -37.9995 + 0.01 * s))
+        parts.append(osm.way(20 + s, [ids[0], base + 50, ids[2]], highway="tertiary"))
+    path = osm.write(tmp_path / "tied.osm", parts)
+    _check(path)

@@ -6,6 +6,7 @@ import dataclasses
 
 import geopandas as gpd
 import numpy as np
+import pandas as pd
 import pytest
 from shapely import LineString, Point, box
 
@@ -158,3 +159,115 @@ def test_gaussian_smooth_decay_in_tagging():
     out = tagging.tag_edges(_edges(line), src, nocross, prof)
     want = (np.exp(-0.5 * (5 / 10) ** 2) - np.exp(-2)) / (1 - np.exp(-2))
     assert out["exp_school"].iloc[0] == pytest.approx(want)
+
+
+# --- tagging only the edges within reach; numpy sampling along the vertex arrays ---------
+
+def _random_lines(seed: int, count: int) -> np.ndarray:
+    rng = np.random.default_rng(seed)
+    lines = []
+    for i in range(count):
+        pts = np.cumsum(rng.normal(0, 15, (int(rng.integers(2, 90)), 2)), axis=0)
+        pts += rng.uniform(-4e5, 4e5, 2) + [5e5, 4e6]  # UTM-sized coordinates
+        if i % 5 == 0:
+            pts[1] = pts[0]  # a zero-length segment
+        lines.append(LineString(pts))
+    return np.array(lines, dtype=object)
+
+
+def test_numpy_interpolation_gives_geos_points_to_the_bit(town_net, real_pbf):
+    import shapely
+
+    from routerisk import loader
+
+    real = loader.frames_from_raw(__import__("routerisk._osm", fromlist=["read_osm"])
+                                  .read_osm(real_pbf)).edges.geometry.to_numpy()
+    for geoms in (_random_lines(1, 400), town_net.edges.geometry.to_numpy(), real):
+        n = tagging._sample_counts(geoms, 10.0)
+        owner = np.repeat(np.arange(len(geoms)), n)
+        frac = ((np.arange(owner.size) - np.repeat(np.cumsum(n) - n, n)) + 0.5) / np.repeat(n, n)
+        owner = np.concatenate([owner, [0, 1, 2]])
+        frac = np.concatenate([frac, [0.0, 1.0, 1e-300]])
+        # reference: GEOS through shapely.line_interpolate_point
+        ref = shapely.get_coordinates(shapely.line_interpolate_point(geoms[owner], frac,
+                                                                     normalized=True))
+        ours = shapely.get_coordinates(tagging.interpolate_normalized(geoms, owner, frac))
+        assert np.max(np.abs(ours - ref)) <= 1e-9
+        assert np.array_equal(ours, ref)
+
+
+def test_sampling_is_the_same_whichever_way_a_line_is_walked(monkeypatch):
+    geoms = _random_lines(2, 300)
+    assert (np.array([len(g.coords) for g in geoms]) > tagging.MANY_VERTICES).any()
+    mixed, own = tagging.sample_points(geoms, 10.0)
+    monkeypatch.setattr(tagging, "MANY_VERTICES", 10**9)
+    geos, own2 = tagging.sample_points(geoms, 10.0)
+    monkeypatch.setattr(tagging, "MANY_VERTICES", 0)
+    numpy_only, _ = tagging.sample_points(geoms, 10.0)
+    import shapely
+
+    assert np.array_equal(own, own2)
+    assert np.array_equal(shapely.get_coordinates(mixed), shapely.get_coordinates(geos))
+    assert np.array_equal(shapely.get_coordinates(numpy_only), shapely.get_coordinates(geos))
+
+
+def _tag_every_edge_with_geos(monkeypatch, *args, **kw):
+    """The tagging as it was: every edge sampled, every point interpolated by GEOS."""
+    with monkeypatch.context() as m:
+        m.setattr(tagging, "reached_edges",
+                  lambda geoms, by_cat, profile: np.arange(len(geoms), dtype=np.int64))
+        m.setattr(tagging, "MANY_VERTICES", 10**9)
+        return tagging.tag_edges(*args, **kw)
+
+
+def _raw_inputs(path):
+    from routerisk import loader, sources
+    from routerisk._osm import read_osm
+    from routerisk.network import EDGE_KEEP, _feature_filter
+    from routerisk.profile import load_profile
+
+    prof = load_profile()
+    raw = read_osm(path, feature_filter=_feature_filter(prof))
+    frames = loader.frames_from_raw(raw)
+    crs = frames.graph_attrs["crs"]
+    edges = frames.edges[[c for c in frames.edges.columns if c in EDGE_KEEP]]
+    return (edges, sources.sources_from_raw(raw, prof, crs=crs),
+            sources.crossings_from_raw(raw, crs=crs), prof)
+
+
+def test_tagging_within_reach_equals_tagging_every_edge(monkeypatch, real_pbf, tmp_path):
+    from routerisk import datasets, synthetic
+
+    city = tmp_path / "city.osm.pbf"
+    synthetic.write_city(city, edges=3000, seed=11)
+    for path in (datasets.get_path("town"), real_pbf, city):
+        edges, src, cross, prof = _raw_inputs(path)
+        ours = tagging.tag_edges(edges, src, cross, prof)
+        before = _tag_every_edge_with_geos(monkeypatch, edges, src, cross, prof)
+        pd.testing.assert_frame_equal(ours, before, check_exact=True)
+        for col in before.columns:
+            assert ours[col].equals(before[col]), (path, col)
+        by_cat = {c.name: src.geometry.to_numpy()[src["category"].to_numpy() == c.name]
+                  for c in prof.categories}
+        reach = tagging.reached_edges(edges.geometry.to_numpy(), by_cat, prof)
+        assert 0 < len(reach) < len(edges), path  # some edges really are skipped
+        far = np.setdiff1d(np.arange(len(edges)), reach)
+        exp_cols = [f"exp_{c.name}" for c in prof.categories]
+        assert (ours[exp_cols].to_numpy()[far] == 0.0).all()
+
+
+def test_an_edge_out_of_reach_is_not_sampled_and_gets_exact_zeros(monkeypatch):
+    prof = _profile()
+    edges = gpd.GeoDataFrame(
+        {"highway": ["residential"] * 2, "speed_kph": [30.0] * 2, "length": [25.0, 25.0]},
+        geometry=[LineString([(0, 0), (25, 0)]), LineString([(0, 500), (25, 500)])], crs=CRS)
+    src = gpd.GeoDataFrame({"category": ["school"]}, geometry=[Point(10, 5)], crs=CRS)
+    cross = gpd.GeoDataFrame({"osmid": []}, geometry=[], crs=CRS)
+    seen = []
+    real = tagging.sample_points
+    monkeypatch.setattr(tagging, "sample_points",
+                        lambda g, s: seen.append(len(g)) or real(g, s))
+    out = tagging.tag_edges(edges, src, cross, prof)
+    assert seen == [1]
+    assert out["exp_school"].tolist()[1] == 0.0 and out["infl_school"].tolist()[1] == 0.0
+    assert out["exp_school"].tolist()[0] > 0

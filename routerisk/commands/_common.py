@@ -1,4 +1,8 @@
-"""Argument helpers shared by the sub-commands (parsing only, no logic)."""
+"""Argument helpers shared by the sub-commands (parsing only, no logic).
+
+Import-light: the library modules are imported inside the helpers that use them, so that
+``--help`` never loads geopandas and friends.
+"""
 
 from __future__ import annotations
 
@@ -6,11 +10,13 @@ import argparse
 import contextlib
 from collections.abc import Iterator
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from ..errors import OptionError
-from ..network import Network, load_network
-from ..profile import Profile, load_profile
+
+if TYPE_CHECKING:
+    from ..network import Network
+    from ..profile import Profile
 
 
 def add_network(parser: argparse.ArgumentParser) -> None:
@@ -29,11 +35,17 @@ def add_profile(parser: argparse.ArgumentParser, text: str) -> None:
 
 def profile_of(args: argparse.Namespace) -> Profile | None:
     """Return the profile named by ``--profile`` or None."""
-    return load_profile(args.profile) if getattr(args, "profile", None) else None
+    if not getattr(args, "profile", None):
+        return None
+    from ..profile import load_profile
+
+    return load_profile(args.profile)
 
 
 def network_of(args: argparse.Namespace) -> Network:
     """Load ``--network`` (re-tagged with ``--profile``, with ``--overlay`` applied)."""
+    from ..network import load_network
+
     net = load_network(args.network, profile=profile_of(args))
     if getattr(args, "overlay", None):
         from ..overlay import apply_overlay

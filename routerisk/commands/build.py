@@ -5,7 +5,6 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from .. import network
 from .._io import check_target, dumps_json
 from ..errors import OptionError
 from ._common import add_cluster, add_profile, cluster_of, profile_of
@@ -34,6 +33,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Run ``build``."""
+    from .. import network
+
     if args.place:
         from ..loader import graph_from_place
 

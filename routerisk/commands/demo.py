@@ -5,8 +5,6 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from ..demo import run_demo
-
 HELP = "run every stage on the bundled invented town of Corvane and write maps and reports"
 
 
@@ -19,6 +17,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Run ``demo``."""
+    from ..demo import run_demo
+
     run_demo(args.out, force=args.force, echo=print)
     print(f"demo outputs in {args.out}")
     return 0

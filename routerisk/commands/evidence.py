@@ -5,7 +5,6 @@ from __future__ import annotations
 import argparse
 import sys
 
-from .. import evidence
 from .._io import check_target, dumps_json, provenance
 from ..errors import OptionError
 
@@ -74,6 +73,8 @@ def _numbers(tokens: list[str], option: str) -> list[float]:
 
 def run(args: argparse.Namespace) -> int:
     """Run ``routerisk evidence``; return the exit status."""
+    from .. import evidence
+
     if args.chart is not None and not args.chart.lower().endswith(".png"):
         raise OptionError(f"must name a .png file, got {args.chart!r}", field="--chart")
     if args.chart is not None:

@@ -6,7 +6,7 @@ import argparse
 import datetime as dt
 from pathlib import Path
 
-from .. import CAUTION, dayplan, planning
+from .. import CAUTION
 from .._io import check_target, dumps_json
 from ..errors import OptionError
 from ._common import add_network, network_of
@@ -33,6 +33,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Run ``plan``."""
+    from .. import dayplan, planning
+
     try:
         date = dt.date.fromisoformat(args.date)
     except ValueError as exc:

@@ -5,11 +5,10 @@ from __future__ import annotations
 import argparse
 from typing import Any
 
-from .. import CAUTION, review
+from .. import CAUTION
+from .._cli_text import WHAT_IF_HELP
 from .._io import check_target, dumps_json
 from ..errors import OptionError
-from ..network import load_network
-from ..profile import load_profile
 from ._common import add_cluster, add_map_options, cluster_of, tiles_of
 
 HELP = "review proposed test areas: exposure, hot spots, closures under the hard rules"
@@ -22,7 +21,7 @@ _EPILOG = (
     "two-way street once); centreline_km counts each street once. Hours: 0 = Monday "
     "00:00-01:00 in the network's local time; an edge is closed in an hour if any rule "
     "covering it is in force at any minute of it. "
-    f"What-if SPECs: {review.WHAT_IF_HELP} "
+    f"What-if SPECs: {WHAT_IF_HELP} "
     "Example: --what-if 'rule:school surroundings at school hours=off' "
     "--what-if weight:school=5 weight:retail=0. "
     "Give AREA before --what-if (a --what-if takes every SPEC that follows it). "
@@ -93,6 +92,10 @@ def _text(doc: dict[str, Any]) -> list[str]:
 
 def run(args: argparse.Namespace) -> int:
     """Run ``routerisk review``; return the exit status."""
+    from .. import review
+    from ..network import load_network
+    from ..profile import load_profile
+
     if args.report is not None and not args.report.lower().endswith((".html", ".htm")):
         raise OptionError(f"must name an .html file, got {args.report!r}", field="--report")
     if args.top < 0:

@@ -6,9 +6,8 @@ import argparse
 import textwrap
 from pathlib import Path
 
-from .. import CAUTION, routemap, routes, scoring
+from .. import CAUTION
 from .._io import check_target, dumps_json, provenance
-from ..network import zone_label
 from ._common import add_map_options, add_network, network_of, tiles_of
 
 #: the text table's headings (short, so a row fits a terminal; meanings printed below)
@@ -39,6 +38,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Run ``score``."""
+    from .. import routes, scoring
+    from ..network import zone_label
+
     if args.out:
         check_target(args.out, force=args.force, folder=True)  # before any work
     tiles = tiles_of(args)
@@ -47,8 +49,10 @@ def run(args: argparse.Namespace) -> int:
     planned = routes.read_routes(args.routes, default_tz=net.timezone)
     scores = scoring.score_routes(net, planned, departs)
     if args.out:
-        routemap.write_outputs(net, scores, args.out, force=args.force, tiles=tiles,
-                               bands=args.bands,
+        from ..routemap import write_outputs
+
+        write_outputs(net, scores, args.out, force=args.force, tiles=tiles,
+                      bands=args.bands,
                                inputs={"routes": args.routes})
     if args.json:
         print(dumps_json({"routes": [s.to_dict() for s in scores],
@@ -59,8 +63,9 @@ def run(args: argparse.Namespace) -> int:
                                                   inputs={"routes": args.routes})}))
     else:
         from .. import words
+        from ..routemap import ranking_table
 
-        table = routemap.ranking_table(scores)
+        table = ranking_table(scores)
         cols = ["rank", "name", "depart", "length_km", "duration_min", "risk", "risk_per_km",
                 "relative_index", "rule_breaks"]
         shown = table[cols].copy()

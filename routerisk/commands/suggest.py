@@ -5,11 +5,9 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from .. import CAUTION, mapview, routemap, routes, scoring
+from .. import CAUTION
 from .._io import check_target, dumps_json, provenance
-from ..alternatives import suggest_routes
 from ..errors import OptionError
-from ..network import zone_label
 from ._common import add_map_options, add_network, network_of, tiles_of
 
 HELP = "suggest lower-exposure alternatives to planned routes within a time bound"
@@ -54,6 +52,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Run ``suggest``."""
+    from .. import routes, scoring
+    from ..network import zone_label
+    from ..alternatives import suggest_routes
+
     if args.count < 1:
         raise OptionError("must be at least 1", field="--count")
     if args.keep_every is not None and args.keep_every < 1:
@@ -69,6 +71,8 @@ def run(args: argparse.Namespace) -> int:
                             max_extra_length=args.max_extra_length,
                             min_difference=args.min_difference, keep_every=args.keep_every)
     if args.map:
+        from .. import mapview, routemap
+
         mapview.save(routemap.suggestion_map(net, result, tiles=tiles, bands=args.bands,
                                              inputs={"routes": args.routes}),
                      args.map, force=args.force)

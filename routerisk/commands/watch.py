@@ -5,7 +5,8 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from .. import CAUTION, watch
+from .. import CAUTION
+from .._cli_text import WATCH_EXPECTED, WATCH_GROUPS, WATCH_TESTS, WATCH_UNITS
 from .._io import check_target, dumps_json, provenance
 from ._common import network_of
 
@@ -30,15 +31,15 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--arl0-family", type=float, metavar="DAYS",
                         help="in-control run length of the whole family of charts, in days: "
                              "each chart is designed at DAYS x the number of charts")
-    parser.add_argument("--group", default="street", choices=watch.GROUPS,
+    parser.add_argument("--group", default="street", choices=WATCH_GROUPS,
                         help="CUSUM groups: street, band or hour (of week)")
-    parser.add_argument("--unit", default="block", choices=watch.UNITS,
+    parser.add_argument("--unit", default="block", choices=WATCH_UNITS,
                         help="unit of discovery: block (both directions and the run between "
                              "intersections) or segment (each direction); default block")
-    parser.add_argument("--test", default="auto", choices=watch.TESTS,
+    parser.add_argument("--test", default="auto", choices=WATCH_TESTS,
                         help="p-values: poisson, negbin (negative binomial prior predictive) "
                              "or auto (negbin when over-dispersion is significant); auto")
-    parser.add_argument("--expected", default="modelled", choices=watch.EXPECTED,
+    parser.add_argument("--expected", default="modelled", choices=WATCH_EXPECTED,
                         help="expected counts from km weighted by modelled exposure, or from "
                              "km alone (distance); both are computed and compared")
     parser.add_argument("--baseline-until", metavar="DATE",
@@ -57,6 +58,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Run ``watch``."""
+    from .. import watch
+
     args.overlay = None
     if args.out:
         check_target(args.out, force=args.force, folder=True)  # before any work
