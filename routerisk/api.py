@@ -507,11 +507,12 @@ def watch_events(network: Network, events: Events, drives: Routes, *, fdr: float
     from . import watch
 
     with parameters({"--fdr": "fdr", "--drives": "drives", "--arl0-family": "arl0_family"}):
-        opts = dict(q=fdr, shift=shift, arl0=arl0, arl0_family=arl0_family, group=group,
-                    unit=unit, test=test, expected=expected)
-        watch.check_settings(**opts)
+        watch.check_settings(q=fdr, shift=shift, arl0=arl0, arl0_family=arl0_family,
+                             group=group, unit=unit, test=test, expected=expected)
         if not len(drives):
             raise OptionError("holds no drive", field="drives")
         matched = watch.match_drives(network, list(drives))
-        found = watch.watch_matched(network, events.events, events.rejected, matched, **opts)
+        found = watch.watch_matched(network, events.events, events.rejected, matched, q=fdr,
+                                    shift=shift, arl0=arl0, arl0_family=arl0_family,
+                                    group=group, unit=unit, test=test, expected=expected)
     return WatchResult(found, network)
