@@ -18,7 +18,8 @@ from collections.abc import Sequence
 from . import __version__
 from .errors import RouteriskError
 
-COMMANDS = ("build", "score", "suggest", "review", "plan", "evidence", "watch", "demo")
+COMMANDS = ("build", "score", "suggest", "review", "plan", "evidence", "watch", "calibrate",
+            "demo")
 
 
 def _available() -> dict[str, object]:

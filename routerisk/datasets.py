@@ -12,6 +12,7 @@ _FILES = {
     "runs": "runs.yaml",
     "drives": "drives",
     "events": "events.csv",
+    "counts": "counts.csv",
 }
 
 
@@ -22,6 +23,9 @@ def available() -> list[str]:
 
 def _folder() -> Path:
     """Return the folder of the sample area: installed package data, or a source checkout."""
+    beside = Path(__file__).resolve().parents[1] / "sample_area"
+    if (beside / "make_town.py").is_file():  # a source tree (or a worktree of it) first
+        return beside
     try:
         return Path(str(resources.files("routerisk.sample_area")))
     except ModuleNotFoundError:  # running from a source tree: sample_area/ beside the package

@@ -148,6 +148,20 @@ class Band:
 
 
 @dataclass(frozen=True)
+class Uncertainty:
+    """How sure the weights are: a covariance of fitted weights (from ``routerisk calibrate``).
+
+    Draws are centred on the categories' weights (see :mod:`routerisk.uncertainty`).
+    """
+
+    weights: tuple[str, ...]
+    covariance: tuple[tuple[float, ...], ...]
+    method: str = ""
+    fitted_from: str = ""
+    scale: float | None = None
+
+
+@dataclass(frozen=True)
 class Profile:
     """A validated, frozen exposure profile. Build it with :func:`load_profile`."""
 
@@ -166,6 +180,7 @@ class Profile:
     rules: tuple[Rule, ...]
     source: str = ""
     extra_hash: str = field(default="", repr=False)
+    uncertainty: Uncertainty | None = None
 
     @property
     def category_names(self) -> tuple[str, ...]:
@@ -207,6 +222,8 @@ class Profile:
         d = asdict(self)
         d.pop("source")
         d.pop("extra_hash")
+        if d.get("uncertainty") is None:  # profiles without the block hash as before
+            d.pop("uncertainty", None)
         return d
 
     @cached_property
@@ -316,7 +333,7 @@ class _Reader:
 
 _TOP_KEYS = {
     "version", "name", "description", "sample_spacing_m", "baseline", "time_profiles",
-    "categories", "crossing_weight", "severity", "bands", "rules",
+    "categories", "crossing_weight", "severity", "bands", "rules", "uncertainty",
 }
 
 
@@ -483,6 +500,46 @@ def parse_profile(data: Any, *, path: str | Path = "<profile>") -> Profile:
         rules=tuple(rules),
         source=str(path),
         extra_hash="".join(extra),
+        uncertainty=_uncertainty(r, d.get("uncertainty"), [c.name for c in cats]),
+    )
+
+
+def _uncertainty(r: _Reader, raw: Any, cat_names: list[str]) -> Uncertainty | None:
+    """Validate the optional ``uncertainty`` block: named weights and their covariance."""
+    if raw is None:
+        return None
+    k = "uncertainty"
+    r.mapping(raw, k, {"method", "fitted_from", "scale", "weights", "covariance"},
+              {"weights", "covariance"})
+    names = raw["weights"]
+    if not isinstance(names, list) or not names or any(not isinstance(n, str) for n in names):
+        raise r.fail(f"{k}.weights", "must be a non-empty list of category names")
+    for n in names:
+        if n not in cat_names:
+            raise r.fail(f"{k}.weights", f"unknown category {n!r}")
+    if len(set(names)) != len(names):
+        raise r.fail(f"{k}.weights", "names a category twice")
+    cov = raw["covariance"]
+    if not isinstance(cov, list) or len(cov) != len(names) or any(
+            not isinstance(row, list) or len(row) != len(names) for row in cov):
+        raise r.fail(f"{k}.covariance",
+                     f"must be a {len(names)} x {len(names)} matrix (a list of rows), one "
+                     "row and column per name in weights")
+    vals = np.array([[r.number(v, f"{k}.covariance[{i}][{j}]", low=-MAX_FACTOR,
+                               high=MAX_FACTOR) for j, v in enumerate(row)]
+                     for i, row in enumerate(cov)])
+    if not np.allclose(vals, vals.T, rtol=1e-8, atol=1e-12):
+        raise r.fail(f"{k}.covariance", "must be symmetric")
+    eig = np.linalg.eigvalsh(vals)
+    if eig.min() < -1e-9 * max(abs(eig).max(), 1e-300) or (np.diag(vals) < 0).any():
+        raise r.fail(f"{k}.covariance", "must be positive semi-definite (a covariance)")
+    scale = raw.get("scale")
+    return Uncertainty(
+        weights=tuple(names),
+        covariance=tuple(tuple(float(v) for v in row) for row in vals),
+        method=str(raw.get("method", "")),
+        fitted_from=str(raw.get("fitted_from", "")),
+        scale=None if scale is None else r.number(scale, f"{k}.scale", high=MAX_FACTOR),
     )
 
 
