@@ -98,6 +98,8 @@ class Category:
     decay: str
     time_profile: str | None
     stack: bool = False
+    #: (low, high, spread) when the weight is given as a range (``uncertainty`` draws)
+    weight_range: tuple[float, float, str] | None = None
 
     def matches(self, tags: Mapping[str, str]) -> bool:
         """Return True when an OSM object with ``tags`` is a source of this category."""
@@ -224,6 +226,9 @@ class Profile:
         d.pop("extra_hash")
         if d.get("uncertainty") is None:  # profiles without the block hash as before
             d.pop("uncertainty", None)
+        for c in d["categories"]:
+            if c.get("weight_range") is None:  # likewise plain weights
+                c.pop("weight_range", None)
         return d
 
     @cached_property
@@ -414,7 +419,8 @@ def parse_profile(data: Any, *, path: str | Path = "<profile>") -> Profile:
             name=str(cname),
             label=str(c.get("label", cname)),
             selectors=tuple(selectors),
-            weight=r.number(c["weight"], f"{k}.weight", high=MAX_FACTOR),
+            weight=_weight(r, c["weight"], f"{k}.weight")[0],
+            weight_range=_weight(r, c["weight"], f"{k}.weight")[1],
             radius_m=r.number(c["radius_m"], f"{k}.radius_m", strict=True, high=5000),
             decay=decay,
             time_profile=tp,
@@ -500,11 +506,36 @@ def parse_profile(data: Any, *, path: str | Path = "<profile>") -> Profile:
         rules=tuple(rules),
         source=str(path),
         extra_hash="".join(extra),
-        uncertainty=_uncertainty(r, d.get("uncertainty"), [c.name for c in cats]),
+        uncertainty=_uncertainty(r, d.get("uncertainty"), [c.name for c in cats],
+                                 {c.name: c.weight_range for c in cats}),
     )
 
 
-def _uncertainty(r: _Reader, raw: Any, cat_names: list[str]) -> Uncertainty | None:
+SPREADS = ("uniform", "log-uniform")
+
+
+def _weight(r: _Reader, raw: Any, key: str) -> tuple[float, tuple[float, float, str] | None]:
+    """Return (weight, range): a number, or ``{low, high, spread}`` (uniform by default).
+
+    A range's weight for plain scoring is its median: the midpoint (uniform) or the
+    geometric mean (log-uniform).
+    """
+    if not isinstance(raw, Mapping):
+        return r.number(raw, key, high=MAX_FACTOR), None
+    r.mapping(raw, key, {"low", "high", "spread"}, {"low", "high"})
+    spread = raw.get("spread", "uniform")
+    if spread not in SPREADS:
+        raise r.fail(f"{key}.spread", f"must be one of {', '.join(SPREADS)}, got {spread!r}")
+    low = r.number(raw["low"], f"{key}.low", high=MAX_FACTOR, strict=spread == "log-uniform")
+    high = r.number(raw["high"], f"{key}.high", high=MAX_FACTOR)
+    if low > high:
+        raise r.fail(f"{key}.low", f"low {low:g} is above high {high:g}")
+    mid = math.sqrt(low * high) if spread == "log-uniform" else (low + high) / 2
+    return mid, (low, high, spread)
+
+
+def _uncertainty(r: _Reader, raw: Any, cat_names: list[str],
+                 ranges: Mapping[str, Any]) -> Uncertainty | None:
     """Validate the optional ``uncertainty`` block: named weights and their covariance."""
     if raw is None:
         return None
@@ -533,6 +564,9 @@ def _uncertainty(r: _Reader, raw: Any, cat_names: list[str]) -> Uncertainty | No
     eig = np.linalg.eigvalsh(vals)
     if eig.min() < -1e-9 * max(abs(eig).max(), 1e-300) or (np.diag(vals) < 0).any():
         raise r.fail(f"{k}.covariance", "must be positive semi-definite (a covariance)")
+    for n in names:
+        if ranges.get(n) is not None:
+            raise r.fail(f"{k}.weights", f"category {n!r} also has a weight range; give one")
     scale = raw.get("scale")
     return Uncertainty(
         weights=tuple(names),
