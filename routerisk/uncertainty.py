@@ -98,15 +98,25 @@ def draw_weights(law: WeightLaw, n: int, rng: np.random.Generator, *,
 # ----------------------------------------------------------------------------- route parts
 
 
+def _local_minutes(times: np.ndarray) -> np.ndarray:
+    """Return minutes of the week of local ISO times ``YYYY-MM-DDTHH:MM...`` (wall clock).
+
+    The segment times are written in the area's local time, so the wall clock is read
+    directly (vectorised); 1970-01-01 was a Thursday (Monday = 0).
+    """
+    if len(times) == 0:
+        return np.zeros(0, dtype=np.int64)
+    t = np.array([str(x)[:16] for x in times], dtype="datetime64[m]").astype(np.int64)
+    return (((t // 1440) + 3) % 7) * 1440 + t % 1440
+
+
 def unit_parts(net: Any, scores: list[Any]) -> tuple[np.ndarray, np.ndarray]:
     """Return (fixed part per score, ``(scores, categories)`` parts at weight 1).
 
     Computed from each score's driven segments exactly as :class:`routerisk.scoring.Scorer`
     scores them (same edges, shares of partial edges and entry minutes).
     """
-    import pandas as pd
-
-    from .scoring import Scorer, minute_of_week
+    from .scoring import Scorer
 
     sc = Scorer(net)
     fixed = np.zeros(len(scores))
@@ -115,9 +125,7 @@ def unit_parts(net: Any, scores: list[Any]) -> tuple[np.ndarray, np.ndarray]:
         seg = s.segments
         pos = seg["_pos"].to_numpy(dtype=np.int64)
         km = seg["length_m"].to_numpy(dtype=float) / 1000.0
-        times = pd.DatetimeIndex([pd.Timestamp(t).tz_convert(sc.tz).tz_localize(None)
-                                  for t in seg["time"]])
-        minutes = minute_of_week(times) % MINUTES_PER_WEEK
+        minutes = _local_minutes(seg["time"].to_numpy())
         mult = sc.mult_table[:, minutes].T
         unit[k] = (sc.sev[pos] * km) @ (mult * sc.exp[pos])
         fixed[k] = float(seg["baseline"].sum() + seg["crossing_part"].sum())
@@ -138,6 +146,19 @@ def analytic(fixed: np.ndarray, unit: np.ndarray, law: WeightLaw) -> tuple[np.nd
     a = unit[:, idx]
     sd = np.sqrt(np.einsum("ij,jk,ik->i", a, law.cov, a))
     return mean, sd
+
+
+def prob_lower_pairs(risks: np.ndarray, pairs: list[tuple[int, int]]) -> np.ndarray:
+    """Return, per pair (i, j), the share of draws where i's risk is below j's (ties 1/2)."""
+    if not pairs:
+        return np.zeros(0)
+    i, j = np.array(pairs).T
+    out = np.zeros(len(pairs))
+    step = max(1, int(2e7 // max(risks.shape[0], 1)))
+    for lo in range(0, len(pairs), step):
+        a, b = risks[:, i[lo:lo + step]], risks[:, j[lo:lo + step]]
+        out[lo:lo + step] = (a < b).mean(axis=0) + 0.5 * (a == b).mean(axis=0)
+    return out
 
 
 def prob_lower(risks: np.ndarray) -> np.ndarray:
@@ -176,12 +197,18 @@ def sensitivity(fixed: np.ndarray, unit: np.ndarray, law: WeightLaw, n: int,
     vary = list(law.varying)
     a = draw_weights(law, n, rng, independent=True)
     b = draw_weights(law, n, rng, independent=True)
-    f_a = fixed + a @ unit.T  # (N, m)
-    f_b = fixed + b @ unit.T
-    # AB_i differs from A only in weight i: f_AB_i = f_A + (b_i - a_i) * unit_i
     diff = (b[:, vary] - a[:, vary])  # (N, d)
-    f_ab = f_a[:, None, :] + diff[:, :, None] * unit[:, vary].T[None, :, :]
-    s1, st = sobol_indices(f_a, f_b, f_ab)
+    m = len(fixed)
+    s1 = np.zeros((len(vary), m))
+    st = np.zeros((len(vary), m))
+    step = max(1, int(2e7 // max(n * max(len(vary), 1), 1)))  # bounded memory
+    for lo in range(0, m, step):
+        cols = slice(lo, min(lo + step, m))
+        f_a = fixed[cols] + a @ unit[cols].T  # (N, m)
+        f_b = fixed[cols] + b @ unit[cols].T
+        # AB_i differs from A only in weight i: f_AB_i = f_A + (b_i - a_i) * unit_i
+        f_ab = f_a[:, None, :] + diff[:, :, None] * unit[cols][:, vary].T[None, :, :]
+        s1[:, cols], st[:, cols] = sobol_indices(f_a, f_b, f_ab)
     return s1, st, vary
 
 
@@ -201,10 +228,9 @@ def summarise(net: Any, scores: list[Any], n: int, seed: int = DEFAULT_SEED, *,
     w = draw_weights(law, n, rng)
     risks = fixed + w @ unit.T  # (n, scores)
     lo, med, hi = np.quantile(risks, [(1 - LEVEL) / 2, 0.5, (1 + LEVEL) / 2], axis=0)
-    p = prob_lower(risks)
     labels = [f"{s.name} @ {s.depart.isoformat(timespec='minutes')}" for s in scores]
-    pairs = [(i, j) for i, j in itertools.combinations(range(len(scores)), 2)
-             if not same_depart_only or scores[i].depart == scores[j].depart]
+    pairs = compared_pairs(scores, same_depart_only=same_depart_only)
+    p = prob_lower_pairs(risks, pairs)
     out_fixed = np.r_[fixed, [fixed[i] - fixed[j] for i, j in pairs]]
     out_unit = np.vstack([unit, *([unit[i] - unit[j]] for i, j in pairs)]) if pairs else unit
     s1, st, vary = sensitivity(out_fixed, out_unit, law, n, rng)
@@ -218,7 +244,7 @@ def summarise(net: Any, scores: list[Any], n: int, seed: int = DEFAULT_SEED, *,
     pair_recs = []
     for t, (i, j) in enumerate(pairs):
         col = len(scores) + t
-        pair_recs.append({"a": labels[i], "b": labels[j], "p_a_lower": r(p[i, j]),
+        pair_recs.append({"a": labels[i], "b": labels[j], "p_a_lower": r(p[t]),
                           "first_order": {names[v]: r(s1[q, col]) for q, v in enumerate(vary)},
                           "total": {names[v]: r(st[q, col]) for q, v in enumerate(vary)}})
     return {"draws": n, "seed": seed, "level": LEVEL,
@@ -228,6 +254,26 @@ def summarise(net: Any, scores: list[Any], n: int, seed: int = DEFAULT_SEED, *,
             + ("ranges (uniform or log-uniform)" if law.ranges else ""),
             "sensitivity": "Sobol first-order and total indices, weights independent",
             "routes": routes, "pairs": pair_recs}
+
+
+#: Up to this many scores (per departure time) every pair is compared; beyond it, each score
+#: with the next one in the ranking.
+ALL_PAIRS_UP_TO = 30
+
+
+def compared_pairs(scores: list[Any], *, same_depart_only: bool) -> list[tuple[int, int]]:
+    """Return the (i, j) score pairs to compare (see :data:`ALL_PAIRS_UP_TO`)."""
+    groups: dict[Any, list[int]] = {}
+    for k, s in enumerate(scores):
+        groups.setdefault(s.depart if same_depart_only else None, []).append(k)
+    pairs = []
+    for members in groups.values():
+        if len(members) <= ALL_PAIRS_UP_TO:
+            pairs += list(itertools.combinations(members, 2))
+        else:
+            ranked = sorted(members, key=lambda k: (scores[k].risk, k))
+            pairs += [tuple(sorted(p)) for p in zip(ranked, ranked[1:], strict=False)]
+    return sorted(pairs)
 
 
 def check_draws(n: int) -> None:
