@@ -305,3 +305,41 @@ def text_lines(summary: dict[str, Any]) -> list[str]:
                      + (f"; the difference rests most on {top[0][0]} (total {top[0][1]:.2f})"
                         if top else ""))
     return lines
+
+
+def versus_plan(net: Any, suggestions: list[Any], n: int, seed: int = DEFAULT_SEED
+                ) -> dict[str, Any]:
+    """Return, per suggestion, the plan's and each alternative's interval and P(lower than plan).
+
+    One set of weight draws serves every route, so the probabilities compare like with like.
+    """
+    from .scoring import _round as r
+
+    check_draws(n)
+    law = weight_law(net.profile)
+    scores, owner = [], []
+    for k, s in enumerate(suggestions):
+        scores.append(s.planned)
+        owner.append((k, None))
+        for j, a in enumerate(s.alternatives):
+            scores.append(a.score)
+            owner.append((k, j))
+    fixed, unit = unit_parts(net, scores)
+    risks = fixed + draw_weights(law, n, np.random.default_rng(seed)) @ unit.T
+    lo, med, hi = np.quantile(risks, [(1 - LEVEL) / 2, 0.5, (1 + LEVEL) / 2], axis=0)
+    plan_col = {k: i for i, (k, j) in enumerate(owner) if j is None}
+    pairs = [(i, plan_col[k]) for i, (k, j) in enumerate(owner) if j is not None]
+    p = dict(zip(pairs, prob_lower_pairs(risks, pairs), strict=True))
+    out = []
+    for k, s in enumerate(suggestions):
+        i0 = plan_col[k]
+        alts = []
+        for i, (kk, j) in enumerate(owner):
+            if kk == k and j is not None:
+                alts.append({"label": s.alternatives[j].label, "median": r(med[i]),
+                             "low": r(lo[i]), "high": r(hi[i]),
+                             "p_lower_than_plan": r(p[(i, i0)])})
+        out.append({"name": s.name, "plan": {"median": r(med[i0]), "low": r(lo[i0]),
+                                             "high": r(hi[i0])}, "alternatives": alts})
+    return {"draws": n, "seed": seed, "level": LEVEL,
+            "weights_varied": [law.names[v] for v in law.varying], "routes": out}

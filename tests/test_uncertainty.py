@@ -193,3 +193,24 @@ def test_score_uncertainty_bad_options(extra, words, town_dir, tmp_path, capsys)
     code, _, err = _score(["--network", str(town_dir), "--out", str(out), *extra], capsys)
     assert code == 2 and len(err.strip().splitlines()) == 1 and words in err, err
     assert not out.exists()
+
+
+def test_suggest_uncertainty_gives_probability_against_the_plan(town_dir, tmp_path, capsys):
+    prof = _ranged_profile(tmp_path, school={"low": 1.0, "high": 6.0},
+                           retail={"low": 0.5, "high": 3.0})
+    args = ["suggest", str(datasets.get_path("routes")), "--network", str(town_dir),
+            "--profile", str(prof), "--uncertainty", "400", "--seed", "2", "--json"]
+    assert main(args) == 0
+    a = capsys.readouterr().out
+    assert main(args) == 0
+    assert capsys.readouterr().out == a
+    doc = json.loads(a)
+    assert doc["made_from"]["uncertainty_seed"] == 2
+    for route, unc in zip(doc["routes"], doc["uncertainty"]["routes"], strict=True):
+        assert route["name"] == unc["name"]
+        for alt, u in zip(route["alternatives"], unc["alternatives"], strict=True):
+            assert 0.0 <= u["p_lower_than_plan"] <= 1.0
+            if alt["risk_change_pct"] < -50:  # far lower at every draw of two weights
+                assert u["p_lower_than_plan"] == 1.0
+    assert main(["suggest", str(datasets.get_path("routes")), "--network", str(town_dir),
+                 "--uncertainty", "0"]) == 2
