@@ -89,6 +89,7 @@ def _coverage(seeds: int) -> dict[str, float]:
 
 
 def main() -> None:
+    """Run the benchmark and write its JSON record."""
     import numpy as np
 
     from routerisk import calibration, scoring, uncertainty

@@ -26,7 +26,7 @@ from typing import Any
 import numpy as np
 
 from .errors import OptionError
-from .profile import MINUTES_PER_WEEK, Profile
+from .profile import Profile
 
 #: Seed used when none is given (recorded in every output).
 DEFAULT_SEED = 1

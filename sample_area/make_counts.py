@@ -69,7 +69,7 @@ def _sites(net, rng: np.random.Generator) -> list[tuple[str, float, float]]:
 
 
 def _far_site(net) -> tuple[str, float, float]:
-    """A point 45 m from the nearest street, inside the town (to be left out)."""
+    """Return a site 45 m from the nearest street, inside the town (to be left out)."""
     e = net.edges
     geoms = e.geometry.to_numpy()
     tree = shapely.STRtree(geoms)
@@ -109,6 +109,7 @@ def _csv(records: list[dict[str, object]]) -> str:
 
 
 def main(out: Path = HERE) -> None:
+    """Write ``counts.csv`` into ``out``."""
     rng = np.random.default_rng(SEED)
     net = build_network(datasets.get_path("town"), timezone="Etc/GMT+3")
     recs = rows(net, rng)
