@@ -246,10 +246,29 @@ class Design:
     not_fitted: list[str]  # categories with no placed site within their radius
     sites_near: dict[str, int]  # category -> number of placed sites within its influence
     periods: pd.DataFrame  # the counting periods used, with their site's edge
+    #: with --fit-baseline: the road class held at its baseline, and the classes fitted
+    fixed_class: str | None = None
+    classes: list[str] = field(default_factory=list)
+
+    @property
+    def terms(self) -> list[str]:
+        """Return the names of the columns of ``Z`` (the first one is the scale)."""
+        first = f"baseline:{self.fixed_class}" if self.fixed_class else "baseline"
+        return [first, *(f"baseline:{c}" for c in self.classes), *self.categories]
+
+    def column(self, name: str) -> int:
+        """Return the column of ``Z`` of a category or ``baseline:<class>``."""
+        return self.terms.index(name)
 
 
-def build_design(net: Any, counts: pd.DataFrame, placement: Placement) -> Design:
-    """Return the design matrix of the periods at placed sites (see the module docstring)."""
+def build_design(net: Any, counts: pd.DataFrame, placement: Placement, *,
+                 fit_baseline: bool = False) -> Design:
+    """Return the design matrix of the periods at placed sites (see the module docstring).
+
+    With ``fit_baseline`` the baseline column is split by road class (classes with a
+    baseline above zero at some site): the class with the most sites stays fixed (it sets
+    the units) and every other class gets a fitted multiplier on its baseline.
+    """
     from .scoring import minute_of_week
 
     prof = net.profile
@@ -272,8 +291,23 @@ def build_design(net: Any, counts: pd.DataFrame, placement: Placement) -> Design
     near = {c: int(site_exp[c].sum()) for c in cats}
     fitted = [c for c in cats if near[c] > 0]
     keep = [0] + [1 + cats.index(c) for c in fitted]
-    return Design(full[:, keep], per["count"].to_numpy(dtype=float), full, fitted,
-                  [c for c in cats if c not in fitted], near, per)
+    z = full[:, keep]
+    fixed, classes = None, []
+    if fit_baseline:
+        road = edges["highway"].astype(str).to_numpy()[rows]
+        live = base > 0
+        by_sites = per[live].assign(road=road[live]).groupby("road")["site"].nunique()
+        if len(by_sites) == 0:
+            raise CountsError("no count site is on a street with a baseline above zero",
+                              field="--fit-baseline")
+        ranked = sorted(by_sites.items(), key=lambda kv: (-kv[1], kv[0]))
+        fixed = str(ranked[0][0])
+        classes = sorted(str(k) for k, _ in ranked[1:])
+        cols = [np.where(road == fixed, base, 0.0)]
+        cols += [np.where(road == c, base, 0.0) for c in classes]
+        z = np.column_stack([*cols, z[:, 1:]])
+    return Design(z, per["count"].to_numpy(dtype=float), full, fitted,
+                  [c for c in cats if c not in fitted], near, per, fixed, classes)
 
 
 def check_design(design: Design, *, path: str | Path | None = None) -> None:
@@ -281,12 +315,14 @@ def check_design(design: Design, *, path: str | Path | None = None) -> None:
     n_sites = int(design.periods["site"].nunique())
     k = design.Z.shape[1]
     if n_sites < k:
+        extra = (f" and {len(design.classes)} road-class baselines" if design.classes else "")
         raise CountsError(
-            f"{n_sites} sites were placed on the network but fitting the scale and "
-            f"{k - 1} weights ({', '.join(design.categories) or 'none'}) needs at least {k} "
+            f"{n_sites} sites were placed on the network but fitting the scale, "
+            f"{len(design.categories)} weights ({', '.join(design.categories) or 'none'})"
+            f"{extra} needs at least {k} "
             "sites (more, spread over the categories and hours, for useful intervals)",
             path=path, field="site")
-    names = ["baseline", *design.categories]
+    names = design.terms
     norm = np.linalg.norm(design.Z, axis=0)
     if (norm == 0).any():
         raise CountsError(f"the {names[int(np.flatnonzero(norm == 0)[0])]} term is zero at "
@@ -514,7 +550,7 @@ class Calibration:
             rec: dict[str, Any] = {"category": c.name, "label": c.label, "judged": c.weight,
                                    "sites_near": self.design.sites_near[c.name]}
             if c.name in self.design.categories:
-                j = 1 + self.design.categories.index(c.name)
+                j = self.design.column(c.name)
                 bound = bool(self.fit.at_bound[j])
                 rec.update(fitted=True, weight=float(self.estimate[j]), se=float(se[j]),
                            low=max(float(self.estimate[j] - z * se[j]), 0.0),
@@ -525,6 +561,25 @@ class Calibration:
                 rec.update(fitted=False, weight=c.weight, se=None, low=None, high=None,
                            at_zero=False)
             out.append(rec)
+        return out
+
+    def baselines(self) -> list[dict[str, Any]]:
+        """Return the road-class baselines fitted with ``--fit-baseline`` (else empty)."""
+        from statistics import NormalDist
+
+        if not self.design.fixed_class:
+            return []
+        z = NormalDist().inv_cdf(0.975)
+        given = dict(self.profile.baseline_by_class)
+        se = np.sqrt(np.clip(np.diag(self.est_cov), 0, None))
+        out = [{"road_class": self.design.fixed_class, "judged": given.get(
+            self.design.fixed_class, self.profile.baseline_default), "fitted": False}]
+        for c in self.design.classes:
+            j = self.design.column(f"baseline:{c}")
+            b = given.get(c, self.profile.baseline_default)
+            m = float(self.estimate[j])
+            out.append({"road_class": c, "judged": b, "fitted": True, "baseline": b * m,
+                        "low": max(b * (m - z * se[j]), 0.0), "high": b * (m + z * se[j])})
         return out
 
     def summary(self) -> dict[str, Any]:
@@ -550,6 +605,8 @@ class Calibration:
             "weights": [{k: (r(v, 8) if isinstance(v, float) else v) for k, v in w.items()}
                         for w in self.weights()],
             "not_fitted": self.design.not_fitted,
+            "baselines": [{k: (r(v, 8) if isinstance(v, float) else v) for k, v in b.items()}
+                          for b in self.baselines()],
             "sites": int(self.design.periods["site"].nunique()),
             "periods": len(y),
             "left_out": [{"site": s, "distance_m": r(d, 1)} for s, d in self.placement.left_out],
@@ -578,7 +635,8 @@ def cross_validate(design: Design, profile: Profile, fit: Fit) -> dict[str, floa
     judged = _judged_columns(design, profile)
     pred = np.zeros(len(design.y))
     pred_j = np.zeros(len(design.y))
-    w_judged = np.array([1.0, *(profile.category(c).weight for c in design.categories)])
+    w_judged = np.array([1.0, *([1.0] * len(design.classes)),
+                         *(profile.category(c).weight for c in design.categories)])
     for s in np.unique(sites):
         out = sites == s
         Zt, yt = design.Z[~out], design.y[~out]
@@ -598,7 +656,7 @@ def cross_validate(design: Design, profile: Profile, fit: Fit) -> dict[str, floa
 
 
 def calibrate(net: Any, counts_path: str | Path, *, limit_m: float = SNAP_LIMIT_M,
-              family: str = "auto") -> Calibration:
+              family: str = "auto", fit_baseline: bool = False) -> Calibration:
     """Fit the scale and the weights of ``net.profile`` to the counts in ``counts_path``.
 
     ``family`` is ``auto`` (negative binomial when the dispersion test rejects the
@@ -616,7 +674,7 @@ def calibrate(net: Any, counts_path: str | Path, *, limit_m: float = SNAP_LIMIT_
         s, d = placement.left_out[0]
         raise CountsError(f"no site is within {limit_m:g} m of a street (site {s!r} is "
                           f"{d:.0f} m away)", path=path, field="lat/lon")
-    design = build_design(net, counts, placement)
+    design = build_design(net, counts, placement, fit_baseline=fit_baseline)
     check_design(design, path=path)
     pois = fit_fixed(design.Z, design.y)
     nb = fit_nb(design.Z, design.y, start=pois.theta)
@@ -628,8 +686,10 @@ def calibrate(net: Any, counts_path: str | Path, *, limit_m: float = SNAP_LIMIT_
     judged = _judged_columns(design, net.profile)
     judged_scale = float(design.y.sum() / judged.sum())
     cv = cross_validate(design, net.profile, fit)
-    notes = ["radii, decays, time profiles and the street baseline are kept as the profile "
-             "gives them; only the scale and the weights are fitted",
+    notes = ["radii, decays and time profiles are kept as the profile gives them"
+             + ("; the street baseline of every road class is fitted as a multiplier, except "
+                f"{design.fixed_class}, which is held at its value to fix the units"
+                if design.fixed_class else "; so is the street baseline (it fixes the units)"),
              "crossings are not part of the count model (crossing_weight is kept)"]
     if design.not_fitted:
         notes.append("no count site lies within the influence of: "
@@ -637,7 +697,7 @@ def calibrate(net: Any, counts_path: str | Path, *, limit_m: float = SNAP_LIMIT_
                      "fitted)")
     if fit.at_bound[1:].any():
         notes.append("held at zero by the non-negativity bound: " + ", ".join(
-            c for c, b in zip(design.categories, fit.at_bound[1:], strict=True) if b))
+            c for c, b in zip(design.terms[1:], fit.at_bound[1:], strict=True) if b))
     log.info("calibrate fitted %d weights on %d periods at %d sites (%s)",
              len(design.categories), len(design.y), design.periods["site"].nunique(), chosen)
     return Calibration(net.profile, design, placement, fit, pois, test, est, est_cov, cv,
@@ -686,9 +746,12 @@ def calibrated_document(cal: Calibration, *, out_path: str | Path,
             p = Path(rule["polygons"])
             p = p if p.is_absolute() else src_dir / p
             rule["polygons"] = os.path.relpath(p, Path(out_path).resolve().parent)
-    idx = [1 + cal.design.categories.index(w["category"]) for w in cal.weights()
-           if w["fitted"] and not w["at_zero"]]
-    names = [cal.design.categories[i - 1] for i in idx]
+    for b in cal.baselines():
+        if b["fitted"]:
+            doc.setdefault("baseline", {}).setdefault("by_road_class", {})[b["road_class"]] = \
+                _num(b["baseline"])
+    names = [w["category"] for w in cal.weights() if w["fitted"] and not w["at_zero"]]
+    idx = [cal.design.column(n) for n in names]
     cov = cal.est_cov[np.ix_(idx, idx)]
     cov = (cov + cov.T) / 2
     doc["name"] = f"{doc.get('name', 'profile')}-calibrated"

@@ -101,6 +101,15 @@ def render(cal: Calibration, net: Any, provenance: dict[str, Any]) -> str:
         ("se", "standard error"), ("low", "95 % low"), ("high", "95 % high"),
         ("sites", "sites near"), ("status", "status")],
         caption="Weights before and after (intervals from the observed information)")
+    base_rows = [{"road_class": b["road_class"], "judged": b["judged"],
+                  "fitted": b.get("baseline"), "low": b.get("low"), "high": b.get("high"),
+                  "status": "fitted" if b["fitted"] else "held (sets the units)"}
+                 for b in cal.baselines()]
+    base_table = report.table_html(base_rows, [
+        ("road_class", "road class"), ("judged", "judged baseline"),
+        ("fitted", "calibrated baseline"), ("low", "95 % low"), ("high", "95 % high"),
+        ("status", "status")], caption="Street baselines (--fit-baseline)") if base_rows \
+        else ""
     fig = report.grouped_bar_chart(
         [w["category"] for w in weights],
         {"judged": [w["judged"] for w in weights], "calibrated": [w["weight"] for w in weights]},
@@ -144,6 +153,7 @@ def render(cal: Calibration, net: Any, provenance: dict[str, Any]) -> str:
                              "residual": float(res[near].mean())})
     cols = [("group", "group"), ("periods", "periods"), ("observed", "observed"),
             ("predicted", "predicted"), ("residual", "mean Pearson residual")]
+    dig = {"observed": 0, "predicted": 1, "residual": 3}
     by_hour = _group_rows(day + " " + hour, cal)
     res_fig = report.bar_chart([r["group"] for r in by_hour], [r["residual"] for r in by_hour],
                                title="Mean Pearson residual by start hour",
@@ -153,18 +163,19 @@ def render(cal: Calibration, net: Any, provenance: dict[str, Any]) -> str:
     body = [
         report.section("What the counts can and cannot tell", report.paragraph(CANNOT_TELL),
                        *(report.note_html(n) for n in cal.notes)),
-        report.section("Weights", wtable, report.figure_html(
+        report.section("Weights", wtable, base_table, report.figure_html(
             fig, alt="Judged and calibrated weights by category")),
         report.section("Fit", report.pairs_html(facts_fit, caption="Goodness of fit"),
                        report.figure_html(_scatter(cal), alt="Observed against predicted")),
-        report.section("Residuals", report.table_html(cat_rows, cols,
+        report.section("Residuals", report.table_html(cat_rows, cols, digits=dig,
                                                       caption="By category (periods near it)"),
-                       report.table_html(_group_rows(road, cal), cols,
+                       report.table_html(_group_rows(road, cal), cols, digits=dig,
                                          caption="By road class"),
-                       report.table_html(by_hour, cols, caption="By day type and start hour"),
+                       report.table_html(by_hour, cols, digits=dig,
+                                         caption="By day type and start hour"),
                        report.figure_html(res_fig, alt="Residuals by start hour")),
         report.section("Sites", _sites_map(cal, net),
-                       report.table_html(_group_rows(per["site"], cal), cols,
+                       report.table_html(_group_rows(per["site"], cal), cols, digits=dig,
                                          caption="Observed and predicted by site"),
                        (f"<p>Left out (farther than the placing limit):</p><ul>{left}</ul>"
                         if left else "")),

@@ -225,7 +225,7 @@ def _edit(i, **kw):
      "row 2: lat/lon: site 'Z1' is off the network"),
     (lambda: "site,lat,lon,start,end,count\n", "has no counting periods"),
     (lambda: [r for r in _sample_rows() if r["site"] in ("C04", "C07")],
-     "2 sites were placed on the network but fitting the scale and 3 weights (school, "
+     "2 sites were placed on the network but fitting the scale, 3 weights (school, "
      "campus, park) needs at least 4 sites"),
 ])
 def test_bad_counts_one_line_exit_2_nothing_written(make, words, town_dir, tmp_path, capsys):
@@ -303,3 +303,23 @@ def test_sample_count_programme_regenerates_byte_identical(tmp_path):
     assert len({r["site"] for r in rows}) == mod.N_SITES + 1  # and the one left out
     assert {r["end"][11:] for r in rows} and all(
         r["end"][:10] == r["start"][:10] for r in rows)
+
+
+def test_fit_baseline_holds_one_road_class_and_fits_the_others(town_net, tmp_path):
+    base = cb.calibrate(town_net, datasets.get_path("counts"))
+    cal = cb.calibrate(town_net, datasets.get_path("counts"), fit_baseline=True)
+    d = cal.design
+    assert d.fixed_class == "residential" and "tertiary" in d.classes
+    assert d.Z.shape[1] == base.design.Z.shape[1] + len(d.classes)
+    # the split columns add up to the one baseline column
+    np.testing.assert_allclose(d.Z[:, :1 + len(d.classes)].sum(axis=1), base.design.Z[:, 0])
+    recs = {b["road_class"]: b for b in cal.baselines()}
+    assert recs["residential"]["fitted"] is False
+    t = recs["tertiary"]
+    assert t["low"] <= t["baseline"] <= t["high"]
+    assert cal.fit.loglik >= base.fit.loglik - 1e-9  # a larger model fits at least as well
+    doc = cb.calibrated_document(cal, out_path=tmp_path / "p.yaml", counts_sha256="x")
+    assert doc["baseline"]["by_road_class"]["tertiary"] == pytest.approx(t["baseline"])
+    assert doc["baseline"]["by_road_class"]["residential"] == 0.35
+    assert doc["uncertainty"]["weights"] == list(town_net.profile.category_names)
+    parse_profile(doc)

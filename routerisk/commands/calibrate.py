@@ -41,6 +41,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--model", default="auto",
                         choices=("auto", "poisson", "negative-binomial"),
                         help="count model (default auto: chosen by the dispersion test)")
+    parser.add_argument("--fit-baseline", action="store_true",
+                        help="also fit the street baseline of each road class (the class "
+                             "with the most sites stays fixed and sets the units)")
     parser.add_argument("--json", action="store_true", help="print the fit as JSON")
     parser.add_argument("--force", action="store_true", help="replace existing outputs")
 
@@ -61,6 +64,10 @@ def _table(summary: dict) -> list[str]:
             iv = f"{w['low']:.3f} - {w['high']:.3f}"
         lines.append(f"{w['category']:<14}{w['judged']:>9.3f}{w['weight']:>9.3f}{iv:>22}"
                      f"  {w['sites_near']}")
+    for b in summary["baselines"]:
+        lines.append(f"baseline {b['road_class']}: " + (
+            f"{b['judged']:.3f} -> {b['baseline']:.3f} ({b['low']:.3f} - {b['high']:.3f})"
+            if b["fitted"] else f"{b['judged']:.3f} (held, sets the units)"))
     cv = summary["cross_validation"]
     lines.append(f"leave-one-site-out RMSE: fitted {cv['rmse_fitted']:.2f}, judged "
                  f"{cv['rmse_judged']:.2f} pedestrians per period; mean deviance fitted "
@@ -82,7 +89,8 @@ def run(args: argparse.Namespace) -> int:
         if Path(args.report).resolve() == Path(args.out).resolve():
             raise OptionError("--report and --out name the same file", field="--report")
     net = network_of(args)
-    cal = calibration.calibrate(net, args.counts, limit_m=args.snap_limit, family=args.model)
+    cal = calibration.calibrate(net, args.counts, limit_m=args.snap_limit, family=args.model,
+                                fit_baseline=args.fit_baseline)
     # everything is computed before anything is written
     doc_text = calibration.profile_text(cal, args.out)
     page = None
