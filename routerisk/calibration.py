@@ -769,16 +769,21 @@ def calibrated_document(cal: Calibration, *, out_path: str | Path,
     return doc
 
 
-def profile_text(cal: Calibration, out: str | Path) -> str:
-    """Return the calibrated profile as YAML text, checked to read back as a valid profile."""
+def profile_text(cal: Calibration, out: str | Path,
+                 provenance: dict[str, Any] | None = None) -> str:
+    """Return the calibrated profile as YAML text, checked to read back as a valid profile.
+
+    ``provenance`` (:func:`routerisk._io.provenance`) is recorded in a comment line.
+    """
     import yaml
 
-    from ._io import sha256_file
+    from ._io import provenance_line, sha256_file
     from .profile import parse_profile
 
     doc = calibrated_document(cal, out_path=out, counts_sha256=sha256_file(cal.counts_path))
+    made = f"# Made from: {provenance_line(provenance)}\n" if provenance else ""
     text = ("# Calibrated by routerisk calibrate on pedestrian counts; see its report.\n"
-            + yaml.safe_dump(doc, sort_keys=False, allow_unicode=True, width=100,
+            + made + yaml.safe_dump(doc, sort_keys=False, allow_unicode=True, width=100,
                            default_flow_style=None))
     parse_profile(yaml.safe_load(text), path=out)  # the written file must read back
     return text
@@ -791,6 +796,7 @@ def write_text(out: str | Path, text: str, *, force: bool = False) -> Path:
     return write_text_atomic(out, text, force=force)
 
 
-def write_profile(cal: Calibration, out: str | Path, *, force: bool = False) -> Path:
+def write_profile(cal: Calibration, out: str | Path, *, force: bool = False,
+                  provenance: dict[str, Any] | None = None) -> Path:
     """Validate the calibrated profile and write it as YAML (atomically)."""
-    return write_text(out, profile_text(cal, out), force=force)
+    return write_text(out, profile_text(cal, out, provenance), force=force)

@@ -163,16 +163,21 @@ def _stage_calibrate(net: Any, out: Path, echo: Callable[[str], None]) -> dict[s
     cal = calibration.calibrate(net, counts)
     folder = out / "calibration"
     folder.mkdir()
-    calibration.write_profile(cal, folder / "profile.yaml")
-    write_report(folder / "report.html", calibration_report.render(cal, net, provenance(
-        profile=net.profile.fingerprint, network=net, inputs={"counts": counts})))
+    made_from = provenance(profile=net.profile.fingerprint, network=net,
+                           inputs={"counts": counts})
+    calibration.write_profile(cal, folder / "profile.yaml", provenance=made_from)
+    write_report(folder / "report.html", calibration_report.render(cal, net, made_from))
     fitted = net.retag(load_profile(folder / "profile.yaml"))
     planned = routes.read_routes(datasets.get_path("routes"), default_tz=net.timezone)
     before = scoring.score_routes(net, planned)
     after = scoring.score_routes(fitted, planned)
     unc = uncertainty.summarise(fitted, after, 4000, uncertainty.DEFAULT_SEED,
                                 same_depart_only=False)
-    (folder / "uncertainty.json").write_text(dumps_json(unc) + "\n", encoding="utf-8")
+    record = {"made_from": provenance(profile=fitted.profile.fingerprint, network=fitted,
+                                      inputs={"counts": counts,
+                                              "routes": datasets.get_path("routes")}),
+              "calibrated_from_profile": net.profile.fingerprint, **unc}
+    (folder / "uncertainty.json").write_text(dumps_json(record) + "\n", encoding="utf-8")
     old, new = _ranking(before), _ranking(after)
     probs = {(p["a"].split(" @ ")[0], p["b"].split(" @ ")[0]): p["p_a_lower"]
              for p in unc["pairs"]}

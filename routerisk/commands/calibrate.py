@@ -92,13 +92,14 @@ def run(args: argparse.Namespace) -> int:
     cal = calibration.calibrate(net, args.counts, limit_m=args.snap_limit, family=args.model,
                                 fit_baseline=args.fit_baseline)
     # everything is computed before anything is written
-    doc_text = calibration.profile_text(cal, args.out)
+    made_from = provenance(profile=net.profile.fingerprint, network=net,
+                           inputs={"counts": args.counts})
+    doc_text = calibration.profile_text(cal, args.out, made_from)
     page = None
     if args.report:
         from .. import calibration_report
 
-        page = calibration_report.render(cal, net, provenance(
-            profile=net.profile.fingerprint, network=net, inputs={"counts": args.counts}))
+        page = calibration_report.render(cal, net, made_from)
     calibration.write_text(args.out, doc_text, force=args.force)
     if page is not None:
         from ..report import write_report
@@ -106,8 +107,7 @@ def run(args: argparse.Namespace) -> int:
         write_report(args.report, page, force=args.force)
     summary = cal.summary()
     if args.json:
-        print(dumps_json({**summary, "made_from": provenance(
-            profile=net.profile.fingerprint, network=net, inputs={"counts": args.counts})}))
+        print(dumps_json({**summary, "made_from": made_from}))
     else:
         print("\n".join(_table(summary)))
         print(f"wrote {args.out}" + (f" and {args.report}" if args.report else ""))
