@@ -95,7 +95,11 @@ def _records(path: Path) -> list[tuple[str, dict[str, Any]]]:
         out = []
         for i, f in enumerate(feats):
             where = f"features[{i}]"
-            geom = (f or {}).get("geometry") or {}
+            if not isinstance(f, dict) or not isinstance(f.get("geometry") or {}, dict) or \
+                    not isinstance(f.get("properties") or {}, dict):
+                raise CountsError("must be a GeoJSON Feature with a Point geometry and "
+                                  "properties", path=path, field=where)
+            geom = f.get("geometry") or {}
             if geom.get("type") != "Point" or not isinstance(geom.get("coordinates"), list) \
                     or len(geom["coordinates"]) < 2:
                 raise CountsError("must be a Point feature", path=path, field=where)
@@ -103,7 +107,13 @@ def _records(path: Path) -> list[tuple[str, dict[str, Any]]]:
             props["lon"], props["lat"] = geom["coordinates"][:2]
             out.append((where, props))
         return out
-    rows = list(csv.reader(line for line in text.splitlines() if not line.startswith("#")))
+    # comment lines become empty (skipped), so row numbers stay those of the file
+    rows = list(csv.reader("" if line.startswith("#") else line for line in text.splitlines()))
+    while rows and not any(cell.strip() for cell in rows[0]):
+        rows.pop(0)
+    first = text.splitlines().index(next(ln for ln in text.splitlines()
+                                         if ln.strip() and not ln.startswith("#"))) \
+        if rows else 0
     if not rows:
         raise CountsError("has no header and no rows", path=path)
     head = [h.strip() for h in rows[0]]
@@ -112,7 +122,7 @@ def _records(path: Path) -> list[tuple[str, dict[str, Any]]]:
         raise CountsError(f"missing column {missing[0]!r}; needs {', '.join(COLUMNS)}",
                           path=path, field="header")
     out = []
-    for n, row in enumerate(rows[1:], start=2):
+    for n, row in enumerate(rows[1:], start=first + 2):
         if not any(cell.strip() for cell in row):
             continue
         if len(row) != len(head):
@@ -641,6 +651,11 @@ def cross_validate(design: Design, profile: Profile, fit: Fit) -> dict[str, floa
         out = sites == s
         Zt, yt = design.Z[~out], design.y[~out]
         cols = np.linalg.norm(Zt, axis=0) > 0
+        if not cols[0] or yt.sum() == 0:  # nothing left to set the scale: judged weights
+            theta = fit.theta[0] * w_judged
+            pred[out] = design.Z[out] @ theta
+            pred_j[out] = judged[out] * (fit.theta[0])
+            continue
         f = fit_fixed(Zt[:, cols], yt, alpha=fit.alpha, start=fit.theta[cols])
         theta = np.zeros(design.Z.shape[1])
         theta[cols] = f.theta
@@ -676,6 +691,8 @@ def calibrate(net: Any, counts_path: str | Path, *, limit_m: float = SNAP_LIMIT_
                           f"{d:.0f} m away)", path=path, field="lat/lon")
     design = build_design(net, counts, placement, fit_baseline=fit_baseline)
     check_design(design, path=path)
+    if design.y.sum() == 0:
+        raise CountsError("every count is zero: nothing to fit", path=path, field="count")
     pois = fit_fixed(design.Z, design.y)
     nb = fit_nb(design.Z, design.y, start=pois.theta)
     test = dispersion_test(design.y, pois, nb)

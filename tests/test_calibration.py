@@ -210,6 +210,15 @@ def _sample_rows():
     return _rows(datasets.get_path("counts"))
 
 
+def _bad_text():
+    rows = _edit(3, count="-4")
+    buf = io.StringIO()
+    w = csv.DictWriter(buf, fieldnames=list(cb.COLUMNS), lineterminator="\n")
+    w.writeheader()
+    w.writerows(rows)
+    return buf.getvalue()
+
+
 def _edit(i, **kw):
     rows = _sample_rows()
     rows[i] = {**rows[i], **kw}
@@ -224,6 +233,8 @@ def _edit(i, **kw):
     (lambda: _edit(0, site="Z1", lat="38.6", lon="-38.2"),
      "row 2: lat/lon: site 'Z1' is off the network"),
     (lambda: "site,lat,lon,start,end,count\n", "has no counting periods"),
+    (lambda: [{**r, "count": "0"} for r in _sample_rows()], "count: every count is zero"),
+    (lambda: "# a comment line\n" + _bad_text(), "row 6: count: must not be negative"),
     (lambda: [r for r in _sample_rows() if r["site"] in ("C04", "C07")],
      "2 sites were placed on the network but fitting the scale, 3 weights (school, "
      "campus, park) needs at least 4 sites"),
