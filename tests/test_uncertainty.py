@@ -214,3 +214,37 @@ def test_suggest_uncertainty_gives_probability_against_the_plan(town_dir, tmp_pa
                 assert u["p_lower_than_plan"] == 1.0
     assert main(["suggest", str(datasets.get_path("routes")), "--network", str(town_dir),
                  "--uncertainty", "0"]) == 2
+
+
+def test_review_band_intervals_recompute_the_bands(town_net, tmp_path):
+    from routerisk import review
+
+    areas = review.read_areas(datasets.get_path("area"), crs=town_net.crs)
+    # degenerate ranges (low = high = the weight): every draw must give the tagged bands
+    same = {c.name: {"low": c.weight, "high": c.weight} for c in town_net.profile.categories}
+    fixed = town_net.retag(load_profile(_ranged_profile(tmp_path, **same)))
+    res = review.review_areas(fixed, areas)
+    u = un.area_bands(res, 50, 3)
+    for a, ua in zip(res.areas, u["areas"], strict=True):
+        for band, km in a["km_by_band"].items():
+            got = ua["km_by_band"][band]
+            assert got["low"] == got["median"] == got["high"]
+            assert got["median"] == pytest.approx(km, abs=1e-4)  # review rounds to 4 places
+    wide = {"school": {"low": 0.0, "high": 9.0}, "retail": {"low": 0.0, "high": 6.0}}
+    net2 = town_net.retag(load_profile(_ranged_profile(tmp_path, **wide)))
+    res2 = review.review_areas(net2, areas)
+    u2 = un.area_bands(res2, 400, 3)
+    main_area = u2["areas"][0]["km_by_band"]
+    assert main_area["intense"]["high"] > main_area["intense"]["low"]
+
+
+def test_review_uncertainty_cli(town_dir, tmp_path, capsys):
+    prof = _ranged_profile(tmp_path, school={"low": 1.0, "high": 6.0})
+    args = ["review", str(datasets.get_path("area")), "--network", str(town_dir),
+            "--profile", str(prof), "--uncertainty", "200", "--json"]
+    assert main(args) == 0
+    doc = json.loads(capsys.readouterr().out)
+    assert doc["uncertainty"]["weights_varied"] == ["school"]
+    assert main(["review", str(datasets.get_path("area")), "--network", str(town_dir),
+                 "--uncertainty", "0"]) == 2
+    assert "--uncertainty" in capsys.readouterr().err
