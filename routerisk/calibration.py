@@ -396,6 +396,23 @@ def _information(Z: np.ndarray, y: np.ndarray, mu: np.ndarray, alpha: float, *,
     return (Z * w[:, None]).T @ Z
 
 
+def _newton_step(Z: np.ndarray, y: np.ndarray, mu: np.ndarray, alpha: float,
+                 info: np.ndarray, grad: np.ndarray, free: np.ndarray) -> np.ndarray:
+    """Return the (Newton or scoring) step on the free parameters, zero elsewhere."""
+    step = np.zeros(len(grad))
+    if not free.any():
+        return step
+    sub = info[np.ix_(free, free)]
+    try:
+        if np.linalg.eigvalsh(sub).min() <= 0:
+            raise np.linalg.LinAlgError
+        step[free] = np.linalg.solve(sub, grad[free])
+    except np.linalg.LinAlgError:
+        sub = _information(Z, y, mu, alpha, observed=False)[np.ix_(free, free)]
+        step[free] = np.linalg.lstsq(sub, grad[free], rcond=None)[0]
+    return step
+
+
 def fit_fixed(Z: np.ndarray, y: np.ndarray, *, alpha: float = 0.0,
               start: np.ndarray | None = None, max_iter: int = 200) -> Fit:
     """Fit ``theta >= 0`` by Fisher scoring with an active set, at a fixed NB2 ``alpha``.
@@ -410,7 +427,7 @@ def fit_fixed(Z: np.ndarray, y: np.ndarray, *, alpha: float = 0.0,
     if start is None:
         scale = np.linalg.norm(Z, axis=0)
         theta = nnls(Z / scale, y)[0] / scale
-        theta = np.maximum(theta, 1e-3 * max(theta.max(), 1e-12) )
+        theta = np.maximum(theta, 1e-3 * max(theta.max(), 1e-12))
         mu0 = Z @ theta
         theta = theta * (y.sum() / mu0.sum() if mu0.sum() > 0 else 1.0)
     else:
@@ -424,20 +441,20 @@ def fit_fixed(Z: np.ndarray, y: np.ndarray, *, alpha: float = 0.0,
         if not free.any():
             break
         info = _information(Z, y, mu, alpha, observed=it > 8)
-        sub = info[np.ix_(free, free)]
-        try:
-            if it > 8 and np.linalg.eigvalsh(sub).min() <= 0:
-                raise np.linalg.LinAlgError
-            step_f = np.linalg.solve(sub, grad[free])
-        except np.linalg.LinAlgError:
-            sub = _information(Z, y, mu, alpha, observed=False)[np.ix_(free, free)]
-            step_f = np.linalg.lstsq(sub, grad[free], rcond=None)[0]
-        step = np.zeros(k)
-        step[free] = step_f
+        while True:
+            step = _newton_step(Z, y, mu, alpha, info, grad, free)
+            # a parameter at zero that the step would push below zero stays at zero
+            push = free & (theta <= 0) & (step < 0)
+            if not push.any():
+                break
+            free = free & ~push
+        if not free.any():
+            break
         t = 1.0
         neg = step < 0
         if neg.any():
             t = min(1.0, float(np.min(theta[neg] / -step[neg])))
+        capped = t < 1.0  # the step stops where a parameter reaches zero
         improved = False
         for _ in range(60):
             cand = np.maximum(theta + t * step, 0.0)
@@ -454,8 +471,8 @@ def fit_fixed(Z: np.ndarray, y: np.ndarray, *, alpha: float = 0.0,
             break
         change = np.max(np.abs(cand - theta) / np.maximum(np.abs(cand), 1e-300))
         theta, mu, ll_old, ll = cand, mu_c, ll, ll_c
-        if change < 1e-13 or (it > 10 and abs(ll - ll_old) <= 1e-15 * abs(ll)
-                              and change < 1e-10):
+        if not capped and (change < 1e-13 or (it > 10 and abs(ll - ll_old)
+                                              <= 1e-15 * abs(ll) and change < 1e-10)):
             break
     grad = Z.T @ ((y - mu) / (mu * (1 + alpha * mu)))
     at_bound = (theta <= 0) & (grad <= 0)

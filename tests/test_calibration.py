@@ -334,3 +334,43 @@ def test_fit_baseline_holds_one_road_class_and_fits_the_others(town_net, tmp_pat
     assert doc["baseline"]["by_road_class"]["residential"] == 0.35
     assert doc["uncertainty"]["weights"] == list(town_net.profile.category_names)
     parse_profile(doc)
+
+
+def test_bound_fit_meets_the_optimality_conditions(design, town_net):
+    """With a true weight of zero some fits hold it at the bound; the KKT conditions hold."""
+    theta = _true_theta(town_net.profile)
+    j = 1 + design.categories.index("park")
+    theta[j] = 0.0
+    mu = design.Z @ theta
+    held = 0
+    for seed in range(12):
+        y = np.random.default_rng(seed).poisson(mu).astype(float)
+        f = cb.fit_fixed(design.Z, y)
+        grad = design.Z.T @ ((y - f.mu) / f.mu)
+        assert (f.theta >= 0).all()
+        free = ~f.at_bound
+        np.testing.assert_allclose(grad[free], 0.0, atol=1e-6 * np.abs(design.Z.T @ (
+            y / f.mu)).max())
+        assert (grad[f.at_bound] <= 1e-9).all()
+        held += bool(f.at_bound[j])
+        # reference: scipy.optimize.minimize, L-BFGS-B under the same bounds, from our
+        # optimum's neighbourhood and from a plain start; ours is at least as good
+        from scipy.optimize import minimize
+        from scipy.special import gammaln
+
+        def neg(t, y=y):
+            m = np.maximum(design.Z @ t, 1e-12)
+            return -float(np.sum(y * np.log(m) - m))
+
+        for x0 in (f.theta * 1.1 + 1.0, np.full(len(theta), y.mean() / design.Z.sum(1).mean())):
+            ref = minimize(neg, x0, method="L-BFGS-B", bounds=[(0, None)] * len(theta),
+                           options={"maxiter": 5000, "ftol": 1e-15, "gtol": 1e-10})
+            const = float(gammaln(y + 1).sum())  # the term neg() leaves out
+            assert -ref.fun - const <= f.loglik + 1e-9 * abs(f.loglik)
+        # no feasible move along the free parameters raises the likelihood
+        for k in np.flatnonzero(free):
+            for step in (1e-4, -1e-4):
+                t2 = f.theta.copy()
+                t2[k] *= 1 + step
+                assert cb.loglik(y, design.Z @ t2) <= f.loglik + 1e-9
+    assert held >= 2  # about half the fits put it at zero
