@@ -20,7 +20,8 @@ from collections.abc import Sequence
 from . import __version__
 from .errors import RouteriskError
 
-COMMANDS = ("build", "score", "suggest", "review", "plan", "evidence", "watch", "demo", "serve")
+COMMANDS = ("build", "score", "suggest", "review", "plan", "evidence", "watch", "calibrate",
+            "demo", "serve")
 
 
 def _available() -> dict[str, object]:

@@ -12,6 +12,7 @@ _FILES = {
     "runs": "runs.yaml",
     "drives": "drives",
     "events": "events.csv",
+    "counts": "counts.csv",
 }
 
 

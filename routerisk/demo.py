@@ -34,7 +34,8 @@ def run_demo(out: str | Path, *, force: bool = False,
                 summary.update(part)
         summary["made_from"] = provenance(
             profile=net.profile.fingerprint, network=net,
-            inputs={k: datasets.get_path(k) for k in ("routes", "area", "events", "drives")})
+            inputs={k: datasets.get_path(k) for k in ("routes", "area", "events", "drives",
+                                                      "counts")})
         (tmp / "summary.json").write_text(dumps_json(summary) + "\n", encoding="utf-8")
     echo(CAUTION)
     return summary
@@ -148,3 +149,61 @@ def _stage_plan(net: Any, out: Path, echo: Callable[[str], None]) -> dict[str, A
 
 
 _STAGES.append(_stage_plan)
+
+
+def _ranking(scores: list[Any]) -> list[str]:
+    return [s.name for s in sorted(scores, key=lambda s: (-s.risk, s.name))]
+
+
+def _stage_calibrate(net: Any, out: Path, echo: Callable[[str], None]) -> dict[str, Any]:
+    from . import calibration, calibration_report, routes, scoring, uncertainty
+    from .profile import load_profile
+    from .report import write_report
+
+    counts = datasets.get_path("counts")
+    cal = calibration.calibrate(net, counts)
+    folder = out / "calibration"
+    folder.mkdir()
+    made_from = provenance(profile=net.profile.fingerprint, network=net,
+                           inputs={"counts": counts})
+    calibration.write_profile(cal, folder / "profile.yaml", provenance=made_from)
+    write_report(folder / "report.html", calibration_report.render(cal, net, made_from))
+    fitted = net.retag(load_profile(folder / "profile.yaml"))
+    planned = routes.read_routes(datasets.get_path("routes"), default_tz=net.timezone)
+    before = scoring.score_routes(net, planned)
+    after = scoring.score_routes(fitted, planned)
+    unc = uncertainty.summarise(fitted, after, 4000, uncertainty.DEFAULT_SEED,
+                                same_depart_only=False)
+    record = {"made_from": provenance(profile=fitted.profile.fingerprint, network=fitted,
+                                      inputs={"counts": counts,
+                                              "routes": datasets.get_path("routes")}),
+              "calibrated_from_profile": net.profile.fingerprint, **unc}
+    (folder / "uncertainty.json").write_text(dumps_json(record) + "\n", encoding="utf-8")
+    old, new = _ranking(before), _ranking(after)
+    probs = {(p["a"].split(" @ ")[0], p["b"].split(" @ ")[0]): p["p_a_lower"]
+             for p in unc["pairs"]}
+
+    def p_lower(a: str, b: str) -> float:
+        return probs[(a, b)] if (a, b) in probs else 1.0 - probs[(b, a)]
+
+    # the ranking is by falling risk: each next route should be the lower one
+    sure = min((p_lower(b, a) for a, b in zip(new, new[1:], strict=False)), default=1.0)
+    summ = cal.summary()
+    moved = ", ".join(f"{w['category']} {w['judged']:g} -> {w['weight']:.2f}"
+                      for w in summ["weights"] if w["fitted"] and abs(w["weight"] - w["judged"])
+                      > 0.25 * max(w["judged"], 0.1))
+    echo(f"calibration on {summ['sites']} count sites ({summ['model']}): {moved or 'no weight'}"
+         " moved by more than a quarter")
+    change = (f"unchanged ({' > '.join(new)})" if old == new else
+              "changed from " + " > ".join(old) + " to " + " > ".join(new))
+    rel = {b.name: a.risk / b.risk - 1 for a, b in zip(after, before, strict=True) if b.risk}
+    big = max(sorted(rel), key=lambda k: abs(rel[k])) if rel else None
+    echo(f"ranking by risk under the calibrated profile {change}"
+         + (f"; largest change {big} {100 * rel[big]:+.0f} %" if big else "")
+         + f"; each step of the ranking holds in at least {100 * sure:.1f} % of "
+           f"{unc['draws']} weight draws")
+    return {"calibration": {**summ, "ranking_before": old, "ranking_after": new,
+                            "uncertainty": unc}}
+
+
+_STAGES.append(_stage_calibrate)

@@ -107,6 +107,8 @@ class Category:
     decay: str
     time_profile: str | None
     stack: bool = False
+    #: (low, high, spread) when the weight is given as a range (``uncertainty`` draws)
+    weight_range: tuple[float, float, str] | None = None
 
     def matches(self, tags: Mapping[str, str]) -> bool:
         """Return True when an OSM object with ``tags`` is a source of this category."""
@@ -176,6 +178,20 @@ class Likelihood:
 
 
 @dataclass(frozen=True)
+class Uncertainty:
+    """How sure the weights are: a covariance of fitted weights (from ``routerisk calibrate``).
+
+    Draws are centred on the categories' weights (see :mod:`routerisk.uncertainty`).
+    """
+
+    weights: tuple[str, ...]
+    covariance: tuple[tuple[float, ...], ...]
+    method: str = ""
+    fitted_from: str = ""
+    scale: float | None = None
+
+
+@dataclass(frozen=True)
 class Profile:
     """A validated, frozen exposure profile. Build it with :func:`load_profile`."""
 
@@ -199,6 +215,7 @@ class Profile:
     crossing_time_profile: str | None = None
     #: Optional crash likelihood by speed (None: off, crashes do not depend on speed).
     likelihood: Likelihood | None = None
+    uncertainty: Uncertainty | None = None
 
     @property
     def category_names(self) -> tuple[str, ...]:
@@ -243,6 +260,9 @@ class Profile:
         for key in _OPTIONAL_FIELDS:  # unset: the same content (and fingerprint) as before
             if d.get(key) is None:
                 d.pop(key, None)
+        for c in d["categories"]:
+            if c.get("weight_range") is None:  # likewise plain weights
+                c.pop("weight_range", None)
         return d
 
     def street_multipliers(self, minute_of_week: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -368,12 +388,12 @@ class _Reader:
 
 _TOP_KEYS = {
     "version", "name", "description", "sample_spacing_m", "baseline", "time_profiles",
-    "categories", "crossing_weight", "severity", "bands", "rules",
+    "categories", "crossing_weight", "severity", "bands", "rules", "uncertainty",
 }
 #: Optional parts of the risk model, read by :func:`_model_options` (unset: as before).
 _MODEL_KEYS = {"crossing_time_profile", "likelihood"}
 _TOP_KEYS = _TOP_KEYS | _MODEL_KEYS
-_OPTIONAL_FIELDS = ("baseline_time_profile", "crossing_time_profile", "likelihood")
+_OPTIONAL_FIELDS = ("baseline_time_profile", "crossing_time_profile", "likelihood", "uncertainty")
 
 
 def parse_profile(data: Any, *, path: str | Path = "<profile>") -> Profile:
@@ -454,7 +474,8 @@ def parse_profile(data: Any, *, path: str | Path = "<profile>") -> Profile:
             name=str(cname),
             label=str(c.get("label", cname)),
             selectors=tuple(selectors),
-            weight=r.number(c["weight"], f"{k}.weight", high=MAX_FACTOR),
+            weight=_weight(r, c["weight"], f"{k}.weight")[0],
+            weight_range=_weight(r, c["weight"], f"{k}.weight")[1],
             radius_m=r.number(c["radius_m"], f"{k}.radius_m", strict=True, high=5000),
             decay=decay,
             time_profile=tp,
@@ -540,7 +561,75 @@ def parse_profile(data: Any, *, path: str | Path = "<profile>") -> Profile:
         rules=tuple(rules),
         source=str(path),
         extra_hash="".join(extra),
+        uncertainty=_uncertainty(r, d.get("uncertainty"), [c.name for c in cats],
+                                 {c.name: c.weight_range for c in cats}),
     ))
+
+
+SPREADS = ("uniform", "log-uniform")
+
+
+def _weight(r: _Reader, raw: Any, key: str) -> tuple[float, tuple[float, float, str] | None]:
+    """Return (weight, range): a number, or ``{low, high, spread}`` (uniform by default).
+
+    A range's weight for plain scoring is its median: the midpoint (uniform) or the
+    geometric mean (log-uniform).
+    """
+    if not isinstance(raw, Mapping):
+        return r.number(raw, key, high=MAX_FACTOR), None
+    r.mapping(raw, key, {"low", "high", "spread"}, {"low", "high"})
+    spread = raw.get("spread", "uniform")
+    if spread not in SPREADS:
+        raise r.fail(f"{key}.spread", f"must be one of {', '.join(SPREADS)}, got {spread!r}")
+    low = r.number(raw["low"], f"{key}.low", high=MAX_FACTOR, strict=spread == "log-uniform")
+    high = r.number(raw["high"], f"{key}.high", high=MAX_FACTOR)
+    if low > high:
+        raise r.fail(f"{key}.low", f"low {low:g} is above high {high:g}")
+    mid = math.sqrt(low * high) if spread == "log-uniform" else (low + high) / 2
+    return mid, (low, high, spread)
+
+
+def _uncertainty(r: _Reader, raw: Any, cat_names: list[str],
+                 ranges: Mapping[str, Any]) -> Uncertainty | None:
+    """Validate the optional ``uncertainty`` block: named weights and their covariance."""
+    if raw is None:
+        return None
+    k = "uncertainty"
+    r.mapping(raw, k, {"method", "fitted_from", "scale", "weights", "covariance"},
+              {"weights", "covariance"})
+    names = raw["weights"]
+    if not isinstance(names, list) or not names or any(not isinstance(n, str) for n in names):
+        raise r.fail(f"{k}.weights", "must be a non-empty list of category names")
+    for n in names:
+        if n not in cat_names:
+            raise r.fail(f"{k}.weights", f"unknown category {n!r}")
+    if len(set(names)) != len(names):
+        raise r.fail(f"{k}.weights", "names a category twice")
+    cov = raw["covariance"]
+    if not isinstance(cov, list) or len(cov) != len(names) or any(
+            not isinstance(row, list) or len(row) != len(names) for row in cov):
+        raise r.fail(f"{k}.covariance",
+                     f"must be a {len(names)} x {len(names)} matrix (a list of rows), one "
+                     "row and column per name in weights")
+    vals = np.array([[r.number(v, f"{k}.covariance[{i}][{j}]", low=-MAX_FACTOR,
+                               high=MAX_FACTOR) for j, v in enumerate(row)]
+                     for i, row in enumerate(cov)])
+    if not np.allclose(vals, vals.T, rtol=1e-8, atol=1e-12):
+        raise r.fail(f"{k}.covariance", "must be symmetric")
+    eig = np.linalg.eigvalsh(vals)
+    if eig.min() < -1e-9 * max(abs(eig).max(), 1e-300) or (np.diag(vals) < 0).any():
+        raise r.fail(f"{k}.covariance", "must be positive semi-definite (a covariance)")
+    for n in names:
+        if ranges.get(n) is not None:
+            raise r.fail(f"{k}.weights", f"category {n!r} also has a weight range; give one")
+    scale = raw.get("scale")
+    return Uncertainty(
+        weights=tuple(names),
+        covariance=tuple(tuple(float(v) for v in row) for row in vals),
+        method=str(raw.get("method", "")),
+        fitted_from=str(raw.get("fitted_from", "")),
+        scale=None if scale is None else r.number(scale, f"{k}.scale", high=MAX_FACTOR),
+    )
 
 
 def _model_options(r: _Reader, d: Mapping[str, Any], prof: Profile) -> Profile:

@@ -72,7 +72,10 @@ EXTRA_INPUTS = {
     "warnings/segments.csv": ("events", "drives"), "warnings/map.html": ("events", "drives"),
     "warnings/charts.csv": ("events", "drives"),
     "warnings/report.html": ("events", "drives"), "evidence.txt": ("drives",),
-    "evidence_chart.png": ("drives",), "summary.json": ("routes", "area", "events", "drives"),
+    "evidence_chart.png": ("drives",),
+    "summary.json": ("routes", "area", "events", "drives", "counts"),
+    "calibration/profile.yaml": ("counts",), "calibration/report.html": ("counts",),
+    "calibration/uncertainty.json": ("counts", "routes"),
 }
 
 

@@ -54,6 +54,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         help="lowest band counted as high for clusters (default: upper half of the bands)")
     add_map_options(parser)
     add_cluster(parser, "clip the areas (and re-tag for --profile and weight what-ifs)")
+    add("--uncertainty", type=int, metavar="N",
+        help="also draw the weights N times: 90 %% interval of the km in each band")
+    add("--seed", type=int, metavar="S",
+        help="seed of the --uncertainty draws (default 1; recorded)")
 
 
 def _text(doc: dict[str, Any]) -> list[str]:
@@ -100,6 +104,12 @@ def run(args: argparse.Namespace) -> int:
         raise OptionError(f"must name an .html file, got {args.report!r}", field="--report")
     if args.top < 0:
         raise OptionError(f"must be >= 0, got {args.top}", field="--top")
+    if args.seed is not None and args.uncertainty is None:
+        raise OptionError("--seed needs --uncertainty", field="--seed")
+    if args.uncertainty is not None:
+        from .. import uncertainty
+
+        uncertainty.check_draws(args.uncertainty)
     for target, folder in ((args.out, True), (args.report, False)):
         if target is not None:
             check_target(target, force=args.force, folder=folder)
@@ -114,19 +124,33 @@ def run(args: argparse.Namespace) -> int:
             clipper = partition.clipper(client=tiles[0], tile_m=tiles[1])
             tagger = partition.tagger(client=tiles[0], tile_m=tiles[1])
         net = load_network(args.network, profile=profile, tagger=tagger)
+        if args.uncertainty is not None:
+            uncertainty.weight_law(net.profile)  # refuse a profile with nothing to draw
         high = review.high_bands_from(net.profile, args.high_from) if args.high_from else None
         what_ifs = [review.parse_what_if(specs, net.profile) for specs in (args.what_if or [])]
         areas = review.read_areas(args.area, crs=net.crs)
         result = review.review_areas(net, areas, at=at, what_ifs=what_ifs, top=args.top,
                                      high_bands=high, clipper=clipper, tagger=tagger)
+    unc = None
+    if args.uncertainty is not None:
+        unc = uncertainty.area_bands(result, args.uncertainty, uncertainty.DEFAULT_SEED
+                                     if args.seed is None else args.seed)
     written = review.write_review(result, out=args.out, report_path=args.report,
                                   force=args.force, tiles=map_tiles, bands=args.bands)
     doc = result.to_json()
+    if unc is not None:
+        doc["uncertainty"] = unc
     if args.json:
         print(dumps_json(doc))
     else:
         for line in _text(doc):
             print(line)
+        if unc is not None:
+            print(f"weight draws: {unc['draws']} (seed {unc['seed']}) of "
+                  f"{', '.join(unc['weights_varied'])}")
+            for a in unc["areas"]:
+                print(f"  area {a['name']!r}, km by band (90 % interval): " + ", ".join(
+                    f"{k} {v['low']:.2f} - {v['high']:.2f}" for k, v in a["km_by_band"].items()))
         for path in written:
             print(f"wrote {path}")
         print(CAUTION)

@@ -8,6 +8,7 @@ from pathlib import Path
 
 from .. import CAUTION
 from .._io import check_target, dumps_json, provenance
+from ..errors import OptionError
 from ._common import add_map_options, add_network, network_of, tiles_of
 
 #: the text table's headings (short, so a row fits a terminal; meanings printed below)
@@ -34,6 +35,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="write routes.csv, segments.geojson and map.html here")
     parser.add_argument("--force", action="store_true", help="replace an existing --out")
     add_map_options(parser)
+    parser.add_argument("--uncertainty", type=int, metavar="N",
+                        help="also draw the weights N times (from the profile's uncertainty "
+                             "block or weight ranges): median and 90 %% interval per route, "
+                             "pairwise probability of lower risk, Sobol indices")
+    parser.add_argument("--seed", type=int, metavar="S",
+                        help="seed of the --uncertainty draws (default 1; recorded)")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -44,10 +51,23 @@ def run(args: argparse.Namespace) -> int:
     if args.out:
         check_target(args.out, force=args.force, folder=True)  # before any work
     tiles = tiles_of(args)
+    if args.seed is not None and args.uncertainty is None:
+        raise OptionError("--seed needs --uncertainty", field="--seed")
+    if args.uncertainty is not None:
+        from .. import uncertainty
+
+        uncertainty.check_draws(args.uncertainty)
     net = network_of(args)
+    if args.uncertainty is not None:
+        uncertainty.weight_law(net.profile)  # refuse a profile with nothing to draw
     departs = [scoring.parse_depart(d, net.timezone) for d in (args.depart or [])]
     planned = routes.read_routes(args.routes, default_tz=net.timezone)
     scores = scoring.score_routes(net, planned, departs)
+    unc = None
+    if args.uncertainty is not None:
+        seed = uncertainty.DEFAULT_SEED if args.seed is None else args.seed
+        unc = uncertainty.summarise(net, scores, args.uncertainty, seed,
+                                    same_depart_only=bool(departs))
     if args.out:
         from ..routemap import write_outputs
 
@@ -55,12 +75,15 @@ def run(args: argparse.Namespace) -> int:
                       bands=args.bands,
                                inputs={"routes": args.routes})
     if args.json:
-        print(dumps_json({"routes": [s.to_dict() for s in scores],
-                          "profile": net.profile.fingerprint,
-                          "model": scoring.model_note(net.profile),
-                          "relative_index_note": scoring.RELATIVE_INDEX_NOTE,
-                          "made_from": provenance(profile=net.profile.fingerprint, network=net,
-                                                  inputs={"routes": args.routes})}))
+        doc = {"routes": [s.to_dict() for s in scores], "profile": net.profile.fingerprint,
+               "model": scoring.model_note(net.profile),
+               "relative_index_note": scoring.RELATIVE_INDEX_NOTE,
+               "made_from": provenance(profile=net.profile.fingerprint, network=net,
+                                       inputs={"routes": args.routes})}
+        if unc is not None:
+            doc["uncertainty"] = unc
+            doc["made_from"]["uncertainty_seed"] = unc["seed"]
+        print(dumps_json(doc))
     else:
         from .. import words
         from ..routemap import ranking_table
@@ -79,6 +102,8 @@ def run(args: argparse.Namespace) -> int:
                 where = blocks.label(*b["edge"]) if blocks else b["street"]
                 print(f"rule broken: {s.name}: {b['rule']} on {where or 'unnamed street'}"
                       f" at {words.when(b['time'])}")
+        if unc is not None:
+            print("\n".join(uncertainty.text_lines(unc)))
         if args.out:
             print(f"wrote {args.out}")
         print(f"{scoring.RELATIVE_INDEX_NOTE}.")

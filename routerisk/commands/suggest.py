@@ -48,6 +48,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--force", action="store_true", help="replace an existing --map")
     add_map_options(parser)
     parser.add_argument("--json", action="store_true", help="print the result as JSON")
+    parser.add_argument("--uncertainty", type=int, metavar="N",
+                        help="also draw the weights N times: each alternative's 90 %% "
+                             "interval and probability of being lower-risk than the plan")
+    parser.add_argument("--seed", type=int, metavar="S",
+                        help="seed of the --uncertainty draws (default 1; recorded)")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -60,16 +65,29 @@ def run(args: argparse.Namespace) -> int:
         raise OptionError("must be at least 1", field="--count")
     if args.keep_every is not None and args.keep_every < 1:
         raise OptionError("must be at least 1", field="--keep-every")
+    if args.seed is not None and args.uncertainty is None:
+        raise OptionError("--seed needs --uncertainty", field="--seed")
+    if args.uncertainty is not None:
+        from .. import uncertainty
+
+        uncertainty.check_draws(args.uncertainty)
     if args.map:
         check_target(args.map, force=args.force, folder=False)  # before any work
     tiles = tiles_of(args)
     net = network_of(args)
+    if args.uncertainty is not None:
+        uncertainty.weight_law(net.profile)  # refuse a profile with nothing to draw
     departs = [scoring.parse_depart(d, net.timezone) for d in (args.depart or [])]
     planned = routes.read_routes(args.routes, default_tz=net.timezone)
     result = suggest_routes(net, planned, departs, count=args.count,
                             max_extra_time=args.max_extra_time,
                             max_extra_length=args.max_extra_length,
                             min_difference=args.min_difference, keep_every=args.keep_every)
+    unc = None
+    if args.uncertainty is not None:
+        unc = uncertainty.versus_plan(net, result, args.uncertainty,
+                                      uncertainty.DEFAULT_SEED if args.seed is None
+                                      else args.seed)
     if args.map:
         from .. import mapview, routemap
 
@@ -78,15 +96,18 @@ def run(args: argparse.Namespace) -> int:
                      args.map, force=args.force)
     if args.json:
         # the same record as score's JSON and the map: tool version, profile, input checksums
-        print(dumps_json({"routes": [s.to_dict() for s in result],
-                          "profile": net.profile.fingerprint,
-                          "made_from": provenance(profile=net.profile.fingerprint, network=net,
-                                                  inputs={"routes": args.routes})}))
+        doc = {"routes": [s.to_dict() for s in result], "profile": net.profile.fingerprint,
+               "made_from": provenance(profile=net.profile.fingerprint, network=net,
+                                       inputs={"routes": args.routes})}
+        if unc is not None:
+            doc["uncertainty"] = unc
+            doc["made_from"]["uncertainty_seed"] = unc["seed"]
+        print(dumps_json(doc))
         return 0
     from .. import words
 
     print(f"times in {zone_label(net.timezone.key)}")
-    for s in result:
+    for k, s in enumerate(result):
         p = s.planned
         print(f"{s.name} at {words.when(p.depart)}: planned risk {p.risk:.3f}, "
               f"{p.duration_min:.1f} min, {len(p.rule_breaks)} rule break(s)")
@@ -94,6 +115,11 @@ def run(args: argparse.Namespace) -> int:
             print(f"  {a.label}: risk {a.score.risk:.3f} ({a.risk_change_pct:+.1f} %), "
                   f"{a.score.duration_min:.1f} min ({a.time_change_pct:+.1f} %), "
                   f"{len(a.score.rule_breaks)} rule break(s)")
+            if unc is not None:
+                u = unc["routes"][k]["alternatives"][s.alternatives.index(a)]
+                print(f"    {int(unc['level'] * 100)} % interval {u['low']:.3f} - "
+                      f"{u['high']:.3f}; lower-risk than the plan in "
+                      f"{100 * u['p_lower_than_plan']:.1f} % of {unc['draws']} weight draws")
             for c in a.caveats:
                 print(f"    caveat: {c}")
         if s.note:
@@ -102,6 +128,9 @@ def run(args: argparse.Namespace) -> int:
             print(f"  why: {r}")
         for r in s.next_steps:
             print(f"  next step: {r}")
+    if unc is not None:
+        print(f"weight draws: {unc['draws']} (seed {unc['seed']}) of "
+              f"{', '.join(unc['weights_varied'])}")
     if args.map:
         print(f"wrote {args.map}")
     print(CAUTION)
