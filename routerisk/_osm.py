@@ -20,6 +20,7 @@ from array import array
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import osmium
@@ -199,6 +200,110 @@ def _osmium_file(p: Path) -> osmium.io.File:
     return osmium.io.File(str(p), fmt) if fmt else osmium.io.File(str(p))
 
 
+class _Collect:
+    """What one pass over an OSM file keeps: drivable ways, features, crossings, context."""
+
+    def __init__(self, p: Path, want: Callable[[Mapping[str, str]], bool],
+                 member_ways: dict[int, list[tuple[int, str]]],
+                 rel_parts: dict[int, RawFeature]) -> None:
+        self.p, self.want = p, want
+        self.member_ways, self.rel_parts = member_ways, rel_parts
+        self.ways: list[RawWay] = []
+        self.features: list[RawFeature] = []
+        self.crossings: dict[int, tuple[float, float, str]] = {}
+        self.signals: set[int] = set()
+        self.missing = 0
+        self.context: list[tuple[str, int, str, str, list[np.ndarray]]] = []
+
+    def node(self, obj: Any) -> None:
+        """Keep a tagged node: a crossing, traffic signals, a wanted feature."""
+        tags = obj.tags
+        if not tags:  # most nodes: only their location matters, kept by osmium
+            return
+        hw = tags.get("highway")
+        if hw == "crossing":
+            loc = self._location(obj)
+            self.crossings[obj.id] = (loc.lon, loc.lat, tags.get("crossing", "unknown"))
+        elif hw == "traffic_signals":
+            self.signals.add(obj.id)
+        if self.want(tags):
+            loc = self._location(obj)
+            self.features.append(RawFeature("node", obj.id, dict(tags),
+                                            [np.array([[loc.lon, loc.lat]])]))
+
+    def _location(self, obj: Any) -> Any:
+        loc = obj.location
+        if not loc.valid():
+            raise _bad_location(self.p, obj.id, loc.x, loc.y)
+        return loc
+
+    def way(self, obj: Any) -> None:
+        """Keep a way that is drivable, a wanted feature, a relation member or context."""
+        tags = obj.tags
+        drivable = is_drivable(tags)
+        wanted = self.want(tags)
+        members = self.member_ways.get(obj.id)
+        ctx = context_kind(tags)
+        if not (drivable or wanted or members or ctx):
+            return
+        refs, coords, ok = self._nodes(obj)
+        nbad = int((~ok).sum())
+        self.missing += nbad
+        runs = [coords] if nbad == 0 else [coords[r] for r in _runs(ok) if len(r) >= 2]
+        if drivable:
+            td = {k: tags.get(k) for k in WAY_KEYS if k in tags}
+            for run in _runs(ok):
+                if len(run) >= 2:
+                    self.ways.append(RawWay(obj.id, td, refs[run], coords[run]))
+        if wanted and runs:
+            self.features.append(RawFeature("way", obj.id, dict(tags), runs))
+        if ctx and runs:
+            self.context.append((ctx, obj.id, tags.get("name", ""), tags.get("highway", ""),
+                                 runs))
+        if members:
+            parts = [coords[r] for r in _runs(ok) if len(r) >= 2]
+            for rid, role in members:
+                for run in parts:
+                    self.rel_parts[rid].lonlat.append(run)
+                    self.rel_parts[rid].roles.append(role)
+
+    def _nodes(self, obj: Any) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Return a way's node ids, coordinates (NaN where missing) and which exist."""
+        # one pass over the node list: id and fixed-point coordinates (osmium keeps
+        # 1e-7 degree integers; lon = x / 1e7 is exactly what Location.lon returns)
+        arr = np.array([(n.ref, n.x, n.y) for n in obj.nodes], dtype=np.int64).reshape(-1, 3)
+        refs = arr[:, 0].copy()
+        xi, yi = arr[:, 1], arr[:, 2]
+        ok = (xi >= -_LON_MAX) & (xi <= _LON_MAX) & (yi >= -_LAT_MAX) & (yi <= _LAT_MAX)
+        coords = np.column_stack([xi / _PRECISION, yi / _PRECISION])
+        if not ok.all():
+            # undefined: the node is not in the file (clipped); anything else is a node
+            # in the file with impossible coordinates
+            wrong = ~ok & ~((xi == _UNDEFINED) & (yi == _UNDEFINED))
+            if wrong.any():
+                i = int(np.argmax(wrong))
+                raise _bad_location(self.p, int(refs[i]), int(xi[i]), int(yi[i]))
+            coords[~ok] = np.nan
+        return refs, coords, ok
+
+
+def _relations(p: Path, want: Callable[[Mapping[str, str]], bool], rel_ids: Callable[[int], None]
+               ) -> tuple[dict[int, list[tuple[int, str]]], dict[int, RawFeature]]:
+    """Pass 1 (relations only): which ways are members of wanted multipolygons."""
+    member_ways: dict[int, list[tuple[int, str]]] = {}
+    rel_tags: dict[int, dict[str, str]] = {}
+    for rel in osmium.FileProcessor(_osmium_file(p), osmium.osm.RELATION):
+        rel_ids(rel.id)
+        tags = dict(rel.tags)
+        if tags.get("type") not in ("multipolygon", "boundary") or not want(tags):
+            continue
+        rel_tags[rel.id] = tags
+        for m in rel.members:
+            if m.type == "w":
+                member_ways.setdefault(m.ref, []).append((rel.id, m.role or "outer"))
+    return member_ways, {rid: RawFeature("relation", rid, t) for rid, t in rel_tags.items()}
+
+
 def read_osm(
     path: str | Path, *, feature_filter: Callable[[Mapping[str, str]], bool] | None = None
 ) -> RawOSM:
@@ -213,31 +318,11 @@ def read_osm(
     """
     p = _check_path(path)
     want = feature_filter or (lambda tags: False)
-    ways: list[RawWay] = []
-    features: list[RawFeature] = []
-    crossings: dict[int, tuple[float, float, str]] = {}
-    signals: set[int] = set()
-    missing = 0
-    context: list[tuple[str, int, str, str, list[np.ndarray]]] = []
     ids = {kind: array("q") for kind in ("node", "way", "relation")}
-    node_ids, way_ids, rel_ids = ids["node"].append, ids["way"].append, ids["relation"].append
+    node_ids, way_ids = ids["node"].append, ids["way"].append
     try:
-        # Pass 1 (relations only): which ways are members of wanted multipolygons.
-        member_ways: dict[int, list[tuple[int, str]]] = {}
-        rel_tags: dict[int, dict[str, str]] = {}
-        for rel in osmium.FileProcessor(_osmium_file(p), osmium.osm.RELATION):
-            rel_ids(rel.id)
-            tags = dict(rel.tags)
-            if tags.get("type") not in ("multipolygon", "boundary") or not want(tags):
-                continue
-            rel_tags[rel.id] = tags
-            for m in rel.members:
-                if m.type == "w":
-                    member_ways.setdefault(m.ref, []).append((rel.id, m.role or "outer"))
-        rel_parts: dict[int, RawFeature] = {
-            rid: RawFeature("relation", rid, t) for rid, t in rel_tags.items()
-        }
-
+        member_ways, rel_parts = _relations(p, want, ids["relation"].append)
+        got = _Collect(p, want, member_ways, rel_parts)
         # every node comes through (not filtered out in osmium) so that its id is seen once
         fp = osmium.FileProcessor(_osmium_file(p), osmium.osm.NODE | osmium.osm.WAY)
         fp = fp.with_locations()
@@ -251,74 +336,11 @@ def read_osm(
         for obj in fp:
             if obj.is_node():
                 node_ids(obj.id)
-                tags = obj.tags
-                if not tags:  # most nodes: only their location matters, kept by osmium
-                    continue
-                hw = tags.get("highway")
-                if hw == "crossing":
-                    loc = obj.location
-                    if not loc.valid():
-                        raise _bad_location(p, obj.id, loc.x, loc.y)
-                    crossings[obj.id] = (loc.lon, loc.lat, tags.get("crossing", "unknown"))
-                elif hw == "traffic_signals":
-                    signals.add(obj.id)
-                if want(tags):
-                    loc = obj.location
-                    if not loc.valid():
-                        raise _bad_location(p, obj.id, loc.x, loc.y)
-                    features.append(RawFeature("node", obj.id, dict(tags),
-                                               [np.array([[loc.lon, loc.lat]])]))
-                continue
-            way_ids(obj.id)
-            tags = obj.tags
-            drivable = is_drivable(tags)
-            wanted = want(tags)
-            members = member_ways.get(obj.id)
-            ctx = context_kind(tags)
-            if not (drivable or wanted or members or ctx):
-                continue
-            # one pass over the node list: id and fixed-point coordinates (osmium keeps
-            # 1e-7 degree integers; lon = x / 1e7 is exactly what Location.lon returns)
-            arr = np.array([(n.ref, n.x, n.y) for n in obj.nodes], dtype=np.int64
-                           ).reshape(-1, 3)
-            refs = arr[:, 0].copy()
-            xi, yi = arr[:, 1], arr[:, 2]
-            ok = (xi >= -_LON_MAX) & (xi <= _LON_MAX) & (yi >= -_LAT_MAX) & (yi <= _LAT_MAX)
-            coords = np.column_stack([xi / _PRECISION, yi / _PRECISION])
-            nbad = 0
-            if not ok.all():
-                # undefined: the node is not in the file (clipped); anything else is a node
-                # in the file with impossible coordinates
-                wrong = ~ok & ~((xi == _UNDEFINED) & (yi == _UNDEFINED))
-                if wrong.any():
-                    i = int(np.argmax(wrong))
-                    raise _bad_location(p, int(refs[i]), int(xi[i]), int(yi[i]))
-                coords[~ok] = np.nan
-                nbad = int((~ok).sum())
-            missing += nbad
-            if drivable:
-                td = {k: tags.get(k) for k in WAY_KEYS if k in tags}
-                for run in _runs(ok):
-                    if len(run) >= 2:
-                        ways.append(RawWay(obj.id, td, refs[run], coords[run]))
-            if wanted and nbad == 0:
-                features.append(RawFeature("way", obj.id, dict(tags), [coords]))
-            elif wanted and nbad:
-                runs = [coords[r] for r in _runs(ok) if len(r) >= 2]
-                if runs:
-                    features.append(RawFeature("way", obj.id, dict(tags), runs))
-            if ctx:
-                runs = [coords] if nbad == 0 else [coords[r] for r in _runs(ok) if len(r) >= 2]
-                if runs:
-                    context.append((ctx, obj.id, tags.get("name", ""),
-                                    tags.get("highway", ""), runs))
-            if members:
-                runs = [coords[r] for r in _runs(ok) if len(r) >= 2]
-                for rid, role in members:
-                    for run in runs:
-                        rel_parts[rid].lonlat.append(run)
-                        rel_parts[rid].roles.append(role)
-        features.extend(f for f in rel_parts.values() if f.lonlat)
+                got.node(obj)
+            else:
+                way_ids(obj.id)
+                got.way(obj)
+        got.features.extend(f for f in rel_parts.values() if f.lonlat)
     except osmium.InvalidLocationError as exc:
         # the parser refuses a coordinate it cannot read (nan, inf, 1e3, beyond +-214.7)
         msg = str(exc).strip().splitlines()[0] if str(exc).strip() else "invalid location"
@@ -329,11 +351,11 @@ def read_osm(
         msg = str(exc).strip().splitlines()[0] if str(exc).strip() else "unreadable"
         raise InputFileError(f"cannot read as OSM data ({msg})", path=p) from exc
     _check_unique(p, ids)
-    if missing:
+    if got.missing:
         log.info("%s: %d way node references point to nodes not in the file (clipped "
-                 "extract); kept the runs of nodes that exist", p, missing)
-    return RawOSM(str(p), ways, features, crossings, signals, bounds, missing, timestamp,
-                  context)
+                 "extract); kept the runs of nodes that exist", p, got.missing)
+    return RawOSM(str(p), got.ways, got.features, got.crossings, got.signals, bounds,
+                  got.missing, timestamp, got.context)
 
 
 def _runs(ok: np.ndarray) -> list[np.ndarray]:

@@ -550,6 +550,34 @@ def _column(values: list[Any], tmpl: np.ndarray) -> Any:
     return pd.array(col, dtype=dtype)
 
 
+def _edge_speeds(norm: list[dict[str, Any]], used: np.ndarray, template: np.ndarray
+                 ) -> np.ndarray:
+    """Return each edge's speed in km/h as osmnx's add_edge_speeds gives it.
+
+    A parsed ``maxspeed`` where the edge has one, else the mean of its class's observed
+    speeds, else the loader's default for the class.
+    """
+    from . import loader
+
+    tm_hw = [d["highway"] for d in norm]
+    tm_ms = [float(d["maxspeed"]) if "maxspeed" in d else np.nan for d in norm]
+    hw_codes = {h: i for i, h in enumerate(sorted(set(tm_hw[t] for t in used)))}
+    t_hw = np.array([hw_codes.get(h, -1) for h in tm_hw], dtype=np.int64)
+    edge_hw = t_hw[template]
+    edge_ms = np.asarray(tm_ms, dtype=float)[template]
+    classes = sorted(hw_codes, key=hw_codes.get)
+    observed = {c for c in classes if np.isfinite(edge_ms[edge_hw == hw_codes[c]]).any()}
+    hwy = {c: loader.DEFAULT_CLASS_KPH.get(c, loader.FALLBACK_KPH)
+           for c in set(classes) - observed}
+    avg: dict[str, float] = dict(pd.Series(hwy, dtype=float).dropna()) if hwy else {}
+    for c in classes:
+        if c not in avg:
+            avg[c] = float(pd.Series(edge_ms[edge_hw == hw_codes[c]]).mean())
+    avg_arr = np.array([avg[c] for c in classes], dtype=float)
+    speed = np.where(np.isfinite(edge_ms), edge_ms, avg_arr[edge_hw])
+    return speed
+
+
 def build_frames(raw: RawOSM, *, largest_component: bool = True,
                  simplify_graph: bool = True) -> Frames:
     """Return nodes and edges GeoDataFrames of the projected drivable graph of ``raw``.
@@ -585,23 +613,7 @@ def build_frames(raw: RawOSM, *, largest_component: bool = True,
     # normalised templates and their attribute values
     norm = _normalise_all(g.templates)
     used, first_row = np.unique(g.template, return_index=True)
-    # speeds (osmnx add_edge_speeds with the loader's class defaults)
-    tm_hw = [d["highway"] for d in norm]
-    tm_ms = [float(d["maxspeed"]) if "maxspeed" in d else np.nan for d in norm]
-    hw_codes = {h: i for i, h in enumerate(sorted(set(tm_hw[t] for t in used)))}
-    t_hw = np.array([hw_codes.get(h, -1) for h in tm_hw], dtype=np.int64)
-    edge_hw = t_hw[g.template]
-    edge_ms = np.asarray(tm_ms, dtype=float)[g.template]
-    classes = sorted(hw_codes, key=hw_codes.get)
-    observed = {c for c in classes if np.isfinite(edge_ms[edge_hw == hw_codes[c]]).any()}
-    hwy = {c: loader.DEFAULT_CLASS_KPH.get(c, loader.FALLBACK_KPH)
-           for c in set(classes) - observed}
-    avg: dict[str, float] = dict(pd.Series(hwy, dtype=float).dropna()) if hwy else {}
-    for c in classes:
-        if c not in avg:
-            avg[c] = float(pd.Series(edge_ms[edge_hw == hw_codes[c]]).mean())
-    avg_arr = np.array([avg[c] for c in classes], dtype=float)
-    speed = np.where(np.isfinite(edge_ms), edge_ms, avg_arr[edge_hw])
+    speed = _edge_speeds(norm, used, g.template)
     length = g.length
     travel = (pd.Series(length) / 1000 / (pd.Series(speed) / (60 * 60))).to_numpy()
     # column order of the graph's edge dicts (first appearance over rows)

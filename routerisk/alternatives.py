@@ -345,8 +345,10 @@ def _shared_share(a: np.ndarray, b: np.ndarray, km: np.ndarray,
 
 @dataclass
 class _Candidate:
-    """A candidate path with its quick score and the bounds it breaks (``hard rules``: no
-    detour found around a rule zone in force)."""
+    """A candidate path with its quick score and the bounds it breaks.
+
+    ``hard rules`` among the bounds: no detour was found around a rule zone in force.
+    """
 
     rows: np.ndarray  # the whole route: the plan's partial ends (if any) included
     fractions: np.ndarray  # share of each row driven
@@ -758,8 +760,10 @@ class Suggester:
 
     def _rule_free_departures(self, rows: np.ndarray, frac: np.ndarray, depart: dt.datetime
                               ) -> dict[str, dt.datetime | None]:
-        """Return the nearest earlier and later departures (whole minutes of shift, within a
-        week) at which the planned route itself breaks no hard rule."""
+        """Return the nearest departures at which the planned route breaks no hard rule.
+
+        Earlier and later, in whole minutes of shift, within a week.
+        """
         sc = self.scorer
         minutes = sc._timeline(rows, depart, frac)[5]
         bad = np.zeros(MINUTES_PER_WEEK, dtype=bool)

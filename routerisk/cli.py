@@ -73,9 +73,9 @@ def _unknown(parser: argparse.ArgumentParser, argv: list[str]) -> str | None:
     """Return "unknown option --x (did you mean --y?)" for the first unknown option, or None."""
     known = {o for a in parser._actions for o in a.option_strings}
     for token in argv:
-        if token == "--":
+        if token == "--":  # noqa: S105 - a command-line token, not a password
             break
-        if not token.startswith("-") or token == "-" or token[1:2].isdigit() or token[1:2] == ".":
+        if not token.startswith("-") or len(token) == 1 or token[1] in "0123456789.":
             continue
         name = token.split("=", 1)[0]
         if name in known:

@@ -39,8 +39,10 @@ class Option:
 
     @property
     def score(self) -> RouteScore:
-        """Return the exact, detailed score (computed once, on first use), as ``score``
-        computes it: partial first and last edges included."""
+        """Return the exact, detailed score (computed once, on first use).
+
+        As ``score`` computes it: partial first and last edges included.
+        """
         if self._score is None:
             self._score = self.scorer.score(f"{self.run} ({self.label})", self.edges,
                                             self.depart, fractions=self.fractions)

@@ -396,6 +396,124 @@ _TOP_KEYS = _TOP_KEYS | _MODEL_KEYS
 _OPTIONAL_FIELDS = ("baseline_time_profile", "crossing_time_profile", "likelihood", "uncertainty")
 
 
+def _categories(r: _Reader, cats_raw: Any, tp_names: set[str]) -> list[Category]:
+    """Read and check the ``categories`` of a profile."""
+    r.mapping(cats_raw, "categories", set(map(str, cats_raw or {})))
+    if not cats_raw:
+        raise r.fail("categories", "must define at least one category")
+    cats = []
+    for cname, c in cats_raw.items():
+        k = f"categories.{cname}"
+        r.mapping(c, k, {"label", "select", "weight", "radius_m", "decay", "time_profile",
+                         "stack"}, {"select", "weight", "radius_m"})
+        sels = c["select"]
+        if not isinstance(sels, list) or not sels:
+            raise r.fail(f"{k}.select", "must be a non-empty list of tag selectors")
+        selectors = _selectors(r, sels, k)
+        decay = c.get("decay", "linear")
+        if decay not in DECAYS:
+            raise r.fail(f"{k}.decay", f"must be one of {', '.join(DECAYS)}, got {decay!r}")
+        tp = c.get("time_profile")
+        if tp is not None and tp not in tp_names:
+            raise r.fail(f"{k}.time_profile", f"unknown time profile {tp!r}")
+        stack = c.get("stack", False)
+        if not isinstance(stack, bool):
+            raise r.fail(f"{k}.stack", "must be true or false")
+        cats.append(Category(
+            name=str(cname),
+            label=str(c.get("label", cname)),
+            selectors=tuple(selectors),
+            weight=_weight(r, c["weight"], f"{k}.weight")[0],
+            weight_range=_weight(r, c["weight"], f"{k}.weight")[1],
+            radius_m=r.number(c["radius_m"], f"{k}.radius_m", strict=True, high=5000),
+            decay=decay,
+            time_profile=tp,
+            stack=stack,
+        ))
+    return cats
+
+
+def _selectors(r: _Reader, sels: list[Any], k: str) -> list[Selector]:
+    """Read the OSM tag selectors of one category (``k`` is its key in the profile)."""
+    selectors = []
+    for i, s in enumerate(sels):
+        if not isinstance(s, Mapping) or not s:
+            raise r.fail(f"{k}.select[{i}]", "must be a mapping of OSM key to values")
+        tags = []
+        for tk, tv in s.items():
+            if tv == "*":
+                tags.append((str(tk), None))
+            elif isinstance(tv, list) and tv and all(isinstance(x, str) for x in tv):
+                tags.append((str(tk), tuple(tv)))
+            elif isinstance(tv, str):
+                tags.append((str(tk), (tv,)))
+            else:
+                raise r.fail(f"{k}.select[{i}].{tk}", "must be '*', a value or a list")
+        selectors.append(Selector(tuple(sorted(tags))))
+    return selectors
+
+
+def _bands(r: _Reader, bands_raw: Any) -> list[Band]:
+    """Read and check the exposure ``bands`` of a profile."""
+    if not isinstance(bands_raw, list) or not bands_raw:
+        raise r.fail("bands", "must be a non-empty list of {name, from}")
+    bands = []
+    for i, b in enumerate(bands_raw):
+        r.mapping(b, f"bands[{i}]", {"name", "from"}, {"name", "from"})
+        bands.append(Band(r.text(b["name"], f"bands[{i}].name"),
+                          r.number(b["from"], f"bands[{i}].from")))
+    if bands[0].lower != 0.0:
+        raise r.fail("bands[0].from", "the first band must start at 0")
+    for i in range(1, len(bands)):
+        if bands[i].lower <= bands[i - 1].lower:
+            raise r.fail(f"bands[{i}].from", "bands must be in increasing order")
+    if len({b.name for b in bands}) != len(bands):
+        raise r.fail("bands", "band names must be unique")
+    return bands
+
+
+def _rules(r: _Reader, rules_raw: Any, cat_names: set[str], base_dir: Path
+           ) -> tuple[list[Rule], list[str]]:
+    """Read and check the hard ``rules``; return them and the hashes of their polygon files."""
+    if not isinstance(rules_raw, list):
+        raise r.fail("rules", "must be a list")
+    rules = []
+    extra = []
+    for i, ru in enumerate(rules_raw):
+        k = f"rules[{i}]"
+        r.mapping(ru, k, {"name", "category", "within_m", "polygons", "road_classes", "windows"},
+                  {"name"})
+        cat = ru.get("category")
+        poly = ru.get("polygons")
+        classes = ru.get("road_classes", [])
+        if cat is None and poly is None and not classes:
+            raise r.fail(k, "needs a category, a polygons file or road_classes")
+        if cat is not None and cat not in cat_names:
+            raise r.fail(f"{k}.category", f"unknown category {cat!r}")
+        within = 0.0
+        if cat is not None:
+            if "within_m" not in ru:
+                raise r.fail(f"{k}.within_m", "required key missing for a category rule")
+            within = r.number(ru["within_m"], f"{k}.within_m", strict=True, high=5000)
+        poly_path = None
+        if poly is not None:
+            pp = Path(r.text(poly, f"{k}.polygons"))
+            pp = pp if pp.is_absolute() else base_dir / pp
+            if not pp.is_file():
+                raise r.fail(f"{k}.polygons", f"file not found: {pp}")
+            poly_path = str(pp)
+            extra.append(hashlib.sha256(pp.read_bytes()).hexdigest())
+        if not isinstance(classes, list) or any(not isinstance(c, str) for c in classes):
+            raise r.fail(f"{k}.road_classes", "must be a list of OSM highway values")
+        wins = r.windows(ru["windows"], f"{k}.windows", with_multiplier=False) if "windows" in ru \
+            else ()
+        rules.append(Rule(r.text(ru["name"], f"{k}.name"), cat, within, poly_path,
+                          tuple(classes), wins))
+    if len({ru.name for ru in rules}) != len(rules):
+        raise r.fail("rules", "rule names must be unique")
+    return rules, extra
+
+
 def parse_profile(data: Any, *, path: str | Path = "<profile>") -> Profile:
     """Validate a profile mapping (as read from YAML or TOML) into a :class:`Profile`."""
     r = _Reader(str(path))
@@ -434,53 +552,7 @@ def parse_profile(data: Any, *, path: str | Path = "<profile>") -> Profile:
         ))
     tp_names = {t.name for t in tps}
 
-    cats_raw = d["categories"]
-    r.mapping(cats_raw, "categories", set(map(str, cats_raw or {})))
-    if not cats_raw:
-        raise r.fail("categories", "must define at least one category")
-    cats = []
-    for cname, c in cats_raw.items():
-        k = f"categories.{cname}"
-        r.mapping(c, k, {"label", "select", "weight", "radius_m", "decay", "time_profile",
-                         "stack"}, {"select", "weight", "radius_m"})
-        sels = c["select"]
-        if not isinstance(sels, list) or not sels:
-            raise r.fail(f"{k}.select", "must be a non-empty list of tag selectors")
-        selectors = []
-        for i, s in enumerate(sels):
-            if not isinstance(s, Mapping) or not s:
-                raise r.fail(f"{k}.select[{i}]", "must be a mapping of OSM key to values")
-            tags = []
-            for tk, tv in s.items():
-                if tv == "*":
-                    tags.append((str(tk), None))
-                elif isinstance(tv, list) and tv and all(isinstance(x, str) for x in tv):
-                    tags.append((str(tk), tuple(tv)))
-                elif isinstance(tv, str):
-                    tags.append((str(tk), (tv,)))
-                else:
-                    raise r.fail(f"{k}.select[{i}].{tk}", "must be '*', a value or a list")
-            selectors.append(Selector(tuple(sorted(tags))))
-        decay = c.get("decay", "linear")
-        if decay not in DECAYS:
-            raise r.fail(f"{k}.decay", f"must be one of {', '.join(DECAYS)}, got {decay!r}")
-        tp = c.get("time_profile")
-        if tp is not None and tp not in tp_names:
-            raise r.fail(f"{k}.time_profile", f"unknown time profile {tp!r}")
-        stack = c.get("stack", False)
-        if not isinstance(stack, bool):
-            raise r.fail(f"{k}.stack", "must be true or false")
-        cats.append(Category(
-            name=str(cname),
-            label=str(c.get("label", cname)),
-            selectors=tuple(selectors),
-            weight=_weight(r, c["weight"], f"{k}.weight")[0],
-            weight_range=_weight(r, c["weight"], f"{k}.weight")[1],
-            radius_m=r.number(c["radius_m"], f"{k}.radius_m", strict=True, high=5000),
-            decay=decay,
-            time_profile=tp,
-            stack=stack,
-        ))
+    cats = _categories(r, d["categories"], tp_names)
     cat_names = {c.name for c in cats}
 
     sev = r.mapping(d.get("severity", {}) or {}, "severity", {"outcome", "reference_mph"})
@@ -489,59 +561,9 @@ def parse_profile(data: Any, *, path: str | Path = "<profile>") -> Profile:
         raise r.fail("severity.outcome", f"must be death or severe_injury, got {outcome!r}")
     ref = r.number(sev.get("reference_mph", 25), "severity.reference_mph", strict=True, high=100)
 
-    bands_raw = d.get("bands", [{"name": "all", "from": 0.0}])
-    if not isinstance(bands_raw, list) or not bands_raw:
-        raise r.fail("bands", "must be a non-empty list of {name, from}")
-    bands = []
-    for i, b in enumerate(bands_raw):
-        r.mapping(b, f"bands[{i}]", {"name", "from"}, {"name", "from"})
-        bands.append(Band(r.text(b["name"], f"bands[{i}].name"),
-                          r.number(b["from"], f"bands[{i}].from")))
-    if bands[0].lower != 0.0:
-        raise r.fail("bands[0].from", "the first band must start at 0")
-    for i in range(1, len(bands)):
-        if bands[i].lower <= bands[i - 1].lower:
-            raise r.fail(f"bands[{i}].from", "bands must be in increasing order")
-    if len({b.name for b in bands}) != len(bands):
-        raise r.fail("bands", "band names must be unique")
+    bands = _bands(r, d.get("bands", [{"name": "all", "from": 0.0}]))
 
-    rules_raw = d.get("rules", []) or []
-    if not isinstance(rules_raw, list):
-        raise r.fail("rules", "must be a list")
-    rules = []
-    extra = []
-    for i, ru in enumerate(rules_raw):
-        k = f"rules[{i}]"
-        r.mapping(ru, k, {"name", "category", "within_m", "polygons", "road_classes", "windows"},
-                  {"name"})
-        cat = ru.get("category")
-        poly = ru.get("polygons")
-        classes = ru.get("road_classes", [])
-        if cat is None and poly is None and not classes:
-            raise r.fail(k, "needs a category, a polygons file or road_classes")
-        if cat is not None and cat not in cat_names:
-            raise r.fail(f"{k}.category", f"unknown category {cat!r}")
-        within = 0.0
-        if cat is not None:
-            if "within_m" not in ru:
-                raise r.fail(f"{k}.within_m", "required key missing for a category rule")
-            within = r.number(ru["within_m"], f"{k}.within_m", strict=True, high=5000)
-        poly_path = None
-        if poly is not None:
-            pp = Path(r.text(poly, f"{k}.polygons"))
-            pp = pp if pp.is_absolute() else base_dir / pp
-            if not pp.is_file():
-                raise r.fail(f"{k}.polygons", f"file not found: {pp}")
-            poly_path = str(pp)
-            extra.append(hashlib.sha256(pp.read_bytes()).hexdigest())
-        if not isinstance(classes, list) or any(not isinstance(c, str) for c in classes):
-            raise r.fail(f"{k}.road_classes", "must be a list of OSM highway values")
-        wins = r.windows(ru["windows"], f"{k}.windows", with_multiplier=False) if "windows" in ru \
-            else ()
-        rules.append(Rule(r.text(ru["name"], f"{k}.name"), cat, within, poly_path,
-                          tuple(classes), wins))
-    if len({ru.name for ru in rules}) != len(rules):
-        raise r.fail("rules", "rule names must be unique")
+    rules, extra = _rules(r, d.get("rules", []) or [], cat_names, base_dir)
 
     return _model_options(r, d, Profile(
         name=name,

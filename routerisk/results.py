@@ -460,13 +460,17 @@ class WatchResult:
     network: Network
 
     def to_frame(self) -> pd.DataFrame:
-        """Return one row per unit (street block or segment): events, km, expected, EB
-        rate, p, flag."""
+        """Return one row per unit (street block or segment).
+
+        Columns: events, km, expected, EB rate, p, flag.
+        """
         return self.result.segments.copy()
 
     def to_geodataframe(self) -> gpd.GeoDataFrame:
-        """Return :meth:`to_frame` with each unit's geometry (the union of the edges it holds,
-        both directions of a block), in the network CRS."""
+        """Return :meth:`to_frame` with each unit's geometry, in the network CRS.
+
+        A unit's geometry is the union of the edges it holds (both directions of a block).
+        """
         import geopandas as gpd
         import shapely
 

@@ -26,8 +26,8 @@ import math
 import os
 import random
 import tempfile
-from bisect import bisect_right
 from array import array
+from bisect import bisect_right
 from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
 from itertools import chain
@@ -429,8 +429,10 @@ class _City:
         self.lay = lay
         # numpy for draws in bulk, the standard library's generator for single draws (faster)
         self.rng = np.random.default_rng([seed, lay.nx, lay.ny, 1])
-        self.pr = random.Random(((seed * 1_000_003) + lay.nx) * 100_003 + lay.ny)
-        self.names = _Names(random.Random(((seed * 1_000_033) + lay.nx) * 100_019 + lay.ny))
+        # seeded generators for reproducible benchmark cities, not for secrets
+        self.pr = random.Random(((seed * 1_000_003) + lay.nx) * 100_003 + lay.ny)  # noqa: S311
+        self.names = _Names(random.Random(  # noqa: S311
+            ((seed * 1_000_033) + lay.nx) * 100_019 + lay.ny))
         self.out = _Out(lay.nx * lay.ny + 1)
         self.xl = lay.x.ravel().tolist()
         self.yl = lay.y.ravel().tolist()

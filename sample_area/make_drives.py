@@ -123,7 +123,7 @@ def main(out: Path = HERE) -> None:
 def _write_gpx(path: Path, name: str, lon, lat, times) -> None:
     rows = "".join(
         f'<trkpt lat="{la:.7f}" lon="{lo:.7f}"><time>'
-        f"{t.astimezone(dt.timezone.utc).strftime('%Y-%m-%dT%H:%M:%SZ')}</time></trkpt>\n"
+        f"{t.astimezone(dt.UTC).strftime('%Y-%m-%dT%H:%M:%SZ')}</time></trkpt>\n"
         for lo, la, t in zip(lon, lat, times, strict=True))
     path.write_text('<?xml version="1.0" encoding="UTF-8"?>\n<gpx version="1.1" '
                     'creator="routerisk sample_area/make_drives.py" '

@@ -101,7 +101,7 @@ def test_alternatives_never_break_hard_rules():
         if alt.within_bounds:
             assert rescored.rule_breaks == []
         assert alt.edges[0][0] == 1 and alt.edges[-1][1] == 25
-        for (a, b, _), (c, _, _) in zip(alt.edges[:-1], alt.edges[1:], strict=True):
+        for (_a, b, _), (c, _, _) in zip(alt.edges[:-1], alt.edges[1:], strict=True):
             assert b == c  # a connected path
 
 

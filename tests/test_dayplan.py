@@ -40,7 +40,7 @@ def test_no_vehicle_overlap_with_turnaround(plan):
             (float(a.start), float(a.start) + opt.score.duration_min))
     for spans in by_vehicle.values():
         spans.sort()
-        for (s0, e0), (s1, _) in zip(spans[:-1], spans[1:], strict=True):
+        for (_s0, e0), (s1, _) in zip(spans[:-1], spans[1:], strict=True):
             assert s1 >= e0 + 15 - 1e-9
 
 

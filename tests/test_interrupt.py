@@ -155,12 +155,12 @@ def test_killed_force_replacement_keeps_old_or_new(timing, tmp_path):
 # ------------------------------------------- an error half-way leaves nothing behind
 
 
-class _Boom(RuntimeError):
+class _BoomError(RuntimeError):
     pass
 
 
 def _boom(*_a, **_k):
-    raise _Boom("failed half-way")
+    raise _BoomError("failed half-way")
 
 
 def _hidden(root: Path) -> list[str]:
@@ -192,7 +192,7 @@ def test_an_error_half_way_leaves_no_output(case, tmp_path, town_dir, monkeypatc
     else:  # the first stage after the network folder was saved fails
         monkeypatch.setattr(routemap, "write_outputs", _boom)
         argv = ["demo", "--out", str(out)]
-    with pytest.raises(_Boom):
+    with pytest.raises(_BoomError):
         main(argv)
     assert not out.exists()
     assert _hidden(tmp_path) == []

@@ -276,8 +276,8 @@ def test_a_file_path_is_never_read(client, tmp_path):
     ):
         r = client.post(endpoint, json=payload)
         assert r.status_code == 400 and "reads no file by path" in r.json()["error"], payload
-    runs = "runs:\n  - {name: a, route: %s, earliest: '08:00', latest: '12:00'}\n" % (
-        datasets.get_path("routes"))
+    runs = ("runs:\n  - {name: a, route: " + str(datasets.get_path("routes"))
+            + ", earliest: '08:00', latest: '12:00'}\n")
     r = client.post("/api/plan", json={"runs": {"name": "runs.yaml", "text": runs},
                                        "date": "2027-03-09"})
     assert r.status_code == 400 and "reads no file by path" in r.json()["error"]

@@ -58,8 +58,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace) -> int:
     """Run ``suggest``."""
     from .. import routes, scoring
-    from ..network import zone_label
     from ..alternatives import suggest_routes
+    from ..network import zone_label
 
     if args.count < 1:
         raise OptionError("must be at least 1", field="--count")

@@ -20,7 +20,7 @@ from __future__ import annotations
 import math
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta
 from typing import Any
 
 from ..errors import OptionError
@@ -243,7 +243,7 @@ def _plus_minutes(t: TimeLike, minutes: float) -> TimeLike:
     if isinstance(t, datetime):
         if t.tzinfo is None:
             return t + timedelta(minutes=minutes)
-        return (t.astimezone(timezone.utc) + timedelta(minutes=minutes)).astimezone(t.tzinfo)
+        return (t.astimezone(UTC) + timedelta(minutes=minutes)).astimezone(t.tzinfo)
     return float(t) + minutes
 
 

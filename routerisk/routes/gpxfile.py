@@ -120,6 +120,7 @@ def _read_gpx(path: Path, raw: bytes) -> list[_Parsed]:
 
 
 def gpx_text(routes: Sequence[PlannedRoute]) -> str:
+    """Return routes as GPX 1.1 text: one track per route, times where the route has them."""
     ns = "http://www.topografix.com/GPX/1/1"
     root = ET.Element("gpx", {"version": "1.1", "creator": "routerisk", "xmlns": ns})
     for r in routes:
