@@ -128,9 +128,13 @@ def child_tag(a: dict[str, Any]) -> dict[str, Any]:
     t = time.perf_counter()
     out = tagging.tag_edges(base, net.sources, net.crossings, net.profile)
     secs = time.perf_counter() - t
-    return {"edges": len(out), "timed": secs,
-            "edges_in_influence": {c.name: int((out[f"infl_{c.name}"] > 0).sum())
-                                   for c in net.profile.categories}}
+    return {
+        "edges": len(out),
+        "timed": secs,
+        "edges_in_influence": {
+            c.name: int((out[f"infl_{c.name}"] > 0).sum()) for c in net.profile.categories
+        },
+    }
 
 
 def child_tag_sjoin(a: dict[str, Any]) -> dict[str, Any]:
@@ -158,20 +162,28 @@ def child_tag_dask(a: dict[str, Any]) -> dict[str, Any]:
     net, base = _tag_inputs(a)
     with partition.cluster(workers=2) as client:
         t = time.perf_counter()
-        out = partition.tag_partitioned(base, net.sources, net.crossings, net.profile,
-                                        client=client)
+        out = partition.tag_partitioned(
+            base, net.sources, net.crossings, net.profile, client=client
+        )
         secs = time.perf_counter() - t
         workers = client.run(peak_mib)
     # the peak of the partitioned run itself, before the single-machine check below
     peak = peak_mib()
     single = tagging.tag_edges(base, net.sources, net.crossings, net.profile)
-    cols = [c for c in single.columns if c.startswith(("exp_", "infl_", "rule_"))
-            or c == "crossings"]
-    same = all(__import__("numpy").array_equal(single[c].to_numpy(), out[c].to_numpy())
-               for c in cols)
-    return {"edges": len(out), "timed": secs, "tiles": partition.last_tile_count(),
-            "identical_to_single_machine": bool(same), "peak_mib": peak,
-            "worker_peak_mib": [v for _, v in sorted(workers.items())]}
+    cols = [
+        c for c in single.columns if c.startswith(("exp_", "infl_", "rule_")) or c == "crossings"
+    ]
+    same = all(
+        __import__("numpy").array_equal(single[c].to_numpy(), out[c].to_numpy()) for c in cols
+    )
+    return {
+        "edges": len(out),
+        "timed": secs,
+        "tiles": partition.last_tile_count(),
+        "identical_to_single_machine": bool(same),
+        "peak_mib": peak,
+        "worker_peak_mib": [v for _, v in sorted(workers.items())],
+    }
 
 
 def child_load_network(a: dict[str, Any]) -> dict[str, Any]:
@@ -196,8 +208,9 @@ def child_graph_osmnx(a: dict[str, Any]) -> dict[str, Any]:
 
     net = _net(a["net"])
     t = time.perf_counter()
-    G = ox.convert.graph_from_gdfs(net.nodes, net.edges,
-                                   graph_attrs={"crs": net.edges.crs.to_string()})
+    G = ox.convert.graph_from_gdfs(
+        net.nodes, net.edges, graph_attrs={"crs": net.edges.crs.to_string()}
+    )
     return {"edges": G.number_of_edges(), "timed": time.perf_counter() - t}
 
 
@@ -239,20 +252,37 @@ def child_routes(a: dict[str, Any]) -> dict[str, Any]:
                 path.append(int(pred[path[-1]]))
             path.reverse()
             rows = [row[(p, q)] for p, q in zip(path[:-1], path[1:], strict=True)]
-            routes.append({"origin": int(ids[o]), "target": int(ids[t_]),
-                           "edges": [[int(u[r]), int(v[r]), int(k[r])] for r in rows]})
+            routes.append(
+                {
+                    "origin": int(ids[o]),
+                    "target": int(ids[t_]),
+                    "edges": [[int(u[r]), int(v[r]), int(k[r])] for r in rows],
+                }
+            )
             if len(routes) == want:
                 break
     Path(a["routes_file"]).write_text(json.dumps(routes))
-    km = [sum(float(w[row[(int(np.searchsorted(ids, x[0])), int(np.searchsorted(ids, x[1])))]])
-              for x in r["edges"]) / 1000 for r in routes[:50]]
+    km = [
+        sum(
+            float(w[row[(int(np.searchsorted(ids, x[0])), int(np.searchsorted(ids, x[1])))]])
+            for x in r["edges"]
+        )
+        / 1000
+        for r in routes[:50]
+    ]
     return {"routes": len(routes), "mean_km_first50": float(np.mean(km)) if km else None}
 
 
 def child_routes_long(a: dict[str, Any]) -> dict[str, Any]:
     """Pick the long routes for ``suggest_long`` (about three times the usual length)."""
-    return child_routes({**a, "routes": a["suggest"], "route_km": LONG_ROUTE_KM,
-                         "routes_file": a["long_routes_file"]})
+    return child_routes(
+        {
+            **a,
+            "routes": a["suggest"],
+            "route_km": LONG_ROUTE_KM,
+            "routes_file": a["long_routes_file"],
+        }
+    )
 
 
 def _routes(a: dict[str, Any]) -> list[dict[str, Any]]:
@@ -273,9 +303,14 @@ def child_score(a: dict[str, Any]) -> dict[str, Any]:
     for i, r in enumerate(routes):
         total += sc.score(f"r{i}", [tuple(x) for x in r["edges"]], depart).risk
     t_score = time.perf_counter() - t
-    return {"routes": len(routes), "timed": t_init + t_score, "scorer_init_s": t_init,
-            "score_s": t_score, "per_route_ms": 1000 * t_score / max(len(routes), 1),
-            "risk_sum": total}
+    return {
+        "routes": len(routes),
+        "timed": t_init + t_score,
+        "scorer_init_s": t_init,
+        "score_s": t_score,
+        "per_route_ms": 1000 * t_score / max(len(routes), 1),
+        "risk_sum": total,
+    }
 
 
 def child_suggest(a: dict[str, Any]) -> dict[str, Any]:
@@ -299,9 +334,14 @@ def child_suggest(a: dict[str, Any]) -> dict[str, Any]:
         found += len(s.alternatives)
     if not per:
         raise SystemExit("no route of the wanted length in this city")
-    return {"routes": len(routes), "timed": t_init + sum(per), "init_s": t_init,
-            "per_route_mean_s": float(np.mean(per)), "per_route_max_s": float(np.max(per)),
-            "alternatives": found}
+    return {
+        "routes": len(routes),
+        "timed": t_init + sum(per),
+        "init_s": t_init,
+        "per_route_mean_s": float(np.mean(per)),
+        "per_route_max_s": float(np.max(per)),
+        "alternatives": found,
+    }
 
 
 def child_suggest_long(a: dict[str, Any]) -> dict[str, Any]:
@@ -344,8 +384,12 @@ def child_paths(a: dict[str, Any]) -> dict[str, Any]:
     costs = [float(join_waypoints(idx, r).time_s) for r in routes]
     secs = time.perf_counter() - t
     Path(a["paths_file"]).write_text(json.dumps(costs))
-    return {"pairs": len(pairs), "timed": secs, "per_pair_ms": 1000 * secs / len(pairs),
-            "index_s": t_index}
+    return {
+        "pairs": len(pairs),
+        "timed": secs,
+        "per_pair_ms": 1000 * secs / len(pairs),
+        "index_s": t_index,
+    }
 
 
 def child_paths_nx(a: dict[str, Any]) -> dict[str, Any]:
@@ -358,13 +402,21 @@ def child_paths_nx(a: dict[str, Any]) -> dict[str, Any]:
     costs = []
     for o, d in pairs:
         path = nx.shortest_path(G, o, d, weight="travel_time")
-        costs.append(sum(min(x["travel_time"] for x in G[p][q].values())
-                         for p, q in zip(path[:-1], path[1:], strict=True)))
+        costs.append(
+            sum(
+                min(x["travel_time"] for x in G[p][q].values())
+                for p, q in zip(path[:-1], path[1:], strict=True)
+            )
+        )
     secs = time.perf_counter() - t
     ours = json.loads(Path(a["paths_file"]).read_text())
     worst = max(abs(x - y) / max(y, 1e-9) for x, y in zip(ours, costs, strict=True))
-    return {"pairs": len(pairs), "timed": secs, "per_pair_ms": 1000 * secs / len(pairs),
-            "max_rel_cost_difference": worst}
+    return {
+        "pairs": len(pairs),
+        "timed": secs,
+        "per_pair_ms": 1000 * secs / len(pairs),
+        "max_rel_cost_difference": worst,
+    }
 
 
 def child_review(a: dict[str, Any]) -> dict[str, Any]:
@@ -375,8 +427,13 @@ def child_review(a: dict[str, Any]) -> dict[str, Any]:
     net = _net(a["net"])
     x0, y0, x1, y1 = net.edges.total_bounds
     cx, cy, hx, hy = (x0 + x1) / 2, (y0 + y1) / 2, (x1 - x0) / 4, (y1 - y0) / 4
-    area = Area("centre quarter", 0, box(cx - hx, cy - hy, cx + hx, cy + hy), "bench",
-                "features[0].geometry")
+    area = Area(
+        "centre quarter",
+        0,
+        box(cx - hx, cy - hy, cx + hx, cy + hy),
+        "bench",
+        "features[0].geometry",
+    )
     t = time.perf_counter()
     rev = review_areas(net, [area])
     secs = time.perf_counter() - t
@@ -392,9 +449,14 @@ def _run(stage: str, args: dict[str, Any], *, timeout: float = 3600) -> dict[str
     """Run one stage in a fresh interpreter; return its record with wall time and peak RSS."""
     env = {**os.environ, "PYTHONPATH": str(ROOT) + os.pathsep + os.environ.get("PYTHONPATH", "")}
     t = time.perf_counter()
-    proc = subprocess.run([sys.executable, str(Path(__file__).resolve()), "--child", stage,
-                           json.dumps(args)], capture_output=True, text=True, env=env,
-                          timeout=timeout, check=False)
+    proc = subprocess.run(
+        [sys.executable, str(Path(__file__).resolve()), "--child", stage, json.dumps(args)],
+        capture_output=True,
+        text=True,
+        env=env,
+        timeout=timeout,
+        check=False,
+    )
     wall = time.perf_counter() - t
     if proc.returncode != 0:
         tail = (proc.stderr or proc.stdout).strip().splitlines()[-5:]
@@ -416,18 +478,27 @@ def _child_main(stage: str, args_json: str) -> None:
 #: (row name, routerisk stage, baseline stage, target text, target check)
 ROWS = [
     ("load (graph)", "load", "osmnx_load", "", None),
-    ("full build (load+tag+save)", "build", "osmnx_load",
-     "<= osmnx bare load; < 6 GiB at 1M", "build"),
+    (
+        "full build (load+tag+save)",
+        "build",
+        "osmnx_load",
+        "<= osmnx bare load; < 6 GiB at 1M",
+        "build",
+    ),
     ("tagging", "tag", "tag_sjoin", "", None),
-    ("tagging on dask (2 workers)", "tag_dask", "tag", "identical to single machine",
-     "dask"),
+    ("tagging on dask (2 workers)", "tag_dask", "tag", "identical to single machine", "dask"),
     ("load saved network", "load_network", None, "< 3 s at 100k", "load_network"),
     ("networkx graph (lazy)", "graph", "graph_osmnx", "", None),
     ("fastest-path joins (100 pairs)", "paths", "paths_nx", "", None),
     ("score 1,000 routes", "score", None, "< 5 s", "score"),
     ("suggest 20 routes", "suggest", None, "< 2 s per route at 100k", "suggest"),
-    ("suggest 20 long routes", "suggest_long", None, "< 2 s per route at 100k; < 10 s at 1M",
-     "suggest"),
+    (
+        "suggest 20 long routes",
+        "suggest_long",
+        None,
+        "< 2 s per route at 100k; < 10 s at 1M",
+        "suggest",
+    ),
     ("area review (1/4 of the city)", "review", None, "", None),
 ]
 
@@ -452,14 +523,37 @@ def bench_size(edges: int, seed: int, *, skip: set[str], keep: Path | None) -> d
     summary = write_city(pbf, edges=edges, seed=seed)
     write_city(xml, edges=edges, seed=seed)
     gen_s = time.perf_counter() - t
-    a = {"pbf": str(pbf), "xml": str(xml), "net": str(tmp / "net"), "routes": 1000,
-         "suggest": 20, "pairs": 100, "routes_file": str(tmp / "routes.json"),
-         "paths_file": str(tmp / "paths.json"),
-         "long_routes_file": str(tmp / "long_routes.json")}
+    a = {
+        "pbf": str(pbf),
+        "xml": str(xml),
+        "net": str(tmp / "net"),
+        "routes": 1000,
+        "suggest": 20,
+        "pairs": 100,
+        "routes_file": str(tmp / "routes.json"),
+        "paths_file": str(tmp / "paths.json"),
+        "long_routes_file": str(tmp / "long_routes.json"),
+    }
     stages: dict[str, Any] = {}
-    order = ["build", "load", "osmnx_load", "tag", "tag_sjoin", "tag_dask", "load_network",
-             "graph", "graph_osmnx", "routes", "paths", "paths_nx", "score", "suggest",
-             "routes_long", "suggest_long", "review"]
+    order = [
+        "build",
+        "load",
+        "osmnx_load",
+        "tag",
+        "tag_sjoin",
+        "tag_dask",
+        "load_network",
+        "graph",
+        "graph_osmnx",
+        "routes",
+        "paths",
+        "paths_nx",
+        "score",
+        "suggest",
+        "routes_long",
+        "suggest_long",
+        "review",
+    ]
     for st in order:
         if st in skip:
             continue
@@ -469,10 +563,17 @@ def bench_size(edges: int, seed: int, *, skip: set[str], keep: Path | None) -> d
             print(f"    error: {stages[st]['error']}", flush=True)
     if keep is None:
         tmp_ctx.cleanup()
-    return {"edges_requested": edges, "drive_edges": summary["drive_edges"], "seed": seed,
-            "generate_s": gen_s, "osm_bytes": summary["bytes"],
-            "python": platform.python_version(), "machine": platform.machine(),
-            "cpus": os.cpu_count(), "stages": stages}
+    return {
+        "edges_requested": edges,
+        "drive_edges": summary["drive_edges"],
+        "seed": seed,
+        "generate_s": gen_s,
+        "osm_bytes": summary["bytes"],
+        "python": platform.python_version(),
+        "machine": platform.machine(),
+        "cpus": os.cpu_count(),
+        "stages": stages,
+    }
 
 
 def _table(records: list[dict[str, Any]]) -> list[dict[str, Any]]:
@@ -488,8 +589,10 @@ def _table(records: list[dict[str, Any]]) -> list[dict[str, Any]]:
             bs = _seconds(b, base) if base else None
             extra = ""
             if ours == "suggest_long" and r and "error" not in r:
-                extra = (f"{r['routes']} routes of ~{r['route_km_target']:g} km: mean "
-                         f"{r['per_route_mean_s']:.2f} s, max {r['per_route_max_s']:.2f} s")
+                extra = (
+                    f"{r['routes']} routes of ~{r['route_km_target']:g} km: mean "
+                    f"{r['per_route_mean_s']:.2f} s, max {r['per_route_max_s']:.2f} s"
+                )
             elif ours == "suggest" and r and "error" not in r:
                 extra = f"mean {r['per_route_mean_s']:.2f} s, max {r['per_route_max_s']:.2f} s"
             elif ours == "score" and r and "error" not in r:
@@ -497,30 +600,41 @@ def _table(records: list[dict[str, Any]]) -> list[dict[str, Any]]:
             elif ours == "paths" and r and "error" not in r:
                 extra = f"{r['per_pair_ms']:.1f} ms per pair"
             elif ours == "tag_dask" and r and "error" not in r:
-                extra = (f"{r['tiles']} tiles, identical: "
-                         f"{'yes' if r['identical_to_single_machine'] else 'NO'}")
+                extra = (
+                    f"{r['tiles']} tiles, identical: "
+                    f"{'yes' if r['identical_to_single_machine'] else 'NO'}"
+                )
                 if r.get("worker_peak_mib"):
-                    extra += ("; workers' peak MiB "
-                              + " / ".join(f"{w:.0f}" for w in r["worker_peak_mib"]))
+                    extra += "; workers' peak MiB " + " / ".join(
+                        f"{w:.0f}" for w in r["worker_peak_mib"]
+                    )
             elif ours == "load_network" and r and "error" not in r:
                 extra = f"+ {r['import_s']:.2f} s imports"
             elif ours == "load" and r and "error" not in r:
                 extra = f"read_osm {r['read_osm_s']:.2f} s"
-            rows.append({
-                "edges": rec["drive_edges"], "stage": name,
-                "seconds": s, "peak_mib": r.get("peak_mib") if r else None,
-                "error": r.get("error") if r else None,
-                "baseline": base or "", "baseline_s": bs,
-                "baseline_peak_mib": b.get("peak_mib") if b and "error" not in b else None,
-                "ratio": (s / bs) if (s is not None and bs) else None,
-                "target": target, "note": extra,
-            })
+            rows.append(
+                {
+                    "edges": rec["drive_edges"],
+                    "stage": name,
+                    "seconds": s,
+                    "peak_mib": r.get("peak_mib") if r else None,
+                    "error": r.get("error") if r else None,
+                    "baseline": base or "",
+                    "baseline_s": bs,
+                    "baseline_peak_mib": b.get("peak_mib") if b and "error" not in b else None,
+                    "ratio": (s / bs) if (s is not None and bs) else None,
+                    "target": target,
+                    "note": extra,
+                }
+            )
     return rows
 
 
 BASELINE_NAMES = {
-    "osmnx_load": "osmnx graph_from_xml", "tag_sjoin": "buffer + sjoin",
-    "tag": "single-machine tag_edges", "graph_osmnx": "osmnx graph_from_gdfs",
+    "osmnx_load": "osmnx graph_from_xml",
+    "tag_sjoin": "buffer + sjoin",
+    "tag": "single-machine tag_edges",
+    "graph_osmnx": "osmnx graph_from_gdfs",
     "paths_nx": "networkx shortest_path",
 }
 
@@ -531,16 +645,19 @@ def _fmt(x: float | None, nd: int = 2) -> str:
 
 def markdown(rows: list[dict[str, Any]]) -> str:
     """Return the markdown table of the benchmark rows."""
-    out = ["| edges | stage | seconds | peak MiB | baseline | baseline s | baseline MiB | "
-           "ratio | target | note |",
-           "| ---: | --- | ---: | ---: | --- | ---: | ---: | ---: | --- | --- |"]
+    out = [
+        "| edges | stage | seconds | peak MiB | baseline | baseline s | baseline MiB | "
+        "ratio | target | note |",
+        "| ---: | --- | ---: | ---: | --- | ---: | ---: | ---: | --- | --- |",
+    ]
     for r in rows:
         sec = "error" if r["error"] else _fmt(r["seconds"])
         out.append(
             f"| {r['edges']:,} | {r['stage']} | {sec} | {_fmt(r['peak_mib'], 0)} | "
             f"{BASELINE_NAMES.get(r['baseline'], r['baseline']) or '-'} | "
             f"{_fmt(r['baseline_s'])} | {_fmt(r['baseline_peak_mib'], 0)} | "
-            f"{_fmt(r['ratio'])} | {r['target'] or '-'} | {r['note'] or '-'} |")
+            f"{_fmt(r['ratio'])} | {r['target'] or '-'} | {r['note'] or '-'} |"
+        )
     return "\n".join(out)
 
 
@@ -557,9 +674,10 @@ def memory_growth(records: list[dict[str, Any]]) -> str:
     head = " / ".join(f"{r['drive_edges']:,}" for r in recs)
     pairs = list(zip(recs[:-1], recs[1:], strict=True))
     grow = " / ".join(f"{b['drive_edges'] / a['drive_edges']:.1f}x" for a, b in pairs)
-    out = [f"| stage | peak MiB ({head} edges) | peak growth (edges {grow}) | "
-           "no faster than linear |",
-           "| --- | --- | --- | --- |"]
+    out = [
+        f"| stage | peak MiB ({head} edges) | peak growth (edges {grow}) | no faster than linear |",
+        "| --- | --- | --- | --- |",
+    ]
     for name, ours, *_ in ROWS:
         peaks = [r["stages"].get(ours, {}).get("peak_mib") for r in recs]
         if any(p is None for p in peaks):
@@ -567,16 +685,20 @@ def memory_growth(records: list[dict[str, Any]]) -> str:
         ratios = [b / a for a, b in zip(peaks[:-1], peaks[1:], strict=True)]
         edges = [b["drive_edges"] / a["drive_edges"] for a, b in pairs]
         ok = all(x <= e for x, e in zip(ratios, edges, strict=True))
-        out.append(f"| {name} | {' / '.join(f'{p:.0f}' for p in peaks)} | "
-                   f"{' / '.join(f'{x:.2f}x' for x in ratios)} | {'yes' if ok else 'NO'} |")
+        out.append(
+            f"| {name} | {' / '.join(f'{p:.0f}' for p in peaks)} | "
+            f"{' / '.join(f'{x:.2f}x' for x in ratios)} | {'yes' if ok else 'NO'} |"
+        )
     return "\n".join(out)
 
 
 def _write_results_md(table: str) -> None:
     md = HERE / "RESULTS.md"
     text = md.read_text(encoding="utf-8") if md.exists() else ""
-    block = (f"{MARK_BEGIN}\n<!-- written by bench/bench_all.py from bench/results/all_*.json; "
-             f"do not edit by hand -->\n\n{table}\n\n{MARK_END}")
+    block = (
+        f"{MARK_BEGIN}\n<!-- written by bench/bench_all.py from bench/results/all_*.json; "
+        f"do not edit by hand -->\n\n{table}\n\n{MARK_END}"
+    )
     if MARK_BEGIN in text and MARK_END in text:
         head, rest = text.split(MARK_BEGIN, 1)
         _, tail = rest.split(MARK_END, 1)
@@ -592,13 +714,17 @@ def main() -> None:
         _child_main(sys.argv[2], sys.argv[3])
         return
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--sizes", default="10000,100000",
-                    help="comma-separated edge counts (default 10000,100000)")
+    ap.add_argument(
+        "--sizes", default="10000,100000", help="comma-separated edge counts (default 10000,100000)"
+    )
     ap.add_argument("--seed", type=int, default=1)
     ap.add_argument("--skip", default="", help="comma-separated stages to leave out")
     ap.add_argument("--keep", type=Path, help="keep the generated files in this folder")
-    ap.add_argument("--report-only", action="store_true",
-                    help="rewrite RESULTS.md from the recorded results without running")
+    ap.add_argument(
+        "--report-only",
+        action="store_true",
+        help="rewrite RESULTS.md from the recorded results without running",
+    )
     args = ap.parse_args()
     sys.path.insert(0, str(ROOT))
     skip = {s for s in args.skip.split(",") if s}
@@ -607,14 +733,19 @@ def main() -> None:
     for size in sizes:
         keep = args.keep / str(size) if args.keep else None
         rec = bench_size(size, args.seed, skip=skip, keep=keep)
-        (RESULTS / f"all_{size}.json").write_text(json.dumps(rec, indent=2, sort_keys=True)
-                                                  + "\n", encoding="utf-8")
+        (RESULTS / f"all_{size}.json").write_text(
+            json.dumps(rec, indent=2, sort_keys=True) + "\n", encoding="utf-8"
+        )
         print(markdown(_table([rec])), flush=True)
-    records = [json.loads(p.read_text()) for p in sorted(
-        RESULTS.glob("all_*.json"), key=lambda p: int(p.stem.split("_")[1]))]
+    records = [
+        json.loads(p.read_text())
+        for p in sorted(RESULTS.glob("all_*.json"), key=lambda p: int(p.stem.split("_")[1]))
+    ]
     growth = memory_growth(records)
-    _write_results_md(markdown(_table(records))
-                      + (f"\n\nPeak memory against edges:\n\n{growth}" if growth else ""))
+    _write_results_md(
+        markdown(_table(records))
+        + (f"\n\nPeak memory against edges:\n\n{growth}" if growth else "")
+    )
 
 
 if __name__ == "__main__":

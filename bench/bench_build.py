@@ -24,11 +24,14 @@ HERE = Path(__file__).resolve().parent
 def _child(code: str) -> dict:
     """Run ``code`` in a fresh interpreter; return its JSON result with wall time and peak RSS."""
     wrapper = (
-        "import json, resource, time\nt0 = time.perf_counter()\n" + code +
-        "\nprint(json.dumps({'seconds': time.perf_counter() - t0, 'peak_mib': "
-        "resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024, **RESULT}))\n")
-    out = subprocess.run([sys.executable, "-c", wrapper], check=True, capture_output=True,
-                         text=True)
+        "import json, resource, time\nt0 = time.perf_counter()\n"
+        + code
+        + "\nprint(json.dumps({'seconds': time.perf_counter() - t0, 'peak_mib': "
+        "resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024, **RESULT}))\n"
+    )
+    out = subprocess.run(
+        [sys.executable, "-c", wrapper], check=True, capture_output=True, text=True
+    )
     return json.loads(out.stdout.strip().splitlines()[-1])
 
 
@@ -51,24 +54,31 @@ def main() -> None:
             rows["osmnx graph_from_xml (baseline)"] = _child(
                 "import osmnx as ox\n"
                 f"G = ox.graph_from_xml({str(xml)!r}, simplify=True, retain_all=False)\n"
-                "RESULT = {'edges': G.number_of_edges()}")
+                "RESULT = {'edges': G.number_of_edges()}"
+            )
         rows["routerisk build"] = _child(
             f"import sys; sys.path.insert(0, {str(HERE.parent)!r})\n"
             "from routerisk.network import build_network, save_network\n"
             f"net = build_network({str(pbf)!r})\n"
             f"save_network(net, {str(Path(tmp) / 'net')!r})\n"
-            "RESULT = {'edges': len(net.edges)}")
+            "RESULT = {'edges': len(net.edges)}"
+        )
     base = rows.get("osmnx graph_from_xml (baseline)")
     print(f"{'stage':36s} {'edges':>8s} {'seconds':>9s} {'peak MiB':>9s} {'ratio':>7s}")
     for name, r in rows.items():
         ratio = r["seconds"] / base["seconds"] if base else float("nan")
         r["ratio_to_baseline"] = ratio
-        print(f"{name:36s} {r['edges']:8d} {r['seconds']:9.2f} {r['peak_mib']:9.0f} "
-              f"{ratio:7.2f}")
+        print(f"{name:36s} {r['edges']:8d} {r['seconds']:9.2f} {r['peak_mib']:9.0f} {ratio:7.2f}")
     res = HERE / "results"
     res.mkdir(exist_ok=True)
-    record = {"edges_requested": args.edges, "seed": args.seed, "python": platform.python_version(),
-              "machine": platform.machine(), "cpus": __import__("os").cpu_count(), "rows": rows}
+    record = {
+        "edges_requested": args.edges,
+        "seed": args.seed,
+        "python": platform.python_version(),
+        "machine": platform.machine(),
+        "cpus": __import__("os").cpu_count(),
+        "rows": rows,
+    }
     (res / f"build_{args.edges}.json").write_text(json.dumps(record, indent=2, sort_keys=True))
 
 

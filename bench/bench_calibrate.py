@@ -44,24 +44,26 @@ def _counts_csv(net, n_sites: int, path: Path, rng) -> None:
     chosen += list(rng.choice(rest, size=n_sites - len(chosen), replace=False))
     mids = shapely.line_interpolate_point(e.geometry.to_numpy()[chosen], 0.5, normalized=True)
     lon, lat = pyproj.Transformer.from_crs(e.crs, "EPSG:4326", always_xy=True).transform(
-        shapely.get_x(mids), shapely.get_y(mids))
+        shapely.get_x(mids), shapely.get_y(mids)
+    )
     lines = [",".join(calibration.COLUMNS)]
     for i in range(n_sites):
         for _ in range(3):
             day = dt.date(2027, 3, 8 + int(rng.integers(0, 6)))
             start = dt.datetime.combine(day, dt.time(int(rng.integers(6, 20)), 0))
             end = start + dt.timedelta(hours=2)
-            lines.append(f"S{i},{lat[i]:.7f},{lon[i]:.7f},{start.isoformat()},"
-                         f"{end.isoformat()},0")
+            lines.append(f"S{i},{lat[i]:.7f},{lon[i]:.7f},{start.isoformat()},{end.isoformat()},0")
     path.write_text("\n".join(lines) + "\n", encoding="utf-8")
     counts = calibration.read_counts(path, net.timezone)
     design = calibration.build_design(net, counts, calibration.place_sites(net, counts))
-    w = np.array([1.0, *(c.weight * (1.5 if j % 2 else 0.7)
-                         for j, c in enumerate(net.profile.categories))])
+    w = np.array(
+        [1.0, *(c.weight * (1.5 if j % 2 else 0.7) for j, c in enumerate(net.profile.categories))]
+    )
     mu = 30.0 * design.full @ w
     y = rng.poisson(rng.gamma(10.0, mu / 10.0))
-    out = [lines[0]] + [ln.rsplit(",", 1)[0] + f",{int(v)}" for ln, v in zip(lines[1:], y,
-                                                                              strict=True)]
+    out = [lines[0]] + [
+        ln.rsplit(",", 1)[0] + f",{int(v)}" for ln, v in zip(lines[1:], y, strict=True)
+    ]
     path.write_text("\n".join(out) + "\n", encoding="utf-8")
 
 
@@ -85,8 +87,7 @@ def _coverage(seeds: int) -> dict[str, float]:
         f = cb.fit_nb(d.Z, rng.poisson(rng.gamma(1 / 0.08, 0.08 * mu)).astype(float))
         est, cov = cb.weights_from(f.theta, f.cov)
         hits += np.abs(est - truth) <= norm.ppf(0.975) * np.sqrt(np.diag(cov))
-    return dict(zip(["scale", *net.profile.category_names], (hits / seeds).tolist(),
-                    strict=True))
+    return dict(zip(["scale", *net.profile.category_names], (hits / seeds).tolist(), strict=True))
 
 
 def main() -> None:
@@ -158,8 +159,10 @@ def main() -> None:
 def _with_ranges(profile):
     import dataclasses
 
-    cats = tuple(dataclasses.replace(c, weight_range=(0.5 * c.weight, 1.5 * c.weight, "uniform"))
-                 for c in profile.categories)
+    cats = tuple(
+        dataclasses.replace(c, weight_range=(0.5 * c.weight, 1.5 * c.weight, "uniform"))
+        for c in profile.categories
+    )
     return dataclasses.replace(profile, categories=cats)
 
 

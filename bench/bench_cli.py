@@ -73,16 +73,31 @@ def _prepare(work: Path, names: list[str]) -> dict[str, tuple[Path, Path]]:
     if "grid" in names:
         grid = work / "grid160.osm"
         if not grid.exists():
-            subprocess.run([py, str(HERE / "make_grid.py"), "--size", "160", "--out",
-                            str(grid)], check=True, env=_env())
+            subprocess.run(
+                [py, str(HERE / "make_grid.py"), "--size", "160", "--out", str(grid)],
+                check=True,
+                env=_env(),
+            )
         out["grid"] = (grid, grid)
     if {"city-osm", "city-pbf"} & set(names):
         for suffix in (".osm", ".osm.pbf"):
             f = work / f"city100k{suffix}"
             if not f.exists():
-                subprocess.run([py, str(HERE / "make_city.py"), "--edges", "100000", "--seed",
-                                "1", "--out", str(f)], check=True, env=_env(),
-                               stdout=subprocess.DEVNULL)
+                subprocess.run(
+                    [
+                        py,
+                        str(HERE / "make_city.py"),
+                        "--edges",
+                        "100000",
+                        "--seed",
+                        "1",
+                        "--out",
+                        str(f),
+                    ],
+                    check=True,
+                    env=_env(),
+                    stdout=subprocess.DEVNULL,
+                )
         out["city-osm"] = (work / "city100k.osm", work / "city100k.osm")
         out["city-pbf"] = (work / "city100k.osm.pbf", work / "city100k.osm")
     if "real" in names:
@@ -102,27 +117,52 @@ def _median(xs: list[float]) -> float:
     return round(statistics.median(xs), 3)
 
 
-def bench(work: Path, names: list[str], repeat: int, *, warm: bool = True,
-          out: Path | None = None) -> dict[str, Any]:
+def bench(
+    work: Path, names: list[str], repeat: int, *, warm: bool = True, out: Path | None = None
+) -> dict[str, Any]:
     """Run the interleaved rounds; return the record (also written to ``out`` each round)."""
     py = sys.executable
     files = _prepare(work, names)
     net_dir = work / "net"
     jobs: dict[str, list[str]] = {}
     for name, (ours, theirs) in files.items():
-        jobs[f"build {name}"] = [py, "-m", "routerisk", "build", str(ours), "--out",
-                                 str(net_dir / name), "--force"]
+        jobs[f"build {name}"] = [
+            py,
+            "-m",
+            "routerisk",
+            "build",
+            str(ours),
+            "--out",
+            str(net_dir / name),
+            "--force",
+        ]
         jobs[f"osmnx {name}"] = [py, "-c", OSMNX, str(theirs)]
     town = work / "net" / "town"
     one_route = work / "one_route.geojson"
     doc = json.loads((ROOT / "sample_area" / "routes.geojson").read_text(encoding="utf-8"))
     doc["features"] = doc["features"][:1]
     one_route.write_text(json.dumps(doc), encoding="utf-8")
-    jobs["build town"] = [py, "-m", "routerisk", "build", str(ROOT / "sample_area" /
-                                                              "corvane.osm"),
-                          "--out", str(town), "--force", "--timezone", "Etc/GMT+3"]
-    jobs["score one route"] = [py, "-m", "routerisk", "score", str(one_route), "--network",
-                               str(town)]
+    jobs["build town"] = [
+        py,
+        "-m",
+        "routerisk",
+        "build",
+        str(ROOT / "sample_area" / "corvane.osm"),
+        "--out",
+        str(town),
+        "--force",
+        "--timezone",
+        "Etc/GMT+3",
+    ]
+    jobs["score one route"] = [
+        py,
+        "-m",
+        "routerisk",
+        "score",
+        str(one_route),
+        "--network",
+        str(town),
+    ]
     jobs["--help"] = [py, "-m", "routerisk", "--help"]
     jobs["--version"] = [py, "-m", "routerisk", "--version"]
     times: dict[str, list[tuple[float, float]]] = {k: [] for k in jobs}
@@ -147,43 +187,61 @@ def bench(work: Path, names: list[str], repeat: int, *, warm: bool = True,
     return rec
 
 
-def _record(times: dict[str, list[tuple[float, float]]], names: list[str], rounds: int
-            ) -> dict[str, Any]:
+def _record(
+    times: dict[str, list[tuple[float, float]]], names: list[str], rounds: int
+) -> dict[str, Any]:
     rec: dict[str, Any] = {
-        "machine": {"cpus": os.cpu_count(), "python": platform.python_version(),
-                    "platform": platform.platform(),
-                    "load_average_at_end": [round(x, 2) for x in os.getloadavg()]},
+        "machine": {
+            "cpus": os.cpu_count(),
+            "python": platform.python_version(),
+            "platform": platform.platform(),
+            "load_average_at_end": [round(x, 2) for x in os.getloadavg()],
+        },
         "repeat": rounds,
         "median_wall_s": {k: _median([w for w, _ in v]) for k, v in times.items()},
         "median_cpu_s": {k: _median([c for _, c in v]) for k, v in times.items()},
         "runs": {k: [[round(w, 3), round(c, 3)] for w, c in v] for k, v in times.items()},
     }
     rec["ratios"] = {
-        name: {"wall": round(rec["median_wall_s"][f"build {name}"]
-                             / rec["median_wall_s"][f"osmnx {name}"], 3),
-               "cpu": round(rec["median_cpu_s"][f"build {name}"]
-                            / rec["median_cpu_s"][f"osmnx {name}"], 3)}
-        for name in names}
+        name: {
+            "wall": round(
+                rec["median_wall_s"][f"build {name}"] / rec["median_wall_s"][f"osmnx {name}"], 3
+            ),
+            "cpu": round(
+                rec["median_cpu_s"][f"build {name}"] / rec["median_cpu_s"][f"osmnx {name}"], 3
+            ),
+        }
+        for name in names
+    }
     return rec
 
 
 def markdown(rec: dict[str, Any]) -> str:
     """Return the table of one run."""
-    label = {"grid": "plain street grid 160 x 160, .osm", "city-osm": "generated city 100k, .osm",
-             "city-pbf": "generated city 100k, .osm.pbf (osmnx: the same data as .osm)",
-             "real": "real extract (pyogrio sample.osm.pbf, ODbL; osmnx: as .osm)"}
+    label = {
+        "grid": "plain street grid 160 x 160, .osm",
+        "city-osm": "generated city 100k, .osm",
+        "city-pbf": "generated city 100k, .osm.pbf (osmnx: the same data as .osm)",
+        "real": "real extract (pyogrio sample.osm.pbf, ODbL; osmnx: as .osm)",
+    }
     w, c = rec["median_wall_s"], rec["median_cpu_s"]
-    rows = ["| input | routerisk build, s (wall / CPU) | osmnx process, s (wall / CPU) | "
-            "ratio wall | ratio CPU |", "| --- | ---: | ---: | ---: | ---: |"]
+    rows = [
+        "| input | routerisk build, s (wall / CPU) | osmnx process, s (wall / CPU) | "
+        "ratio wall | ratio CPU |",
+        "| --- | ---: | ---: | ---: | ---: |",
+    ]
     for name in [n for n in INPUTS if n in rec["ratios"]]:
         r = rec["ratios"][name]
-        rows.append(f"| {label[name]} | {w[f'build {name}']:.2f} / {c[f'build {name}']:.2f} | "
-                    f"{w[f'osmnx {name}']:.2f} / {c[f'osmnx {name}']:.2f} | {r['wall']:.2f} | "
-                    f"{r['cpu']:.2f} |")
+        rows.append(
+            f"| {label[name]} | {w[f'build {name}']:.2f} / {c[f'build {name}']:.2f} | "
+            f"{w[f'osmnx {name}']:.2f} / {c[f'osmnx {name}']:.2f} | {r['wall']:.2f} | "
+            f"{r['cpu']:.2f} |"
+        )
     rows += ["", "| command (whole process) | wall, s | CPU, s |", "| --- | ---: | ---: |"]
     for key in ("--help", "--version", "score one route"):
-        shown = "score of one route, sample town" if key == "score one route" else \
-            f"routerisk {key}"
+        shown = (
+            "score of one route, sample town" if key == "score one route" else f"routerisk {key}"
+        )
         rows.append(f"| {shown} | {w[key]:.2f} | {c[key]:.2f} |")
     return "\n".join(rows)
 
@@ -192,12 +250,19 @@ def main() -> None:
     """Parse the options, run, record and print."""
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--repeat", type=int, default=3, help="timed rounds (default 3)")
-    ap.add_argument("--work", type=Path, default=Path("bench_cli_work"),
-                    help="folder for the generated inputs (kept for the next run)")
+    ap.add_argument(
+        "--work",
+        type=Path,
+        default=Path("bench_cli_work"),
+        help="folder for the generated inputs (kept for the next run)",
+    )
     ap.add_argument("--inputs", default=",".join(INPUTS), help="comma-separated inputs")
     ap.add_argument("--markdown", action="store_true", help="print the recorded table only")
-    ap.add_argument("--no-warm-builds", action="store_true",
-                    help="skip the untimed first run of the builds (caches already warm)")
+    ap.add_argument(
+        "--no-warm-builds",
+        action="store_true",
+        help="skip the untimed first run of the builds (caches already warm)",
+    )
     args = ap.parse_args()
     out = RESULTS / "cli.json"
     if not args.markdown:

@@ -43,10 +43,15 @@ def main() -> None:
     for i in range(args.runs):
         a, b = (nodes[j] for j in rng.choice(len(nodes), 2, replace=False))
         pairs.append((a, b))
-        runs.append(planning.RunSpec(
-            name=f"run-{i + 1:02d}", earliest=6 * 60, latest=18 * 60,
-            start=(G.nodes[a]["lat"], G.nodes[a]["lon"]),
-            end=(G.nodes[b]["lat"], G.nodes[b]["lon"])))
+        runs.append(
+            planning.RunSpec(
+                name=f"run-{i + 1:02d}",
+                earliest=6 * 60,
+                latest=18 * 60,
+                start=(G.nodes[a]["lat"], G.nodes[a]["lon"]),
+                end=(G.nodes[b]["lat"], G.nodes[b]["lon"]),
+            )
+        )
     date = dt.date(2027, 3, 9)
     t0 = time.perf_counter()
     plan = dayplan.plan_day(net, runs, date, vehicles=2, step_min=15)
@@ -56,22 +61,33 @@ def main() -> None:
     tz = net.timezone
     for a, b in pairs:
         path = nx.shortest_path(G, a, b, weight="travel_time")
-        keys = [(u, v, min(G[u][v], key=lambda k: G[u][v][k]["travel_time"]))
-                for u, v in zip(path[:-1], path[1:], strict=True)]
+        keys = [
+            (u, v, min(G[u][v], key=lambda k: G[u][v][k]["travel_time"]))
+            for u, v in zip(path[:-1], path[1:], strict=True)
+        ]
         rows = net.edges.loc[keys]
         for t in range(6 * 60, 18 * 60, 15):
             when = dt.datetime.combine(date, dt.time(0), tzinfo=tz) + dt.timedelta(minutes=t)
             edge_risk_parts(rows, net.profile, minute_of_week(when)).total.sum()
     t_base = time.perf_counter() - t0
     d = plan.to_dict()
-    result = {"runs": args.runs, "vehicles": 2, "step_min": 15, "status": d["status"],
-              "placed": len(d["runs"]), "seconds_plan": t_plan,
-              "seconds_baseline_scoring_only": t_base, "ratio": t_plan / t_base}
+    result = {
+        "runs": args.runs,
+        "vehicles": 2,
+        "step_min": 15,
+        "status": d["status"],
+        "placed": len(d["runs"]),
+        "seconds_plan": t_plan,
+        "seconds_baseline_scoring_only": t_base,
+        "ratio": t_plan / t_base,
+    }
     print(f"{'stage':44s} {'seconds':>8s}")
     print(f"{'routerisk plan (score + alternatives + solve)':44s} {t_plan:8.2f}")
     print(f"{'baseline: networkx paths + pandas scoring':44s} {t_base:8.2f}")
-    print(f"status {d['status']}, {len(d['runs'])} of {args.runs} runs placed, ratio "
-          f"{t_plan / t_base:.2f}")
+    print(
+        f"status {d['status']}, {len(d['runs'])} of {args.runs} runs placed, ratio "
+        f"{t_plan / t_base:.2f}"
+    )
     out = HERE / "results"
     out.mkdir(exist_ok=True)
     (out / f"plan_{args.runs}.json").write_text(json.dumps(result, indent=2, sort_keys=True))

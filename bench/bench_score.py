@@ -69,22 +69,32 @@ def main() -> None:
         keys = []
         for a, b in zip(nl[:-1], nl[1:], strict=True):
             p = nx.shortest_path(G, a, b, weight="travel_time")
-            keys += [(u, v, min(G[u][v], key=lambda k: G[u][v][k]["travel_time"]))
-                     for u, v in zip(p[:-1], p[1:], strict=True)]
+            keys += [
+                (u, v, min(G[u][v], key=lambda k: G[u][v][k]["travel_time"]))
+                for u, v in zip(p[:-1], p[1:], strict=True)
+            ]
         edge_risk_parts(net.edges.loc[keys], net.profile, m)["total"].sum()
     t_base = time.perf_counter() - t0
     km = float(np.mean([s.length_km for s in scores]))
-    res = {"edges": len(net.edges), "routes": len(scores), "mean_km": km,
-           "seconds_routerisk": t_ours, "seconds_networkx_baseline": t_base,
-           "ratio": t_ours / t_base}
+    res = {
+        "edges": len(net.edges),
+        "routes": len(scores),
+        "mean_km": km,
+        "seconds_routerisk": t_ours,
+        "seconds_networkx_baseline": t_base,
+        "ratio": t_ours / t_base,
+    }
     print(f"{'stage':40s} {'seconds':>8s}")
     print(f"{'routerisk join + score':40s} {t_ours:8.2f}")
     print(f"{'networkx paths + pandas (baseline)':40s} {t_base:8.2f}")
-    print(f"{len(scores)} routes, mean {km:.1f} km, {len(net.edges)} edges, ratio "
-          f"{t_ours / t_base:.2f}")
+    print(
+        f"{len(scores)} routes, mean {km:.1f} km, {len(net.edges)} edges, ratio "
+        f"{t_ours / t_base:.2f}"
+    )
     (HERE / "results").mkdir(exist_ok=True)
     (HERE / "results" / f"score_{args.edges}.json").write_text(
-        json.dumps(res, indent=2, sort_keys=True))
+        json.dumps(res, indent=2, sort_keys=True)
+    )
 
 
 if __name__ == "__main__":

@@ -40,8 +40,9 @@ def _routes(net, n: int, seed: int = 2) -> list[list[list[float]]]:
                 break
             pick.append(int(rng.choice(near)))
         if len(pick) == 4:
-            out.append([[float(g.nodes[nodes[i]]["lon"]), float(g.nodes[nodes[i]]["lat"])]
-                        for i in pick])
+            out.append(
+                [[float(g.nodes[nodes[i]]["lon"]), float(g.nodes[nodes[i]]["lat"])] for i in pick]
+            )
     return out
 
 
@@ -88,9 +89,12 @@ def main() -> None:
                 for i in range(3):
                     t = time.perf_counter()
                     s.goto(f"{server.url}?visit={i}")  # a new document each time
-                    s.wait(f"location.search === '?visit={i}' && typeof S !== 'undefined' "
-                           "&& S.networkShown > 0 && new Promise(r => "
-                           "requestAnimationFrame(() => r(true)))", timeout=60)
+                    s.wait(
+                        f"location.search === '?visit={i}' && typeof S !== 'undefined' "
+                        "&& S.networkShown > 0 && new Promise(r => "
+                        "requestAnimationFrame(() => r(true)))",
+                        timeout=60,
+                    )
                     paints.append(time.perf_counter() - t)
                 res["first_paint_median_s"] = round(statistics.median(paints), 3)
                 res["first_paint_segments"] = s.js("S.networkShown")

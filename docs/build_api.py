@@ -18,8 +18,9 @@ def build(out: Path) -> list[Path]:
     import pdoc
     import pdoc.render
 
-    pdoc.render.configure(docformat="numpy", footer_text="routerisk API reference",
-                          search=False, show_source=False)
+    pdoc.render.configure(
+        docformat="numpy", footer_text="routerisk API reference", search=False, show_source=False
+    )
     out.mkdir(parents=True, exist_ok=True)
     pdoc.pdoc(*MODULES, output_directory=out)
     return sorted(out.rglob("*.html"))

@@ -38,8 +38,18 @@ CAUTION = (
 
 #: The top-level functions, each imported from routerisk.api on first use.
 _API = (
-    "build_network", "load_network", "read_routes", "read_drives", "read_events", "read_areas",
-    "read_runs", "score_routes", "suggest_routes", "review_areas", "plan_day", "plan_evidence",
+    "build_network",
+    "load_network",
+    "read_routes",
+    "read_drives",
+    "read_events",
+    "read_areas",
+    "read_runs",
+    "score_routes",
+    "suggest_routes",
+    "review_areas",
+    "plan_day",
+    "plan_evidence",
     "watch_events",
 )
 #: Light modules reachable as attributes (``rr.datasets.get_path("town")``).

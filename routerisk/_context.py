@@ -49,8 +49,9 @@ def context_from_raw(raw: Any, *, crs: Any) -> gpd.GeoDataFrame:
         return empty(crs)
     gdf = gpd.GeoDataFrame(rows, columns=COLUMNS[:-1], geometry=geoms, crs="EPSG:4326")
     gdf = gdf.to_crs(crs)
-    gdf["geometry"] = shapely.simplify(gdf.geometry.to_numpy(), BUILD_TOLERANCE_M,
-                                       preserve_topology=True)
+    gdf["geometry"] = shapely.simplify(
+        gdf.geometry.to_numpy(), BUILD_TOLERANCE_M, preserve_topology=True
+    )
     gdf = gdf[~gdf.geometry.is_empty & gdf.geometry.is_valid]
     order = np.lexsort((gdf["osmid"].to_numpy(), [KINDS.index(k) for k in gdf["kind"]]))
     return gdf.iloc[order].reset_index(drop=True)
@@ -59,13 +60,22 @@ def context_from_raw(raw: Any, *, crs: Any) -> gpd.GeoDataFrame:
 def from_edges(edges: gpd.GeoDataFrame) -> gpd.GeoDataFrame:
     """Return the streets of a network's edges as context (for folders without the layer)."""
     e = edges.reset_index()
-    key = np.where(e["u"].to_numpy() < e["v"].to_numpy(),
-                   e["u"].astype(str) + "-" + e["v"].astype(str),
-                   e["v"].astype(str) + "-" + e["u"].astype(str))
+    key = np.where(
+        e["u"].to_numpy() < e["v"].to_numpy(),
+        e["u"].astype(str) + "-" + e["v"].astype(str),
+        e["v"].astype(str) + "-" + e["u"].astype(str),
+    )
     e = e.loc[~_repeated(key)]
-    return gpd.GeoDataFrame({"kind": "street", "osmid": 0, "name": e["name"].fillna("")
-                             .astype(str).to_numpy(), "highway": e["highway"].astype(str)
-                             .to_numpy()}, geometry=e.geometry.to_numpy(), crs=edges.crs)
+    return gpd.GeoDataFrame(
+        {
+            "kind": "street",
+            "osmid": 0,
+            "name": e["name"].fillna("").astype(str).to_numpy(),
+            "highway": e["highway"].astype(str).to_numpy(),
+        },
+        geometry=e.geometry.to_numpy(),
+        crs=edges.crs,
+    )
 
 
 def _repeated(values: np.ndarray) -> np.ndarray:
@@ -76,8 +86,13 @@ def _repeated(values: np.ndarray) -> np.ndarray:
     return mask
 
 
-def for_view(net: Any, bounds: tuple[float, float, float, float], *, pad: float = 0.15,
-             tolerance_m: float = 3.0) -> gpd.GeoDataFrame:
+def for_view(
+    net: Any,
+    bounds: tuple[float, float, float, float],
+    *,
+    pad: float = 0.15,
+    tolerance_m: float = 3.0,
+) -> gpd.GeoDataFrame:
     """Return the context inside ``bounds`` (west, south, east, north degrees), in EPSG:4326.
 
     The box is widened by ``pad`` of its size on each side; shapes are clipped to it,

@@ -42,11 +42,9 @@ def check_target(path: str | Path, *, force: bool, folder: bool | None = None) -
     target = Path(path)
     if target.exists() or target.is_symlink():
         if folder is True and not target.is_dir():
-            raise OutputExistsError("is a file; give a folder name for this output",
-                                    path=target)
+            raise OutputExistsError("is a file; give a folder name for this output", path=target)
         if folder is False and target.is_dir():
-            raise OutputExistsError("is a folder; give a file name for this output",
-                                    path=target)
+            raise OutputExistsError("is a folder; give a file name for this output", path=target)
         if not force:
             raise OutputExistsError("already exists; pass --force to replace it", path=target)
     for parent in target.parents:
@@ -61,8 +59,7 @@ def _mkdir_parent(target: Path) -> None:
     try:
         target.parent.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
-        raise OutputError(f"cannot create the folder ({exc.strerror})",
-                          path=target.parent) from exc
+        raise OutputError(f"cannot create the folder ({exc.strerror})", path=target.parent) from exc
 
 
 def write_text_atomic(path: str | Path, text: str, *, force: bool = True) -> Path:
@@ -79,8 +76,7 @@ def write_bytes_atomic(path: str | Path, data: bytes, *, force: bool = True) -> 
     target = check_target(path, force=force, folder=False)
     _mkdir_parent(target)
     try:
-        fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part",
-                                   dir=target.parent)
+        fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent)
     except OSError as exc:
         raise OutputError(f"cannot be written ({exc.strerror})", path=target) from exc
     try:
@@ -119,8 +115,7 @@ def _renameat2() -> Any:
         fn = libc.renameat2
     except (OSError, AttributeError):  # not glibc >= 2.28, or not Linux
         return None
-    fn.argtypes = [ctypes.c_int, ctypes.c_char_p, ctypes.c_int, ctypes.c_char_p,
-                   ctypes.c_uint]
+    fn.argtypes = [ctypes.c_int, ctypes.c_char_p, ctypes.c_int, ctypes.c_char_p, ctypes.c_uint]
     fn.restype = ctypes.c_int
     return fn
 
@@ -159,8 +154,7 @@ def atomic_directory(path: str | Path, *, force: bool = False) -> Iterator[Path]
     target = check_target(path, force=force, folder=True)
     _mkdir_parent(target)
     try:
-        tmp = Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".part",
-                                    dir=target.parent))
+        tmp = Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent))
     except OSError as exc:
         raise OutputError(f"cannot be written ({exc.strerror})", path=target) from exc
     os.chmod(tmp, _umask_mode(0o777))
@@ -209,8 +203,9 @@ def file_record(path: str | Path) -> dict[str, Any]:
     return {"name": p.name, "sha256": sha256_file(p)}
 
 
-def provenance(*, profile: str | None, network: Any = None,
-               inputs: dict[str, str | Path | None] | None = None) -> dict[str, Any]:
+def provenance(
+    *, profile: str | None, network: Any = None, inputs: dict[str, str | Path | None] | None = None
+) -> dict[str, Any]:
     """Return what every output records: tool version, profile fingerprint, input checksums.
 
     Parameters
@@ -227,8 +222,10 @@ def provenance(*, profile: str | None, network: Any = None,
     recs: dict[str, Any] = {}
     if network is not None:
         meta = network.meta
-        recs["network_source"] = {"name": meta.get("source_name"),
-                                  "sha256": meta.get("source_sha256")}
+        recs["network_source"] = {
+            "name": meta.get("source_name"),
+            "sha256": meta.get("source_sha256"),
+        }
         if meta.get("overlay_sha256"):
             recs["overlay"] = {"sha256": meta["overlay_sha256"]}
     for role, path in (inputs or {}).items():
@@ -239,7 +236,10 @@ def provenance(*, profile: str | None, network: Any = None,
 
 def provenance_line(prov: dict[str, Any]) -> str:
     """Return the provenance as one line of text (for CSV comments and captions)."""
-    ins = "; ".join(f"{role} {r.get('name') or ''} sha256 {r.get('sha256')}".replace("  ", " ")
-                    for role, r in sorted(prov["inputs"].items()))
-    return (f"routerisk {prov['routerisk_version']}; profile {prov['profile']}"
-            + (f"; inputs: {ins}" if ins else ""))
+    ins = "; ".join(
+        f"{role} {r.get('name') or ''} sha256 {r.get('sha256')}".replace("  ", " ")
+        for role, r in sorted(prov["inputs"].items())
+    )
+    return f"routerisk {prov['routerisk_version']}; profile {prov['profile']}" + (
+        f"; inputs: {ins}" if ins else ""
+    )

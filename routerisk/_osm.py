@@ -53,17 +53,32 @@ _LAT_MAX = 90 * _PRECISION
 # osmium's coordinate of an undefined location: a way node reference whose node is not in
 # the file (a clipped extract), or a node written without coordinates.
 _UNDEFINED = 2**31 - 1
-WAY_KEYS = ("highway", "name", "lanes", "maxspeed", "oneway", "junction", "sidewalk", "ref",
-            "hazard", "maxspeed:conditional", "access")
+WAY_KEYS = (
+    "highway",
+    "name",
+    "lanes",
+    "maxspeed",
+    "oneway",
+    "junction",
+    "sidewalk",
+    "ref",
+    "hazard",
+    "maxspeed:conditional",
+    "access",
+)
 
 
 # Ways drawn as the light background of maps (streets, water, parks, buildings), by tag.
-_WATER = {"natural": {"water"}, "waterway": {"riverbank", "river", "canal", "stream", "dock"},
-          "landuse": {"reservoir", "basin"}}
-_PARK = {"leisure": {"park", "garden", "playground", "pitch", "common", "nature_reserve"},
-         "landuse": {"grass", "forest", "meadow", "recreation_ground", "village_green",
-                     "cemetery"},
-         "natural": {"wood", "scrub", "grassland"}}
+_WATER = {
+    "natural": {"water"},
+    "waterway": {"riverbank", "river", "canal", "stream", "dock"},
+    "landuse": {"reservoir", "basin"},
+}
+_PARK = {
+    "leisure": {"park", "garden", "playground", "pitch", "common", "nature_reserve"},
+    "landuse": {"grass", "forest", "meadow", "recreation_ground", "village_green", "cemetery"},
+    "natural": {"wood", "scrub", "grassland"},
+}
 
 
 def context_kind(tags: Mapping[str, str]) -> str | None:
@@ -189,7 +204,9 @@ def _check_unique(p: Path, ids: dict[str, array]) -> None:
         raise InputFileError(
             f"duplicate id: the file holds this object more than once ({repeated} repeated "
             f"id{'s' if repeated != 1 else ''} in all); an OSM file holds each object once",
-            path=p, field=", ".join(firsts))
+            path=p,
+            field=", ".join(firsts),
+        )
 
 
 def _osmium_file(p: Path) -> osmium.io.File:
@@ -203,9 +220,13 @@ def _osmium_file(p: Path) -> osmium.io.File:
 class _Collect:
     """What one pass over an OSM file keeps: drivable ways, features, crossings, context."""
 
-    def __init__(self, p: Path, want: Callable[[Mapping[str, str]], bool],
-                 member_ways: dict[int, list[tuple[int, str]]],
-                 rel_parts: dict[int, RawFeature]) -> None:
+    def __init__(
+        self,
+        p: Path,
+        want: Callable[[Mapping[str, str]], bool],
+        member_ways: dict[int, list[tuple[int, str]]],
+        rel_parts: dict[int, RawFeature],
+    ) -> None:
         self.p, self.want = p, want
         self.member_ways, self.rel_parts = member_ways, rel_parts
         self.ways: list[RawWay] = []
@@ -228,8 +249,9 @@ class _Collect:
             self.signals.add(obj.id)
         if self.want(tags):
             loc = self._location(obj)
-            self.features.append(RawFeature("node", obj.id, dict(tags),
-                                            [np.array([[loc.lon, loc.lat]])]))
+            self.features.append(
+                RawFeature("node", obj.id, dict(tags), [np.array([[loc.lon, loc.lat]])])
+            )
 
     def _location(self, obj: Any) -> Any:
         loc = obj.location
@@ -258,8 +280,7 @@ class _Collect:
         if wanted and runs:
             self.features.append(RawFeature("way", obj.id, dict(tags), runs))
         if ctx and runs:
-            self.context.append((ctx, obj.id, tags.get("name", ""), tags.get("highway", ""),
-                                 runs))
+            self.context.append((ctx, obj.id, tags.get("name", ""), tags.get("highway", ""), runs))
         if members:
             parts = [coords[r] for r in _runs(ok) if len(r) >= 2]
             for rid, role in members:
@@ -287,8 +308,9 @@ class _Collect:
         return refs, coords, ok
 
 
-def _relations(p: Path, want: Callable[[Mapping[str, str]], bool], rel_ids: Callable[[int], None]
-               ) -> tuple[dict[int, list[tuple[int, str]]], dict[int, RawFeature]]:
+def _relations(
+    p: Path, want: Callable[[Mapping[str, str]], bool], rel_ids: Callable[[int], None]
+) -> tuple[dict[int, list[tuple[int, str]]], dict[int, RawFeature]]:
     """Pass 1 (relations only): which ways are members of wanted multipolygons."""
     member_ways: dict[int, list[tuple[int, str]]] = {}
     rel_tags: dict[int, dict[str, str]] = {}
@@ -330,8 +352,12 @@ def read_osm(
         box = header.box()
         bounds = None
         if box.valid():
-            bounds = (box.bottom_left.lon, box.bottom_left.lat, box.top_right.lon,
-                      box.top_right.lat)
+            bounds = (
+                box.bottom_left.lon,
+                box.bottom_left.lat,
+                box.top_right.lon,
+                box.top_right.lat,
+            )
         timestamp = header.get("osmosis_replication_timestamp") or header.get("timestamp") or None
         for obj in fp:
             if obj.is_node():
@@ -344,18 +370,34 @@ def read_osm(
     except osmium.InvalidLocationError as exc:
         # the parser refuses a coordinate it cannot read (nan, inf, 1e3, beyond +-214.7)
         msg = str(exc).strip().splitlines()[0] if str(exc).strip() else "invalid location"
-        raise InputFileError(f"{msg}; coordinates must be decimal degrees within -90..90 "
-                             "latitude and -180..180 longitude", path=p,
-                             field="node coordinates") from exc
+        raise InputFileError(
+            f"{msg}; coordinates must be decimal degrees within -90..90 "
+            "latitude and -180..180 longitude",
+            path=p,
+            field="node coordinates",
+        ) from exc
     except RuntimeError as exc:
         msg = str(exc).strip().splitlines()[0] if str(exc).strip() else "unreadable"
         raise InputFileError(f"cannot read as OSM data ({msg})", path=p) from exc
     _check_unique(p, ids)
     if got.missing:
-        log.info("%s: %d way node references point to nodes not in the file (clipped "
-                 "extract); kept the runs of nodes that exist", p, got.missing)
-    return RawOSM(str(p), got.ways, got.features, got.crossings, got.signals, bounds,
-                  got.missing, timestamp, got.context)
+        log.info(
+            "%s: %d way node references point to nodes not in the file (clipped "
+            "extract); kept the runs of nodes that exist",
+            p,
+            got.missing,
+        )
+    return RawOSM(
+        str(p),
+        got.ways,
+        got.features,
+        got.crossings,
+        got.signals,
+        bounds,
+        got.missing,
+        timestamp,
+        got.context,
+    )
 
 
 def _runs(ok: np.ndarray) -> list[np.ndarray]:

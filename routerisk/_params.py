@@ -36,5 +36,3 @@ def parameters(names: Mapping[str, str] | None = None) -> Iterator[None]:
         if new_field == field and message == exc.message:
             raise
         raise type(exc)(message, path=exc.path, field=new_field) from exc
-
-

@@ -77,8 +77,9 @@ class RawEdges:
 EARTH_RADIUS_M = 6_371_009
 
 
-def great_circle(lat1: np.ndarray, lon1: np.ndarray, lat2: np.ndarray, lon2: np.ndarray
-                 ) -> np.ndarray:
+def great_circle(
+    lat1: np.ndarray, lon1: np.ndarray, lat2: np.ndarray, lon2: np.ndarray
+) -> np.ndarray:
     """Return ``osmnx.distance.great_circle`` (haversine, metres) in the same operations.
 
     Written out here because importing osmnx (and through it matplotlib.pyplot) costs more
@@ -111,8 +112,12 @@ def raw_edges(raw: RawOSM) -> RawEdges:
         ow = ow_tag in _ONEWAY or tags.get("junction") == "roundabout"
         r = bool(ow and ow_tag in _REVERSED)
         oneway[i], rev[i] = ow, r
-        base: dict[str, Any] = {"osmid": w.osmid, "highway": tags.get("highway"),
-                                "oneway": bool(ow), "reversed": r}
+        base: dict[str, Any] = {
+            "osmid": w.osmid,
+            "highway": tags.get("highway"),
+            "oneway": bool(ow),
+            "reversed": r,
+        }
         for key in EDGE_TAGS:
             if key in tags:
                 base[key] = tags[key]
@@ -275,10 +280,18 @@ def simplify(re: RawEdges, *, simplify: bool = True) -> SimpleGraph:
         tmap = np.full(len(re.groups), -1, dtype=np.int64)
         tmap[np.unique(re.group)] = tmpl
         srt = np.lexsort((key, slot, src))
-        return SimpleGraph(n, src[srt], dst[srt], key[srt], re.length[srt],
-                           tmap[re.group[srt]], templates,
-                           np.column_stack([src[srt], dst[srt]]).ravel(),
-                           np.arange(0, 2 * m + 1, 2), False)
+        return SimpleGraph(
+            n,
+            src[srt],
+            dst[srt],
+            key[srt],
+            re.length[srt],
+            tmap[re.group[srt]],
+            templates,
+            np.column_stack([src[srt], dst[srt]]).ravel(),
+            np.arange(0, 2 * m + 1, 2),
+            False,
+        )
 
     endpoint = _endpoints(n, src, dst)
     inter = ~endpoint
@@ -331,7 +344,7 @@ def simplify(re: RawEdges, *, simplify: bool = True) -> SimpleGraph:
         ptmpl[i] = template_of(int(g_first[i]), True)
     mixed = np.flatnonzero(~same)
     for i in mixed:
-        es = pe_sorted[starts[i]:starts[i] + path_len[i]]
+        es = pe_sorted[starts[i] : starts[i] + path_len[i]]
         merged = _merge_attrs([{"length": None, **re.groups[g]} for g in re.group[es]])
         merged["geometry"] = None
         ptmpl[i] = len(templates)
@@ -352,7 +365,8 @@ def simplify(re: RawEdges, *, simplify: bool = True) -> SimpleGraph:
     kpair = pair[ke]
     kp_sorted = np.sort(kpair)
     n_raw = np.searchsorted(kp_sorted, ppair, side="right") - np.searchsorted(
-        kp_sorted, ppair, side="left")
+        kp_sorted, ppair, side="left"
+    )
     p_order = np.lexsort((roots, ppair))
     pp = ppair[p_order]
     phead = np.ones(n_paths, dtype=bool)
@@ -389,14 +403,22 @@ def _take_edges(u, v, k, length, tmpl, flat, counts, sel):
     c = counts[sel]
     starts = off[:-1][sel]
     idx = np.repeat(starts - np.concatenate([[0], np.cumsum(c)[:-1]]), c) + np.arange(c.sum())
-    return (u[sel], v[sel], k[sel], length[sel], tmpl[sel], flat[idx],
-            np.concatenate([[0], np.cumsum(c)]))
+    return (
+        u[sel],
+        v[sel],
+        k[sel],
+        length[sel],
+        tmpl[sel],
+        flat[idx],
+        np.concatenate([[0], np.cumsum(c)]),
+    )
 
 
 def _subset(g: SimpleGraph, sel: np.ndarray) -> SimpleGraph:
     counts = np.diff(g.path_offsets)
-    u, v, k, length, tmpl, flat, off = _take_edges(g.u, g.v, g.key, g.length, g.template,
-                                                   g.path_nodes, counts, sel)
+    u, v, k, length, tmpl, flat, off = _take_edges(
+        g.u, g.v, g.key, g.length, g.template, g.path_nodes, counts, sel
+    )
     return SimpleGraph(g.n_nodes, u, v, k, length, tmpl, g.templates, flat, off, g.simplified)
 
 
@@ -416,8 +438,9 @@ def _remove_rings(g: SimpleGraph) -> SimpleGraph:
     return _subset(g, np.flatnonzero(ok))
 
 
-def largest_strong_part(g: SimpleGraph, nodes_in_graph: np.ndarray,
-                        node_ids: np.ndarray | None = None) -> SimpleGraph:
+def largest_strong_part(
+    g: SimpleGraph, nodes_in_graph: np.ndarray, node_ids: np.ndarray | None = None
+) -> SimpleGraph:
     """Keep the largest strongly connected part, in osmnx's node and edge order.
 
     ``nodes_in_graph`` are the node positions of the graph in its order (nodes without
@@ -448,8 +471,9 @@ def largest_strong_part(g: SimpleGraph, nodes_in_graph: np.ndarray,
     return _subset(g, np.flatnonzero(ok))
 
 
-def _networkx_part_order(g: SimpleGraph, nodes_in_graph: np.ndarray, node_ids: np.ndarray
-                         ) -> np.ndarray:
+def _networkx_part_order(
+    g: SimpleGraph, nodes_in_graph: np.ndarray, node_ids: np.ndarray
+) -> np.ndarray:
     """Return the edge positions of osmnx's largest strong part, in its edge order."""
     bare = nx.MultiDiGraph()
     bare.add_nodes_from(node_ids[nodes_in_graph].tolist())
@@ -458,8 +482,9 @@ def _networkx_part_order(g: SimpleGraph, nodes_in_graph: np.ndarray, node_ids: n
     largest = max(nx.strongly_connected_components(bare), key=len)
     kept = nx.MultiDiGraph(bare.subgraph(largest))
     where = {e: i for i, e in enumerate(zip(uid, vid, keys, strict=True))}
-    return np.fromiter((where[e] for e in kept.edges(keys=True)), dtype=np.int64,
-                       count=kept.number_of_edges())
+    return np.fromiter(
+        (where[e] for e in kept.edges(keys=True)), dtype=np.int64, count=kept.number_of_edges()
+    )
 
 
 def isolated_nodes(re: RawEdges) -> np.ndarray:
@@ -501,8 +526,9 @@ def _normalise_all(templates: list[dict[str, Any]]) -> list[dict[str, Any]]:
             d = cache[key] = _normalise(t)
         if "osmid" in t:
             d = dict(d)
-            d["osmid"] = min(int(x) for x in t["osmid"]) if isinstance(t["osmid"], list) \
-                else t["osmid"]
+            d["osmid"] = (
+                min(int(x) for x in t["osmid"]) if isinstance(t["osmid"], list) else t["osmid"]
+            )
         out.append(d)
     return out
 
@@ -550,8 +576,7 @@ def _column(values: list[Any], tmpl: np.ndarray) -> Any:
     return pd.array(col, dtype=dtype)
 
 
-def _edge_speeds(norm: list[dict[str, Any]], used: np.ndarray, template: np.ndarray
-                 ) -> np.ndarray:
+def _edge_speeds(norm: list[dict[str, Any]], used: np.ndarray, template: np.ndarray) -> np.ndarray:
     """Return each edge's speed in km/h as osmnx's add_edge_speeds gives it.
 
     A parsed ``maxspeed`` where the edge has one, else the mean of its class's observed
@@ -567,8 +592,7 @@ def _edge_speeds(norm: list[dict[str, Any]], used: np.ndarray, template: np.ndar
     edge_ms = np.asarray(tm_ms, dtype=float)[template]
     classes = sorted(hw_codes, key=hw_codes.get)
     observed = {c for c in classes if np.isfinite(edge_ms[edge_hw == hw_codes[c]]).any()}
-    hwy = {c: loader.DEFAULT_CLASS_KPH.get(c, loader.FALLBACK_KPH)
-           for c in set(classes) - observed}
+    hwy = {c: loader.DEFAULT_CLASS_KPH.get(c, loader.FALLBACK_KPH) for c in set(classes) - observed}
     avg: dict[str, float] = dict(pd.Series(hwy, dtype=float).dropna()) if hwy else {}
     for c in classes:
         if c not in avg:
@@ -578,8 +602,9 @@ def _edge_speeds(norm: list[dict[str, Any]], used: np.ndarray, template: np.ndar
     return speed
 
 
-def build_frames(raw: RawOSM, *, largest_component: bool = True,
-                 simplify_graph: bool = True) -> Frames:
+def build_frames(
+    raw: RawOSM, *, largest_component: bool = True, simplify_graph: bool = True
+) -> Frames:
     """Return nodes and edges GeoDataFrames of the projected drivable graph of ``raw``.
 
     Raises
@@ -659,8 +684,9 @@ def build_frames(raw: RawOSM, *, largest_component: bool = True,
     idx = np.concatenate([[0], np.cumsum(counts[final])])
     take = np.repeat(g.path_offsets[:-1][final] - idx[:-1], counts[final]) + np.arange(idx[-1])
     pn = g.path_nodes[take]
-    geoms = shapely.linestrings(np.column_stack([px[pn], py[pn]]),
-                                indices=np.repeat(np.arange(len(final)), counts[final]))
+    geoms = shapely.linestrings(
+        np.column_stack([px[pn], py[pn]]), indices=np.repeat(np.arange(len(final)), counts[final])
+    )
     data: dict[str, Any] = {}
     for c in cols:
         if c == "length":
@@ -674,15 +700,16 @@ def build_frames(raw: RawOSM, *, largest_component: bool = True,
         else:
             data[c] = _column(tvals[c], tmpl_final)
     index = pd.MultiIndex.from_arrays(
-        [re.node_ids[g.u[final]], re.node_ids[g.v[final]], g.key[final]],
-        names=["u", "v", "key"])
+        [re.node_ids[g.u[final]], re.node_ids[g.v[final]], g.key[final]], names=["u", "v", "key"]
+    )
     crs_str = crs.to_string()
     edges = gpd.GeoDataFrame(data, index=index, geometry="geometry", crs=crs_str)
     nodes = gpd.GeoDataFrame(
-        {"x": px[node_pos], "y": py[node_pos], "lon": re.lon[node_pos],
-         "lat": re.lat[node_pos]},
+        {"x": px[node_pos], "y": py[node_pos], "lon": re.lon[node_pos], "lat": re.lat[node_pos]},
         index=pd.Index(re.node_ids[node_pos], name="osmid"),
-        geometry=shapely.points(px[node_pos], py[node_pos]), crs=crs_str)
+        geometry=shapely.points(px[node_pos], py[node_pos]),
+        crs=crs_str,
+    )
     attrs: dict[str, Any] = {"crs": crs_str, "created_with": "routerisk"}
     if g.simplified:
         attrs["simplified"] = True
@@ -713,6 +740,7 @@ def graph_from_frames(fr: Frames) -> nx.MultiDiGraph:
     if len(full) == len(cols):
         rows: Any = (dict(zip(cols, vals, strict=True)) for vals in zip(*lists, strict=True))
     else:
+
         def gen() -> Any:
             spec = list(zip(cols, lists, masks, strict=True))
             for i in range(len(u)):
@@ -726,8 +754,9 @@ def graph_from_frames(fr: Frames) -> nx.MultiDiGraph:
     return G
 
 
-def graph_from_gdfs(nodes: gpd.GeoDataFrame, edges: gpd.GeoDataFrame, *,
-                    graph_attrs: dict[str, Any]) -> nx.MultiDiGraph:
+def graph_from_gdfs(
+    nodes: gpd.GeoDataFrame, edges: gpd.GeoDataFrame, *, graph_attrs: dict[str, Any]
+) -> nx.MultiDiGraph:
     """Return ``osmnx.convert.graph_from_gdfs(nodes, edges, graph_attrs=...)``, column-wise.
 
     The same nodes and edges in the same order with the same attribute dicts (null values
@@ -757,10 +786,21 @@ def graph_from_gdfs(nodes: gpd.GeoDataFrame, edges: gpd.GeoDataFrame, *,
         pats, inv = np.unique(bits, return_inverse=True)
         keep = []
         for pat in pats.tolist():
-            js = [j for j in range(len(cols)) if masks[j] is None or (
-                pat_cols and j in pat_cols and pat >> pat_cols.index(j) & 1)]
-            keep.append((tuple(cols[j] for j in js), operator.itemgetter(*js) if len(js) > 1
-                         else (lambda row, j=js[0]: (row[j],)) if js else (lambda row: ())))
+            js = [
+                j
+                for j in range(len(cols))
+                if masks[j] is None or (pat_cols and j in pat_cols and pat >> pat_cols.index(j) & 1)
+            ]
+            keep.append(
+                (
+                    tuple(cols[j] for j in js),
+                    operator.itemgetter(*js)
+                    if len(js) > 1
+                    else (lambda row, j=js[0]: (row[j],))
+                    if js
+                    else (lambda row: ()),
+                )
+            )
         inv_l = inv.tolist()
 
     def rows() -> Any:
@@ -769,8 +809,9 @@ def graph_from_gdfs(nodes: gpd.GeoDataFrame, edges: gpd.GeoDataFrame, *,
             return
         if not pat_cols:  # pragma: no cover
             for i in range(len(u)):
-                yield {c: lists[j][i] for j, c in enumerate(cols)
-                       if masks[j] is None or masks[j][i]}
+                yield {
+                    c: lists[j][i] for j, c in enumerate(cols) if masks[j] is None or masks[j][i]
+                }
             return
         for i, vals in enumerate(zip(*lists, strict=True)):
             names, get = keep[inv_l[i]]
@@ -780,8 +821,11 @@ def graph_from_gdfs(nodes: gpd.GeoDataFrame, edges: gpd.GeoDataFrame, *,
     for a, b, key, d in zip(u, v, k, rows(), strict=False):
         add(a, b, key, **d)
     G.add_nodes_from(set(nodes.index) - set(G.nodes))
-    df = nodes.drop(columns=nodes.active_geometry_name) if (
-        nodes.active_geometry_name is not None) else pd.DataFrame(nodes)
+    df = (
+        nodes.drop(columns=nodes.active_geometry_name)
+        if (nodes.active_geometry_name is not None)
+        else pd.DataFrame(nodes)
+    )
     for col in df.columns:
         nx.set_node_attributes(G, values=df[col].dropna().to_dict(), name=col)
     return G

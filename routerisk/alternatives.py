@@ -76,16 +76,18 @@ class Alternative:
         """Return the JSON form of ``routerisk suggest``."""
         d = self.score.to_dict()
         d.pop("name")
-        d.update({
-            "label": self.label,
-            "risk_change_pct": round(self.risk_change_pct, 3),
-            "time_change_pct": round(self.time_change_pct, 3),
-            "length_change_pct": round(self.length_change_pct, 3),
-            "shared_length_with_plan": round(self.overlap_with_plan, 4),
-            "within_bounds": self.within_bounds,
-            "bounds_broken": list(self.bounds_broken),
-            "caveats": list(self.caveats),
-        })
+        d.update(
+            {
+                "label": self.label,
+                "risk_change_pct": round(self.risk_change_pct, 3),
+                "time_change_pct": round(self.time_change_pct, 3),
+                "length_change_pct": round(self.length_change_pct, 3),
+                "shared_length_with_plan": round(self.overlap_with_plan, 4),
+                "within_bounds": self.within_bounds,
+                "bounds_broken": list(self.bounds_broken),
+                "caveats": list(self.caveats),
+            }
+        )
         return d
 
 
@@ -109,11 +111,16 @@ class Suggestion:
 
     def to_dict(self) -> dict[str, Any]:
         """Return the JSON form of one route of ``routerisk suggest``."""
-        return {"name": self.name, "planned": self.planned.to_dict(),
-                "alternatives": [a.to_dict() for a in self.alternatives], "note": self.note,
-                "reasons": list(self.reasons), "next_steps": list(self.next_steps),
-                "rule_free_departures": self.rule_free_departures,
-                "front": [[round(t, 4), round(r, 6)] for t, r in self.front]}
+        return {
+            "name": self.name,
+            "planned": self.planned.to_dict(),
+            "alternatives": [a.to_dict() for a in self.alternatives],
+            "note": self.note,
+            "reasons": list(self.reasons),
+            "next_steps": list(self.next_steps),
+            "rule_free_departures": self.rule_free_departures,
+            "front": [[round(t, 4), round(r, 6)] for t, r in self.front],
+        }
 
 
 class Arcs:
@@ -158,23 +165,27 @@ class Arcs:
             best = hit[first]
         else:
             pmin, best = cost, np.arange(len(cost))
-        mat = csr_matrix((np.maximum(pmin, _TINY), self.indices, self.indptr),
-                         shape=(self.n, self.n))
+        mat = csr_matrix(
+            (np.maximum(pmin, _TINY), self.indices, self.indptr), shape=(self.n, self.n)
+        )
         return mat, best
 
-    def solve(self, cost: np.ndarray, origin: int, limit: float = np.inf
-              ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    def solve(
+        self, cost: np.ndarray, origin: int, limit: float = np.inf
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Return (distance, predecessor, chosen arc per pair) from ``origin``.
 
         Arcs with infinite cost are closed; nodes farther than ``limit`` stay unreached.
         """
         mat, best = self.matrix(cost)
-        dist, pred = dijkstra(mat, directed=True, indices=origin, return_predecessors=True,
-                              limit=limit)
+        dist, pred = dijkstra(
+            mat, directed=True, indices=origin, return_predecessors=True, limit=limit
+        )
         return dist, pred, best
 
-    def path(self, pred: np.ndarray, best: np.ndarray, origin: int, target: int
-             ) -> np.ndarray | None:
+    def path(
+        self, pred: np.ndarray, best: np.ndarray, origin: int, target: int
+    ) -> np.ndarray | None:
         """Return the arc positions of the path ``origin -> target`` (None if unreached)."""
         if origin == target:
             return np.zeros(0, dtype=np.int64)
@@ -208,8 +219,9 @@ class RouteGraph:
         self.arcs = Arcs(self.src, self.dst, self.n, rows)
         self._tt_mats: tuple[csr_matrix, csr_matrix] | None = None
 
-    def shortest(self, cost: np.ndarray, origin: int, limit: float = np.inf
-                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    def shortest(
+        self, cost: np.ndarray, origin: int, limit: float = np.inf
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Return (distance, predecessor, chosen arc per pair) from ``origin`` on ``cost``.
 
         ``cost`` has one value per edge row; infinite costs close edges. Parallel edges keep
@@ -217,8 +229,9 @@ class RouteGraph:
         """
         return self.arcs.solve(np.asarray(cost, dtype=float)[self.arcs.rows], origin, limit)
 
-    def path_edges(self, pred: np.ndarray, best: np.ndarray, origin: int, target: int
-                   ) -> list[int] | None:
+    def path_edges(
+        self, pred: np.ndarray, best: np.ndarray, origin: int, target: int
+    ) -> list[int] | None:
         """Return the edge rows of the path from ``origin`` to ``target`` (None if none)."""
         arcs = self.arcs.path(pred, best, origin, target)
         return None if arcs is None else [int(r) for r in self.arcs.rows[arcs]]
@@ -230,8 +243,7 @@ class RouteGraph:
         v = self.node_ids[self.dst[rows]]
         return [(int(a), int(b), int(k)) for a, b, k in zip(u, v, self.keys[rows], strict=True)]
 
-    def time_tree(self, node: int, limit_s: float = np.inf, *, reverse: bool = False
-                  ) -> np.ndarray:
+    def time_tree(self, node: int, limit_s: float = np.inf, *, reverse: bool = False) -> np.ndarray:
         """Return the fastest times (seconds) from ``node``, or to it with ``reverse``.
 
         Nodes farther than ``limit_s`` are left at infinity (the search stops there).
@@ -242,8 +254,14 @@ class RouteGraph:
         mat = self._tt_mats[1 if reverse else 0]
         return dijkstra(mat, directed=True, indices=node, limit=limit_s)
 
-    def leg(self, origin: int, target: int, budget_s: float = np.inf, *,
-            d_from: np.ndarray | None = None) -> Leg | None:
+    def leg(
+        self,
+        origin: int,
+        target: int,
+        budget_s: float = np.inf,
+        *,
+        d_from: np.ndarray | None = None,
+    ) -> Leg | None:
         """Return the part of the network on paths ``origin -> target`` within ``budget_s``.
 
         An edge ``(u, v)`` is kept when the fastest time to ``u`` plus the edge plus the
@@ -264,8 +282,12 @@ class RouteGraph:
             keep &= through <= budget_s * (1 + 1e-9) + 1e-6
         rows = np.flatnonzero(keep)
         nodes = np.unique(np.concatenate([self.src[rows], self.dst[rows]]))
-        arcs = Arcs(np.searchsorted(nodes, self.src[rows]),
-                    np.searchsorted(nodes, self.dst[rows]), len(nodes), rows)
+        arcs = Arcs(
+            np.searchsorted(nodes, self.src[rows]),
+            np.searchsorted(nodes, self.dst[rows]),
+            len(nodes),
+            rows,
+        )
         o, t = int(np.searchsorted(nodes, origin)), int(np.searchsorted(nodes, target))
         return Leg(self, arcs, o, t, d_from[self.src[arcs.rows]], float(d_from[target]))
 
@@ -295,8 +317,9 @@ class Leg:
             return [np.zeros(0, dtype=np.int64)]
         arcs = self.arcs
 
-        def solve(a: float, b: float, bound: float = np.inf
-                  ) -> tuple[float, float, np.ndarray] | None:
+        def solve(
+            a: float, b: float, bound: float = np.inf
+        ) -> tuple[float, float, np.ndarray] | None:
             cost = a * tt + b * risk
             lim = bound * (1 + 1e-6) + 1e-9 if np.isfinite(bound) else np.inf
             _, pred, best = arcs.solve(cost, self.origin, lim)
@@ -328,8 +351,9 @@ class Leg:
         return [arcs.rows[x[2]] for x in out]
 
 
-def _shared_share(a: np.ndarray, b: np.ndarray, km: np.ndarray,
-                  a_frac: np.ndarray | None = None) -> float:
+def _shared_share(
+    a: np.ndarray, b: np.ndarray, km: np.ndarray, a_frac: np.ndarray | None = None
+) -> float:
     """Return the share of path ``a``'s length that path ``b`` also drives.
 
     ``a_frac`` gives the share of each of ``a``'s edges driven (partial first and last edges).
@@ -383,8 +407,12 @@ class Suggester:
             # window around any minute is one subtraction
             three = np.tile(sc.rule_time.astype(np.int32), 3)
             self._rule_cum = np.concatenate(
-                [np.zeros((len(sc.profile.rules), 1), dtype=np.int32),
-                 np.cumsum(three, axis=1, dtype=np.int32)], axis=1)
+                [
+                    np.zeros((len(sc.profile.rules), 1), dtype=np.int32),
+                    np.cumsum(three, axis=1, dtype=np.int32),
+                ],
+                axis=1,
+            )
 
     # -- costs -------------------------------------------------------------------------
     def _risk_at(self, minutes: np.ndarray, rows: np.ndarray | None = None) -> np.ndarray:
@@ -394,11 +422,15 @@ class Suggester:
         m = np.asarray(minutes) % MINUTES_PER_WEEK
         mult = sc.mult_table[:, m].T  # (k, C)
         cat = self._sev_km[sel][:, None] * sc.w[None, :] * mult * sc.exp[sel]
-        return (self._base_risk[sel] * sc.base_mult[m] + self._cross_risk[sel] * sc.cross_mult[m]
-                + cat.sum(axis=1))
+        return (
+            self._base_risk[sel] * sc.base_mult[m]
+            + self._cross_risk[sel] * sc.cross_mult[m]
+            + cat.sum(axis=1)
+        )
 
-    def _closed(self, minutes: np.ndarray, slack_min: float,
-                rows: np.ndarray | None = None) -> np.ndarray:
+    def _closed(
+        self, minutes: np.ndarray, slack_min: float, rows: np.ndarray | None = None
+    ) -> np.ndarray:
         """Return edges covered by a rule in force within +-slack of the expected minute."""
         sc = self.scorer
         n = self.g.m if rows is None else len(rows)
@@ -410,8 +442,7 @@ class Suggester:
         near = (self._rule_cum[:, t + s + 1] - self._rule_cum[:, t - s]) > 0  # (R, k)
         return (sc.rule_cover[sel] & near.T).any(axis=1)
 
-    def _leg_costs(self, leg: Leg, m0: float, slack_min: float
-                   ) -> tuple[np.ndarray, np.ndarray]:
+    def _leg_costs(self, leg: Leg, m0: float, slack_min: float) -> tuple[np.ndarray, np.ndarray]:
         """Risk and closure of the leg's edges at their expected entry minutes."""
         minutes = np.floor(m0 + leg.enter_s / 60.0).astype(np.int64)
         return self._risk_at(minutes, leg.rows), self._closed(minutes, slack_min, leg.rows)
@@ -434,9 +465,17 @@ class Suggester:
             legs.append(leg)
         return legs
 
-    def _paths(self, legs: list[Leg], m0: float, slack: float, penalty: np.ndarray,
-               extra_closed: np.ndarray | None, cache: dict[Any, Any], *,
-               rules: bool = True) -> list[np.ndarray]:
+    def _paths(
+        self,
+        legs: list[Leg],
+        m0: float,
+        slack: float,
+        penalty: np.ndarray,
+        extra_closed: np.ndarray | None,
+        cache: dict[Any, Any],
+        *,
+        rules: bool = True,
+    ) -> list[np.ndarray]:
         """Return candidate full paths through the legs (supported points per leg).
 
         ``rules=False`` ignores the hard rules (only to show what breaks them).
@@ -453,8 +492,9 @@ class Suggester:
             rows = leg.rows
             shut = closed if extra_closed is None else closed | extra_closed[rows]
             pen = penalty[rows]
-            front = leg.front(np.where(shut, np.inf, self.tt[rows] * pen),
-                              np.where(shut, np.inf, risk * pen))
+            front = leg.front(
+                np.where(shut, np.inf, self.tt[rows] * pen), np.where(shut, np.inf, risk * pen)
+            )
             if not front:
                 return []
             fronts.append(front)
@@ -463,13 +503,14 @@ class Suggester:
         k = max(len(f) for f in fronts)
         paths = []
         for i in range(k):
-            parts = [f[min(i, len(f) - 1) if k == 1 else round(i * (len(f) - 1) / max(k - 1, 1))]
-                     for f in fronts]
+            parts = [
+                f[min(i, len(f) - 1) if k == 1 else round(i * (len(f) - 1) / max(k - 1, 1))]
+                for f in fronts
+            ]
             paths.append(np.concatenate(parts).astype(np.int64))
         return paths
 
-    def _breaking(self, rows: np.ndarray, depart: dt.datetime, ends: _Ends = None
-                  ) -> np.ndarray:
+    def _breaking(self, rows: np.ndarray, depart: dt.datetime, ends: _Ends = None) -> np.ndarray:
         """Return the rows a path drives while a hard rule covering them is in force.
 
         ``ends`` = (head rows, head shares, tail rows, tail shares): the plan's fixed partial
@@ -484,14 +525,22 @@ class Suggester:
         else:
             h, hf, t, tf = ends
             full = np.concatenate([h, rows, t]).astype(np.int64)
-            minutes = sc._timeline(full, depart, np.concatenate([hf, np.ones(len(rows)), tf])
-                                   )[5][len(h):len(h) + len(rows)]
+            minutes = sc._timeline(full, depart, np.concatenate([hf, np.ones(len(rows)), tf]))[5][
+                len(h) : len(h) + len(rows)
+            ]
         hit = (sc.rule_cover[rows] & sc.rule_time[:, minutes].T).any(axis=1)
         return rows[hit]
 
-    def _search(self, legs: list[Leg], depart: dt.datetime, m0: float, slack: float,
-                rounds: int, judge: Any, ends: _Ends = None
-                ) -> tuple[list[_Candidate], list[tuple[float, float]]]:
+    def _search(
+        self,
+        legs: list[Leg],
+        depart: dt.datetime,
+        m0: float,
+        slack: float,
+        rounds: int,
+        judge: Any,
+        ends: _Ends = None,
+    ) -> tuple[list[_Candidate], list[tuple[float, float]]]:
         """Run the penalty rounds on the legs; return rule-abiding candidates and the front."""
         penalty = np.ones(self.g.m)
         cache: dict[Any, Any] = {}
@@ -499,8 +548,7 @@ class Suggester:
         front: list[tuple[float, float]] = []
         for rnd in range(rounds):
             for rows in self._paths(legs, m0, slack, penalty, None, cache):
-                rows, abiding = self._repair(rows, legs, depart, m0, slack, penalty, cache,
-                                             ends)
+                rows, abiding = self._repair(rows, legs, depart, m0, slack, penalty, cache, ends)
                 if not len(rows):
                     continue
                 cand = judge(rows)
@@ -515,9 +563,17 @@ class Suggester:
                 penalty[rows] *= PENALTY
         return list(seen.values()), front
 
-    def _repair(self, rows: np.ndarray, legs: list[Leg], depart: dt.datetime, m0: float,
-                slack: float, penalty: np.ndarray, cache: dict[Any, Any], ends: _Ends = None
-                ) -> tuple[np.ndarray, bool]:
+    def _repair(
+        self,
+        rows: np.ndarray,
+        legs: list[Leg],
+        depart: dt.datetime,
+        m0: float,
+        slack: float,
+        penalty: np.ndarray,
+        cache: dict[Any, Any],
+        ends: _Ends = None,
+    ) -> tuple[np.ndarray, bool]:
         """Close the edges a path drives against a rule and search again.
 
         Return the path and whether it abides by every hard rule; when no repair works the
@@ -538,11 +594,20 @@ class Suggester:
             rows = paths[-1]  # the lowest-risk point of the repaired front
         return found, False
 
-    def suggest(self, name: str, planned: list[tuple[int, int, int]], depart: dt.datetime, *,
-                fractions: np.ndarray | None = None,
-                via: list[int] | None = None, count: int = 3, max_extra_time: float = 0.25,
-                max_extra_length: float | None = None, min_difference: float = 0.3,
-                rounds: int = 4) -> Suggestion:
+    def suggest(
+        self,
+        name: str,
+        planned: list[tuple[int, int, int]],
+        depart: dt.datetime,
+        *,
+        fractions: np.ndarray | None = None,
+        via: list[int] | None = None,
+        count: int = 3,
+        max_extra_time: float = 0.25,
+        max_extra_length: float | None = None,
+        min_difference: float = 0.3,
+        rounds: int = 4,
+    ) -> Suggestion:
         """Return up to ``count`` alternatives to ``planned`` that lower exposure.
 
         Parameters
@@ -573,8 +638,7 @@ class Suggester:
         """
         sc = self.scorer
         n_plan = len(planned)
-        frac = (np.ones(n_plan) if fractions is None
-                else np.asarray(fractions, dtype=float).copy())
+        frac = np.ones(n_plan) if fractions is None else np.asarray(fractions, dtype=float).copy()
         plan = sc.score(name, planned, depart, fractions=frac)
         plan_rows = sc.positions(planned)
         g = self.g
@@ -582,9 +646,9 @@ class Suggester:
         # plan does, so the plan and its alternatives cover the same start and end points
         head = 1 if n_plan and frac[0] < 1.0 - 1e-12 else 0
         tail = 1 if n_plan > head and frac[-1] < 1.0 - 1e-12 else 0
-        head_rows, tail_rows = plan_rows[:head], plan_rows[n_plan - tail:]
-        head_frac, tail_frac = frac[:head], frac[n_plan - tail:]
-        middle = planned[head:n_plan - tail]
+        head_rows, tail_rows = plan_rows[:head], plan_rows[n_plan - tail :]
+        head_frac, tail_frac = frac[:head], frac[n_plan - tail :]
+        middle = planned[head : n_plan - tail]
         start = planned[0][1] if head else planned[0][0]
         end = planned[-1][0] if tail else planned[-1][1]
         head_s = float((sc.tt[head_rows] * head_frac).sum())
@@ -594,7 +658,7 @@ class Suggester:
         via = list(via or [])
         if not via and middle and start == end:
             # a loop: keep its far half by passing the node halfway along it
-            mid_rows = plan_rows[head:n_plan - tail]
+            mid_rows = plan_rows[head : n_plan - tail]
             half = np.searchsorted(np.cumsum(sc.km[mid_rows]), sc.km[mid_rows].sum() / 2)
             via = [middle[min(int(half), len(middle) - 1)][1]]
         anchors = [g.node_of[start], *[g.node_of[int(n)] for n in via], g.node_of[end]]
@@ -622,11 +686,11 @@ class Suggester:
             return _Candidate(full, ffrac, risk, minutes, km, overlap, broken)
 
         # the legs' share of the time bound: the fixed partial ends take their own time
-        budget = (plan.duration_min * 60.0 * (1 + max_extra_time) * (1 + 1e-9) + 1e-6
-                  - ends_s)
+        budget = plan.duration_min * 60.0 * (1 + max_extra_time) * (1 + 1e-9) + 1e-6 - ends_s
         legs = self._legs_within(anchors, budget)
-        cands, front = (self._search(legs, depart, m0, slack, rounds, judge, ends) if legs
-                        else ([], []))
+        cands, front = (
+            self._search(legs, depart, m0, slack, rounds, judge, ends) if legs else ([], [])
+        )
         chosen = self._diverse([c for c in cands if not c.broken], count, min_difference)
         note = ""
         why = _Why()
@@ -643,34 +707,57 @@ class Suggester:
                     known = {c.rows.tobytes() for c in cands}
                     cands += [c for c in more if c.rows.tobytes() not in known]
             same = plan_rows.tobytes()
-            pool = sorted((c for c in cands if c.rows.tobytes() != same),  # not the plan
-                          key=lambda c: (HARD_RULES in c.broken, len(c.broken), c.risk,
-                                         c.minutes))
-            note = ("no alternative lowers the risk within the bounds (extra time, length, "
+            pool = sorted(
+                (c for c in cands if c.rows.tobytes() != same),  # not the plan
+                key=lambda c: (HARD_RULES in c.broken, len(c.broken), c.risk, c.minutes),
+            )
+            note = (
+                (
+                    "no alternative lowers the risk within the bounds (extra time, length, "
                     "hard rules, difference from the plan); shown: the best candidate, the one "
-                    "that breaks the fewest") if pool else "no alternative route found"
+                    "that breaks the fewest"
+                )
+                if pool
+                else "no alternative route found"
+            )
             chosen = pool[:1]
             why = self._why_none(plan, within, cands, legs is not None, max_extra_time)
         ends_note = self._ends_in_force(plan, head, tail)
         if ends_note:
             why.reasons.append(ends_note)
-            why.steps.append("move the start or the end of the route out of the rule zone, or "
-                             "depart when the rule is not in force")
+            why.steps.append(
+                "move the start or the end of the route out of the rule zone, or "
+                "depart when the rule is not in force"
+            )
         departures = None
-        if plan.rule_breaks and (ends_note or not any(HARD_RULES not in c.broken
-                                                      for c in chosen)):
+        if plan.rule_breaks and (ends_note or not any(HARD_RULES not in c.broken for c in chosen)):
             departures = self._rule_free_departures(plan_rows, frac, depart)
             why.steps.append(_departure_step(departures, depart))
-        alts = [self._alternative(name, c, plan, depart, f"alternative {i}")
-                for i, c in enumerate(chosen, 1)]
-        return Suggestion(name, plan, planned, alts, sorted(set(front)), note,
-                          planned_fractions=frac, reasons=why.reasons, next_steps=why.steps,
-                          rule_free_departures=None if departures is None else {
-                              k: (None if t is None else t.isoformat(timespec="seconds"))
-                              for k, t in departures.items()})
+        alts = [
+            self._alternative(name, c, plan, depart, f"alternative {i}")
+            for i, c in enumerate(chosen, 1)
+        ]
+        return Suggestion(
+            name,
+            plan,
+            planned,
+            alts,
+            sorted(set(front)),
+            note,
+            planned_fractions=frac,
+            reasons=why.reasons,
+            next_steps=why.steps,
+            rule_free_departures=None
+            if departures is None
+            else {
+                k: (None if t is None else t.isoformat(timespec="seconds"))
+                for k, t in departures.items()
+            },
+        )
 
-    def _rule_breaking(self, legs: list[Leg], depart: dt.datetime, m0: float, slack: float,
-                       judge: Any, ends: _Ends) -> list[_Candidate]:
+    def _rule_breaking(
+        self, legs: list[Leg], depart: dt.datetime, m0: float, slack: float, judge: Any, ends: _Ends
+    ) -> list[_Candidate]:
         """Return the trade-off paths found with the hard rules ignored, marked as such."""
         out = []
         for rows in self._paths(legs, m0, slack, np.ones(self.g.m), None, {}, rules=False):
@@ -683,14 +770,22 @@ class Suggester:
         return out
 
     # -- saying why nothing was found ---------------------------------------------------
-    def _why_none(self, plan: RouteScore, within: list[_Candidate], every: list[_Candidate],
-                  joined: bool, max_extra_time: float) -> _Why:
+    def _why_none(
+        self,
+        plan: RouteScore,
+        within: list[_Candidate],
+        every: list[_Candidate],
+        joined: bool,
+        max_extra_time: float,
+    ) -> _Why:
         """Explain in plain sentences why no candidate met every bound, and what to change."""
         why = _Why()
         if not joined:
-            why.reasons.append("no route joins the start, the via points and the end within "
-                               f"the time bound (+{100 * max_extra_time:.0f} % of the plan's "
-                               "time)")
+            why.reasons.append(
+                "no route joins the start, the via points and the end within "
+                f"the time bound (+{100 * max_extra_time:.0f} % of the plan's "
+                "time)"
+            )
         plan_rows = plan.segments["_pos"].to_numpy(dtype=np.int64).tobytes()
         only_plan = bool(within) and all(c.rows.tobytes() == plan_rows for c in within)
         if only_plan:
@@ -698,44 +793,60 @@ class Suggester:
             within = []
         others = [c for c in every if c.rows.tobytes() != plan_rows]
         if joined and not others and len(plan.segments) > 2:
-            why.steps.append(f"no other route was found within {RELAXED_TIME_FACTOR:g} times "
-                             "the plan's time either: the streets here leave no other way; "
-                             "move the start or the end, or add via points elsewhere")
+            why.steps.append(
+                f"no other route was found within {RELAXED_TIME_FACTOR:g} times "
+                "the plan's time either: the streets here leave no other way; "
+                "move the start or the end, or add via points elsewhere"
+            )
         n = len(within)
         if n:
             counts = {b: sum(b in c.broken for c in within) for b in _BOUND_WORDS}
             parts = [f"{k} {_BOUND_WORDS[b]}" for b, k in counts.items() if k]
-            why.reasons.append(f"{n} candidate route{'s' if n != 1 else ''} within the time "
-                               "bound: " + "; ".join(parts))
+            why.reasons.append(
+                f"{n} candidate route{'s' if n != 1 else ''} within the time "
+                "bound: " + "; ".join(parts)
+            )
             if counts[HARD_RULES] == n:
-                why.reasons.append("no path within the time bound avoids the rule zones while "
-                                   "their rules are in force")
+                why.reasons.append(
+                    "no path within the time bound avoids the rule zones while "
+                    "their rules are in force"
+                )
         elif only_plan:
             pass
         elif joined and every and all(HARD_RULES in c.broken for c in every):
-            why.reasons.append("no path within the time bound avoids the rule zones while "
-                               "their rules are in force: each one is closed on every way "
-                               "through")
+            why.reasons.append(
+                "no path within the time bound avoids the rule zones while "
+                "their rules are in force: each one is closed on every way "
+                "through"
+            )
         elif joined and plan.segments is not None and len(plan.segments) <= 2:
-            why.reasons.append("the route drives only its partial first and last edges, which "
-                               "every alternative keeps: there is no part to change")
+            why.reasons.append(
+                "the route drives only its partial first and last edges, which "
+                "every alternative keeps: there is no part to change"
+            )
         elif joined:
             why.reasons.append("the search found no candidate route within the time bound")
         # the least extra time at which a rule-abiding, lower-risk, different route exists
-        ok = [c for c in every
-              if not set(c.broken) - {"extra time"} and "extra time" in c.broken]
+        ok = [c for c in every if not set(c.broken) - {"extra time"} and "extra time" in c.broken]
         if ok:
             best = min(ok, key=lambda c: c.minutes)
             need = best.minutes / plan.duration_min - 1.0 if plan.duration_min else 0.0
             share = float(np.ceil(need * 100.0 + 1e-9) / 100.0)
-            why.steps.append(f"a rule-abiding alternative with lower risk needs more time: "
-                             f"--max-extra-time {share:.2f} (it takes {best.minutes:.1f} min "
-                             f"against the plan's {plan.duration_min:.1f})")
-        elif every and all("difference from the plan" in c.broken for c in every
-                           if HARD_RULES not in c.broken and "lower risk" not in c.broken):
+            why.steps.append(
+                f"a rule-abiding alternative with lower risk needs more time: "
+                f"--max-extra-time {share:.2f} (it takes {best.minutes:.1f} min "
+                f"against the plan's {plan.duration_min:.1f})"
+            )
+        elif every and all(
+            "difference from the plan" in c.broken
+            for c in every
+            if HARD_RULES not in c.broken and "lower risk" not in c.broken
+        ):
             if any(HARD_RULES not in c.broken and "lower risk" not in c.broken for c in every):
-                why.steps.append("lower-risk routes exist but share most of the plan: a "
-                                 "smaller --min-difference would show them")
+                why.steps.append(
+                    "lower-risk routes exist but share most of the plan: a "
+                    "smaller --min-difference would show them"
+                )
         return why
 
     def _ends_in_force(self, plan: RouteScore, head: int, tail: int) -> str:
@@ -751,15 +862,20 @@ class Suggester:
         for b in plan.rule_breaks:
             i = _seq_of(plan, b)
             if i in fixed:
-                said.append(f"the route {fixed.pop(i)} on {b['street'] or 'an unnamed street'}"
-                            f" inside the zone of the rule '{b['rule']}' while it is in force")
+                said.append(
+                    f"the route {fixed.pop(i)} on {b['street'] or 'an unnamed street'}"
+                    f" inside the zone of the rule '{b['rule']}' while it is in force"
+                )
         if not said:
             return ""
-        return ("; ".join(said) + ": every route from this start or to this end breaks it "
-                "there, the alternatives too")
+        return (
+            "; ".join(said) + ": every route from this start or to this end breaks it "
+            "there, the alternatives too"
+        )
 
-    def _rule_free_departures(self, rows: np.ndarray, frac: np.ndarray, depart: dt.datetime
-                              ) -> dict[str, dt.datetime | None]:
+    def _rule_free_departures(
+        self, rows: np.ndarray, frac: np.ndarray, depart: dt.datetime
+    ) -> dict[str, dt.datetime | None]:
         """Return the nearest departures at which the planned route breaks no hard rule.
 
         Earlier and later, in whole minutes of shift, within a week.
@@ -774,12 +890,14 @@ class Suggester:
         later = shift[~bad[shift]]
         earlier = shift[~bad[(MINUTES_PER_WEEK - shift) % MINUTES_PER_WEEK]]
         local = depart.astimezone(sc.tz)
-        return {"earlier": (local - dt.timedelta(minutes=int(earlier[0]))) if len(earlier)
-                else None,
-                "later": (local + dt.timedelta(minutes=int(later[0]))) if len(later) else None}
+        return {
+            "earlier": (local - dt.timedelta(minutes=int(earlier[0]))) if len(earlier) else None,
+            "later": (local + dt.timedelta(minutes=int(later[0]))) if len(later) else None,
+        }
 
-    def _alternative(self, name: str, c: _Candidate, plan: RouteScore, depart: dt.datetime,
-                     label: str) -> Alternative:
+    def _alternative(
+        self, name: str, c: _Candidate, plan: RouteScore, depart: dt.datetime, label: str
+    ) -> Alternative:
         """Score a chosen candidate in full and state its changes against the plan."""
         edges = self.g.as_tuples(c.rows)
         s = self.scorer.score(name, edges, depart, fractions=c.fractions)
@@ -793,23 +911,32 @@ class Suggester:
             caveats.append(
                 f"{-length_change:.0f} % shorter than the plan (risk per km "
                 f"{change(s.risk_per_km, plan.risk_per_km):+.0f} %): check it still covers "
-                "the driving the test needs, or mark required points in the route file")
+                "the driving the test needs, or mark required points in the route file"
+            )
         return Alternative(
-            edges=edges, score=s, risk_change_pct=change(s.risk, plan.risk),
+            edges=edges,
+            score=s,
+            risk_change_pct=change(s.risk, plan.risk),
             time_change_pct=change(s.duration_min, plan.duration_min),
             length_change_pct=length_change,
             overlap_with_plan=c.overlap,
             within_bounds=not {"extra time", "extra length", HARD_RULES} & set(c.broken),
-            label=label, bounds_broken=list(c.broken), caveats=caveats,
-            fractions=c.fractions)
+            label=label,
+            bounds_broken=list(c.broken),
+            caveats=caveats,
+            fractions=c.fractions,
+        )
 
-    def _diverse(self, pool: list[_Candidate], count: int, min_difference: float
-                 ) -> list[_Candidate]:
+    def _diverse(
+        self, pool: list[_Candidate], count: int, min_difference: float
+    ) -> list[_Candidate]:
         """Pick, lowest risk first, candidates that differ enough from each other."""
         chosen: list[_Candidate] = []
         for c in sorted(pool, key=lambda c: (c.risk, c.minutes)):
-            if any(1.0 - _shared_share(c.rows, d.rows, self.km, c.fractions) < min_difference
-                   for d in chosen):
+            if any(
+                1.0 - _shared_share(c.rows, d.rows, self.km, c.fractions) < min_difference
+                for d in chosen
+            ):
                 continue
             chosen.append(c)
             if len(chosen) == count:
@@ -837,15 +964,19 @@ def _seq_of(plan: RouteScore, brk: dict[str, Any]) -> int:
     """Return the position in the route of the edge a rule-break record names."""
     seg = plan.segments
     u, v, k = brk["edge"]
-    hit = seg.index[(seg["u"] == u) & (seg["v"] == v) & (seg["key"] == k)
-                    & (seg["time"] == brk["time"])]
+    hit = seg.index[
+        (seg["u"] == u) & (seg["v"] == v) & (seg["key"] == k) & (seg["time"] == brk["time"])
+    ]
     return int(seg.loc[hit[0], "seq"]) if len(hit) else -1
 
 
 def _departure_step(deps: dict[str, dt.datetime | None], depart: dt.datetime) -> str:
     """Say the nearest departures at which the planned route breaks no hard rule."""
-    said = [f"at {_readable(t)} ({_shift(t - depart)} {w})"
-            for w, t in (("later", deps["later"]), ("earlier", deps["earlier"])) if t]
+    said = [
+        f"at {_readable(t)} ({_shift(t - depart)} {w})"
+        for w, t in (("later", deps["later"]), ("earlier", deps["earlier"]))
+        if t
+    ]
     if not said:
         return "no departure in the week avoids the rules on this route"
     return "the planned route breaks no hard rule if it departs " + " or ".join(said)
@@ -865,8 +996,7 @@ def _readable(t: dt.datetime) -> str:
     off = t.utcoffset() or dt.timedelta(0)
     mins = int(off.total_seconds() // 60)
     sign = "+" if mins >= 0 else "-"
-    return (f"{t:%a} {t.day} {t:%b %Y %H:%M} "
-            f"(UTC{sign}{abs(mins) // 60:02d}:{abs(mins) % 60:02d})")
+    return f"{t:%a} {t.day} {t:%b %Y %H:%M} (UTC{sign}{abs(mins) // 60:02d}:{abs(mins) % 60:02d})"
 
 
 def front_by_brute_force(pairs: list[tuple[float, float]]) -> list[tuple[float, float]]:
@@ -918,11 +1048,19 @@ def via_nodes(matched: Any, route: Any, *, every: int | None = None) -> list[int
     return out
 
 
-def suggest_routes(net: Any, routes: list[Any], departs: list[dt.datetime] | None = None, *,
-                   count: int = 3, max_extra_time: float = 0.25,
-                   max_extra_length: float | None = None, min_difference: float = 0.3,
-                   keep_every: int | None = None, index: Any = None,
-                   suggester: Suggester | None = None) -> list[Suggestion]:
+def suggest_routes(
+    net: Any,
+    routes: list[Any],
+    departs: list[dt.datetime] | None = None,
+    *,
+    count: int = 3,
+    max_extra_time: float = 0.25,
+    max_extra_length: float | None = None,
+    min_difference: float = 0.3,
+    keep_every: int | None = None,
+    index: Any = None,
+    suggester: Suggester | None = None,
+) -> list[Suggestion]:
     """Suggest alternatives for each planned route at each departure time.
 
     ``index`` and ``suggester`` (of ``net``) may be given to reuse them across calls.
@@ -936,13 +1074,24 @@ def suggest_routes(net: Any, routes: list[Any], departs: list[dt.datetime] | Non
     for r, m in zip(routes, matching.to_edges_many(idx, routes), strict=True):
         times = departs or ([r.depart] if r.depart is not None else [])
         if not times:
-            raise RouteInputError("no departure time: give --depart or a 'depart' property",
-                                  path=r.source or None, field=f"route {r.name!r}")
+            raise RouteInputError(
+                "no departure time: give --depart or a 'depart' property",
+                path=r.source or None,
+                field=f"route {r.name!r}",
+            )
         via = via_nodes(m, r, every=keep_every)
         for t in times:
-            out.append(sug.suggest(r.name, list(m.edges), t,
-                                   fractions=np.asarray(m.fractions), via=via, count=count,
-                                   max_extra_time=max_extra_time,
-                                   max_extra_length=max_extra_length,
-                                   min_difference=min_difference))
+            out.append(
+                sug.suggest(
+                    r.name,
+                    list(m.edges),
+                    t,
+                    fractions=np.asarray(m.fractions),
+                    via=via,
+                    count=count,
+                    max_extra_time=max_extra_time,
+                    max_extra_length=max_extra_length,
+                    min_difference=min_difference,
+                )
+            )
     return out

@@ -41,8 +41,18 @@ if TYPE_CHECKING:
     from .routes import PlannedRoute
 
 __all__ = [
-    "build_network", "load_network", "read_routes", "read_drives", "read_events", "read_areas",
-    "read_runs", "score_routes", "suggest_routes", "review_areas", "plan_day", "plan_evidence",
+    "build_network",
+    "load_network",
+    "read_routes",
+    "read_drives",
+    "read_events",
+    "read_areas",
+    "read_runs",
+    "score_routes",
+    "suggest_routes",
+    "review_areas",
+    "plan_day",
+    "plan_evidence",
     "watch_events",
 ]
 
@@ -65,8 +75,9 @@ def _departs(net: Network, departs: Sequence[Departure] | Departure) -> list[dt.
     out = []
     for d in items:
         if not isinstance(d, str | dt.datetime):
-            raise OptionError(f"must be datetimes or ISO 8601 text, got {type(d).__name__}",
-                              field="departs")
+            raise OptionError(
+                f"must be datetimes or ISO 8601 text, got {type(d).__name__}", field="departs"
+            )
         with parameters({"--depart": "departs"}):
             out.append(parse_depart(d if isinstance(d, str) else d.isoformat(), net.timezone))
     return out
@@ -77,15 +88,21 @@ def _share(value: float | None, name: str) -> None:
     if value is None:
         return
     if not isinstance(value, int | float) or not 0.0 <= float(value) <= 5.0:
-        raise OptionError(f"must be a share between 0 and 5, got {value!r} (0.25 means 25 %)",
-                          field=name)
+        raise OptionError(
+            f"must be a share between 0 and 5, got {value!r} (0.25 means 25 %)", field=name
+        )
 
 
 # ---------------------------------------------------------------------------- network
 
 
-def build_network(source: str | Path, *, profile: Profile | str | Path | None = None,
-                  timezone: str | None = None, largest_component: bool = True) -> Network:
+def build_network(
+    source: str | Path,
+    *,
+    profile: Profile | str | Path | None = None,
+    timezone: str | None = None,
+    largest_component: bool = True,
+) -> Network:
     """Build a tagged road network from an OpenStreetMap file, offline.
 
     The same as ``routerisk build SOURCE`` (without writing the folder; save it with
@@ -119,12 +136,17 @@ def build_network(source: str | Path, *, profile: Profile | str | Path | None = 
 
     with parameters({"--timezone": "timezone"}):
         zone = None if timezone is None else network.check_timezone(timezone)
-        return network.build_network(source, profile=_profile(profile), timezone=zone,
-                                     largest_component=largest_component)
+        return network.build_network(
+            source, profile=_profile(profile), timezone=zone, largest_component=largest_component
+        )
 
 
-def load_network(folder: str | Path, *, profile: Profile | str | Path | None = None,
-                 overlay: str | Path | None = None) -> Network:
+def load_network(
+    folder: str | Path,
+    *,
+    profile: Profile | str | Path | None = None,
+    overlay: str | Path | None = None,
+) -> Network:
     """Load a network folder written by ``routerisk build``.
 
     Parameters
@@ -164,8 +186,12 @@ def load_network(folder: str | Path, *, profile: Profile | str | Path | None = N
 # ---------------------------------------------------------------------------- analyses
 
 
-def score_routes(network: Network, routes: Sequence[PlannedRoute], *,
-                 departs: Sequence[Departure] | Departure = ()) -> ScoreResult:
+def score_routes(
+    network: Network,
+    routes: Sequence[PlannedRoute],
+    *,
+    departs: Sequence[Departure] | Departure = (),
+) -> ScoreResult:
     """Score routes or recorded drives at their departure times.
 
     The same numbers as ``routerisk score``: each edge is scored at the time the vehicle
@@ -202,11 +228,17 @@ def score_routes(network: Network, routes: Sequence[PlannedRoute], *,
         return ScoreResult(tuple(_score(network, list(routes), times)), network)
 
 
-def suggest_routes(network: Network, routes: Sequence[PlannedRoute], *,
-                   departs: Sequence[Departure] | Departure = (), count: int = 3,
-                   max_extra_time: float = 0.25, max_extra_length: float | None = None,
-                   min_difference: float = 0.3, keep_every: int | None = None
-                   ) -> SuggestResult:
+def suggest_routes(
+    network: Network,
+    routes: Sequence[PlannedRoute],
+    *,
+    departs: Sequence[Departure] | Departure = (),
+    count: int = 3,
+    max_extra_time: float = 0.25,
+    max_extra_length: float | None = None,
+    min_difference: float = 0.3,
+    keep_every: int | None = None,
+) -> SuggestResult:
     """Suggest lower-exposure alternatives within a time bound, keeping the via points.
 
     The same numbers as ``routerisk suggest``; the plan is scored as :func:`score_routes`
@@ -250,22 +282,36 @@ def suggest_routes(network: Network, routes: Sequence[PlannedRoute], *,
     if not isinstance(count, int) or count < 1:
         raise OptionError(f"must be a whole number of at least 1, got {count!r}", field="count")
     if keep_every is not None and (not isinstance(keep_every, int) or keep_every < 1):
-        raise OptionError(f"must be a whole number of at least 1, got {keep_every!r}",
-                          field="keep_every")
+        raise OptionError(
+            f"must be a whole number of at least 1, got {keep_every!r}", field="keep_every"
+        )
     _share(max_extra_time, "max_extra_time")
     _share(max_extra_length, "max_extra_length")
     _share(min_difference, "min_difference")
     times = _departs(network, departs)
     with parameters({"--depart": "departs"}):
-        found = _suggest(network, list(routes), times, count=count,
-                         max_extra_time=max_extra_time, max_extra_length=max_extra_length,
-                         min_difference=min_difference, keep_every=keep_every)
+        found = _suggest(
+            network,
+            list(routes),
+            times,
+            count=count,
+            max_extra_time=max_extra_time,
+            max_extra_length=max_extra_length,
+            min_difference=min_difference,
+            keep_every=keep_every,
+        )
     return SuggestResult(tuple(found), network)
 
 
-def review_areas(network: Network, areas: Areas, *, at: str | None = None,
-                 what_ifs: Sequence[Sequence[str]] = (), top: int = 10,
-                 high_from: str | None = None) -> ReviewResult:
+def review_areas(
+    network: Network,
+    areas: Areas,
+    *,
+    at: str | None = None,
+    what_ifs: Sequence[Sequence[str]] = (),
+    top: int = 10,
+    high_from: str | None = None,
+) -> ReviewResult:
     """Review proposed test areas: exposure, hot spots, closures under the hard rules.
 
     The same figures as ``routerisk review``.
@@ -307,24 +353,37 @@ def review_areas(network: Network, areas: Areas, *, at: str | None = None,
     if not isinstance(top, int) or top < 0:
         raise OptionError(f"must be a whole number >= 0, got {top!r}", field="top")
     if isinstance(what_ifs, str) or any(isinstance(w, str) for w in what_ifs):
-        raise OptionError("must be a list of scenarios, each a list of changes "
-                          "(e.g. [['weight:school=5']])", field="what_ifs")
+        raise OptionError(
+            "must be a list of scenarios, each a list of changes (e.g. [['weight:school=5']])",
+            field="what_ifs",
+        )
     if pyproj.CRS.from_user_input(areas.crs) != pyproj.CRS.from_user_input(network.crs):
-        raise OptionError("the areas are in another CRS than the network; read them with "
-                          "read_areas(path, crs=network.crs)", field="areas")
+        raise OptionError(
+            "the areas are in another CRS than the network; read them with "
+            "read_areas(path, crs=network.crs)",
+            field="areas",
+        )
     minute = None
     if at is not None:
         minute = review.parse_time(at, option="at")
     with parameters({"--high-from": "high_from", "--what-if": "what_ifs"}):
         high = review.high_bands_from(network.profile, high_from) if high_from else None
         scenarios = [review.parse_what_if(list(specs), network.profile) for specs in what_ifs]
-        found = review.review_areas(network, list(areas), at=minute, what_ifs=scenarios,
-                                    top=top, high_bands=high)
+        found = review.review_areas(
+            network, list(areas), at=minute, what_ifs=scenarios, top=top, high_bands=high
+        )
     return ReviewResult(found)
 
 
-def plan_day(network: Network, runs: Runs, date: dt.date | str, *, vehicles: int = 2,
-             step_min: int = 15, turnaround_min: float = 15.0) -> PlanResult:
+def plan_day(
+    network: Network,
+    runs: Runs,
+    date: dt.date | str,
+    *,
+    vehicles: int = 2,
+    step_min: int = 15,
+    turnaround_min: float = 15.0,
+) -> PlanResult:
     """Schedule a day's test runs over vehicles and start times at the least exposure.
 
     The same schedule as ``routerisk plan``: every run scored at every start, an integer
@@ -371,19 +430,35 @@ def plan_day(network: Network, runs: Runs, date: dt.date | str, *, vehicles: int
         if not isinstance(value, int):
             raise OptionError(f"must be a whole number, got {value!r}", field=name)
     with parameters({"--step": "step_min", "--turnaround": "turnaround_min"}):
-        found = _plan(network, list(runs), date, vehicles=vehicles, step_min=step_min,
-                      turnaround_min=turnaround_min)
+        found = _plan(
+            network,
+            list(runs),
+            date,
+            vehicles=vehicles,
+            step_min=step_min,
+            turnaround_min=turnaround_min,
+        )
     return PlanResult(found, network)
 
 
-def plan_evidence(*, benchmark: float, per: float, improvement: float = 0.2,
-                  confidence: float = 0.95, power: float = 0.8,
-                  units: Literal["mi", "km"] = "mi", fleet: float = 100.0,
-                  hours_per_day: float = 24.0, speed: float = 25.0,
-                  observed: float | None = None, events: int | None = None,
-                  allowed_events: Sequence[int] = (0, 1, 2, 3),
-                  network: Network | None = None, drives: Routes | None = None,
-                  segments: pd.DataFrame | None = None) -> EvidenceResult:
+def plan_evidence(
+    *,
+    benchmark: float,
+    per: float,
+    improvement: float = 0.2,
+    confidence: float = 0.95,
+    power: float = 0.8,
+    units: Literal["mi", "km"] = "mi",
+    fleet: float = 100.0,
+    hours_per_day: float = 24.0,
+    speed: float = 25.0,
+    observed: float | None = None,
+    events: int | None = None,
+    allowed_events: Sequence[int] = (0, 1, 2, 3),
+    network: Network | None = None,
+    drives: Routes | None = None,
+    segments: pd.DataFrame | None = None,
+) -> EvidenceResult:
     """Plan how many test miles a statistical safety claim needs.
 
     The same figures as ``routerisk evidence`` (Kalra and Paddock 2016; exact Poisson limits
@@ -437,27 +512,50 @@ def plan_evidence(*, benchmark: float, per: float, improvement: float = 0.2,
         raise OptionError("drives need the network to match them to", field="network")
     with parameters({"--per": "per"}):
         inputs = evidence.EvidenceInputs(
-            benchmark=benchmark, per=per, improvement=improvement, confidence=confidence,
-            power=power, units=units, fleet=fleet, hours_per_day=hours_per_day, speed=speed,
-            observed=observed, events=events, allowed_events=tuple(allowed_events))
+            benchmark=benchmark,
+            per=per,
+            improvement=improvement,
+            confidence=confidence,
+            power=power,
+            units=units,
+            fleet=fleet,
+            hours_per_day=hours_per_day,
+            speed=speed,
+            observed=observed,
+            events=events,
+            allowed_events=tuple(allowed_events),
+        )
         plan = evidence.plan_evidence(inputs)
         if drives is not None and network is not None:
             frame = evidence.segments_of_drives(network, list(drives))
-            plan = plan.with_exposure(evidence.distance_by_exposure(
-                frame, needed=plan.miles_no_failure, units=inputs.units))
+            plan = plan.with_exposure(
+                evidence.distance_by_exposure(
+                    frame, needed=plan.miles_no_failure, units=inputs.units
+                )
+            )
         if segments is not None:
-            plan = plan.with_exposure(evidence.distance_by_exposure(
-                segments, needed=plan.miles_no_failure, units=inputs.units))
+            plan = plan.with_exposure(
+                evidence.distance_by_exposure(
+                    segments, needed=plan.miles_no_failure, units=inputs.units
+                )
+            )
     return EvidenceResult(plan)
 
 
-def watch_events(network: Network, events: Events, drives: Routes, *, fdr: float = 0.1,
-                 shift: float = 2.0, arl0: float = 500.0,
-                 group: Literal["street", "band", "hour"] = "street",
-                 unit: Literal["block", "segment"] = "block",
-                 test: Literal["auto", "negbin", "poisson"] = "auto",
-                 expected: Literal["modelled", "distance"] = "modelled",
-                 arl0_family: float | None = None) -> WatchResult:
+def watch_events(
+    network: Network,
+    events: Events,
+    drives: Routes,
+    *,
+    fdr: float = 0.1,
+    shift: float = 2.0,
+    arl0: float = 500.0,
+    group: Literal["street", "band", "hour"] = "street",
+    unit: Literal["block", "segment"] = "block",
+    test: Literal["auto", "negbin", "poisson"] = "auto",
+    expected: Literal["modelled", "distance"] = "modelled",
+    arl0_family: float | None = None,
+) -> WatchResult:
     """Flag segments and groups where logged safety events run ahead of the miles driven.
 
     The same figures as ``routerisk watch``: events placed on the edges driven at their
@@ -507,12 +605,31 @@ def watch_events(network: Network, events: Events, drives: Routes, *, fdr: float
     from . import watch
 
     with parameters({"--fdr": "fdr", "--drives": "drives", "--arl0-family": "arl0_family"}):
-        watch.check_settings(q=fdr, shift=shift, arl0=arl0, arl0_family=arl0_family,
-                             group=group, unit=unit, test=test, expected=expected)
+        watch.check_settings(
+            q=fdr,
+            shift=shift,
+            arl0=arl0,
+            arl0_family=arl0_family,
+            group=group,
+            unit=unit,
+            test=test,
+            expected=expected,
+        )
         if not len(drives):
             raise OptionError("holds no drive", field="drives")
         matched = watch.match_drives(network, list(drives))
-        found = watch.watch_matched(network, events.events, events.rejected, matched, q=fdr,
-                                    shift=shift, arl0=arl0, arl0_family=arl0_family,
-                                    group=group, unit=unit, test=test, expected=expected)
+        found = watch.watch_matched(
+            network,
+            events.events,
+            events.rejected,
+            matched,
+            q=fdr,
+            shift=shift,
+            arl0=arl0,
+            arl0_family=arl0_family,
+            group=group,
+            unit=unit,
+            test=test,
+            expected=expected,
+        )
     return WatchResult(found, network)

@@ -55,8 +55,9 @@ def _time(text: str, tz: Any, *, path: Path, where: str) -> _dt.datetime:
     try:
         t = _dt.datetime.fromisoformat(str(text).strip())
     except ValueError as exc:
-        raise CountsError(f"not an ISO 8601 date and time: {text!r}", path=path,
-                          field=where) from exc
+        raise CountsError(
+            f"not an ISO 8601 date and time: {text!r}", path=path, field=where
+        ) from exc
     return t.replace(tzinfo=tz) if t.tzinfo is None else t
 
 
@@ -64,11 +65,11 @@ def _integer(value: Any, *, path: Path, where: str) -> int:
     try:
         v = float(value)
     except (TypeError, ValueError) as exc:
-        raise CountsError(f"must be a whole number, got {value!r}", path=path,
-                          field=where) from exc
+        raise CountsError(f"must be a whole number, got {value!r}", path=path, field=where) from exc
     if not math.isfinite(v) or v != int(v):
-        raise CountsError(f"must be a whole number of pedestrians, got {value!r}", path=path,
-                          field=where)
+        raise CountsError(
+            f"must be a whole number of pedestrians, got {value!r}", path=path, field=where
+        )
     if v < 0:
         raise CountsError(f"must not be negative, got {value!r}", path=path, field=where)
     return int(v)
@@ -86,22 +87,31 @@ def _records(path: Path) -> list[tuple[str, dict[str, Any]]]:
         try:
             doc = json.loads(text)
         except json.JSONDecodeError as exc:
-            raise CountsError(f"not valid JSON ({exc.msg}, line {exc.lineno})",
-                              path=path) from exc
+            raise CountsError(f"not valid JSON ({exc.msg}, line {exc.lineno})", path=path) from exc
         feats = doc.get("features") if isinstance(doc, dict) else None
         if not isinstance(feats, list):
-            raise CountsError("must be a GeoJSON FeatureCollection of points", path=path,
-                              field="features")
+            raise CountsError(
+                "must be a GeoJSON FeatureCollection of points", path=path, field="features"
+            )
         out = []
         for i, f in enumerate(feats):
             where = f"features[{i}]"
-            if not isinstance(f, dict) or not isinstance(f.get("geometry") or {}, dict) or \
-                    not isinstance(f.get("properties") or {}, dict):
-                raise CountsError("must be a GeoJSON Feature with a Point geometry and "
-                                  "properties", path=path, field=where)
+            if (
+                not isinstance(f, dict)
+                or not isinstance(f.get("geometry") or {}, dict)
+                or not isinstance(f.get("properties") or {}, dict)
+            ):
+                raise CountsError(
+                    "must be a GeoJSON Feature with a Point geometry and properties",
+                    path=path,
+                    field=where,
+                )
             geom = f.get("geometry") or {}
-            if geom.get("type") != "Point" or not isinstance(geom.get("coordinates"), list) \
-                    or len(geom["coordinates"]) < 2:
+            if (
+                geom.get("type") != "Point"
+                or not isinstance(geom.get("coordinates"), list)
+                or len(geom["coordinates"]) < 2
+            ):
                 raise CountsError("must be a Point feature", path=path, field=where)
             props = dict((f or {}).get("properties") or {})
             props["lon"], props["lat"] = geom["coordinates"][:2]
@@ -111,23 +121,29 @@ def _records(path: Path) -> list[tuple[str, dict[str, Any]]]:
     rows = list(csv.reader("" if line.startswith("#") else line for line in text.splitlines()))
     while rows and not any(cell.strip() for cell in rows[0]):
         rows.pop(0)
-    first = text.splitlines().index(next(ln for ln in text.splitlines()
-                                         if ln.strip() and not ln.startswith("#"))) \
-        if rows else 0
+    first = (
+        text.splitlines().index(
+            next(ln for ln in text.splitlines() if ln.strip() and not ln.startswith("#"))
+        )
+        if rows
+        else 0
+    )
     if not rows:
         raise CountsError("has no header and no rows", path=path)
     head = [h.strip() for h in rows[0]]
     missing = [c for c in COLUMNS if c not in head]
     if missing:
-        raise CountsError(f"missing column {missing[0]!r}; needs {', '.join(COLUMNS)}",
-                          path=path, field="header")
+        raise CountsError(
+            f"missing column {missing[0]!r}; needs {', '.join(COLUMNS)}", path=path, field="header"
+        )
     out = []
     for n, row in enumerate(rows[1:], start=first + 2):
         if not any(cell.strip() for cell in row):
             continue
         if len(row) != len(head):
-            raise CountsError(f"has {len(row)} cells, the header has {len(head)}", path=path,
-                              field=f"row {n}")
+            raise CountsError(
+                f"has {len(row)} cells, the header has {len(head)}", path=path, field=f"row {n}"
+            )
         out.append((f"row {n}", dict(zip(head, (c.strip() for c in row), strict=True))))
     return out
 
@@ -152,27 +168,45 @@ def read_counts(path: str | Path, tz: Any) -> pd.DataFrame:
         try:
             lat, lon = float(r["lat"]), float(r["lon"])
         except (TypeError, ValueError) as exc:
-            raise CountsError("lat and lon must be numbers", path=p,
-                              field=f"{where}: lat/lon") from exc
+            raise CountsError(
+                "lat and lon must be numbers", path=p, field=f"{where}: lat/lon"
+            ) from exc
         if not (-90 <= lat <= 90 and -180 <= lon <= 180):
-            raise CountsError(f"lat {lat} / lon {lon} is not a place on Earth", path=p,
-                              field=f"{where}: lat/lon")
+            raise CountsError(
+                f"lat {lat} / lon {lon} is not a place on Earth", path=p, field=f"{where}: lat/lon"
+            )
         if site in coords and max(abs(coords[site][0] - lat), abs(coords[site][1] - lon)) > 1e-5:
-            raise CountsError(f"site {site!r} has other coordinates than in "
-                              f"{coords[site][2]}", path=p, field=f"{where}: lat/lon")
+            raise CountsError(
+                f"site {site!r} has other coordinates than in {coords[site][2]}",
+                path=p,
+                field=f"{where}: lat/lon",
+            )
         coords.setdefault(site, (lat, lon, where))
         start = _time(r["start"], tz, path=p, where=f"{where}: start")
         end = _time(r["end"], tz, path=p, where=f"{where}: end")
         if end <= start:
-            raise CountsError(f"end {r['end']} is not after start {r['start']}", path=p,
-                              field=f"{where}: end")
+            raise CountsError(
+                f"end {r['end']} is not after start {r['start']}", path=p, field=f"{where}: end"
+            )
         if end - start > MAX_PERIOD:
-            raise CountsError(f"a counting period of {end - start} is longer than 7 days",
-                              path=p, field=f"{where}: end")
+            raise CountsError(
+                f"a counting period of {end - start} is longer than 7 days",
+                path=p,
+                field=f"{where}: end",
+            )
         count = _integer(r["count"], path=p, where=f"{where}: count")
-        out.append({"site": site, "lat": coords[site][0], "lon": coords[site][1],
-                    "start": start, "end": end, "hours": (end - start).total_seconds() / 3600,
-                    "count": count, "where": where})
+        out.append(
+            {
+                "site": site,
+                "lat": coords[site][0],
+                "lon": coords[site][1],
+                "start": start,
+                "end": end,
+                "hours": (end - start).total_seconds() / 3600,
+                "count": count,
+                "where": where,
+            }
+        )
     return pd.DataFrame(out)
 
 
@@ -187,8 +221,9 @@ class Placement:
     left_out: list[tuple[str, float]]  # (site, distance m) farther than the limit
 
 
-def place_sites(net: Any, counts: pd.DataFrame, *, limit_m: float = SNAP_LIMIT_M,
-                path: str | Path | None = None) -> Placement:
+def place_sites(
+    net: Any, counts: pd.DataFrame, *, limit_m: float = SNAP_LIMIT_M, path: str | Path | None = None
+) -> Placement:
     """Place each site on the nearest edge; sites farther than ``limit_m`` are left out.
 
     A site outside the network's extent (farther than ``limit_m`` from its bounding box) is
@@ -197,8 +232,7 @@ def place_sites(net: Any, counts: pd.DataFrame, *, limit_m: float = SNAP_LIMIT_M
     import pyproj
     import shapely
 
-    sites = counts.drop_duplicates("site")[["site", "lat", "lon", "where"]].reset_index(
-        drop=True)
+    sites = counts.drop_duplicates("site")[["site", "lat", "lon", "where"]].reset_index(drop=True)
     tr = pyproj.Transformer.from_crs("EPSG:4326", net.edges.crs, always_xy=True)
     x, y = tr.transform(sites["lon"].to_numpy(), sites["lat"].to_numpy())
     pts = shapely.points(x, y)
@@ -207,9 +241,12 @@ def place_sites(net: Any, counts: pd.DataFrame, *, limit_m: float = SNAP_LIMIT_M
     outside = (x < x0 - limit_m) | (x > x1 + limit_m) | (y < y0 - limit_m) | (y > y1 + limit_m)
     if outside.any():
         i = int(np.flatnonzero(outside)[0])
-        raise CountsError(f"site {sites.at[i, 'site']!r} is off the network (outside the "
-                          "area the network covers)", path=path,
-                          field=f"{sites.at[i, 'where']}: lat/lon")
+        raise CountsError(
+            f"site {sites.at[i, 'site']!r} is off the network (outside the "
+            "area the network covers)",
+            path=path,
+            field=f"{sites.at[i, 'where']}: lat/lon",
+        )
     tree = shapely.STRtree(geoms)
     (pi, ei), dist = tree.query_nearest(pts, return_distance=True, all_matches=True)
     # ties (both directions of a two-way street): the lowest edge row, for determinism
@@ -223,16 +260,20 @@ def place_sites(net: Any, counts: pd.DataFrame, *, limit_m: float = SNAP_LIMIT_M
     sites["edge"] = edge
     sites["distance_m"] = d
     sites["placed"] = d <= limit_m
-    left = [(str(s), float(dd)) for s, dd, ok in
-            zip(sites["site"], d, sites["placed"], strict=True) if not ok]
+    left = [
+        (str(s), float(dd))
+        for s, dd, ok in zip(sites["site"], d, sites["placed"], strict=True)
+        if not ok
+    ]
     return Placement(sites, left)
 
 
 # ----------------------------------------------------------------------------- design
 
 
-def period_multipliers(profile: Profile, start_minute: np.ndarray,
-                       minutes: np.ndarray) -> np.ndarray:
+def period_multipliers(
+    profile: Profile, start_minute: np.ndarray, minutes: np.ndarray
+) -> np.ndarray:
     """Return (periods, categories) mean time multipliers over each period's minutes.
 
     Uses the profile's own :meth:`~routerisk.profile.Profile.multipliers` table of the week,
@@ -271,8 +312,9 @@ class Design:
         return self.terms.index(name)
 
 
-def build_design(net: Any, counts: pd.DataFrame, placement: Placement, *,
-                 fit_baseline: bool = False) -> Design:
+def build_design(
+    net: Any, counts: pd.DataFrame, placement: Placement, *, fit_baseline: bool = False
+) -> Design:
     """Return the design matrix of the periods at placed sites (see the module docstring).
 
     With ``fit_baseline`` the baseline column is split by road class (classes with a
@@ -287,8 +329,9 @@ def build_design(net: Any, counts: pd.DataFrame, placement: Placement, *,
     per = per.reset_index(drop=True)
     edges = net.edges
     rows = per["edge"].to_numpy()
-    starts = pd.DatetimeIndex([t.astimezone(net.timezone).replace(tzinfo=None)
-                               for t in per["start"]])
+    starts = pd.DatetimeIndex(
+        [t.astimezone(net.timezone).replace(tzinfo=None) for t in per["start"]]
+    )
     mins = np.rint(per["hours"].to_numpy() * 60).astype(np.int64)
     mult = period_multipliers(prof, minute_of_week(starts), mins)
     hours = per["hours"].to_numpy(dtype=float)
@@ -296,8 +339,7 @@ def build_design(net: Any, counts: pd.DataFrame, placement: Placement, *,
     cats = list(prof.category_names)
     exp = np.column_stack([edges[f"exp_{c}"].to_numpy(dtype=float)[rows] for c in cats])
     full = np.column_stack([base, hours[:, None] * mult * exp])
-    site_exp = pd.DataFrame(exp > 0, columns=cats).assign(site=per["site"]).groupby(
-        "site").any()
+    site_exp = pd.DataFrame(exp > 0, columns=cats).assign(site=per["site"]).groupby("site").any()
     near = {c: int(site_exp[c].sum()) for c in cats}
     fitted = [c for c in cats if near[c] > 0]
     keep = [0] + [1 + cats.index(c) for c in fitted]
@@ -308,16 +350,26 @@ def build_design(net: Any, counts: pd.DataFrame, placement: Placement, *,
         live = base > 0
         by_sites = per[live].assign(road=road[live]).groupby("road")["site"].nunique()
         if len(by_sites) == 0:
-            raise CountsError("no count site is on a street with a baseline above zero",
-                              field="--fit-baseline")
+            raise CountsError(
+                "no count site is on a street with a baseline above zero", field="--fit-baseline"
+            )
         ranked = sorted(by_sites.items(), key=lambda kv: (-kv[1], kv[0]))
         fixed = str(ranked[0][0])
         classes = sorted(str(k) for k, _ in ranked[1:])
         cols = [np.where(road == fixed, base, 0.0)]
         cols += [np.where(road == c, base, 0.0) for c in classes]
         z = np.column_stack([*cols, z[:, 1:]])
-    return Design(z, per["count"].to_numpy(dtype=float), full, fitted,
-                  [c for c in cats if c not in fitted], near, per, fixed, classes)
+    return Design(
+        z,
+        per["count"].to_numpy(dtype=float),
+        full,
+        fitted,
+        [c for c in cats if c not in fitted],
+        near,
+        per,
+        fixed,
+        classes,
+    )
 
 
 def check_design(design: Design, *, path: str | Path | None = None) -> None:
@@ -325,18 +377,23 @@ def check_design(design: Design, *, path: str | Path | None = None) -> None:
     n_sites = int(design.periods["site"].nunique())
     k = design.Z.shape[1]
     if n_sites < k:
-        extra = (f" and {len(design.classes)} road-class baselines" if design.classes else "")
+        extra = f" and {len(design.classes)} road-class baselines" if design.classes else ""
         raise CountsError(
             f"{n_sites} sites were placed on the network but fitting the scale, "
             f"{len(design.categories)} weights ({', '.join(design.categories) or 'none'})"
             f"{extra} needs at least {k} "
             "sites (more, spread over the categories and hours, for useful intervals)",
-            path=path, field="site")
+            path=path,
+            field="site",
+        )
     names = design.terms
     norm = np.linalg.norm(design.Z, axis=0)
     if (norm == 0).any():
-        raise CountsError(f"the {names[int(np.flatnonzero(norm == 0)[0])]} term is zero at "
-                          "every count", path=path, field="categories")
+        raise CountsError(
+            f"the {names[int(np.flatnonzero(norm == 0)[0])]} term is zero at every count",
+            path=path,
+            field="categories",
+        )
     zn = design.Z / norm
     if np.linalg.matrix_rank(zn, tol=1e-9 * max(zn.shape)) < k:
         cos = zn.T @ zn
@@ -348,9 +405,12 @@ def check_design(design: Design, *, path: str | Path | None = None) -> None:
             _, _, vt = np.linalg.svd(zn)
             nz = [names[t] for t in np.flatnonzero(np.abs(vt[-1]) > 1e-6)]
             what = f"{', '.join(map(repr, nz))} are never apart (one is a mix of the others)"
-        raise CountsError(f"the design is singular: {what} at the count sites and hours; "
-                          "add sites where they differ, or fix one weight", path=path,
-                          field="categories")
+        raise CountsError(
+            f"the design is singular: {what} at the count sites and hours; "
+            "add sites where they differ, or fix one weight",
+            path=path,
+            field="categories",
+        )
 
 
 # ----------------------------------------------------------------------------- fitting
@@ -383,12 +443,20 @@ def loglik(y: np.ndarray, mu: np.ndarray, alpha: float = 0.0) -> float:
     if alpha <= 0:
         return float(np.sum(y * np.log(mu) - mu - gammaln(y + 1)))
     r = 1.0 / alpha
-    return float(np.sum(gammaln(y + r) - gammaln(r) - gammaln(y + 1)
-                        + y * np.log(alpha * mu / (1 + alpha * mu)) - r * np.log1p(alpha * mu)))
+    return float(
+        np.sum(
+            gammaln(y + r)
+            - gammaln(r)
+            - gammaln(y + 1)
+            + y * np.log(alpha * mu / (1 + alpha * mu))
+            - r * np.log1p(alpha * mu)
+        )
+    )
 
 
-def _information(Z: np.ndarray, y: np.ndarray, mu: np.ndarray, alpha: float, *,
-                 observed: bool) -> np.ndarray:
+def _information(
+    Z: np.ndarray, y: np.ndarray, mu: np.ndarray, alpha: float, *, observed: bool
+) -> np.ndarray:
     if observed:  # minus the Hessian of the log-likelihood in theta
         w = y / mu**2 - alpha * (alpha * y + 1) / (1 + alpha * mu) ** 2
     else:  # expected (Fisher) information
@@ -396,8 +464,15 @@ def _information(Z: np.ndarray, y: np.ndarray, mu: np.ndarray, alpha: float, *,
     return (Z * w[:, None]).T @ Z
 
 
-def _newton_step(Z: np.ndarray, y: np.ndarray, mu: np.ndarray, alpha: float,
-                 info: np.ndarray, grad: np.ndarray, free: np.ndarray) -> np.ndarray:
+def _newton_step(
+    Z: np.ndarray,
+    y: np.ndarray,
+    mu: np.ndarray,
+    alpha: float,
+    info: np.ndarray,
+    grad: np.ndarray,
+    free: np.ndarray,
+) -> np.ndarray:
     """Return the (Newton or scoring) step on the free parameters, zero elsewhere."""
     step = np.zeros(len(grad))
     if not free.any():
@@ -413,8 +488,14 @@ def _newton_step(Z: np.ndarray, y: np.ndarray, mu: np.ndarray, alpha: float,
     return step
 
 
-def fit_fixed(Z: np.ndarray, y: np.ndarray, *, alpha: float = 0.0,
-              start: np.ndarray | None = None, max_iter: int = 200) -> Fit:
+def fit_fixed(
+    Z: np.ndarray,
+    y: np.ndarray,
+    *,
+    alpha: float = 0.0,
+    start: np.ndarray | None = None,
+    max_iter: int = 200,
+) -> Fit:
     """Fit ``theta >= 0`` by Fisher scoring with an active set, at a fixed NB2 ``alpha``.
 
     ``alpha = 0`` is the Poisson model. Ends with Newton steps on the observed information
@@ -471,8 +552,9 @@ def fit_fixed(Z: np.ndarray, y: np.ndarray, *, alpha: float = 0.0,
             break
         change = np.max(np.abs(cand - theta) / np.maximum(np.abs(cand), 1e-300))
         theta, mu, ll_old, ll = cand, mu_c, ll, ll_c
-        if not capped and (change < 1e-13 or (it > 10 and abs(ll - ll_old)
-                                              <= 1e-15 * abs(ll) and change < 1e-10)):
+        if not capped and (
+            change < 1e-13 or (it > 10 and abs(ll - ll_old) <= 1e-15 * abs(ll) and change < 1e-10)
+        ):
             break
     grad = Z.T @ ((y - mu) / (mu * (1 + alpha * mu)))
     at_bound = (theta <= 0) & (grad <= 0)
@@ -483,8 +565,16 @@ def fit_fixed(Z: np.ndarray, y: np.ndarray, *, alpha: float = 0.0,
         cov[np.ix_(free, free)] = np.linalg.inv(info)
     except np.linalg.LinAlgError:
         cov[np.ix_(free, free)] = np.linalg.pinv(info)
-    return Fit("poisson" if alpha <= 0 else "negative binomial", theta, cov, at_bound,
-               float(alpha), ll, mu, it)
+    return Fit(
+        "poisson" if alpha <= 0 else "negative binomial",
+        theta,
+        cov,
+        at_bound,
+        float(alpha),
+        ll,
+        mu,
+        it,
+    )
 
 
 def fit_nb(Z: np.ndarray, y: np.ndarray, *, start: np.ndarray | None = None) -> Fit:
@@ -498,8 +588,9 @@ def fit_nb(Z: np.ndarray, y: np.ndarray, *, start: np.ndarray | None = None) -> 
         warm["theta"] = f.theta
         return -f.loglik
 
-    res = minimize_scalar(neg, bounds=(math.log(1e-8), math.log(1e2)), method="bounded",
-                          options={"xatol": 1e-9})
+    res = minimize_scalar(
+        neg, bounds=(math.log(1e-8), math.log(1e2)), method="bounded", options={"xatol": 1e-9}
+    )
     return fit_fixed(Z, y, alpha=math.exp(float(res.x)), start=warm["theta"])
 
 
@@ -527,9 +618,13 @@ def dispersion_test(y: np.ndarray, poisson: Fit, nb: Fit) -> dict[str, Any]:
     lr = max(2.0 * (nb.loglik - poisson.loglik), 0.0)
     # chi-square(1) upper tail: erfc(sqrt(x / 2))
     p = 0.5 * math.erfc(math.sqrt(lr / 2.0)) if lr > 0 else 1.0
-    return {"test": "likelihood ratio, alpha = 0 against alpha > 0 (boundary mixture)",
-            "statistic": lr, "p_value": p, "threshold": DISPERSION_P,
-            "chosen": "negative binomial" if p < DISPERSION_P else "poisson"}
+    return {
+        "test": "likelihood ratio, alpha = 0 against alpha > 0 (boundary mixture)",
+        "statistic": lr,
+        "p_value": p,
+        "threshold": DISPERSION_P,
+        "chosen": "negative binomial" if p < DISPERSION_P else "poisson",
+    }
 
 
 def weights_from(theta: np.ndarray, cov: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -574,19 +669,29 @@ class Calibration:
         se = np.sqrt(np.clip(np.diag(self.est_cov), 0, None))
         out = []
         for c in self.profile.categories:
-            rec: dict[str, Any] = {"category": c.name, "label": c.label, "judged": c.weight,
-                                   "sites_near": self.design.sites_near[c.name]}
+            rec: dict[str, Any] = {
+                "category": c.name,
+                "label": c.label,
+                "judged": c.weight,
+                "sites_near": self.design.sites_near[c.name],
+            }
             if c.name in self.design.categories:
                 j = self.design.column(c.name)
                 bound = bool(self.fit.at_bound[j])
-                rec.update(fitted=True, weight=float(self.estimate[j]), se=float(se[j]),
-                           low=max(float(self.estimate[j] - z * se[j]), 0.0),
-                           high=float(self.estimate[j] + z * se[j]), at_zero=bound)
+                rec.update(
+                    fitted=True,
+                    weight=float(self.estimate[j]),
+                    se=float(se[j]),
+                    low=max(float(self.estimate[j] - z * se[j]), 0.0),
+                    high=float(self.estimate[j] + z * se[j]),
+                    at_zero=bound,
+                )
                 if bound:
                     rec.update(se=None, low=None, high=None)
             else:
-                rec.update(fitted=False, weight=c.weight, se=None, low=None, high=None,
-                           at_zero=False)
+                rec.update(
+                    fitted=False, weight=c.weight, se=None, low=None, high=None, at_zero=False
+                )
             out.append(rec)
         return out
 
@@ -599,14 +704,27 @@ class Calibration:
         z = NormalDist().inv_cdf(0.975)
         given = dict(self.profile.baseline_by_class)
         se = np.sqrt(np.clip(np.diag(self.est_cov), 0, None))
-        out = [{"road_class": self.design.fixed_class, "judged": given.get(
-            self.design.fixed_class, self.profile.baseline_default), "fitted": False}]
+        out = [
+            {
+                "road_class": self.design.fixed_class,
+                "judged": given.get(self.design.fixed_class, self.profile.baseline_default),
+                "fitted": False,
+            }
+        ]
         for c in self.design.classes:
             j = self.design.column(f"baseline:{c}")
             b = given.get(c, self.profile.baseline_default)
             m = float(self.estimate[j])
-            out.append({"road_class": c, "judged": b, "fitted": True, "baseline": b * m,
-                        "low": max(b * (m - z * se[j]), 0.0), "high": b * (m + z * se[j])})
+            out.append(
+                {
+                    "road_class": c,
+                    "judged": b,
+                    "fitted": True,
+                    "baseline": b * m,
+                    "low": max(b * (m - z * se[j]), 0.0),
+                    "high": b * (m + z * se[j]),
+                }
+            )
         return out
 
     def summary(self) -> dict[str, Any]:
@@ -618,28 +736,38 @@ class Calibration:
         return {
             "model": self.fit.family,
             "alpha": r(self.fit.alpha, 8),
-            "dispersion_test": {k: (r(v, 8) if isinstance(v, float) else v)
-                                for k, v in self.test.items()},
-            "pearson_dispersion_poisson": r(pearson_dispersion(
-                y, self.poisson.mu, len(self.poisson.theta)), 6),
-            "pearson_dispersion": r(pearson_dispersion(y, self.fit.mu, len(self.fit.theta),
-                                                       self.fit.alpha), 6),
+            "dispersion_test": {
+                k: (r(v, 8) if isinstance(v, float) else v) for k, v in self.test.items()
+            },
+            "pearson_dispersion_poisson": r(
+                pearson_dispersion(y, self.poisson.mu, len(self.poisson.theta)), 6
+            ),
+            "pearson_dispersion": r(
+                pearson_dispersion(y, self.fit.mu, len(self.fit.theta), self.fit.alpha), 6
+            ),
             "deviance": r(deviance(y, self.fit.mu, self.fit.alpha), 6),
             "loglik": r(self.fit.loglik, 6),
-            "scale": {"estimate": r(self.estimate[0], 8), "se": r(se0, 8),
-                      "judged_weights_scale": r(self.judged_scale, 8),
-                      "unit": "pedestrians per hour per unit of presence"},
-            "weights": [{k: (r(v, 8) if isinstance(v, float) else v) for k, v in w.items()}
-                        for w in self.weights()],
+            "scale": {
+                "estimate": r(self.estimate[0], 8),
+                "se": r(se0, 8),
+                "judged_weights_scale": r(self.judged_scale, 8),
+                "unit": "pedestrians per hour per unit of presence",
+            },
+            "weights": [
+                {k: (r(v, 8) if isinstance(v, float) else v) for k, v in w.items()}
+                for w in self.weights()
+            ],
             "not_fitted": self.design.not_fitted,
-            "baselines": [{k: (r(v, 8) if isinstance(v, float) else v) for k, v in b.items()}
-                          for b in self.baselines()],
+            "baselines": [
+                {k: (r(v, 8) if isinstance(v, float) else v) for k, v in b.items()}
+                for b in self.baselines()
+            ],
             "sites": int(self.design.periods["site"].nunique()),
             "periods": len(y),
             "left_out": [{"site": s, "distance_m": r(d, 1)} for s, d in self.placement.left_out],
             "cross_validation": {k: r(v, 6) for k, v in self.cv.items()},
             "uncertainty_method": "observed information at the maximum (delta method for "
-                                  "weight = theta_c / scale)",
+            "weight = theta_c / scale)",
             "notes": self.notes,
         }
 
@@ -662,8 +790,13 @@ def cross_validate(design: Design, profile: Profile, fit: Fit) -> dict[str, floa
     judged = _judged_columns(design, profile)
     pred = np.zeros(len(design.y))
     pred_j = np.zeros(len(design.y))
-    w_judged = np.array([1.0, *([1.0] * len(design.classes)),
-                         *(profile.category(c).weight for c in design.categories)])
+    w_judged = np.array(
+        [
+            1.0,
+            *([1.0] * len(design.classes)),
+            *(profile.category(c).weight for c in design.categories),
+        ]
+    )
     for s in np.unique(sites):
         out = sites == s
         Zt, yt = design.Z[~out], design.y[~out]
@@ -681,14 +814,22 @@ def cross_validate(design: Design, profile: Profile, fit: Fit) -> dict[str, floa
         pred[out] = design.Z[out] @ theta
         pred_j[out] = judged[out] * (yt.sum() / judged[~out].sum())
     y = design.y
-    return {"rmse_fitted": float(np.sqrt(np.mean((y - pred) ** 2))),
-            "rmse_judged": float(np.sqrt(np.mean((y - pred_j) ** 2))),
-            "deviance_fitted": deviance(y, np.maximum(pred, 1e-12)) / len(y),
-            "deviance_judged": deviance(y, np.maximum(pred_j, 1e-12)) / len(y)}
+    return {
+        "rmse_fitted": float(np.sqrt(np.mean((y - pred) ** 2))),
+        "rmse_judged": float(np.sqrt(np.mean((y - pred_j) ** 2))),
+        "deviance_fitted": deviance(y, np.maximum(pred, 1e-12)) / len(y),
+        "deviance_judged": deviance(y, np.maximum(pred_j, 1e-12)) / len(y),
+    }
 
 
-def calibrate(net: Any, counts_path: str | Path, *, limit_m: float = SNAP_LIMIT_M,
-              family: str = "auto", fit_baseline: bool = False) -> Calibration:
+def calibrate(
+    net: Any,
+    counts_path: str | Path,
+    *,
+    limit_m: float = SNAP_LIMIT_M,
+    family: str = "auto",
+    fit_baseline: bool = False,
+) -> Calibration:
     """Fit the scale and the weights of ``net.profile`` to the counts in ``counts_path``.
 
     ``family`` is ``auto`` (negative binomial when the dispersion test rejects the
@@ -697,15 +838,19 @@ def calibrate(net: Any, counts_path: str | Path, *, limit_m: float = SNAP_LIMIT_
     if family not in ("auto", "poisson", "negative-binomial"):
         raise OptionError(f"unknown model {family!r}", field="--model")
     if not (limit_m > 0 and math.isfinite(limit_m)):
-        raise OptionError(f"must be a positive number of metres, got {limit_m}",
-                          field="--snap-limit")
+        raise OptionError(
+            f"must be a positive number of metres, got {limit_m}", field="--snap-limit"
+        )
     path = Path(counts_path)
     counts = read_counts(path, net.timezone)
     placement = place_sites(net, counts, limit_m=limit_m, path=path)
     if not placement.sites["placed"].any():
         s, d = placement.left_out[0]
-        raise CountsError(f"no site is within {limit_m:g} m of a street (site {s!r} is "
-                          f"{d:.0f} m away)", path=path, field="lat/lon")
+        raise CountsError(
+            f"no site is within {limit_m:g} m of a street (site {s!r} is {d:.0f} m away)",
+            path=path,
+            field="lat/lon",
+        )
     design = build_design(net, counts, placement, fit_baseline=fit_baseline)
     check_design(design, path=path)
     if design.y.sum() == 0:
@@ -713,29 +858,59 @@ def calibrate(net: Any, counts_path: str | Path, *, limit_m: float = SNAP_LIMIT_
     pois = fit_fixed(design.Z, design.y)
     nb = fit_nb(design.Z, design.y, start=pois.theta)
     test = dispersion_test(design.y, pois, nb)
-    chosen = {"auto": test["chosen"], "poisson": "poisson",
-              "negative-binomial": "negative binomial"}[family]
+    chosen = {
+        "auto": test["chosen"],
+        "poisson": "poisson",
+        "negative-binomial": "negative binomial",
+    }[family]
     fit = nb if chosen == "negative binomial" else pois
     est, est_cov = weights_from(fit.theta, fit.cov)
     judged = _judged_columns(design, net.profile)
     judged_scale = float(design.y.sum() / judged.sum())
     cv = cross_validate(design, net.profile, fit)
-    notes = ["radii, decays and time profiles are kept as the profile gives them"
-             + ("; the street baseline of every road class is fitted as a multiplier, except "
-                f"{design.fixed_class}, which is held at its value to fix the units"
-                if design.fixed_class else "; so is the street baseline (it fixes the units)"),
-             "crossings are not part of the count model (crossing_weight is kept)"]
+    notes = [
+        "radii, decays and time profiles are kept as the profile gives them"
+        + (
+            "; the street baseline of every road class is fitted as a multiplier, except "
+            f"{design.fixed_class}, which is held at its value to fix the units"
+            if design.fixed_class
+            else "; so is the street baseline (it fixes the units)"
+        ),
+        "crossings are not part of the count model (crossing_weight is kept)",
+    ]
     if design.not_fitted:
-        notes.append("no count site lies within the influence of: "
-                     + ", ".join(design.not_fitted) + "; their judged weights are kept (not "
-                     "fitted)")
+        notes.append(
+            "no count site lies within the influence of: "
+            + ", ".join(design.not_fitted)
+            + "; their judged weights are kept (not "
+            "fitted)"
+        )
     if fit.at_bound[1:].any():
-        notes.append("held at zero by the non-negativity bound: " + ", ".join(
-            c for c, b in zip(design.terms[1:], fit.at_bound[1:], strict=True) if b))
-    log.info("calibrate fitted %d weights on %d periods at %d sites (%s)",
-             len(design.categories), len(design.y), design.periods["site"].nunique(), chosen)
-    return Calibration(net.profile, design, placement, fit, pois, test, est, est_cov, cv,
-                       judged_scale, str(path), notes)
+        notes.append(
+            "held at zero by the non-negativity bound: "
+            + ", ".join(c for c, b in zip(design.terms[1:], fit.at_bound[1:], strict=True) if b)
+        )
+    log.info(
+        "calibrate fitted %d weights on %d periods at %d sites (%s)",
+        len(design.categories),
+        len(design.y),
+        design.periods["site"].nunique(),
+        chosen,
+    )
+    return Calibration(
+        net.profile,
+        design,
+        placement,
+        fit,
+        pois,
+        test,
+        est,
+        est_cov,
+        cv,
+        judged_scale,
+        str(path),
+        notes,
+    )
 
 
 # ----------------------------------------------------------------------------- output
@@ -748,8 +923,10 @@ def _profile_source(profile: Profile) -> dict[str, Any]:
 
     src = Path(profile.source) if profile.source else None
     if src is None or not src.is_file():
-        raise RouteriskError("the profile has no readable source file to write a calibrated "
-                             "copy from", path=profile.source or None)
+        raise RouteriskError(
+            "the profile has no readable source file to write a calibrated copy from",
+            path=profile.source or None,
+        )
     text = src.read_text(encoding="utf-8")
     return tomllib.loads(text) if src.suffix.lower() == ".toml" else yaml.safe_load(text)
 
@@ -758,8 +935,9 @@ def _num(x: float) -> float:
     return float(f"{float(x):.10g}")
 
 
-def calibrated_document(cal: Calibration, *, out_path: str | Path,
-                        counts_sha256: str) -> dict[str, Any]:
+def calibrated_document(
+    cal: Calibration, *, out_path: str | Path, counts_sha256: str
+) -> dict[str, Any]:
     """Return the calibrated profile as a mapping: fitted weights and an ``uncertainty`` block.
 
     Categories not fitted (no site near, or held at zero) keep their values; the block's
@@ -782,8 +960,9 @@ def calibrated_document(cal: Calibration, *, out_path: str | Path,
             rule["polygons"] = os.path.relpath(p, Path(out_path).resolve().parent)
     for b in cal.baselines():
         if b["fitted"]:
-            doc.setdefault("baseline", {}).setdefault("by_road_class", {})[b["road_class"]] = \
-                _num(b["baseline"])
+            doc.setdefault("baseline", {}).setdefault("by_road_class", {})[b["road_class"]] = _num(
+                b["baseline"]
+            )
     names = [w["category"] for w in cal.weights() if w["fitted"] and not w["at_zero"]]
     idx = [cal.design.column(n) for n in names]
     cov = cal.est_cov[np.ix_(idx, idx)]
@@ -791,11 +970,13 @@ def calibrated_document(cal: Calibration, *, out_path: str | Path,
     doc["name"] = f"{doc.get('name', 'profile')}-calibrated"
     if names:
         doc["uncertainty"] = {
-            "method": (f"observed information, {cal.fit.family} maximum likelihood "
-                       f"(alpha {_num(cal.fit.alpha)}), delta method"),
+            "method": (
+                f"observed information, {cal.fit.family} maximum likelihood "
+                f"(alpha {_num(cal.fit.alpha)}), delta method"
+            ),
             "fitted_from": f"counts sha256 {counts_sha256}; "
-                           f"{cal.design.periods['site'].nunique()} sites, "
-                           f"{len(cal.design.y)} periods",
+            f"{cal.design.periods['site'].nunique()} sites, "
+            f"{len(cal.design.y)} periods",
             "scale": _num(cal.estimate[0]),
             "weights": names,
             "covariance": [[_num(v) for v in row] for row in cov],
@@ -803,8 +984,9 @@ def calibrated_document(cal: Calibration, *, out_path: str | Path,
     return doc
 
 
-def profile_text(cal: Calibration, out: str | Path,
-                 provenance: dict[str, Any] | None = None) -> str:
+def profile_text(
+    cal: Calibration, out: str | Path, provenance: dict[str, Any] | None = None
+) -> str:
     """Return the calibrated profile as YAML text, checked to read back as a valid profile.
 
     ``provenance`` (:func:`routerisk._io.provenance`) is recorded in a comment line.
@@ -816,9 +998,13 @@ def profile_text(cal: Calibration, out: str | Path,
 
     doc = calibrated_document(cal, out_path=out, counts_sha256=sha256_file(cal.counts_path))
     made = f"# Made from: {provenance_line(provenance)}\n" if provenance else ""
-    text = ("# Calibrated by routerisk calibrate on pedestrian counts; see its report.\n"
-            + made + yaml.safe_dump(doc, sort_keys=False, allow_unicode=True, width=100,
-                           default_flow_style=None))
+    text = (
+        "# Calibrated by routerisk calibrate on pedestrian counts; see its report.\n"
+        + made
+        + yaml.safe_dump(
+            doc, sort_keys=False, allow_unicode=True, width=100, default_flow_style=None
+        )
+    )
     parse_profile(yaml.safe_load(text), path=out)  # the written file must read back
     return text
 
@@ -830,7 +1016,12 @@ def write_text(out: str | Path, text: str, *, force: bool = False) -> Path:
     return write_text_atomic(out, text, force=force)
 
 
-def write_profile(cal: Calibration, out: str | Path, *, force: bool = False,
-                  provenance: dict[str, Any] | None = None) -> Path:
+def write_profile(
+    cal: Calibration,
+    out: str | Path,
+    *,
+    force: bool = False,
+    provenance: dict[str, Any] | None = None,
+) -> Path:
     """Validate the calibrated profile and write it as YAML (atomically)."""
     return write_text(out, profile_text(cal, out, provenance), force=force)

@@ -47,14 +47,24 @@ def _scatter(cal: Calibration) -> Any:
 
 
 def _group_rows(keys: pd.Series, cal: Calibration) -> list[dict[str, Any]]:
-    df = pd.DataFrame({"key": keys.to_numpy(), "observed": cal.design.y,
-                       "predicted": cal.fit.mu, "residual": _residuals(cal)})
-    g = df.groupby("key", sort=True).agg(periods=("observed", "size"),
-                                         observed=("observed", "sum"),
-                                         predicted=("predicted", "sum"),
-                                         residual=("residual", "mean"))
-    return [{"group": str(k), **{c: (int(v) if c == "periods" else float(v))
-                                 for c, v in row.items()}} for k, row in g.iterrows()]
+    df = pd.DataFrame(
+        {
+            "key": keys.to_numpy(),
+            "observed": cal.design.y,
+            "predicted": cal.fit.mu,
+            "residual": _residuals(cal),
+        }
+    )
+    g = df.groupby("key", sort=True).agg(
+        periods=("observed", "size"),
+        observed=("observed", "sum"),
+        predicted=("predicted", "sum"),
+        residual=("residual", "mean"),
+    )
+    return [
+        {"group": str(k), **{c: (int(v) if c == "periods" else float(v)) for c, v in row.items()}}
+        for k, row in g.iterrows()
+    ]
 
 
 def _sites_map(cal: Calibration, net: Any) -> str:
@@ -66,22 +76,35 @@ def _sites_map(cal: Calibration, net: Any) -> str:
     w, e_ = float(s["lon"].min()), float(s["lon"].max())
     so, n = float(s["lat"].min()), float(s["lat"].max())
     m = mapview.new_map((w - 0.002, so - 0.002, e_ + 0.002, n + 0.002))
-    obs = cal.design.periods.assign(mu=cal.fit.mu).groupby("site").agg(
-        observed=("count", "sum"), predicted=("mu", "sum"))
+    obs = (
+        cal.design.periods.assign(mu=cal.fit.mu)
+        .groupby("site")
+        .agg(observed=("count", "sum"), predicted=("mu", "sum"))
+    )
     for row in s.itertuples(index=False):
         placed = bool(row.placed)
         if placed:
             o = obs.loc[row.site]
-            tip = (f"site {row.site}: observed {int(o['observed'])}, predicted "
-                   f"{float(o['predicted']):.0f} ({row.distance_m:.0f} m from the street)")
+            tip = (
+                f"site {row.site}: observed {int(o['observed'])}, predicted "
+                f"{float(o['predicted']):.0f} ({row.distance_m:.0f} m from the street)"
+            )
         else:
             tip = f"site {row.site}: left out, {row.distance_m:.0f} m from the nearest street"
         folium.CircleMarker(
-            [float(row.lat), float(row.lon)], radius=6,
-            color="#1d3557" if placed else "#8a8a8a", fill=True, fill_opacity=0.8,
-            tooltip=mapview.escape(tip)).add_to(m)
-    mapview.add_panel(m, mapview.legend_html(
-        "Count sites", [("#1d3557", "placed on a street"), ("#8a8a8a", "left out (too far)")]))
+            [float(row.lat), float(row.lon)],
+            radius=6,
+            color="#1d3557" if placed else "#8a8a8a",
+            fill=True,
+            fill_opacity=0.8,
+            tooltip=mapview.escape(tip),
+        ).add_to(m)
+    mapview.add_panel(
+        m,
+        mapview.legend_html(
+            "Count sites", [("#1d3557", "placed on a street"), ("#8a8a8a", "left out (too far)")]
+        ),
+    )
     return report.map_html(m, title="Count sites")
 
 
@@ -91,44 +114,96 @@ def render(cal: Calibration, net: Any, provenance: dict[str, Any]) -> str:
     weights = cal.weights()
     wrows = []
     for w in weights:
-        status = ("not fitted: no site near" if not w["fitted"] else
-                  "held at zero (bound)" if w["at_zero"] else "fitted")
-        wrows.append({"category": w["label"], "judged": w["judged"], "fitted": w["weight"],
-                      "se": w["se"], "low": w["low"], "high": w["high"],
-                      "sites": w["sites_near"], "status": status})
-    wtable = report.table_html(wrows, [
-        ("category", "category"), ("judged", "judged weight"), ("fitted", "calibrated weight"),
-        ("se", "standard error"), ("low", "95 % low"), ("high", "95 % high"),
-        ("sites", "sites near"), ("status", "status")],
-        caption="Weights before and after (intervals from the observed information)")
-    base_rows = [{"road_class": b["road_class"], "judged": b["judged"],
-                  "fitted": b.get("baseline"), "low": b.get("low"), "high": b.get("high"),
-                  "status": "fitted" if b["fitted"] else "held (sets the units)"}
-                 for b in cal.baselines()]
-    base_table = report.table_html(base_rows, [
-        ("road_class", "road class"), ("judged", "judged baseline"),
-        ("fitted", "calibrated baseline"), ("low", "95 % low"), ("high", "95 % high"),
-        ("status", "status")], caption="Street baselines (--fit-baseline)") if base_rows \
+        status = (
+            "not fitted: no site near"
+            if not w["fitted"]
+            else "held at zero (bound)"
+            if w["at_zero"]
+            else "fitted"
+        )
+        wrows.append(
+            {
+                "category": w["label"],
+                "judged": w["judged"],
+                "fitted": w["weight"],
+                "se": w["se"],
+                "low": w["low"],
+                "high": w["high"],
+                "sites": w["sites_near"],
+                "status": status,
+            }
+        )
+    wtable = report.table_html(
+        wrows,
+        [
+            ("category", "category"),
+            ("judged", "judged weight"),
+            ("fitted", "calibrated weight"),
+            ("se", "standard error"),
+            ("low", "95 % low"),
+            ("high", "95 % high"),
+            ("sites", "sites near"),
+            ("status", "status"),
+        ],
+        caption="Weights before and after (intervals from the observed information)",
+    )
+    base_rows = [
+        {
+            "road_class": b["road_class"],
+            "judged": b["judged"],
+            "fitted": b.get("baseline"),
+            "low": b.get("low"),
+            "high": b.get("high"),
+            "status": "fitted" if b["fitted"] else "held (sets the units)",
+        }
+        for b in cal.baselines()
+    ]
+    base_table = (
+        report.table_html(
+            base_rows,
+            [
+                ("road_class", "road class"),
+                ("judged", "judged baseline"),
+                ("fitted", "calibrated baseline"),
+                ("low", "95 % low"),
+                ("high", "95 % high"),
+                ("status", "status"),
+            ],
+            caption="Street baselines (--fit-baseline)",
+        )
+        if base_rows
         else ""
+    )
     fig = report.grouped_bar_chart(
         [w["category"] for w in weights],
         {"judged": [w["judged"] for w in weights], "calibrated": [w["weight"] for w in weights]},
-        title="Weights, judged and calibrated", ylabel="weight")
+        title="Weights, judged and calibrated",
+        ylabel="weight",
+    )
     test = cal.test
     y = cal.design.y
     facts_fit = [
         ("model chosen", summ["model"]),
-        ("dispersion test", f"{test['test']}: statistic {test['statistic']:.3f}, "
-                            f"p = {test['p_value']:.3g} (negative binomial when p < "
-                            f"{test['threshold']})"),
+        (
+            "dispersion test",
+            f"{test['test']}: statistic {test['statistic']:.3f}, "
+            f"p = {test['p_value']:.3g} (negative binomial when p < "
+            f"{test['threshold']})",
+        ),
         ("alpha (NB2 dispersion)", cal.fit.alpha),
-        ("Pearson dispersion, Poisson fit",
-         pearson_dispersion(y, cal.poisson.mu, len(cal.poisson.theta))),
-        ("Pearson dispersion, chosen fit",
-         pearson_dispersion(y, cal.fit.mu, len(cal.fit.theta), cal.fit.alpha)),
+        (
+            "Pearson dispersion, Poisson fit",
+            pearson_dispersion(y, cal.poisson.mu, len(cal.poisson.theta)),
+        ),
+        (
+            "Pearson dispersion, chosen fit",
+            pearson_dispersion(y, cal.fit.mu, len(cal.fit.theta), cal.fit.alpha),
+        ),
         ("deviance, chosen fit", deviance(y, cal.fit.mu, cal.fit.alpha)),
-        ("scale (pedestrians per hour per unit of presence)",
-         f"{summ['scale']['estimate']:.4g} +/- {summ['scale']['se']:.3g}"),
+        (
+            "scale (pedestrians per hour per unit of presence)",
+            f"{summ['scale']['estimate']:.4g} +/- {summ['scale']['se']:.3g}",
+        ),
         ("leave-one-site-out RMSE, calibrated", cal.cv["rmse_fitted"]),
         ("leave-one-site-out RMSE, judged weights", cal.cv["rmse_judged"]),
         ("leave-one-site-out mean deviance, calibrated", cal.cv["deviance_fitted"]),
@@ -147,43 +222,81 @@ def render(cal: Calibration, net: Any, provenance: dict[str, Any]) -> str:
     for c in cal.profile.categories:
         near = edges[f"exp_{c.name}"].to_numpy()[rows] > 0
         if near.any():
-            cat_rows.append({"group": c.label, "periods": int(near.sum()),
-                             "observed": float(y[near].sum()),
-                             "predicted": float(cal.fit.mu[near].sum()),
-                             "residual": float(res[near].mean())})
-    cols = [("group", "group"), ("periods", "periods"), ("observed", "observed"),
-            ("predicted", "predicted"), ("residual", "mean Pearson residual")]
+            cat_rows.append(
+                {
+                    "group": c.label,
+                    "periods": int(near.sum()),
+                    "observed": float(y[near].sum()),
+                    "predicted": float(cal.fit.mu[near].sum()),
+                    "residual": float(res[near].mean()),
+                }
+            )
+    cols = [
+        ("group", "group"),
+        ("periods", "periods"),
+        ("observed", "observed"),
+        ("predicted", "predicted"),
+        ("residual", "mean Pearson residual"),
+    ]
     dig = {"observed": 0, "predicted": 1, "residual": 3}
     by_hour = _group_rows(day + " " + hour, cal)
-    res_fig = report.bar_chart([r["group"] for r in by_hour], [r["residual"] for r in by_hour],
-                               title="Mean Pearson residual by start hour",
-                               xlabel="mean Pearson residual (observed above predicted > 0)")
-    left = "".join(f"<li>{report.escape(s)}: {d:.1f} m from the nearest street</li>"
-                   for s, d in cal.placement.left_out)
+    res_fig = report.bar_chart(
+        [r["group"] for r in by_hour],
+        [r["residual"] for r in by_hour],
+        title="Mean Pearson residual by start hour",
+        xlabel="mean Pearson residual (observed above predicted > 0)",
+    )
+    left = "".join(
+        f"<li>{report.escape(s)}: {d:.1f} m from the nearest street</li>"
+        for s, d in cal.placement.left_out
+    )
     body = [
-        report.section("What the counts can and cannot tell", report.paragraph(CANNOT_TELL),
-                       *(report.note_html(n) for n in cal.notes)),
-        report.section("Weights", wtable, base_table, report.figure_html(
-            fig, alt="Judged and calibrated weights by category")),
-        report.section("Fit", report.pairs_html(facts_fit, caption="Goodness of fit"),
-                       report.figure_html(_scatter(cal), alt="Observed against predicted")),
-        report.section("Residuals", report.table_html(cat_rows, cols, digits=dig,
-                                                      caption="By category (periods near it)"),
-                       report.table_html(_group_rows(road, cal), cols, digits=dig,
-                                         caption="By road class"),
-                       report.table_html(by_hour, cols, digits=dig,
-                                         caption="By day type and start hour"),
-                       report.figure_html(res_fig, alt="Residuals by start hour")),
-        report.section("Sites", _sites_map(cal, net),
-                       report.table_html(_group_rows(per["site"], cal), cols, digits=dig,
-                                         caption="Observed and predicted by site"),
-                       (f"<p>Left out (farther than the placing limit):</p><ul>{left}</ul>"
-                        if left else "")),
+        report.section(
+            "What the counts can and cannot tell",
+            report.paragraph(CANNOT_TELL),
+            *(report.note_html(n) for n in cal.notes),
+        ),
+        report.section(
+            "Weights",
+            wtable,
+            base_table,
+            report.figure_html(fig, alt="Judged and calibrated weights by category"),
+        ),
+        report.section(
+            "Fit",
+            report.pairs_html(facts_fit, caption="Goodness of fit"),
+            report.figure_html(_scatter(cal), alt="Observed against predicted"),
+        ),
+        report.section(
+            "Residuals",
+            report.table_html(cat_rows, cols, digits=dig, caption="By category (periods near it)"),
+            report.table_html(_group_rows(road, cal), cols, digits=dig, caption="By road class"),
+            report.table_html(by_hour, cols, digits=dig, caption="By day type and start hour"),
+            report.figure_html(res_fig, alt="Residuals by start hour"),
+        ),
+        report.section(
+            "Sites",
+            _sites_map(cal, net),
+            report.table_html(
+                _group_rows(per["site"], cal),
+                cols,
+                digits=dig,
+                caption="Observed and predicted by site",
+            ),
+            (f"<p>Left out (farther than the placing limit):</p><ul>{left}</ul>" if left else ""),
+        ),
     ]
-    facts = [("profile calibrated", f"{cal.profile.name} ({cal.profile.fingerprint})"),
-             ("counts", f"{summ['sites']} sites, {summ['periods']} periods")]
-    return report.page("Calibration on pedestrian counts", body, facts=facts,
-                       provenance=provenance,
-                       toc=[(report.anchor(t), t) for t in
-                            ("What the counts can and cannot tell", "Weights", "Fit",
-                             "Residuals", "Sites")])
+    facts = [
+        ("profile calibrated", f"{cal.profile.name} ({cal.profile.fingerprint})"),
+        ("counts", f"{summ['sites']} sites, {summ['periods']} periods"),
+    ]
+    return report.page(
+        "Calibration on pedestrian counts",
+        body,
+        facts=facts,
+        provenance=provenance,
+        toc=[
+            (report.anchor(t), t)
+            for t in ("What the counts can and cannot tell", "Weights", "Fit", "Residuals", "Sites")
+        ],
+    )

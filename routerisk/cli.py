@@ -20,8 +20,18 @@ from collections.abc import Sequence
 from . import __version__
 from .errors import RouteriskError
 
-COMMANDS = ("build", "score", "suggest", "review", "plan", "evidence", "watch", "calibrate",
-            "demo", "serve")
+COMMANDS = (
+    "build",
+    "score",
+    "suggest",
+    "review",
+    "plan",
+    "evidence",
+    "watch",
+    "calibrate",
+    "demo",
+    "serve",
+)
 
 
 def _available() -> dict[str, object]:
@@ -80,8 +90,9 @@ def _unknown(parser: argparse.ArgumentParser, argv: list[str]) -> str | None:
         name = token.split("=", 1)[0]
         if name in known:
             continue
-        shown = [o for a in parser._actions for o in a.option_strings
-                 if a.help != argparse.SUPPRESS]
+        shown = [
+            o for a in parser._actions for o in a.option_strings if a.help != argparse.SUPPRESS
+        ]
         close = difflib.get_close_matches(name, shown, n=1)
         return f"unknown option {name}" + (f" (did you mean {close[0]}?)" if close else "")
     return None
@@ -99,14 +110,18 @@ def build_parser() -> argparse.ArgumentParser:
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     sub.required = True
     for name, mod in _available().items():
-        p = sub.add_parser(name, help=mod.HELP, description=mod.HELP,  # type: ignore[attr-defined]
-                           allow_abbrev=False)
-        p.add_argument("--debug", action="store_true", default=argparse.SUPPRESS,
-                       help=argparse.SUPPRESS)
+        p = sub.add_parser(
+            name,
+            help=mod.HELP,
+            description=mod.HELP,  # type: ignore[attr-defined]
+            allow_abbrev=False,
+        )
+        p.add_argument(
+            "--debug", action="store_true", default=argparse.SUPPRESS, help=argparse.SUPPRESS
+        )
         mod.add_arguments(p)  # type: ignore[attr-defined]
         p.set_defaults(_run=mod.run)  # type: ignore[attr-defined]
     return parser
-
 
 
 def main(argv: Sequence[str] | None = None) -> int:

@@ -16,16 +16,19 @@ log = logging.getLogger(__name__)
 TOWN_TIMEZONE = "Etc/GMT+3"
 
 
-def run_demo(out: str | Path, *, force: bool = False,
-             echo: Callable[[str], None] = lambda s: None) -> dict[str, Any]:
+def run_demo(
+    out: str | Path, *, force: bool = False, echo: Callable[[str], None] = lambda s: None
+) -> dict[str, Any]:
     """Run every stage on the sample town, writing into ``out``; return a summary."""
     summary: dict[str, Any] = {}
     with atomic_directory(out, force=force) as tmp:
         net = build_network(datasets.get_path("town"), timezone=TOWN_TIMEZONE)
         save_network(net, tmp / "network")
         summary["network"] = net.summary()
-        echo(f"network: {summary['network']['edges']} edges, "
-             f"{summary['network']['length_km']:.1f} km; sources {summary['network']['sources']}")
+        echo(
+            f"network: {summary['network']['edges']} edges, "
+            f"{summary['network']['length_km']:.1f} km; sources {summary['network']['sources']}"
+        )
         mapview.save(mapview.network_map(net), tmp / "network_map.html")
         echo("network map: network_map.html")
         for stage in _STAGES:
@@ -33,9 +36,12 @@ def run_demo(out: str | Path, *, force: bool = False,
             if part:
                 summary.update(part)
         summary["made_from"] = provenance(
-            profile=net.profile.fingerprint, network=net,
-            inputs={k: datasets.get_path(k) for k in ("routes", "area", "events", "drives",
-                                                      "counts")})
+            profile=net.profile.fingerprint,
+            network=net,
+            inputs={
+                k: datasets.get_path(k) for k in ("routes", "area", "events", "drives", "counts")
+            },
+        )
         (tmp / "summary.json").write_text(dumps_json(summary) + "\n", encoding="utf-8")
     echo(CAUTION)
     return summary
@@ -49,10 +55,17 @@ def _stage_score(net: Any, out: Path, echo: Callable[[str], None]) -> dict[str, 
 
     planned = routes.read_routes(datasets.get_path("routes"), default_tz=net.timezone)
     scores = scoring.score_routes(net, planned)
-    routemap.write_outputs(net, scores, out / "scores",
-                           inputs={"routes": datasets.get_path("routes")})
-    echo("scores: " + "; ".join(f"{s.name} risk {s.risk:.2f} (index {s.relative_index:.2f}, "
-                               f"{len(s.rule_breaks)} rule breaks)" for s in scores))
+    routemap.write_outputs(
+        net, scores, out / "scores", inputs={"routes": datasets.get_path("routes")}
+    )
+    echo(
+        "scores: "
+        + "; ".join(
+            f"{s.name} risk {s.risk:.2f} (index {s.relative_index:.2f}, "
+            f"{len(s.rule_breaks)} rule breaks)"
+            for s in scores
+        )
+    )
     return {"scores": [s.to_dict() for s in scores]}
 
 
@@ -62,9 +75,10 @@ def _stage_suggest(net: Any, out: Path, echo: Callable[[str], None]) -> dict[str
 
     planned = routes.read_routes(datasets.get_path("routes"), default_tz=net.timezone)
     result = suggest_routes(net, planned)
-    mapview.save(routemap.suggestion_map(net, result,
-                                         inputs={"routes": datasets.get_path("routes")}),
-                 out / "alternatives_map.html")
+    mapview.save(
+        routemap.suggestion_map(net, result, inputs={"routes": datasets.get_path("routes")}),
+        out / "alternatives_map.html",
+    )
     for s in result:
         best = min((a.risk_change_pct for a in s.alternatives), default=0.0)
         echo(f"alternatives for {s.name}: {len(s.alternatives)}, best risk change {best:+.0f} %")
@@ -78,14 +92,19 @@ def _stage_review(net: Any, out: Path, echo: Callable[[str], None]) -> dict[str,
     from . import review
 
     areas = review.read_areas(datasets.get_path("area"), crs=net.crs)
-    what_if = review.parse_what_if([f"rule:{net.profile.rules[0].name}=off"], net.profile) if \
-        net.profile.rules else None
+    what_if = (
+        review.parse_what_if([f"rule:{net.profile.rules[0].name}=off"], net.profile)
+        if net.profile.rules
+        else None
+    )
     result = review.review_areas(net, areas, what_ifs=[what_if] if what_if else [])
     review.write_review(result, out=out / "review")
     data = result.to_json()
     for a in data["areas"]:
-        echo(f"area {a['name']}: {a['network_km']:.1f} km, peak closed "
-             f"{max(a['closed_km_by_hour']):.1f} km, {len(a['allowed_parts'])} allowed part(s)")
+        echo(
+            f"area {a['name']}: {a['network_km']:.1f} km, peak closed "
+            f"{max(a['closed_km_by_hour']):.1f} km, {len(a['allowed_parts'])} allowed part(s)"
+        )
     return {"review": data}
 
 
@@ -99,16 +118,20 @@ def _stage_evidence(net: Any, out: Path, echo: Callable[[str], None]) -> dict[st
     inputs = evidence.EvidenceInputs(benchmark=11.0, per=1e9)
     plan = evidence.plan_evidence(inputs)
     frame = evidence.segments_from_drives(net, datasets.get_path("drives"))
-    plan = plan.with_exposure(evidence.distance_by_exposure(
-        frame, needed=plan.miles_no_failure, units=inputs.units))
-    made_from = provenance(profile=net.profile.fingerprint, network=net,
-                           inputs={"drives": datasets.get_path("drives")})
+    plan = plan.with_exposure(
+        evidence.distance_by_exposure(frame, needed=plan.miles_no_failure, units=inputs.units)
+    )
+    made_from = provenance(
+        profile=net.profile.fingerprint, network=net, inputs={"drives": datasets.get_path("drives")}
+    )
     lines = evidence.describe(plan)
     lines.insert(-1, f"Made from: {provenance_line(made_from)}.")
     (out / "evidence.txt").write_text("\n".join(lines) + "\n", encoding="utf-8")
     evidence.plot_upper_limit(plan, out / "evidence_chart.png", made_from=made_from)
-    echo(f"evidence: {plan.miles_no_failure / 1e6:.0f} million mi with no event to show the "
-         f"target; the sample drives cover {frame['length_m'].sum() / 1609.344:.1f} mi")
+    echo(
+        f"evidence: {plan.miles_no_failure / 1e6:.0f} million mi with no event to show the "
+        f"target; the sample drives cover {frame['length_m'].sum() / 1609.344:.1f} mi"
+    )
     return {"evidence": plan.to_json()}
 
 
@@ -119,14 +142,19 @@ def _stage_watch(net: Any, out: Path, echo: Callable[[str], None]) -> dict[str, 
     from . import watch
 
     result = watch.watch(net, datasets.get_path("events"), datasets.get_path("drives"))
-    watch.write_outputs(net, result, out / "warnings",
-                        inputs={"events": datasets.get_path("events"),
-                                "drives": datasets.get_path("drives")})
+    watch.write_outputs(
+        net,
+        result,
+        out / "warnings",
+        inputs={"events": datasets.get_path("events"), "drives": datasets.get_path("drives")},
+    )
     flagged = result.segments[result.segments["flagged"]]
     streets = sorted(set(flagged["street"]))
-    echo(f"early warnings: {len(result.matched)} events matched, {len(flagged)} "
-         f"{result.unit}(s) flagged ({', '.join(streets) or 'none'}; {result.test_used} test), "
-         f"{len(result.alerts)} CUSUM alert(s)")
+    echo(
+        f"early warnings: {len(result.matched)} events matched, {len(flagged)} "
+        f"{result.unit}(s) flagged ({', '.join(streets) or 'none'}; {result.test_used} test), "
+        f"{len(result.alerts)} CUSUM alert(s)"
+    )
     return {"warnings": result.to_dict()}
 
 
@@ -140,11 +168,12 @@ def _stage_plan(net: Any, out: Path, echo: Callable[[str], None]) -> dict[str, A
 
     runs = planning.read_runs(datasets.get_path("runs"))
     plan = dayplan.plan_day(net, runs, dt.date(2027, 3, 9), vehicles=2)
-    dayplan.write_outputs(net, plan, out / "day_plan",
-                          inputs={"runs": datasets.get_path("runs")})
+    dayplan.write_outputs(net, plan, out / "day_plan", inputs={"runs": datasets.get_path("runs")})
     d = plan.to_dict()
-    echo(f"day plan {d['date']}: {len(d['runs'])} runs placed ({d['status']}), total risk "
-         f"{d['total_risk']:.2f} against {d['naive_total_risk']:.2f} for the naive plan")
+    echo(
+        f"day plan {d['date']}: {len(d['runs'])} runs placed ({d['status']}), total risk "
+        f"{d['total_risk']:.2f} against {d['naive_total_risk']:.2f} for the naive plan"
+    )
     return {"day_plan": d}
 
 
@@ -164,24 +193,28 @@ def _stage_calibrate(net: Any, out: Path, echo: Callable[[str], None]) -> dict[s
     cal = calibration.calibrate(net, counts)
     folder = out / "calibration"
     folder.mkdir()
-    made_from = provenance(profile=net.profile.fingerprint, network=net,
-                           inputs={"counts": counts})
+    made_from = provenance(profile=net.profile.fingerprint, network=net, inputs={"counts": counts})
     calibration.write_profile(cal, folder / "profile.yaml", provenance=made_from)
     write_report(folder / "report.html", calibration_report.render(cal, net, made_from))
     fitted = net.retag(load_profile(folder / "profile.yaml"))
     planned = routes.read_routes(datasets.get_path("routes"), default_tz=net.timezone)
     before = scoring.score_routes(net, planned)
     after = scoring.score_routes(fitted, planned)
-    unc = uncertainty.summarise(fitted, after, 4000, uncertainty.DEFAULT_SEED,
-                                same_depart_only=False)
-    record = {"made_from": provenance(profile=fitted.profile.fingerprint, network=fitted,
-                                      inputs={"counts": counts,
-                                              "routes": datasets.get_path("routes")}),
-              "calibrated_from_profile": net.profile.fingerprint, **unc}
+    unc = uncertainty.summarise(
+        fitted, after, 4000, uncertainty.DEFAULT_SEED, same_depart_only=False
+    )
+    record = {
+        "made_from": provenance(
+            profile=fitted.profile.fingerprint,
+            network=fitted,
+            inputs={"counts": counts, "routes": datasets.get_path("routes")},
+        ),
+        "calibrated_from_profile": net.profile.fingerprint,
+        **unc,
+    }
     (folder / "uncertainty.json").write_text(dumps_json(record) + "\n", encoding="utf-8")
     old, new = _ranking(before), _ranking(after)
-    probs = {(p["a"].split(" @ ")[0], p["b"].split(" @ ")[0]): p["p_a_lower"]
-             for p in unc["pairs"]}
+    probs = {(p["a"].split(" @ ")[0], p["b"].split(" @ ")[0]): p["p_a_lower"] for p in unc["pairs"]}
 
     def p_lower(a: str, b: str) -> float:
         return probs[(a, b)] if (a, b) in probs else 1.0 - probs[(b, a)]
@@ -189,21 +222,31 @@ def _stage_calibrate(net: Any, out: Path, echo: Callable[[str], None]) -> dict[s
     # the ranking is by falling risk: each next route should be the lower one
     sure = min((p_lower(b, a) for a, b in zip(new, new[1:], strict=False)), default=1.0)
     summ = cal.summary()
-    moved = ", ".join(f"{w['category']} {w['judged']:g} -> {w['weight']:.2f}"
-                      for w in summ["weights"] if w["fitted"] and abs(w["weight"] - w["judged"])
-                      > 0.25 * max(w["judged"], 0.1))
-    echo(f"calibration on {summ['sites']} count sites ({summ['model']}): {moved or 'no weight'}"
-         " moved by more than a quarter")
-    change = (f"unchanged ({' > '.join(new)})" if old == new else
-              "changed from " + " > ".join(old) + " to " + " > ".join(new))
+    moved = ", ".join(
+        f"{w['category']} {w['judged']:g} -> {w['weight']:.2f}"
+        for w in summ["weights"]
+        if w["fitted"] and abs(w["weight"] - w["judged"]) > 0.25 * max(w["judged"], 0.1)
+    )
+    echo(
+        f"calibration on {summ['sites']} count sites ({summ['model']}): {moved or 'no weight'}"
+        " moved by more than a quarter"
+    )
+    change = (
+        f"unchanged ({' > '.join(new)})"
+        if old == new
+        else "changed from " + " > ".join(old) + " to " + " > ".join(new)
+    )
     rel = {b.name: a.risk / b.risk - 1 for a, b in zip(after, before, strict=True) if b.risk}
     big = max(sorted(rel), key=lambda k: abs(rel[k])) if rel else None
-    echo(f"ranking by risk under the calibrated profile {change}"
-         + (f"; largest change {big} {100 * rel[big]:+.0f} %" if big else "")
-         + f"; each step of the ranking holds in at least {100 * sure:.1f} % of "
-           f"{unc['draws']} weight draws")
-    return {"calibration": {**summ, "ranking_before": old, "ranking_after": new,
-                            "uncertainty": unc}}
+    echo(
+        f"ranking by risk under the calibrated profile {change}"
+        + (f"; largest change {big} {100 * rel[big]:+.0f} %" if big else "")
+        + f"; each step of the ranking holds in at least {100 * sure:.1f} % of "
+        f"{unc['draws']} weight draws"
+    )
+    return {
+        "calibration": {**summ, "ranking_before": old, "ranking_after": new, "uncertainty": unc}
+    }
 
 
 _STAGES.append(_stage_calibrate)

@@ -453,8 +453,9 @@ def _nb_loglik(k: NDArray[np.float64], e: NDArray[np.float64], m: float, phi: fl
     return float(np.sum(ll))
 
 
-def _nb_score(k: NDArray[np.float64], e: NDArray[np.float64], m: float, phi: float
-              ) -> NDArray[np.float64]:
+def _nb_score(
+    k: NDArray[np.float64], e: NDArray[np.float64], m: float, phi: float
+) -> NDArray[np.float64]:
     """Return the gradient of :func:`_nb_loglik` in ``(log m, phi)``.
 
     ``d/dlog m = sum (k - x) / (1 + phi x)`` and ``d/dphi = sum [sum_{j<k} j / (1 + j phi)
@@ -566,8 +567,11 @@ def fit_gamma_prior(
         return -_nb_loglik(k, e, math.exp(float(theta[0])), float(theta[1]))
 
     res = optimize.minimize(
-        neg, x0, jac=lambda th: -_nb_score(k, e, math.exp(float(th[0])), float(th[1])),
-        method="L-BFGS-B", bounds=[(None, None), (0.0, _PHI_MAX)],
+        neg,
+        x0,
+        jac=lambda th: -_nb_score(k, e, math.exp(float(th[0])), float(th[1])),
+        method="L-BFGS-B",
+        bounds=[(None, None), (0.0, _PHI_MAX)],
         options={"ftol": 1e-14, "gtol": 1e-10, "maxiter": 2000},
     )
     m_ml, phi = math.exp(float(res.x[0])), float(res.x[1])
@@ -602,8 +606,9 @@ def _prior_pvalues(
     return np.asarray(stats.nbinom.sf(k - 1, prior.shape, p), dtype=float)
 
 
-def _refit(k: NDArray[np.float64], e: NDArray[np.float64], start: tuple[float, float]
-           ) -> GammaPrior:
+def _refit(
+    k: NDArray[np.float64], e: NDArray[np.float64], start: tuple[float, float]
+) -> GammaPrior:
     """Refit the likelihood prior from a nearby optimum by Newton steps on the score.
 
     Used when one unit is left out: the optimum moves little, so a few Newton steps (Hessian
@@ -624,8 +629,10 @@ def _refit(k: NDArray[np.float64], e: NDArray[np.float64], start: tuple[float, f
                 up, dn = th.copy(), th.copy()
                 up[j] += d
                 dn[j] -= d
-                hs[:, j] = (_nb_score(kk, ee, math.exp(up[0]), up[1])
-                            - _nb_score(kk, ee, math.exp(dn[0]), dn[1])) / (2 * d)
+                hs[:, j] = (
+                    _nb_score(kk, ee, math.exp(up[0]), up[1])
+                    - _nb_score(kk, ee, math.exp(dn[0]), dn[1])
+                ) / (2 * d)
             hs = (hs + hs.T) / 2
             if not (hs[0, 0] < 0 and np.linalg.det(hs) > 0):
                 break
@@ -639,8 +646,9 @@ def _refit(k: NDArray[np.float64], e: NDArray[np.float64], start: tuple[float, f
                 if _nb_loglik(kk, ee, m, phi) > _nb_loglik(kk, ee, m_pool, 0.0):
                     _, v_mom = _moment_fit(kk, ee)
                     a = 1.0 / phi
-                    return GammaPrior(a, a / m, m, m * m * phi, v_mom, "likelihood", False,
-                                      int(kk.size))
+                    return GammaPrior(
+                        a, a / m, m, m * m * phi, v_mom, "likelihood", False, int(kk.size)
+                    )
                 break
     return fit_gamma_prior(k, e, method="likelihood", start=start)
 
@@ -663,7 +671,7 @@ def loo_prior_pvalues(events: ArrayLike, exposure: ArrayLike) -> NDArray[np.floa
         keep[i] = False
         prior = _refit(k[keep], e[keep], start)
         keep[i] = True
-        p[i] = float(_prior_pvalues(k[i:i + 1], e[i:i + 1], prior)[0])
+        p[i] = float(_prior_pvalues(k[i : i + 1], e[i : i + 1], prior)[0])
     return p
 
 
@@ -723,8 +731,9 @@ def unit_rates(
     """
     _check_q(q)
     if pvalue not in ("poisson", "prior", "prior_loo"):
-        raise OptionError(f"unknown p-value kind {pvalue!r} (poisson, prior, prior_loo)",
-                          field="pvalue")
+        raise OptionError(
+            f"unknown p-value kind {pvalue!r} (poisson, prior, prior_loo)", field="pvalue"
+        )
     cols = [unit, events, km] + ([weight] if weight is not None else [])
     for col in cols:
         if col not in table.columns:
@@ -774,7 +783,12 @@ def unit_rates(
     )
     log.info(
         "unit_rates: %d units, %d events, prior %s (collapsed=%s), %d flagged at q=%g",
-        len(out), int(k.sum()), method, prior.collapsed, int(out["flagged"].sum()), q,
+        len(out),
+        int(k.sum()),
+        method,
+        prior.collapsed,
+        int(out["flagged"].sum()),
+        q,
     )
     return out, prior
 
@@ -908,8 +922,13 @@ class CusumDesign:
     def as_dict(self) -> dict[str, Any]:
         """Return the design as JSON-safe values."""
         return {
-            "mu0": self.mu0, "ratio": self.ratio, "k": self.k, "h": self.h,
-            "arl0_target": self.arl0_target, "arl0": self.arl0, "arl1": self.arl1,
+            "mu0": self.mu0,
+            "ratio": self.ratio,
+            "k": self.k,
+            "h": self.h,
+            "arl0_target": self.arl0_target,
+            "arl0": self.arl0,
+            "arl1": self.arl1,
             "grid": self.grid,
         }
 
@@ -1049,7 +1068,8 @@ def design_cusum(
         if hi > 1_000_000:
             raise OptionError(
                 "no decision interval reaches this ARL0 within the lattice; lower arl0 or use "
-                "longer periods", field="arl0",
+                "longer periods",
+                field="arl0",
             )
     while hi - lo > 1:
         mid = (lo + hi) // 2
@@ -1058,13 +1078,23 @@ def design_cusum(
         else:
             lo = mid
     design = CusumDesign(
-        mu0=float(mu0), ratio=float(ratio), k=kk / grid, h=hi / grid,
-        arl0_target=float(arl0), arl0=arl(hi),
-        arl1=_arl_lattice(float(mu0) * ratio, kk, hi, grid), grid=grid,
+        mu0=float(mu0),
+        ratio=float(ratio),
+        k=kk / grid,
+        h=hi / grid,
+        arl0_target=float(arl0),
+        arl0=arl(hi),
+        arl1=_arl_lattice(float(mu0) * ratio, kk, hi, grid),
+        grid=grid,
     )
     log.info(
         "design_cusum: mu0=%g ratio=%g k=%g h=%g ARL0=%.1f ARL1=%.2f",
-        mu0, ratio, design.k, design.h, design.arl0, design.arl1,
+        mu0,
+        ratio,
+        design.k,
+        design.h,
+        design.arl0,
+        design.arl1,
     )
     return design
 
@@ -1129,16 +1159,18 @@ def cusum_alerts(
     mu = table[expected].to_numpy(dtype=float)
     if np.any(~np.isfinite(mu)) or np.any(mu < 0):
         raise InputFileError("expected counts must be finite and non-negative", field=expected)
-    work = pd.DataFrame({"g": table[group].to_numpy(), "t": table[period].to_numpy(),
-                         "x": k, "mu": mu}).sort_values(["g", "t"], kind="stable")
+    work = pd.DataFrame(
+        {"g": table[group].to_numpy(), "t": table[period].to_numpy(), "x": k, "mu": mu}
+    ).sort_values(["g", "t"], kind="stable")
     rows = []
     for g, part in work.groupby("g", sort=True):
         s = cusum_path(part["x"].to_numpy(), part["mu"].to_numpy(), design=design)
         hit = np.flatnonzero(design.alarm(s))
         if hit.size:
             i = int(hit[0])
-            rows.append({group: g, period: part["t"].iat[i], "statistic": float(s[i]),
-                         "h": design.h})
+            rows.append(
+                {group: g, period: part["t"].iat[i], "statistic": float(s[i]), "h": design.h}
+            )
     out = pd.DataFrame(rows, columns=[group, period, "statistic", "h"])
     if len(out):
         out = out.sort_values([period, group], kind="stable").reset_index(drop=True)
@@ -1196,17 +1228,19 @@ class Dispersion:
     def as_dict(self) -> dict[str, Any]:
         """Return the test as JSON-safe, rounded values."""
         return {
-            "pearson_chi2": round(self.pearson_chi2, 6), "df": self.df,
+            "pearson_chi2": round(self.pearson_chi2, 6),
+            "df": self.df,
             "pearson_ratio": round(self.pearson_ratio, 6),
             "pearson_p": float(f"{self.pearson_p:.6g}"),
             "negbin_inv_shape": round(self.inv_shape, 6),
-            "lr_stat": round(self.lr_stat, 6), "lr_p": float(f"{self.lr_p:.6g}"),
-            "alpha": self.alpha, "significant": self.significant,
+            "lr_stat": round(self.lr_stat, 6),
+            "lr_p": float(f"{self.lr_p:.6g}"),
+            "alpha": self.alpha,
+            "significant": self.significant,
         }
 
 
-def dispersion_test(events: ArrayLike, exposure: ArrayLike, *, alpha: float = 0.05
-                    ) -> Dispersion:
+def dispersion_test(events: ArrayLike, exposure: ArrayLike, *, alpha: float = 0.05) -> Dispersion:
     """Test the unit counts for extra-Poisson variation (see :class:`Dispersion`).
 
     Parameters
@@ -1238,8 +1272,7 @@ def dispersion_test(events: ArrayLike, exposure: ArrayLike, *, alpha: float = 0.
 # ---------------------------------------------------------------------------------------------
 
 
-def family_arl(designs: list[CusumDesign], *, tol: float = 1e-12, max_steps: int = 20000
-               ) -> float:
+def family_arl(designs: list[CusumDesign], *, tol: float = 1e-12, max_steps: int = 20000) -> float:
     """Return the in-control run length of a family of independent charts run together.
 
     The family alarms at the first alarm of any chart, so its run length is the minimum of
@@ -1252,8 +1285,7 @@ def family_arl(designs: list[CusumDesign], *, tol: float = 1e-12, max_steps: int
     """
     if not designs:
         raise OptionError("no charts in the family", field="charts")
-    qs = [_transient(d.mu0, _lattice(d.k, d.grid), _lattice(d.h, d.grid), d.grid)
-          for d in designs]
+    qs = [_transient(d.mu0, _lattice(d.k, d.grid), _lattice(d.h, d.grid), d.grid) for d in designs]
     q = sparse.block_diag(qs, format="csr")
     starts = np.concatenate([[0], np.cumsum([m.shape[0] for m in qs])[:-1]])
     v = np.ones(q.shape[0])
@@ -1272,8 +1304,9 @@ def family_arl(designs: list[CusumDesign], *, tol: float = 1e-12, max_steps: int
     return total + surv / (1.0 - prev_ratio) if prev_ratio < 1 else math.inf
 
 
-def false_alarms_per(days: float, designs: list[CusumDesign],
-                     shares: ArrayLike | None = None) -> float:
+def false_alarms_per(
+    days: float, designs: list[CusumDesign], shares: ArrayLike | None = None
+) -> float:
     """Return the expected false alarms of a family over ``days`` periods of driving.
 
     Chart ``i`` runs on a share ``s_i`` of the periods (1 by default) and alarms falsely

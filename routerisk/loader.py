@@ -35,17 +35,42 @@ log = logging.getLogger(__name__)
 #: Speed assumed by road class where no edge of that class has a maxspeed (km/h; common
 #: practice for US-style urban streets, no source; the user can override).
 DEFAULT_CLASS_KPH = {
-    "motorway": 105.0, "motorway_link": 65.0, "trunk": 90.0, "trunk_link": 55.0,
-    "primary": 65.0, "primary_link": 50.0, "secondary": 56.0, "secondary_link": 45.0,
-    "tertiary": 48.0, "tertiary_link": 40.0, "unclassified": 40.0, "residential": 40.0,
-    "living_street": 10.0, "road": 40.0, "busway": 40.0,
+    "motorway": 105.0,
+    "motorway_link": 65.0,
+    "trunk": 90.0,
+    "trunk_link": 55.0,
+    "primary": 65.0,
+    "primary_link": 50.0,
+    "secondary": 56.0,
+    "secondary_link": 45.0,
+    "tertiary": 48.0,
+    "tertiary_link": 40.0,
+    "unclassified": 40.0,
+    "residential": 40.0,
+    "living_street": 10.0,
+    "road": 40.0,
+    "busway": 40.0,
 }
 FALLBACK_KPH = 40.0
 
 # Road classes from highest to lowest, for choosing one class for a merged edge.
-CLASS_RANK = ("motorway", "trunk", "primary", "secondary", "tertiary", "motorway_link",
-              "trunk_link", "primary_link", "secondary_link", "tertiary_link",
-              "unclassified", "residential", "living_street", "road", "busway")
+CLASS_RANK = (
+    "motorway",
+    "trunk",
+    "primary",
+    "secondary",
+    "tertiary",
+    "motorway_link",
+    "trunk_link",
+    "primary_link",
+    "secondary_link",
+    "tertiary_link",
+    "unclassified",
+    "residential",
+    "living_street",
+    "road",
+    "busway",
+)
 _ONEWAY = {"yes", "true", "1", "-1", "reverse", "T", "F"}
 _REVERSED = {"-1", "reverse", "T"}
 
@@ -83,8 +108,15 @@ def _graph_from_raw(raw: RawOSM) -> nx.MultiDiGraph:
             "oneway": bool(oneway),
             "reversed": bool(oneway and oneway_tag in _REVERSED),
         }
-        for key in ("name", "lanes", "maxspeed", "sidewalk", "ref", "hazard",
-                    "maxspeed:conditional"):
+        for key in (
+            "name",
+            "lanes",
+            "maxspeed",
+            "sidewalk",
+            "ref",
+            "hazard",
+            "maxspeed:conditional",
+        ):
             if key in tags:
                 attrs[key] = tags[key]
         lengths = ox.distance.great_circle(ll[:-1, 1], ll[:-1, 0], ll[1:, 1], ll[1:, 0])
@@ -100,8 +132,9 @@ def _graph_from_raw(raw: RawOSM) -> nx.MultiDiGraph:
 
 def _first_class(value: Any) -> str:
     if isinstance(value, list):
-        ranked = sorted(value, key=lambda v: (CLASS_RANK.index(v) if v in CLASS_RANK else 99,
-                                              str(v)))
+        ranked = sorted(
+            value, key=lambda v: (CLASS_RANK.index(v) if v in CLASS_RANK else 99, str(v))
+        )
         return str(ranked[0])
     return str(value)
 
@@ -137,15 +170,17 @@ def normalise_attrs(d: dict[str, Any]) -> None:
     d["highway"] = _first_class(d.get("highway"))
     d["name"] = _name(d.get("name"))
     d["lanes"] = _lanes(d["lanes"]) if "lanes" in d else None
-    d["oneway"] = bool(d["oneway"]) if not isinstance(d.get("oneway"), list) else any(
-        d["oneway"])
+    d["oneway"] = bool(d["oneway"]) if not isinstance(d.get("oneway"), list) else any(d["oneway"])
     if isinstance(d.get("sidewalk"), list):
         d["sidewalk"] = sorted(str(x) for x in d["sidewalk"])[0]
     if isinstance(d.get("osmid"), list):
         d["osmid"] = min(int(x) for x in d["osmid"])
     if "maxspeed" in d:
-        d["maxspeed_raw"] = d["maxspeed"] if isinstance(d["maxspeed"], str) else ";".join(
-            sorted(map(str, d["maxspeed"])))
+        d["maxspeed_raw"] = (
+            d["maxspeed"]
+            if isinstance(d["maxspeed"], str)
+            else ";".join(sorted(map(str, d["maxspeed"])))
+        )
         kph = speeds.parse_maxspeed(d["maxspeed"])
         if kph is None:
             del d["maxspeed"]
@@ -180,8 +215,7 @@ def graph_from_raw_reference(
     import osmnx as ox
 
     if not raw.ways:
-        raise EmptyNetworkError("holds no drivable roads (after the drive filter)",
-                                path=raw.path)
+        raise EmptyNetworkError("holds no drivable roads (after the drive filter)", path=raw.path)
     G = _graph_from_raw(raw)
     if simplify:
         G = ox.simplification.simplify_graph(G)
@@ -204,15 +238,14 @@ def graph_from_raw_reference(
     return G
 
 
-def _fast_frames(raw: RawOSM, largest_component: bool, simplify: bool
-                 ) -> _simplify.Frames | None:
+def _fast_frames(raw: RawOSM, largest_component: bool, simplify: bool) -> _simplify.Frames | None:
     """Return the array-built frames, or None when osmnx's own steps must be used."""
     if not raw.ways:
-        raise EmptyNetworkError("holds no drivable roads (after the drive filter)",
-                                path=raw.path)
+        raise EmptyNetworkError("holds no drivable roads (after the drive filter)", path=raw.path)
     try:
-        fr = _simplify.build_frames(raw, largest_component=largest_component,
-                                    simplify_graph=simplify)
+        fr = _simplify.build_frames(
+            raw, largest_component=largest_component, simplify_graph=simplify
+        )
     except _simplify.NeedsReference as why:
         log.info("%s: %s; using osmnx's own simplification", raw.path, why)
         return None
@@ -233,8 +266,7 @@ def frames_from_raw(
     if fr is None:
         import osmnx as ox
 
-        G = graph_from_raw_reference(raw, largest_component=largest_component,
-                                     simplify=simplify)
+        G = graph_from_raw_reference(raw, largest_component=largest_component, simplify=simplify)
         nodes, edges = ox.convert.graph_to_gdfs(G)
         cols = list(dict.fromkeys(k for _, _, d in G.edges(data=True) for k in d))
         fr = _simplify.Frames(nodes, edges, dict(G.graph), cols)
@@ -247,12 +279,14 @@ def graph_from_raw(
     """Build the projected drivable graph from an already-read OSM file."""
     fr = _fast_frames(raw, largest_component, simplify)
     if fr is None:
-        G = graph_from_raw_reference(raw, largest_component=largest_component,
-                                     simplify=simplify)
+        G = graph_from_raw_reference(raw, largest_component=largest_component, simplify=simplify)
     else:
         G = _simplify.graph_from_frames(fr)
-    log.info("graph_from_raw returned graph with %d nodes and %d edges",
-             G.number_of_nodes(), G.number_of_edges())
+    log.info(
+        "graph_from_raw returned graph with %d nodes and %d edges",
+        G.number_of_nodes(),
+        G.number_of_edges(),
+    )
     return G
 
 
@@ -270,8 +304,7 @@ def graph_from_file(
     simplify
         Merge chains of interstitial nodes into single edges (osmnx's simplification).
     """
-    return graph_from_raw(read_osm(path), largest_component=largest_component,
-                          simplify=simplify)
+    return graph_from_raw(read_osm(path), largest_component=largest_component, simplify=simplify)
 
 
 def graph_from_place(query: str, *, largest_component: bool = True) -> nx.MultiDiGraph:
@@ -279,8 +312,9 @@ def graph_from_place(query: str, *, largest_component: bool = True) -> nx.MultiD
     import osmnx as ox
 
     try:
-        G = ox.graph_from_place(query, network_type="drive", simplify=True,
-                                retain_all=not largest_component)
+        G = ox.graph_from_place(
+            query, network_type="drive", simplify=True, retain_all=not largest_component
+        )
     except Exception as exc:  # noqa: BLE001 - osmnx raises many kinds when offline
         raise OfflineError(
             f"could not download the road network for {query!r} ({type(exc).__name__}); "

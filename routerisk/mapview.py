@@ -40,9 +40,15 @@ BAND_COLOURS = BAND_RAMP
 ROUTE_COLOURS = ("#111111", "#00a3c4", "#7a4fc4", "#6b7a1a", "#274060", "#808080")
 ROUTE_DASHES = (None, "10 6", "2 6", "14 5 3 5", "6 3", "1 4 8 4")
 #: Exposure categories are told apart by the point symbol; every symbol is drawn in ink.
-CATEGORY_SHAPES = {"school": "triangle", "campus": "square", "retail": "circle",
-                   "commercial": "diamond", "transit": "plus", "park": "hexagon",
-                   "hospital": "cross"}
+CATEGORY_SHAPES = {
+    "school": "triangle",
+    "campus": "square",
+    "retail": "circle",
+    "commercial": "diamond",
+    "transit": "plus",
+    "park": "hexagon",
+    "hospital": "cross",
+}
 SYMBOL_INK = "#23303c"
 CATEGORY_COLOURS = {c: SYMBOL_INK for c in CATEGORY_SHAPES}
 #: Rule zones (wide translucent band under the streets) and rule-break markers.
@@ -53,21 +59,37 @@ BACKGROUND = "#e6e3db"
 CONTEXT_STYLE = {
     "park": {"color": "#b9d3a4", "fillColor": "#c9dfb6", "weight": 0.5, "fillOpacity": 1.0},
     "water": {"color": "#8fb8d6", "fillColor": "#a9cbe3", "weight": 1.5, "fillOpacity": 1.0},
-    "building": {"color": "#cbc3b5", "fillColor": "#d7d0c4", "weight": 0.5,
-                 "fillOpacity": 1.0},
+    "building": {"color": "#cbc3b5", "fillColor": "#d7d0c4", "weight": 0.5, "fillOpacity": 1.0},
 }
 STREET_COLOUR = "#ffffff"
-_MAJOR = {"motorway", "trunk", "primary", "secondary", "motorway_link", "trunk_link",
-          "primary_link", "secondary_link"}
-_MINOR_PATHS = {"footway", "path", "cycleway", "steps", "pedestrian", "bridleway", "track",
-                "corridor", "service"}
+_MAJOR = {
+    "motorway",
+    "trunk",
+    "primary",
+    "secondary",
+    "motorway_link",
+    "trunk_link",
+    "primary_link",
+    "secondary_link",
+}
+_MINOR_PATHS = {
+    "footway",
+    "path",
+    "cycleway",
+    "steps",
+    "pedestrian",
+    "bridleway",
+    "track",
+    "corridor",
+    "service",
+}
 
 
 def ramp(n: int) -> list[str]:
     """Return ``n`` colours spread evenly along :data:`BAND_RAMP` (interpolated in RGB)."""
     if n <= 0:
         return []
-    anchors = np.array([[int(c[i:i + 2], 16) for i in (1, 3, 5)] for c in BAND_RAMP], float)
+    anchors = np.array([[int(c[i : i + 2], 16) for i in (1, 3, 5)] for c in BAND_RAMP], float)
     pos = np.linspace(0, len(anchors) - 1, n) if n > 1 else np.array([0.0])
     out = []
     for p in pos:
@@ -138,8 +160,11 @@ class Classes:
     def legend_items(self) -> list[tuple[str | None, str]]:
         """Return legend rows: every class with its thresholds."""
         rows: list[tuple[str | None, str]] = []
-        how = ("the profile's fixed bands" if self.mode == "fixed" else
-               "quantiles of street length on this map")
+        how = (
+            "the profile's fixed bands"
+            if self.mode == "fixed"
+            else "quantiles of street length on this map"
+        )
         rows.append((None, f"classes: {how}"))
         for i, (name, colour) in enumerate(zip(self.names, self.colours, strict=True)):
             lo = self.lowers[i]
@@ -152,8 +177,9 @@ class Classes:
 BAND_MODES = ("fixed", "quantiles")
 
 
-def classes_for(profile: Any, values: Any, *, mode: str = "fixed", weights: Any = None,
-                unit: str = "per km") -> Classes:
+def classes_for(
+    profile: Any, values: Any, *, mode: str = "fixed", weights: Any = None, unit: str = "per km"
+) -> Classes:
     """Return the classes for ``values``: the profile's bands, or area-relative quantiles.
 
     ``fixed`` uses the lower bounds of the profile's bands (the same on every map, so areas
@@ -164,11 +190,14 @@ def classes_for(profile: Any, values: Any, *, mode: str = "fixed", weights: Any 
     if mode not in BAND_MODES:
         from .errors import OptionError
 
-        raise OptionError(f"must be one of {', '.join(BAND_MODES)}, got {mode!r}",
-                          field="--bands")
+        raise OptionError(f"must be one of {', '.join(BAND_MODES)}, got {mode!r}", field="--bands")
     if mode == "fixed":
-        return Classes(tuple(b.name for b in profile.bands),
-                       tuple(float(b.lower) for b in profile.bands), "fixed", unit)
+        return Classes(
+            tuple(b.name for b in profile.bands),
+            tuple(float(b.lower) for b in profile.bands),
+            "fixed",
+            unit,
+        )
     v = np.asarray(values, dtype=float)
     n = len(profile.bands)
     if len(v) == 0:
@@ -185,9 +214,15 @@ def classes_for(profile: Any, values: Any, *, mode: str = "fixed", weights: Any 
         if c > lowers[-1] + 1e-12:
             lowers.append(round(c, 6))
     m = len(lowers)
-    names = tuple(f"class {i + 1} of {m}" + (" (lowest)" if i == 0 else
-                                             " (highest)" if i == m - 1 else "")
-                  for i in range(m)) if m > 1 else ("all",)
+    names = (
+        tuple(
+            f"class {i + 1} of {m}"
+            + (" (lowest)" if i == 0 else " (highest)" if i == m - 1 else "")
+            for i in range(m)
+        )
+        if m > 1
+        else ("all",)
+    )
     return Classes(names, tuple(lowers), "quantiles", unit)
 
 
@@ -227,18 +262,28 @@ def tile_source(spec: str | Path | TileSource | None) -> TileSource | None:
         return TileSource("url", text)
     p = Path(text).expanduser()
     if not p.exists():
-        raise InputFileError("tile source not found (give an .mbtiles file, a folder of "
-                             "z/x/y tiles or a URL template)", path=p, field="--tiles")
+        raise InputFileError(
+            "tile source not found (give an .mbtiles file, a folder of "
+            "z/x/y tiles or a URL template)",
+            path=p,
+            field="--tiles",
+        )
     if p.is_dir():
         found = sorted(q.relative_to(p).as_posix() for q in p.glob("*/*/*.*"))
         tiles = [t for t in found if _TILE_FILE.match(t)]
         if not tiles:
-            raise InputFileError("no z/x/y tiles (e.g. 14/8190/5460.png) in this folder",
-                                 path=p, field="--tiles")
+            raise InputFileError(
+                "no z/x/y tiles (e.g. 14/8190/5460.png) in this folder", path=p, field="--tiles"
+            )
         zooms = sorted({int(t.split("/")[0]) for t in tiles})
         ext = _TILE_FILE.match(tiles[0]).group(4)  # type: ignore[union-attr]
-        return TileSource("folder", p.resolve().as_uri() + "/{z}/{x}/{y}." + ext,
-                          "local tiles", zooms[0], zooms[-1])
+        return TileSource(
+            "folder",
+            p.resolve().as_uri() + "/{z}/{x}/{y}." + ext,
+            "local tiles",
+            zooms[0],
+            zooms[-1],
+        )
     return _mbtiles_source(p)
 
 
@@ -250,8 +295,7 @@ def _mbtiles_source(p: Path) -> TileSource:
     try:
         with sqlite3.connect(f"file:{p}?mode=ro", uri=True) as db:
             meta = dict(db.execute("SELECT name, value FROM metadata").fetchall())
-            zmin, zmax = db.execute("SELECT MIN(zoom_level), MAX(zoom_level) FROM tiles"
-                                    ).fetchone()
+            zmin, zmax = db.execute("SELECT MIN(zoom_level), MAX(zoom_level) FROM tiles").fetchone()
     except sqlite3.DatabaseError as exc:
         raise InputFileError(f"not an MBTiles file ({exc})", path=p, field="--tiles") from exc
     if zmin is None:
@@ -265,7 +309,7 @@ def _tile_range(bounds: tuple[float, float, float, float], z: int) -> tuple[int,
     import math
 
     w, s, e, n = bounds
-    k = 2 ** z
+    k = 2**z
 
     def tx(lon: float) -> int:
         return min(k - 1, max(0, int((lon + 180.0) / 360.0 * k)))
@@ -277,8 +321,7 @@ def _tile_range(bounds: tuple[float, float, float, float], z: int) -> tuple[int,
     return tx(w), tx(e), ty(n), ty(s)
 
 
-def _embedded_tiles(src: TileSource, bounds: tuple[float, float, float, float]
-                    ) -> dict[str, str]:
+def _embedded_tiles(src: TileSource, bounds: tuple[float, float, float, float]) -> dict[str, str]:
     """Return ``z/x/y`` -> data URI of the MBTiles tiles covering ``bounds``.
 
     Zoom levels are added from the coarsest up while the total stays within
@@ -298,15 +341,21 @@ def _embedded_tiles(src: TileSource, bounds: tuple[float, float, float, float]
                 "SELECT tile_column, tile_row, tile_data FROM tiles WHERE zoom_level = ? AND "
                 "tile_column BETWEEN ? AND ? AND tile_row BETWEEN ? AND ? "
                 "ORDER BY tile_column, tile_row",
-                (z, x0, x1, 2 ** z - 1 - y1, 2 ** z - 1 - y0)).fetchall()
+                (z, x0, x1, 2**z - 1 - y1, 2**z - 1 - y0),
+            ).fetchall()
             for x, row, data in rows:
-                kind = "jpeg" if bytes(data[:3]) == b"\xff\xd8\xff" else (
-                    "webp" if bytes(data[8:12]) == b"WEBP" else "png")
-                out[f"{z}/{x}/{2 ** z - 1 - row}"] = (
-                    f"data:image/{kind};base64,{base64.b64encode(bytes(data)).decode()}")
+                kind = (
+                    "jpeg"
+                    if bytes(data[:3]) == b"\xff\xd8\xff"
+                    else ("webp" if bytes(data[8:12]) == b"WEBP" else "png")
+                )
+                out[f"{z}/{x}/{2**z - 1 - row}"] = (
+                    f"data:image/{kind};base64,{base64.b64encode(bytes(data)).decode()}"
+                )
     if not out:
-        raise InputFileError("the MBTiles file holds no tile inside the map's view",
-                             path=src.url, field="--tiles")
+        raise InputFileError(
+            "the MBTiles file holds no tile inside the map's view", path=src.url, field="--tiles"
+        )
     return out
 
 
@@ -335,14 +384,19 @@ var {{ this.get_name() }} = new (L.TileLayer.extend({
         self.max_native = max(int(k.split("/")[0]) for k in tiles)
 
 
-def _add_tiles(m: folium.Map, src: TileSource, bounds: tuple[float, float, float, float]
-               ) -> None:
+def _add_tiles(m: folium.Map, src: TileSource, bounds: tuple[float, float, float, float]) -> None:
     if src.kind == "mbtiles":
         m.add_child(_EmbeddedTiles(_embedded_tiles(src, bounds), escape(src.attribution)))
         return
-    folium.TileLayer(tiles=src.url, attr=escape(src.attribution), name="background tiles",
-                     overlay=False, min_zoom=0, max_zoom=20,
-                     max_native_zoom=src.max_zoom).add_to(m)
+    folium.TileLayer(
+        tiles=src.url,
+        attr=escape(src.attribution),
+        name="background tiles",
+        overlay=False,
+        min_zoom=0,
+        max_zoom=20,
+        max_native_zoom=src.max_zoom,
+    ).add_to(m)
 
 
 # ------------------------------------------------------------------------------- the map
@@ -365,12 +419,17 @@ _CSS = (
     ".rr-symbol{background:none;border:none}"
     ".rr-street-label{background:rgba(255,255,255,.75);border:none;box-shadow:none;"
     "padding:0 3px;font:11px system-ui,sans-serif;color:#4a4a4a}"
-    ".rr-street-label:before{display:none}")
+    ".rr-street-label:before{display:none}"
+)
 
 
-def new_map(bounds: tuple[float, float, float, float], *,
-            tiles: str | Path | TileSource | None = None, attribution: str | None = None,
-            context: Any = None) -> folium.Map:
+def new_map(
+    bounds: tuple[float, float, float, float],
+    *,
+    tiles: str | Path | TileSource | None = None,
+    attribution: str | None = None,
+    context: Any = None,
+) -> folium.Map:
     """Return an offline folium map fitted to (west, south, east, north) in degrees.
 
     Parameters
@@ -386,8 +445,13 @@ def new_map(bounds: tuple[float, float, float, float], *,
         the view are drawn as the light bottom layer (:mod:`routerisk._context`).
     """
     w, s, e, n = bounds
-    m = folium.Map(location=[(s + n) / 2, (w + e) / 2], zoom_start=14, tiles=None,
-                   control_scale=True, prefer_canvas=True)
+    m = folium.Map(
+        location=[(s + n) / 2, (w + e) / 2],
+        zoom_start=14,
+        tiles=None,
+        control_scale=True,
+        prefer_canvas=True,
+    )
     m.options.update(maxZoom=19, minZoom=3)  # no tile layer sets them; clusters need them
     m.default_js = []
     m.default_css = []
@@ -395,9 +459,10 @@ def new_map(bounds: tuple[float, float, float, float], *,
     root = m.get_root()
     root.header.add_child(Element(f"<style>{css}</style>"), name="leaflet_css_inline")
     root.header.add_child(Element(f"<script>{js}</script>"), name="leaflet_js_inline")
-    root.header.add_child(Element(
-        f"<style>.leaflet-container{{background:{BACKGROUND};}}{_CSS}</style>"),
-        name="routerisk_css")
+    root.header.add_child(
+        Element(f"<style>.leaflet-container{{background:{BACKGROUND};}}{_CSS}</style>"),
+        name="routerisk_css",
+    )
     src = tile_source(tiles)
     if src is not None:
         if attribution:
@@ -409,20 +474,17 @@ def new_map(bounds: tuple[float, float, float, float], *,
     return m
 
 
-def add_context(m: folium.Map, context: Any, bounds: tuple[float, float, float, float]
-                ) -> None:
+def add_context(m: folium.Map, context: Any, bounds: tuple[float, float, float, float]) -> None:
     """Draw the light background (parks, water, buildings, streets with names) of the view."""
     from . import _context
 
-    ctx = context if isinstance(context, gpd.GeoDataFrame) else _context.for_view(
-        context, bounds)
+    ctx = context if isinstance(context, gpd.GeoDataFrame) else _context.for_view(context, bounds)
     if isinstance(context, gpd.GeoDataFrame):
         ctx = ctx.to_crs("EPSG:4326")
     if len(ctx) == 0:
         return
     m._rr_background = set(ctx["kind"])  # type: ignore[attr-defined]
-    layer = folium.FeatureGroup(name="background: streets, water, parks, buildings",
-                                show=True)
+    layer = folium.FeatureGroup(name="background: streets, water, parks, buildings", show=True)
     for kind in ("park", "water", "building"):
         part = ctx[ctx["kind"] == kind]
         if len(part) == 0:
@@ -431,15 +493,16 @@ def add_context(m: folium.Map, context: Any, bounds: tuple[float, float, float, 
         lines = part.geom_type.isin(["LineString", "MultiLineString"])
         data = part[["geometry"]].copy()
         data["_w"] = np.where(lines, 3.0 if kind == "water" else 1.0, style["weight"])
-        folium.GeoJson(data.to_json(drop_id=True), name=kind, interactive=False,
-                       style_function=lambda f, st=style: {**st, "weight":
-                                                           f["properties"]["_w"]},
-                       ).add_to(layer)
+        folium.GeoJson(
+            data.to_json(drop_id=True),
+            name=kind,
+            interactive=False,
+            style_function=lambda f, st=style: {**st, "weight": f["properties"]["_w"]},
+        ).add_to(layer)
     streets = ctx[ctx["kind"] == "street"].copy()
     if len(streets):
         hw = streets["highway"].astype(str)
-        streets["_w"] = np.where(hw.isin(_MAJOR), 5.0, np.where(hw.isin(_MINOR_PATHS),
-                                                                  1.2, 3.0))
+        streets["_w"] = np.where(hw.isin(_MAJOR), 5.0, np.where(hw.isin(_MINOR_PATHS), 1.2, 3.0))
         streets["name"] = streets["name"].fillna("").astype(str).map(escape)
         named = streets["name"] != ""
         for part, tip in ((streets[~named], False), (streets[named], True)):
@@ -448,10 +511,14 @@ def add_context(m: folium.Map, context: Any, bounds: tuple[float, float, float, 
             gj = folium.GeoJson(
                 part[["name", "_w", "geometry"]].to_json(drop_id=True),
                 name="streets",
-                style_function=lambda f: {"color": STREET_COLOUR, "weight":
-                                          f["properties"]["_w"], "opacity": 1.0},
+                style_function=lambda f: {
+                    "color": STREET_COLOUR,
+                    "weight": f["properties"]["_w"],
+                    "opacity": 1.0,
+                },
                 tooltip=folium.GeoJsonTooltip(fields=["name"], labels=False, sticky=True)
-                if tip else None,
+                if tip
+                else None,
                 interactive=tip,
             ).add_to(layer)
             if tip:
@@ -508,25 +575,42 @@ class _StreetLabels(MacroElement):
 # ----------------------------------------------------------------------------- legends
 
 
-def line_swatch(colour: str, *, dash: str | None = None, width: float = 4.0,
-                opacity: float = 1.0, casing: str | None = None) -> str:
+def line_swatch(
+    colour: str,
+    *,
+    dash: str | None = None,
+    width: float = 4.0,
+    opacity: float = 1.0,
+    casing: str | None = None,
+) -> str:
     """Return an inline SVG of a line as it is drawn on the map."""
     c = escape(colour)
     d = f' stroke-dasharray="{escape(dash)}"' if dash else ""
-    under = (f'<line x1="1" y1="7" x2="33" y2="7" stroke="{escape(casing)}" '
-             f'stroke-width="{width + 2:g}"/>') if casing else ""
-    return (f'<svg width="34" height="14" aria-hidden="true">{under}<line x1="1" y1="7" '
-            f'x2="33" y2="7" stroke="{c}" stroke-width="{width:g}" '
-            f'stroke-opacity="{opacity:g}"{d}/></svg>')
+    under = (
+        (
+            f'<line x1="1" y1="7" x2="33" y2="7" stroke="{escape(casing)}" '
+            f'stroke-width="{width + 2:g}"/>'
+        )
+        if casing
+        else ""
+    )
+    return (
+        f'<svg width="34" height="14" aria-hidden="true">{under}<line x1="1" y1="7" '
+        f'x2="33" y2="7" stroke="{c}" stroke-width="{width:g}" '
+        f'stroke-opacity="{opacity:g}"{d}/></svg>'
+    )
 
 
-def area_swatch(fill: str, *, stroke: str | None = None, dash: str | None = None,
-                opacity: float = 1.0) -> str:
+def area_swatch(
+    fill: str, *, stroke: str | None = None, dash: str | None = None, opacity: float = 1.0
+) -> str:
     """Return an inline SVG of a filled area."""
     d = f' stroke-dasharray="{escape(dash)}"' if dash else ""
     st = f' stroke="{escape(stroke)}" stroke-width="1.5"' if stroke else ""
-    return (f'<svg width="34" height="14" aria-hidden="true"><rect x="2" y="1" width="30" '
-            f'height="12" fill="{escape(fill)}" fill-opacity="{opacity:g}"{st}{d}/></svg>')
+    return (
+        f'<svg width="34" height="14" aria-hidden="true"><rect x="2" y="1" width="30" '
+        f'height="12" fill="{escape(fill)}" fill-opacity="{opacity:g}"{st}{d}/></svg>'
+    )
 
 
 _SHAPES = {
@@ -538,7 +622,7 @@ _SHAPES = {
     "hexagon": '<polygon points="7,1 12.2,4 12.2,10 7,13 1.8,10 1.8,4"/>',
     "cross": '<polygon points="2,4 4,2 7,5 10,2 12,4 9,7 12,10 10,12 7,9 4,12 2,10 5,7"/>',
     "star": '<polygon points="7,0.8 8.8,5 13.2,5.2 9.8,8.2 11,12.8 7,10.3 3,12.8 4.2,8.2 '
-            '0.8,5.2 5.2,5"/>',
+    '0.8,5.2 5.2,5"/>',
     "ring": '<circle cx="7" cy="7" r="5" fill="#ffffff" stroke-width="2.6"/>',
 }
 
@@ -546,8 +630,10 @@ _SHAPES = {
 def symbol_svg(shape: str, *, ink: str = SYMBOL_INK, size: int = 14) -> str:
     """Return the inline SVG of a point symbol (white outline, so it reads on any colour)."""
     body = _SHAPES.get(shape, _SHAPES["star"])
-    return (f'<svg width="{size}" height="{size}" viewBox="0 0 14 14" aria-hidden="true">'
-            f'<g fill="{escape(ink)}" stroke="#ffffff" stroke-width="1.1">{body}</g></svg>')
+    return (
+        f'<svg width="{size}" height="{size}" viewBox="0 0 14 14" aria-hidden="true">'
+        f'<g fill="{escape(ink)}" stroke="#ffffff" stroke-width="1.1">{body}</g></svg>'
+    )
 
 
 def category_shape(name: str) -> str:
@@ -557,21 +643,26 @@ def category_shape(name: str) -> str:
 
 def rule_break_svg(size: int = 18) -> str:
     """Return the rule-break marker: a white disc, black ring and an exclamation mark."""
-    return (f'<svg width="{size}" height="{size}" viewBox="0 0 18 18" aria-hidden="true">'
-            '<circle cx="9" cy="9" r="7.5" fill="#ffffff" stroke="#111" stroke-width="2.2"/>'
-            '<rect x="8" y="4" width="2" height="6.5" fill="#111"/>'
-            '<rect x="8" y="12" width="2" height="2" fill="#111"/></svg>')
+    return (
+        f'<svg width="{size}" height="{size}" viewBox="0 0 18 18" aria-hidden="true">'
+        '<circle cx="9" cy="9" r="7.5" fill="#ffffff" stroke="#111" stroke-width="2.2"/>'
+        '<rect x="8" y="4" width="2" height="6.5" fill="#111"/>'
+        '<rect x="8" y="12" width="2" height="2" fill="#111"/></svg>'
+    )
 
 
 def background_items(kinds: Any = None) -> list[tuple[str | None, str]]:
     """Return the legend rows of the light background layer (only ``kinds`` when given)."""
-    rows = {"street": (line_swatch(STREET_COLOUR, width=4, casing="#bdb7ab"),
-                       "street (name on hover; written from zoom 17)"),
-            "water": (area_swatch(CONTEXT_STYLE["water"]["fillColor"]), "water"),
-            "park": (area_swatch(CONTEXT_STYLE["park"]["fillColor"]), "park, green space"),
-            "building": (area_swatch(CONTEXT_STYLE["building"]["fillColor"]), "building")}
-    keep = [rows[k] for k in ("street", "water", "park", "building")
-            if kinds is None or k in kinds]
+    rows = {
+        "street": (
+            line_swatch(STREET_COLOUR, width=4, casing="#bdb7ab"),
+            "street (name on hover; written from zoom 17)",
+        ),
+        "water": (area_swatch(CONTEXT_STYLE["water"]["fillColor"]), "water"),
+        "park": (area_swatch(CONTEXT_STYLE["park"]["fillColor"]), "park, green space"),
+        "building": (area_swatch(CONTEXT_STYLE["building"]["fillColor"]), "building"),
+    }
+    keep = [rows[k] for k in ("street", "water", "park", "building") if kinds is None or k in kinds]
     return [(None, "background (same OSM extract)"), *keep] if keep else []
 
 
@@ -580,8 +671,9 @@ def background_of(m: folium.Map) -> set[str]:
     return set(getattr(m, "_rr_background", set()))
 
 
-def category_items(profile: Any, sources: gpd.GeoDataFrame | None = None
-                   ) -> list[tuple[str | None, str]]:
+def category_items(
+    profile: Any, sources: gpd.GeoDataFrame | None = None
+) -> list[tuple[str | None, str]]:
     """Return the legend rows of the exposure sources drawn (one symbol per category).
 
     With ``sources`` only the categories present in it are listed, and the grounds row only
@@ -594,8 +686,12 @@ def category_items(profile: Any, sources: gpd.GeoDataFrame | None = None
     rows: list[tuple[str | None, str]] = [(None, "exposure sources (grouped when many)")]
     rows += [(symbol_svg(category_shape(c.name)), c.label) for c in cats]
     if sources is None or sources.geom_type.isin(["Polygon", "MultiPolygon"]).any():
-        rows.append((area_swatch("#ffffff", stroke=SYMBOL_INK, dash="3 2", opacity=0.3),
-                     "source grounds (outline)"))
+        rows.append(
+            (
+                area_swatch("#ffffff", stroke=SYMBOL_INK, dash="3 2", opacity=0.3),
+                "source grounds (outline)",
+            )
+        )
     return rows
 
 
@@ -617,8 +713,9 @@ var {{ this.get_name() }} = L.control({position: {{ this.position|tojson }}});
 {% endmacro %}
 """)
 
-    def __init__(self, html_text: str, *, position: str = "bottomright",
-                 dom_id: str = "rr-legend") -> None:
+    def __init__(
+        self, html_text: str, *, position: str = "bottomright", dom_id: str = "rr-legend"
+    ) -> None:
         super().__init__()
         self._name = "RoutePanel"
         self.html = html_text
@@ -626,8 +723,9 @@ var {{ this.get_name() }} = L.control({position: {{ this.position|tojson }}});
         self.dom_id = dom_id
 
 
-def add_panel(m: folium.Map, html_text: str, *, position: str = "bottomright",
-              dom_id: str = "rr-legend") -> None:
+def add_panel(
+    m: folium.Map, html_text: str, *, position: str = "bottomright", dom_id: str = "rr-legend"
+) -> None:
     """Add a fixed panel whose ``html_text`` the caller has built from escaped parts."""
     m.add_child(_Panel(html_text, position=position, dom_id=dom_id))
 
@@ -637,13 +735,15 @@ def add_provenance(m: folium.Map, prov: dict[str, Any]) -> None:
     from ._io import dumps_json
 
     text = dumps_json(prov).replace("\n", " ")
-    m.get_root().header.add_child(Element(
-        f'<meta name="routerisk-provenance" content="{escape(text)}">'),
-        name="routerisk_provenance")
+    m.get_root().header.add_child(
+        Element(f'<meta name="routerisk-provenance" content="{escape(text)}">'),
+        name="routerisk_provenance",
+    )
 
 
-def legend_html(title: str, items: list[tuple[str | None, str]], *, extra: str = "",
-                background: Any = True) -> str:
+def legend_html(
+    title: str, items: list[tuple[str | None, str]], *, extra: str = "", background: Any = True
+) -> str:
     """Return a collapsible legend: a title, a row per drawn thing, and the caution.
 
     Each item is ``(swatch, label)``: a colour (drawn as a line), an SVG swatch from
@@ -652,24 +752,24 @@ def legend_html(title: str, items: list[tuple[str | None, str]], *, extra: str =
     the kinds drawn (:func:`background_of`); False or empty for none.
     """
     rows = []
-    bg = [] if background is False else background_items(
-        None if background is True else background)
+    bg = [] if background is False else background_items(None if background is True else background)
     for swatch, text in [*items, *bg]:
         if swatch is None:
             rows.append(f"<h5>{escape(text)}</h5>")
             continue
         sw = swatch if swatch.startswith("<") else line_swatch(swatch)
         rows.append(f'<div class="rr-row">{sw}<span>{escape(text)}</span></div>')
-    return (f"<details open><summary>{escape(title)}</summary>{''.join(rows)}{extra}"
-            f'<div class="rr-caution">{escape(CAUTION)}</div>'
-            f'<div style="font-size:10px;color:#777;margin-top:4px">routerisk {__version__}; '
-            "map data: OpenStreetMap contributors, ODbL</div></details>")
+    return (
+        f"<details open><summary>{escape(title)}</summary>{''.join(rows)}{extra}"
+        f'<div class="rr-caution">{escape(CAUTION)}</div>'
+        f'<div style="font-size:10px;color:#777;margin-top:4px">routerisk {__version__}; '
+        "map data: OpenStreetMap contributors, ODbL</div></details>"
+    )
 
 
 def collapsible(title: str, body: str, *, open_: bool = True) -> str:
     """Return ``body`` (escaped parts) in a panel section that folds up under ``title``."""
-    return (f"<details{' open' if open_ else ''}><summary>{escape(title)}</summary>"
-            f"{body}</details>")
+    return f"<details{' open' if open_ else ''}><summary>{escape(title)}</summary>{body}</details>"
 
 
 def band_colour(profile: Any, band: str) -> str:
@@ -688,10 +788,19 @@ def _popup_fields(gdf: gpd.GeoDataFrame, fields: dict[str, str]) -> gpd.GeoDataF
     return out
 
 
-def add_lines(m: folium.Map | folium.FeatureGroup, gdf: gpd.GeoDataFrame, *, name: str,
-              colour_col: str, fields: dict[str, str], weight: float = 3.0,
-              show: bool = True, opacity: float = 0.9, dash: str | None = None,
-              casing: str | None = None) -> folium.FeatureGroup:
+def add_lines(
+    m: folium.Map | folium.FeatureGroup,
+    gdf: gpd.GeoDataFrame,
+    *,
+    name: str,
+    colour_col: str,
+    fields: dict[str, str],
+    weight: float = 3.0,
+    show: bool = True,
+    opacity: float = 0.9,
+    dash: str | None = None,
+    casing: str | None = None,
+) -> folium.FeatureGroup:
     """Add a switchable layer of lines coloured by ``colour_col`` with escaped popups.
 
     ``dash`` is an SVG dash pattern for every line; ``casing`` draws a thin darker line
@@ -703,18 +812,22 @@ def add_lines(m: folium.Map | folium.FeatureGroup, gdf: gpd.GeoDataFrame, *, nam
     data = data.to_crs("EPSG:4326")
     data["geometry"] = shapely.set_precision(data.geometry.to_numpy(), 1e-7)
     if casing:
-        folium.GeoJson(data[["geometry"]].to_json(drop_id=True), interactive=False,
-                       style_function=lambda f: {"color": casing, "weight": weight + 2.5,
-                                                 "opacity": opacity}).add_to(layer)
+        folium.GeoJson(
+            data[["geometry"]].to_json(drop_id=True),
+            interactive=False,
+            style_function=lambda f: {"color": casing, "weight": weight + 2.5, "opacity": opacity},
+        ).add_to(layer)
     style: dict[str, Any] = {"weight": weight, "opacity": opacity}
     if dash:
         style["dashArray"] = dash
     folium.GeoJson(
         data.to_json(drop_id=True),
         style_function=lambda f: {"color": f["properties"]["_colour"], **style},
-        popup=folium.GeoJsonPopup(fields=list(fields),
-                                  aliases=[escape(a) for a in fields.values()],
-                                  labels=True) if fields else None,
+        popup=folium.GeoJsonPopup(
+            fields=list(fields), aliases=[escape(a) for a in fields.values()], labels=True
+        )
+        if fields
+        else None,
         interactive=bool(fields),
         name=escape(name),
     ).add_to(layer)
@@ -733,8 +846,10 @@ class _Cluster(MarkerCluster):
 def _cluster_assets() -> str:
     base = resources.files("routerisk") / "static" / "markercluster"
     js = (base / "leaflet.markercluster.js").read_text(encoding="utf-8")
-    css = "".join((base / n).read_text(encoding="utf-8")
-                  for n in ("MarkerCluster.css", "MarkerCluster.Default.css"))
+    css = "".join(
+        (base / n).read_text(encoding="utf-8")
+        for n in ("MarkerCluster.css", "MarkerCluster.Default.css")
+    )
     return f"<style>{css}</style><script>{js}</script>"
 
 
@@ -765,28 +880,42 @@ def add_sources(m: folium.Map, sources: gpd.GeoDataFrame, *, labels: dict[str, s
             data["kind"] = escape(label)
             folium.GeoJson(
                 data.to_json(drop_id=True),
-                style_function=lambda f: {"color": SYMBOL_INK, "weight": 1.2,
-                                          "dashArray": "3 2", "fillColor": "#ffffff",
-                                          "fillOpacity": 0.3},
-                tooltip=folium.GeoJsonTooltip(fields=["kind", "name"], aliases=["", ""],
-                                              labels=False),
+                style_function=lambda f: {
+                    "color": SYMBOL_INK,
+                    "weight": 1.2,
+                    "dashArray": "3 2",
+                    "fillColor": "#ffffff",
+                    "fillOpacity": 0.3,
+                },
+                tooltip=folium.GeoJsonTooltip(
+                    fields=["kind", "name"], aliases=["", ""], labels=False
+                ),
             ).add_to(layer)
         icon_js = symbol_svg(shape, size=12).replace("'", "\\'")
         cluster = _Cluster(
-            options={"maxClusterRadius": 40, "disableClusteringAtZoom": CLUSTER_UNTIL_ZOOM,
-                     "showCoverageOnHover": False, "spiderfyOnMaxZoom": False},
+            options={
+                "maxClusterRadius": 40,
+                "disableClusteringAtZoom": CLUSTER_UNTIL_ZOOM,
+                "showCoverageOnHover": False,
+                "spiderfyOnMaxZoom": False,
+            },
             icon_create_function=(
                 "function (c) { return L.divIcon({className: 'rr-symbol', iconSize: [30, 30],"
                 " html: '<div class=\"rr-cluster\">' + c.getChildCount() + '"
-                f"{icon_js}</div>'}}); }}"))
+                f"{icon_js}</div>'}}); }}"
+            ),
+        )
         svg = symbol_svg(shape)
         for geom, nm in zip(part.geometry, part["name"], strict=True):
             c = geom.representative_point()
             text = f"{label}: {nm}" if nm else label
-            folium.Marker([round(c.y, 7), round(c.x, 7)], tooltip=escape(text),
-                          icon=folium.DivIcon(html=svg, icon_size=(14, 14),
-                                              icon_anchor=(7, 7), class_name="rr-symbol"),
-                          ).add_to(cluster)
+            folium.Marker(
+                [round(c.y, 7), round(c.x, 7)],
+                tooltip=escape(text),
+                icon=folium.DivIcon(
+                    html=svg, icon_size=(14, 14), icon_anchor=(7, 7), class_name="rr-symbol"
+                ),
+            ).add_to(cluster)
         cluster.add_to(layer)
         layer.add_to(m)
 
@@ -818,9 +947,13 @@ def save(m: folium.Map, path: str | Path, *, force: bool = True) -> Path:
     return write_text_atomic(path, render(m), force=force)
 
 
-def network_map(net: Any, *, tiles: str | Path | TileSource | None = None,
-                title: str = "Pedestrian exposure of the road network",
-                bands: str = "fixed") -> folium.Map:
+def network_map(
+    net: Any,
+    *,
+    tiles: str | Path | TileSource | None = None,
+    title: str = "Pedestrian exposure of the road network",
+    bands: str = "fixed",
+) -> folium.Map:
     """Return the map of a tagged network: edges by exposure class, sources, legend, caution.
 
     ``bands`` is ``fixed`` (the profile's bands) or ``quantiles`` (length-weighted
@@ -836,24 +969,46 @@ def network_map(net: Any, *, tiles: str | Path | TileSource | None = None,
     edges["_band_colour"] = cls.colour_of(edges["exposure_km"])
     edges["class"] = [cls.names[i] for i in cls.index(edges["exposure_km"])]
     edges["street"] = edges["name"].fillna("")
-    fields = {"street": "street", "highway": "road class", "band": "exposure band (fixed)",
-              "class": "class on this map", "exposure_km": "exposure per km",
-              "speed_kph": "speed km/h", "crossings": "crossings"}
+    fields = {
+        "street": "street",
+        "highway": "road class",
+        "band": "exposure band (fixed)",
+        "class": "class on this map",
+        "exposure_km": "exposure per km",
+        "speed_kph": "speed km/h",
+        "crossings": "crossings",
+    }
     for c in prof.categories:
         fields[f"exp_{c.name}"] = f"near {c.label.lower()}"
     ll = net.edges.to_crs("EPSG:4326").total_bounds
     m = new_map(tuple(ll), tiles=tiles, context=net)
-    add_lines(m, edges, name="streets by exposure", colour_col="_band_colour",
-              fields=fields, casing="#5b5347", weight=3.5)
+    add_lines(
+        m,
+        edges,
+        name="streets by exposure",
+        colour_col="_band_colour",
+        fields=fields,
+        casing="#5b5347",
+        weight=3.5,
+    )
     add_sources(m, net.sources, labels={c.name: c.label for c in prof.categories})
     layer_control(m)
     legend = cls.legend_items()
-    items: list[tuple[str | None, str]] = [(None, "street exposure per km"), *legend[1:],
-                                           (None, legend[0][1])]
+    items: list[tuple[str | None, str]] = [
+        (None, "street exposure per km"),
+        *legend[1:],
+        (None, legend[0][1]),
+    ]
     items += category_items(prof, net.sources)
-    add_panel(m, legend_html(title, items, extra=f"<div>profile {escape(prof.name)} "
-                                                 f"{escape(prof.fingerprint)}</div>",
-                             background=background_of(m)))
+    add_panel(
+        m,
+        legend_html(
+            title,
+            items,
+            extra=f"<div>profile {escape(prof.name)} {escape(prof.fingerprint)}</div>",
+            background=background_of(m),
+        ),
+    )
     from ._io import provenance
 
     add_provenance(m, provenance(profile=prof.fingerprint, network=net))

@@ -46,8 +46,23 @@ FORMAT_VERSION = 1
 GPKG = "network.gpkg"
 META = "meta.json"
 PROFILE = "profile.yaml"
-EDGE_KEEP = ("u", "v", "key", "osmid", "highway", "name", "lanes", "oneway", "sidewalk",
-             "maxspeed_raw", "hazard", "length", "speed_kph", "travel_time", "geometry")
+EDGE_KEEP = (
+    "u",
+    "v",
+    "key",
+    "osmid",
+    "highway",
+    "name",
+    "lanes",
+    "oneway",
+    "sidewalk",
+    "maxspeed_raw",
+    "hazard",
+    "length",
+    "speed_kph",
+    "travel_time",
+    "geometry",
+)
 
 
 def check_timezone(name: str) -> str:
@@ -55,8 +70,10 @@ def check_timezone(name: str) -> str:
     try:
         ZoneInfo(name)
     except (ZoneInfoNotFoundError, ValueError) as exc:
-        raise OptionError(f"unknown time zone {name!r} (use an IANA name such as "
-                          "'Etc/GMT+3' or 'UTC')", field="--timezone") from exc
+        raise OptionError(
+            f"unknown time zone {name!r} (use an IANA name such as 'Etc/GMT+3' or 'UTC')",
+            field="--timezone",
+        ) from exc
     return name
 
 
@@ -70,8 +87,11 @@ def infer_timezone(lon: float, lat: float) -> str:
 
     name = TimezoneFinder().timezone_at(lng=float(lon), lat=float(lat))
     if not name:
-        raise OptionError(f"no time zone is known at lon {lon:.4f}, lat {lat:.4f}; give the "
-                          "area's time zone (an IANA name)", field="--timezone")
+        raise OptionError(
+            f"no time zone is known at lon {lon:.4f}, lat {lat:.4f}; give the "
+            "area's time zone (an IANA name)",
+            field="--timezone",
+        )
     return str(name)
 
 
@@ -121,8 +141,9 @@ class Network:
         """
         from . import _simplify
 
-        return _simplify.graph_from_gdfs(self.nodes, self.edges, graph_attrs={
-            "crs": self.edges.crs.to_string()})
+        return _simplify.graph_from_gdfs(
+            self.nodes, self.edges, graph_attrs={"crs": self.edges.crs.to_string()}
+        )
 
     @property
     def length_km(self) -> float:
@@ -160,8 +181,9 @@ class Network:
 
         return mapview.network_map(self, tiles=tiles)
 
-    def retag(self, profile: Profile, *, tagger: Callable[..., gpd.GeoDataFrame] | None = None
-              ) -> Network:
+    def retag(
+        self, profile: Profile, *, tagger: Callable[..., gpd.GeoDataFrame] | None = None
+    ) -> Network:
         """Return this network tagged with another profile (same categories and selectors).
 
         ``tagger`` replaces :func:`routerisk.tagging.tag_edges` (e.g. a tiled one from
@@ -175,15 +197,23 @@ class Network:
                 raise ProfileError(
                     f"category {c.name!r} selects other OSM objects than the network was "
                     "built with; rebuild the network with this profile",
-                    path=profile.source, field=f"categories.{c.name}.select")
+                    path=profile.source,
+                    field=f"categories.{c.name}.select",
+                )
         from . import tagging
 
         base = self.edges[[c for c in self.edges.columns if c in EDGE_KEEP]]
         tag = tagging.tag_edges if tagger is None else tagger
-        edges = tag(base, self.sources, self.crossings, profile,
-                    polygons=_rule_polygons(profile))
-        return Network(edges, self.nodes, self.sources, self.crossings, profile,
-                       {**self.meta, "profile": profile.fingerprint}, self.context)
+        edges = tag(base, self.sources, self.crossings, profile, polygons=_rule_polygons(profile))
+        return Network(
+            edges,
+            self.nodes,
+            self.sources,
+            self.crossings,
+            profile,
+            {**self.meta, "profile": profile.fingerprint},
+            self.context,
+        )
 
 
 def _rule_polygons(profile: Profile) -> dict[str, gpd.GeoSeries]:
@@ -196,8 +226,11 @@ def _rule_polygons(profile: Profile) -> dict[str, gpd.GeoSeries]:
         try:
             gdf = gpd.read_file(rule.polygons_file)
         except Exception as exc:  # noqa: BLE001 - pyogrio raises several kinds
-            raise InputFileError(f"cannot read rule polygons ({exc})",
-                                 path=rule.polygons_file, field=f"rules.{rule.name}") from exc
+            raise InputFileError(
+                f"cannot read rule polygons ({exc})",
+                path=rule.polygons_file,
+                field=f"rules.{rule.name}",
+            ) from exc
         if gdf.crs is None:
             gdf = gdf.set_crs("EPSG:4326")
         out[rule.name] = gdf.geometry
@@ -284,14 +317,16 @@ def build_network(
         "timezone": timezone,
         "timezone_source": zone_source,
         "data_licence": "OpenStreetMap data: ODbL 1.0 (c) OpenStreetMap contributors, "
-                        "unless the source file says otherwise",
+        "unless the source file says otherwise",
     }
-    nodes = nodes[[c for c in ("x", "y", "lon", "lat", "street_count", "geometry")
-                   if c in nodes.columns]]
+    nodes = nodes[
+        [c for c in ("x", "y", "lon", "lat", "street_count", "geometry") if c in nodes.columns]
+    ]
     from . import _context
 
-    return Network(tagged, nodes, src, cross, profile, meta,
-                   _context.context_from_raw(raw, crs=crs))
+    return Network(
+        tagged, nodes, src, cross, profile, meta, _context.context_from_raw(raw, crs=crs)
+    )
 
 
 def _clean_for_gpkg(df: gpd.GeoDataFrame) -> gpd.GeoDataFrame:
@@ -300,8 +335,9 @@ def _clean_for_gpkg(df: gpd.GeoDataFrame) -> gpd.GeoDataFrame:
         if col == "geometry":
             continue
         if out[col].dtype == object:
-            out[col] = out[col].map(lambda v: "" if v is None or (isinstance(v, float)
-                                                                   and np.isnan(v)) else str(v))
+            out[col] = out[col].map(
+                lambda v: "" if v is None or (isinstance(v, float) and np.isnan(v)) else str(v)
+            )
     return out
 
 
@@ -336,21 +372,39 @@ def _save(net: Network, out: str | Path, *, force: bool) -> Path:
         edges = _clean_for_gpkg(net.edges.reset_index())
         edges["lanes"] = edges["lanes"].astype("float64") if "lanes" in edges else np.nan
         pyogrio.write_dataframe(edges, gpkg, layer="edges", use_arrow=arrow)
-        pyogrio.write_dataframe(_clean_for_gpkg(net.nodes.reset_index()), gpkg, layer="nodes",
-                                use_arrow=arrow)
+        pyogrio.write_dataframe(
+            _clean_for_gpkg(net.nodes.reset_index()), gpkg, layer="nodes", use_arrow=arrow
+        )
         if len(net.sources):
-            pyogrio.write_dataframe(_clean_for_gpkg(net.sources), gpkg, layer="sources",
-                                    promote_to_multi=False, use_arrow=arrow)
+            pyogrio.write_dataframe(
+                _clean_for_gpkg(net.sources),
+                gpkg,
+                layer="sources",
+                promote_to_multi=False,
+                use_arrow=arrow,
+            )
         if len(net.crossings):
-            pyogrio.write_dataframe(_clean_for_gpkg(net.crossings), gpkg, layer="crossings",
-                                    use_arrow=arrow)
+            pyogrio.write_dataframe(
+                _clean_for_gpkg(net.crossings), gpkg, layer="crossings", use_arrow=arrow
+            )
         if net.context is not None and len(net.context):
-            pyogrio.write_dataframe(_clean_for_gpkg(net.context), gpkg, layer="context",
-                                    promote_to_multi=False, use_arrow=arrow)
-        (tmp / PROFILE).write_text(yaml.safe_dump(_profile_doc(net.profile), sort_keys=False),
-                                   encoding="utf-8")
-        meta = {**net.meta, "complete": True, "gpkg_sha256": sha256_file(gpkg),
-                "profile_sha256": sha256_file(tmp / PROFILE), "summary": net.summary()}
+            pyogrio.write_dataframe(
+                _clean_for_gpkg(net.context),
+                gpkg,
+                layer="context",
+                promote_to_multi=False,
+                use_arrow=arrow,
+            )
+        (tmp / PROFILE).write_text(
+            yaml.safe_dump(_profile_doc(net.profile), sort_keys=False), encoding="utf-8"
+        )
+        meta = {
+            **net.meta,
+            "complete": True,
+            "gpkg_sha256": sha256_file(gpkg),
+            "profile_sha256": sha256_file(tmp / PROFILE),
+            "summary": net.summary(),
+        }
         (tmp / META).write_text(dumps_json(meta) + "\n", encoding="utf-8")
     return Path(out)
 
@@ -380,9 +434,13 @@ def _source_columns() -> list[str]:
     return list(COLUMNS)
 
 
-def load_network(folder: str | Path, *, profile: Profile | None = None,
-                 verify: bool = True, tagger: Callable[..., gpd.GeoDataFrame] | None = None
-                 ) -> Network:
+def load_network(
+    folder: str | Path,
+    *,
+    profile: Profile | None = None,
+    verify: bool = True,
+    tagger: Callable[..., gpd.GeoDataFrame] | None = None,
+) -> Network:
     """Read a network folder written by :func:`save_network`.
 
     Refuses a folder that is missing, incomplete, of another format version, or whose
@@ -391,8 +449,7 @@ def load_network(folder: str | Path, *, profile: Profile | None = None,
     """
     d = Path(folder)
     if not d.is_dir():
-        raise NetworkFolderError("network folder not found (run 'routerisk build' first)",
-                                 path=d)
+        raise NetworkFolderError("network folder not found (run 'routerisk build' first)", path=d)
     meta_path = d / META
     if not meta_path.is_file():
         raise NetworkFolderError("incomplete network folder: meta.json missing", path=d)
@@ -405,39 +462,55 @@ def load_network(folder: str | Path, *, profile: Profile | None = None,
     if meta.get("format_version") != FORMAT_VERSION:
         raise NetworkFolderError(
             f"network format {meta.get('format_version')!r}, this tool reads "
-            f"{FORMAT_VERSION}; rebuild it", path=meta_path, field="format_version")
+            f"{FORMAT_VERSION}; rebuild it",
+            path=meta_path,
+            field="format_version",
+        )
     gpkg = d / GPKG
     if not gpkg.is_file():
         raise NetworkFolderError("network.gpkg missing", path=d)
     if verify and sha256_file(gpkg) != meta.get("gpkg_sha256"):
-        raise NetworkFolderError("network.gpkg does not match its checksum; rebuild",
-                                 path=gpkg, field="gpkg_sha256")
+        raise NetworkFolderError(
+            "network.gpkg does not match its checksum; rebuild", path=gpkg, field="gpkg_sha256"
+        )
     arrow = _use_arrow()
     try:
         layers = {name for name, _ in pyogrio.list_layers(gpkg)}
         edges = pyogrio.read_dataframe(gpkg, layer="edges", use_arrow=arrow)
         nodes = pyogrio.read_dataframe(gpkg, layer="nodes", use_arrow=arrow)
-        src = (pyogrio.read_dataframe(gpkg, layer="sources", use_arrow=arrow)
-               if "sources" in layers else
-               gpd.GeoDataFrame(columns=_source_columns(), geometry="geometry", crs=edges.crs))
-        cross = (pyogrio.read_dataframe(gpkg, layer="crossings", use_arrow=arrow)
-                 if "crossings" in layers else
-                 gpd.GeoDataFrame({"osmid": [], "crossing": []}, geometry=[], crs=edges.crs))
-        context = (pyogrio.read_dataframe(gpkg, layer="context", use_arrow=arrow)
-                   if "context" in layers else None)
+        src = (
+            pyogrio.read_dataframe(gpkg, layer="sources", use_arrow=arrow)
+            if "sources" in layers
+            else gpd.GeoDataFrame(columns=_source_columns(), geometry="geometry", crs=edges.crs)
+        )
+        cross = (
+            pyogrio.read_dataframe(gpkg, layer="crossings", use_arrow=arrow)
+            if "crossings" in layers
+            else gpd.GeoDataFrame({"osmid": [], "crossing": []}, geometry=[], crs=edges.crs)
+        )
+        context = (
+            pyogrio.read_dataframe(gpkg, layer="context", use_arrow=arrow)
+            if "context" in layers
+            else None
+        )
     except Exception as exc:  # noqa: BLE001 - GDAL errors of many kinds
         raise NetworkFolderError(f"cannot read network.gpkg ({exc})", path=gpkg) from exc
     prof_path = d / PROFILE
     if not prof_path.is_file():
-        raise NetworkFolderError("incomplete network folder: profile.yaml missing", path=d,
-                                 field=PROFILE)
+        raise NetworkFolderError(
+            "incomplete network folder: profile.yaml missing", path=d, field=PROFILE
+        )
     if verify and sha256_file(prof_path) != meta.get("profile_sha256"):
-        raise NetworkFolderError("profile.yaml does not match its checksum (edited after the "
-                                 "build?); rebuild, or pass the new profile with --profile",
-                                 path=prof_path, field="profile_sha256")
+        raise NetworkFolderError(
+            "profile.yaml does not match its checksum (edited after the "
+            "build?); rebuild, or pass the new profile with --profile",
+            path=prof_path,
+            field="profile_sha256",
+        )
     try:
-        saved_profile = parse_profile(safe_load_yaml(prof_path.read_text(encoding="utf-8")),
-                                      path=prof_path)
+        saved_profile = parse_profile(
+            safe_load_yaml(prof_path.read_text(encoding="utf-8")), path=prof_path
+        )
     except yaml.YAMLError as exc:
         raise NetworkFolderError("profile.yaml is not valid YAML", path=prof_path) from exc
     edges = edges.set_index(["u", "v", "key"])

@@ -56,8 +56,9 @@ def halo_m(profile: Profile) -> float:
 def check_tile(tile_m: float) -> float:
     """Return ``tile_m`` if it is a positive finite number of metres, else raise."""
     if not (isinstance(tile_m, int | float) and math.isfinite(tile_m) and tile_m > 0):
-        raise OptionError(f"the tile size must be a positive number of metres, got {tile_m!r}",
-                          field="--tile-m")
+        raise OptionError(
+            f"the tile size must be a positive number of metres, got {tile_m!r}", field="--tile-m"
+        )
     return float(tile_m)
 
 
@@ -73,8 +74,7 @@ def tile_ids(edges: gpd.GeoDataFrame, tile_m: float) -> np.ndarray:
     return ij[:, 1] * ncol + ij[:, 0]
 
 
-def _near(geoms: np.ndarray, tree: STRtree | None, bounds: np.ndarray, halo: float
-          ) -> np.ndarray:
+def _near(geoms: np.ndarray, tree: STRtree | None, bounds: np.ndarray, halo: float) -> np.ndarray:
     """Return the sorted indices of ``geoms`` meeting ``bounds`` grown by ``halo``."""
     if tree is None or len(geoms) == 0:
         return np.zeros(0, dtype=np.int64)
@@ -82,8 +82,14 @@ def _near(geoms: np.ndarray, tree: STRtree | None, bounds: np.ndarray, halo: flo
     return np.sort(tree.query(shapely.box(x0 - halo, y0 - halo, x1 + halo, y1 + halo)))
 
 
-def split(edges: gpd.GeoDataFrame, sources: gpd.GeoDataFrame, crossings: gpd.GeoDataFrame,
-          profile: Profile, *, tile_m: float) -> list[tuple[np.ndarray, np.ndarray, np.ndarray]]:
+def split(
+    edges: gpd.GeoDataFrame,
+    sources: gpd.GeoDataFrame,
+    crossings: gpd.GeoDataFrame,
+    profile: Profile,
+    *,
+    tile_m: float,
+) -> list[tuple[np.ndarray, np.ndarray, np.ndarray]]:
     """Return per tile (edge rows, source rows, crossing rows), in tile order.
 
     Source and crossing rows keep their order in the input frames, so a tile sees its
@@ -108,9 +114,11 @@ def split(edges: gpd.GeoDataFrame, sources: gpd.GeoDataFrame, crossings: gpd.Geo
     return out
 
 
-def _tag_tiles(tiles: list[tuple[gpd.GeoDataFrame, gpd.GeoDataFrame, gpd.GeoDataFrame]],
-               profile: Profile, polygons: dict[str, gpd.GeoSeries] | None
-               ) -> list[tuple[pd.DataFrame, list[str]]]:
+def _tag_tiles(
+    tiles: list[tuple[gpd.GeoDataFrame, gpd.GeoDataFrame, gpd.GeoDataFrame]],
+    profile: Profile,
+    polygons: dict[str, gpd.GeoSeries] | None,
+) -> list[tuple[pd.DataFrame, list[str]]]:
     """Tag a batch of tiles, each on its own (one task on a worker).
 
     Returns each tile's tagged frame without its geometry (the caller has it already, and
@@ -123,8 +131,9 @@ def _tag_tiles(tiles: list[tuple[gpd.GeoDataFrame, gpd.GeoDataFrame, gpd.GeoData
     return out
 
 
-def _run_bounded(client: Any, fn: Any, batches: list[list[int]], make: Any, *args: Any
-                 ) -> list[Any]:
+def _run_bounded(
+    client: Any, fn: Any, batches: list[list[int]], make: Any, *args: Any
+) -> list[Any]:
     """Run ``fn(make(batch), *args)`` for every batch on ``client``, a few tasks in flight.
 
     Only about two tasks per worker are submitted ahead, and a batch's inputs are made by
@@ -201,14 +210,21 @@ def tag_partitioned(
     """
     parts = split(edges, sources, crossings, profile, tile_m=tile_m)
     _LAST["tiles"] = len(parts)
-    log.info("tag_partitioned: %d edges in %d tiles of %.0f m (halo %.0f m)", len(edges),
-             len(parts), tile_m, halo_m(profile))
+    log.info(
+        "tag_partitioned: %d edges in %d tiles of %.0f m (halo %.0f m)",
+        len(edges),
+        len(parts),
+        tile_m,
+        halo_m(profile),
+    )
     if not parts:
         return tagging.tag_edges(edges, sources, crossings, profile, polygons=polygons)
 
     def tiles(batch: list[int]) -> list[tuple[gpd.GeoDataFrame, ...]]:
-        return [(edges.iloc[parts[i][0]], sources.iloc[parts[i][1]],
-                 crossings.iloc[parts[i][2]]) for i in batch]
+        return [
+            (edges.iloc[parts[i][0]], sources.iloc[parts[i][1]], crossings.iloc[parts[i][2]])
+            for i in batch
+        ]
 
     batches = _batches([len(p[0]) for p in parts], task_edges)
     if client is None:
@@ -235,11 +251,17 @@ def tagger(*, client: Any = None, tile_m: float = DEFAULT_TILE_M) -> Any:
     """Return a drop-in for :func:`routerisk.tagging.tag_edges` that tags by tiles."""
     check_tile(tile_m)
 
-    def tag(edges: gpd.GeoDataFrame, sources: gpd.GeoDataFrame, crossings: gpd.GeoDataFrame,
-            profile: Profile, *, polygons: dict[str, gpd.GeoSeries] | None = None
-            ) -> gpd.GeoDataFrame:
-        return tag_partitioned(edges, sources, crossings, profile, tile_m=tile_m,
-                               client=client, polygons=polygons)
+    def tag(
+        edges: gpd.GeoDataFrame,
+        sources: gpd.GeoDataFrame,
+        crossings: gpd.GeoDataFrame,
+        profile: Profile,
+        *,
+        polygons: dict[str, gpd.GeoSeries] | None = None,
+    ) -> gpd.GeoDataFrame:
+        return tag_partitioned(
+            edges, sources, crossings, profile, tile_m=tile_m, client=client, polygons=polygons
+        )
 
     return tag
 
@@ -250,8 +272,9 @@ def last_tile_count() -> int:
 
 
 @contextlib.contextmanager
-def cluster(*, workers: int | None = None, scheduler: str | None = None,
-            processes: bool = True) -> Iterator[Any]:
+def cluster(
+    *, workers: int | None = None, scheduler: str | None = None, processes: bool = True
+) -> Iterator[Any]:
     """Yield a ``dask.distributed.Client``: to ``scheduler`` if given, else a local cluster.
 
     Parameters
@@ -267,20 +290,25 @@ def cluster(*, workers: int | None = None, scheduler: str | None = None,
     try:
         from distributed import Client, LocalCluster
     except ImportError as exc:
-        raise OptionError("partitioned runs need the optional packages dask, distributed "
-                          "and dask-geopandas (pip install 'routerisk[scale]')",
-                          field="--workers") from exc
+        raise OptionError(
+            "partitioned runs need the optional packages dask, distributed "
+            "and dask-geopandas (pip install 'routerisk[scale]')",
+            field="--workers",
+        ) from exc
     if scheduler is not None and workers is not None:
-        raise OptionError("give --workers for a local cluster or --scheduler for a running "
-                          "one, not both", field="--scheduler")
+        raise OptionError(
+            "give --workers for a local cluster or --scheduler for a running one, not both",
+            field="--scheduler",
+        )
     if workers is not None and workers < 1:
         raise OptionError(f"must be at least 1, got {workers}", field="--workers")
     if scheduler is not None:
         try:
             client = Client(scheduler, timeout="20s")
         except (OSError, TimeoutError) as exc:
-            raise OptionError(f"cannot reach the scheduler at {scheduler!r} ({exc})",
-                              field="--scheduler") from exc
+            raise OptionError(
+                f"cannot reach the scheduler at {scheduler!r} ({exc})", field="--scheduler"
+            ) from exc
         try:
             yield client
         finally:
@@ -288,9 +316,13 @@ def cluster(*, workers: int | None = None, scheduler: str | None = None,
         return
     n = workers or 2
     # ":0": the scheduler's HTTP endpoint takes a free port, so two local clusters never clash
-    lc = LocalCluster(n_workers=n if processes else 1, threads_per_worker=1 if processes
-                      else n, processes=processes, dashboard_address=":0",
-                      silence_logs=logging.WARNING)
+    lc = LocalCluster(
+        n_workers=n if processes else 1,
+        threads_per_worker=1 if processes else n,
+        processes=processes,
+        dashboard_address=":0",
+        silence_logs=logging.WARNING,
+    )
     client = Client(lc)
     try:
         yield client
@@ -309,10 +341,15 @@ def _clip_tiles(tiles: list[gpd.GeoDataFrame], geometry: Any) -> list[gpd.GeoDat
     return [clip_edges(t, geometry) for t in tiles]
 
 
-def clip_partitioned(edges: gpd.GeoDataFrame, geometry: Any, *,
-                     tile_m: float = DEFAULT_TILE_M, client: Any = None,
-                     tree: STRtree | None = None, task_edges: int = 20_000
-                     ) -> gpd.GeoDataFrame:
+def clip_partitioned(
+    edges: gpd.GeoDataFrame,
+    geometry: Any,
+    *,
+    tile_m: float = DEFAULT_TILE_M,
+    client: Any = None,
+    tree: STRtree | None = None,
+    task_edges: int = 20_000,
+) -> gpd.GeoDataFrame:
     """Return the same frame as :func:`routerisk.review.clip_edges`, clipped tile by tile.
 
     The edges whose bounding boxes meet the area are picked here with the index; their
@@ -335,8 +372,13 @@ def clip_partitioned(edges: gpd.GeoDataFrame, geometry: Any, *,
         results = _clip_tiles(parts, geometry)
     else:
         area = client.scatter(geometry, broadcast=True)
-        done = _run_bounded(client, _clip_tiles, _batches([len(p) for p in parts], task_edges),
-                            lambda b: [parts[i] for i in b], area)
+        done = _run_bounded(
+            client,
+            _clip_tiles,
+            _batches([len(p) for p in parts], task_edges),
+            lambda b: [parts[i] for i in b],
+            area,
+        )
         results = [r for batch in done for r in batch]
     out = pd.concat(results)
     out = out.iloc[np.argsort(edges.index.get_indexer(out.index), kind="stable")]
@@ -347,16 +389,17 @@ def clipper(*, client: Any = None, tile_m: float = DEFAULT_TILE_M) -> Any:
     """Return a drop-in for :func:`routerisk.review.clip_edges` that clips by tiles."""
     check_tile(tile_m)
 
-    def clip(edges: gpd.GeoDataFrame, geometry: Any, *, tree: STRtree | None = None
-             ) -> gpd.GeoDataFrame:
+    def clip(
+        edges: gpd.GeoDataFrame, geometry: Any, *, tree: STRtree | None = None
+    ) -> gpd.GeoDataFrame:
         return clip_partitioned(edges, geometry, tile_m=tile_m, client=client, tree=tree)
 
     return clip
 
 
-
-def _area_sums(part: pd.DataFrame, areas: list[Any], categories: list[str],
-               bands: list[str]) -> pd.DataFrame:
+def _area_sums(
+    part: pd.DataFrame, areas: list[Any], categories: list[str], bands: list[str]
+) -> pd.DataFrame:
     """Return per area the length sums of one partition's edges (a task)."""
     from .review import clip_edges
 
@@ -376,8 +419,9 @@ def _area_sums(part: pd.DataFrame, areas: list[Any], categories: list[str],
     return pd.DataFrame(rows)
 
 
-def review_sums(net: Any, areas: Sequence[Any], *, tile_m: float = DEFAULT_TILE_M,
-                client: Any = None) -> list[dict[str, Any]]:
+def review_sums(
+    net: Any, areas: Sequence[Any], *, tile_m: float = DEFAULT_TILE_M, client: Any = None
+) -> list[dict[str, Any]]:
     """Return per area ``network_km``, ``km_by_band`` and ``km_in_influence``, by tiles.
 
     The same figures as :func:`routerisk.review.review_areas` reports, summed tile by tile
@@ -397,24 +441,29 @@ def review_sums(net: Any, areas: Sequence[Any], *, tile_m: float = DEFAULT_TILE_
     meta = _area_sums(frame.iloc[:0], geoms, cats, bands).iloc[:0]
     if client is None:
         cuts = np.flatnonzero(np.diff(frame["tile"].to_numpy())) + 1
-        parts = [_area_sums(frame.iloc[idx], geoms, cats, bands)
-                 for idx in np.split(np.arange(len(frame)), cuts)]
+        parts = [
+            _area_sums(frame.iloc[idx], geoms, cats, bands)
+            for idx in np.split(np.arange(len(frame)), cuts)
+        ]
         sums = pd.concat(parts)
     else:
         import dask_geopandas
 
         n_tiles = int(frame["tile"].nunique())
-        dgdf = dask_geopandas.from_geopandas(frame.set_index("tile", drop=False),
-                                             npartitions=max(1, n_tiles), sort=True)
+        dgdf = dask_geopandas.from_geopandas(
+            frame.set_index("tile", drop=False), npartitions=max(1, n_tiles), sort=True
+        )
         sums = dgdf.map_partitions(_area_sums, geoms, cats, bands, meta=meta).compute()
     sums = sums.groupby("area").sum()
     out = []
     for i, a in enumerate(areas):
         r = sums.loc[i] if i in sums.index else pd.Series(dtype=float)
-        out.append({
-            "name": getattr(a, "name", f"area-{i + 1}"),
-            "network_km": float(r.get("network_km", 0.0)),
-            "km_by_band": {b: float(r.get(f"band:{b}", 0.0)) for b in bands},
-            "km_in_influence": {c: float(r.get(f"infl:{c}", 0.0)) for c in cats},
-        })
+        out.append(
+            {
+                "name": getattr(a, "name", f"area-{i + 1}"),
+                "network_km": float(r.get("network_km", 0.0)),
+                "km_by_band": {b: float(r.get(f"band:{b}", 0.0)) for b in bands},
+                "km_in_influence": {c: float(r.get(f"infl:{c}", 0.0)) for c in cats},
+            }
+        )
     return out

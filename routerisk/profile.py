@@ -268,8 +268,10 @@ class Profile:
     def street_multipliers(self, minute_of_week: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Return the baseline's and the crossings' time multipliers at the given minutes."""
         m = np.asarray(minute_of_week, dtype=int) % MINUTES_PER_WEEK
-        return (self.by_minute_of(self.baseline_time_profile)[m],
-                self.by_minute_of(self.crossing_time_profile)[m])
+        return (
+            self.by_minute_of(self.baseline_time_profile)[m],
+            self.by_minute_of(self.crossing_time_profile)[m],
+        )
 
     def by_minute_of(self, name: str | None) -> np.ndarray:
         """Return the 10,080 multipliers of time profile ``name`` (ones for None)."""
@@ -284,8 +286,12 @@ class Profile:
     @cached_property
     def fingerprint(self) -> str:
         """Return a stable 16-hex-digit hash of the profile's normalised content."""
-        text = json.dumps(self.to_dict(), sort_keys=True, separators=(",", ":"),
-                          default=lambda o: o.tolist() if hasattr(o, "tolist") else str(o))
+        text = json.dumps(
+            self.to_dict(),
+            sort_keys=True,
+            separators=(",", ":"),
+            default=lambda o: o.tolist() if hasattr(o, "tolist") else str(o),
+        )
         return hashlib.sha256((text + self.extra_hash).encode()).hexdigest()[:16]
 
 
@@ -315,15 +321,24 @@ class _Reader:
             raise self.fail(f"{key}.{missing[0]}" if key else missing[0], "required key missing")
         return value
 
-    def number(self, value: Any, key: str, *, low: float = 0.0, strict: bool = False,
-               high: float = math.inf) -> float:
+    def number(
+        self,
+        value: Any,
+        key: str,
+        *,
+        low: float = 0.0,
+        strict: bool = False,
+        high: float = math.inf,
+    ) -> float:
         if isinstance(value, bool) or not isinstance(value, int | float):
             hint = ""
             if isinstance(value, str):
                 try:
                     float(value)
-                    hint = (" (read as text: YAML needs a sign in the exponent, "
-                            "e.g. 1.0e+3, or a plain number)")
+                    hint = (
+                        " (read as text: YAML needs a sign in the exponent, "
+                        "e.g. 1.0e+3, or a plain number)"
+                    )
                 except ValueError:
                     pass
             raise self.fail(key, f"must be a number, got {value!r}{hint}")
@@ -345,8 +360,11 @@ class _Reader:
         if not isinstance(value, str) or len(value.split(":")) != 2:
             raise self.fail(key, f"must be a time 'HH:MM', got {value!r}")
         hh, mm = value.split(":")
-        if not (hh.isdigit() and mm.isdigit()) or int(mm) > 59 or int(hh) > 24 or (
-            int(hh) == 24 and int(mm) != 0
+        if (
+            not (hh.isdigit() and mm.isdigit())
+            or int(mm) > 59
+            or int(hh) > 24
+            or (int(hh) == 24 and int(mm) != 0)
         ):
             raise self.fail(key, f"must be a time 'HH:MM' between 00:00 and 24:00, got {value!r}")
         return int(hh) * 60 + int(mm)
@@ -371,7 +389,8 @@ class _Reader:
                 raise self.fail(f"{k}.end", "window has zero length (start equals end)")
             mult = (
                 self.number(w["multiplier"], f"{k}.multiplier", high=MAX_FACTOR)
-                if with_multiplier else 1.0
+                if with_multiplier
+                else 1.0
             )
             out.append(Window(tuple(days), start, end % 1440 if end == 1440 else end, mult))
         if with_multiplier:
@@ -387,8 +406,18 @@ class _Reader:
 
 
 _TOP_KEYS = {
-    "version", "name", "description", "sample_spacing_m", "baseline", "time_profiles",
-    "categories", "crossing_weight", "severity", "bands", "rules", "uncertainty",
+    "version",
+    "name",
+    "description",
+    "sample_spacing_m",
+    "baseline",
+    "time_profiles",
+    "categories",
+    "crossing_weight",
+    "severity",
+    "bands",
+    "rules",
+    "uncertainty",
 }
 #: Optional parts of the risk model, read by :func:`_model_options` (unset: as before).
 _MODEL_KEYS = {"crossing_time_profile", "likelihood"}
@@ -404,8 +433,12 @@ def _categories(r: _Reader, cats_raw: Any, tp_names: set[str]) -> list[Category]
     cats = []
     for cname, c in cats_raw.items():
         k = f"categories.{cname}"
-        r.mapping(c, k, {"label", "select", "weight", "radius_m", "decay", "time_profile",
-                         "stack"}, {"select", "weight", "radius_m"})
+        r.mapping(
+            c,
+            k,
+            {"label", "select", "weight", "radius_m", "decay", "time_profile", "stack"},
+            {"select", "weight", "radius_m"},
+        )
         sels = c["select"]
         if not isinstance(sels, list) or not sels:
             raise r.fail(f"{k}.select", "must be a non-empty list of tag selectors")
@@ -419,17 +452,19 @@ def _categories(r: _Reader, cats_raw: Any, tp_names: set[str]) -> list[Category]
         stack = c.get("stack", False)
         if not isinstance(stack, bool):
             raise r.fail(f"{k}.stack", "must be true or false")
-        cats.append(Category(
-            name=str(cname),
-            label=str(c.get("label", cname)),
-            selectors=tuple(selectors),
-            weight=_weight(r, c["weight"], f"{k}.weight")[0],
-            weight_range=_weight(r, c["weight"], f"{k}.weight")[1],
-            radius_m=r.number(c["radius_m"], f"{k}.radius_m", strict=True, high=5000),
-            decay=decay,
-            time_profile=tp,
-            stack=stack,
-        ))
+        cats.append(
+            Category(
+                name=str(cname),
+                label=str(c.get("label", cname)),
+                selectors=tuple(selectors),
+                weight=_weight(r, c["weight"], f"{k}.weight")[0],
+                weight_range=_weight(r, c["weight"], f"{k}.weight")[1],
+                radius_m=r.number(c["radius_m"], f"{k}.radius_m", strict=True, high=5000),
+                decay=decay,
+                time_profile=tp,
+                stack=stack,
+            )
+        )
     return cats
 
 
@@ -460,8 +495,9 @@ def _bands(r: _Reader, bands_raw: Any) -> list[Band]:
     bands = []
     for i, b in enumerate(bands_raw):
         r.mapping(b, f"bands[{i}]", {"name", "from"}, {"name", "from"})
-        bands.append(Band(r.text(b["name"], f"bands[{i}].name"),
-                          r.number(b["from"], f"bands[{i}].from")))
+        bands.append(
+            Band(r.text(b["name"], f"bands[{i}].name"), r.number(b["from"], f"bands[{i}].from"))
+        )
     if bands[0].lower != 0.0:
         raise r.fail("bands[0].from", "the first band must start at 0")
     for i in range(1, len(bands)):
@@ -472,8 +508,9 @@ def _bands(r: _Reader, bands_raw: Any) -> list[Band]:
     return bands
 
 
-def _rules(r: _Reader, rules_raw: Any, cat_names: set[str], base_dir: Path
-           ) -> tuple[list[Rule], list[str]]:
+def _rules(
+    r: _Reader, rules_raw: Any, cat_names: set[str], base_dir: Path
+) -> tuple[list[Rule], list[str]]:
     """Read and check the hard ``rules``; return them and the hashes of their polygon files."""
     if not isinstance(rules_raw, list):
         raise r.fail("rules", "must be a list")
@@ -481,8 +518,9 @@ def _rules(r: _Reader, rules_raw: Any, cat_names: set[str], base_dir: Path
     extra = []
     for i, ru in enumerate(rules_raw):
         k = f"rules[{i}]"
-        r.mapping(ru, k, {"name", "category", "within_m", "polygons", "road_classes", "windows"},
-                  {"name"})
+        r.mapping(
+            ru, k, {"name", "category", "within_m", "polygons", "road_classes", "windows"}, {"name"}
+        )
         cat = ru.get("category")
         poly = ru.get("polygons")
         classes = ru.get("road_classes", [])
@@ -505,10 +543,14 @@ def _rules(r: _Reader, rules_raw: Any, cat_names: set[str], base_dir: Path
             extra.append(hashlib.sha256(pp.read_bytes()).hexdigest())
         if not isinstance(classes, list) or any(not isinstance(c, str) for c in classes):
             raise r.fail(f"{k}.road_classes", "must be a list of OSM highway values")
-        wins = r.windows(ru["windows"], f"{k}.windows", with_multiplier=False) if "windows" in ru \
+        wins = (
+            r.windows(ru["windows"], f"{k}.windows", with_multiplier=False)
+            if "windows" in ru
             else ()
-        rules.append(Rule(r.text(ru["name"], f"{k}.name"), cat, within, poly_path,
-                          tuple(classes), wins))
+        )
+        rules.append(
+            Rule(r.text(ru["name"], f"{k}.name"), cat, within, poly_path, tuple(classes), wins)
+        )
     if len({ru.name for ru in rules}) != len(rules):
         raise r.fail("rules", "rule names must be unique")
     return rules, extra
@@ -524,20 +566,28 @@ def parse_profile(data: Any, *, path: str | Path = "<profile>") -> Profile:
     name = r.text(d["name"], "name")
     spacing = r.number(d.get("sample_spacing_m", 10), "sample_spacing_m", strict=True, high=500)
 
-    bl = r.mapping(d.get("baseline", {}), "baseline",
-                   {"by_road_class", "default", "sidewalk", "time_profile"})
-    by_class = r.mapping(bl.get("by_road_class", {}), "baseline.by_road_class",
-                         set(map(str, bl.get("by_road_class", {}) or {})))
-    baseline = tuple(sorted(
-        (str(k), r.number(v, f"baseline.by_road_class.{k}", high=MAX_FACTOR))
-        for k, v in by_class.items()
-    ))
+    bl = r.mapping(
+        d.get("baseline", {}), "baseline", {"by_road_class", "default", "sidewalk", "time_profile"}
+    )
+    by_class = r.mapping(
+        bl.get("by_road_class", {}),
+        "baseline.by_road_class",
+        set(map(str, bl.get("by_road_class", {}) or {})),
+    )
+    baseline = tuple(
+        sorted(
+            (str(k), r.number(v, f"baseline.by_road_class.{k}", high=MAX_FACTOR))
+            for k, v in by_class.items()
+        )
+    )
     sidewalk_raw = bl.get("sidewalk", {}) or {}
     r.mapping(sidewalk_raw, "baseline.sidewalk", set(map(str, sidewalk_raw)))
-    sidewalk = tuple(sorted(
-        (str(k), r.number(v, f"baseline.sidewalk.{k}", high=MAX_FACTOR))
-        for k, v in sidewalk_raw.items()
-    ))
+    sidewalk = tuple(
+        sorted(
+            (str(k), r.number(v, f"baseline.sidewalk.{k}", high=MAX_FACTOR))
+            for k, v in sidewalk_raw.items()
+        )
+    )
 
     tps_raw = d.get("time_profiles", {}) or {}
     r.mapping(tps_raw, "time_profiles", set(map(str, tps_raw)))
@@ -545,11 +595,13 @@ def parse_profile(data: Any, *, path: str | Path = "<profile>") -> Profile:
     for tname, t in tps_raw.items():
         k = f"time_profiles.{tname}"
         r.mapping(t, k, {"default", "windows"}, {"windows"})
-        tps.append(TimeProfile(
-            str(tname),
-            r.number(t.get("default", 1.0), f"{k}.default", high=MAX_FACTOR),
-            r.windows(t["windows"], f"{k}.windows", with_multiplier=True),
-        ))
+        tps.append(
+            TimeProfile(
+                str(tname),
+                r.number(t.get("default", 1.0), f"{k}.default", high=MAX_FACTOR),
+                r.windows(t["windows"], f"{k}.windows", with_multiplier=True),
+            )
+        )
     tp_names = {t.name for t in tps}
 
     cats = _categories(r, d["categories"], tp_names)
@@ -565,27 +617,35 @@ def parse_profile(data: Any, *, path: str | Path = "<profile>") -> Profile:
 
     rules, extra = _rules(r, d.get("rules", []) or [], cat_names, base_dir)
 
-    return _model_options(r, d, Profile(
-        name=name,
-        description=str(d.get("description", "")).strip(),
-        sample_spacing_m=spacing,
-        baseline_by_class=baseline,
-        baseline_default=r.number(bl.get("default", 0.2), "baseline.default",
-                                  high=MAX_FACTOR),
-        sidewalk=sidewalk,
-        time_profiles=tuple(tps),
-        categories=tuple(cats),
-        crossing_weight=r.number(d.get("crossing_weight", 0.0), "crossing_weight",
-                                 high=MAX_FACTOR),
-        severity_outcome=outcome,
-        reference_mph=ref,
-        bands=tuple(bands),
-        rules=tuple(rules),
-        source=str(path),
-        extra_hash="".join(extra),
-        uncertainty=_uncertainty(r, d.get("uncertainty"), [c.name for c in cats],
-                                 {c.name: c.weight_range for c in cats}),
-    ))
+    return _model_options(
+        r,
+        d,
+        Profile(
+            name=name,
+            description=str(d.get("description", "")).strip(),
+            sample_spacing_m=spacing,
+            baseline_by_class=baseline,
+            baseline_default=r.number(bl.get("default", 0.2), "baseline.default", high=MAX_FACTOR),
+            sidewalk=sidewalk,
+            time_profiles=tuple(tps),
+            categories=tuple(cats),
+            crossing_weight=r.number(
+                d.get("crossing_weight", 0.0), "crossing_weight", high=MAX_FACTOR
+            ),
+            severity_outcome=outcome,
+            reference_mph=ref,
+            bands=tuple(bands),
+            rules=tuple(rules),
+            source=str(path),
+            extra_hash="".join(extra),
+            uncertainty=_uncertainty(
+                r,
+                d.get("uncertainty"),
+                [c.name for c in cats],
+                {c.name: c.weight_range for c in cats},
+            ),
+        ),
+    )
 
 
 SPREADS = ("uniform", "log-uniform")
@@ -611,14 +671,19 @@ def _weight(r: _Reader, raw: Any, key: str) -> tuple[float, tuple[float, float, 
     return mid, (low, high, spread)
 
 
-def _uncertainty(r: _Reader, raw: Any, cat_names: list[str],
-                 ranges: Mapping[str, Any]) -> Uncertainty | None:
+def _uncertainty(
+    r: _Reader, raw: Any, cat_names: list[str], ranges: Mapping[str, Any]
+) -> Uncertainty | None:
     """Validate the optional ``uncertainty`` block: named weights and their covariance."""
     if raw is None:
         return None
     k = "uncertainty"
-    r.mapping(raw, k, {"method", "fitted_from", "scale", "weights", "covariance"},
-              {"weights", "covariance"})
+    r.mapping(
+        raw,
+        k,
+        {"method", "fitted_from", "scale", "weights", "covariance"},
+        {"weights", "covariance"},
+    )
     names = raw["weights"]
     if not isinstance(names, list) or not names or any(not isinstance(n, str) for n in names):
         raise r.fail(f"{k}.weights", "must be a non-empty list of category names")
@@ -628,14 +693,25 @@ def _uncertainty(r: _Reader, raw: Any, cat_names: list[str],
     if len(set(names)) != len(names):
         raise r.fail(f"{k}.weights", "names a category twice")
     cov = raw["covariance"]
-    if not isinstance(cov, list) or len(cov) != len(names) or any(
-            not isinstance(row, list) or len(row) != len(names) for row in cov):
-        raise r.fail(f"{k}.covariance",
-                     f"must be a {len(names)} x {len(names)} matrix (a list of rows), one "
-                     "row and column per name in weights")
-    vals = np.array([[r.number(v, f"{k}.covariance[{i}][{j}]", low=-MAX_FACTOR,
-                               high=MAX_FACTOR) for j, v in enumerate(row)]
-                     for i, row in enumerate(cov)])
+    if (
+        not isinstance(cov, list)
+        or len(cov) != len(names)
+        or any(not isinstance(row, list) or len(row) != len(names) for row in cov)
+    ):
+        raise r.fail(
+            f"{k}.covariance",
+            f"must be a {len(names)} x {len(names)} matrix (a list of rows), one "
+            "row and column per name in weights",
+        )
+    vals = np.array(
+        [
+            [
+                r.number(v, f"{k}.covariance[{i}][{j}]", low=-MAX_FACTOR, high=MAX_FACTOR)
+                for j, v in enumerate(row)
+            ]
+            for i, row in enumerate(cov)
+        ]
+    )
     if not np.allclose(vals, vals.T, rtol=1e-8, atol=1e-12):
         raise r.fail(f"{k}.covariance", "must be symmetric")
     eig = np.linalg.eigvalsh(vals)
@@ -659,34 +735,48 @@ def _model_options(r: _Reader, d: Mapping[str, Any], prof: Profile) -> Profile:
     names = {t.name for t in prof.time_profiles}
     found: dict[str, Any] = {}
     bl = d.get("baseline") or {}
-    for key, value in (("baseline.time_profile", bl.get("time_profile")),
-                       ("crossing_time_profile", d.get("crossing_time_profile"))):
+    for key, value in (
+        ("baseline.time_profile", bl.get("time_profile")),
+        ("crossing_time_profile", d.get("crossing_time_profile")),
+    ):
         if value is not None and (not isinstance(value, str) or value not in names):
             raise r.fail(key, f"unknown time profile {value!r}")
         found[key] = value
     like = None
     if d.get("likelihood") is not None:
-        lk = r.mapping(d["likelihood"], "likelihood",
-                       {"model", "crashes", "exponent", "reference_mph"})
+        lk = r.mapping(
+            d["likelihood"], "likelihood", {"model", "crashes", "exponent", "reference_mph"}
+        )
         if lk.get("model", "power") != "power":
             raise r.fail("likelihood.model", f"must be power, got {lk['model']!r}")
         if "crashes" in lk and "exponent" in lk:
-            raise r.fail("likelihood.exponent",
-                         "give crashes (a published exponent) or exponent, not both")
+            raise r.fail(
+                "likelihood.exponent", "give crashes (a published exponent) or exponent, not both"
+            )
         if "exponent" in lk:
             crashes = "custom"
             exponent = r.number(lk["exponent"], "likelihood.exponent", high=10)
         else:
             crashes = lk.get("crashes", "injury")
             if crashes not in POWER_MODEL_EXPONENTS:
-                raise r.fail("likelihood.crashes", "must be one of "
-                             f"{', '.join(POWER_MODEL_EXPONENTS)}, got {crashes!r}")
+                raise r.fail(
+                    "likelihood.crashes",
+                    f"must be one of {', '.join(POWER_MODEL_EXPONENTS)}, got {crashes!r}",
+                )
             exponent = POWER_MODEL_EXPONENTS[crashes]
-        ref = r.number(lk.get("reference_mph", prof.reference_mph), "likelihood.reference_mph",
-                       strict=True, high=100)
+        ref = r.number(
+            lk.get("reference_mph", prof.reference_mph),
+            "likelihood.reference_mph",
+            strict=True,
+            high=100,
+        )
         like = Likelihood(crashes, exponent, ref)
-    return replace(prof, baseline_time_profile=found["baseline.time_profile"],
-                   crossing_time_profile=found["crossing_time_profile"], likelihood=like)
+    return replace(
+        prof,
+        baseline_time_profile=found["baseline.time_profile"],
+        crossing_time_profile=found["crossing_time_profile"],
+        likelihood=like,
+    )
 
 
 def safe_load_yaml(text: str) -> Any:

@@ -38,12 +38,20 @@ HOUR_LABELS = tuple(f"{d} {h:02d}:00" for d in DAY_LABELS for h in range(24))
 #: Series colours of the charts (routerisk's own palette).
 SERIES_COLOURS = ("#1d3557", "#d2632b", "#2a9d8f", "#8e2a58", "#c9a227", "#577590", "#6d597a")
 #: Content-Security-Policy of every page: inline code and data: images only, no requests.
-CSP = ("default-src 'none'; img-src data:; style-src 'unsafe-inline'; "
-       "script-src 'unsafe-inline'; font-src data:; frame-src 'self' about: data:")
+CSP = (
+    "default-src 'none'; img-src data:; style-src 'unsafe-inline'; "
+    "script-src 'unsafe-inline'; font-src data:; frame-src 'self' about: data:"
+)
 #: Matplotlib settings used for every chart (fixed, so the bytes do not depend on rc files).
-_RC = {"svg.hashsalt": "routerisk", "font.family": "DejaVu Sans", "font.size": 9.0,
-       "axes.titlesize": 10.0, "figure.dpi": 100.0, "savefig.dpi": 100.0,
-       "path.simplify": True}
+_RC = {
+    "svg.hashsalt": "routerisk",
+    "font.family": "DejaVu Sans",
+    "font.size": 9.0,
+    "axes.titlesize": 10.0,
+    "figure.dpi": 100.0,
+    "savefig.dpi": 100.0,
+    "path.simplify": True,
+}
 
 PAGE_CSS = """
 body{font:14px/1.45 system-ui,-apple-system,"Segoe UI",sans-serif;color:#1c1c1c;margin:0;
@@ -132,8 +140,11 @@ def section(title: str, *parts: str, level: int = 2, anchor_id: str | None = Non
     """Return a heading (escaped ``title``) followed by ``parts`` (already HTML)."""
     level = min(max(int(level), 2), 4)
     ident = anchor_id or anchor(title)
-    return (f'<section id="{escape(ident)}"><h{level}>{escape(title)}</h{level}>'
-            + "".join(parts) + "</section>")
+    return (
+        f'<section id="{escape(ident)}"><h{level}>{escape(title)}</h{level}>'
+        + "".join(parts)
+        + "</section>"
+    )
 
 
 def table_html(
@@ -166,7 +177,8 @@ def table_html(
             value = row.get(key)
             d = digits.get(key, 3) if isinstance(digits, Mapping) else digits
             numeric = isinstance(value, int | float | np.integer | np.floating) and not (
-                isinstance(value, bool))
+                isinstance(value, bool)
+            )
             cls = ' class="num"' if numeric else ""
             if numeric and key in _P_KEYS:
                 text = words.p_text(float(value))
@@ -177,22 +189,36 @@ def table_html(
             cells.append(f"<td{cls}>{escape(text)}</td>")
         body.append("<tr>" + "".join(cells) + "</tr>")
     cap = f"<caption>{escape(caption)}</caption>" if caption else ""
-    return (f'<div class="rr-scroll"><table class="rr">{cap}<thead><tr>{head}</tr></thead>'
-            "<tbody>" + "".join(body) + "</tbody></table></div>")
+    return (
+        f'<div class="rr-scroll"><table class="rr">{cap}<thead><tr>{head}</tr></thead>'
+        "<tbody>" + "".join(body) + "</tbody></table></div>"
+    )
 
 
-def frame_html(df: pd.DataFrame, *, caption: str | None = None, index: bool = True,
-               digits: int | Mapping[str, int] = 3) -> str:
+def frame_html(
+    df: pd.DataFrame,
+    *,
+    caption: str | None = None,
+    index: bool = True,
+    digits: int | Mapping[str, int] = 3,
+) -> str:
     """Return a pandas DataFrame as an escaped HTML table."""
     data = df.reset_index() if index else df
-    rows = [dict(zip(map(str, data.columns), r, strict=True))
-            for r in data.itertuples(index=False, name=None)]
-    return table_html(rows, [(str(c), words.heading(str(c))) for c in data.columns],
-                      caption=caption, digits=digits)
+    rows = [
+        dict(zip(map(str, data.columns), r, strict=True))
+        for r in data.itertuples(index=False, name=None)
+    ]
+    return table_html(
+        rows,
+        [(str(c), words.heading(str(c))) for c in data.columns],
+        caption=caption,
+        digits=digits,
+    )
 
 
-def pairs_html(pairs: Iterable[tuple[str, Any]], *, caption: str | None = None,
-               digits: int = 3) -> str:
+def pairs_html(
+    pairs: Iterable[tuple[str, Any]], *, caption: str | None = None, digits: int = 3
+) -> str:
     """Return a two-column table of ``(label, value)`` pairs, escaped."""
     rows = [{"k": k, "v": v} for k, v in pairs]
     return table_html(rows, [("k", "item"), ("v", "value")], caption=caption, digits=digits)
@@ -230,8 +256,10 @@ def image_html(png: bytes, *, alt: str, caption: str | None = None) -> str:
     """Return a ``<figure>`` with the PNG embedded as a data: URI."""
     data = base64.b64encode(png).decode("ascii")
     cap = f"<figcaption>{escape(caption)}</figcaption>" if caption else ""
-    return (f'<figure class="rr"><img alt="{escape(alt)}" '
-            f'src="data:image/png;base64,{data}">{cap}</figure>')
+    return (
+        f'<figure class="rr"><img alt="{escape(alt)}" '
+        f'src="data:image/png;base64,{data}">{cap}</figure>'
+    )
 
 
 def figure_html(fig: Figure, *, alt: str, caption: str | None = None) -> str:
@@ -239,8 +267,15 @@ def figure_html(fig: Figure, *, alt: str, caption: str | None = None) -> str:
     return image_html(png_bytes(fig), alt=alt, caption=caption)
 
 
-def bar_chart(labels: Sequence[str], values: Sequence[float], *, title: str, xlabel: str,
-              colours: Sequence[str] | None = None, width: float = 7.0) -> Figure:
+def bar_chart(
+    labels: Sequence[str],
+    values: Sequence[float],
+    *,
+    title: str,
+    xlabel: str,
+    colours: Sequence[str] | None = None,
+    width: float = 7.0,
+) -> Figure:
     """Return a horizontal bar chart (one bar per label, first label on top)."""
     import matplotlib as mpl
 
@@ -253,22 +288,38 @@ def bar_chart(labels: Sequence[str], values: Sequence[float], *, title: str, xla
         ax.barh(y, [float(v) for v in values], color=cols, height=0.65)
         ax.set_yticks(y, [plain(s) for s in labels])
         for yy, v in zip(y, values, strict=True):
-            ax.annotate(f"{float(v):.2f}", (float(v), yy), xytext=(3, 0),
-                        textcoords="offset points", va="center", fontsize=8)
+            ax.annotate(
+                f"{float(v):.2f}",
+                (float(v), yy),
+                xytext=(3, 0),
+                textcoords="offset points",
+                va="center",
+                fontsize=8,
+            )
         ax.set_xlabel(plain(xlabel))
         ax.set_title(plain(title))
         ax.margins(x=0.12)
         ax.grid(True, axis="x", alpha=0.25)
         longest = max((len(str(s)) for s in labels), default=4)
         height = 0.9 + 0.32 * n
-        fig.subplots_adjust(left=min(0.5, 0.03 + 0.075 * longest / width), right=0.97,
-                            top=1 - 0.35 / height, bottom=0.45 / height)
+        fig.subplots_adjust(
+            left=min(0.5, 0.03 + 0.075 * longest / width),
+            right=0.97,
+            top=1 - 0.35 / height,
+            bottom=0.45 / height,
+        )
     return fig
 
 
-def grouped_bar_chart(groups: Sequence[str], series: Mapping[str, Sequence[float]], *,
-                      title: str, ylabel: str, colours: Sequence[str] | None = None,
-                      width: float = 8.0) -> Figure:
+def grouped_bar_chart(
+    groups: Sequence[str],
+    series: Mapping[str, Sequence[float]],
+    *,
+    title: str,
+    ylabel: str,
+    colours: Sequence[str] | None = None,
+    width: float = 8.0,
+) -> Figure:
     """Return vertical bars: one group per entry of ``groups``, one bar per series."""
     import matplotlib as mpl
 
@@ -281,8 +332,13 @@ def grouped_bar_chart(groups: Sequence[str], series: Mapping[str, Sequence[float
         w = 0.8 / k
         cols = list(colours) if colours else list(SERIES_COLOURS)
         for i, name in enumerate(names):
-            ax.bar(x - 0.4 + w * (i + 0.5), [float(v) for v in series[name]], width=w,
-                   label=plain(name), color=cols[i % len(cols)])
+            ax.bar(
+                x - 0.4 + w * (i + 0.5),
+                [float(v) for v in series[name]],
+                width=w,
+                label=plain(name),
+                color=cols[i % len(cols)],
+            )
         ax.set_xticks(x, [plain(g) for g in groups])
         ax.set_ylabel(plain(ylabel))
         ax.set_title(plain(title))
@@ -293,8 +349,14 @@ def grouped_bar_chart(groups: Sequence[str], series: Mapping[str, Sequence[float
     return fig
 
 
-def week_chart(series: Mapping[str, Sequence[float]], *, title: str, ylabel: str,
-               colours: Sequence[str] | None = None, width: float = 9.0) -> Figure:
+def week_chart(
+    series: Mapping[str, Sequence[float]],
+    *,
+    title: str,
+    ylabel: str,
+    colours: Sequence[str] | None = None,
+    width: float = 9.0,
+) -> Figure:
     """Return a step chart of 168 hourly values per series (Monday 00:00 first).
 
     The first series is drawn bold and on top; the others thin and dashed.
@@ -310,9 +372,16 @@ def week_chart(series: Mapping[str, Sequence[float]], *, title: str, ylabel: str
             v = np.asarray(values, dtype=float)
             if v.shape != (168,):
                 raise ValueError(f"series {name!r} must have 168 hourly values")
-            ax.stairs(v, hours, label=plain(name), color=cols[i % len(cols)],
-                      lw=2.4 if i == 0 else 1.2, ls="-" if i == 0 else "--",
-                      zorder=3 if i == 0 else 2, baseline=None)
+            ax.stairs(
+                v,
+                hours,
+                label=plain(name),
+                color=cols[i % len(cols)],
+                lw=2.4 if i == 0 else 1.2,
+                ls="-" if i == 0 else "--",
+                zorder=3 if i == 0 else 2,
+                baseline=None,
+            )
         for d in range(1, 7):
             ax.axvline(24 * d, color="#999999", lw=0.6, ls=":")
         ax.set_xticks([24 * d + 12 for d in range(7)], list(DAY_LABELS))
@@ -341,8 +410,10 @@ def map_html(m: folium.Map, *, title: str, height: int = 560) -> str:
     from . import mapview
 
     doc = _stable_ids(mapview.render(m))
-    return (f'<iframe class="rr-map" title="{escape(title)}" height="{int(height)}" '
-            f'srcdoc="{html.escape(doc, quote=True)}"></iframe>')
+    return (
+        f'<iframe class="rr-map" title="{escape(title)}" height="{int(height)}" '
+        f'srcdoc="{html.escape(doc, quote=True)}"></iframe>'
+    )
 
 
 _HEX_ID = re.compile(r"(?<=_)([0-9a-f]{32})(?=_)")
@@ -361,9 +432,14 @@ def _stable_ids(text: str) -> str:
 # ------------------------------------------------------------------------------------ page
 
 
-def page(title: str, body: Sequence[str], *, facts: Sequence[tuple[str, Any]] = (),
-         toc: Sequence[tuple[str, str]] = (), provenance: Mapping[str, Any] | None = None
-         ) -> str:
+def page(
+    title: str,
+    body: Sequence[str],
+    *,
+    facts: Sequence[tuple[str, Any]] = (),
+    toc: Sequence[tuple[str, str]] = (),
+    provenance: Mapping[str, Any] | None = None,
+) -> str:
     """Return a complete, self-contained HTML page.
 
     Parameters
@@ -385,13 +461,18 @@ def page(title: str, body: Sequence[str], *, facts: Sequence[tuple[str, Any]] = 
         from ._io import dumps_json, provenance_line
 
         facts = [*facts, ("made from", provenance_line(dict(provenance)))]
-        prov_meta = ('<meta name="routerisk-provenance" content="'
-                     f'{escape(dumps_json(dict(provenance)).replace(chr(10), " "))}">')
+        prov_meta = (
+            '<meta name="routerisk-provenance" content="'
+            f'{escape(dumps_json(dict(provenance)).replace(chr(10), " "))}">'
+        )
     fact_html = pairs_html(facts) if facts else ""
     nav = ""
     if toc:
-        nav = '<nav class="rr-toc">' + "".join(
-            f'<a href="#{escape(a)}">{escape(label)}</a>' for a, label in toc) + "</nav>"
+        nav = (
+            '<nav class="rr-toc">'
+            + "".join(f'<a href="#{escape(a)}">{escape(label)}</a>' for a, label in toc)
+            + "</nav>"
+        )
     return (
         "<!DOCTYPE html>\n"
         '<html lang="en"><head><meta charset="utf-8">'
@@ -400,16 +481,17 @@ def page(title: str, body: Sequence[str], *, facts: Sequence[tuple[str, Any]] = 
         f"{prov_meta}"
         f"<title>{escape(title)}</title><style>{PAGE_CSS}</style></head><body>"
         f"<header><h1>{escape(title)}</h1>{caution_html()}{fact_html}{nav}</header>"
-        "<main>" + "".join(body) + words.glossary_html(words.terms_in("".join(body)))
-        + "</main>"
+        "<main>" + "".join(body) + words.glossary_html(words.terms_in("".join(body))) + "</main>"
         f"<footer>{caution_html()}<p>Made with routerisk {escape(__version__)}. Map data: "
         "OpenStreetMap contributors, ODbL 1.0.</p></footer>"
         "</body></html>\n"
     )
 
 
-_REF = re.compile(r"""(?is)(?:\b(src|href|action|poster|data)\s*=\s*["']?\s*|url\(\s*["']?|"""
-                  r"""@import\s+["'])((?:https?:)?//[^"'\s)>]*)""")
+_REF = re.compile(
+    r"""(?is)(?:\b(src|href|action|poster|data)\s*=\s*["']?\s*|url\(\s*["']?|"""
+    r"""@import\s+["'])((?:https?:)?//[^"'\s)>]*)"""
+)
 _ANCHOR_HREF = re.compile(r"""(?is)<a\s[^>]*\bhref\s*=\s*["']?\s*$""")
 _SRCDOC = re.compile(r'(?s)\bsrcdoc="([^"]*)"')
 
@@ -424,8 +506,9 @@ def external_references(text: str) -> list[str]:
     found = []
     for mt in _REF.finditer(text):
         if mt.group(1) and mt.group(1).lower() == "href":
-            before = text[max(0, mt.start() - 400):mt.start() + len(mt.group(0))
-                          - len(mt.group(2))]
+            before = text[
+                max(0, mt.start() - 400) : mt.start() + len(mt.group(0)) - len(mt.group(2))
+            ]
             if _ANCHOR_HREF.search(before):
                 continue
         found.append(mt.group(2))

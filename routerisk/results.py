@@ -95,10 +95,18 @@ class Routes(_Items["PlannedRoute"]):
         """Return one row per point: route, point, lon, lat, time (or None), required."""
         import pandas as pd
 
-        rows = [{"route": r.name, "point": i, "lon": float(lon), "lat": float(lat),
-                 "time": None if r.times is None else r.times[i].isoformat(),
-                 "required": bool(r.required[i])}  # type: ignore[index]
-                for r in self._items for i, (lon, lat) in enumerate(r.lonlat)]
+        rows = [
+            {
+                "route": r.name,
+                "point": i,
+                "lon": float(lon),
+                "lat": float(lat),
+                "time": None if r.times is None else r.times[i].isoformat(),
+                "required": bool(r.required[i]),
+            }  # type: ignore[index]
+            for r in self._items
+            for i, (lon, lat) in enumerate(r.lonlat)
+        ]
         return pd.DataFrame(rows, columns=["route", "point", "lon", "lat", "time", "required"])
 
     def to_geodataframe(self) -> gpd.GeoDataFrame:
@@ -106,12 +114,16 @@ class Routes(_Items["PlannedRoute"]):
         import geopandas as gpd
         import shapely
 
-        return gpd.GeoDataFrame({
-            "name": [r.name for r in self._items],
-            "depart": [None if r.depart is None else r.depart.isoformat() for r in self._items],
-            "points": [len(r) for r in self._items],
-            "source": [r.source for r in self._items],
-        }, geometry=[shapely.LineString(r.lonlat) for r in self._items], crs="EPSG:4326")
+        return gpd.GeoDataFrame(
+            {
+                "name": [r.name for r in self._items],
+                "depart": [None if r.depart is None else r.depart.isoformat() for r in self._items],
+                "points": [len(r) for r in self._items],
+                "source": [r.source for r in self._items],
+            },
+            geometry=[shapely.LineString(r.lonlat) for r in self._items],
+            crs="EPSG:4326",
+        )
 
     def to_dict(self) -> dict[str, JSON]:
         """Return the routes as a GeoJSON FeatureCollection (the format ``score`` reads)."""
@@ -153,14 +165,19 @@ class Events:
         import geopandas as gpd
 
         return gpd.GeoDataFrame(
-            self.events.copy(), crs="EPSG:4326",
-            geometry=gpd.points_from_xy(self.events["lon"], self.events["lat"]))
+            self.events.copy(),
+            crs="EPSG:4326",
+            geometry=gpd.points_from_xy(self.events["lon"], self.events["lat"]),
+        )
 
     def to_dict(self) -> dict[str, JSON]:
         """Return ``{"source", "events": [...], "rejected": [{row, reason}, ...]}``."""
         cols = [c for c in ("row", "reason") if c in self.rejected.columns]
-        return {"source": self.source, "events": _records(self.events),
-                "rejected": _records(self.rejected[cols])}
+        return {
+            "source": self.source,
+            "events": _records(self.events),
+            "rejected": _records(self.rejected[cols]),
+        }
 
 
 class Areas(_Items["Area"]):
@@ -178,9 +195,11 @@ class Areas(_Items["Area"]):
         """Return one polygon per area (name, source) in the areas' CRS."""
         import geopandas as gpd
 
-        return gpd.GeoDataFrame({"name": [a.name for a in self._items],
-                                 "source": [a.source for a in self._items]},
-                                geometry=[a.geometry for a in self._items], crs=self.crs)
+        return gpd.GeoDataFrame(
+            {"name": [a.name for a in self._items], "source": [a.source for a in self._items]},
+            geometry=[a.geometry for a in self._items],
+            crs=self.crs,
+        )
 
     def to_frame(self) -> pd.DataFrame:
         """Return one row per area: name, area in km², source."""
@@ -191,8 +210,9 @@ class Areas(_Items["Area"]):
 
     def to_dict(self) -> dict[str, JSON]:
         """Return the areas as a GeoJSON FeatureCollection in WGS 84."""
-        doc: dict[str, JSON] = json.loads(self.to_geodataframe().to_crs("EPSG:4326").to_json(
-            drop_id=True))
+        doc: dict[str, JSON] = json.loads(
+            self.to_geodataframe().to_crs("EPSG:4326").to_json(drop_id=True)
+        )
         return doc
 
 
@@ -211,10 +231,21 @@ class Runs(_Items["RunSpec"]):
         import pandas as pd
 
         cols = ["name", "earliest", "latest", "route", "route_name", "vehicle", "repeat"]
-        return pd.DataFrame([{"name": r.name, "earliest": r.earliest, "latest": r.latest,
-                              "route": None if r.route is None else str(r.route),
-                              "route_name": r.route_name, "vehicle": r.vehicle,
-                              "repeat": r.repeat} for r in self._items], columns=cols)
+        return pd.DataFrame(
+            [
+                {
+                    "name": r.name,
+                    "earliest": r.earliest,
+                    "latest": r.latest,
+                    "route": None if r.route is None else str(r.route),
+                    "route_name": r.route_name,
+                    "vehicle": r.vehicle,
+                    "repeat": r.repeat,
+                }
+                for r in self._items
+            ],
+            columns=cols,
+        )
 
     def to_dict(self) -> dict[str, JSON]:
         """Return ``{"runs": [...]}``, the rows of :meth:`to_frame`."""
@@ -255,10 +286,12 @@ class ScoreResult:
         """Return ``{"routes": [...], "profile": fingerprint}`` as ``score --json`` prints."""
         from .scoring import RELATIVE_INDEX_NOTE, model_note
 
-        return {"routes": [s.to_dict() for s in self.scores],
-                "profile": self.network.profile.fingerprint,
-                "model": model_note(self.network.profile),
-                "relative_index_note": RELATIVE_INDEX_NOTE}
+        return {
+            "routes": [s.to_dict() for s in self.scores],
+            "profile": self.network.profile.fingerprint,
+            "model": model_note(self.network.profile),
+            "relative_index_note": RELATIVE_INDEX_NOTE,
+        }
 
     def to_map(self) -> folium.Map:
         """Return the map of the routes coloured by risk per km, with the risk chart."""
@@ -290,14 +323,33 @@ class SuggestResult:
         rows = []
         for s in self.suggestions:
             options = [("planned", s.planned, 0.0, 0.0, 0.0, True)]
-            options += [(a.label, a.score, a.risk_change_pct, a.time_change_pct,
-                         a.length_change_pct, a.within_bounds) for a in s.alternatives]
+            options += [
+                (
+                    a.label,
+                    a.score,
+                    a.risk_change_pct,
+                    a.time_change_pct,
+                    a.length_change_pct,
+                    a.within_bounds,
+                )
+                for a in s.alternatives
+            ]
             for label, sc, dr, dt_, dl, ok in options:
-                rows.append({"route": s.name, "option": label, "depart": sc.depart.isoformat(),
-                             "length_km": sc.length_km, "duration_min": sc.duration_min,
-                             "risk": sc.risk, "rule_breaks": len(sc.rule_breaks),
-                             "risk_change_pct": dr, "time_change_pct": dt_,
-                             "length_change_pct": dl, "within_bounds": ok})
+                rows.append(
+                    {
+                        "route": s.name,
+                        "option": label,
+                        "depart": sc.depart.isoformat(),
+                        "length_km": sc.length_km,
+                        "duration_min": sc.duration_min,
+                        "risk": sc.risk,
+                        "rule_breaks": len(sc.rule_breaks),
+                        "risk_change_pct": dr,
+                        "time_change_pct": dt_,
+                        "length_change_pct": dl,
+                        "within_bounds": ok,
+                    }
+                )
         return pd.DataFrame(rows)
 
     def to_geodataframe(self) -> gpd.GeoDataFrame:
@@ -309,19 +361,23 @@ class SuggestResult:
 
         parts = []
         for s in self.suggestions:
-            for label, sc in [("planned", s.planned)] + [(a.label, a.score)
-                                                         for a in s.alternatives]:
+            for label, sc in [("planned", s.planned)] + [
+                (a.label, a.score) for a in s.alternatives
+            ]:
                 g = segments_gdf(self.network, [sc])
                 g.insert(1, "option", label)
                 g["route"] = s.name
                 parts.append(g)
-        return gpd.GeoDataFrame(pd.concat(parts, ignore_index=True), geometry="geometry",
-                                crs="EPSG:4326")
+        return gpd.GeoDataFrame(
+            pd.concat(parts, ignore_index=True), geometry="geometry", crs="EPSG:4326"
+        )
 
     def to_dict(self) -> dict[str, JSON]:
         """Return ``{"routes": [...], "profile": fingerprint}`` as ``suggest --json`` prints."""
-        return {"routes": [s.to_dict() for s in self.suggestions],
-                "profile": self.network.profile.fingerprint}
+        return {
+            "routes": [s.to_dict() for s in self.suggestions],
+            "profile": self.network.profile.fingerprint,
+        }
 
     def to_map(self) -> folium.Map:
         """Return the map of plans and alternatives with their trade-off charts."""
@@ -355,8 +411,9 @@ class ReviewResult:
 
         shapes = {a.name: a.geometry for a in self.review.area_shapes}
         frame = self.to_frame()
-        return gpd.GeoDataFrame(frame, geometry=[shapes[n] for n in frame["area"]],
-                                crs=self.review.meta.get("crs"))
+        return gpd.GeoDataFrame(
+            frame, geometry=[shapes[n] for n in frame["area"]], crs=self.review.meta.get("crs")
+        )
 
     def to_dict(self) -> dict[str, JSON]:
         """Return the document ``review --json`` prints."""
@@ -390,9 +447,19 @@ class PlanResult:
         """Return one row per placed run (``schedule.csv``)."""
         import pandas as pd
 
-        return pd.DataFrame(self.plan.to_dict()["runs"],
-                            columns=["vehicle", "name", "repetition", "start", "end", "route",
-                                     "risk", "rule_breaks"])
+        return pd.DataFrame(
+            self.plan.to_dict()["runs"],
+            columns=[
+                "vehicle",
+                "name",
+                "repetition",
+                "start",
+                "end",
+                "route",
+                "risk",
+                "rule_breaks",
+            ],
+        )
 
     def to_geodataframe(self) -> gpd.GeoDataFrame:
         """Return the driven segments of every placed run, in EPSG:4326."""
@@ -409,8 +476,11 @@ class PlanResult:
         """Return the map of the day's runs (``map.html`` of ``plan --out``)."""
         from .routemap import route_map
 
-        m: folium.Map = route_map(self.network, [opt.score for _, opt in self.plan.chosen()],
-                                  title=f"Test runs on {self.plan.date.isoformat()}")
+        m: folium.Map = route_map(
+            self.network,
+            [opt.score for _, opt in self.plan.chosen()],
+            title=f"Test runs on {self.plan.date.isoformat()}",
+        )
         return m
 
 
@@ -476,12 +546,16 @@ class WatchResult:
 
         geoms = self.network.edges.reset_index()[["u", "v", "key", "geometry"]]
         mem = self.result.members[["unit", "u", "v", "key"]].merge(
-            geoms, on=["u", "v", "key"], how="left")
-        shapes = {unit: shapely.line_merge(shapely.union_all(list(g["geometry"])))
-                  for unit, g in mem.groupby("unit", sort=False)}
+            geoms, on=["u", "v", "key"], how="left"
+        )
+        shapes = {
+            unit: shapely.line_merge(shapely.union_all(list(g["geometry"])))
+            for unit, g in mem.groupby("unit", sort=False)
+        }
         seg = self.result.segments.copy()
-        return gpd.GeoDataFrame(seg, geometry=[shapes.get(u) for u in seg["unit"]],
-                                crs=self.network.crs)
+        return gpd.GeoDataFrame(
+            seg, geometry=[shapes.get(u) for u in seg["unit"]], crs=self.network.crs
+        )
 
     def to_dict(self) -> dict[str, JSON]:
         """Return the document ``watch --json`` prints."""
@@ -494,6 +568,7 @@ class WatchResult:
         from .watch import flag_map
 
         net = self.network
-        m: folium.Map = flag_map(net, self.result, provenance(
-            profile=net.profile.fingerprint, network=net))
+        m: folium.Map = flag_map(
+            net, self.result, provenance(profile=net.profile.fingerprint, network=net)
+        )
         return m

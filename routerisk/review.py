@@ -66,8 +66,12 @@ log = logging.getLogger(__name__)
 
 KPH_PER_MPH = 1.609344
 #: Speed bands (upper bound in mph, inclusive; label). Speeds are the edges' ``speed_kph``.
-SPEED_BANDS_MPH = ((25.0, "<= 25 mph", "le25mph"), (35.0, "26-35 mph", "26to35mph"),
-                   (45.0, "36-45 mph", "36to45mph"), (math.inf, "> 45 mph", "gt45mph"))
+SPEED_BANDS_MPH = (
+    (25.0, "<= 25 mph", "le25mph"),
+    (35.0, "26-35 mph", "26to35mph"),
+    (45.0, "36-45 mph", "36to45mph"),
+    (math.inf, "> 45 mph", "gt45mph"),
+)
 HOURS_PER_WEEK = 168
 #: Clipped pieces shorter than this (m) are boundary touches, not streets in the area.
 MIN_CLIP_M = 1e-3
@@ -144,8 +148,7 @@ def read_areas(path: str | Path, *, crs: Any) -> list[Area]:
             log.warning("%s has %d layers; reading the first, %r", p, len(layers), layer)
         gdf = pyogrio.read_dataframe(p, layer=layer)
     except Exception as exc:  # noqa: BLE001 - GDAL raises several kinds
-        raise InputFileError(f"cannot read the area file ({_first_line(exc)})",
-                             path=p) from exc
+        raise InputFileError(f"cannot read the area file ({_first_line(exc)})", path=p) from exc
     if not isinstance(gdf, gpd.GeoDataFrame) or gdf.geometry.name not in gdf:
         raise InputFileError("the file has no geometry", path=p, field="geometry")
     if len(gdf) == 0:
@@ -157,11 +160,11 @@ def read_areas(path: str | Path, *, crs: Any) -> list[Area]:
     for i, geom in enumerate(gdf.geometry):
         where = f"features[{i}].geometry"
         if geom is None or geom.is_empty:
-            raise InputFileError("empty geometry; an area needs a polygon", path=p,
-                                 field=where)
+            raise InputFileError("empty geometry; an area needs a polygon", path=p, field=where)
         if geom.geom_type not in ("Polygon", "MultiPolygon"):
-            raise InputFileError(f"must be a Polygon or MultiPolygon, got {geom.geom_type}",
-                                 path=p, field=where)
+            raise InputFileError(
+                f"must be a Polygon or MultiPolygon, got {geom.geom_type}", path=p, field=where
+            )
         if not shapely.is_valid(geom):
             reason = re.sub(r"\[", " at [", shapely.is_valid_reason(geom), count=1)
             raise InputFileError(f"invalid polygon: {reason}", path=p, field=where)
@@ -172,18 +175,28 @@ def read_areas(path: str | Path, *, crs: Any) -> list[Area]:
         where = f"features[{i}].geometry"
         bounds = np.asarray(geom.bounds, dtype=float)
         if not np.isfinite(bounds).all():
-            raise InputFileError("coordinates cannot be projected to the network's CRS "
-                                 "(out of range?)", path=p, field=where)
+            raise InputFileError(
+                "coordinates cannot be projected to the network's CRS (out of range?)",
+                path=p,
+                field=where,
+            )
         if not shapely.is_valid(geom):  # projection rarely bends a ring onto itself
             geom = shapely.make_valid(geom)
-            geom = shapely.union_all([g for g in shapely.get_parts(geom)
-                                      if g.geom_type in ("Polygon", "MultiPolygon")])
-        name = "" if raw_name is None or (isinstance(raw_name, float) and math.isnan(raw_name)
-                                          ) else str(raw_name).strip()
+            geom = shapely.union_all(
+                [g for g in shapely.get_parts(geom) if g.geom_type in ("Polygon", "MultiPolygon")]
+            )
+        name = (
+            ""
+            if raw_name is None or (isinstance(raw_name, float) and math.isnan(raw_name))
+            else str(raw_name).strip()
+        )
         name = name or f"area-{i + 1}"
         if name in seen:
-            raise InputFileError(f"area name {name!r} is used twice (also features[{seen[name]}])",
-                                 path=p, field=f"features[{i}].properties.name")
+            raise InputFileError(
+                f"area name {name!r} is used twice (also features[{seen[name]}])",
+                path=p,
+                field=f"features[{i}].properties.name",
+            )
         seen[name] = i
         out.append(Area(name, i, geom, str(p), where))
     log.info("read_areas read %d areas from %s", len(out), p)
@@ -211,8 +224,7 @@ class WhatIf:
     changes: tuple[Change, ...]
 
 
-def parse_what_if(specs: Sequence[str], profile: Profile, *,
-                  option: str = "--what-if") -> WhatIf:
+def parse_what_if(specs: Sequence[str], profile: Profile, *, option: str = "--what-if") -> WhatIf:
     """Parse the SPECs of one scenario against ``profile``.
 
     Raises
@@ -233,28 +245,36 @@ def parse_what_if(specs: Sequence[str], profile: Profile, *,
         if kind == "rule":
             if target not in rule_names:
                 known = ", ".join(repr(n) for n in rule_names) or "none"
-                raise OptionError(f"unknown rule {target!r} in {spec!r}; the profile's rules: "
-                                  f"{known}", field=option)
+                raise OptionError(
+                    f"unknown rule {target!r} in {spec!r}; the profile's rules: {known}",
+                    field=option,
+                )
             if value.lower() not in ("off", "on"):
-                raise OptionError(f"a rule is set 'off' or 'on', got {value!r} in {spec!r}",
-                                  field=option)
+                raise OptionError(
+                    f"a rule is set 'off' or 'on', got {value!r} in {spec!r}", field=option
+                )
             changes.append(Change("rule", target, value.lower(), spec))
         elif kind == "weight":
             if target not in profile.category_names:
-                raise OptionError(f"unknown category {target!r} in {spec!r}; categories: "
-                                  f"{', '.join(profile.category_names)}", field=option)
+                raise OptionError(
+                    f"unknown category {target!r} in {spec!r}; categories: "
+                    f"{', '.join(profile.category_names)}",
+                    field=option,
+                )
             try:
                 w = float(value)
             except ValueError:
-                raise OptionError(f"weight must be a number, got {value!r} in {spec!r}",
-                                  field=option) from None
+                raise OptionError(
+                    f"weight must be a number, got {value!r} in {spec!r}", field=option
+                ) from None
             if not math.isfinite(w) or w < 0 or w > MAX_FACTOR:
-                raise OptionError(f"weight must be a finite number >= 0 and <= "
-                                  f"{MAX_FACTOR:g}, got {value!r}", field=option)
+                raise OptionError(
+                    f"weight must be a finite number >= 0 and <= {MAX_FACTOR:g}, got {value!r}",
+                    field=option,
+                )
             changes.append(Change("weight", target, w, spec))
         else:
-            raise OptionError(f"unknown kind {kind!r} in {spec!r}; {WHAT_IF_HELP}",
-                              field=option)
+            raise OptionError(f"unknown kind {kind!r} in {spec!r}; {WHAT_IF_HELP}", field=option)
     return WhatIf(" ".join(specs), tuple(changes))
 
 
@@ -267,11 +287,14 @@ def apply_what_if(profile: Profile, what_if: WhatIf) -> Profile:
             if ch.value == "off":
                 rules = [r for r in rules if r.name != ch.target]
             else:
-                rules = [dataclasses.replace(r, windows=()) if r.name == ch.target else r
-                         for r in rules]
+                rules = [
+                    dataclasses.replace(r, windows=()) if r.name == ch.target else r for r in rules
+                ]
         else:
-            cats = [dataclasses.replace(c, weight=float(ch.value)) if c.name == ch.target
-                    else c for c in cats]
+            cats = [
+                dataclasses.replace(c, weight=float(ch.value)) if c.name == ch.target else c
+                for c in cats
+            ]
     return dataclasses.replace(profile, rules=tuple(rules), categories=tuple(cats))
 
 
@@ -282,8 +305,9 @@ def parse_time(text: str, *, option: str = "--at") -> int:
     """Return the minute of the week of ``'wed 08:15'`` (Monday 00:00 = 0, local time)."""
     mt = _AT.match(text)
     if not mt or mt.group(1).lower() not in DAYS:
-        raise OptionError(f"must be a day and a time such as 'wed 08:15', got {text!r}",
-                          field=option)
+        raise OptionError(
+            f"must be a day and a time such as 'wed 08:15', got {text!r}", field=option
+        )
     hh, mm = int(mt.group(2)), int(mt.group(3))
     if hh > 23 or mm > 59:
         raise OptionError(f"time out of range in {text!r}", field=option)
@@ -303,15 +327,15 @@ def _lines_only(geom: BaseGeometry) -> BaseGeometry:
     """Return the linear parts of an intersection (points where it touches are dropped)."""
     if geom.geom_type in ("LineString", "MultiLineString"):
         return geom
-    parts = [g for g in shapely.get_parts(geom) if g.geom_type in ("LineString",
-                                                                    "MultiLineString")]
+    parts = [g for g in shapely.get_parts(geom) if g.geom_type in ("LineString", "MultiLineString")]
     if len(parts) == 1:
         return parts[0]
     return shapely.multilinestrings([ln for g in parts for ln in shapely.get_parts(g)])
 
 
-def clip_edges(edges: gpd.GeoDataFrame, geometry: BaseGeometry, *,
-               tree: STRtree | None = None) -> gpd.GeoDataFrame:
+def clip_edges(
+    edges: gpd.GeoDataFrame, geometry: BaseGeometry, *, tree: STRtree | None = None
+) -> gpd.GeoDataFrame:
     """Return the edges that run inside ``geometry``, with their geometry clipped to it.
 
     Adds ``clip_m`` (edge ``length`` x share of its geometry inside the polygon) and
@@ -340,8 +364,9 @@ def clip_edges(edges: gpd.GeoDataFrame, geometry: BaseGeometry, *,
     out = sub.loc[keep].copy()
     out["clip_share"] = share[keep]
     out["clip_m"] = clip_m[keep]
-    out = out.set_geometry(gpd.GeoSeries([_lines_only(g) for g in clipped[keep]],
-                                         index=out.index, crs=edges.crs))
+    out = out.set_geometry(
+        gpd.GeoSeries([_lines_only(g) for g in clipped[keep]], index=out.index, crs=edges.crs)
+    )
     return out
 
 
@@ -372,26 +397,27 @@ class _Context:
     clip: Callable[..., gpd.GeoDataFrame]  # clip_edges, or a drop-in that clips by tiles
 
     @classmethod
-    def of(cls, net: Network, clip: Callable[..., gpd.GeoDataFrame] | None = None
-           ) -> _Context:
+    def of(cls, net: Network, clip: Callable[..., gpd.GeoDataFrame] | None = None) -> _Context:
         prof = net.profile
         mult = prof.multipliers(np.arange(MINUTES_PER_WEEK))
         hourly = mult.reshape(HOURS_PER_WEEK, 60, -1).mean(axis=1)
-        force = np.array([r.by_minute.reshape(HOURS_PER_WEEK, 60).any(axis=1)
-                          for r in prof.rules], dtype=bool).reshape(len(prof.rules),
-                                                                    HOURS_PER_WEEK)
+        force = np.array(
+            [r.by_minute.reshape(HOURS_PER_WEEK, 60).any(axis=1) for r in prof.rules], dtype=bool
+        ).reshape(len(prof.rules), HOURS_PER_WEEK)
         trees = {}
         for c in prof.categories:
             part = net.sources[net.sources["category"] == c.name]
             if len(part):
                 g = part.geometry.to_numpy()
                 trees[c.name] = (STRtree(g), g, part["name"].fillna("").astype(str).to_numpy())
-        return cls(net, STRtree(net.edges.geometry.to_numpy()), hourly, force, trees,
-                   clip or clip_edges)
+        return cls(
+            net, STRtree(net.edges.geometry.to_numpy()), hourly, force, trees, clip or clip_edges
+        )
 
 
-def _closed_matrix(clip: pd.DataFrame, profile: Profile, force_hour: np.ndarray
-                   ) -> tuple[np.ndarray, np.ndarray]:
+def _closed_matrix(
+    clip: pd.DataFrame, profile: Profile, force_hour: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
     """Return cover (n, rules) and closed-by-hour (n, 168) bool arrays."""
     n = len(clip)
     cover = np.zeros((n, len(profile.rules)), dtype=bool)
@@ -439,8 +465,7 @@ def connectivity(clip: pd.DataFrame, closed: np.ndarray) -> dict[str, Any]:
     G = nx.DiGraph()
     G.add_edges_from(zip(u[open_].tolist(), v[open_].tolist(), strict=True))
     comp: dict[Any, int] = {}
-    sccs = sorted((sorted(s) for s in nx.strongly_connected_components(G)),
-                  key=lambda s: s[0])
+    sccs = sorted((sorted(s) for s in nx.strongly_connected_components(G)), key=lambda s: s[0])
     for ci, nodes in enumerate(sccs):
         for nd in nodes:
             comp[nd] = ci
@@ -455,13 +480,15 @@ def connectivity(clip: pd.DataFrame, closed: np.ndarray) -> dict[str, Any]:
     parts = []
     for ci, rows in part_rows.items():
         rows_a = np.array(rows)
-        parts.append({
-            "km": _r(km[rows_a].sum()),
-            "centreline_km": _r(sum(km[j] for j in {skey[r]: r for r in rows}.values())),
-            "nodes": len(sccs[ci]),
-            "edges": len(rows),
-            "streets": _names_by_km(names[rows_a], km[rows_a]),
-        })
+        parts.append(
+            {
+                "km": _r(km[rows_a].sum()),
+                "centreline_km": _r(sum(km[j] for j in {skey[r]: r for r in rows}.values())),
+                "nodes": len(sccs[ci]),
+                "edges": len(rows),
+                "streets": _names_by_km(names[rows_a], km[rows_a]),
+            }
+        )
     parts.sort(key=lambda p: (-p["km"], -p["nodes"], p["streets"][:1]))
     open_km = float(km[open_].sum())
     all_nodes = set(u.tolist()) | set(v.tolist())
@@ -480,11 +507,13 @@ def connectivity(clip: pd.DataFrame, closed: np.ndarray) -> dict[str, Any]:
 def _high_bands(profile: Profile, high_bands: Sequence[str] | None) -> list[str]:
     names = [b.name for b in profile.bands]
     if high_bands is None:
-        return names[max(1, len(names) // 2):]
+        return names[max(1, len(names) // 2) :]
     unknown = [b for b in high_bands if b not in names]
     if unknown:
-        raise OptionError(f"unknown band {unknown[0]!r}; the profile's bands: "
-                          f"{', '.join(names)}", field="--high-from")
+        raise OptionError(
+            f"unknown band {unknown[0]!r}; the profile's bands: {', '.join(names)}",
+            field="--high-from",
+        )
     return list(high_bands)
 
 
@@ -492,13 +521,20 @@ def high_bands_from(profile: Profile, band: str) -> list[str]:
     """Return ``band`` and every band above it."""
     names = [b.name for b in profile.bands]
     if band not in names:
-        raise OptionError(f"unknown band {band!r}; the profile's bands: {', '.join(names)}",
-                          field="--high-from")
-    return names[names.index(band):]
+        raise OptionError(
+            f"unknown band {band!r}; the profile's bands: {', '.join(names)}", field="--high-from"
+        )
+    return names[names.index(band) :]
 
 
-def _clusters(ctx: _Context, clip: gpd.GeoDataFrame, area: Area, high: Sequence[str],
-              skey: list[tuple[Any, ...]], exposure: np.ndarray) -> list[dict[str, Any]]:
+def _clusters(
+    ctx: _Context,
+    clip: gpd.GeoDataFrame,
+    area: Area,
+    high: Sequence[str],
+    skey: list[tuple[Any, ...]],
+    exposure: np.ndarray,
+) -> list[dict[str, Any]]:
     """Group adjacent high-band edges (sharing a node inside the area) into clusters."""
     hi = np.flatnonzero(clip["band"].isin(list(high)).to_numpy())
     if len(hi) == 0:
@@ -508,8 +544,9 @@ def _clusters(ctx: _Context, clip: gpd.GeoDataFrame, area: Area, high: Sequence[
     ends = np.unique(np.concatenate([u[hi], v[hi]]))
     nodes = ctx.net.nodes
     xy = nodes.loc[ends, ["x", "y"]].to_numpy(dtype=float)
-    inside = dict(zip(ends.tolist(), shapely.covers(area.geometry, shapely.points(xy)),
-                      strict=True))
+    inside = dict(
+        zip(ends.tolist(), shapely.covers(area.geometry, shapely.points(xy)), strict=True)
+    )
     G = nx.Graph()
     for j in hi.tolist():
         a = u[j] if inside[u[j]] else ("outside", j, 0)
@@ -531,16 +568,20 @@ def _clusters(ctx: _Context, clip: gpd.GeoDataFrame, area: Area, high: Sequence[
     for rows in groups.values():
         ra = np.array(rows)
         streets = {skey[j]: j for j in rows}
-        out.append({
-            "km": _r(km[ra].sum()),
-            "centreline_km": _r(sum(km[j] for j in streets.values())),
-            "segments": len(streets),
-            "exposure": _r(exposure[ra].sum()),
-            "top_band": max(set(bands[ra].tolist()), key=lambda b: order.get(b, -1)),
-            "streets": _names_by_km(names[ra], km[ra]),
-            "edges": [[_jsonable(u[j]), _jsonable(v[j])] for j in sorted(
-                rows, key=lambda r: (str(u[r]), str(v[r])))],
-        })
+        out.append(
+            {
+                "km": _r(km[ra].sum()),
+                "centreline_km": _r(sum(km[j] for j in streets.values())),
+                "segments": len(streets),
+                "exposure": _r(exposure[ra].sum()),
+                "top_band": max(set(bands[ra].tolist()), key=lambda b: order.get(b, -1)),
+                "streets": _names_by_km(names[ra], km[ra]),
+                "edges": [
+                    [_jsonable(u[j]), _jsonable(v[j])]
+                    for j in sorted(rows, key=lambda r: (str(u[r]), str(v[r])))
+                ],
+            }
+        )
     out.sort(key=lambda c: (-c["km"], -c["exposure"], c["streets"][:1]))
     for i, c in enumerate(out, start=1):
         c["cluster"] = i
@@ -555,8 +596,13 @@ def _jsonable(x: Any) -> Any:
     return x
 
 
-def _hotspots(ctx: _Context, clip: gpd.GeoDataFrame, skey: list[tuple[Any, ...]],
-              exposure: np.ndarray, top: int) -> list[dict[str, Any]]:
+def _hotspots(
+    ctx: _Context,
+    clip: gpd.GeoDataFrame,
+    skey: list[tuple[Any, ...]],
+    exposure: np.ndarray,
+    top: int,
+) -> list[dict[str, Any]]:
     """Return the top street segments by exposure (exposure per km x clipped km)."""
     prof = ctx.net.profile
     u = clip.index.get_level_values(0).to_numpy()
@@ -569,11 +615,12 @@ def _hotspots(ctx: _Context, clip: gpd.GeoDataFrame, skey: list[tuple[Any, ...]]
         if key not in first or exposure[j] > exposure[first[key]]:
             first[key] = j
     names = clip["name"].fillna("").astype(str).to_numpy()
-    ranked = sorted(first.items(), key=lambda t: (-exposure[t[1]], names[t[1]], str(u[t[1]]),
-                                                  str(v[t[1]])))
+    ranked = sorted(
+        first.items(), key=lambda t: (-exposure[t[1]], names[t[1]], str(u[t[1]]), str(v[t[1]]))
+    )
     per_km = clip["exposure_km"].to_numpy(dtype=float)
     out = []
-    for key, j in ranked[:max(0, int(top))]:
+    for key, j in ranked[: max(0, int(top))]:
         reasons = []
         row = clip.iloc[j]
         parts = [(c, c.weight * float(row[f"exp_{c.name}"])) for c in prof.categories]
@@ -584,27 +631,41 @@ def _hotspots(ctx: _Context, clip: gpd.GeoDataFrame, skey: list[tuple[Any, ...]]
             if c.name in ctx.source_trees:
                 tree, _, src_names = ctx.source_trees[c.name]
                 near = str(src_names[int(tree.nearest(row.geometry))])
-            reasons.append({"category": c.name, "label": c.label,
-                            "share": _r(val / per_km[j]) if per_km[j] > 0 else 0.0,
-                            "near": near})
-        out.append({
-            "u": _jsonable(u[j]), "v": _jsonable(v[j]), "key": _jsonable(k[j]),
-            "street": names[j],
-            "highway": str(row["highway"]),
-            "band": str(row["band"]),
-            "km": _r(row["clip_m"] / 1000.0),
-            "exposure_km": _r(per_km[j]),
-            "exposure": _r(exposure[j]),
-            "directions": count[key],
-            "edge_crossings": int(row["crossings"]),
-            "reasons": reasons,
-        })
+            reasons.append(
+                {
+                    "category": c.name,
+                    "label": c.label,
+                    "share": _r(val / per_km[j]) if per_km[j] > 0 else 0.0,
+                    "near": near,
+                }
+            )
+        out.append(
+            {
+                "u": _jsonable(u[j]),
+                "v": _jsonable(v[j]),
+                "key": _jsonable(k[j]),
+                "street": names[j],
+                "highway": str(row["highway"]),
+                "band": str(row["band"]),
+                "km": _r(row["clip_m"] / 1000.0),
+                "exposure_km": _r(per_km[j]),
+                "exposure": _r(exposure[j]),
+                "directions": count[key],
+                "edge_crossings": int(row["crossings"]),
+                "reasons": reasons,
+            }
+        )
     return out
 
 
-def _review_area(ctx: _Context, area: Area, *, at: int | None = None, top: int = 10,
-                high_bands: Sequence[str] | None = None) -> tuple[dict[str, Any],
-                                                                   gpd.GeoDataFrame]:
+def _review_area(
+    ctx: _Context,
+    area: Area,
+    *,
+    at: int | None = None,
+    top: int = 10,
+    high_bands: Sequence[str] | None = None,
+) -> tuple[dict[str, Any], gpd.GeoDataFrame]:
     """Return the figures of one area and its clipped edges.
 
     Raises
@@ -616,8 +677,11 @@ def _review_area(ctx: _Context, area: Area, *, at: int | None = None, top: int =
     prof = net.profile
     clip = ctx.clip(net.edges, area.geometry, tree=ctx.tree)
     if len(clip) == 0:
-        raise InputFileError(f"area {area.name!r} lies entirely off the road network",
-                             path=area.source, field=area.field)
+        raise InputFileError(
+            f"area {area.name!r} lies entirely off the road network",
+            path=area.source,
+            field=area.field,
+        )
     u = clip.index.get_level_values(0).to_numpy()
     v = clip.index.get_level_values(1).to_numpy()
     km = clip["clip_m"].to_numpy(dtype=float) / 1000.0
@@ -643,8 +707,9 @@ def _review_area(ctx: _Context, area: Area, *, at: int | None = None, top: int =
     sources_inside = {}
     for c in prof.categories:
         g = srcs.geometry[srcs["category"] == c.name].to_numpy()
-        sources_near[c.name] = int(shapely.dwithin(g, area.geometry, c.radius_m).sum()) if len(
-            g) else 0
+        sources_near[c.name] = (
+            int(shapely.dwithin(g, area.geometry, c.radius_m).sum()) if len(g) else 0
+        )
         sources_inside[c.name] = int(shapely.intersects(g, area.geometry).sum()) if len(g) else 0
 
     n_cross = 0
@@ -674,10 +739,11 @@ def _review_area(ctx: _Context, area: Area, *, at: int | None = None, top: int =
     if prof.baseline_time_profile or prof.crossing_time_profile:
         # baseline and crossings follow their own time profiles: the hour's mean multiplier
         base_km = float((km * clip["baseline"].to_numpy(dtype=float)).sum())
-        base_h, cross_h = (np.asarray(a).reshape(HOURS_PER_WEEK, 60).mean(axis=1) for a in
-                           prof.street_multipliers(np.arange(MINUTES_PER_WEEK)))
-        exposure_by_hour = (base_km * base_h + (fixed - base_km) * cross_h
-                            + ctx.hourly_mult @ by_cat)
+        base_h, cross_h = (
+            np.asarray(a).reshape(HOURS_PER_WEEK, 60).mean(axis=1)
+            for a in prof.street_multipliers(np.arange(MINUTES_PER_WEEK))
+        )
+        exposure_by_hour = base_km * base_h + (fixed - base_km) * cross_h + ctx.hourly_mult @ by_cat
 
     cover, closed = _closed_matrix(clip, prof, ctx.force_hour)
     closed_by_hour = km @ closed
@@ -686,16 +752,21 @@ def _review_area(ctx: _Context, area: Area, *, at: int | None = None, top: int =
     for i, rule in enumerate(prof.rules):
         per_hour = km @ (cover[:, [i]] & ctx.force_hour[i][None, :])
         by_rule[rule.name] = [_r(x) for x in per_hour]
-        rules_out.append({
-            "rule": rule.name,
-            "covers_km": _r(km[cover[:, i]].sum()),
-            "hours_in_force": int(ctx.force_hour[i].sum()),
-            "closed_km_hours": _r(per_hour.sum(), 3),
-        })
+        rules_out.append(
+            {
+                "rule": rule.name,
+                "covers_km": _r(km[cover[:, i]].sum()),
+                "hours_in_force": int(ctx.force_hour[i].sum()),
+                "closed_km_hours": _r(per_hour.sum(), 3),
+            }
+        )
     peak = int(np.argmax(closed_by_hour)) if len(closed_by_hour) else 0
     conn = {
-        "peak": {"hour": peak, "label": report.HOUR_LABELS[peak],
-                 **connectivity(clip, closed[:, peak])},
+        "peak": {
+            "hour": peak,
+            "label": report.HOUR_LABELS[peak],
+            **connectivity(clip, closed[:, peak]),
+        },
         "none_closed": connectivity(clip, np.zeros(len(clip), dtype=bool)),
     }
     if at is not None:
@@ -729,8 +800,11 @@ def _review_area(ctx: _Context, area: Area, *, at: int | None = None, top: int =
         "closed_km_by_hour": [_r(x) for x in closed_by_hour],
         "closed_km_by_rule": by_rule,
         "closed_km_hours": _r(closed_by_hour.sum(), 3),
-        "closed_peak": {"hour": peak, "label": report.HOUR_LABELS[peak],
-                        "km": _r(closed_by_hour[peak])},
+        "closed_peak": {
+            "hour": peak,
+            "label": report.HOUR_LABELS[peak],
+            "km": _r(closed_by_hour[peak]),
+        },
         "rules": rules_out,
         "allowed_parts": conn["peak"]["parts"],
         "connectivity": conn,
@@ -765,24 +839,36 @@ class Review:
             "inputs": self.provenance.get("inputs", {}),
             "profile": self.profile.fingerprint,
             "profile_name": self.profile.name,
-            "network": {k: self.meta.get(k) for k in ("source_name", "source_sha256",
-                                                      "source_timestamp", "data_licence",
-                                                      "timezone", "crs")},
+            "network": {
+                k: self.meta.get(k)
+                for k in (
+                    "source_name",
+                    "source_sha256",
+                    "source_timestamp",
+                    "data_licence",
+                    "timezone",
+                    "crs",
+                )
+            },
             "what_if": self.what_ifs,
-            "at": None if self.at is None else {"minute": self.at,
-                                                "label": minute_label(self.at)},
-            "notes": {"length": LENGTH_BASIS, "hours": HOUR_BASIS,
-                      "influence": INFLUENCE_BASIS},
+            "at": None if self.at is None else {"minute": self.at, "label": minute_label(self.at)},
+            "notes": {"length": LENGTH_BASIS, "hours": HOUR_BASIS, "influence": INFLUENCE_BASIS},
             "caution": CAUTION,
             "routerisk_version": __version__,
         }
 
 
-def review_areas(net: Network, areas: Sequence[Area], *, at: int | None = None,
-                 what_ifs: Sequence[WhatIf] = (), top: int = 10,
-                 high_bands: Sequence[str] | None = None,
-                 clipper: Callable[..., gpd.GeoDataFrame] | None = None,
-                 tagger: Callable[..., gpd.GeoDataFrame] | None = None) -> Review:
+def review_areas(
+    net: Network,
+    areas: Sequence[Area],
+    *,
+    at: int | None = None,
+    what_ifs: Sequence[WhatIf] = (),
+    top: int = 10,
+    high_bands: Sequence[str] | None = None,
+    clipper: Callable[..., gpd.GeoDataFrame] | None = None,
+    tagger: Callable[..., gpd.GeoDataFrame] | None = None,
+) -> Review:
     """Review every area on ``net``; with what-ifs, again on re-tagged copies.
 
     Parameters
@@ -823,24 +909,40 @@ def review_areas(net: Network, areas: Sequence[Area], *, at: int | None = None,
         for area, base in zip(areas, results, strict=True):
             fig2, _ = _review_area(ctx2, area, at=at, top=top, high_bands=high_bands)
             rows.append(_compare(base, fig2))
-        scenarios.append({
-            "label": wi.label,
-            "changes": [{"kind": c.kind, "target": c.target, "value": c.value}
-                        for c in wi.changes],
-            "profile": prof2.fingerprint,
-            "areas": rows,
-        })
+        scenarios.append(
+            {
+                "label": wi.label,
+                "changes": [
+                    {"kind": c.kind, "target": c.target, "value": c.value} for c in wi.changes
+                ],
+                "profile": prof2.fingerprint,
+                "areas": rows,
+            }
+        )
     log.info("review_areas reviewed %d areas with %d what-ifs", len(areas), len(what_ifs))
     files = sorted({a.source for a in areas if a.source and Path(a.source).is_file()})
-    prov = provenance(profile=net.profile.fingerprint, network=net, inputs={
-        ("areas" if i == 0 else f"areas_{i + 1}"): f for i, f in enumerate(files)})
+    prov = provenance(
+        profile=net.profile.fingerprint,
+        network=net,
+        inputs={("areas" if i == 0 else f"areas_{i + 1}"): f for i, f in enumerate(files)},
+    )
     from . import _context
 
     shapes = gpd.GeoSeries([a.geometry for a in areas], crs=net.crs).to_crs("EPSG:4326")
     w, s, e, n = shapes.total_bounds
     context = _context.for_view(net, (w, s, e, n))
-    return Review(results, net.profile, dict(net.meta), scenarios, at, list(areas), clipped,
-                  net.sources, prov, context)
+    return Review(
+        results,
+        net.profile,
+        dict(net.meta),
+        scenarios,
+        at,
+        list(areas),
+        clipped,
+        net.sources,
+        prov,
+        context,
+    )
 
 
 def _compare(base: dict[str, Any], new: dict[str, Any]) -> dict[str, Any]:
@@ -855,14 +957,17 @@ def _compare(base: dict[str, Any], new: dict[str, Any]) -> dict[str, Any]:
         "closed_peak_km": new["closed_peak"]["km"],
         "closed_peak_km_change": _r(new["closed_peak"]["km"] - base["closed_peak"]["km"]),
         "closed_km_by_hour": new["closed_km_by_hour"],
-        "closed_km_by_hour_change": [_r(a - b) for a, b in zip(
-            new["closed_km_by_hour"], base["closed_km_by_hour"], strict=True)],
+        "closed_km_by_hour_change": [
+            _r(a - b)
+            for a, b in zip(new["closed_km_by_hour"], base["closed_km_by_hour"], strict=True)
+        ],
         "closed_km_by_rule": new["closed_km_by_rule"],
         "exposure": new["exposure"],
         "exposure_change": delta("exposure"),
         "km_by_band": new["km_by_band"],
-        "km_by_band_change": {b: _r(new["km_by_band"].get(b, 0.0)
-                                    - base["km_by_band"].get(b, 0.0)) for b in bands},
+        "km_by_band_change": {
+            b: _r(new["km_by_band"].get(b, 0.0) - base["km_by_band"].get(b, 0.0)) for b in bands
+        },
         "km_in_high_bands": new["km_in_high_bands"],
         "km_in_high_bands_change": delta("km_in_high_bands"),
         "allowed_parts_count": len(new["allowed_parts"]),
@@ -905,8 +1010,9 @@ def comparison_table(review: Review) -> pd.DataFrame:
         row["profile"] = prof.fingerprint
         row["routerisk_version"] = __version__
         row["network_source_sha256"] = review.meta.get("source_sha256", "")
-        row["area_file_sha256"] = review.provenance.get("inputs", {}).get(
-            "areas", {}).get("sha256", "")
+        row["area_file_sha256"] = (
+            review.provenance.get("inputs", {}).get("areas", {}).get("sha256", "")
+        )
         rows.append(row)
     return pd.DataFrame(rows)
 
@@ -916,9 +1022,15 @@ def review_csv(review: Review) -> str:
     return comparison_table(review).to_csv(index=False, lineterminator="\n")
 
 
-def write_review(review: Review, *, out: str | Path | None = None,
-                 report_path: str | Path | None = None, force: bool = False,
-                 tiles: Any = None, bands: str = "fixed") -> list[Path]:
+def write_review(
+    review: Review,
+    *,
+    out: str | Path | None = None,
+    report_path: str | Path | None = None,
+    force: bool = False,
+    tiles: Any = None,
+    bands: str = "fixed",
+) -> list[Path]:
     """Write ``areas.csv``, ``areas.json`` and ``report.html`` to ``out``, and/or a report.
 
     The folder is assembled under a temporary name and moved into place when complete.
@@ -959,25 +1071,36 @@ def review_map(review: Review, *, tiles: Any = None, bands: str = "fixed") -> fo
     shapes = gpd.GeoDataFrame(
         {"name": [a.name for a in review.area_shapes]},
         geometry=[a.geometry for a in review.area_shapes],
-        crs=next(iter(review.clipped.values())).crs)
+        crs=next(iter(review.clipped.values())).crs,
+    )
     w, s, e, n = shapes.to_crs("EPSG:4326").total_bounds
     pad_x, pad_y = (e - w) * 0.05 + 1e-4, (n - s) * 0.05 + 1e-4
-    m = mapview.new_map((w - pad_x, s - pad_y, e + pad_x, n + pad_y), tiles=tiles,
-                        context=review.context)
+    m = mapview.new_map(
+        (w - pad_x, s - pad_y, e + pad_x, n + pad_y), tiles=tiles, context=review.context
+    )
     outline = shapes.to_crs("EPSG:4326")
     outline["name"] = outline["name"].map(mapview.escape)
     layer = folium.FeatureGroup(name="proposed test areas", show=True)
-    folium.GeoJson(outline.to_json(drop_id=True), style_function=lambda f: {
-        "color": "#1d3557", "weight": 2, "fill": True, "fillOpacity": 0.04, "dashArray": "6 4"},
-        tooltip=folium.GeoJsonTooltip(fields=["name"], aliases=["area"])).add_to(layer)
+    folium.GeoJson(
+        outline.to_json(drop_id=True),
+        style_function=lambda f: {
+            "color": "#1d3557",
+            "weight": 2,
+            "fill": True,
+            "fillOpacity": 0.04,
+            "dashArray": "6 4",
+        },
+        tooltip=folium.GeoJsonTooltip(fields=["name"], aliases=["area"]),
+    ).add_to(layer)
     layer.add_to(m)
 
     frames = []
     hot_frames = []
     for a in review.areas:
         clip = review.clipped[a["name"]].reset_index()
-        key = _street_key(clip["u"].to_numpy(), clip["v"].to_numpy(),
-                          clip["length"].to_numpy(dtype=float))
+        key = _street_key(
+            clip["u"].to_numpy(), clip["v"].to_numpy(), clip["length"].to_numpy(dtype=float)
+        )
         clip = clip.loc[~pd.Series(key).duplicated().to_numpy()].copy()
         clip["area"] = a["name"]
         clip["street"] = clip["name"].fillna("").astype(str)
@@ -987,45 +1110,88 @@ def review_map(review: Review, *, tiles: Any = None, bands: str = "fixed") -> fo
         if spots:
             sel = [(r.u, r.v, r.key) in spots for r in clip.itertuples()]
             hs = clip.loc[sel].copy()
-            hs["reasons"] = [", ".join(
-                f"{x['label']} {x['share']:.0%}" + (f" ({x['near']})" if x["near"] else "")
-                for x in spots[(r.u, r.v, r.key)]["reasons"]) for r in hs.itertuples()]
+            hs["reasons"] = [
+                ", ".join(
+                    f"{x['label']} {x['share']:.0%}" + (f" ({x['near']})" if x["near"] else "")
+                    for x in spots[(r.u, r.v, r.key)]["reasons"]
+                )
+                for r in hs.itertuples()
+            ]
             hs["_colour"] = HOTSPOT_COLOUR
             hot_frames.append(hs)
-    streets = gpd.GeoDataFrame(pd.concat(frames, ignore_index=True), geometry="geometry",
-                               crs=shapes.crs)
-    cls = mapview.classes_for(prof, streets["exposure_km"], mode=bands,
-                              weights=streets["clip_m"])
+    streets = gpd.GeoDataFrame(
+        pd.concat(frames, ignore_index=True), geometry="geometry", crs=shapes.crs
+    )
+    cls = mapview.classes_for(prof, streets["exposure_km"], mode=bands, weights=streets["clip_m"])
     streets["_colour"] = cls.colour_of(streets["exposure_km"])
-    fields = {"area": "area", "street": "street", "highway": "road class",
-              "band": "exposure band", "exposure_km": "exposure per km",
-              "in_area_km": "km in area", "speed_kph": "speed km/h", "crossings": "crossings"}
+    fields = {
+        "area": "area",
+        "street": "street",
+        "highway": "road class",
+        "band": "exposure band",
+        "exposure_km": "exposure per km",
+        "in_area_km": "km in area",
+        "speed_kph": "speed km/h",
+        "crossings": "crossings",
+    }
     if hot_frames:  # the halo goes first, so the street's band colour stays on top
-        hot = gpd.GeoDataFrame(pd.concat(hot_frames, ignore_index=True), geometry="geometry",
-                               crs=shapes.crs)
-        mapview.add_lines(m, hot, name="hot spots", colour_col="_colour", weight=11,
-                          opacity=0.45, fields={"area": "area", "street": "street",
-                                                "_exposure": "exposure",
-                                                "reasons": "reasons"})
-    mapview.add_lines(m, streets, name="streets in the areas by exposure",
-                      colour_col="_colour", fields=fields, casing="#5b5347", weight=3.5)
+        hot = gpd.GeoDataFrame(
+            pd.concat(hot_frames, ignore_index=True), geometry="geometry", crs=shapes.crs
+        )
+        mapview.add_lines(
+            m,
+            hot,
+            name="hot spots",
+            colour_col="_colour",
+            weight=11,
+            opacity=0.45,
+            fields={
+                "area": "area",
+                "street": "street",
+                "_exposure": "exposure",
+                "reasons": "reasons",
+            },
+        )
+    mapview.add_lines(
+        m,
+        streets,
+        name="streets in the areas by exposure",
+        colour_col="_colour",
+        fields=fields,
+        casing="#5b5347",
+        weight=3.5,
+    )
     src = _sources_near(review, shapes)
     drawn = src if src is not None and len(src) else None
     if drawn is not None:
         mapview.add_sources(m, drawn, labels={c.name: c.label for c in prof.categories})
     mapview.layer_control(m)
     legend = cls.legend_items()
-    items: list[tuple[str | None, str]] = [(None, "street exposure per km"), *legend[1:],
-                                           (None, legend[0][1])]
-    items.append((mapview.line_swatch(HOTSPOT_COLOUR, width=11, opacity=0.45),
-                  "hot spot (dark halo)"))
-    items.append((mapview.area_swatch("#ffffff", stroke="#1d3557", dash="6 4", opacity=0.1),
-                  "proposed test area"))
-    items += (mapview.category_items(prof, drawn) if drawn is not None else [])
-    mapview.add_panel(m, mapview.legend_html(
-        "Area review", items, extra=f"<div>profile {mapview.escape(prof.name)} "
-                                    f"{mapview.escape(prof.fingerprint)}</div>",
-        background=mapview.background_of(m)))
+    items: list[tuple[str | None, str]] = [
+        (None, "street exposure per km"),
+        *legend[1:],
+        (None, legend[0][1]),
+    ]
+    items.append(
+        (mapview.line_swatch(HOTSPOT_COLOUR, width=11, opacity=0.45), "hot spot (dark halo)")
+    )
+    items.append(
+        (
+            mapview.area_swatch("#ffffff", stroke="#1d3557", dash="6 4", opacity=0.1),
+            "proposed test area",
+        )
+    )
+    items += mapview.category_items(prof, drawn) if drawn is not None else []
+    mapview.add_panel(
+        m,
+        mapview.legend_html(
+            "Area review",
+            items,
+            extra=f"<div>profile {mapview.escape(prof.name)} "
+            f"{mapview.escape(prof.fingerprint)}</div>",
+            background=mapview.background_of(m),
+        ),
+    )
     return m
 
 
@@ -1035,8 +1201,12 @@ def _sources_near(review: Review, shapes: gpd.GeoDataFrame) -> gpd.GeoDataFrame 
     if src is None or len(src) == 0:
         return None
     zone = shapes.geometry.union_all()
-    radius = src["category"].map(
-        {c.name: c.radius_m for c in review.profile.categories}).fillna(0.0).to_numpy()
+    radius = (
+        src["category"]
+        .map({c.name: c.radius_m for c in review.profile.categories})
+        .fillna(0.0)
+        .to_numpy()
+    )
     keep = shapely.dwithin(src.geometry.to_numpy(), zone, radius)
     return src.loc[keep]
 
@@ -1050,88 +1220,189 @@ def _area_section(review: Review, a: dict[str, Any], idx: int) -> str:
     labels = {c.name: c.label for c in prof.categories}
     r = report
     parts = []
-    parts.append(r.pairs_html([
-        ("area (km²)", a["area_km2"]),
-        ("network km (directed edges: both directions of two-way streets)", a["network_km"]),
-        ("centreline km (each street once)", a["centreline_km"]),
-        ("street edges in the area", a["edges"]),
-        ("exposure (exposure per km x km, time multipliers 1)", a["exposure"]),
-        ("exposure per km", a["exposure_per_km"]),
-        ("crossings in the area", a["crossings"]),
-        ("crossings per centreline km", a["crossings_per_km"]),
-    ], caption="In figures"))
-    band_rows = [{"band": b.name, "from": b.lower, "km": a["km_by_band"][b.name],
-                  "centreline_km": a["centreline_km_by_band"][b.name],
-                  "share": _fmt_share(a["km_by_band"][b.name] / a["network_km"])}
-                 for b in prof.bands]
-    parts.append(r.table_html(band_rows, [("band", "exposure band"), ("from", "from (per km)"),
-                                          ("km", "km (directed)"),
-                                          ("centreline_km", "centreline km"),
-                                          ("share", "share")],
-                              caption="Length by exposure band"))
+    parts.append(
+        r.pairs_html(
+            [
+                ("area (km²)", a["area_km2"]),
+                (
+                    "network km (directed edges: both directions of two-way streets)",
+                    a["network_km"],
+                ),
+                ("centreline km (each street once)", a["centreline_km"]),
+                ("street edges in the area", a["edges"]),
+                ("exposure (exposure per km x km, time multipliers 1)", a["exposure"]),
+                ("exposure per km", a["exposure_per_km"]),
+                ("crossings in the area", a["crossings"]),
+                ("crossings per centreline km", a["crossings_per_km"]),
+            ],
+            caption="In figures",
+        )
+    )
+    band_rows = [
+        {
+            "band": b.name,
+            "from": b.lower,
+            "km": a["km_by_band"][b.name],
+            "centreline_km": a["centreline_km_by_band"][b.name],
+            "share": _fmt_share(a["km_by_band"][b.name] / a["network_km"]),
+        }
+        for b in prof.bands
+    ]
+    parts.append(
+        r.table_html(
+            band_rows,
+            [
+                ("band", "exposure band"),
+                ("from", "from (per km)"),
+                ("km", "km (directed)"),
+                ("centreline_km", "centreline km"),
+                ("share", "share"),
+            ],
+            caption="Length by exposure band",
+        )
+    )
     from . import mapview
 
-    fig = r.bar_chart([b.name for b in prof.bands], [a["km_by_band"][b.name] for b in prof.bands],
-                      title=f"{a['name']}: km by exposure band (directed)", xlabel="km",
-                      colours=[mapview.band_colour(prof, b.name) for b in prof.bands])
+    fig = r.bar_chart(
+        [b.name for b in prof.bands],
+        [a["km_by_band"][b.name] for b in prof.bands],
+        title=f"{a['name']}: km by exposure band (directed)",
+        xlabel="km",
+        colours=[mapview.band_colour(prof, b.name) for b in prof.bands],
+    )
     parts.append(r.figure_html(fig, alt=f"km by exposure band in {a['name']}"))
-    infl_rows = [{"category": labels[c], "km": a["km_in_influence"][c],
-                  "share": _fmt_share(a["share_in_influence"][c]),
-                  "inside": a["sources_inside"][c], "near": a["sources"][c],
-                  "radius": prof.category(c).radius_m}
-                 for c in prof.category_names]
-    parts.append(r.table_html(infl_rows, [
-        ("category", "category"), ("km", "km in its influence"), ("share", "share of network"),
-        ("inside", "sources inside"), ("near", "sources inside or within radius"),
-        ("radius", "radius (m)")], caption="Near vulnerable pedestrians",
-        digits={"radius": 0}))
+    infl_rows = [
+        {
+            "category": labels[c],
+            "km": a["km_in_influence"][c],
+            "share": _fmt_share(a["share_in_influence"][c]),
+            "inside": a["sources_inside"][c],
+            "near": a["sources"][c],
+            "radius": prof.category(c).radius_m,
+        }
+        for c in prof.category_names
+    ]
+    parts.append(
+        r.table_html(
+            infl_rows,
+            [
+                ("category", "category"),
+                ("km", "km in its influence"),
+                ("share", "share of network"),
+                ("inside", "sources inside"),
+                ("near", "sources inside or within radius"),
+                ("radius", "radius (m)"),
+            ],
+            caption="Near vulnerable pedestrians",
+            digits={"radius": 0},
+        )
+    )
     parts.append(r.note_html(INFLUENCE_BASIS))
-    parts.append(r.table_html([{"speed": k, "km": v} for k, v in a["km_by_speed"].items()],
-                              [("speed", "speed band"), ("km", "km (directed)")],
-                              caption="Length by speed"))
-    hs_rows = [{
-        "rank": i, "street": h["street"] or "(unnamed)", "highway": h["highway"],
-        "band": h["band"], "km": h["km"], "exposure_km": h["exposure_km"],
-        "exposure": h["exposure"], "directions": h["directions"],
-        "reasons": "; ".join(f"{x['label']} {x['share']:.0%}"
-                             + (f" ({x['near']})" if x["near"] else "")
-                             for x in h["reasons"]) or "baseline only"}
-        for i, h in enumerate(a["hotspots"], start=1)]
-    parts.append(r.table_html(hs_rows, [
-        ("rank", "#"), ("street", "street"), ("highway", "road class"), ("band", "band"),
-        ("km", "km in area"), ("exposure_km", "exposure per km"),
-        ("exposure", "exposure (per direction)"), ("directions", "directions"),
-        ("reasons", "reasons (share of exposure per km)")], caption="Hot spots"))
-    cl_rows = [{"cluster": c["cluster"], "km": c["km"], "centreline_km": c["centreline_km"],
-                "segments": c["segments"], "top_band": c["top_band"],
-                "exposure": c["exposure"], "streets": ", ".join(c["streets"])}
-               for c in a["clusters"]]
-    parts.append(r.table_html(cl_rows, [
-        ("cluster", "#"), ("km", "km (directed)"), ("centreline_km", "centreline km"),
-        ("segments", "segments"), ("top_band", "top band"), ("exposure", "exposure"),
-        ("streets", "streets")],
-        caption=f"Clusters of adjacent streets in the bands {', '.join(a['high_bands'])}")
-        if cl_rows else r.note_html("No street of the area is in the bands "
-                                    f"{', '.join(a['high_bands'])}."))
+    parts.append(
+        r.table_html(
+            [{"speed": k, "km": v} for k, v in a["km_by_speed"].items()],
+            [("speed", "speed band"), ("km", "km (directed)")],
+            caption="Length by speed",
+        )
+    )
+    hs_rows = [
+        {
+            "rank": i,
+            "street": h["street"] or "(unnamed)",
+            "highway": h["highway"],
+            "band": h["band"],
+            "km": h["km"],
+            "exposure_km": h["exposure_km"],
+            "exposure": h["exposure"],
+            "directions": h["directions"],
+            "reasons": "; ".join(
+                f"{x['label']} {x['share']:.0%}" + (f" ({x['near']})" if x["near"] else "")
+                for x in h["reasons"]
+            )
+            or "baseline only",
+        }
+        for i, h in enumerate(a["hotspots"], start=1)
+    ]
+    parts.append(
+        r.table_html(
+            hs_rows,
+            [
+                ("rank", "#"),
+                ("street", "street"),
+                ("highway", "road class"),
+                ("band", "band"),
+                ("km", "km in area"),
+                ("exposure_km", "exposure per km"),
+                ("exposure", "exposure (per direction)"),
+                ("directions", "directions"),
+                ("reasons", "reasons (share of exposure per km)"),
+            ],
+            caption="Hot spots",
+        )
+    )
+    cl_rows = [
+        {
+            "cluster": c["cluster"],
+            "km": c["km"],
+            "centreline_km": c["centreline_km"],
+            "segments": c["segments"],
+            "top_band": c["top_band"],
+            "exposure": c["exposure"],
+            "streets": ", ".join(c["streets"]),
+        }
+        for c in a["clusters"]
+    ]
+    parts.append(
+        r.table_html(
+            cl_rows,
+            [
+                ("cluster", "#"),
+                ("km", "km (directed)"),
+                ("centreline_km", "centreline km"),
+                ("segments", "segments"),
+                ("top_band", "top band"),
+                ("exposure", "exposure"),
+                ("streets", "streets"),
+            ],
+            caption=f"Clusters of adjacent streets in the bands {', '.join(a['high_bands'])}",
+        )
+        if cl_rows
+        else r.note_html(f"No street of the area is in the bands {', '.join(a['high_bands'])}.")
+    )
     # Hard rules
     series = {"closed by any rule": a["closed_km_by_hour"]}
     if len(prof.rules) > 1:
         series.update({f"rule: {k}": v for k, v in a["closed_km_by_rule"].items()})
     rule_parts = []
     if prof.rules:
-        fig = r.week_chart(series, title=f"{a['name']}: km closed by the hard rules, by hour",
-                           ylabel="km closed (directed)")
-        rule_parts.append(r.figure_html(fig, alt=f"km closed by hour in {a['name']}",
-                                        caption=HOUR_BASIS))
-        rule_parts.append(r.table_html(a["rules"], [
-            ("rule", "rule"), ("covers_km", "km it covers"),
-            ("hours_in_force", "hours a week in force"),
-            ("closed_km_hours", "km-hours closed a week")], caption="Hard rules"))
+        fig = r.week_chart(
+            series,
+            title=f"{a['name']}: km closed by the hard rules, by hour",
+            ylabel="km closed (directed)",
+        )
+        rule_parts.append(
+            r.figure_html(fig, alt=f"km closed by hour in {a['name']}", caption=HOUR_BASIS)
+        )
+        rule_parts.append(
+            r.table_html(
+                a["rules"],
+                [
+                    ("rule", "rule"),
+                    ("covers_km", "km it covers"),
+                    ("hours_in_force", "hours a week in force"),
+                    ("closed_km_hours", "km-hours closed a week"),
+                ],
+                caption="Hard rules",
+            )
+        )
         pk = a["closed_peak"]
-        rule_parts.append(r.paragraph(
-            f"Most closed: {pk['km']:.3f} km at {pk['label']} "
-            f"({_fmt_share(pk['km'] / a['network_km'])} of the area's network); "
-            f"{a['closed_km_hours']:.3f} km-hours a week in all."))
+        rule_parts.append(
+            r.paragraph(
+                f"Most closed: {pk['km']:.3f} km at {pk['label']} "
+                f"({_fmt_share(pk['km'] / a['network_km'])} of the area's network); "
+                f"{a['closed_km_hours']:.3f} km-hours a week in all."
+            )
+        )
     else:
         rule_parts.append(r.note_html("The profile has no hard rules."))
     conn = a["connectivity"]
@@ -1141,60 +1412,116 @@ def _area_section(review: Review, a: dict[str, Any], idx: int) -> str:
     blocks.append(("none_closed", "with nothing closed"))
     for key, title in blocks:
         c = conn[key]
-        rows = [{"part": i, "km": p["km"], "centreline_km": p["centreline_km"],
-                 "nodes": p["nodes"], "streets": ", ".join(p["streets"])}
-                for i, p in enumerate(c["parts"], start=1)]
-        rule_parts.append(r.table_html(rows, [
-            ("part", "part"), ("km", "km (directed)"), ("centreline_km", "centreline km"),
-            ("nodes", "nodes"), ("streets", "main streets")],
-            caption=f"Strongly connected parts of the open network {title}"))
-        rule_parts.append(r.note_html(
-            f"{c['parts_count']} part(s); open {c['open_km']:.3f} km, closed "
-            f"{c['closed_km']:.3f} km; {c['km_between_parts']:.3f} km of open one-way links "
-            f"between parts; {c['nodes_without_open_edge']} node(s) with no open edge; "
-            f"largest part {_fmt_share(c['largest_share'])} of the open km."))
-    fig = r.week_chart({"exposure": a["exposure_by_hour"]},
-                       title=f"{a['name']}: exposure through the week (time profiles)",
-                       ylabel="exposure")
+        rows = [
+            {
+                "part": i,
+                "km": p["km"],
+                "centreline_km": p["centreline_km"],
+                "nodes": p["nodes"],
+                "streets": ", ".join(p["streets"]),
+            }
+            for i, p in enumerate(c["parts"], start=1)
+        ]
+        rule_parts.append(
+            r.table_html(
+                rows,
+                [
+                    ("part", "part"),
+                    ("km", "km (directed)"),
+                    ("centreline_km", "centreline km"),
+                    ("nodes", "nodes"),
+                    ("streets", "main streets"),
+                ],
+                caption=f"Strongly connected parts of the open network {title}",
+            )
+        )
+        rule_parts.append(
+            r.note_html(
+                f"{c['parts_count']} part(s); open {c['open_km']:.3f} km, closed "
+                f"{c['closed_km']:.3f} km; {c['km_between_parts']:.3f} km of open one-way links "
+                f"between parts; {c['nodes_without_open_edge']} node(s) with no open edge; "
+                f"largest part {_fmt_share(c['largest_share'])} of the open km."
+            )
+        )
+    fig = r.week_chart(
+        {"exposure": a["exposure_by_hour"]},
+        title=f"{a['name']}: exposure through the week (time profiles)",
+        ylabel="exposure",
+    )
     return r.section(
-        f"Area: {a['name']}", *parts,
-        r.section("Under the hard rules", *rule_parts, level=3,
-                  anchor_id=f"area-{idx}-rules"),
-        r.section("Exposure by hour", r.figure_html(
-            fig, alt=f"exposure by hour in {a['name']}",
-            caption="Mean time multiplier of each hour applied to the area's streets."),
-            level=3, anchor_id=f"area-{idx}-hours"),
-        anchor_id=f"area-{idx}")
+        f"Area: {a['name']}",
+        *parts,
+        r.section("Under the hard rules", *rule_parts, level=3, anchor_id=f"area-{idx}-rules"),
+        r.section(
+            "Exposure by hour",
+            r.figure_html(
+                fig,
+                alt=f"exposure by hour in {a['name']}",
+                caption="Mean time multiplier of each hour applied to the area's streets.",
+            ),
+            level=3,
+            anchor_id=f"area-{idx}-hours",
+        ),
+        anchor_id=f"area-{idx}",
+    )
 
 
 def _what_if_section(review: Review) -> str:
     r = report
     blocks = []
     for s in review.what_ifs:
-        rows = [{
-            "area": x["name"],
-            "closed_kmh": x["closed_km_hours"], "closed_kmh_change": x["closed_km_hours_change"],
-            "peak": x["closed_peak_km"], "peak_change": x["closed_peak_km_change"],
-            "exposure": x["exposure"], "exposure_change": x["exposure_change"],
-            "high": x["km_in_high_bands"], "high_change": x["km_in_high_bands_change"],
-            "parts": x["allowed_parts_count"], "parts_change": x["allowed_parts_count_change"],
-        } for x in s["areas"]]
-        blocks.append(r.table_html(rows, [
-            ("area", "area"), ("closed_kmh", "closed km-hours a week"),
-            ("closed_kmh_change", "change"), ("peak", "most closed km"), ("peak_change", "change"),
-            ("exposure", "exposure"), ("exposure_change", "change"),
-            ("high", "km in high bands"), ("high_change", "change"),
-            ("parts", "parts at peak"), ("parts_change", "change")],
-            caption=f"What if {s['label']} (profile {s['profile']})"))
+        rows = [
+            {
+                "area": x["name"],
+                "closed_kmh": x["closed_km_hours"],
+                "closed_kmh_change": x["closed_km_hours_change"],
+                "peak": x["closed_peak_km"],
+                "peak_change": x["closed_peak_km_change"],
+                "exposure": x["exposure"],
+                "exposure_change": x["exposure_change"],
+                "high": x["km_in_high_bands"],
+                "high_change": x["km_in_high_bands_change"],
+                "parts": x["allowed_parts_count"],
+                "parts_change": x["allowed_parts_count_change"],
+            }
+            for x in s["areas"]
+        ]
+        blocks.append(
+            r.table_html(
+                rows,
+                [
+                    ("area", "area"),
+                    ("closed_kmh", "closed km-hours a week"),
+                    ("closed_kmh_change", "change"),
+                    ("peak", "most closed km"),
+                    ("peak_change", "change"),
+                    ("exposure", "exposure"),
+                    ("exposure_change", "change"),
+                    ("high", "km in high bands"),
+                    ("high_change", "change"),
+                    ("parts", "parts at peak"),
+                    ("parts_change", "change"),
+                ],
+                caption=f"What if {s['label']} (profile {s['profile']})",
+            )
+        )
     return r.section("What if", r.note_html(WHAT_IF_HELP), *blocks, anchor_id="what-if")
 
 
 def _profile_section(review: Review) -> str:
     r = report
     prof = review.profile
-    cats = [{"id": c.name, "label": c.label, "weight": c.weight, "radius": c.radius_m,
-             "decay": c.decay, "time": c.time_profile or "constant 1"}
-            for c in prof.categories]
+    cats = [
+        {
+            "id": c.name,
+            "label": c.label,
+            "weight": c.weight,
+            "radius": c.radius_m,
+            "decay": c.decay,
+            "time": c.time_profile or "constant 1",
+        }
+        for c in prof.categories
+    ]
     rules = []
     for rule in prof.rules:
         what = []
@@ -1204,27 +1531,49 @@ def _profile_section(review: Review) -> str:
             what.append(f"inside the polygons of {Path(rule.polygons_file).name}")
         if rule.road_classes:
             what.append("road classes " + ", ".join(rule.road_classes))
-        when = "; ".join(
-            f"{','.join(w.days)} {w.start // 60:02d}:{w.start % 60:02d}-"
-            f"{w.end // 60:02d}:{w.end % 60:02d}" for w in rule.windows) or "at all times"
+        when = (
+            "; ".join(
+                f"{','.join(w.days)} {w.start // 60:02d}:{w.start % 60:02d}-"
+                f"{w.end // 60:02d}:{w.end % 60:02d}"
+                for w in rule.windows
+            )
+            or "at all times"
+        )
         rules.append({"name": rule.name, "what": " or ".join(what), "when": when})
     bands = [{"band": b.name, "from": b.lower} for b in prof.bands]
     return r.section(
         "Profile used",
         r.paragraph(f"{prof.name} (fingerprint {prof.fingerprint}). {prof.description}"),
-        r.table_html(cats, [("id", "category"), ("label", "label"), ("weight", "weight"),
-                            ("radius", "radius (m)"), ("decay", "decay"),
-                            ("time", "time profile")], caption="Categories",
-                     digits={"radius": 0}),
-        r.table_html(rules, [("name", "rule"), ("what", "streets it covers"),
-                             ("when", "in force")], caption="Hard rules")
-        if rules else r.note_html("No hard rules."),
-        r.table_html(bands, [("band", "band"), ("from", "from (exposure per km)")],
-                     caption="Exposure bands"),
-        r.note_html(f"Crossing weight {prof.crossing_weight:g}; severity outcome "
-                    f"{prof.severity_outcome}. The weights are the profile's, not data."),
+        r.table_html(
+            cats,
+            [
+                ("id", "category"),
+                ("label", "label"),
+                ("weight", "weight"),
+                ("radius", "radius (m)"),
+                ("decay", "decay"),
+                ("time", "time profile"),
+            ],
+            caption="Categories",
+            digits={"radius": 0},
+        ),
+        r.table_html(
+            rules,
+            [("name", "rule"), ("what", "streets it covers"), ("when", "in force")],
+            caption="Hard rules",
+        )
+        if rules
+        else r.note_html("No hard rules."),
+        r.table_html(
+            bands, [("band", "band"), ("from", "from (exposure per km)")], caption="Exposure bands"
+        ),
+        r.note_html(
+            f"Crossing weight {prof.crossing_weight:g}; severity outcome "
+            f"{prof.severity_outcome}. The weights are the profile's, not data."
+        ),
         r.note_html(_model_text(prof)),
-        anchor_id="profile")
+        anchor_id="profile",
+    )
 
 
 def _model_text(prof: Profile) -> str:
@@ -1232,12 +1581,16 @@ def _model_text(prof: Profile) -> str:
     from .scoring import model_note
 
     base = prof.baseline_time_profile or "none (the same at all hours)"
-    parts = [f"Baseline time profile: {base}; crossing time profile: "
-             f"{prof.crossing_time_profile or 'none'}."]
+    parts = [
+        f"Baseline time profile: {base}; crossing time profile: "
+        f"{prof.crossing_time_profile or 'none'}."
+    ]
     steps = [c.name for c in prof.categories if c.decay == "gaussian"]
     if steps:
-        parts.append(f"Gaussian decay ({', '.join(steps)}) is cut at the radius: nearness drops "
-                     "from exp(-2) = 0.135 to 0 there, a step (gaussian_smooth has none).")
+        parts.append(
+            f"Gaussian decay ({', '.join(steps)}) is cut at the radius: nearness drops "
+            "from exp(-2) = 0.135 to 0 there, a step (gaussian_smooth has none)."
+        )
     parts.append(f"Risk {model_note(prof)}.")
     return " ".join(parts)
 
@@ -1250,11 +1603,16 @@ def review_html(review: Review, *, tiles: Any = None, bands: str = "fixed") -> s
     ts = meta.get("source_timestamp") or "not stated in the source file"
     facts = [
         ("profile", f"{prof.name} (fingerprint {prof.fingerprint})"),
-        ("network data", f"{meta.get('source_name', '')} (sha256 "
-                         f"{str(meta.get('source_sha256', ''))[:16]})"),
+        (
+            "network data",
+            f"{meta.get('source_name', '')} (sha256 {str(meta.get('source_sha256', ''))[:16]})",
+        ),
         ("data date", ts),
-        ("data licence", meta.get("data_licence")
-         or "OpenStreetMap data: ODbL 1.0 (c) OpenStreetMap contributors"),
+        (
+            "data licence",
+            meta.get("data_licence")
+            or "OpenStreetMap data: ODbL 1.0 (c) OpenStreetMap contributors",
+        ),
         ("local time zone", _zone_text(meta.get("timezone", "UTC"))),
         ("lengths", LENGTH_BASIS),
     ]
@@ -1264,21 +1622,45 @@ def review_html(review: Review, *, tiles: Any = None, bands: str = "fixed") -> s
     # one row per figure, one column per area: fits the page however many figures there are
     from . import words
 
-    wide = table.drop(columns=["profile", "routerisk_version", "network_source_sha256",
-                               "area_file_sha256"], errors="ignore").set_index("area").T
+    wide = (
+        table.drop(
+            columns=["profile", "routerisk_version", "network_source_sha256", "area_file_sha256"],
+            errors="ignore",
+        )
+        .set_index("area")
+        .T
+    )
     wide.insert(0, "figure", [words.heading(str(c)) for c in wide.index])
-    body = [r.section("Areas side by side", r.frame_html(wide, index=False, digits=3),
-                      r.figure_html(r.grouped_bar_chart(
-                          [b.name for b in prof.bands],
-                          {a["name"]: [a["km_by_band"][b.name] for b in prof.bands]
-                           for a in review.areas},
-                          title="km by exposure band (directed)", ylabel="km"),
-                          alt="km by exposure band per area"),
-                      anchor_id="compare")]
-    body.append(r.section("Map", r.map_html(review_map(review, tiles=tiles, bands=bands),
-                                            title="map of the areas"),
-                          r.note_html("Streets are drawn once per segment; hot spots have a "
-                                      "dark halo. The map works offline."), anchor_id="map"))
+    body = [
+        r.section(
+            "Areas side by side",
+            r.frame_html(wide, index=False, digits=3),
+            r.figure_html(
+                r.grouped_bar_chart(
+                    [b.name for b in prof.bands],
+                    {
+                        a["name"]: [a["km_by_band"][b.name] for b in prof.bands]
+                        for a in review.areas
+                    },
+                    title="km by exposure band (directed)",
+                    ylabel="km",
+                ),
+                alt="km by exposure band per area",
+            ),
+            anchor_id="compare",
+        )
+    ]
+    body.append(
+        r.section(
+            "Map",
+            r.map_html(review_map(review, tiles=tiles, bands=bands), title="map of the areas"),
+            r.note_html(
+                "Streets are drawn once per segment; hot spots have a "
+                "dark halo. The map works offline."
+            ),
+            anchor_id="map",
+        )
+    )
     toc = [("compare", "side by side"), ("map", "map")]
     for i, a in enumerate(review.areas):
         body.append(_area_section(review, a, i))
@@ -1288,19 +1670,30 @@ def review_html(review: Review, *, tiles: Any = None, bands: str = "fixed") -> s
         toc.append(("what-if", "what if"))
     body.append(_profile_section(review))
     toc.append(("profile", "profile"))
-    body.append(r.section("Method", r.note_html(LENGTH_BASIS), r.note_html(HOUR_BASIS),
-                          r.note_html(INFLUENCE_BASIS), r.note_html(
-        "Exposure per km = baseline + sum over categories of weight x nearness + crossing "
-        "weight x crossings per km (time multipliers 1); exposure = exposure per km x km in "
-        "the area. Hot spots rank street segments by that exposure (one direction); reasons "
-        "are the categories with the largest part of the exposure per km, with the nearest "
-        "source. Clusters join high-band segments that share a node inside the area. "
-        "Connectivity: strongly connected parts of the area's directed graph after removing "
-        "the closed edges; edges that cross the boundary count as in the area."),
-        anchor_id="method"))
+    body.append(
+        r.section(
+            "Method",
+            r.note_html(LENGTH_BASIS),
+            r.note_html(HOUR_BASIS),
+            r.note_html(INFLUENCE_BASIS),
+            r.note_html(
+                "Exposure per km = baseline + sum over categories of weight x nearness + "
+                "crossing weight x crossings per km (time multipliers 1); exposure = exposure "
+                "per km x km in the area. Hot spots rank street segments by that exposure (one "
+                "direction); reasons are the categories with the largest part of the exposure "
+                "per km, with the nearest source. Clusters join high-band segments that share a "
+                "node inside the area. Connectivity: with the rule-closed streets taken out, the "
+                "streets split into separate open parts, each a set of streets that can all be "
+                "driven to from each other (strongly connected parts of the directed graph); "
+                "edges that cross the boundary count as in the area."
+            ),
+            anchor_id="method",
+        )
+    )
     names = ", ".join(a["name"] for a in review.areas)
-    return r.page(f"Area review: {names}", body, facts=facts, toc=toc,
-                  provenance=review.provenance or None)
+    return r.page(
+        f"Area review: {names}", body, facts=facts, toc=toc, provenance=review.provenance or None
+    )
 
 
 def _zone_text(name: str) -> str:

@@ -54,8 +54,9 @@ def segments_gdf(net: Any, scores: list[RouteScore]) -> gpd.GeoDataFrame:
         seg = s.segments.copy()
         seg.insert(0, "route", s.name)
         seg.insert(1, "depart", s.depart.isoformat())
-        frames.append(gpd.GeoDataFrame(seg, geometry=segment_geometries(net, s.segments),
-                                       crs=net.crs))
+        frames.append(
+            gpd.GeoDataFrame(seg, geometry=segment_geometries(net, s.segments), crs=net.crs)
+        )
     gdf = pd.concat(frames, ignore_index=True) if frames else gpd.GeoDataFrame()
     gdf = gpd.GeoDataFrame(gdf, geometry="geometry", crs=net.crs).to_crs("EPSG:4326")
     return gdf.drop(columns=["_pos"])
@@ -86,8 +87,20 @@ def ranking_table(scores: list[RouteScore]) -> pd.DataFrame:
     rows = []
     for s in scores:
         d = s.to_dict()
-        row = {k: d[k] for k in ("name", "depart", "length_km", "duration_min", "risk",
-                                 "risk_per_km", "relative_index", "crossings", "left_turns")}
+        row = {
+            k: d[k]
+            for k in (
+                "name",
+                "depart",
+                "length_km",
+                "duration_min",
+                "risk",
+                "risk_per_km",
+                "relative_index",
+                "crossings",
+                "left_turns",
+            )
+        }
         row["rule_breaks"] = len(s.rule_breaks)
         for k, v in d["by_category"].items():
             row[f"risk_{k}"] = v
@@ -108,8 +121,14 @@ def risk_chart(scores: list[RouteScore], title: str = "Risk along the route") ->
         r = np.concatenate([[0], np.cumsum(seg["risk"].to_numpy())])
         dash = mapview.ROUTE_DASHES[i % len(mapview.ROUTE_DASHES)]
         style = {"dashes": [float(x) / 2 for x in dash.split()]} if dash else {}
-        ax.plot(d, r, color="#333333", label=f"{s.name} @ {s.depart.strftime('%a %H:%M')}",
-                lw=1.8, **style)
+        ax.plot(
+            d,
+            r,
+            color="#333333",
+            label=f"{s.name} @ {s.depart.strftime('%a %H:%M')}",
+            lw=1.8,
+            **style,
+        )
     ax.set_xlabel("distance driven (km)")
     ax.set_ylabel("cumulative risk")
     ax.set_title(title, fontsize=10)
@@ -133,9 +152,15 @@ def _rule_zone_layer(m: Any, net: Any, edges: Any, *, bounds: Any = None) -> lis
             part = part[ll.intersects(_box(w, s, e, n)).to_numpy()]
         if len(part):
             part = part.assign(_z=mapview.RULE_ZONE_COLOUR, rule=rule.name)
-            mapview.add_lines(m, part, name=f"hard-rule zone: {rule.name}", colour_col="_z",
-                              fields={"street": "street", "rule": "rule"}, weight=12,
-                              opacity=0.28)
+            mapview.add_lines(
+                m,
+                part,
+                name=f"hard-rule zone: {rule.name}",
+                colour_col="_z",
+                fields={"street": "street", "rule": "rule"},
+                weight=12,
+                opacity=0.28,
+            )
             drawn.append(rule.name)
     return drawn
 
@@ -149,8 +174,13 @@ def _box(w: float, s: float, e: float, n: float) -> Any:
 
 def rule_zone_items(drawn: list[str]) -> list[tuple[str | None, str]]:
     """Return the legend rows of the rule zones drawn."""
-    return [(mapview.line_swatch(mapview.RULE_ZONE_COLOUR, width=10, opacity=0.28),
-             f"hard-rule zone: {name}") for name in drawn]
+    return [
+        (
+            mapview.line_swatch(mapview.RULE_ZONE_COLOUR, width=10, opacity=0.28),
+            f"hard-rule zone: {name}",
+        )
+        for name in drawn
+    ]
 
 
 def _add_rule_breaks(m: Any, scores: list[RouteScore]) -> int:
@@ -161,19 +191,27 @@ def _add_rule_breaks(m: Any, scores: list[RouteScore]) -> int:
     layer = folium.FeatureGroup(name="rule breaks", show=True)
     for s in scores:
         for b in s.rule_breaks:
-            folium.Marker([round(b["lat"], 7), round(b["lon"], 7)],
-                          icon=folium.DivIcon(html=svg, icon_size=(18, 18), icon_anchor=(9, 9),
-                                              class_name="rr-symbol"),
-                          tooltip=mapview.escape(f"rule broken: {b['rule']} on "
-                                                 f"{b['street']} at {b['time']}")).add_to(layer)
+            folium.Marker(
+                [round(b["lat"], 7), round(b["lon"], 7)],
+                icon=folium.DivIcon(
+                    html=svg, icon_size=(18, 18), icon_anchor=(9, 9), class_name="rr-symbol"
+                ),
+                tooltip=mapview.escape(f"rule broken: {b['rule']} on {b['street']} at {b['time']}"),
+            ).add_to(layer)
             n += 1
     if n:
         layer.add_to(m)
     return n
 
 
-def route_map(net: Any, scores: list[RouteScore], *, tiles: Any = None,
-              title: str = "Scored test routes", bands: str = "fixed") -> Any:
+def route_map(
+    net: Any,
+    scores: list[RouteScore],
+    *,
+    tiles: Any = None,
+    title: str = "Scored test routes",
+    bands: str = "fixed",
+) -> Any:
     """Return a map of the routes coloured by segment risk per km, with chart and caution.
 
     Segments are classed by their risk per km at the time driven: ``bands="fixed"`` uses
@@ -185,18 +223,31 @@ def route_map(net: Any, scores: list[RouteScore], *, tiles: Any = None,
     gdf = segments_gdf(net, scores)
     ll = gdf.total_bounds if len(gdf) else net.edges.to_crs("EPSG:4326").total_bounds
     m = mapview.new_map(tuple(ll), tiles=tiles, context=net)
-    per_km = np.where(gdf["length_m"] > 0, gdf["risk"] / (gdf["length_m"] / 1000.0), 0.0) \
-        if len(gdf) else np.zeros(0)
+    per_km = (
+        np.where(gdf["length_m"] > 0, gdf["risk"] / (gdf["length_m"] / 1000.0), 0.0)
+        if len(gdf)
+        else np.zeros(0)
+    )
     gdf["risk_per_km"] = per_km
-    cls = mapview.classes_for(net.profile, per_km, mode=bands,
-                              weights=gdf["length_m"] if len(gdf) else None,
-                              unit="risk per km")
+    cls = mapview.classes_for(
+        net.profile,
+        per_km,
+        mode=bands,
+        weights=gdf["length_m"] if len(gdf) else None,
+        unit="risk per km",
+    )
     gdf["_c"] = cls.colour_of(per_km)
     edges = net.edges.reset_index()
     edges["street"] = edges["name"].fillna("")
     zones = _rule_zone_layer(m, net, edges, bounds=tuple(ll))
-    fields = {"route": "route", "street": "street", "time": "entered", "risk": "risk",
-              "risk_per_km": "risk per km", "band": "exposure band"}
+    fields = {
+        "route": "route",
+        "street": "street",
+        "time": "entered",
+        "risk": "risk",
+        "risk_per_km": "risk per km",
+        "band": "exposure band",
+    }
     for c in net.profile.categories:
         fields[f"part_{c.name}"] = f"part: {c.label.lower()}"
     fields["baseline"] = "part: street baseline"
@@ -206,38 +257,69 @@ def route_map(net: Any, scores: list[RouteScore], *, tiles: Any = None,
         key = (gdf["route"] == s.name) & (gdf["depart"] == s.depart.isoformat())
         dash = mapview.ROUTE_DASHES[i % len(mapview.ROUTE_DASHES)]
         label = f"{s.name} @ {s.depart.strftime('%a %d %b %H:%M')}"
-        mapview.add_lines(m, gdf[key].to_crs(net.crs), name=label, colour_col="_c",
-                          fields=fields, weight=6, dash=dash, casing="#2b2b2b")
-        route_items.append((mapview.line_swatch("#8a8a8a", dash=dash, width=5,
-                                                casing="#2b2b2b"), label))
+        mapview.add_lines(
+            m,
+            gdf[key].to_crs(net.crs),
+            name=label,
+            colour_col="_c",
+            fields=fields,
+            weight=6,
+            dash=dash,
+            casing="#2b2b2b",
+        )
+        route_items.append(
+            (mapview.line_swatch("#8a8a8a", dash=dash, width=5, casing="#2b2b2b"), label)
+        )
     n_breaks = _add_rule_breaks(m, scores)
     mapview.layer_control(m)
     rows = "".join(
         f"<tr><td>{mapview.escape(s.name)}</td><td>{s.depart.strftime('%a %H:%M')}</td>"
         f"<td>{s.risk:.3f}</td><td>{s.relative_index:.2f}</td><td>{len(s.rule_breaks)}</td>"
-        "</tr>" for s in sorted(scores, key=lambda s: (s.risk, s.name)))
-    table = ("<table style='font-size:11px'><tr><th>route</th><th>depart</th><th>risk</th>"
-             f"<th>index</th><th>rule breaks</th></tr>{rows}</table>")
+        "</tr>"
+        for s in sorted(scores, key=lambda s: (s.risk, s.name))
+    )
+    table = (
+        "<table style='font-size:11px'><tr><th>route</th><th>depart</th><th>risk</th>"
+        f"<th>index</th><th>rule breaks</th></tr>{rows}</table>"
+    )
     chart = f'<img alt="risk along distance" style="width:300px" src="{risk_chart(scores)}">'
     legend = cls.legend_items()
-    items: list[tuple[str | None, str]] = [(None, "segment risk per km at the time driven"),
-                                           *legend[1:], (None, legend[0][1]), *route_items]
+    items: list[tuple[str | None, str]] = [
+        (None, "segment risk per km at the time driven"),
+        *legend[1:],
+        (None, legend[0][1]),
+        *route_items,
+    ]
     items += rule_zone_items(zones)
     if n_breaks:
         items.append((mapview.rule_break_svg(14), "hard rule broken here"))
-    mapview.add_panel(m, mapview.collapsible("Routes, risk and chart", table + chart),
-                      position="topleft", dom_id="rr-side")
-    mapview.add_panel(m, mapview.legend_html(title, items, extra=(
-        f"<div>profile {mapview.escape(net.profile.name)}"
-        f" {mapview.escape(net.profile.fingerprint)}</div>" + _model_html(net.profile)),
-        background=mapview.background_of(m)))
+    mapview.add_panel(
+        m,
+        mapview.collapsible("Routes, risk and chart", table + chart),
+        position="topleft",
+        dom_id="rr-side",
+    )
+    mapview.add_panel(
+        m,
+        mapview.legend_html(
+            title,
+            items,
+            extra=(
+                f"<div>profile {mapview.escape(net.profile.name)}"
+                f" {mapview.escape(net.profile.fingerprint)}</div>" + _model_html(net.profile)
+            ),
+            background=mapview.background_of(m),
+        ),
+    )
     return m
 
 
 def _model_html(profile: Any) -> str:
     """Return the map panel's lines on the relative index and on what the risk models."""
-    return "".join(f"<div style='font-size:10px'>{mapview.escape(t)}</div>" for t in
-                   (scoring.RELATIVE_INDEX_NOTE, scoring.model_note(profile)))
+    return "".join(
+        f"<div style='font-size:10px'>{mapview.escape(t)}</div>"
+        for t in (scoring.RELATIVE_INDEX_NOTE, scoring.model_note(profile))
+    )
 
 
 def output_meta(net: Any, inputs: dict[str, Any] | None = None) -> dict[str, Any]:
@@ -249,14 +331,25 @@ def output_meta(net: Any, inputs: dict[str, Any] | None = None) -> dict[str, Any
     from ._io import provenance
 
     prov = provenance(profile=net.profile.fingerprint, network=net, inputs=inputs)
-    return {**prov, "network_source_sha256": net.meta.get("source_sha256"), "caution": CAUTION,
-            "model": scoring.model_note(net.profile),
-            "relative_index_note": scoring.RELATIVE_INDEX_NOTE}
+    return {
+        **prov,
+        "network_source_sha256": net.meta.get("source_sha256"),
+        "caution": CAUTION,
+        "model": scoring.model_note(net.profile),
+        "relative_index_note": scoring.RELATIVE_INDEX_NOTE,
+    }
 
 
-def write_outputs(net: Any, scores: list[RouteScore], out: str | Path, *,
-                  force: bool = False, tiles: Any = None,
-                  inputs: dict[str, Any] | None = None, bands: str = "fixed") -> Path:
+def write_outputs(
+    net: Any,
+    scores: list[RouteScore],
+    out: str | Path,
+    *,
+    force: bool = False,
+    tiles: Any = None,
+    inputs: dict[str, Any] | None = None,
+    bands: str = "fixed",
+) -> Path:
     """Write routes.csv, segments.geojson and map.html into ``out`` atomically.
 
     Each records the tool version, the profile fingerprint and the input checksums
@@ -266,9 +359,11 @@ def write_outputs(net: Any, scores: list[RouteScore], out: str | Path, *,
 
     meta = output_meta(net, inputs)
     table = ranking_table(scores)
-    csv_text = (f"# {CAUTION}\n# {provenance_line(meta)}\n"
-                f"# {scoring.RELATIVE_INDEX_NOTE}\n# {scoring.model_note(net.profile)}\n"
-                + _round_floats(table).to_csv(index=False, lineterminator="\n"))
+    csv_text = (
+        f"# {CAUTION}\n# {provenance_line(meta)}\n"
+        f"# {scoring.RELATIVE_INDEX_NOTE}\n# {scoring.model_note(net.profile)}\n"
+        + _round_floats(table).to_csv(index=False, lineterminator="\n")
+    )
     geojson = geojson_text(segments_gdf(net, scores), meta)
     m = route_map(net, scores, tiles=tiles, bands=bands)
     mapview.add_provenance(m, {k: meta[k] for k in ("routerisk_version", "profile", "inputs")})
@@ -288,14 +383,25 @@ def tradeoff_chart(s: Any) -> str:
     fig, ax = plt.subplots(figsize=(4.6, 3.2))
     if s.front:
         ft, fr = zip(*sorted(s.front), strict=True)
-        ax.plot(ft, fr, color="#999999", lw=1, ls="--", marker=".",
-                label="trade-off points found")
-    ax.scatter([s.planned.duration_min], [s.planned.risk], color="#1d1d1d", marker="s", s=50,
-               label="planned", zorder=3)
+        ax.plot(ft, fr, color="#999999", lw=1, ls="--", marker=".", label="trade-off points found")
+    ax.scatter(
+        [s.planned.duration_min],
+        [s.planned.risk],
+        color="#1d1d1d",
+        marker="s",
+        s=50,
+        label="planned",
+        zorder=3,
+    )
     for i, a in enumerate(s.alternatives):
-        ax.scatter([a.score.duration_min], [a.score.risk], s=50, zorder=3,
-                   color=mapview.ROUTE_COLOURS[(i + 1) % len(mapview.ROUTE_COLOURS)],
-                   label=a.label)
+        ax.scatter(
+            [a.score.duration_min],
+            [a.score.risk],
+            s=50,
+            zorder=3,
+            color=mapview.ROUTE_COLOURS[(i + 1) % len(mapview.ROUTE_COLOURS)],
+            label=a.label,
+        )
     ax.set_xlabel("travel time (min)")
     ax.set_ylabel("risk")
     ax.set_title(f"{s.name}: time against risk", fontsize=9)
@@ -305,8 +411,14 @@ def tradeoff_chart(s: Any) -> str:
     return png_data_uri(fig)
 
 
-def suggestion_map(net: Any, suggestions: list[Any], *, tiles: Any = None,
-                   inputs: dict[str, Any] | None = None, bands: str = "fixed") -> Any:
+def suggestion_map(
+    net: Any,
+    suggestions: list[Any],
+    *,
+    tiles: Any = None,
+    inputs: dict[str, Any] | None = None,
+    bands: str = "fixed",
+) -> Any:
     """Return one offline map: network by class, sources, rule zones, plans and alternatives.
 
     Each planned route and each alternative is its own switchable layer, drawn in its own
@@ -320,9 +432,15 @@ def suggestion_map(net: Any, suggestions: list[Any], *, tiles: Any = None,
     cls = mapview.classes_for(prof, edges["exposure_km"], mode=bands, weights=edges["length"])
     edges["_c"] = cls.colour_of(edges["exposure_km"])
     edges["street"] = edges["name"].fillna("")
-    mapview.add_lines(m, edges, name="network by exposure", colour_col="_c",
-                      fields={"street": "street", "band": "exposure band",
-                              "exposure_km": "exposure per km"}, weight=2.5, opacity=0.8)
+    mapview.add_lines(
+        m,
+        edges,
+        name="network by exposure",
+        colour_col="_c",
+        fields={"street": "street", "band": "exposure band", "exposure_km": "exposure per km"},
+        weight=2.5,
+        opacity=0.8,
+    )
     zones = _rule_zone_layer(m, net, edges)
     mapview.add_sources(m, net.sources, labels={c.name: c.label for c in prof.categories})
     fields = {"street": "street", "time": "entered", "risk": "risk", "band": "exposure band"}
@@ -333,60 +451,93 @@ def suggestion_map(net: Any, suggestions: list[Any], *, tiles: Any = None,
     rows_html = []
     n_alt = 0
     for s in suggestions:
-        options = [("planned", s.planned, None)] + [(a.label, a.score, a) for a in
-                                                     s.alternatives]
+        options = [("planned", s.planned, None)] + [(a.label, a.score, a) for a in s.alternatives]
         for j, (label, score, alt) in enumerate(options):
             gdf = segments_gdf(net, [score]).to_crs(net.crs)
             k = j % len(mapview.ROUTE_COLOURS)
             gdf["_c"] = mapview.ROUTE_COLOURS[k]
             n_alt = max(n_alt, j)
-            mapview.add_lines(m, gdf, name=f"{s.name}: {label}", colour_col="_c",
-                              fields=fields, weight=5 if alt is None else 4,
-                              opacity=0.95, dash=mapview.ROUTE_DASHES[k])
+            mapview.add_lines(
+                m,
+                gdf,
+                name=f"{s.name}: {label}",
+                colour_col="_c",
+                fields=fields,
+                weight=5 if alt is None else 4,
+                opacity=0.95,
+                dash=mapview.ROUTE_DASHES[k],
+            )
             if alt is None:
                 change = f"risk {score.risk:.3f}, {score.duration_min:.1f} min"
             else:
-                change = (f"risk {alt.risk_change_pct:+.0f} %, time "
-                          f"{alt.time_change_pct:+.0f} %, length "
-                          f"{alt.length_change_pct:+.0f} %"
-                          + ("" if alt.within_bounds else ", outside the bounds")
-                          + (f", breaks {len(score.rule_breaks)} rule(s)"
-                             if score.rule_breaks else ""))
-            notes = "".join(f"<br><small><i>{mapview.escape(c)}</i></small>"
-                            for c in (alt.caveats if alt is not None else []))
+                change = (
+                    f"risk {alt.risk_change_pct:+.0f} %, time "
+                    f"{alt.time_change_pct:+.0f} %, length "
+                    f"{alt.length_change_pct:+.0f} %"
+                    + ("" if alt.within_bounds else ", outside the bounds")
+                    + (f", breaks {len(score.rule_breaks)} rule(s)" if score.rule_breaks else "")
+                )
+            notes = "".join(
+                f"<br><small><i>{mapview.escape(c)}</i></small>"
+                for c in (alt.caveats if alt is not None else [])
+            )
             sw = mapview.line_swatch(mapview.ROUTE_COLOURS[k], dash=mapview.ROUTE_DASHES[k])
-            rows_html.append(f"<li>{sw} <b>{mapview.escape(s.name)}</b> "
-                             f"{mapview.escape(label)}: {mapview.escape(change)}{notes}</li>")
+            rows_html.append(
+                f"<li>{sw} <b>{mapview.escape(s.name)}</b> "
+                f"{mapview.escape(label)}: {mapview.escape(change)}{notes}</li>"
+            )
         if s.note:
-            rows_html.append(f"<li><i>{mapview.escape(s.name)}: {mapview.escape(s.note)}</i>"
-                             "</li>")
-        rows_html.extend(f"<li><small>{word}: {mapview.escape(t)}</small></li>"
-                         for word, texts in (("why", s.reasons), ("next step", s.next_steps))
-                         for t in texts)
-    n_breaks = _add_rule_breaks(m, [x for s in suggestions for x in
-                                    [s.planned, *(a.score for a in s.alternatives)]])
+            rows_html.append(f"<li><i>{mapview.escape(s.name)}: {mapview.escape(s.note)}</i></li>")
+        rows_html.extend(
+            f"<li><small>{word}: {mapview.escape(t)}</small></li>"
+            for word, texts in (("why", s.reasons), ("next step", s.next_steps))
+            for t in texts
+        )
+    n_breaks = _add_rule_breaks(
+        m, [x for s in suggestions for x in [s.planned, *(a.score for a in s.alternatives)]]
+    )
     mapview.layer_control(m, collapsed=True)
-    charts = "".join(f'<img alt="trade-off" style="width:290px" src="{tradeoff_chart(s)}">'
-                     for s in suggestions)
-    side = (f"<ul style='padding-left:4px;margin:0;list-style:none'>{''.join(rows_html)}</ul>"
-            f"{charts}")
-    mapview.add_panel(m, mapview.collapsible("Planned routes and alternatives", side),
-                      position="topleft", dom_id="rr-side")
+    charts = "".join(
+        f'<img alt="trade-off" style="width:290px" src="{tradeoff_chart(s)}">' for s in suggestions
+    )
+    side = (
+        f"<ul style='padding-left:4px;margin:0;list-style:none'>{''.join(rows_html)}</ul>{charts}"
+    )
+    mapview.add_panel(
+        m,
+        mapview.collapsible("Planned routes and alternatives", side),
+        position="topleft",
+        dom_id="rr-side",
+    )
     legend = cls.legend_items()
-    items: list[tuple[str | None, str]] = [(None, "network exposure per km"), *legend[1:],
-                                           (None, legend[0][1]),
-                                           (None, "routes (colour and dash pattern)")]
+    items: list[tuple[str | None, str]] = [
+        (None, "network exposure per km"),
+        *legend[1:],
+        (None, legend[0][1]),
+        (None, "routes (colour and dash pattern)"),
+    ]
     items.append((mapview.line_swatch(mapview.ROUTE_COLOURS[0]), "planned route"))
-    items += [(mapview.line_swatch(mapview.ROUTE_COLOURS[i], dash=mapview.ROUTE_DASHES[i]),
-               f"alternative {i}") for i in range(1, max(n_alt, 1) + 1)]
+    items += [
+        (
+            mapview.line_swatch(mapview.ROUTE_COLOURS[i], dash=mapview.ROUTE_DASHES[i]),
+            f"alternative {i}",
+        )
+        for i in range(1, max(n_alt, 1) + 1)
+    ]
     items += rule_zone_items(zones)
     if n_breaks:
         items.append((mapview.rule_break_svg(14), "hard rule broken here"))
     items += mapview.category_items(prof, net.sources)
-    mapview.add_panel(m, mapview.legend_html("Lower-exposure alternatives", items,
-                                             extra=f"<div>profile {mapview.escape(prof.name)} "
-                                                   f"{mapview.escape(prof.fingerprint)}</div>",
-                                             background=mapview.background_of(m)))
+    mapview.add_panel(
+        m,
+        mapview.legend_html(
+            "Lower-exposure alternatives",
+            items,
+            extra=f"<div>profile {mapview.escape(prof.name)} "
+            f"{mapview.escape(prof.fingerprint)}</div>",
+            background=mapview.background_of(m),
+        ),
+    )
     from ._io import provenance
 
     mapview.add_provenance(m, provenance(profile=prof.fingerprint, network=net, inputs=inputs))

@@ -25,35 +25,59 @@ from .profile import MINUTES_PER_WEEK, Profile
 
 def minute_of_week(ts: pd.Timestamp | pd.DatetimeIndex | pd.Series) -> np.ndarray:
     """Return minutes since Monday 00:00 of local timestamps (int array)."""
-    t = pd.DatetimeIndex(np.atleast_1d(ts)) if not isinstance(ts, pd.Series) else (
-        pd.DatetimeIndex(ts))
+    t = (
+        pd.DatetimeIndex(np.atleast_1d(ts))
+        if not isinstance(ts, pd.Series)
+        else (pd.DatetimeIndex(ts))
+    )
     return ((t.day_of_week * 1440 + t.hour * 60 + t.minute).to_numpy() % MINUTES_PER_WEEK).astype(
-        np.int64)
+        np.int64
+    )
 
 
 #: How the relative index reads, said beside it on every output.
 RELATIVE_INDEX_NOTE = (
     "relative index: route risk against as many km of the average street of the area at the "
     "same minutes under the same profile (1.0 = as exposed as the area then); it cannot be "
-    "compared across profiles")
+    "compared across profiles"
+)
 
 
 def model_note(profile: Profile) -> str:
     """Return one line naming the parts of "risk" the profile models and those it does not."""
-    timed = [what for what, name in (("baseline", profile.baseline_time_profile),
-                                     ("crossings", profile.crossing_time_profile)) if name]
-    exposure = ("exposure (street baseline, crossings and nearby land uses by time of week"
-                + (f"; {' and '.join(timed)} timed too" if timed else
-                   "; baseline and crossings constant over the week") + ")")
-    severity = (f"severity given a crash (Tefft 2013, {profile.severity_outcome.replace('_', ' ')}"
-                f", reference {profile.reference_mph:g} mph)")
+    timed = [
+        what
+        for what, name in (
+            ("baseline", profile.baseline_time_profile),
+            ("crossings", profile.crossing_time_profile),
+        )
+        if name
+    ]
+    exposure = (
+        "exposure (street baseline, crossings and nearby land uses by time of week"
+        + (
+            f"; {' and '.join(timed)} timed too"
+            if timed
+            else "; baseline and crossings constant over the week"
+        )
+        + ")"
+    )
+    severity = (
+        f"severity given a crash (Tefft 2013, {profile.severity_outcome.replace('_', ' ')}"
+        f", reference {profile.reference_mph:g} mph)"
+    )
     like = profile.likelihood
-    likelihood = ("crash likelihood by speed (power model, Nilsson 2004 as re-estimated by "
-                  f"Elvik 2009: {like.crashes.replace('_', ' ')} exponent {like.exponent:g}, "
-                  f"reference {like.reference_mph:g} mph)" if like is not None else None)
+    likelihood = (
+        "crash likelihood by speed (power model, Nilsson 2004 as re-estimated by "
+        f"Elvik 2009: {like.crashes.replace('_', ' ')} exponent {like.exponent:g}, "
+        f"reference {like.reference_mph:g} mph)"
+        if like is not None
+        else None
+    )
     modelled = ", ".join(x for x in (exposure, severity, likelihood) if x)
-    missing = ("" if like is not None else "crash likelihood by speed (off in this profile), "
-               ) + "traffic and pedestrian counts, sight lines, driver or vehicle behaviour"
+    missing = (
+        "" if like is not None else "crash likelihood by speed (off in this profile), "
+    ) + "traffic and pedestrian counts, sight lines, driver or vehicle behaviour"
     return f"modelled: {modelled}; not modelled: {missing}"
 
 
@@ -68,8 +92,9 @@ def speed_factor(edges: pd.DataFrame) -> np.ndarray:
     return sev
 
 
-def edge_risk_parts(edges: pd.DataFrame, profile: Profile, minutes: np.ndarray | int
-                    ) -> pd.DataFrame:
+def edge_risk_parts(
+    edges: pd.DataFrame, profile: Profile, minutes: np.ndarray | int
+) -> pd.DataFrame:
     """Return the risk parts of each edge row driven at the given minute(s) of the week.
 
     Parameters
@@ -89,17 +114,18 @@ def edge_risk_parts(edges: pd.DataFrame, profile: Profile, minutes: np.ndarray |
     km = edges["length"].to_numpy(dtype=float) / 1000.0
     parts = {"baseline": sev * km * edges["baseline"].to_numpy(dtype=float) * base_mult}
     for j, c in enumerate(profile.categories):
-        parts[c.name] = sev * km * c.weight * mult[:, j] * edges[f"exp_{c.name}"].to_numpy(
-            dtype=float)
-    parts["crossings"] = sev * profile.crossing_weight * cross_mult * edges[
-        "crossings"].to_numpy(dtype=float)
+        parts[c.name] = (
+            sev * km * c.weight * mult[:, j] * edges[f"exp_{c.name}"].to_numpy(dtype=float)
+        )
+    parts["crossings"] = (
+        sev * profile.crossing_weight * cross_mult * edges["crossings"].to_numpy(dtype=float)
+    )
     out = pd.DataFrame(parts, index=edges.index)
     out["total"] = out.sum(axis=1)
     return out
 
 
-def rules_in_force(edges: pd.DataFrame, profile: Profile, minutes: np.ndarray | int
-                   ) -> np.ndarray:
+def rules_in_force(edges: pd.DataFrame, profile: Profile, minutes: np.ndarray | int) -> np.ndarray:
     """Return an (n_edges, n_rules) bool array: rule covers the edge and is in force then."""
     n = len(edges)
     mins = np.broadcast_to(np.asarray(minutes, dtype=np.int64), (n,)) % MINUTES_PER_WEEK
@@ -196,28 +222,42 @@ class Scorer:
         self.infl = np.column_stack([e[f"infl_{c}"].to_numpy(dtype=float) for c in self.cats])
         self.w = np.array([c.weight for c in prof.categories])
         ones = np.ones(MINUTES_PER_WEEK)
-        self.mult_table = np.stack([
-            (prof.time_profile(c.time_profile).by_minute if c.time_profile else ones)
-            for c in prof.categories])  # (C, 10080)
+        self.mult_table = np.stack(
+            [
+                (prof.time_profile(c.time_profile).by_minute if c.time_profile else ones)
+                for c in prof.categories
+            ]
+        )  # (C, 10080)
         self.base_mult = prof.by_minute_of(prof.baseline_time_profile)  # (10080,)
         self.cross_mult = prof.by_minute_of(prof.crossing_time_profile)  # (10080,)
-        self.rule_cover = np.column_stack(
-            [e[f"rule_{i}"].to_numpy(dtype=bool) for i in range(len(prof.rules))]
-        ) if prof.rules else np.zeros((len(e), 0), dtype=bool)
-        self.rule_time = np.stack([r.by_minute for r in prof.rules]) if prof.rules else (
-            np.zeros((0, MINUTES_PER_WEEK), dtype=bool))
+        self.rule_cover = (
+            np.column_stack([e[f"rule_{i}"].to_numpy(dtype=bool) for i in range(len(prof.rules))])
+            if prof.rules
+            else np.zeros((len(e), 0), dtype=bool)
+        )
+        self.rule_time = (
+            np.stack([r.by_minute for r in prof.rules])
+            if prof.rules
+            else (np.zeros((0, MINUTES_PER_WEEK), dtype=bool))
+        )
         # network-wide sums for the relative index (linear in the multipliers)
         total_km = self.km.sum()
         self.avg_base = float((self.sev * self.km * self.base).sum()) / total_km
         self.avg_cross = float((self.sev * prof.crossing_weight * self.cross).sum()) / total_km
-        self.avg_fixed = float((self.sev * self.km * self.base).sum() + (
-            self.sev * prof.crossing_weight * self.cross).sum()) / total_km  # both untimed
+        self.avg_fixed = (
+            float(
+                (self.sev * self.km * self.base).sum()
+                + (self.sev * prof.crossing_weight * self.cross).sum()
+            )
+            / total_km
+        )  # both untimed
         self._street_timed = bool(prof.baseline_time_profile or prof.crossing_time_profile)
         self.avg_cat = (self.sev * self.km) @ (self.exp * self.w) / total_km  # (C,)
         self.tz = net.timezone
         nodes = net.nodes
-        self.node_xy = {n: (x, y) for n, x, y in zip(nodes.index, nodes["x"], nodes["y"],
-                                                      strict=True)}
+        self.node_xy = {
+            n: (x, y) for n, x, y in zip(nodes.index, nodes["x"], nodes["y"], strict=True)
+        }
         self.out_degree = pd.Series(self.index.get_level_values(0)).value_counts().to_dict()
         self._geoms = e.geometry.to_numpy()
         self._bands = e["band"].to_numpy()
@@ -230,12 +270,14 @@ class Scorer:
     def positions(self, edges: list[tuple[int, int, int]]) -> np.ndarray:
         """Return row positions of (u, v, key) edges; raise KeyError for unknown ones."""
         if self._row_of is None:
-            self._row_of = {(int(u), int(v), int(k)): i for i, (u, v, k) in
-                            enumerate(self.index)}
+            self._row_of = {(int(u), int(v), int(k)): i for i, (u, v, k) in enumerate(self.index)}
         row_of = self._row_of
         try:
-            return np.fromiter((row_of[(int(e[0]), int(e[1]), int(e[2]))] for e in edges),
-                               dtype=np.int64, count=len(edges))
+            return np.fromiter(
+                (row_of[(int(e[0]), int(e[1]), int(e[2]))] for e in edges),
+                dtype=np.int64,
+                count=len(edges),
+            )
         except KeyError as exc:
             raise KeyError(f"edge {exc.args[0]} is not in the network") from None
 
@@ -245,11 +287,20 @@ class Scorer:
         mult = self.mult_table[:, m].T  # (n, C)
         if not self._street_timed:  # the same sum, bit for bit, as before the street profiles
             return self.avg_fixed + mult @ self.avg_cat
-        return (self.avg_base * self.base_mult[m] + self.avg_cross * self.cross_mult[m]
-                + mult @ self.avg_cat)
+        return (
+            self.avg_base * self.base_mult[m]
+            + self.avg_cross * self.cross_mult[m]
+            + mult @ self.avg_cat
+        )
 
-    def score(self, name: str, edges: list[tuple[int, int, int]], depart: _dt.datetime, *,
-              fractions: np.ndarray | None = None) -> RouteScore:
+    def score(
+        self,
+        name: str,
+        edges: list[tuple[int, int, int]],
+        depart: _dt.datetime,
+        *,
+        fractions: np.ndarray | None = None,
+    ) -> RouteScore:
         """Score a route given as edges driven in order from ``depart`` (aware datetime).
 
         ``fractions`` gives the share of each edge driven (partial first and last edges);
@@ -261,19 +312,27 @@ class Scorer:
         sev = self.sev[pos]
         cat_parts = (sev * km)[:, None] * self.w[None, :] * mult * self.exp[pos]
         base_part = sev * km * self.base[pos] * self.base_mult[minutes]
-        cross_part = (sev * self.profile.crossing_weight * self.cross[pos] * frac
-                      * self.cross_mult[minutes])
+        cross_part = (
+            sev * self.profile.crossing_weight * self.cross[pos] * frac * self.cross_mult[minutes]
+        )
         total = base_part + cat_parts.sum(axis=1) + cross_part
         risk = float(total.sum())
         length_km = float(km.sum())
         expected = float((km * self.network_risk_per_km(minutes)).sum())
         times = [local + _dt.timedelta(seconds=float(s)) for s in enter_s]
         cols: dict[str, Any] = {
-            "seq": np.arange(len(pos)), "u": [e[0] for e in edges], "v": [e[1] for e in edges],
-            "key": [e[2] for e in edges], "street": self.names[pos], "length_m": km * 1000.0,
-            "time": [t.isoformat(timespec="seconds") for t in times], "risk": total,
-            "baseline": base_part, "crossings": self.cross[pos] * frac,
-            "crossing_part": cross_part, "band": self._bands[pos],
+            "seq": np.arange(len(pos)),
+            "u": [e[0] for e in edges],
+            "v": [e[1] for e in edges],
+            "key": [e[2] for e in edges],
+            "street": self.names[pos],
+            "length_m": km * 1000.0,
+            "time": [t.isoformat(timespec="seconds") for t in times],
+            "risk": total,
+            "baseline": base_part,
+            "crossings": self.cross[pos] * frac,
+            "crossing_part": cross_part,
+            "band": self._bands[pos],
         }
         for j, c in enumerate(self.cats):
             cols[f"part_{c}"] = cat_parts[:, j]
@@ -282,13 +341,20 @@ class Scorer:
         seg = pd.DataFrame(cols)
         by_cat = {"baseline": float(base_part.sum()), "crossings": float(cross_part.sum())}
         by_cat.update({c: float(cat_parts[:, j].sum()) for j, c in enumerate(self.cats)})
-        share = {c: float((km * self.infl[pos, j]).sum() / length_km) if length_km else 0.0
-                 for j, c in enumerate(self.cats)}
+        share = {
+            c: float((km * self.infl[pos, j]).sum() / length_km) if length_km else 0.0
+            for j, c in enumerate(self.cats)
+        }
         return RouteScore(
-            name=name, depart=local, length_km=length_km, duration_min=float(tt.sum() / 60.0),
-            risk=risk, risk_per_km=risk / length_km if length_km else 0.0,
+            name=name,
+            depart=local,
+            length_km=length_km,
+            duration_min=float(tt.sum() / 60.0),
+            risk=risk,
+            risk_per_km=risk / length_km if length_km else 0.0,
             relative_index=risk / expected if expected else 0.0,
-            by_category=by_cat, share_in_influence=share,
+            by_category=by_cat,
+            share_in_influence=share,
             crossings=float((self.cross[pos] * frac).sum()),
             left_turns=self.left_turns(edges),
             rule_breaks=self.rule_breaks(pos, minutes, times, edges),
@@ -296,9 +362,9 @@ class Scorer:
             segments=seg,
         )
 
-    def _timeline(self, pos: np.ndarray, depart: _dt.datetime,
-                  fractions: np.ndarray | None) -> tuple[np.ndarray, np.ndarray, np.ndarray,
-                                                       np.ndarray, _dt.datetime, np.ndarray]:
+    def _timeline(
+        self, pos: np.ndarray, depart: _dt.datetime, fractions: np.ndarray | None
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, _dt.datetime, np.ndarray]:
         """Return shares, km, seconds, entry offsets, local departure and entry minutes."""
         frac = np.ones(len(pos)) if fractions is None else np.asarray(fractions, dtype=float)
         km = self.km[pos] * frac
@@ -309,8 +375,9 @@ class Scorer:
         minutes = np.floor(m0 + enter_s / 60.0).astype(np.int64) % MINUTES_PER_WEEK
         return frac, km, tt, enter_s, local, minutes
 
-    def quick(self, pos: np.ndarray, depart: _dt.datetime, *,
-              fractions: np.ndarray | None = None) -> tuple[float, float, int]:
+    def quick(
+        self, pos: np.ndarray, depart: _dt.datetime, *, fractions: np.ndarray | None = None
+    ) -> tuple[float, float, int]:
         """Return (risk, duration in minutes, number of rule breaks) without the details.
 
         The same arithmetic as :meth:`score`, for screening many candidate start times.
@@ -318,17 +385,32 @@ class Scorer:
         frac, km, tt, enter_s, local, minutes = self._timeline(pos, depart, fractions)
         mult = self.mult_table[:, minutes].T
         sev = self.sev[pos]
-        risk = float((sev * km * (self.base[pos] * self.base_mult[minutes]
-                                  + (mult * self.exp[pos]) @ self.w)).sum()
-                     + (sev * self.profile.crossing_weight * self.cross[pos] * frac
-                        * self.cross_mult[minutes]).sum())
+        risk = float(
+            (
+                sev
+                * km
+                * (self.base[pos] * self.base_mult[minutes] + (mult * self.exp[pos]) @ self.w)
+            ).sum()
+            + (
+                sev
+                * self.profile.crossing_weight
+                * self.cross[pos]
+                * frac
+                * self.cross_mult[minutes]
+            ).sum()
+        )
         breaks = 0
         if self.profile.rules:
             breaks = int((self.rule_cover[pos] & self.rule_time[:, minutes].T).sum())
         return risk, float(tt.sum() / 60.0), breaks
 
-    def rule_breaks(self, pos: np.ndarray, minutes: np.ndarray, times: list[_dt.datetime],
-                    edges: list[tuple[int, int, int]]) -> list[dict[str, Any]]:
+    def rule_breaks(
+        self,
+        pos: np.ndarray,
+        minutes: np.ndarray,
+        times: list[_dt.datetime],
+        edges: list[tuple[int, int, int]],
+    ) -> list[dict[str, Any]]:
         """Return one record per edge driven while a hard rule covering it is in force."""
         if not self.profile.rules:
             return []
@@ -337,15 +419,26 @@ class Scorer:
         for i, j in zip(*np.nonzero(hit), strict=True):
             mid = self._geoms[pos[i]].interpolate(0.5, normalized=True)
             lon, lat = self._to_ll.transform(mid.x, mid.y)
-            out.append({
-                "rule": self.profile.rules[j].name, "street": str(self.names[pos[i]]),
-                "edge": [int(x) for x in edges[i]], "time": times[i].isoformat(timespec="seconds"),
-                "lon": _round(lon, 7), "lat": _round(lat, 7),
-            })
+            out.append(
+                {
+                    "rule": self.profile.rules[j].name,
+                    "street": str(self.names[pos[i]]),
+                    "edge": [int(x) for x in edges[i]],
+                    "time": times[i].isoformat(timespec="seconds"),
+                    "lon": _round(lon, 7),
+                    "lat": _round(lat, 7),
+                }
+            )
         return out
 
-    def hotspots(self, seg: pd.DataFrame, cat_parts: np.ndarray, base_part: np.ndarray,
-                 cross_part: np.ndarray, n: int = HOTSPOTS) -> list[dict[str, Any]]:
+    def hotspots(
+        self,
+        seg: pd.DataFrame,
+        cat_parts: np.ndarray,
+        base_part: np.ndarray,
+        cross_part: np.ndarray,
+        n: int = HOTSPOTS,
+    ) -> list[dict[str, Any]]:
         """Return the ``n`` segments that contribute most risk, with the reasons."""
         total = seg["risk"].to_numpy()
         seq = seg["seq"].to_numpy()
@@ -359,13 +452,22 @@ class Scorer:
             parts = {lab: cat_parts[i, j] for j, lab in enumerate(labels)}
             parts["street baseline"] = base_part[i]
             parts["crossings"] = cross_part[i]
-            reasons = [k_ for k_, val in sorted(parts.items(), key=lambda kv: (-kv[1], kv[0]))
-                       if val > 0.05 * total[i]][:3]
-            out.append({"street": str(street[i]), "seq": int(seq[i]),
-                        "edge": [int(u[i]), int(v[i]), int(k[i])],
-                        "risk": _round(total[i]), "time": tcol[i],
-                        "share": _round(total[i] / grand if grand else 0.0),
-                        "reasons": reasons})
+            reasons = [
+                k_
+                for k_, val in sorted(parts.items(), key=lambda kv: (-kv[1], kv[0]))
+                if val > 0.05 * total[i]
+            ][:3]
+            out.append(
+                {
+                    "street": str(street[i]),
+                    "seq": int(seq[i]),
+                    "edge": [int(u[i]), int(v[i]), int(k[i])],
+                    "risk": _round(total[i]),
+                    "time": tcol[i],
+                    "share": _round(total[i] / grand if grand else 0.0),
+                    "reasons": reasons,
+                }
+            )
         return out
 
     def _headings(self) -> tuple[np.ndarray, np.ndarray]:
@@ -389,8 +491,11 @@ class Scorer:
         start, end = self._headings()
         a, b = end[pos[:-1]], start[pos[1:]]
         turn = np.degrees((b - a + np.pi) % (2 * np.pi) - np.pi)  # + = left
-        junction = np.fromiter((self.out_degree.get(e[1], 0) >= 3 for e in edges[:-1]),
-                               dtype=bool, count=len(edges) - 1)  # else no choice there
+        junction = np.fromiter(
+            (self.out_degree.get(e[1], 0) >= 3 for e in edges[:-1]),
+            dtype=bool,
+            count=len(edges) - 1,
+        )  # else no choice there
         return int((junction & (turn >= LEFT_TURN_MIN_DEG) & (turn <= LEFT_TURN_MAX_DEG)).sum())
 
 
@@ -402,21 +507,32 @@ def parse_depart(text: str, tz: Any) -> _dt.datetime:
     from .errors import OptionError
 
     if _DATE_ONLY.fullmatch(text.strip()):
-        raise OptionError(f"{text.strip()!r} is a date without a time (it would mean midnight); "
-                          f"give the time too, e.g. {text.strip()}T08:00", field="--depart")
+        raise OptionError(
+            f"{text.strip()!r} is a date without a time (it would mean midnight); "
+            f"give the time too, e.g. {text.strip()}T08:00",
+            field="--depart",
+        )
     try:
         t = _dt.datetime.fromisoformat(text.strip())
     except ValueError as exc:
-        raise OptionError(f"not an ISO 8601 date and time: {text!r} (e.g. 2027-03-09T08:05)",
-                          field="--depart") from exc
+        raise OptionError(
+            f"not an ISO 8601 date and time: {text!r} (e.g. 2027-03-09T08:05)", field="--depart"
+        ) from exc
     if not YEARS[0] <= t.year <= YEARS[1]:
-        raise OptionError(f"year {t.year} is outside {YEARS[0]}-{YEARS[1]}: {text!r}",
-                          field="--depart")
+        raise OptionError(
+            f"year {t.year} is outside {YEARS[0]}-{YEARS[1]}: {text!r}", field="--depart"
+        )
     return t.replace(tzinfo=tz) if t.tzinfo is None else t
 
 
-def score_routes(net: Any, routes: list[Any], departs: list[_dt.datetime] | None = None, *,
-                 index: Any = None, scorer: Scorer | None = None) -> list[RouteScore]:
+def score_routes(
+    net: Any,
+    routes: list[Any],
+    departs: list[_dt.datetime] | None = None,
+    *,
+    index: Any = None,
+    scorer: Scorer | None = None,
+) -> list[RouteScore]:
     """Score planned routes (from :func:`routerisk.routes.read_routes`) on a network.
 
     Each route is scored at every time in ``departs``; without any, at its own ``depart``.
@@ -432,9 +548,15 @@ def score_routes(net: Any, routes: list[Any], departs: list[_dt.datetime] | None
     for r, matched in zip(routes, matching.to_edges_many(idx, routes), strict=True):
         times = departs or ([r.depart] if r.depart is not None else [])
         if not times:
-            raise RouteInputError("no departure time: give --depart or a 'depart' property",
-                                  path=r.source or None, field=f"route {r.name!r}")
+            raise RouteInputError(
+                "no departure time: give --depart or a 'depart' property",
+                path=r.source or None,
+                field=f"route {r.name!r}",
+            )
         for t in times:
-            out.append(scorer.score(r.name, list(matched.edges), t,
-                                    fractions=np.asarray(matched.fractions)))
+            out.append(
+                scorer.score(
+                    r.name, list(matched.edges), t, fractions=np.asarray(matched.fractions)
+                )
+            )
     return out

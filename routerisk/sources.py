@@ -79,12 +79,12 @@ def sources_from_raw(raw: RawOSM, profile: Profile, *, crs) -> gpd.GeoDataFrame:
     if not rows:
         gdf = gpd.GeoDataFrame(columns=COLUMNS, geometry="geometry", crs="EPSG:4326")
     else:
-        gdf = gpd.GeoDataFrame(pd.DataFrame(rows, columns=COLUMNS), geometry="geometry",
-                               crs="EPSG:4326")
+        gdf = gpd.GeoDataFrame(
+            pd.DataFrame(rows, columns=COLUMNS), geometry="geometry", crs="EPSG:4326"
+        )
     gdf = gdf.to_crs(crs)
     gdf["osmid"] = gdf["osmid"].astype("int64")
-    return gdf.sort_values(["category", "osm_type", "osmid"], kind="stable").reset_index(
-        drop=True)
+    return gdf.sort_values(["category", "osm_type", "osmid"], kind="stable").reset_index(drop=True)
 
 
 def crossings_from_raw(raw: RawOSM, *, crs) -> gpd.GeoDataFrame:
@@ -92,6 +92,7 @@ def crossings_from_raw(raw: RawOSM, *, crs) -> gpd.GeoDataFrame:
     ids = sorted(raw.crossings)
     pts = [Point(raw.crossings[i][0], raw.crossings[i][1]) for i in ids]
     kinds = [raw.crossings[i][2] for i in ids]
-    gdf = gpd.GeoDataFrame({"osmid": np.array(ids, dtype="int64"), "crossing": kinds},
-                           geometry=pts, crs="EPSG:4326")
+    gdf = gpd.GeoDataFrame(
+        {"osmid": np.array(ids, dtype="int64"), "crossing": kinds}, geometry=pts, crs="EPSG:4326"
+    )
     return gdf.to_crs(crs)

@@ -431,8 +431,11 @@ class _City:
         self.rng = np.random.default_rng([seed, lay.nx, lay.ny, 1])
         # seeded generators for reproducible benchmark cities, not for secrets
         self.pr = random.Random(((seed * 1_000_003) + lay.nx) * 100_003 + lay.ny)  # noqa: S311
-        self.names = _Names(random.Random(  # noqa: S311
-            ((seed * 1_000_033) + lay.nx) * 100_019 + lay.ny))
+        self.names = _Names(
+            random.Random(  # noqa: S311
+                ((seed * 1_000_033) + lay.nx) * 100_019 + lay.ny
+            )
+        )
         self.out = _Out(lay.nx * lay.ny + 1)
         self.xl = lay.x.ravel().tolist()
         self.yl = lay.y.ravel().tolist()
@@ -588,9 +591,13 @@ class _City:
         cm = cc[None, :]
         major = np.maximum(rr, cm)
         minor = np.minimum(rr, cm)
-        signal = keep & (nbr >= 3) & (
-            ((major >= _SEC) & (minor >= _COL))
-            | ((major == _COL) & (minor == _COL) & (rng.random(nbr.shape) < 0.3))
+        signal = (
+            keep
+            & (nbr >= 3)
+            & (
+                ((major >= _SEC) & (minor >= _COL))
+                | ((major == _COL) & (minor == _COL) & (rng.random(nbr.shape) < 0.3))
+            )
         )
         self.signal = signal
         for k in np.flatnonzero(signal.ravel()).tolist():
@@ -748,8 +755,9 @@ class _City:
             refs = [ks[start] + 1]
             for s in range(start, i):
                 refs.extend(
-                    self._side_nodes(ks[s], ks[s + 1], nshape[s], amp[s], x0[s], x1[s],
-                                     school[s], drive[s])  # fmt: skip
+                    self._side_nodes(
+                        ks[s], ks[s + 1], nshape[s], amp[s], x0[s], x1[s], school[s], drive[s]
+                    )  # fmt: skip
                 )
                 refs.append(ks[s + 1] + 1)
             if d < 0:

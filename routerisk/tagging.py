@@ -71,15 +71,14 @@ def sample_points(geoms: np.ndarray, spacing: float) -> tuple[np.ndarray, np.nda
         return shapely.line_interpolate_point(geoms[owner], frac, normalized=True), owner
     many = np.isin(owner, many_lines)
     pts = np.empty(owner.size, dtype=object)
-    pts[~many] = shapely.line_interpolate_point(geoms[owner[~many]], frac[~many],
-                                                normalized=True)
-    pts[many] = interpolate_normalized(geoms[many_lines],
-                                       np.searchsorted(many_lines, owner[many]), frac[many])
+    pts[~many] = shapely.line_interpolate_point(geoms[owner[~many]], frac[~many], normalized=True)
+    pts[many] = interpolate_normalized(
+        geoms[many_lines], np.searchsorted(many_lines, owner[many]), frac[many]
+    )
     return pts, owner
 
 
-def interpolate_normalized(geoms: np.ndarray, owner: np.ndarray, frac: np.ndarray
-                           ) -> np.ndarray:
+def interpolate_normalized(geoms: np.ndarray, owner: np.ndarray, frac: np.ndarray) -> np.ndarray:
     """Return ``shapely.line_interpolate_point(geoms[owner], frac, normalized=True)``.
 
     Computed with numpy along the vertex arrays in the very operations GEOS performs
@@ -92,8 +91,11 @@ def interpolate_normalized(geoms: np.ndarray, owner: np.ndarray, frac: np.ndarra
     if len(owner) == 0:
         return shapely.line_interpolate_point(geoms[owner], frac, normalized=True)
     kinds = shapely.get_type_id(geoms)
-    if (np.any(kinds != shapely.GeometryType.LINESTRING) or np.any(shapely.has_z(geoms))
-            or np.any(shapely.is_empty(geoms))):
+    if (
+        np.any(kinds != shapely.GeometryType.LINESTRING)
+        or np.any(shapely.has_z(geoms))
+        or np.any(shapely.is_empty(geoms))
+    ):
         return shapely.line_interpolate_point(geoms[owner], frac, normalized=True)
     xy, line = shapely.get_coordinates(geoms, return_index=True)
     n_vert = np.bincount(line, minlength=len(geoms))
@@ -142,8 +144,9 @@ def interpolate_normalized(geoms: np.ndarray, owner: np.ndarray, frac: np.ndarra
     return shapely.points(out)
 
 
-def near_pairs(points: np.ndarray, sources: np.ndarray, radius: float, *,
-               point_tree: STRtree | None = None) -> tuple[np.ndarray, np.ndarray]:
+def near_pairs(
+    points: np.ndarray, sources: np.ndarray, radius: float, *, point_tree: STRtree | None = None
+) -> tuple[np.ndarray, np.ndarray]:
     """Return (point index, source index) of every pair within ``radius``.
 
     With ``point_tree`` (an STRtree of ``points``) the sources query the points; the pairs
@@ -174,8 +177,9 @@ def category_exposure(
     """
     if len(sources) == 0 or n_edges == 0:
         return np.zeros(n_edges), np.zeros(n_edges)
-    pi, si = near_pairs(points, sources, category.radius_m,
-                        point_tree=None if category.stack else point_tree)
+    pi, si = near_pairs(
+        points, sources, category.radius_m, point_tree=None if category.stack else point_tree
+    )
     near = np.zeros(len(points))
     inside = np.zeros(len(points), dtype=bool)
     if len(pi):
@@ -197,8 +201,7 @@ def category_exposure(
 REACH_MARGIN_M = 1.0
 
 
-def reached_edges(geoms: np.ndarray, by_cat: dict[str, np.ndarray], profile: Profile
-                  ) -> np.ndarray:
+def reached_edges(geoms: np.ndarray, by_cat: dict[str, np.ndarray], profile: Profile) -> np.ndarray:
     """Return the positions (ascending) of the edges within reach of some source.
 
     An edge farther than every category's radius from each of that category's sources has
@@ -219,18 +222,20 @@ def baseline(edges: pd.DataFrame, profile: Profile) -> np.ndarray:
     by_class = dict(profile.baseline_by_class)
     side = dict(profile.sidewalk)
     codes, uniq = pd.factorize(edges["highway"], use_na_sentinel=False)
-    base = np.array([by_class.get(h, profile.baseline_default) for h in uniq],
-                    dtype=float)[codes]
+    base = np.array([by_class.get(h, profile.baseline_default) for h in uniq], dtype=float)[codes]
     sw = edges["sidewalk"] if "sidewalk" in edges else pd.Series("unknown", index=edges.index)
     codes, uniq = pd.factorize(sw.fillna("unknown"), use_na_sentinel=False)
-    mult = np.array([side.get(str(s), side.get("unknown", 1.0)) for s in uniq],
-                    dtype=float)[codes]
+    mult = np.array([side.get(str(s), side.get("unknown", 1.0)) for s in uniq], dtype=float)[codes]
     return base * mult
 
 
-def _rule_arrays(edges: gpd.GeoDataFrame, src_geoms: np.ndarray, src_cat: np.ndarray,
-                 profile: Profile, polygons: dict[str, gpd.GeoSeries] | None
-                 ) -> dict[str, np.ndarray]:
+def _rule_arrays(
+    edges: gpd.GeoDataFrame,
+    src_geoms: np.ndarray,
+    src_cat: np.ndarray,
+    profile: Profile,
+    polygons: dict[str, gpd.GeoSeries] | None,
+) -> dict[str, np.ndarray]:
     geoms = edges.geometry.to_numpy()
     edge_tree: STRtree | None = None
     out = {}
@@ -253,15 +258,22 @@ def _rule_arrays(edges: gpd.GeoDataFrame, src_geoms: np.ndarray, src_cat: np.nda
     return out
 
 
-def rule_flags(edges: gpd.GeoDataFrame, sources: gpd.GeoDataFrame, profile: Profile,
-               polygons: dict[str, gpd.GeoSeries] | None = None) -> pd.DataFrame:
+def rule_flags(
+    edges: gpd.GeoDataFrame,
+    sources: gpd.GeoDataFrame,
+    profile: Profile,
+    polygons: dict[str, gpd.GeoSeries] | None = None,
+) -> pd.DataFrame:
     """Return one bool column ``rule_<i>`` per hard rule: True where the rule covers the edge.
 
     Whether it is in force at a given time is the rule's weekly window, applied when driving.
     """
-    return pd.DataFrame(_rule_arrays(edges, sources.geometry.to_numpy(),
-                                     sources["category"].to_numpy(), profile, polygons),
-                        index=edges.index)
+    return pd.DataFrame(
+        _rule_arrays(
+            edges, sources.geometry.to_numpy(), sources["category"].to_numpy(), profile, polygons
+        ),
+        index=edges.index,
+    )
 
 
 def tag_edges(
@@ -307,8 +319,9 @@ def tag_edges(
         point_tree = STRtree(pts) if len(pts) else None
         rows = reach[lo:hi]
         for cat in profile.categories:
-            exp, share = category_exposure(pts, owner, hi - lo, by_cat[cat.name], cat,
-                                           point_tree=point_tree)
+            exp, share = category_exposure(
+                pts, owner, hi - lo, by_cat[cat.name], cat, point_tree=point_tree
+            )
             new[f"exp_{cat.name}"][rows] = exp
             new[f"infl_{cat.name}"][rows] = share
         del pts, owner, point_tree
@@ -323,9 +336,11 @@ def tag_edges(
         n_cross = np.bincount(ei[keep], minlength=n).astype(np.int64)
     new["crossings"] = n_cross
     new["baseline"] = baseline(edges, profile)
-    new["severity"] = severity_factor(edges["speed_kph"].to_numpy(dtype=float),
-                                      outcome=profile.severity_outcome,
-                                      reference_mph=profile.reference_mph)
+    new["severity"] = severity_factor(
+        edges["speed_kph"].to_numpy(dtype=float),
+        outcome=profile.severity_outcome,
+        reference_mph=profile.reference_mph,
+    )
     if profile.likelihood is not None or "likelihood" in edges.columns:
         # crash likelihood by speed (power model), only when the profile asks for it, so
         # networks tagged without it keep their columns; scoring multiplies it with severity
@@ -348,7 +363,10 @@ def tag_edges(
         out[c] = new.pop(c)
     if new:
         added = pd.DataFrame(new, index=out.index)
-        out = gpd.GeoDataFrame(pd.concat([pd.DataFrame(out), added], axis=1),
-                               geometry=edges.geometry.name, crs=edges.crs)
+        out = gpd.GeoDataFrame(
+            pd.concat([pd.DataFrame(out), added], axis=1),
+            geometry=edges.geometry.name,
+            crs=edges.crs,
+        )
     log.info("tag_edges tagged %d edges with %d sample points", len(out), n_points)
     return out

@@ -60,13 +60,16 @@ def weight_law(profile: Profile) -> WeightLaw:
     if profile.uncertainty is not None:
         normal = tuple(names.index(n) for n in profile.uncertainty.weights)
         cov = np.array(profile.uncertainty.covariance, dtype=float)
-    ranges = tuple((i, *c.weight_range) for i, c in enumerate(profile.categories)
-                   if c.weight_range is not None)
+    ranges = tuple(
+        (i, *c.weight_range) for i, c in enumerate(profile.categories) if c.weight_range is not None
+    )
     if not normal and not ranges:
         raise OptionError(
             "--uncertainty needs a profile with an 'uncertainty' block (from 'routerisk "
             "calibrate') or weight ranges such as weight: {low: 0.5, high: 2.0}",
-            path=profile.source or None, field="--uncertainty")
+            path=profile.source or None,
+            field="--uncertainty",
+        )
     return WeightLaw(names, centre, normal, cov, ranges)
 
 
@@ -76,8 +79,9 @@ def _range_draws(u: np.ndarray, low: float, high: float, spread: str) -> np.ndar
     return low + u * (high - low)
 
 
-def draw_weights(law: WeightLaw, n: int, rng: np.random.Generator, *,
-                 independent: bool = False) -> np.ndarray:
+def draw_weights(
+    law: WeightLaw, n: int, rng: np.random.Generator, *, independent: bool = False
+) -> np.ndarray:
     """Return ``(n, categories)`` weight draws (fixed weights repeated).
 
     With ``independent`` the normal block is drawn from its marginals (for Sobol indices).
@@ -137,8 +141,7 @@ def unit_parts(net: Any, scores: list[Any]) -> tuple[np.ndarray, np.ndarray]:
 # ----------------------------------------------------------------------------- summaries
 
 
-def analytic(fixed: np.ndarray, unit: np.ndarray, law: WeightLaw) -> tuple[np.ndarray,
-                                                                             np.ndarray]:
+def analytic(fixed: np.ndarray, unit: np.ndarray, law: WeightLaw) -> tuple[np.ndarray, np.ndarray]:
     """Return the exact mean and standard deviation of each risk under normal weights.
 
     (Linear form; the zero floor of the draws and the weight ranges are left out.)
@@ -158,8 +161,8 @@ def prob_lower_pairs(risks: np.ndarray, pairs: list[tuple[int, int]]) -> np.ndar
     out = np.zeros(len(pairs))
     step = max(1, int(2e7 // max(risks.shape[0], 1)))
     for lo in range(0, len(pairs), step):
-        a, b = risks[:, i[lo:lo + step]], risks[:, j[lo:lo + step]]
-        out[lo:lo + step] = (a < b).mean(axis=0) + 0.5 * (a == b).mean(axis=0)
+        a, b = risks[:, i[lo : lo + step]], risks[:, j[lo : lo + step]]
+        out[lo : lo + step] = (a < b).mean(axis=0) + 0.5 * (a == b).mean(axis=0)
     return out
 
 
@@ -167,11 +170,12 @@ def prob_lower(risks: np.ndarray) -> np.ndarray:
     """Return P[i, j] = share of draws where route i's risk is below route j's (ties 1/2)."""
     a = risks[:, :, None]
     b = risks[:, None, :]
-    return ((a < b).mean(axis=0) + 0.5 * (a == b).mean(axis=0))
+    return (a < b).mean(axis=0) + 0.5 * (a == b).mean(axis=0)
 
 
-def sobol_indices(f_a: np.ndarray, f_b: np.ndarray, f_ab: np.ndarray
-                  ) -> tuple[np.ndarray, np.ndarray]:
+def sobol_indices(
+    f_a: np.ndarray, f_b: np.ndarray, f_ab: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
     """Return (first-order, total) Sobol indices from Saltelli's A, B, AB_i model runs.
 
     ``f_a``, ``f_b``: (N, ...) outputs on the matrices A and B; ``f_ab``: (N, d, ...) on A
@@ -189,8 +193,9 @@ def sobol_indices(f_a: np.ndarray, f_b: np.ndarray, f_ab: np.ndarray
     return s1, st
 
 
-def sensitivity(fixed: np.ndarray, unit: np.ndarray, law: WeightLaw, n: int,
-                rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray, list[int]]:
+def sensitivity(
+    fixed: np.ndarray, unit: np.ndarray, law: WeightLaw, n: int, rng: np.random.Generator
+) -> tuple[np.ndarray, np.ndarray, list[int]]:
     """Return Sobol (first, total) indices of each output column to each varying weight.
 
     ``fixed`` (m,) and ``unit`` (m, C) define ``m`` linear outputs. Returns arrays of
@@ -199,7 +204,7 @@ def sensitivity(fixed: np.ndarray, unit: np.ndarray, law: WeightLaw, n: int,
     vary = list(law.varying)
     a = draw_weights(law, n, rng, independent=True)
     b = draw_weights(law, n, rng, independent=True)
-    diff = (b[:, vary] - a[:, vary])  # (N, d)
+    diff = b[:, vary] - a[:, vary]  # (N, d)
     m = len(fixed)
     s1 = np.zeros((len(vary), m))
     st = np.zeros((len(vary), m))
@@ -214,8 +219,9 @@ def sensitivity(fixed: np.ndarray, unit: np.ndarray, law: WeightLaw, n: int,
     return s1, st, vary
 
 
-def summarise(net: Any, scores: list[Any], n: int, seed: int = DEFAULT_SEED, *,
-              same_depart_only: bool = True) -> dict[str, Any]:
+def summarise(
+    net: Any, scores: list[Any], n: int, seed: int = DEFAULT_SEED, *, same_depart_only: bool = True
+) -> dict[str, Any]:
     """Return the uncertainty of each score, the pairwise table and the sensitivity.
 
     Pairs are formed between scores at the same departure time (``same_depart_only``) or
@@ -240,24 +246,43 @@ def summarise(net: Any, scores: list[Any], n: int, seed: int = DEFAULT_SEED, *,
     names = law.names
     routes = []
     for k, s in enumerate(scores):
-        routes.append({"name": s.name, "depart": s.depart.isoformat(), "risk": r(s.risk),
-                       "median": r(med[k]), "low": r(lo[k]), "high": r(hi[k]),
-                       "first_order": {names[v]: r(s1[q, k]) for q, v in enumerate(vary)},
-                       "total": {names[v]: r(st[q, k]) for q, v in enumerate(vary)}})
+        routes.append(
+            {
+                "name": s.name,
+                "depart": s.depart.isoformat(),
+                "risk": r(s.risk),
+                "median": r(med[k]),
+                "low": r(lo[k]),
+                "high": r(hi[k]),
+                "first_order": {names[v]: r(s1[q, k]) for q, v in enumerate(vary)},
+                "total": {names[v]: r(st[q, k]) for q, v in enumerate(vary)},
+            }
+        )
     pair_recs = []
     for t, (i, j) in enumerate(pairs):
         col = len(scores) + t
-        pair_recs.append({"a": labels[i], "b": labels[j], "p_a_lower": r(p[t]),
-                          "first_order": {names[v]: r(s1[q, col]) for q, v in enumerate(vary)},
-                          "total": {names[v]: r(st[q, col]) for q, v in enumerate(vary)}})
-    return {"draws": n, "seed": seed, "level": LEVEL,
-            "weights_varied": [names[v] for v in vary],
-            "law": ("normal (profile uncertainty block, floored at 0)" if law.normal else "")
-            + (" and " if law.normal and law.ranges else "")
-            + ("ranges (uniform or log-uniform)" if law.ranges else ""),
-            "sensitivity": "Sobol first-order and total indices, weights independent",
-            "sensitivity_draws": n_sobol,
-            "routes": routes, "pairs": pair_recs}
+        pair_recs.append(
+            {
+                "a": labels[i],
+                "b": labels[j],
+                "p_a_lower": r(p[t]),
+                "first_order": {names[v]: r(s1[q, col]) for q, v in enumerate(vary)},
+                "total": {names[v]: r(st[q, col]) for q, v in enumerate(vary)},
+            }
+        )
+    return {
+        "draws": n,
+        "seed": seed,
+        "level": LEVEL,
+        "weights_varied": [names[v] for v in vary],
+        "law": ("normal (profile uncertainty block, floored at 0)" if law.normal else "")
+        + (" and " if law.normal and law.ranges else "")
+        + ("ranges (uniform or log-uniform)" if law.ranges else ""),
+        "sensitivity": "Sobol first-order and total indices, weights independent",
+        "sensitivity_draws": n_sobol,
+        "routes": routes,
+        "pairs": pair_recs,
+    }
 
 
 #: Up to this many scores (per departure time) every pair is compared; beyond it, each score
@@ -283,36 +308,51 @@ def compared_pairs(scores: list[Any], *, same_depart_only: bool) -> list[tuple[i
 def check_draws(n: int) -> None:
     """Refuse a number of draws below 1 (or absurdly many)."""
     if not isinstance(n, int) or n < 1:
-        raise OptionError(f"must be a whole number of draws of at least 1, got {n}",
-                          field="--uncertainty")
+        raise OptionError(
+            f"must be a whole number of draws of at least 1, got {n}", field="--uncertainty"
+        )
     if n > 10_000_000:
-        raise OptionError(f"{n} draws are too many (at most 10,000,000)",
-                          field="--uncertainty")
+        raise OptionError(f"{n} draws are too many (at most 10,000,000)", field="--uncertainty")
 
 
 def text_lines(summary: dict[str, Any]) -> list[str]:
     """Return the printed form of :func:`summarise`."""
     pct = int(round(summary["level"] * 100))
-    lines = [f"uncertainty: {summary['draws']} draws (seed {summary['seed']}) of "
-             f"{', '.join(summary['weights_varied'])}; {summary['law']}"]
+    lines = [
+        f"uncertainty: {summary['draws']} draws (seed {summary['seed']}) of "
+        f"{', '.join(summary['weights_varied'])}; {summary['law']}"
+    ]
     for rt in summary["routes"]:
-        top = [kv for kv in sorted(rt["total"].items(), key=lambda kv: (-kv[1], kv[0]))
-               if kv[1] > 0.005][:2]
-        lines.append(f"  {rt['name']} @ {rt['depart'][:16]}: risk {rt['risk']:.3f}, median "
-                     f"{rt['median']:.3f}, {pct} % interval {rt['low']:.3f} - {rt['high']:.3f}"
-                     + ("; rests most on " + ", ".join(f"{k} (total {v:.2f})" for k, v in top)
-                        if top else "; no varied weight moves it"))
+        top = [
+            kv
+            for kv in sorted(rt["total"].items(), key=lambda kv: (-kv[1], kv[0]))
+            if kv[1] > 0.005
+        ][:2]
+        lines.append(
+            f"  {rt['name']} @ {rt['depart'][:16]}: risk {rt['risk']:.3f}, median "
+            f"{rt['median']:.3f}, {pct} % interval {rt['low']:.3f} - {rt['high']:.3f}"
+            + (
+                "; rests most on " + ", ".join(f"{k} (total {v:.2f})" for k, v in top)
+                if top
+                else "; no varied weight moves it"
+            )
+        )
     for pr in summary["pairs"]:
-        top = [kv for kv in sorted(pr["total"].items(), key=lambda kv: (-kv[1], kv[0]))
-               if kv[1] > 0.005][:1]
-        lines.append(f"  P({pr['a']} lower than {pr['b']}) = {pr['p_a_lower']:.3f}"
-                     + (f"; the difference rests most on {top[0][0]} (total {top[0][1]:.2f})"
-                        if top else ""))
+        top = [
+            kv
+            for kv in sorted(pr["total"].items(), key=lambda kv: (-kv[1], kv[0]))
+            if kv[1] > 0.005
+        ][:1]
+        lines.append(
+            f"  P({pr['a']} lower than {pr['b']}) = {pr['p_a_lower']:.3f}"
+            + (f"; the difference rests most on {top[0][0]} (total {top[0][1]:.2f})" if top else "")
+        )
     return lines
 
 
-def versus_plan(net: Any, suggestions: list[Any], n: int, seed: int = DEFAULT_SEED
-                ) -> dict[str, Any]:
+def versus_plan(
+    net: Any, suggestions: list[Any], n: int, seed: int = DEFAULT_SEED
+) -> dict[str, Any]:
     """Return, per suggestion, the plan's and each alternative's interval and P(lower than plan).
 
     One set of weight draws serves every route, so the probabilities compare like with like.
@@ -340,13 +380,29 @@ def versus_plan(net: Any, suggestions: list[Any], n: int, seed: int = DEFAULT_SE
         alts = []
         for i, (kk, j) in enumerate(owner):
             if kk == k and j is not None:
-                alts.append({"label": s.alternatives[j].label, "median": r(med[i]),
-                             "low": r(lo[i]), "high": r(hi[i]),
-                             "p_lower_than_plan": r(p[(i, i0)])})
-        out.append({"name": s.name, "plan": {"median": r(med[i0]), "low": r(lo[i0]),
-                                             "high": r(hi[i0])}, "alternatives": alts})
-    return {"draws": n, "seed": seed, "level": LEVEL,
-            "weights_varied": [law.names[v] for v in law.varying], "routes": out}
+                alts.append(
+                    {
+                        "label": s.alternatives[j].label,
+                        "median": r(med[i]),
+                        "low": r(lo[i]),
+                        "high": r(hi[i]),
+                        "p_lower_than_plan": r(p[(i, i0)]),
+                    }
+                )
+        out.append(
+            {
+                "name": s.name,
+                "plan": {"median": r(med[i0]), "low": r(lo[i0]), "high": r(hi[i0])},
+                "alternatives": alts,
+            }
+        )
+    return {
+        "draws": n,
+        "seed": seed,
+        "level": LEVEL,
+        "weights_varied": [law.names[v] for v in law.varying],
+        "routes": out,
+    }
 
 
 def area_bands(review_result: Any, n: int, seed: int = DEFAULT_SEED) -> dict[str, Any]:
@@ -370,22 +426,34 @@ def area_bands(review_result: Any, n: int, seed: int = DEFAULT_SEED) -> dict[str
         km = clip["clip_m"].to_numpy(dtype=float) / 1000.0
         length_km = clip["length"].to_numpy(dtype=float) / 1000.0
         with np.errstate(divide="ignore", invalid="ignore"):
-            cross = np.where(length_km > 0, prof.crossing_weight
-                             * clip["crossings"].to_numpy(dtype=float) / length_km, 0.0)
+            cross = np.where(
+                length_km > 0,
+                prof.crossing_weight * clip["crossings"].to_numpy(dtype=float) / length_km,
+                0.0,
+            )
         fixed = clip["baseline"].to_numpy(dtype=float) + cross
-        exp = np.column_stack([clip[f"exp_{c}"].to_numpy(dtype=float)
-                               for c in prof.category_names])
+        exp = np.column_stack([clip[f"exp_{c}"].to_numpy(dtype=float) for c in prof.category_names])
         by_band = np.zeros((n, len(lowers)))
         step = max(1, int(2e7 // max(len(km), 1)))
         for lo in range(0, n, step):
-            per_km = fixed[None, :] + w[lo:lo + step] @ exp.T  # (draws, edges)
-            idx = np.clip(np.searchsorted(lowers, per_km, side="right") - 1, 0,
-                          len(lowers) - 1)
+            per_km = fixed[None, :] + w[lo : lo + step] @ exp.T  # (draws, edges)
+            idx = np.clip(np.searchsorted(lowers, per_km, side="right") - 1, 0, len(lowers) - 1)
             for b in range(len(lowers)):
-                by_band[lo:lo + step, b] = (idx == b) @ km
+                by_band[lo : lo + step, b] = (idx == b) @ km
         q = np.quantile(by_band, [(1 - LEVEL) / 2, 0.5, (1 + LEVEL) / 2], axis=0)
-        out.append({"name": area["name"], "km_by_band": {
-            band.name: {"median": r(q[1, b]), "low": r(q[0, b]), "high": r(q[2, b])}
-            for b, band in enumerate(prof.bands)}})
-    return {"draws": n, "seed": seed, "level": LEVEL,
-            "weights_varied": [law.names[v] for v in law.varying], "areas": out}
+        out.append(
+            {
+                "name": area["name"],
+                "km_by_band": {
+                    band.name: {"median": r(q[1, b]), "low": r(q[0, b]), "high": r(q[2, b])}
+                    for b, band in enumerate(prof.bands)
+                },
+            }
+        )
+    return {
+        "draws": n,
+        "seed": seed,
+        "level": LEVEL,
+        "weights_varied": [law.names[v] for v in law.varying],
+        "areas": out,
+    }

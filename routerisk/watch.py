@@ -112,8 +112,11 @@ class WatchResult:
         other = "distance" if self.expected == "modelled" else "modelled"
         return [
             f"unit of discovery: {self.unit}"
-            + (" (both directions and the run between intersections merged)"
-               if self.unit == "block" else " (each direction on its own)"),
+            + (
+                " (both directions and the run between intersections merged)"
+                if self.unit == "block"
+                else " (each direction on its own)"
+            ),
             f"expected counts: {self.expected} (also computed: {other}; column disagree)",
             f"test: {self.test_used} p-values (asked: {self.test}); over-dispersion: Pearson "
             f"chi-square/df {d.pearson_ratio:.3g} (p {d.pearson_p:.3g}), negative binomial "
@@ -132,44 +135,87 @@ class WatchResult:
         segs = []
         for r in self.segments.itertuples(index=False):
             part = mem[mem["unit"] == r.unit] if len(mem) else mem
-            segs.append({
-                "unit": str(r.unit), "street": str(r.street), "band": str(r.band),
-                "events": int(r.events), "events_forward": int(r.events_forward),
-                "events_backward": int(r.events_backward),
-                "km_driven": round(float(r.km), 6), "km_forward": round(float(r.km_forward), 6),
-                "km_backward": round(float(r.km_backward), 6),
-                "expected": round(float(r.expected), 6), "eb_rate": round(float(r.eb_rate), 6),
-                "p_value": float(f"{r.p_value:.6g}"), "q_value": float(f"{r.q_value:.6g}"),
-                "flagged": bool(r.flagged),
-                "expected_modelled": round(float(r.expected_modelled), 6),
-                "expected_distance": round(float(r.expected_distance), 6),
-                "flagged_modelled": bool(r.flagged_modelled),
-                "flagged_distance": bool(r.flagged_distance), "disagree": bool(r.disagree),
-                "edges": [{"edge": [int(m.u), int(m.v), int(m.key)],
-                           "direction": "forward" if m.forward else "backward",
-                           "events": int(m.events), "km_driven": round(float(m.km), 6)}
-                          for m in part.itertuples(index=False) if m.km > 0],
-            })
-        alerts = [{"group": str(r.group), "since": str(r.period),
-                   "statistic": round(float(r.statistic), 6), "h": float(r.h)}
-                  for r in self.alerts.itertuples(index=False)]
-        rej = [{"row": int(r.row), "reason": str(r.reason)}
-               for r in self.rejected.itertuples(index=False)]
-        charts = [{k: (round(float(v), 6) if isinstance(v, float) else
-                       (int(v) if isinstance(v, np.integer) else str(v)))
-                   for k, v in r._asdict().items()} for r in self.designs.itertuples(index=False)]
+            segs.append(
+                {
+                    "unit": str(r.unit),
+                    "street": str(r.street),
+                    "band": str(r.band),
+                    "events": int(r.events),
+                    "events_forward": int(r.events_forward),
+                    "events_backward": int(r.events_backward),
+                    "km_driven": round(float(r.km), 6),
+                    "km_forward": round(float(r.km_forward), 6),
+                    "km_backward": round(float(r.km_backward), 6),
+                    "expected": round(float(r.expected), 6),
+                    "eb_rate": round(float(r.eb_rate), 6),
+                    "p_value": float(f"{r.p_value:.6g}"),
+                    "q_value": float(f"{r.q_value:.6g}"),
+                    "flagged": bool(r.flagged),
+                    "expected_modelled": round(float(r.expected_modelled), 6),
+                    "expected_distance": round(float(r.expected_distance), 6),
+                    "flagged_modelled": bool(r.flagged_modelled),
+                    "flagged_distance": bool(r.flagged_distance),
+                    "disagree": bool(r.disagree),
+                    "edges": [
+                        {
+                            "edge": [int(m.u), int(m.v), int(m.key)],
+                            "direction": "forward" if m.forward else "backward",
+                            "events": int(m.events),
+                            "km_driven": round(float(m.km), 6),
+                        }
+                        for m in part.itertuples(index=False)
+                        if m.km > 0
+                    ],
+                }
+            )
+        alerts = [
+            {
+                "group": str(r.group),
+                "since": str(r.period),
+                "statistic": round(float(r.statistic), 6),
+                "h": float(r.h),
+            }
+            for r in self.alerts.itertuples(index=False)
+        ]
+        rej = [
+            {"row": int(r.row), "reason": str(r.reason)}
+            for r in self.rejected.itertuples(index=False)
+        ]
+        charts = [
+            {
+                k: (
+                    round(float(v), 6)
+                    if isinstance(v, float)
+                    else (int(v) if isinstance(v, np.integer) else str(v))
+                )
+                for k, v in r._asdict().items()
+            }
+            for r in self.designs.itertuples(index=False)
+        ]
         return {
-            "segments": segs, "alerts": alerts, "fdr": self.q, "unit": self.unit,
-            "expected": self.expected, "group": self.group,
-            "test": {"asked": self.test, "used": self.test_used,
-                     "dispersion": self.dispersion[self.expected].as_dict()},
-            "comparison": {k: {"test_used": self.used[k],
-                               "dispersion": self.dispersion[k].as_dict(),
-                               "flagged": int(self.segments[f"flagged_{k}"].sum())}
-                           for k in EXPECTED},
+            "segments": segs,
+            "alerts": alerts,
+            "fdr": self.q,
+            "unit": self.unit,
+            "expected": self.expected,
+            "group": self.group,
+            "test": {
+                "asked": self.test,
+                "used": self.test_used,
+                "dispersion": self.dispersion[self.expected].as_dict(),
+            },
+            "comparison": {
+                k: {
+                    "test_used": self.used[k],
+                    "dispersion": self.dispersion[k].as_dict(),
+                    "flagged": int(self.segments[f"flagged_{k}"].sum()),
+                }
+                for k in EXPECTED
+            },
             "baseline": self.baseline,
             "cusum": {"charts": charts, "family": self.family},
-            "events_matched": int(len(self.matched)), "events_rejected": rej,
+            "events_matched": int(len(self.matched)),
+            "events_rejected": rej,
             "limits": LIMITS,
         }
 
@@ -180,8 +226,7 @@ def _fmt(x: Any) -> str:
     return f"{x:.3g}" if isinstance(x, float) else str(x)
 
 
-def _visit_times(m: Any, km_full: np.ndarray, times: np.ndarray) -> tuple[np.ndarray,
-                                                                          np.ndarray]:
+def _visit_times(m: Any, km_full: np.ndarray, times: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Return when each matched edge visit was entered and left (int64 ns UTC).
 
     Each kept fix is placed along the drive (km from the start, from its edge and its share
@@ -215,15 +260,15 @@ def drive_files(folder: str | Path) -> list[Path]:
         raise InputFileError("drives folder not found", path=d, field="--drives")
     files = sorted(p for p in d.iterdir() if p.suffix.lower() in (".gpx", ".geojson", ".csv"))
     if not files:
-        raise InputFileError("no .gpx, .geojson or .csv drives in the folder", path=d,
-                             field="--drives")
+        raise InputFileError(
+            "no .gpx, .geojson or .csv drives in the folder", path=d, field="--drives"
+        )
     return files
 
 
 def read_drives(net: Any, folder: str | Path, index: Any = None) -> list[Drive]:
     """Read and map-match every drive with times in ``folder``."""
-    found = [r for f in drive_files(folder)
-             for r in routes.read_routes(f, default_tz=net.timezone)]
+    found = [r for f in drive_files(folder) for r in routes.read_routes(f, default_tz=net.timezone)]
     return match_drives(net, found, index)
 
 
@@ -235,8 +280,11 @@ def match_drives(net: Any, drives: list[Any], index: Any = None) -> list[Drive]:
     out = []
     for r in drives:
         if r.times is None:
-            raise InputFileError("a drive needs a time at every point", path=r.source or None,
-                                 field=f"route {r.name!r}")
+            raise InputFileError(
+                "a drive needs a time at every point",
+                path=r.source or None,
+                field=f"route {r.name!r}",
+            )
         m = matching.match_trace(idx, r)
         mi = pd.MultiIndex.from_tuples(list(m.edges), names=eidx.names)
         pos = eidx.get_indexer(mi)
@@ -244,20 +292,36 @@ def match_drives(net: Any, drives: list[Any], index: Any = None) -> list[Drive]:
         fix_edge = np.where(fe >= 0, pos[np.clip(fe, 0, len(pos) - 1)], -1)
         times = pd.DatetimeIndex(list(r.times)).tz_convert("UTC").as_unit("ns").asi8
         t0, t1 = _visit_times(m, km[pos], times)
-        out.append(Drive(f"{Path(r.source).name}:{r.name}", times, fix_edge, pos,
-                         km[pos] * np.asarray(m.fractions), t0, t1))
+        out.append(
+            Drive(
+                f"{Path(r.source).name}:{r.name}",
+                times,
+                fix_edge,
+                pos,
+                km[pos] * np.asarray(m.fractions),
+                t0,
+                t1,
+            )
+        )
     return out
 
 
-def match_events(net: Any, events: pd.DataFrame, drives: list[Drive], *,
-                 max_time_gap_s: float = MAX_TIME_GAP_S,
-                 max_offset_m: float = MAX_OFFSET_M) -> tuple[pd.DataFrame, pd.DataFrame]:
+def match_events(
+    net: Any,
+    events: pd.DataFrame,
+    drives: list[Drive],
+    *,
+    max_time_gap_s: float = MAX_TIME_GAP_S,
+    max_offset_m: float = MAX_OFFSET_M,
+) -> tuple[pd.DataFrame, pd.DataFrame]:
     """Place each event on the edge its vehicle was driving; return (matched, rejected)."""
     to_xy = pyproj.Transformer.from_crs("EPSG:4326", net.crs, always_xy=True)
     geoms = net.edges.geometry.to_numpy()
-    t_ev = pd.DatetimeIndex(events["time"]).tz_convert("UTC").as_unit("ns").asi8 if len(
-        events) else \
-        np.zeros(0, dtype=np.int64)
+    t_ev = (
+        pd.DatetimeIndex(events["time"]).tz_convert("UTC").as_unit("ns").asi8
+        if len(events)
+        else np.zeros(0, dtype=np.int64)
+    )
     x, y = to_xy.transform(events["lon"].to_numpy(), events["lat"].to_numpy())
     pts = shapely.points(x, y)
     gap = int(max_time_gap_s * 1e9)
@@ -287,15 +351,24 @@ def match_events(net: Any, events: pd.DataFrame, drives: list[Drive], *,
         _, d, pos = best
         off = float(shapely.distance(pts[i], geoms[pos]))
         if off > max_offset_m:
-            rejected.append({"row": row, "reason": f"{off:.0f} m off the route driven then "
-                                                   f"({d.name})"})
+            rejected.append(
+                {"row": row, "reason": f"{off:.0f} m off the route driven then ({d.name})"}
+            )
             continue
-        rows.append({"row": row, "drive": d.name, "pos": pos, "offset_m": off,
-                     "time": events["time"].iat[i], "type": events["type"].iat[i]})
-    return (pd.DataFrame(rows, columns=["row", "drive", "pos", "offset_m", "time", "type"]),
-            pd.DataFrame(rejected, columns=["row", "reason"]))
-
-
+        rows.append(
+            {
+                "row": row,
+                "drive": d.name,
+                "pos": pos,
+                "offset_m": off,
+                "time": events["time"].iat[i],
+                "type": events["type"].iat[i],
+            }
+        )
+    return (
+        pd.DataFrame(rows, columns=["row", "drive", "pos", "offset_m", "time", "type"]),
+        pd.DataFrame(rejected, columns=["row", "reason"]),
+    )
 
 
 def _wall_ns(t_ns: np.ndarray, tz: Any) -> np.ndarray:
@@ -306,8 +379,9 @@ def _wall_ns(t_ns: np.ndarray, tz: Any) -> np.ndarray:
     return np.asarray(idx.tz_localize(None).as_unit("ns").asi8, dtype=np.int64)
 
 
-def split_by_hour(t0: np.ndarray, t1: np.ndarray, km: np.ndarray, tz: Any
-                  ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def split_by_hour(
+    t0: np.ndarray, t1: np.ndarray, km: np.ndarray, tz: Any
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Split each visit's km over the local clock hours it spans, evenly in time.
 
     Returns ``(visit, hour_bin, km)`` pieces; ``hour_bin`` counts local hours since
@@ -327,8 +401,11 @@ def split_by_hour(t0: np.ndarray, t1: np.ndarray, km: np.ndarray, tz: Any
             vis.append(np.array([i]))
             bins.append(np.array([b], dtype=np.int64))
             parts.append(np.array([km[i] * (hi - lo) / dur]))
-    return (np.concatenate(vis).astype(np.int64), np.concatenate(bins).astype(np.int64),
-            np.concatenate(parts).astype(float))
+    return (
+        np.concatenate(vis).astype(np.int64),
+        np.concatenate(bins).astype(np.int64),
+        np.concatenate(parts).astype(float),
+    )
 
 
 def _day_iso(hour_bin: np.ndarray) -> np.ndarray:
@@ -339,8 +416,9 @@ def _day_iso(hour_bin: np.ndarray) -> np.ndarray:
 def _hour_of_week(hour_bin: np.ndarray) -> np.ndarray:
     hb = np.asarray(hour_bin, dtype=np.int64)
     wd = (hb // 24 + 3) % 7  # 1970-01-01 was a Thursday (monday = 0)
-    return np.array([f"{DAY_NAMES[d]} {h:02d}" for d, h in zip(wd, hb % 24, strict=True)],
-                    dtype=object)
+    return np.array(
+        [f"{DAY_NAMES[d]} {h:02d}" for d, h in zip(wd, hb % 24, strict=True)], dtype=object
+    )
 
 
 def discovery_units(edges: pd.DataFrame, unit: str) -> pd.DataFrame:
@@ -434,11 +512,24 @@ def _walk_block(links: list[tuple[int, int]]) -> tuple[dict[int, int], int, int]
     return pos, start, tips[-1] if len(tips) > 1 else cur
 
 
-def _check_options(q: float, shift: float, arl0: float, arl0_family: float | None,
-                   group: str, unit: str, test: str, expected: str,
-                   baseline_until: Any, baseline_rate: float | None) -> None:
-    for name, val, choices in (("--group", group, GROUPS), ("--unit", unit, UNITS),
-                               ("--test", test, TESTS), ("--expected", expected, EXPECTED)):
+def _check_options(
+    q: float,
+    shift: float,
+    arl0: float,
+    arl0_family: float | None,
+    group: str,
+    unit: str,
+    test: str,
+    expected: str,
+    baseline_until: Any,
+    baseline_rate: float | None,
+) -> None:
+    for name, val, choices in (
+        ("--group", group, GROUPS),
+        ("--unit", unit, UNITS),
+        ("--test", test, TESTS),
+        ("--expected", expected, EXPECTED),
+    ):
         if val not in choices:
             raise OptionError(f"must be one of {', '.join(choices)}", field=name)
     if not 0 < q < 1:
@@ -450,11 +541,11 @@ def _check_options(q: float, shift: float, arl0: float, arl0_family: float | Non
     if arl0_family is not None and not (math.isfinite(arl0_family) and arl0_family > 1):
         raise OptionError(f"must be above 1, got {arl0_family}", field="--arl0-family")
     if baseline_rate is not None and not (math.isfinite(baseline_rate) and baseline_rate > 0):
-        raise OptionError(f"must be a positive rate, got {baseline_rate}",
-                          field="--baseline-rate")
+        raise OptionError(f"must be a positive rate, got {baseline_rate}", field="--baseline-rate")
     if baseline_rate is not None and baseline_until is not None:
-        raise OptionError("give either --baseline-until or --baseline-rate, not both",
-                          field="--baseline-rate")
+        raise OptionError(
+            "give either --baseline-until or --baseline-rate, not both", field="--baseline-rate"
+        )
 
 
 def _until(value: Any) -> str | None:
@@ -467,42 +558,84 @@ def _until(value: Any) -> str | None:
     try:
         return dt.date.fromisoformat(str(value).strip()).isoformat()
     except ValueError as exc:
-        raise OptionError(f"not a date (YYYY-MM-DD): {value!r}",
-                          field="--baseline-until") from exc
+        raise OptionError(f"not a date (YYYY-MM-DD): {value!r}", field="--baseline-until") from exc
 
 
-def watch(net: Any, events_path: str | Path, drives_folder: str | Path, *, q: float = 0.1,
-          shift: float = 2.0, arl0: float = 500.0, arl0_family: float | None = None,
-          group: str = "street", unit: str = "block", test: str = "auto",
-          expected: str = "modelled", baseline_until: Any = None,
-          baseline_rate: float | None = None, alpha: float = 0.05) -> WatchResult:
+def watch(
+    net: Any,
+    events_path: str | Path,
+    drives_folder: str | Path,
+    *,
+    q: float = 0.1,
+    shift: float = 2.0,
+    arl0: float = 500.0,
+    arl0_family: float | None = None,
+    group: str = "street",
+    unit: str = "block",
+    test: str = "auto",
+    expected: str = "modelled",
+    baseline_until: Any = None,
+    baseline_rate: float | None = None,
+    alpha: float = 0.05,
+) -> WatchResult:
     """Run the early-warning analysis on an event log and a drives folder.
 
     Reads the files and calls :func:`watch_matched` (see there for the settings).
     """
-    opts = dict(q=q, shift=shift, arl0=arl0, arl0_family=arl0_family, group=group, unit=unit,
-                test=test, expected=expected, baseline_until=baseline_until,
-                baseline_rate=baseline_rate)
+    opts = dict(
+        q=q,
+        shift=shift,
+        arl0=arl0,
+        arl0_family=arl0_family,
+        group=group,
+        unit=unit,
+        test=test,
+        expected=expected,
+        baseline_until=baseline_until,
+        baseline_rate=baseline_rate,
+    )
     check_settings(**opts)
     good, bad = early_warning.read_events(events_path, tz=net.timezone)
     return watch_matched(net, good, bad, read_drives(net, drives_folder), alpha=alpha, **opts)
 
 
-def check_settings(*, q: float = 0.1, shift: float = 2.0, arl0: float = 500.0,
-                   arl0_family: float | None = None, group: str = "street",
-                   unit: str = "block", test: str = "auto", expected: str = "modelled",
-                   baseline_until: Any = None, baseline_rate: float | None = None) -> None:
+def check_settings(
+    *,
+    q: float = 0.1,
+    shift: float = 2.0,
+    arl0: float = 500.0,
+    arl0_family: float | None = None,
+    group: str = "street",
+    unit: str = "block",
+    test: str = "auto",
+    expected: str = "modelled",
+    baseline_until: Any = None,
+    baseline_rate: float | None = None,
+) -> None:
     """Raise OptionError for a setting of :func:`watch` out of range."""
-    _check_options(q, shift, arl0, arl0_family, group, unit, test, expected, baseline_until,
-                   baseline_rate)
+    _check_options(
+        q, shift, arl0, arl0_family, group, unit, test, expected, baseline_until, baseline_rate
+    )
 
 
-def watch_matched(net: Any, good: pd.DataFrame, bad: pd.DataFrame, drives: list[Drive], *,
-                  q: float = 0.1, shift: float = 2.0, arl0: float = 500.0,
-                  arl0_family: float | None = None, group: str = "street",
-                  unit: str = "block", test: str = "auto", expected: str = "modelled",
-                  baseline_until: Any = None, baseline_rate: float | None = None,
-                  alpha: float = 0.05) -> WatchResult:
+def watch_matched(
+    net: Any,
+    good: pd.DataFrame,
+    bad: pd.DataFrame,
+    drives: list[Drive],
+    *,
+    q: float = 0.1,
+    shift: float = 2.0,
+    arl0: float = 500.0,
+    arl0_family: float | None = None,
+    group: str = "street",
+    unit: str = "block",
+    test: str = "auto",
+    expected: str = "modelled",
+    baseline_until: Any = None,
+    baseline_rate: float | None = None,
+    alpha: float = 0.05,
+) -> WatchResult:
     """Run the early-warning analysis on read events (good, rejected) and matched drives.
 
     ``baseline_until`` (a date, local) takes the CUSUM in-control rate from the days up to and
@@ -510,19 +643,29 @@ def watch_matched(net: Any, good: pd.DataFrame, bad: pd.DataFrame, drives: list[
     per km, weighted by the relative exposure when ``expected="modelled"``). ``alpha`` is the
     level of the over-dispersion test that ``test="auto"`` follows.
     """
-    _check_options(q, shift, arl0, arl0_family, group, unit, test, expected, baseline_until,
-                   baseline_rate)
+    _check_options(
+        q, shift, arl0, arl0_family, group, unit, test, expected, baseline_until, baseline_rate
+    )
     until = _until(baseline_until)
-    rejected = bad[["row", "reason"]].copy() if len(bad) else pd.DataFrame(
-        columns=["row", "reason"])
+    rejected = (
+        bad[["row", "reason"]].copy() if len(bad) else pd.DataFrame(columns=["row", "reason"])
+    )
     if len(good):  # times beyond the nanosecond calendar cannot be placed on any drive
         years = pd.DatetimeIndex(good["time"]).year
         odd = np.asarray((years < YEARS[0]) | (years > YEARS[1]))
         if odd.any():
-            rejected = pd.concat([rejected, pd.DataFrame({
-                "row": good["row"].to_numpy()[odd],
-                "reason": f"time outside the years {YEARS[0]}-{YEARS[1]}"})],
-                ignore_index=True)
+            rejected = pd.concat(
+                [
+                    rejected,
+                    pd.DataFrame(
+                        {
+                            "row": good["row"].to_numpy()[odd],
+                            "reason": f"time outside the years {YEARS[0]}-{YEARS[1]}",
+                        }
+                    ),
+                ],
+                ignore_index=True,
+            )
             good = good.loc[~odd].reset_index(drop=True)
     matched, off = match_events(net, good, drives)
     rejected = pd.concat([rejected, off], ignore_index=True).sort_values("row", kind="stable")
@@ -536,8 +679,10 @@ def watch_matched(net: Any, good: pd.DataFrame, bad: pd.DataFrame, drives: list[
     driven = km > 0
     expo = edges["exposure_km"].to_numpy(dtype=float)
     mean = float((expo * km)[driven].sum() / km[driven].sum()) if driven.any() else 0.0
-    weights = {"modelled": np.maximum(expo / mean if mean > 0 else np.ones(n), 1e-6),
-               "distance": np.ones(n)}
+    weights = {
+        "modelled": np.maximum(expo / mean if mean > 0 else np.ones(n), 1e-6),
+        "distance": np.ones(n),
+    }
     mem = discovery_units(edges, unit)
     mem["events"], mem["km"] = counts, km
     mem["band"] = edges["band"].astype(str).to_numpy()
@@ -547,35 +692,71 @@ def watch_matched(net: Any, good: pd.DataFrame, bad: pd.DataFrame, drives: list[
     table = _unit_table(mem)
     used, disp, parts = {}, {}, {}
     for kind in EXPECTED:
-        tab = pd.DataFrame({"unit": table["unit"], "events": table["events"],
-                            "km": table["km"], "weight": table[f"wkm_{kind}"] / table["km"]})
-        disp[kind] = early_warning.dispersion_test(tab["events"], table[f"wkm_{kind}"],
-                                                   alpha=alpha)
+        tab = pd.DataFrame(
+            {
+                "unit": table["unit"],
+                "events": table["events"],
+                "km": table["km"],
+                "weight": table[f"wkm_{kind}"] / table["km"],
+            }
+        )
+        disp[kind] = early_warning.dispersion_test(tab["events"], table[f"wkm_{kind}"], alpha=alpha)
         nb = test == "negbin" or (test == "auto" and disp[kind].significant)
         used[kind] = "negbin" if nb else "poisson"
         parts[kind], _ = early_warning.unit_rates(
-            tab, weight="weight", q=q, method="likelihood" if nb else "moments",
-            pvalue="prior_loo" if nb else "poisson")
+            tab,
+            weight="weight",
+            q=q,
+            method="likelihood" if nb else "moments",
+            pvalue="prior_loo" if nb else "poisson",
+        )
     rates = parts[expected].copy()
-    for col in ("street", "band", "u", "v", "key", "events_forward", "events_backward",
-                "km_forward", "km_backward"):
+    for col in (
+        "street",
+        "band",
+        "u",
+        "v",
+        "key",
+        "events_forward",
+        "events_backward",
+        "km_forward",
+        "km_backward",
+    ):
         rates[col] = table[col].to_numpy()
     for kind in EXPECTED:
         for col in ("expected", "p_value", "flagged"):
             rates[f"{col}_{kind}"] = parts[kind][col].to_numpy()
     rates["disagree"] = rates["flagged_modelled"] != rates["flagged_distance"]
-    rates = rates.sort_values(["flagged", "p_value", "unit"], ascending=[False, True, True],
-                              kind="stable").reset_index(drop=True)
+    rates = rates.sort_values(
+        ["flagged", "p_value", "unit"], ascending=[False, True, True], kind="stable"
+    ).reset_index(drop=True)
     periods = _periods(net, drives, matched, mem, weights[expected], group)
     monitored, rate_of, baseline = _baseline(periods, until, baseline_rate, expected)
     monitored = monitored.assign(expected=monitored["wkm"] * monitored["group"].map(rate_of))
-    designs, alerts, family = _charts(monitored, shift=shift, arl0=arl0,
-                                      arl0_family=arl0_family, rate_of=rate_of)
+    designs, alerts, family = _charts(
+        monitored, shift=shift, arl0=arl0, arl0_family=arl0_family, rate_of=rate_of
+    )
     mem_out = mem[mem["unit"].isin(set(rates["unit"]))][
-        ["unit", "u", "v", "key", "street", "forward", "events", "km"]].reset_index(drop=True)
-    return WatchResult(rates, alerts, matched, rejected.reset_index(drop=True), q, designs,
-                       group, monitored, unit=unit, test=test, expected=expected, used=used,
-                       dispersion=disp, baseline=baseline, family=family, members=mem_out)
+        ["unit", "u", "v", "key", "street", "forward", "events", "km"]
+    ].reset_index(drop=True)
+    return WatchResult(
+        rates,
+        alerts,
+        matched,
+        rejected.reset_index(drop=True),
+        q,
+        designs,
+        group,
+        monitored,
+        unit=unit,
+        test=test,
+        expected=expected,
+        used=used,
+        dispersion=disp,
+        baseline=baseline,
+        family=family,
+        members=mem_out,
+    )
 
 
 def _unit_table(mem: pd.DataFrame) -> pd.DataFrame:
@@ -587,16 +768,35 @@ def _unit_table(mem: pd.DataFrame) -> pd.DataFrame:
     d["km_forward"] = np.where(fw, d["km"], 0.0)
     d["km_backward"] = np.where(fw, 0.0, d["km"])
     g = d.groupby("unit", sort=True)
-    sums = g[["events", "km", "events_forward", "events_backward", "km_forward",
-              "km_backward", "wkm_modelled", "wkm_distance"]].sum()
-    main = d.sort_values(["unit", "km"], ascending=[True, False], kind="stable").groupby(
-        "unit", sort=True).first()  # band and street of the member driven most
+    sums = g[
+        [
+            "events",
+            "km",
+            "events_forward",
+            "events_backward",
+            "km_forward",
+            "km_backward",
+            "wkm_modelled",
+            "wkm_distance",
+        ]
+    ].sum()
+    main = (
+        d.sort_values(["unit", "km"], ascending=[True, False], kind="stable")
+        .groupby("unit", sort=True)
+        .first()
+    )  # band and street of the member driven most
     out = sums.join(main[["street", "band", "end_u", "end_v", "end_key"]]).reset_index()
     return out.rename(columns={"end_u": "u", "end_v": "v", "end_key": "key"})
 
 
-def _periods(net: Any, drives: list[Drive], matched: pd.DataFrame, mem: pd.DataFrame,
-             weight: np.ndarray, group: str) -> pd.DataFrame:
+def _periods(
+    net: Any,
+    drives: list[Drive],
+    matched: pd.DataFrame,
+    mem: pd.DataFrame,
+    weight: np.ndarray,
+    group: str,
+) -> pd.DataFrame:
     """Return events, km and weighted km per group and local day (km split by clock hour)."""
     streets = mem["street"].replace("", "unnamed street").to_numpy()
     bands = mem["band"].to_numpy()
@@ -606,13 +806,23 @@ def _periods(net: Any, drives: list[Drive], matched: pd.DataFrame, mem: pd.DataF
             continue
         vis, hb, part = split_by_hour(d.edge_t0, d.edge_t1, d.edge_km, net.timezone)
         pos = d.edge_pos[vis]
-        rows.append(pd.DataFrame({"pos": pos, "hb": hb, "events": 0, "km": part,
-                                  "wkm": part * weight[pos]}))
+        rows.append(
+            pd.DataFrame({"pos": pos, "hb": hb, "events": 0, "km": part, "wkm": part * weight[pos]})
+        )
     if len(matched):
         t = pd.DatetimeIndex(matched["time"]).tz_convert("UTC").as_unit("ns").asi8
         hb = _wall_ns(t, net.timezone) // HOUR_NS
-        rows.append(pd.DataFrame({"pos": matched["pos"].to_numpy(dtype=np.int64), "hb": hb,
-                                  "events": 1, "km": 0.0, "wkm": 0.0}))
+        rows.append(
+            pd.DataFrame(
+                {
+                    "pos": matched["pos"].to_numpy(dtype=np.int64),
+                    "hb": hb,
+                    "events": 1,
+                    "km": 0.0,
+                    "wkm": 0.0,
+                }
+            )
+        )
     cols = ["group", "period", "events", "km", "wkm"]
     if not rows:
         return pd.DataFrame(columns=cols)
@@ -624,12 +834,14 @@ def _periods(net: Any, drives: list[Drive], matched: pd.DataFrame, mem: pd.DataF
     else:
         g = _hour_of_week(p["hb"].to_numpy())
     p["group"], p["period"] = g, _day_iso(p["hb"].to_numpy())
-    return p.groupby(["group", "period"], as_index=False, sort=True)[
-        ["events", "km", "wkm"]].sum()[cols]
+    return p.groupby(["group", "period"], as_index=False, sort=True)[["events", "km", "wkm"]].sum()[
+        cols
+    ]
 
 
-def _baseline(periods: pd.DataFrame, until: str | None, rate: float | None, expected: str
-              ) -> tuple[pd.DataFrame, dict[str, float], str]:
+def _baseline(
+    periods: pd.DataFrame, until: str | None, rate: float | None, expected: str
+) -> tuple[pd.DataFrame, dict[str, float], str]:
     """Return the periods to watch, the in-control rate of each group and how it was set."""
     per = "weighted km" if expected == "modelled" else "km"
     groups = sorted(periods["group"].unique().tolist()) if len(periods) else []
@@ -641,29 +853,50 @@ def _baseline(periods: pd.DataFrame, until: str | None, rate: float | None, expe
         if w <= 0:
             raise OptionError(f"no driving on or before {until}", field="--baseline-until")
         if e == 0:
-            raise OptionError(f"no events on or before {until}: the in-control rate would be 0",
-                              field="--baseline-until")
+            raise OptionError(
+                f"no events on or before {until}: the in-control rate would be 0",
+                field="--baseline-until",
+            )
         watched = periods.loc[~cal].reset_index(drop=True)
         if not len(watched):
             raise OptionError(f"no driving after {until} to watch", field="--baseline-until")
         r = e / w
-        return watched, dict.fromkeys(groups, r), (
-            f"calibration period up to {until}: {e:.0f} events over {w:.3f} {per} = {r:.4g} "
-            f"per {per}; charts watch the days after")
+        return (
+            watched,
+            dict.fromkeys(groups, r),
+            (
+                f"calibration period up to {until}: {e:.0f} events over {w:.3f} {per} = {r:.4g} "
+                f"per {per}; charts watch the days after"
+            ),
+        )
     tot = periods.groupby("group")[["events", "wkm"]].sum()
     e_all, w_all = float(tot["events"].sum()), float(tot["wkm"].sum())
     out = {}
     for g, r in tot.iterrows():
         w_rest = w_all - float(r["wkm"])
-        out[str(g)] = ((e_all - float(r["events"])) / w_rest if w_rest > 0 else
-                       (e_all / w_all if w_all > 0 else 0.0))
-    return periods, out, (
-        f"leave-one-group-out: each group's rate is the events per {per} of all other groups "
-        "(the same data, not a calibration period)")
+        out[str(g)] = (
+            (e_all - float(r["events"])) / w_rest
+            if w_rest > 0
+            else (e_all / w_all if w_all > 0 else 0.0)
+        )
+    return (
+        periods,
+        out,
+        (
+            f"leave-one-group-out: each group's rate is the events per {per} of all other groups "
+            "(the same data, not a calibration period)"
+        ),
+    )
 
 
-def _charts(periods: pd.DataFrame, *, shift: float, arl0: float, arl0_family: float | None,
-            rate_of: dict[str, float]) -> tuple[pd.DataFrame, pd.DataFrame, dict[str, Any]]:
+def _charts(
+    periods: pd.DataFrame,
+    *,
+    shift: float,
+    arl0: float,
+    arl0_family: float | None,
+    rate_of: dict[str, float],
+) -> tuple[pd.DataFrame, pd.DataFrame, dict[str, Any]]:
     """Design one CUSUM per group, run it, and describe the family of charts."""
     cols = ["group", "days", "rate", "mu0", "k", "h", "arl0_target", "arl0", "arl1"]
     mu = {}
@@ -681,27 +914,46 @@ def _charts(periods: pd.DataFrame, *, shift: float, arl0: float, arl0_family: fl
         d = early_warning.design_cusum(m, ratio=shift, arl0=each)
         designs.append(d)
         shares.append(len(part) / all_days)
-        rows.append({"group": g, "days": len(part), "rate": rate_of[g], "mu0": d.mu0,
-                     "k": d.k, "h": d.h, "arl0_target": d.arl0_target, "arl0": d.arl0,
-                     "arl1": d.arl1})
+        rows.append(
+            {
+                "group": g,
+                "days": len(part),
+                "rate": rate_of[g],
+                "mu0": d.mu0,
+                "k": d.k,
+                "h": d.h,
+                "arl0_target": d.arl0_target,
+                "arl0": d.arl0,
+                "arl1": d.arl1,
+            }
+        )
         hit = early_warning.cusum_alerts(part, design=d)
         if len(hit):
             found.append(hit)
-    alerts = pd.concat(found, ignore_index=True) if found else pd.DataFrame(
-        columns=["group", "period", "statistic", "h"])
+    alerts = (
+        pd.concat(found, ignore_index=True)
+        if found
+        else pd.DataFrame(columns=["group", "period", "statistic", "h"])
+    )
     if len(alerts):
         alerts = alerts.sort_values(["period", "group"], kind="stable").reset_index(drop=True)
     family: dict[str, Any] = {
-        "charts": n, "arl0_each": each, "arl0_family_target": arl0_family,
-        "design": (f"each of {n} charts at {arl0_family:g} x {n} = {each:g} days"
-                   if arl0_family is not None else
-                   f"each chart alone at {arl0:g} days (not a family design)"),
-        "family_arl0": None, "false_alarms_per_30_days": None,
+        "charts": n,
+        "arl0_each": each,
+        "arl0_family_target": arl0_family,
+        "design": (
+            f"each of {n} charts at {arl0_family:g} x {n} = {each:g} days"
+            if arl0_family is not None
+            else f"each chart alone at {arl0:g} days (not a family design)"
+        ),
+        "family_arl0": None,
+        "false_alarms_per_30_days": None,
     }
     if designs:
         family["family_arl0"] = round(early_warning.family_arl(designs), 3)
         family["false_alarms_per_30_days"] = round(
-            early_warning.false_alarms_per(MONTH_DAYS, designs, shares), 4)
+            early_warning.false_alarms_per(MONTH_DAYS, designs, shares), 4
+        )
     return pd.DataFrame(rows, columns=cols), alerts, family
 
 
@@ -718,8 +970,9 @@ def cusum_chart(result: WatchResult, groups: list[str]) -> bytes:
         r = design[g]
         d = early_warning.CusumDesign(r.mu0, 0.0, r.k, r.h, r.arl0_target, r.arl0, r.arl1, 1)
         part = result.periods[result.periods["group"] == g].sort_values("period")
-        s = early_warning.cusum_path(part["events"].to_numpy(), part["expected"].to_numpy(),
-                                     design=d)
+        s = early_warning.cusum_path(
+            part["events"].to_numpy(), part["expected"].to_numpy(), design=d
+        )
         ax.step(range(len(s)), s / r.h if r.h > 0 else s, where="post", label=g)
     ax.axhline(1.0, color="#8e2a58", ls="--", lw=1, label="decision interval h (alarm above)")
     ax.set_xlabel("day (in order of driving)")
@@ -741,41 +994,75 @@ def flag_map(net: Any, result: WatchResult, prov: dict[str, Any] | None = None) 
     flagged = seg[seg["flagged"]]
     mem = result.members
     fl_mem = mem[mem["unit"].isin(set(flagged["unit"]))].merge(
-        flagged[["unit", "eb_ratio"]], on="unit")
+        flagged[["unit", "eb_ratio"]], on="unit"
+    )
     edges = net.edges.reset_index()
     ll = net.edges.to_crs("EPSG:4326").total_bounds
     m = mapview.new_map(tuple(ll), context=net)
     edges["_c"] = "#b9b4a8"
     edges["street"] = edges["name"].fillna("")
-    mapview.add_lines(m, edges, name="network", colour_col="_c", fields={}, weight=2,
-                      opacity=0.6)
+    mapview.add_lines(m, edges, name="network", colour_col="_c", fields={}, weight=2, opacity=0.6)
     if len(flagged):
-        fl = fl_mem.drop(columns=["street"]).merge(
-            flagged[["unit", "street", "events", "expected", "eb_rate", "p_value"]]
-            .rename(columns={"events": "unit_events"}), on="unit").merge(
-            edges[["u", "v", "key", "geometry"]], on=["u", "v", "key"])
+        fl = (
+            fl_mem.drop(columns=["street"])
+            .merge(
+                flagged[["unit", "street", "events", "expected", "eb_rate", "p_value"]].rename(
+                    columns={"events": "unit_events"}
+                ),
+                on="unit",
+            )
+            .merge(edges[["u", "v", "key", "geometry"]], on=["u", "v", "key"])
+        )
         import geopandas as gpd
 
         fl = gpd.GeoDataFrame(fl, geometry="geometry", crs=net.crs)
         fl["_c"] = "#c1121f"
-        mapview.add_lines(m, fl, name=f"flagged {result.unit}s", colour_col="_c", weight=7,
-                          fields={"street": "street", "unit": result.unit,
-                                  "unit_events": "events (both directions)",
-                                  "events": "events (this direction)",
-                                  "expected": "expected", "eb_rate": "EB rate per km",
-                                  "p_value": f"p-value ({result.test_used})"})
+        mapview.add_lines(
+            m,
+            fl,
+            name=f"flagged {result.unit}s",
+            colour_col="_c",
+            weight=7,
+            fields={
+                "street": "street",
+                "unit": result.unit,
+                "unit_events": "events (both directions)",
+                "events": "events (this direction)",
+                "expected": "expected",
+                "eb_rate": "EB rate per km",
+                "p_value": f"p-value ({result.test_used})",
+            },
+        )
     mapview.layer_control(m)
-    mapview.add_panel(m, mapview.legend_html("Early warnings", [
-        ("#c1121f", f"{result.unit} flagged (FDR-controlled, {result.test_used} test, "
-                    f"{result.expected} expected)"), ("#b9b4a8", "network")],
-        background=mapview.background_of(m)))
+    mapview.add_panel(
+        m,
+        mapview.legend_html(
+            "Early warnings",
+            [
+                (
+                    "#c1121f",
+                    f"{result.unit} flagged (FDR-controlled, {result.test_used} test, "
+                    f"{result.expected} expected)",
+                ),
+                ("#b9b4a8", "network"),
+            ],
+            background=mapview.background_of(m),
+        ),
+    )
     if prov is not None:
         mapview.add_provenance(m, prov)
     return m
 
 
-def write_outputs(net: Any, result: WatchResult, out: str | Path, *, force: bool = False,
-                  close: bool = False, inputs: dict[str, Any] | None = None) -> Path:
+def write_outputs(
+    net: Any,
+    result: WatchResult,
+    out: str | Path,
+    *,
+    force: bool = False,
+    close: bool = False,
+    inputs: dict[str, Any] | None = None,
+) -> Path:
     """Write overlay.yaml, segments.csv, charts.csv, map.html and report.html into ``out``.
 
     Each records the tool version, the profile fingerprint and the checksums of the
@@ -791,77 +1078,163 @@ def write_outputs(net: Any, result: WatchResult, out: str | Path, *, force: bool
     how = result.method_lines()
     mem = result.members
     fl_mem = mem[mem["unit"].isin(set(flagged["unit"]))].merge(
-        flagged[["unit", "eb_ratio"]], on="unit")
+        flagged[["unit", "eb_ratio"]], on="unit"
+    )
     with atomic_directory(out, force=force) as tmp:
-        overlay.write_overlay(tmp / "overlay.yaml", overlay.flagged_rows(fl_mem, close=close),
-                              profile=net.profile.fingerprint,
-                              source=f"routerisk watch ({result.unit} units, "
-                                     f"{result.test_used} test, {result.expected} expected)",
-                              made_from=prov)
-        cols = ["unit", "street", "band", "u", "v", "key", "events", "events_forward",
-                "events_backward", "km", "km_forward", "km_backward", "expected", "eb_rate",
-                "eb_ratio", "p_value", "q_value", "flagged", "expected_modelled",
-                "expected_distance", "flagged_modelled", "flagged_distance", "disagree"]
+        overlay.write_overlay(
+            tmp / "overlay.yaml",
+            overlay.flagged_rows(fl_mem, close=close),
+            profile=net.profile.fingerprint,
+            source=f"routerisk watch ({result.unit} units, "
+            f"{result.test_used} test, {result.expected} expected)",
+            made_from=prov,
+        )
+        cols = [
+            "unit",
+            "street",
+            "band",
+            "u",
+            "v",
+            "key",
+            "events",
+            "events_forward",
+            "events_backward",
+            "km",
+            "km_forward",
+            "km_backward",
+            "expected",
+            "eb_rate",
+            "eb_ratio",
+            "p_value",
+            "q_value",
+            "flagged",
+            "expected_modelled",
+            "expected_distance",
+            "flagged_modelled",
+            "flagged_distance",
+            "disagree",
+        ]
         head = _comment([CAUTION, LIMITS, *how, provenance_line(prov)])
         table = seg[cols].round(6)
         for col in ("p_value", "q_value"):  # small p-values keep their digits
             table[col] = [f"{x:.6g}" for x in seg[col]]
         (tmp / "segments.csv").write_text(
-            head + table.to_csv(index=False, lineterminator="\n"), encoding="utf-8")
+            head + table.to_csv(index=False, lineterminator="\n"), encoding="utf-8"
+        )
         (tmp / "charts.csv").write_text(
             head + result.designs.round(6).to_csv(index=False, lineterminator="\n"),
-            encoding="utf-8")
+            encoding="utf-8",
+        )
         m = flag_map(net, result, prov)
         (tmp / "map.html").write_text(mapview.render(m), encoding="utf-8")
         groups = list(result.alerts["group"].astype(str)[:5]) or list(
-            result.periods.groupby("group")["events"].sum().sort_values(ascending=False)
-            .index.astype(str)[:3])
-        show = ["unit", "street", "events", "events_forward", "events_backward", "km",
-                "expected", "eb_rate", "p_value", "q_value"]
+            result.periods.groupby("group")["events"]
+            .sum()
+            .sort_values(ascending=False)
+            .index.astype(str)[:3]
+        )
+        show = [
+            "unit",
+            "street",
+            "events",
+            "events_forward",
+            "events_backward",
+            "km",
+            "expected",
+            "eb_rate",
+            "p_value",
+            "q_value",
+        ]
         dis = seg[seg["disagree"]]
         body = [
-            report.section("How these numbers were made",
-                           "".join(report.paragraph(x) for x in how),
-                           report.paragraph(LIMITS)),
-            report.section(f"Flagged {result.unit}s", report.frame_html(
-                flagged[show].round(4), index=False) if len(flagged) else
-                report.paragraph(f"No {result.unit} has more events than its "
-                                 f"{result.expected} expectation explains at a false "
-                                 f"discovery rate of {result.q:g}.")),
+            report.section(
+                "How these numbers were made",
+                "".join(report.paragraph(x) for x in how),
+                report.paragraph(LIMITS),
+            ),
+            report.section(
+                f"Flagged {result.unit}s",
+                report.frame_html(flagged[show].round(4), index=False)
+                if len(flagged)
+                else report.paragraph(
+                    f"No {result.unit} has more events than its "
+                    f"{result.expected} expectation explains at a false "
+                    f"discovery rate of {result.q:g}."
+                ),
+            ),
             report.section(
                 "Where modelled and distance-only expectations disagree",
                 report.paragraph(
                     "Modelled expectations tolerate more events where the model expects more "
                     "pedestrians; distance-only expectations use the km driven alone. Each "
-                    "row is flagged under one and not the other."),
-                report.frame_html(dis[["unit", "street", "events", "km", "expected_modelled",
-                                       "flagged_modelled", "expected_distance",
-                                       "flagged_distance"]].round(4), index=False)
-                if len(dis) else report.paragraph("None: both flag the same units.")),
-            report.section("CUSUM charts (one per group)", report.frame_html(
-                result.designs.round(4), index=False) if len(result.designs) else
-                report.paragraph("No group has a positive in-control expectation.")),
-            report.section("CUSUM alerts", report.frame_html(result.alerts, index=False)
-                           if len(result.alerts) else report.paragraph("No alert."),
-                           report.image_html(cusum_chart(result, groups),
-                                             alt="CUSUM statistics over time")),
-            report.section("Events left out", report.frame_html(result.rejected, index=False)
-                           if len(result.rejected) else report.paragraph("None.")),
+                    "row is flagged under one and not the other."
+                ),
+                report.frame_html(
+                    dis[
+                        [
+                            "unit",
+                            "street",
+                            "events",
+                            "km",
+                            "expected_modelled",
+                            "flagged_modelled",
+                            "expected_distance",
+                            "flagged_distance",
+                        ]
+                    ].round(4),
+                    index=False,
+                )
+                if len(dis)
+                else report.paragraph("None: both flag the same units."),
+            ),
+            report.section(
+                "CUSUM charts (one per group)",
+                report.frame_html(result.designs.round(4), index=False)
+                if len(result.designs)
+                else report.paragraph("No group has a positive in-control expectation."),
+            ),
+            report.section(
+                "CUSUM alerts",
+                report.frame_html(result.alerts, index=False)
+                if len(result.alerts)
+                else report.paragraph("No alert."),
+                report.image_html(cusum_chart(result, groups), alt="CUSUM statistics over time"),
+            ),
+            report.section(
+                "Events left out",
+                report.frame_html(result.rejected, index=False)
+                if len(result.rejected)
+                else report.paragraph("None."),
+            ),
         ]
         fam = result.family
-        facts = [("profile", f"{net.profile.name} ({net.profile.fingerprint})"),
-                 ("events matched", len(result.matched)),
-                 ("false discovery rate", result.q),
-                 ("test", f"{result.test_used} (asked: {result.test})"),
-                 ("unit", result.unit), ("expected", result.expected),
-                 ("CUSUM", f"{fam.get('design')}; family run length "
-                           f"{_fmt(fam.get('family_arl0'))} days, "
-                           f"{_fmt(fam.get('false_alarms_per_30_days'))} false alarms "
-                           f"per {MONTH_DAYS:g} days")]
-        (tmp / "report.html").write_text(report.page("Early warnings", body, facts=facts,
-                                                     provenance=prov), encoding="utf-8")
+        facts = [
+            ("profile", f"{net.profile.name} ({net.profile.fingerprint})"),
+            ("events matched", len(result.matched)),
+            ("false discovery rate", result.q),
+            ("test", f"{result.test_used} (asked: {result.test})"),
+            ("unit", result.unit),
+            ("expected", result.expected),
+            (
+                "CUSUM",
+                f"{fam.get('design')}; family run length "
+                f"{_fmt(fam.get('family_arl0'))} days, "
+                f"{_fmt(fam.get('false_alarms_per_30_days'))} false alarms "
+                f"per {MONTH_DAYS:g} days",
+            ),
+        ]
+        (tmp / "report.html").write_text(
+            report.page("Early warnings", body, facts=facts, provenance=prov), encoding="utf-8"
+        )
     return Path(out)
 
 
-__all__ = ["discovery_units", "watch", "write_outputs", "match_events", "read_drives",
-           "split_by_hour", "dt"]
+__all__ = [
+    "discovery_units",
+    "watch",
+    "write_outputs",
+    "match_events",
+    "read_drives",
+    "split_by_hour",
+    "dt",
+]

@@ -89,47 +89,49 @@ def heading(column: str) -> str:
 #: short meanings of the terms a reviewer meets; a report lists those it uses
 GLOSSARY: dict[str, str] = {
     "risk": "pedestrian exposure along the route weighted by the chance that a pedestrian "
-            "struck at the street's speed dies (published impact-speed curves); in points "
-            "summed over the route. It ranks routes under one profile; it is not a crash count.",
+    "struck at the street's speed dies (published impact-speed curves); in points "
+    "summed over the route. It ranks routes under one profile; it is not a crash count.",
     "risk per km": "the route's risk divided by its length.",
     "relative index": "the route's risk per km against the average km of the area at the "
-                      "same minutes under the same profile (1 = average); it cannot be "
-                      "compared across profiles.",
+    "same minutes under the same profile (1 = average); it cannot be "
+    "compared across profiles.",
     "exposure per km": "how much pedestrian presence a street carries per km of it: the "
-                       "baseline for its road class plus the weighted nearness of schools, "
-                       "campuses, shops, stops and other places, before the speed weighting.",
+    "baseline for its road class plus the weighted nearness of schools, "
+    "campuses, shops, stops and other places, before the speed weighting.",
     "exposure band": "a class of exposure per km (quiet, moderate, busy, intense) with the "
-                     "thresholds shown on the legend.",
+    "thresholds shown on the legend.",
     "hard rule": "a condition agreed with the community, such as no driving near schools at "
-                 "school hours; a route that drives a covered street while the rule is in "
-                 "force breaks it.",
+    "school hours; a route that drives a covered street while the rule is in "
+    "force breaks it.",
     "hot spot": "a segment that contributes most of a route's or an area's risk.",
     "pedestrian crossings passed": "marked crossings on the segment; a partial segment counts "
-                                   "its share, so a route can pass 2.5 crossings.",
+    "its share, so a route can pass 2.5 crossings.",
     "separate open parts": "pieces of the street network that can still all be reached from "
-                           "each other by driving when the rule-closed streets are taken out; "
-                           "more than one means some streets cannot be reached from others.",
+    "each other by driving when the rule-closed streets are taken out; "
+    "more than one means some streets cannot be reached from others.",
     "smoothed event rate per km": "events per km on a segment pulled towards the rate of "
-                                  "similar segments (empirical Bayes), so a short segment with "
-                                  "one event does not look extreme.",
+    "similar segments (empirical Bayes), so a short segment with "
+    "one event does not look extreme.",
     "p-value": "the chance of at least this many events if the segment were as safe as "
-               "expected; small values point to a real difference.",
+    "expected; small values point to a real difference.",
     "adjusted p-value (q)": "the p-value adjusted for testing many segments at once "
-                            "(Benjamini-Hochberg): flagging all segments with q below the "
-                            "false discovery rate keeps the expected share of false flags "
-                            "at that rate.",
+    "(Benjamini-Hochberg): flagging all segments with q below the "
+    "false discovery rate keeps the expected share of false flags "
+    "at that rate.",
     "false discovery rate": "the share of flagged segments allowed, on average, to be false "
-                            "alarms.",
+    "alarms.",
     "CUSUM": "a running sum of events above what is expected, day by day; an alarm sounds "
-             "when it crosses a set limit.",
+    "when it crosses a set limit.",
     "in-control run length": "the average number of periods before a chart raises a false "
-                             "alarm when nothing has changed (ARL).",
+    "alarm when nothing has changed (ARL).",
     "naive plan": "every run at its earliest start on its planned route, for comparison.",
     "band": "exposure band.",
 }
 
-_ISO = re.compile(r"^(\d{4})-(\d{2})-(\d{2})T(\d{2}):(\d{2})(?::(\d{2}))?"
-                  r"(?:\.\d+)?(Z|[+-]\d{2}:\d{2})?$")
+_ISO = re.compile(
+    r"^(\d{4})-(\d{2})-(\d{2})T(\d{2}):(\d{2})(?::(\d{2}))?"
+    r"(?:\.\d+)?(Z|[+-]\d{2}:\d{2})?$"
+)
 
 
 def p_text(p: float) -> str:
@@ -183,14 +185,23 @@ def glossary_html(terms: Iterable[str]) -> str:
     items = [t for t in dict.fromkeys(terms) if t in GLOSSARY]
     if not items:
         return ""
-    rows = "".join(f"<dt>{html.escape(t)}</dt><dd>{html.escape(GLOSSARY[t])}</dd>"
-                   for t in items)
-    return (f'<section id="words"><details open><summary><b>Words used on this page</b>'
-            f'</summary><dl class="rr-words">{rows}</dl></details></section>')
+    rows = "".join(f"<dt>{html.escape(t)}</dt><dd>{html.escape(GLOSSARY[t])}</dd>" for t in items)
+    return (
+        f'<section id="words"><details open><summary><b>Words used on this page</b>'
+        f'</summary><dl class="rr-words">{rows}</dl></details></section>'
+    )
 
 
-_COMPASS = ("north", "north-east", "east", "south-east", "south", "south-west", "west",
-            "north-west")
+_COMPASS = (
+    "north",
+    "north-east",
+    "east",
+    "south-east",
+    "south",
+    "south-west",
+    "west",
+    "north-west",
+)
 
 
 class Blocks:
@@ -217,8 +228,7 @@ class Blocks:
                 at.setdefault(int(a), set()).add(n)
                 at.setdefault(int(b), set()).add(n)
         self._at = at
-        self._row = {(int(a), int(b), int(k)): i
-                     for i, (a, b, k) in enumerate(idx)}
+        self._row = {(int(a), int(b), int(k)): i for i, (a, b, k) in enumerate(idx)}
         geoms = e.geometry.to_numpy()  # type: ignore[attr-defined]
         import shapely
 
@@ -241,6 +251,5 @@ class Blocks:
         own = self._names[i] or "unnamed street"
         way = _COMPASS[int(((self._bearing[i] + 22.5) % 360.0) // 45.0)] + "bound"
         a, b = self._cross(u, own), self._cross(v, own)
-        between = (f", {a} to {b}" if a and b else f", from {a}" if a
-                   else f", to {b}" if b else "")
+        between = f", {a} to {b}" if a and b else f", from {a}" if a else f", to {b}" if b else ""
         return f"{own}, {way}{between}"

@@ -93,10 +93,16 @@ def rows(net, rng: np.random.Generator) -> list[dict[str, object]]:
         for p in sorted(picks):
             day, hour = DAYS[p // len(HOURS)], HOURS[p % len(HOURS)]
             start = dt.datetime.combine(day, dt.time(hour, 0))
-            out.append({"site": site, "lat": f"{lat:.7f}", "lon": f"{lon:.7f}",
-                        "start": start.isoformat(timespec="minutes"),
-                        "end": (start + dt.timedelta(hours=2)).isoformat(timespec="minutes"),
-                        "count": 0})
+            out.append(
+                {
+                    "site": site,
+                    "lat": f"{lat:.7f}",
+                    "lon": f"{lon:.7f}",
+                    "start": start.isoformat(timespec="minutes"),
+                    "end": (start + dt.timedelta(hours=2)).isoformat(timespec="minutes"),
+                    "count": 0,
+                }
+            )
     return out
 
 
@@ -127,8 +133,9 @@ def main(out: Path = HERE) -> None:
     for i, r in enumerate(recs):
         r["count"] = int(drawn.get(f"row {i + 2}", rng.poisson(5)))
     (out / "counts.csv").write_text(_csv(recs), encoding="utf-8")
-    print(f"wrote {out / 'counts.csv'}: {len(recs)} periods at "
-          f"{len({r['site'] for r in recs})} sites")
+    print(
+        f"wrote {out / 'counts.csv'}: {len(recs)} periods at {len({r['site'] for r in recs})} sites"
+    )
 
 
 if __name__ == "__main__":

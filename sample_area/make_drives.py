@@ -62,8 +62,7 @@ def main(out: Path = HERE) -> None:
     blocks = discovery_units(edges, "block")
     block_of = dict(zip(edges.index, blocks["unit"], strict=True))
     names = sorted(set(blocks["unit"]))
-    factor = dict(zip(names, rng.gamma(BLOCK_SHAPE, 1.0 / BLOCK_SHAPE, len(names)),
-                      strict=True))
+    factor = dict(zip(names, rng.gamma(BLOCK_SHAPE, 1.0 / BLOCK_SHAPE, len(names)), strict=True))
     factor[HOT_BLOCK] = HOT_FACTOR
     hot_edges = sorted(e for e, b in block_of.items() if b == HOT_BLOCK)
     assert hot_edges and all(edges.at[e, "name"] == HOT_STREET for e in hot_edges)
@@ -81,11 +80,15 @@ def main(out: Path = HERE) -> None:
         # route through a hot edge on every other drive so the hot spot is driven enough
         if d % 2 == 0:
             hu, hv, _ = hot_edges[(d // 2) % len(hot_edges)]
-            path = (nx.shortest_path(G, a, hu, weight="travel_time")[:-1]
-                    + nx.shortest_path(G, hu, b, weight="travel_time"))
+            path = nx.shortest_path(G, a, hu, weight="travel_time")[:-1] + nx.shortest_path(
+                G, hu, b, weight="travel_time"
+            )
             if hv not in path:
-                path = (nx.shortest_path(G, a, hu, weight="travel_time")[:-1] + [hu]
-                        + nx.shortest_path(G, hv, b, weight="travel_time"))
+                path = (
+                    nx.shortest_path(G, a, hu, weight="travel_time")[:-1]
+                    + [hu]
+                    + nx.shortest_path(G, hv, b, weight="travel_time")
+                )
         t0 = start + dt.timedelta(days=d // 4, hours=2 * (d % 4), minutes=int(rng.integers(60)))
         pts, times = [], []
         t = t0
@@ -101,21 +104,22 @@ def main(out: Path = HERE) -> None:
             # events on this edge: Poisson in its km at a rate that follows a power (0.75)
             # of the modelled exposure, times the block's own factor (HOT_FACTOR on the hot spot)
             rel = edges.at[(u, v, k), "exposure_km"] / mean_exposure
-            rate = BASE_RATE_PER_KM * rel ** EXPOSURE_POWER * factor[block_of[(u, v, k)]]
+            rate = BASE_RATE_PER_KM * rel**EXPOSURE_POWER * factor[block_of[(u, v, k)]]
             for _ in range(rng.poisson(rate * e["length"] / 1000.0)):
                 f = rng.uniform(0.05, 0.95)
                 p = e["geometry"].interpolate(f, normalized=True)
                 lon, lat = to_ll.transform(p.x, p.y)
                 when = t + dt.timedelta(seconds=f * e["travel_time"])
-                kind = rng.choice(["intervention", "hard_brake", "near_miss"], p=[.4, .4, .2])
+                kind = rng.choice(["intervention", "hard_brake", "near_miss"], p=[0.4, 0.4, 0.2])
                 events.append((when, lat, lon, kind, f"veh-{1 + d % 3}"))
             t += dt.timedelta(seconds=e["travel_time"])
         lon, lat = to_ll.transform(*np.array(pts).T)
         _write_gpx(drives_dir / f"drive-{d + 1:02d}.gpx", f"drive-{d + 1:02d}", lon, lat, times)
     events.sort()
     lines = ["time,lat,lon,type,vehicle"]
-    lines += [f"{w.isoformat(timespec='seconds')},{la:.7f},{lo:.7f},{k},{v}"
-              for w, la, lo, k, v in events]
+    lines += [
+        f"{w.isoformat(timespec='seconds')},{la:.7f},{lo:.7f},{k},{v}" for w, la, lo, k, v in events
+    ]
     (out / "events.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
     print(f"wrote {N_DRIVES} drives and {len(events)} events")
 
@@ -124,12 +128,15 @@ def _write_gpx(path: Path, name: str, lon, lat, times) -> None:
     rows = "".join(
         f'<trkpt lat="{la:.7f}" lon="{lo:.7f}"><time>'
         f"{t.astimezone(dt.UTC).strftime('%Y-%m-%dT%H:%M:%SZ')}</time></trkpt>\n"
-        for lo, la, t in zip(lon, lat, times, strict=True))
-    path.write_text('<?xml version="1.0" encoding="UTF-8"?>\n<gpx version="1.1" '
-                    'creator="routerisk sample_area/make_drives.py" '
-                    'xmlns="http://www.topografix.com/GPX/1/1">\n'
-                    f"<trk><name>{name}</name><trkseg>\n{rows}</trkseg></trk>\n</gpx>\n",
-                    encoding="utf-8")
+        for lo, la, t in zip(lon, lat, times, strict=True)
+    )
+    path.write_text(
+        '<?xml version="1.0" encoding="UTF-8"?>\n<gpx version="1.1" '
+        'creator="routerisk sample_area/make_drives.py" '
+        'xmlns="http://www.topografix.com/GPX/1/1">\n'
+        f"<trk><name>{name}</name><trkseg>\n{rows}</trkseg></trk>\n</gpx>\n",
+        encoding="utf-8",
+    )
 
 
 if __name__ == "__main__":

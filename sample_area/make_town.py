@@ -48,9 +48,7 @@ CENTRE_Y = 1250.0
 _PHI = math.radians(CENTRE_LAT)
 # Metres per degree on the WGS84 ellipsoid (series expansion, common practice).
 M_PER_DEG_LAT = 111132.954 - 559.822 * math.cos(2 * _PHI) + 1.175 * math.cos(4 * _PHI)
-M_PER_DEG_LON = (
-    111412.84 * math.cos(_PHI) - 93.5 * math.cos(3 * _PHI) + 0.118 * math.cos(5 * _PHI)
-)
+M_PER_DEG_LON = 111412.84 * math.cos(_PHI) - 93.5 * math.cos(3 * _PHI) + 0.118 * math.cos(5 * _PHI)
 SCALE = 10_000_000  # 7 decimals
 
 # Extent written to <bounds>, in local metres (the street grid spans 0..3000 x 0..2500).
@@ -260,8 +258,12 @@ def _crossing_inserts(segs: list[Segment], inserts: Inserts) -> None:
     for si, (_wi, _k, p, q) in enumerate(segs):
         for c in _cells(p, q, 150.0, 0.0):
             grid.setdefault(c, []).append(si)
-    pairs = {(min(i, j), max(i, j)) for members in grid.values()
-             for n, i in enumerate(members) for j in members[n + 1 :]}
+    pairs = {
+        (min(i, j), max(i, j))
+        for members in grid.values()
+        for n, i in enumerate(members)
+        for j in members[n + 1 :]
+    }
     for i, j in sorted(pairs):
         wi, ki, p, q = segs[i]
         wj, kj, a, b = segs[j]
@@ -287,8 +289,11 @@ def _mark_inserts(segs: list[Segment], marks: list[tuple[Point, Tags]], inserts:
 
 def node_lines(town: Town) -> None:
     """Insert shared nodes at every crossing, T-junction and mark of the highway ways."""
-    segs: list[Segment] = [(wi, k, pts[k], pts[k + 1]) for wi, (pts, _t) in enumerate(town.lines)
-                           for k in range(len(pts) - 1)]
+    segs: list[Segment] = [
+        (wi, k, pts[k], pts[k + 1])
+        for wi, (pts, _t) in enumerate(town.lines)
+        for k in range(len(pts) - 1)
+    ]
     inserts: Inserts = {}
     _crossing_inserts(segs, inserts)
     _mark_inserts(segs, town.marks, inserts)
@@ -327,112 +332,187 @@ def sw(value: str) -> Tags:
 def build_streets(t: Town) -> None:
     """Add the drivable street network."""
     # ---- arterials ------------------------------------------------------------------
-    t.street("Tillerman Avenue", PRIMARY, [
-        (h(1200, 0, 900), sw("both")),
-        (h(1200, 900, 1500), sw("both")),
-        (h(1200, 1500, 2100), {"maxspeed": "40 mph", "sidewalk": "separate"}),
-        (h(1200, 2100, 2750), sw("both")),
-        (h(1200, 2750, 3000), sw("right")),
-    ])
-    t.street("Osprell Road", SECONDARY, [
-        (v(1500, 0, 600), sw("right")),
-        (v(1500, 600, 1200), sw("both")),
-        (v(1500, 1200, 2000), sw("both")),
-        (v(1500, 2000, 2500), sw("both")),
-    ])
+    t.street(
+        "Tillerman Avenue",
+        PRIMARY,
+        [
+            (h(1200, 0, 900), sw("both")),
+            (h(1200, 900, 1500), sw("both")),
+            (h(1200, 1500, 2100), {"maxspeed": "40 mph", "sidewalk": "separate"}),
+            (h(1200, 2100, 2750), sw("both")),
+            (h(1200, 2750, 3000), sw("right")),
+        ],
+    )
+    t.street(
+        "Osprell Road",
+        SECONDARY,
+        [
+            (v(1500, 0, 600), sw("right")),
+            (v(1500, 600, 1200), sw("both")),
+            (v(1500, 1200, 2000), sw("both")),
+            (v(1500, 2000, 2500), sw("both")),
+        ],
+    )
     one = {**SECONDARY, "oneway": "yes"}
-    t.street("Brindlecot Street", one, [  # eastbound half of the one-way pair
-        (h(600, 0, 900), sw("both")),
-        (h(600, 900, 2100), sw("both")),
-        (h(600, 2100, 3000), sw("right")),
-    ])
-    t.street("Vellamy Street", one, [  # westbound half (node order runs west)
-        (h(800, 3000, 2100), sw("both")),
-        (h(800, 2100, 900), sw("both")),
-        (h(800, 900, 0), sw("left")),
-    ])
+    t.street(
+        "Brindlecot Street",
+        one,
+        [  # eastbound half of the one-way pair
+            (h(600, 0, 900), sw("both")),
+            (h(600, 900, 2100), sw("both")),
+            (h(600, 2100, 3000), sw("right")),
+        ],
+    )
+    t.street(
+        "Vellamy Street",
+        one,
+        [  # westbound half (node order runs west)
+            (h(800, 3000, 2100), sw("both")),
+            (h(800, 2100, 900), sw("both")),
+            (h(800, 900, 0), sw("left")),
+        ],
+    )
     # ---- collectors -----------------------------------------------------------------
-    t.street("Hobbin Street", TERT30, [
-        (h(2000, 0, 250), sw("both")),
-        (h(2000, 250, 900), {
-            "maxspeed": "30 mph", "hazard": "school_zone", "sidewalk": "both",
-            "maxspeed:conditional": SCHOOL_ZONE_CONDITIONAL,
-        }),
-        (h(2000, 900, 1500), sw("both")),
-        (h(2000, 1500, 2100), sw("both")),
-    ])
+    t.street(
+        "Hobbin Street",
+        TERT30,
+        [
+            (h(2000, 0, 250), sw("both")),
+            (
+                h(2000, 250, 900),
+                {
+                    "maxspeed": "30 mph",
+                    "hazard": "school_zone",
+                    "sidewalk": "both",
+                    "maxspeed:conditional": SCHOOL_ZONE_CONDITIONAL,
+                },
+            ),
+            (h(2000, 900, 1500), sw("both")),
+            (h(2000, 1500, 2100), sw("both")),
+        ],
+    )
     t.street("Hobbin Street", RES, [(h(2000, 2750, 3000), sw("no"))])
-    quarry_north = [(900, 1200), (900, 1400), (906, 1450), (911, 1500), (906, 1550),
-                    (900, 1600), (900, 2500)]  # a gentle S-bend
+    quarry_north = [
+        (900, 1200),
+        (900, 1400),
+        (906, 1450),
+        (911, 1500),
+        (906, 1550),
+        (900, 1600),
+        (900, 2500),
+    ]  # a gentle S-bend
     t.street("Quarry Lane", TERT35, [(v(900, 0, 600), sw("both")), (v(900, 600, 1200), sw("both"))])
     t.street("Quarry Lane", TERT30, [(quarry_north, sw("both"))])
-    t.street("Wherrit Street", TERT30, [
-        (h(1000, 0, 900), sw("both")),
-        (h(1000, 900, 1500), sw("both")),
-        (h(1000, 1500, 2100), sw("both")),
-        (h(1000, 2100, 3000), sw("both")),
-    ])
-    t.street("Pennycress Street", TERT30, [
-        (v(2100, 0, 600), sw("no")),
-        (v(2100, 600, 1200), sw("both")),
-        (v(2100, 1200, 1600), sw("both")),
-        (v(2100, 1600, 2500), sw("both")),
-    ])
+    t.street(
+        "Wherrit Street",
+        TERT30,
+        [
+            (h(1000, 0, 900), sw("both")),
+            (h(1000, 900, 1500), sw("both")),
+            (h(1000, 1500, 2100), sw("both")),
+            (h(1000, 2100, 3000), sw("both")),
+        ],
+    )
+    t.street(
+        "Pennycress Street",
+        TERT30,
+        [
+            (v(2100, 0, 600), sw("no")),
+            (v(2100, 600, 1200), sw("both")),
+            (v(2100, 1200, 1600), sw("both")),
+            (v(2100, 1600, 2500), sw("both")),
+        ],
+    )
     t.street("Cobmoor Street", RES25, [(v(1300, 0, 1200), sw("both"))])
-    t.street("Cobmoor Street", TERT35, [(v(1300, 1200, 2000), sw("both")),
-                                         (v(1300, 2000, 2500), sw("both"))])
-    t.street("Wickerlamp Street", RES25, [(h(2250, 0, 700), sw("both")),
-                                           (h(2250, 700, 1300), sw("both"))])
-    t.street("Wickerlamp Street", TERT30, [
-        (h(2250, 1300, 2100), sw("both")),
-        (h(2250, 2100, 2750), sw("both")),
-        (wavy_h(2250, [2750, 3000], -10.0), sw("left")),
-    ])
+    t.street(
+        "Cobmoor Street",
+        TERT35,
+        [(v(1300, 1200, 2000), sw("both")), (v(1300, 2000, 2500), sw("both"))],
+    )
+    t.street(
+        "Wickerlamp Street",
+        RES25,
+        [(h(2250, 0, 700), sw("both")), (h(2250, 700, 1300), sw("both"))],
+    )
+    t.street(
+        "Wickerlamp Street",
+        TERT30,
+        [
+            (h(2250, 1300, 2100), sw("both")),
+            (h(2250, 2100, 2750), sw("both")),
+            (wavy_h(2250, [2750, 3000], -10.0), sw("left")),
+        ],
+    )
     # ---- residential grid, east-west ------------------------------------------------
     t.street("Lowmeadow Road", RES, [(h(0, 0, 900), sw("no")), (h(0, 900, 2100), sw("left"))])
     t.street("Tallow Road", UNCL, [(h(0, 2100, 3000), sw("no"))])
     t.street("Jessamy Street", RES25, [(h(200, 0, 900), sw("both"))])
     t.street("Jessamy Street", RES, [(h(200, 900, 2100), sw("both"))])
     t.street("Cinder Mill Road", {**UNCL, "maxspeed": "50"}, [(h(200, 2100, 3000), sw("no"))])
-    t.street("Kipperling Street", RES25, [
-        (h(400, 0, 250), sw("right")),
-        (h(400, 700, 1300), sw("both")),
-        (h(400, 1300, 2100), sw("both")),
-    ])
+    t.street(
+        "Kipperling Street",
+        RES25,
+        [
+            (h(400, 0, 250), sw("right")),
+            (h(400, 700, 1300), sw("both")),
+            (h(400, 1300, 2100), sw("both")),
+        ],
+    )
     t.street("Sprocket Lane", UNCL, [(h(400, 2100, 3000), sw("no"))])
-    t.street("Larkmoss Street", RES25, [
-        (h(1400, 0, 700), sw("both")),
-        (h(1400, 700, 1500), sw("both")),
-        (h(1400, 1500, 2100), sw("both")),
-    ])
+    t.street(
+        "Larkmoss Street",
+        RES25,
+        [
+            (h(1400, 0, 700), sw("both")),
+            (h(1400, 700, 1500), sw("both")),
+            (h(1400, 1500, 2100), sw("both")),
+        ],
+    )
     t.street("Larkmoss Street", RES, [(h(1400, 2100, 3000), sw("both"))])
-    t.street("Mossglen Street", RES25, [
-        (h(1600, 0, 500), sw("both")),
-        (h(1600, 500, 1300), sw("both")),
-        (h(1600, 1300, 2100), sw("left")),
-        (h(1600, 2100, 3000), sw("both")),
-    ])
+    t.street(
+        "Mossglen Street",
+        RES25,
+        [
+            (h(1600, 0, 500), sw("both")),
+            (h(1600, 500, 1300), sw("both")),
+            (h(1600, 1300, 2100), sw("left")),
+            (h(1600, 2100, 3000), sw("both")),
+        ],
+    )
     t.street("Nuthatch Street", RES25, [(h(1800, 0, 900), sw("both"))])
-    t.street("Nuthatch Street", RES, [(h(1800, 900, 2100), sw("right")),
-                                       (h(1800, 2750, 3000), sw("no"))])
-    t.street("Ridgeline Drive", RES25, [
-        (wavy_h(2500, X[:7], 18.0), sw("right")),
-        (wavy_h(2500, X[6:], 18.0), sw("no")),
-    ])
+    t.street(
+        "Nuthatch Street", RES, [(h(1800, 900, 2100), sw("right")), (h(1800, 2750, 3000), sw("no"))]
+    )
+    t.street(
+        "Ridgeline Drive",
+        RES25,
+        [
+            (wavy_h(2500, X[:7], 18.0), sw("right")),
+            (wavy_h(2500, X[6:], 18.0), sw("no")),
+        ],
+    )
     # ---- residential grid, north-south ----------------------------------------------
     t.street("Hedgerow Road", RES, [(wavy_v(0, Y[:7], -12.0), sw("no"))])
     t.street("Hedgerow Road", RES25, [(wavy_v(0, Y[6:], -12.0), sw("no"))])
-    t.street("Ambrel Street", RES25, [(v(250, 0, 600), sw("both")),
-                                       (v(250, 600, 1200), sw("both"))])
-    t.street("Ambrel Street", TERT30, [(v(250, 1200, 1600), sw("both")),
-                                        (v(250, 1600, 2500), sw("both"))])
+    t.street(
+        "Ambrel Street", RES25, [(v(250, 0, 600), sw("both")), (v(250, 600, 1200), sw("both"))]
+    )
+    t.street(
+        "Ambrel Street",
+        TERT30,
+        [(v(250, 1200, 1600), sw("both")), (v(250, 1600, 2500), sw("both"))],
+    )
     t.street("Bosky Lane", RES, [(v(500, 0, 200), sw("no")), (v(500, 600, 1200), sw("both"))])
     t.street("Bosky Lane", RES25, [(v(500, 1200, 2500), sw("both"))])
-    t.street("Cindle Street", RES25, [
-        (v(700, 0, 600), sw("right")),
-        (v(700, 600, 1200), sw("both")),
-        (v(700, 1200, 2500), sw("both")),
-    ])
+    t.street(
+        "Cindle Street",
+        RES25,
+        [
+            (v(700, 0, 600), sw("right")),
+            (v(700, 600, 1200), sw("both")),
+            (v(700, 1200, 2500), sw("both")),
+        ],
+    )
     t.street("Dapplewood Street", RES, [(v(1100, 0, 1200), sw("both"))])
     t.street("Dapplewood Street", RES25, [(v(1100, 1200, 2500), sw("both"))])
     t.street("Emberglow Street", RES, [(v(1700, 0, 1000), sw("both"))])
@@ -442,43 +522,84 @@ def build_streets(t: Town) -> None:
     t.street("Gannetry Street", RES, [(v(2300, 600, 1600), sw("both"))])
     t.street("Gannetry Street", RES25, [(v(2300, 2250, 2500), sw("both"))])
     t.street("Kilnyard Road", {**UNCL, "maxspeed": "40"}, [(v(2500, 0, 600), sw("no"))])
-    t.street("Heathermote Street", RES25, [(v(2500, 600, 1600), sw("both")),
-                                            (v(2500, 2250, 2500), sw("both"))])
+    t.street(
+        "Heathermote Street",
+        RES25,
+        [(v(2500, 600, 1600), sw("both")), (v(2500, 2250, 2500), sw("both"))],
+    )
     t.street("Foundry Way", UNCL, [(v(2750, 0, 600), sw("no"))])
-    t.street("Inkwell Street", RES25, [(v(2750, 600, 1200), sw("both")),
-                                        (v(2750, 1200, 2500), sw("both"))])
+    t.street(
+        "Inkwell Street",
+        RES25,
+        [(v(2750, 600, 1200), sw("both")), (v(2750, 1200, 2500), sw("both"))],
+    )
     t.street("Marshbank Road", {**UNCL, "maxspeed": "50"}, [(v(3000, 0, 600), sw("no"))])
     t.street("Marshbank Road", RES, [(v(3000, 600, 1200), sw("right"))])
     t.street("Marshbank Road", RES25, [(wavy_v(3000, Y[6:], 12.0), sw("right"))])
     # an older diagonal road, cutting across the grid (odd junction angles)
-    t.street("Millrace Road", RES25, [([(1100, 800), (1210, 850), (1300, 900)], sw("left")),
-                                       ([(1300, 900), (1395, 948), (1500, 1000)], sw("left"))])
+    t.street(
+        "Millrace Road",
+        RES25,
+        [
+            ([(1100, 800), (1210, 850), (1300, 900)], sw("left")),
+            ([(1300, 900), (1395, 948), (1500, 1000)], sw("left")),
+        ],
+    )
     # ---- campus roads (inside the campus superblock) ----------------------------------
     campus = {"highway": "residential", "maxspeed": "20 mph"}
-    t.street("Scholars Bend", campus, [(
-        [(2300, 1600), (2305, 1700), (2330, 1800), (2380, 1880), (2440, 1960),
-         (2480, 2060), (2495, 2160), (2500, 2250)], sw("both"))])
+    t.street(
+        "Scholars Bend",
+        campus,
+        [
+            (
+                [
+                    (2300, 1600),
+                    (2305, 1700),
+                    (2330, 1800),
+                    (2380, 1880),
+                    (2440, 1960),
+                    (2480, 2060),
+                    (2495, 2160),
+                    (2500, 2250),
+                ],
+                sw("both"),
+            )
+        ],
+    )
     t.street("Quadrangle Way", campus, [(h(1960, 2100, 2440), sw("both"))])
     t.street("Orrery Lane", campus, [(h(2060, 2480, 2750), sw("right"))])
     # ---- special streets ------------------------------------------------------------
     t.street("Wicket Mews", {"highway": "living_street"}, [(h(1100, 2300, 2500), {})])
-    t.street("Pennyroyal Court", {"highway": "residential", "maxspeed": "walk"},
-             [(h(1500, 1700, 1820), sw("no"))])
+    t.street(
+        "Pennyroyal Court",
+        {"highway": "residential", "maxspeed": "walk"},
+        [(h(1500, 1700, 1820), sw("no"))],
+    )
     t.street("Sedgewren Court", RES, [(h(1100, 2750, 2880), sw("both"))])
     t.mark((1820, 1500), {"highway": "turning_circle"})
     t.mark((2880, 1100), {"highway": "turning_circle"})
     # ---- ways a drive filter must drop ------------------------------------------------
     t.street("Plover Reach", {**RES, "access": "private"}, [(h(700, 3000, 2860), sw("no"))])
-    t.line(v(1950, 2250, 2420), {"highway": "construction", "construction": "residential",
-                                  "name": "Foxglove Rise"})
-    t.line(h(1500, 1820, 1900), {"highway": "proposed", "proposed": "residential",
-                                  "name": "Pennyroyal Link"})
-    for pts in ([(2300, 900), (2345, 900)], [(500, 1100), (540, 1100)],
-                [(1900, 700), (1860, 700)], [(1800, 2000), (1800, 1930)]):
+    t.line(
+        v(1950, 2250, 2420),
+        {"highway": "construction", "construction": "residential", "name": "Foxglove Rise"},
+    )
+    t.line(
+        h(1500, 1820, 1900),
+        {"highway": "proposed", "proposed": "residential", "name": "Pennyroyal Link"},
+    )
+    for pts in (
+        [(2300, 900), (2345, 900)],
+        [(500, 1100), (540, 1100)],
+        [(1900, 700), (1860, 700)],
+        [(1800, 2000), (1800, 1930)],
+    ):
         t.line(pts, {"highway": "service", "service": "driveway"})
-    for pts in ([(1600, 1400), (1600, 1340), (2000, 1340), (2000, 1400)],
-                [(1800, 1000), (1800, 1100), (1650, 1100)],
-                [(2200, 1960), (2200, 1880), (2300, 1880), (2300, 1960)]):
+    for pts in (
+        [(1600, 1400), (1600, 1340), (2000, 1340), (2000, 1400)],
+        [(1800, 1000), (1800, 1100), (1650, 1100)],
+        [(2200, 1960), (2200, 1880), (2300, 1880), (2300, 1960)],
+    ):
         t.line(pts, {"highway": "service", "service": "parking_aisle"})
 
 
@@ -499,8 +620,10 @@ def build_paths(t: Town) -> None:
     t.mark((1000, 400), {"highway": "crossing", "crossing": "uncontrolled"})
     t.mark((2620, 1000), {"highway": "crossing", "crossing": "marked"})
     # campus walks
-    t.line([(2040, 1900), (2160, 1900), (2160, 1700), (2305, 1700)],
-           {"highway": "footway", "name": "Lantern Walk"})
+    t.line(
+        [(2040, 1900), (2160, 1900), (2160, 1700), (2305, 1700)],
+        {"highway": "footway", "name": "Lantern Walk"},
+    )
     t.mark((2100, 1900), {"highway": "crossing", "crossing": "marked"})
     t.line(v(2160, 1700, 1650), {"highway": "steps", "step_count": "12"})
     t.line(v(2160, 1650, 1600), {"highway": "footway"})
@@ -509,16 +632,31 @@ def build_paths(t: Town) -> None:
     t.mark((2400, 2250), {"highway": "crossing", "crossing": "uncontrolled"})
     t.mark((2600, 1600), {"highway": "crossing", "crossing": "unmarked"})
     # parks
-    t.line([(1000, 2250), (985, 2330), (1010, 2410), (1000, 2470)],
-           {"highway": "path", "surface": "gravel"})
-    t.line([(250, 200), (330, 260), (420, 340), (500, 400), (580, 470), (650, 540), (700, 600)],
-           {"highway": "cycleway", "name": "Tansy Meadow Trail", "surface": "asphalt"})
+    t.line(
+        [(1000, 2250), (985, 2330), (1010, 2410), (1000, 2470)],
+        {"highway": "path", "surface": "gravel"},
+    )
+    t.line(
+        [(250, 200), (330, 260), (420, 340), (500, 400), (580, 470), (650, 540), (700, 600)],
+        {"highway": "cycleway", "name": "Tansy Meadow Trail", "surface": "asphalt"},
+    )
     loop = rect(300, 250, 650, 550)
     t.line([*loop, loop[0]], {"highway": "footway", "surface": "fine_gravel"})
     # signals at the busiest junctions
-    for pt in ((900, 1200), (1300, 1200), (1500, 1200), (2100, 1200), (1500, 600),
-               (1500, 800), (1500, 1000), (1500, 2000), (900, 600), (900, 800),
-               (2100, 600), (2100, 800)):
+    for pt in (
+        (900, 1200),
+        (1300, 1200),
+        (1500, 1200),
+        (2100, 1200),
+        (1500, 600),
+        (1500, 800),
+        (1500, 1000),
+        (1500, 2000),
+        (900, 600),
+        (900, 800),
+        (2100, 600),
+        (2100, 800),
+    ):
         t.mark(pt, {"highway": "traffic_signals"})
 
 
@@ -567,23 +705,36 @@ BUS_STOPS: list[tuple[Point, str, bool]] = [
 
 def build_places(t: Town) -> None:
     """Add land use and the pedestrian exposure sources."""
-    for ring in (rect(10, 1212, 1290, 2490), rect(10, 10, 1490, 1188),
-                 rect(1510, 10, 2090, 990), rect(1310, 1410, 2090, 2490),
-                 rect(2110, 610, 2990, 1188), rect(2110, 1212, 2990, 1590),
-                 rect(2760, 1610, 2990, 2490), rect(2110, 2260, 2740, 2490)):
+    for ring in (
+        rect(10, 1212, 1290, 2490),
+        rect(10, 10, 1490, 1188),
+        rect(1510, 10, 2090, 990),
+        rect(1310, 1410, 2090, 2490),
+        rect(2110, 610, 2990, 1188),
+        rect(2110, 1212, 2990, 1590),
+        rect(2760, 1610, 2990, 2490),
+        rect(2110, 2260, 2740, 2490),
+    ):
         t.area(ring, {"landuse": "residential"})
     t.area(rect(2110, 10, 2990, 590), {"landuse": "industrial", "name": "Cinder Mill Yards"})
     # schools
-    t.area(SCHOOL_MARROWBY, {"amenity": "school", "name": "Marrowby Elementary School",
-                             "isced:level": "1"})
-    t.area(SCHOOL_TUMBREL, {"amenity": "school", "name": "Tumbrel Hill Middle School",
-                            "isced:level": "2"})
+    t.area(
+        SCHOOL_MARROWBY,
+        {"amenity": "school", "name": "Marrowby Elementary School", "isced:level": "1"},
+    )
+    t.area(
+        SCHOOL_TUMBREL,
+        {"amenity": "school", "name": "Tumbrel Hill Middle School", "isced:level": "2"},
+    )
     t.poi((2620, 900), {"amenity": "school", "name": "Gullhaven Academy"})
     t.poi((800, 1080), {"amenity": "kindergarten", "name": "Wobblestone Kindergarten"})
     # campus: a multipolygon with a hole (a utility plot that is not campus ground)
-    t.multipolygon([CAMPUS_OUTER], [CAMPUS_INNER],
-                   {"amenity": "university", "name": "Corvane Polytechnic University"},
-                   inner_tags={"power": "substation"})
+    t.multipolygon(
+        [CAMPUS_OUTER],
+        [CAMPUS_INNER],
+        {"amenity": "university", "name": "Corvane Polytechnic University"},
+        inner_tags={"power": "substation"},
+    )
     t.poi((380, 900), {"amenity": "college", "name": "Tidewrack Community College"})
     # retail strip along Tillerman Avenue, offices across the road
     t.area(RETAIL, {"landuse": "retail", "name": "Tillerman Shops"})
@@ -604,8 +755,9 @@ def build_places(t: Town) -> None:
     t.poi((480, 300), {"leisure": "playground", "name": "Tansy Meadow Play Area"})
     t.area(rect(2762, 2262, 2988, 2488), {"leisure": "park", "name": "Brineholt Park"})
     # hospital
-    t.area(HOSPITAL, {"amenity": "hospital", "name": "Corvane Memorial Hospital",
-                      "emergency": "yes"})
+    t.area(
+        HOSPITAL, {"amenity": "hospital", "name": "Corvane Memorial Hospital", "emergency": "yes"}
+    )
 
 
 # --------------------------------------------------------------------------------------
@@ -616,25 +768,56 @@ def build_places(t: Town) -> None:
 # weekdays). Two blocks south, Mossglen Street runs parallel through plain houses.
 # (name, depart, waypoints, indices of waypoints an alternative must keep, or None)
 ROUTES: list[tuple[str, str, list[Point], list[int] | None]] = [
-    ("school-run", "2027-03-09T15:05:00",
-     [(250, 1600), (250, 1900), (600, 2000), (1100, 2000), (1300, 2250)], None),
+    (
+        "school-run",
+        "2027-03-09T15:05:00",
+        [(250, 1600), (250, 1900), (600, 2000), (1100, 2000), (1300, 2250)],
+        None,
+    ),
     # the signalised junction of Tillerman Avenue and Osprell Road is a test condition
-    ("tillerman-retail", "2027-03-13T11:30:00",
-     [(900, 1000), (900, 1150), (1300, 1200), (1500, 1200), (1800, 1200), (2500, 1200),
-      (2750, 1300)], [0, 3, 6]),
-    ("campus-drive", "2027-03-10T12:10:00",
-     [(1700, 1600), (2000, 1600), (2330, 1800), (2480, 2060), (2500, 2250), (2750, 2250),
-      (2750, 1700)], None),
-    ("industrial-loop", "2027-03-11T10:00:00",
-     [(1700, 400), (2300, 400), (2500, 200), (2300, 0), (1900, 0), (1700, 200), (1700, 400)],
-     None),
+    (
+        "tillerman-retail",
+        "2027-03-13T11:30:00",
+        [
+            (900, 1000),
+            (900, 1150),
+            (1300, 1200),
+            (1500, 1200),
+            (1800, 1200),
+            (2500, 1200),
+            (2750, 1300),
+        ],
+        [0, 3, 6],
+    ),
+    (
+        "campus-drive",
+        "2027-03-10T12:10:00",
+        [
+            (1700, 1600),
+            (2000, 1600),
+            (2330, 1800),
+            (2480, 2060),
+            (2500, 2250),
+            (2750, 2250),
+            (2750, 1700),
+        ],
+        None,
+    ),
+    (
+        "industrial-loop",
+        "2027-03-11T10:00:00",
+        [(1700, 400), (2300, 400), (2500, 200), (2300, 0), (1900, 0), (1700, 200), (1700, 400)],
+        None,
+    ),
 ]
 
 AREAS: list[tuple[str, list[Point]]] = [
     # most of the town, leaving out the south-east corner (east industrial yards and
     # the houses around Gullhaven Academy)
-    ("corvane-main", [(-30, -30), (2630, -30), (2630, 1290), (3030, 1290), (3030, 2530),
-                      (-30, 2530)]),
+    (
+        "corvane-main",
+        [(-30, -30), (2630, -30), (2630, 1290), (3030, 1290), (3030, 2530), (-30, 2530)],
+    ),
     # the north-west houses around Marrowby Elementary School
     ("corvane-northwest", rect(-30, 1290, 1400, 2530)),
 ]
@@ -756,8 +939,12 @@ def check_strongly_connected(built: Built) -> int:
 
 def check_waypoints(town: Town) -> None:
     """Fail unless every route waypoint lies on a drivable street (within 0.5 m)."""
-    segs = [(a, b) for pts, tags in town.lines if is_drivable(tags)
-            for a, b in zip(pts, pts[1:], strict=False)]
+    segs = [
+        (a, b)
+        for pts, tags in town.lines
+        if is_drivable(tags)
+        for a, b in zip(pts, pts[1:], strict=False)
+    ]
     for name, _depart, pts, _required in ROUTES:
         for p in pts:
             if min(point_segment_distance(p, a, b) for a, b in segs) > 0.5:
@@ -770,8 +957,9 @@ def check_waypoints(town: Town) -> None:
 # --------------------------------------------------------------------------------------
 def _attr(value: str) -> str:
     """Escape a value for a double-quoted XML attribute."""
-    return (value.replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
-            .replace('"', "&quot;"))
+    return (
+        value.replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;").replace('"', "&quot;")
+    )
 
 
 def _tag_lines(tags: Tags, indent: str) -> list[str]:
@@ -822,11 +1010,13 @@ def routes_geojson() -> str:
         props: dict[str, object] = {"name": name, "depart": depart}
         if required is not None:
             props["required"] = required
-        feats.append({
-            "type": "Feature",
-            "properties": props,
-            "geometry": {"type": "LineString", "coordinates": [json_coord(p) for p in pts]},
-        })
+        feats.append(
+            {
+                "type": "Feature",
+                "properties": props,
+                "geometry": {"type": "LineString", "coordinates": [json_coord(p) for p in pts]},
+            }
+        )
     return dumps_json({"type": "FeatureCollection", "features": feats})
 
 
@@ -836,8 +1026,10 @@ def area_geojson() -> str:
         {
             "type": "Feature",
             "properties": {"name": name},
-            "geometry": {"type": "Polygon",
-                         "coordinates": [[json_coord(p) for p in [*ring, ring[0]]]]},
+            "geometry": {
+                "type": "Polygon",
+                "coordinates": [[json_coord(p) for p in [*ring, ring[0]]]],
+            },
         }
         for name, ring in AREAS
     ]
@@ -846,8 +1038,7 @@ def area_geojson() -> str:
 
 def counts(built: Built) -> dict[str, int]:
     """Count elements and exposure sources by the default profile's categories."""
-    c = {"nodes": len(built.node_pos), "ways": len(built.ways),
-         "relations": len(built.relations)}
+    c = {"nodes": len(built.node_pos), "ways": len(built.ways), "relations": len(built.relations)}
     tagged = [t for t in built.node_tags.values() if t]
     tagged += [t for _w, _r, t in built.ways] + [t for _r, _m, t in built.relations]
     rules = {
@@ -855,8 +1046,9 @@ def counts(built: Built) -> dict[str, int]:
         "campus": lambda t: t.get("amenity") in {"university", "college"},
         "retail": lambda t: t.get("landuse") == "retail" or "shop" in t,
         "commercial": lambda t: t.get("landuse") == "commercial",
-        "transit": lambda t: t.get("highway") == "bus_stop"
-        or t.get("public_transport") == "platform",
+        "transit": lambda t: (
+            t.get("highway") == "bus_stop" or t.get("public_transport") == "platform"
+        ),
         "park": lambda t: t.get("leisure") in {"park", "playground"},
         "hospital": lambda t: t.get("amenity") == "hospital",
         "crossings": lambda t: t.get("highway") == "crossing",
@@ -901,8 +1093,8 @@ route waypoint lies on a drivable street. `tests/test_sample_area.py` checks the
 
 ## What the town holds
 
-About 3 km x 2.5 km: {c['nodes']} nodes, {c['ways']} ways ({c['drivable_ways']} drivable),
-{c['relations']} relation.
+About 3 km x 2.5 km: {c["nodes"]} nodes, {c["ways"]} ways ({c["drivable_ways"]} drivable),
+{c["relations"]} relation.
 
 - Arterials: Tillerman Avenue (primary, 45 mph, 4 lanes, 40 mph along the shops with
   `sidewalk=separate` and mapped sidewalks), Osprell Road (secondary, 40 mph, 2 lanes),
@@ -923,20 +1115,20 @@ About 3 km x 2.5 km: {c['nodes']} nodes, {c['ways']} ways ({c['drivable_ways']} 
 
 Pedestrian exposure sources (counted as the default profile groups them):
 
-- school ({c['school']}): Marrowby Elementary School and Tumbrel Hill Middle School
+- school ({c["school"]}): Marrowby Elementary School and Tumbrel Hill Middle School
   (grounds polygons), Gullhaven Academy (node), Wobblestone Kindergarten (node).
-- campus ({c['campus']}): Corvane Polytechnic University (a multipolygon relation with a
+- campus ({c["campus"]}): Corvane Polytechnic University (a multipolygon relation with a
   hole), Tidewrack Community College (node).
-- retail ({c['retail']}): Tillerman Shops (`landuse=retail`) and {len(SHOPS)} `shop=*` nodes.
-- commercial ({c['commercial']}): Tallyhouse Office Park.
-- transit ({c['transit']}): `highway=bus_stop` nodes beside the arterials (such as
+- retail ({c["retail"]}): Tillerman Shops (`landuse=retail`) and {len(SHOPS)} `shop=*` nodes.
+- commercial ({c["commercial"]}): Tallyhouse Office Park.
+- transit ({c["transit"]}): `highway=bus_stop` nodes beside the arterials (such as
   {BUS_STOPS[0][1]}), {n_platform} of them also `public_transport=platform`.
-- park ({c['park']}): Quillfeather, Tansy Meadow and Brineholt parks, 2 playgrounds.
-- hospital ({c['hospital']}): Corvane Memorial Hospital.
+- park ({c["park"]}): Quillfeather, Tansy Meadow and Brineholt parks, 2 playgrounds.
+- hospital ({c["hospital"]}): Corvane Memorial Hospital.
 
-On the streets: {c['crossings']} `highway=crossing` nodes (traffic_signals, marked,
+On the streets: {c["crossings"]} `highway=crossing` nodes (traffic_signals, marked,
 uncontrolled, unmarked) near the schools, the shops and the campus, and
-{c['traffic_signals']} `highway=traffic_signals` junctions. {c['residential_landuse']}
+{c["traffic_signals"]} `highway=traffic_signals` junctions. {c["residential_landuse"]}
 `landuse=residential` polygons and one industrial yard fill the blocks.
 
 ## Planned routes (`routes.geojson`)
@@ -1006,8 +1198,12 @@ def generate() -> dict[str, str]:
 def main(argv: Sequence[str] | None = None) -> int:
     """Generate the files; return the exit status."""
     parser = argparse.ArgumentParser(description="Generate the invented sample town Corvane.")
-    parser.add_argument("--out", type=Path, default=Path(__file__).resolve().parent,
-                        help="folder to write into (default: next to this script)")
+    parser.add_argument(
+        "--out",
+        type=Path,
+        default=Path(__file__).resolve().parent,
+        help="folder to write into (default: next to this script)",
+    )
     args = parser.parse_args(argv)
     try:
         files = generate()

@@ -23,7 +23,7 @@ VISIONS = ("normal", "deuteranopia", "protanopia")
 
 
 def _hex_to_srgb(colours: list[str]) -> np.ndarray:
-    return np.array([[int(c[i:i + 2], 16) / 255.0 for i in (1, 3, 5)] for c in colours])
+    return np.array([[int(c[i : i + 2], 16) / 255.0 for i in (1, 3, 5)] for c in colours])
 
 
 def lab(colours: list[str], vision: str = "normal") -> np.ndarray:
@@ -67,13 +67,17 @@ def palettes() -> dict[str, list[str]]:
 
 def report() -> str:
     """Return the Markdown record of the check."""
-    lines = ["# Colour check of the map palettes", "",
-             "Written by `python scripts/colour_check.py` (do not edit by hand). Simulation: "
-             "Machado, Oliveira and Fernandes (2009), full severity, via colour-science; "
-             "difference: CIEDE2000 (a difference under about 2 is hard to see; 10 or more "
-             "reads as a different colour at a glance).", "",
-             "| palette | colours | min dE00 normal | deuteranopia | protanopia |",
-             "| --- | --- | --- | --- | --- |"]
+    lines = [
+        "# Colour check of the map palettes",
+        "",
+        "Written by `python scripts/colour_check.py` (do not edit by hand). Simulation: "
+        "Machado, Oliveira and Fernandes (2009), full severity, via colour-science; "
+        "difference: CIEDE2000 (a difference under about 2 is hard to see; 10 or more "
+        "reads as a different colour at a glance).",
+        "",
+        "| palette | colours | min dE00 normal | deuteranopia | protanopia |",
+        "| --- | --- | --- | --- | --- |",
+    ]
     for name, cols in palettes().items():
         cells = []
         for v in VISIONS:
@@ -83,22 +87,34 @@ def report() -> str:
     from routerisk import mapview as mv
 
     low = mv.ramp(4)[0]
-    for other, what in ((mv.STREET_COLOUR, "white background street"),
-                        (mv.BACKGROUND, "map background")):
+    for other, what in (
+        (mv.STREET_COLOUR, "white background street"),
+        (mv.BACKGROUND, "map background"),
+    ):
         ds = [min_difference([low, other], v)[0] for v in VISIONS]
-        lines.append(f"\nLowest class {low} against the {what} {other}: dE00 "
-                     + " / ".join(f"{d:.1f}" for d in ds) + " (normal / deuteranopia / "
-                     "protanopia); the class lines also get a dark casing.")
-    lines += ["", "CIE L* of the exposure ramp (4 classes), normal / deuteranopia / protanopia:",
-              ""]
+        lines.append(
+            f"\nLowest class {low} against the {what} {other}: dE00 "
+            + " / ".join(f"{d:.1f}" for d in ds)
+            + " (normal / deuteranopia / "
+            "protanopia); the class lines also get a dark casing."
+        )
+    lines += [
+        "",
+        "CIE L* of the exposure ramp (4 classes), normal / deuteranopia / protanopia:",
+        "",
+    ]
     from routerisk import mapview
 
     for v in VISIONS:
         ls = ", ".join(f"{x:.1f}" for x in lab(mapview.ramp(4), v)[:, 0])
         lines.append(f"- {v}: {ls}")
-    lines += ["", "The ramp darkens at every step for all three, so the order of the classes "
-              "reads from lightness alone. Categories are told apart by point symbol and "
-              "routes by dash pattern, so neither depends on hue.", ""]
+    lines += [
+        "",
+        "The ramp darkens at every step for all three, so the order of the classes "
+        "reads from lightness alone. Categories are told apart by point symbol and "
+        "routes by dash pattern, so neither depends on hue.",
+        "",
+    ]
     return "\n".join(lines)
 
 

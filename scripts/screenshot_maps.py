@@ -18,9 +18,18 @@ import sys
 import tempfile
 from pathlib import Path
 
-FLAGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
-         "--no-first-run", "--disable-component-update", "--disable-sync", "--disable-quic",
-         "--remote-allow-origins=*", "--virtual-time-budget=4000"]
+FLAGS = [
+    "--headless",
+    "--no-sandbox",
+    "--disable-gpu",
+    "--disable-background-networking",
+    "--no-first-run",
+    "--disable-component-update",
+    "--disable-sync",
+    "--disable-quic",
+    "--remote-allow-origins=*",
+    "--virtual-time-budget=4000",
+]
 
 
 def main() -> int:
@@ -36,8 +45,11 @@ def main() -> int:
     pages = sorted(p for p in args.folder.rglob("*.html") if ".map" not in p.suffixes)
     with tempfile.TemporaryDirectory() as work:
         for page in pages:
-            target = (args.out / page.relative_to(args.folder)).with_suffix(".png") \
-                if args.out else page.with_suffix(".png")
+            target = (
+                (args.out / page.relative_to(args.folder)).with_suffix(".png")
+                if args.out
+                else page.with_suffix(".png")
+            )
             target.parent.mkdir(parents=True, exist_ok=True)
             _shot(chromium, page, target, args.size)
             maps = re.findall(r'<iframe[^>]*srcdoc="([^"]*)"', page.read_text(encoding="utf-8"))
@@ -50,9 +62,19 @@ def main() -> int:
 
 def _shot(chromium: str, page: Path, target: Path, size: str) -> None:
     with tempfile.TemporaryDirectory() as profile:
-        subprocess.run([chromium, *FLAGS, f"--user-data-dir={profile}",
-                        f"--window-size={size}", f"--screenshot={target}",
-                        page.resolve().as_uri()], check=True, capture_output=True, timeout=120)
+        subprocess.run(
+            [
+                chromium,
+                *FLAGS,
+                f"--user-data-dir={profile}",
+                f"--window-size={size}",
+                f"--screenshot={target}",
+                page.resolve().as_uri(),
+            ],
+            check=True,
+            capture_output=True,
+            timeout=120,
+        )
     print(f"{page} -> {target}")
 
 

@@ -42,15 +42,27 @@ def main() -> int:
 
     net = build_network(datasets.get_path("town"), timezone=TOWN_TIMEZONE)
     args.out.mkdir(parents=True, exist_ok=True)
-    with tempfile.TemporaryDirectory() as dl, LiveServer(create_app(net)) as server, \
-            Session(downloads=Path(dl)) as s:
-        seen = walk_through(s, server.url, points=POINTS, corners=CORNERS, depart=DEPART,
-                            plan_files=[datasets.get_path("runs"), datasets.get_path("routes")],
-                            plan_date=DEPART[0], shots=args.out)
+    with (
+        tempfile.TemporaryDirectory() as dl,
+        LiveServer(create_app(net)) as server,
+        Session(downloads=Path(dl)) as s,
+    ):
+        seen = walk_through(
+            s,
+            server.url,
+            points=POINTS,
+            corners=CORNERS,
+            depart=DEPART,
+            plan_files=[datasets.get_path("runs"), datasets.get_path("routes")],
+            plan_date=DEPART[0],
+            shots=args.out,
+        )
         problems = s.seen()
-    print(f"score {seen['score']}, picked {seen['picked_label']} {seen['picked']}, "
-          f"area {seen['area_km']} km; {seen.get('plan_summary')}; "
-          f"console errors: {len(problems['errors'])}")
+    print(
+        f"score {seen['score']}, picked {seen['picked_label']} {seen['picked']}, "
+        f"area {seen['area_km']} km; {seen.get('plan_summary')}; "
+        f"console errors: {len(problems['errors'])}"
+    )
     for name in ("route", "week", "area", "plan", "compare"):
         print(args.out / f"{name}.png")
     return 0

@@ -18,13 +18,22 @@ from pathlib import Path
 import pytest
 
 CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
-FLAGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
-         "--no-first-run", "--disable-component-update", "--disable-sync", "--disable-quic",
-         "--remote-allow-origins=*"]
+FLAGS = [
+    "--headless",
+    "--no-sandbox",
+    "--disable-gpu",
+    "--disable-background-networking",
+    "--no-first-run",
+    "--disable-component-update",
+    "--disable-sync",
+    "--disable-quic",
+    "--remote-allow-origins=*",
+]
 
 # In CI (CI set) a missing chromium fails the browser tests instead of skipping them.
-needs_chromium = pytest.mark.skipif(CHROMIUM is None and not os.environ.get("CI"),
-                                    reason="Debian's chromium is not installed")
+needs_chromium = pytest.mark.skipif(
+    CHROMIUM is None and not os.environ.get("CI"), reason="Debian's chromium is not installed"
+)
 
 
 def _free_port() -> int:
@@ -65,10 +74,18 @@ def inspect_page(page: Path, *, screenshot: Path | None = None, script: str = "1
     """Open ``page`` (a file) headless; return console errors, requests and ``script``'s value."""
     port = _free_port()
     profile = tempfile.mkdtemp(prefix="rr-chromium-")
-    proc = subprocess.Popen([CHROMIUM, *FLAGS, f"--user-data-dir={profile}",
-                             f"--remote-debugging-port={port}", "--window-size=1280,900",
-                             "about:blank"], stdout=subprocess.DEVNULL,
-                            stderr=subprocess.DEVNULL)
+    proc = subprocess.Popen(
+        [
+            CHROMIUM,
+            *FLAGS,
+            f"--user-data-dir={profile}",
+            f"--remote-debugging-port={port}",
+            "--window-size=1280,900",
+            "about:blank",
+        ],
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.DEVNULL,
+    )
     try:
         for _ in range(100):
             try:
@@ -115,13 +132,13 @@ def inspect_page(page: Path, *, screenshot: Path | None = None, script: str = "1
         if m == "Runtime.exceptionThrown":
             errors.append(p["exceptionDetails"].get("text", "exception"))
         elif m == "Runtime.consoleAPICalled" and p.get("type") in ("error", "assert"):
-            errors.append(" ".join(str(a.get("value", a.get("description", ""))) for a in
-                                   p.get("args", [])))
+            errors.append(
+                " ".join(str(a.get("value", a.get("description", ""))) for a in p.get("args", []))
+            )
         elif m == "Log.entryAdded" and p["entry"].get("level") == "error":
             errors.append(p["entry"].get("text", ""))
         elif m == "Network.requestWillBeSent":
             url = p["request"]["url"]
             if not url.startswith(("file:", "data:", "about:")):
                 requests.append(url)
-    return {"errors": errors, "requests": requests,
-            "value": value.get("result", {}).get("value")}
+    return {"errors": errors, "requests": requests, "value": value.get("result", {}).get("value")}

@@ -60,15 +60,23 @@ def _road_class(k: int, n: int) -> tuple[str, float, int | None]:
     return "residential", 30.0, None
 
 
-def _add_link(graph: nx.MultiDiGraph, a: int, b: int, geom: LineString, oneway: bool,
-              attrs: dict[str, Any]) -> None:
+def _add_link(
+    graph: nx.MultiDiGraph, a: int, b: int, geom: LineString, oneway: bool, attrs: dict[str, Any]
+) -> None:
     """Add edge a -> b (and b -> a with the reversed geometry unless one-way)."""
     directions = [(a, b, geom)] if oneway else [(a, b, geom), (b, a, geom.reverse())]
     for u, v, g in directions:
         length = float(g.length)
-        graph.add_edge(u, v, geometry=g, length=length,
-                       travel_time=length / (attrs["speed_kph"] / 3.6), oneway=oneway,
-                       reversed=False, **attrs)
+        graph.add_edge(
+            u,
+            v,
+            geometry=g,
+            length=length,
+            travel_time=length / (attrs["speed_kph"] / 3.6),
+            oneway=oneway,
+            reversed=False,
+            **attrs,
+        )
 
 
 def grid_graph(
@@ -95,8 +103,11 @@ def grid_graph(
     def nid(r: int, c: int) -> int:
         return 10_000 + r * n + c
 
-    xy = {nid(r, c): (x0 + (c - half) * block_m, y0 + (r - half) * block_m)
-          for r in range(n) for c in range(n)}
+    xy = {
+        nid(r, c): (x0 + (c - half) * block_m, y0 + (r - half) * block_m)
+        for r in range(n)
+        for c in range(n)
+    }
     lon, lat = _TO_LONLAT.transform([p[0] for p in xy.values()], [p[1] for p in xy.values()])
     for (node, (x, y)), lo, la in zip(xy.items(), lon, lat, strict=True):
         graph.add_node(node, x=x, y=y, lon=float(lo), lat=float(la), street_count=0)
@@ -112,13 +123,30 @@ def grid_graph(
         name = f"Row {k + 1} Street" if axis == "row" else f"Column {k + 1} Avenue"
         curved = rng.random() < curved_share
         geom = _bulged(xy[a], xy[b], 14.0) if curved else LineString([xy[a], xy[b]])
-        _add_link(graph, a, b, geom, oneway, {"highway": highway, "speed_kph": speed,
-                                              "lanes": lanes, "name": name, "osmid": osmid})
+        _add_link(
+            graph,
+            a,
+            b,
+            geom,
+            oneway,
+            {"highway": highway, "speed_kph": speed, "lanes": lanes, "name": name, "osmid": osmid},
+        )
         if rng.random() < parallel_share:
             osmid += 1
-            _add_link(graph, a, b, _bulged(xy[a], xy[b], -35.0), oneway,
-                      {"highway": "service", "speed_kph": 20.0, "lanes": None, "name": "",
-                       "osmid": osmid})
+            _add_link(
+                graph,
+                a,
+                b,
+                _bulged(xy[a], xy[b], -35.0),
+                oneway,
+                {
+                    "highway": "service",
+                    "speed_kph": 20.0,
+                    "lanes": None,
+                    "name": "",
+                    "osmid": osmid,
+                },
+            )
     for node in graph.nodes:
         neighbours = set(graph.predecessors(node)) | set(graph.successors(node))
         graph.nodes[node]["street_count"] = len(neighbours)

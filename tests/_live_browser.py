@@ -29,9 +29,17 @@ class Session:
         self.profile = tempfile.mkdtemp(prefix="rr-chromium-")
         self.downloads = downloads
         self.proc = subprocess.Popen(
-            [CHROMIUM, *FLAGS, f"--user-data-dir={self.profile}",
-             f"--remote-debugging-port={self.port}", f"--window-size={size}", "about:blank"],
-            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+            [
+                CHROMIUM,
+                *FLAGS,
+                f"--user-data-dir={self.profile}",
+                f"--remote-debugging-port={self.port}",
+                f"--window-size={size}",
+                "about:blank",
+            ],
+            stdout=subprocess.DEVNULL,
+            stderr=subprocess.DEVNULL,
+        )
         for _ in range(150):
             try:
                 with urllib.request.urlopen(f"http://127.0.0.1:{self.port}/json") as r:
@@ -47,8 +55,12 @@ class Session:
         with urllib.request.urlopen(f"http://127.0.0.1:{self.port}/json/version") as r:
             browser_ws = json.loads(r.read())["webSocketDebuggerUrl"]
         self.browser = _CDP(browser_ws)
-        self.browser.call("Browser.setDownloadBehavior", behavior="allow",
-                          downloadPath=str(downloads), eventsEnabled=True)
+        self.browser.call(
+            "Browser.setDownloadBehavior",
+            behavior="allow",
+            downloadPath=str(downloads),
+            eventsEnabled=True,
+        )
         self.cdp = _CDP(pages[0]["webSocketDebuggerUrl"])
         for domain in ("Runtime", "Log", "Network", "Page"):
             self.cdp.call(f"{domain}.enable")
@@ -76,11 +88,14 @@ class Session:
 
     def js(self, expression: str) -> Any:
         """Evaluate ``expression`` in the page (promises awaited); return its value."""
-        res = self.cdp.call("Runtime.evaluate", expression=expression, returnByValue=True,
-                            awaitPromise=True)
+        res = self.cdp.call(
+            "Runtime.evaluate", expression=expression, returnByValue=True, awaitPromise=True
+        )
         if "exceptionDetails" in res:
-            raise RuntimeError(f"page script failed: {res['exceptionDetails'].get('text')}: "
-                               f"{res.get('result', {}).get('description')}")
+            raise RuntimeError(
+                f"page script failed: {res['exceptionDetails'].get('text')}: "
+                f"{res.get('result', {}).get('description')}"
+            )
         return res.get("result", {}).get("value")
 
     def wait(self, expression: str, timeout: float = 30.0) -> Any:
@@ -96,8 +111,9 @@ class Session:
     def click_xy(self, x: float, y: float) -> None:
         """Press and release the left mouse button at page pixel (x, y)."""
         for kind in ("mouseMoved", "mousePressed", "mouseReleased"):
-            self.cdp.call("Input.dispatchMouseEvent", type=kind, x=x, y=y, button="left",
-                          clickCount=1)
+            self.cdp.call(
+                "Input.dispatchMouseEvent", type=kind, x=x, y=y, button="left", clickCount=1
+            )
         self.cdp.drain(0.15)
 
     def click(self, selector: str) -> None:
@@ -137,8 +153,11 @@ class Session:
         """Wait for a finished download ending in ``suffix``; return it."""
         end = time.time() + timeout
         while time.time() < end:
-            done = [p for p in self.downloads.iterdir()
-                    if p.name.endswith(suffix) and not p.name.endswith(".crdownload")]
+            done = [
+                p
+                for p in self.downloads.iterdir()
+                if p.name.endswith(suffix) and not p.name.endswith(".crdownload")
+            ]
             if done:
                 return done[0]
             self.cdp.drain(0.2)
@@ -154,11 +173,15 @@ class Session:
             m, p = ev.get("method"), ev.get("params", {})
             if m == "Runtime.exceptionThrown":
                 d = p["exceptionDetails"]
-                errors.append(d.get("text", "") + " " + str(d.get("exception", {}).get(
-                    "description", "")))
+                errors.append(
+                    d.get("text", "") + " " + str(d.get("exception", {}).get("description", ""))
+                )
             elif m == "Runtime.consoleAPICalled" and p.get("type") in ("error", "assert"):
-                errors.append(" ".join(str(a.get("value", a.get("description", "")))
-                                       for a in p.get("args", [])))
+                errors.append(
+                    " ".join(
+                        str(a.get("value", a.get("description", ""))) for a in p.get("args", [])
+                    )
+                )
             elif m == "Log.entryAdded" and p["entry"].get("level") == "error":
                 errors.append(p["entry"].get("text", "") + " " + p["entry"].get("url", ""))
             elif m == "Page.javascriptDialogOpening":
@@ -176,8 +199,9 @@ class LiveServer:
         import uvicorn
 
         self.port = _free_port()
-        self.server = uvicorn.Server(uvicorn.Config(app, host="127.0.0.1", port=self.port,
-                                                    log_level="warning"))
+        self.server = uvicorn.Server(
+            uvicorn.Config(app, host="127.0.0.1", port=self.port, log_level="warning")
+        )
         self.thread = threading.Thread(target=self.server.run, daemon=True)
 
     @property
@@ -198,15 +222,23 @@ class LiveServer:
         self.thread.join(timeout=10)
 
 
-def walk_through(s: Session, url: str, *, points: list[tuple[float, float]],
-                 corners: list[tuple[float, float]], depart: tuple[str, str],
-                 plan_files: list[Path] | None = None, plan_date: str = "",
-                 shots: Path | None = None) -> dict[str, Any]:
+def walk_through(
+    s: Session,
+    url: str,
+    *,
+    points: list[tuple[float, float]],
+    corners: list[tuple[float, float]],
+    depart: tuple[str, str],
+    plan_files: list[Path] | None = None,
+    plan_date: str = "",
+    shots: Path | None = None,
+) -> dict[str, Any]:
     """Use every pane of the planning page as a person would; return what the page showed.
 
     ``points`` and ``corners`` are (lat, lon); ``depart`` is (date, time). With ``shots``,
     a screenshot of each pane is saved there (route.png, week.png, area.png, compare.png).
     """
+
     def shot(name: str) -> None:
         if shots is not None:
             s.cdp.drain(0.6)
@@ -219,8 +251,10 @@ def walk_through(s: Session, url: str, *, points: list[tuple[float, float]],
     for lat, lon in points:
         s.click_map(lat, lon)
     out["placed"] = s.js("S.points.length")
-    s.js(f"$('depart-date').value = {json.dumps(depart[0])}; "
-         f"$('depart-time').value = {json.dumps(depart[1])}; true")
+    s.js(
+        f"$('depart-date').value = {json.dumps(depart[0])}; "
+        f"$('depart-time').value = {json.dumps(depart[1])}; true"
+    )
     s.click("#btn-score")
     s.wait("!$('route-result').hidden && $('total-risk').textContent !== ''")
     s.wait("$('busy').hidden")
@@ -266,10 +300,12 @@ def walk_through(s: Session, url: str, *, points: list[tuple[float, float]],
     out["csv"] = s.wait_download(".csv")
     shot("compare")
     out["body_text"] = s.js("document.body.textContent")
-    out["tooltips"] = s.js("(() => { const t = []; netLayer.eachLayer(g => g.eachLayer(l => "
-                           "{ const x = l.getTooltip(); if (x) { let c = x.getContent(); "
-                           "if (typeof c === 'function') c = c(l); t.push(c.textContent); } "
-                           "})); return t; })()")
+    out["tooltips"] = s.js(
+        "(() => { const t = []; netLayer.eachLayer(g => g.eachLayer(l => "
+        "{ const x = l.getTooltip(); if (x) { let c = x.getContent(); "
+        "if (typeof c === 'function') c = c(l); t.push(c.textContent); } "
+        "})); return t; })()"
+    )
     out["img_x"] = s.js("document.querySelectorAll('img[src=\"x\"]').length")
     out["caution"] = s.text("#caution")
     return out

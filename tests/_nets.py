@@ -12,8 +12,13 @@ from routerisk.network import Network
 CRS = "EPSG:32625"
 
 
-def make_network(nodes: dict[int, tuple[float, float]], edges: list[dict], profile,
-                 *, timezone: str = "Etc/GMT+3") -> Network:
+def make_network(
+    nodes: dict[int, tuple[float, float]],
+    edges: list[dict],
+    profile,
+    *,
+    timezone: str = "Etc/GMT+3",
+) -> Network:
     """Return a Network from node coordinates and edge dicts (u, v and any tag columns).
 
     Missing columns get neutral values: length from the straight geometry, 10 m/s travel,
@@ -23,10 +28,21 @@ def make_network(nodes: dict[int, tuple[float, float]], edges: list[dict], profi
     for e in edges:
         u, v = e["u"], e["v"]
         geom = LineString([nodes[u], nodes[v]])
-        row = {"u": u, "v": v, "key": e.get("key", 0), "highway": "residential",
-               "name": f"Street {u}-{v}", "length": geom.length, "speed_kph": 36.0,
-               "severity": 1.0, "baseline": 0.1, "crossings": 0, "band": "quiet",
-               "exposure_km": 0.1, "geometry": geom}
+        row = {
+            "u": u,
+            "v": v,
+            "key": e.get("key", 0),
+            "highway": "residential",
+            "name": f"Street {u}-{v}",
+            "length": geom.length,
+            "speed_kph": 36.0,
+            "severity": 1.0,
+            "baseline": 0.1,
+            "crossings": 0,
+            "band": "quiet",
+            "exposure_km": 0.1,
+            "geometry": geom,
+        }
         for c in profile.category_names:
             row[f"exp_{c}"] = 0.0
             row[f"infl_{c}"] = 0.0
@@ -38,10 +54,12 @@ def make_network(nodes: dict[int, tuple[float, float]], edges: list[dict], profi
     df = gpd.GeoDataFrame(pd.DataFrame(rows), geometry="geometry", crs=CRS)
     df = df.set_index(["u", "v", "key"])
     ids = sorted(nodes)
-    nd = gpd.GeoDataFrame({"x": [nodes[i][0] for i in ids], "y": [nodes[i][1] for i in ids]},
-                          index=pd.Index(ids, name="osmid"),
-                          geometry=gpd.points_from_xy([nodes[i][0] for i in ids],
-                                                      [nodes[i][1] for i in ids]), crs=CRS)
+    nd = gpd.GeoDataFrame(
+        {"x": [nodes[i][0] for i in ids], "y": [nodes[i][1] for i in ids]},
+        index=pd.Index(ids, name="osmid"),
+        geometry=gpd.points_from_xy([nodes[i][0] for i in ids], [nodes[i][1] for i in ids]),
+        crs=CRS,
+    )
     empty = gpd.GeoDataFrame({"category": []}, geometry=[], crs=CRS)
     return Network(df, nd, empty, empty, profile, {"timezone": timezone})
 

@@ -23,8 +23,15 @@ def write(path: Path, parts: list[str]) -> Path:
     return path
 
 
-def grid_town(path: Path, *, n: int = 4, step_deg: float = 0.001, lat0: float = 38.5,
-              lon0: float = -38.0, extra: list[str] | None = None) -> Path:
+def grid_town(
+    path: Path,
+    *,
+    n: int = 4,
+    step_deg: float = 0.001,
+    lat0: float = 38.5,
+    lon0: float = -38.0,
+    extra: list[str] | None = None,
+) -> Path:
     """Write an n x n grid of two-way residential streets (ids 1..n*n) plus ``extra``."""
     parts = []
     for r in range(n):
@@ -32,11 +39,24 @@ def grid_town(path: Path, *, n: int = 4, step_deg: float = 0.001, lat0: float = 
             parts.append(node(1 + r * n + c, lat0 + r * step_deg, lon0 + c * step_deg))
     wid = 1000
     for r in range(n):
-        parts.append(way(wid, [1 + r * n + c for c in range(n)], highway="residential",
-                         name=f"Row {r} Street", maxspeed="25 mph"))
+        parts.append(
+            way(
+                wid,
+                [1 + r * n + c for c in range(n)],
+                highway="residential",
+                name=f"Row {r} Street",
+                maxspeed="25 mph",
+            )
+        )
         wid += 1
     for c in range(n):
-        parts.append(way(wid, [1 + r * n + c for r in range(n)], highway="residential",
-                         name=f"Column {c} Avenue"))
+        parts.append(
+            way(
+                wid,
+                [1 + r * n + c for r in range(n)],
+                highway="residential",
+                name=f"Column {c} Avenue",
+            )
+        )
         wid += 1
     return write(path, parts + (extra or []))

@@ -31,8 +31,7 @@ def default_profile():
 @pytest.fixture(scope="session")
 def town_net(default_profile):
     """The sample town tagged with the default profile (built once per session)."""
-    return build_network(datasets.get_path("town"), profile=default_profile,
-                         timezone="Etc/GMT+3")
+    return build_network(datasets.get_path("town"), profile=default_profile, timezone="Etc/GMT+3")
 
 
 @pytest.fixture(scope="session")
@@ -47,7 +46,12 @@ def pytest_terminal_summary(terminalreporter):
     """Print how many browser tests ran, so a missing chromium is never silent."""
     from ._browser import CHROMIUM
 
-    ran = [r for k in ("passed", "failed") for r in terminalreporter.stats.get(k, [])
-           if "browser" in getattr(r, "keywords", {})]
+    ran = [
+        r
+        for k in ("passed", "failed")
+        for r in terminalreporter.stats.get(k, [])
+        if "browser" in getattr(r, "keywords", {})
+    ]
     terminalreporter.write_line(
-        f"browser tests run: {len(ran)} (chromium: {CHROMIUM or 'not found, skipped'})")
+        f"browser tests run: {len(ran)} (chromium: {CHROMIUM or 'not found, skipped'})"
+    )

@@ -28,9 +28,11 @@ def test_score_and_suggest_agree_on_the_planned_route(town_dir, capsys):
         for a in sg["alternatives"]:
             # every change is stated against that same planned figure
             assert a["risk_change_pct"] == pytest.approx(
-                100.0 * (a["risk"] - p["risk"]) / p["risk"], abs=2e-3)
+                100.0 * (a["risk"] - p["risk"]) / p["risk"], abs=2e-3
+            )
             assert a["length_change_pct"] == pytest.approx(
-                100.0 * (a["length_km"] - p["length_km"]) / p["length_km"], abs=2e-3)
+                100.0 * (a["length_km"] - p["length_km"]) / p["length_km"], abs=2e-3
+            )
 
 
 def test_library_figures_agree_unrounded(town_net):
@@ -44,8 +46,10 @@ def test_library_figures_agree_unrounded(town_net):
     assert any(f < 1.0 for s in sugs for f in s.planned_fractions)  # partial ends are present
     for sc, sg in zip(scores, sugs, strict=True):
         for key in ("risk", "length_km", "duration_min"):
-            assert getattr(sg.planned, key) == pytest.approx(getattr(sc, key), rel=1e-9,
-                                                             abs=0.0), (sc.name, key)
+            assert getattr(sg.planned, key) == pytest.approx(getattr(sc, key), rel=1e-9, abs=0.0), (
+                sc.name,
+                key,
+            )
         for a in sg.alternatives:
             # alternatives drive the plan's partial first and last edges the same way
             assert a.edges[0] == sg.planned_edges[0] or sg.planned_fractions[0] == 1.0
@@ -53,7 +57,8 @@ def test_library_figures_agree_unrounded(town_net):
             assert a.fractions[0] == sg.planned_fractions[0] or sg.planned_fractions[0] == 1.0
             assert a.fractions[-1] == sg.planned_fractions[-1] or sg.planned_fractions[-1] == 1.0
             assert a.risk_change_pct == pytest.approx(
-                100.0 * (a.score.risk - sg.planned.risk) / sg.planned.risk, rel=1e-12)
+                100.0 * (a.score.risk - sg.planned.risk) / sg.planned.risk, rel=1e-12
+            )
 
 
 def test_score_and_suggest_agree_on_a_real_extract(real_pbf, tmp_path, capsys):
@@ -68,10 +73,13 @@ def test_score_and_suggest_agree_on_a_real_extract(real_pbf, tmp_path, capsys):
     for i, (a, b) in enumerate([(0, len(lines) // 2), (3, len(lines) - 4), (7, len(lines) // 3)]):
         p = lines[a].interpolate(0.3, normalized=True)
         q = lines[b].interpolate(0.7, normalized=True)
-        feats.append({"type": "Feature", "properties": {"name": f"real-{i}",
-                                                        "depart": "2026-07-07T08:30"},
-                      "geometry": {"type": "LineString", "coordinates": [[p.x, p.y],
-                                                                         [q.x, q.y]]}})
+        feats.append(
+            {
+                "type": "Feature",
+                "properties": {"name": f"real-{i}", "depart": "2026-07-07T08:30"},
+                "geometry": {"type": "LineString", "coordinates": [[p.x, p.y], [q.x, q.y]]},
+            }
+        )
     src = tmp_path / "routes.geojson"
     src.write_text(json.dumps({"type": "FeatureCollection", "features": feats}))
     scored = _json(capsys, ["score", str(src), "--network", str(out), "--json"])["routes"]
@@ -94,16 +102,22 @@ def test_day_plan_scores_each_run_as_score_does(town_dir, tmp_path, capsys):
     import yaml
 
     runs_file = datasets.get_path("runs")
-    plan = _json(capsys, ["plan", str(runs_file), "--network", str(town_dir),
-                          "--date", "2027-03-09", "--json"])
+    plan = _json(
+        capsys,
+        ["plan", str(runs_file), "--network", str(town_dir), "--date", "2027-03-09", "--json"],
+    )
     spec = {r["name"]: r for r in yaml.safe_load(runs_file.read_text())["runs"]}
     planned = [r for r in plan["runs"] if r["route"] == "planned"]
     assert planned
     src = str(runs_file.parent / "routes.geojson")
     for r in planned:
         want = spec[r["name"]].get("route_name", r["name"])
-        scored = [s for s in _json(capsys, ["score", src, "--network", str(town_dir),
-                                            "--depart", r["start"], "--json"])["routes"]
-                  if s["name"] == want]
+        scored = [
+            s
+            for s in _json(
+                capsys, ["score", src, "--network", str(town_dir), "--depart", r["start"], "--json"]
+            )["routes"]
+            if s["name"] == want
+        ]
         assert len(scored) == 1
         assert r["risk"] == pytest.approx(scored[0]["risk"], rel=1e-6, abs=1e-6), r["name"]

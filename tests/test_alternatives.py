@@ -19,10 +19,17 @@ DEPART = dt.datetime(2027, 3, 9, 11, 0, tzinfo=TZ)  # a Tuesday
 
 
 def _flat_profile(rules=()):
-    return parse_profile({"version": 1, "name": "flat", "categories": {
-        "school": {"select": [{"amenity": "school"}], "weight": 3.0, "radius_m": 50},
-        "retail": {"select": [{"shop": "*"}], "weight": 1.0, "radius_m": 30}},
-        "rules": list(rules)})
+    return parse_profile(
+        {
+            "version": 1,
+            "name": "flat",
+            "categories": {
+                "school": {"select": [{"amenity": "school"}], "weight": 3.0, "radius_m": 50},
+                "retail": {"select": [{"shop": "*"}], "weight": 1.0, "radius_m": 30},
+            },
+            "rules": list(rules),
+        }
+    )
 
 
 def _grid_case(seed):
@@ -34,14 +41,17 @@ def _grid_case(seed):
     G = nx.DiGraph()
     for row, (u, v, _k) in enumerate(sc.index):
         G.add_edge(u, v, row=row)
-    paths = [[G[a][b]["row"] for a, b in zip(p[:-1], p[1:], strict=True)]
-             for p in nx.all_simple_paths(G, 1, 16)]
+    paths = [
+        [G[a][b]["row"] for a, b in zip(p[:-1], p[1:], strict=True)]
+        for p in nx.all_simple_paths(G, 1, 16)
+    ]
     return g, sc.tt, risk, paths
 
 
 def _points(rows_list, tt, risk):
-    return sorted({(round(float(tt[r].sum()), 9), round(float(risk[r].sum()), 9))
-                   for r in rows_list})
+    return sorted(
+        {(round(float(tt[r].sum()), 9), round(float(risk[r].sum()), 9)) for r in rows_list}
+    )
 
 
 @pytest.mark.parametrize("seed", range(6))
@@ -94,8 +104,7 @@ def test_alternatives_never_break_hard_rules():
     sc = Scorer(net)
     planned = nx.shortest_path(net.graph, 1, 25, weight="travel_time")
     edges = [(a, b, 0) for a, b in zip(planned[:-1], planned[1:], strict=True)]
-    s = Suggester(sc).suggest("p", edges, DEPART, count=3, max_extra_time=1.0,
-                              min_difference=0.2)
+    s = Suggester(sc).suggest("p", edges, DEPART, count=3, max_extra_time=1.0, min_difference=0.2)
     for alt in s.alternatives:
         rescored = Scorer(net).score("check", alt.edges, DEPART)  # independent re-score
         if alt.within_bounds:
@@ -110,8 +119,7 @@ def test_alternatives_differ_from_plan_and_each_other():
     sc = Scorer(net)
     planned = nx.shortest_path(net.graph, 1, 36, weight="travel_time")
     edges = [(a, b, 0) for a, b in zip(planned[:-1], planned[1:], strict=True)]
-    s = Suggester(sc).suggest("p", edges, DEPART, count=3, max_extra_time=0.6,
-                              min_difference=0.3)
+    s = Suggester(sc).suggest("p", edges, DEPART, count=3, max_extra_time=0.6, min_difference=0.3)
     for alt in s.alternatives:
         assert 1 - alt.overlap_with_plan >= 0.3 - 1e-9
         assert alt.score.risk < s.planned.risk
@@ -138,8 +146,12 @@ def test_much_shorter_alternative_carries_a_caveat():
 
 def _cut_case():
     """A 5x5 grid whose end node 25 lies in a rule zone in force on Tuesdays 10:00-12:00."""
-    rule = {"name": "school zone", "category": "school", "within_m": 10,
-            "windows": [{"days": ["tue"], "start": "10:00", "end": "12:00"}]}
+    rule = {
+        "name": "school zone",
+        "category": "school",
+        "within_m": 10,
+        "windows": [{"days": ["tue"], "start": "10:00", "end": "12:00"}],
+    }
     net = random_grid(_flat_profile([rule]), n=5, seed=3)
     v = net.edges.index.get_level_values(1)
     net.edges["rule_0"] = np.asarray(v == 25)  # every way into the end is in the zone
@@ -184,13 +196,16 @@ def test_route_of_two_partial_edges_in_a_rule_zone_explains(town_net):
     sc = Scorer(town_net)
     assert town_net.edges.loc[[(75, 160, 0), (160, 112, 0)], "rule_0"].all()
     depart = dt.datetime(2027, 3, 9, 8, 0, tzinfo=TZ)  # a Tuesday, rule in force 07-09
-    s = Suggester(sc).suggest("z", [(75, 160, 0), (160, 112, 0)], depart,
-                              fractions=np.array([0.5, 0.5]))
+    s = Suggester(sc).suggest(
+        "z", [(75, 160, 0), (160, 112, 0)], depart, fractions=np.array([0.5, 0.5])
+    )
     assert s.alternatives == []
     assert any("no part to change" in r for r in s.reasons)
     assert any("starts on Kipperling Street inside the zone" in r for r in s.reasons)
-    assert s.rule_free_departures == {"earlier": "2027-03-09T06:59:00-03:00",
-                                      "later": "2027-03-09T09:00:00-03:00"}
+    assert s.rule_free_departures == {
+        "earlier": "2027-03-09T06:59:00-03:00",
+        "later": "2027-03-09T09:00:00-03:00",
+    }
     d = s.to_dict()
     assert d["reasons"] == s.reasons and d["next_steps"] == s.next_steps
 

@@ -57,17 +57,20 @@ def _same(result_dict: dict) -> dict:
 
 
 def test_import_is_light():
-    code = ("import sys, routerisk\n"
-            "heavy = [m for m in ('geopandas', 'matplotlib', 'folium', 'dask', 'scipy', "
-            "'shapely', 'osmnx') if m in sys.modules]\n"
-            "print(','.join(heavy))\n"
-            "assert callable(routerisk.score_routes)\n"  # the lazy attribute resolves
-            "print('routerisk.api' in sys.modules)\n"
-            "print(','.join(m for m in ('geopandas', 'matplotlib', 'folium') "
-            "if m in sys.modules))\n")
+    code = (
+        "import sys, routerisk\n"
+        "heavy = [m for m in ('geopandas', 'matplotlib', 'folium', 'dask', 'scipy', "
+        "'shapely', 'osmnx') if m in sys.modules]\n"
+        "print(','.join(heavy))\n"
+        "assert callable(routerisk.score_routes)\n"  # the lazy attribute resolves
+        "print('routerisk.api' in sys.modules)\n"
+        "print(','.join(m for m in ('geopandas', 'matplotlib', 'folium') "
+        "if m in sys.modules))\n"
+    )
     env = {**os.environ, "PYTHONPATH": str(ROOT)}
-    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
-                         env=env, check=True).stdout.splitlines()
+    out = subprocess.run(
+        [sys.executable, "-c", code], capture_output=True, text=True, env=env, check=True
+    ).stdout.splitlines()
     assert out[0] == ""  # nothing heavy loaded by the import itself
     assert out[1] == "True"  # the first use imports routerisk.api ...
     assert out[2] == ""  # ... which loads the library only when a function runs
@@ -102,13 +105,26 @@ def test_score_same_as_command(capsys, town_dir, net, routes, tmp_path):
     seg = json.loads((tmp_path / "o" / "segments.geojson").read_text())
     assert len(gdf) == len(seg["features"])
     assert gdf["risk"].sum() == pytest.approx(
-        sum(f["properties"]["risk"] for f in seg["features"]), abs=1e-5)
+        sum(f["properties"]["risk"] for f in seg["features"]), abs=1e-5
+    )
 
 
 def test_suggest_same_as_command(capsys, town_dir, net, routes):
     path = str(datasets.get_path("routes"))
-    doc = _cli(capsys, "suggest", path, "--network", str(town_dir), "--depart", DEPARTS[0],
-               "--count", "2", "--max-extra-time", "0.4", "--json")
+    doc = _cli(
+        capsys,
+        "suggest",
+        path,
+        "--network",
+        str(town_dir),
+        "--depart",
+        DEPARTS[0],
+        "--count",
+        "2",
+        "--max-extra-time",
+        "0.4",
+        "--json",
+    )
     result = rr.suggest_routes(net, routes, departs=DEPARTS[0], count=2, max_extra_time=0.4)
     assert _same(result.to_dict()) == doc
     frame = result.to_frame()
@@ -122,11 +138,25 @@ def test_suggest_same_as_command(capsys, town_dir, net, routes):
 
 def test_review_same_as_command(capsys, town_dir, net, tmp_path):
     area = str(datasets.get_path("area"))
-    doc = _cli(capsys, "review", area, "--network", str(town_dir), "--at", "wed 08:15",
-               "--top", "5", "--json", "--what-if", "weight:school=5", "weight:retail=0")
+    doc = _cli(
+        capsys,
+        "review",
+        area,
+        "--network",
+        str(town_dir),
+        "--at",
+        "wed 08:15",
+        "--top",
+        "5",
+        "--json",
+        "--what-if",
+        "weight:school=5",
+        "weight:retail=0",
+    )
     areas = rr.read_areas(area, crs=net.crs)
-    result = rr.review_areas(net, areas, at="wed 08:15", top=5,
-                             what_ifs=[["weight:school=5", "weight:retail=0"]])
+    result = rr.review_areas(
+        net, areas, at="wed 08:15", top=5, what_ifs=[["weight:school=5", "weight:retail=0"]]
+    )
     assert _same(result.to_dict()) == doc
     frame = result.to_frame()
     assert frame["network_km"].tolist() == [a["network_km"] for a in doc["areas"]]
@@ -137,8 +167,20 @@ def test_review_same_as_command(capsys, town_dir, net, tmp_path):
 
 def test_plan_same_as_command(capsys, town_dir, net):
     runs = str(datasets.get_path("runs"))
-    doc = _cli(capsys, "plan", runs, "--network", str(town_dir), "--date", "2027-03-09",
-               "--vehicles", "2", "--step", "30", "--json")
+    doc = _cli(
+        capsys,
+        "plan",
+        runs,
+        "--network",
+        str(town_dir),
+        "--date",
+        "2027-03-09",
+        "--vehicles",
+        "2",
+        "--step",
+        "30",
+        "--json",
+    )
     result = rr.plan_day(net, rr.read_runs(runs), "2027-03-09", vehicles=2, step_min=30)
     assert _same(result.to_dict()) == doc
     frame = result.to_frame()
@@ -147,9 +189,21 @@ def test_plan_same_as_command(capsys, town_dir, net):
 
 
 def test_evidence_same_as_command(capsys, town_dir, net, drives):
-    doc = _cli(capsys, "evidence", "--benchmark", "11", "--per", "1e9", "--fleet", "20",
-               "--drives", str(datasets.get_path("drives")), "--network", str(town_dir),
-               "--json")
+    doc = _cli(
+        capsys,
+        "evidence",
+        "--benchmark",
+        "11",
+        "--per",
+        "1e9",
+        "--fleet",
+        "20",
+        "--drives",
+        str(datasets.get_path("drives")),
+        "--network",
+        str(town_dir),
+        "--json",
+    )
     result = rr.plan_evidence(benchmark=11, per=1e9, fleet=20, network=net, drives=drives)
     assert _same(result.to_dict()) == doc
     assert doc["strata"] is not None  # the drives were split by exposure
@@ -157,14 +211,32 @@ def test_evidence_same_as_command(capsys, town_dir, net, drives):
     assert frame["miles"].tolist() == [r["miles"] for r in doc["allowed_events"]]
 
 
-def test_evidence_from_scored_segments_same_as_command(capsys, town_dir, net, routes,
-                                                       tmp_path):
+def test_evidence_from_scored_segments_same_as_command(capsys, town_dir, net, routes, tmp_path):
     path = str(datasets.get_path("routes"))
-    main(["score", path, "--network", str(town_dir), "--depart", DEPARTS[0], "--out",
-          str(tmp_path / "o")])
+    main(
+        [
+            "score",
+            path,
+            "--network",
+            str(town_dir),
+            "--depart",
+            DEPARTS[0],
+            "--out",
+            str(tmp_path / "o"),
+        ]
+    )
     capsys.readouterr()
-    doc = _cli(capsys, "evidence", "--benchmark", "11", "--per", "1e9", "--segments",
-               str(tmp_path / "o" / "segments.geojson"), "--json")
+    doc = _cli(
+        capsys,
+        "evidence",
+        "--benchmark",
+        "11",
+        "--per",
+        "1e9",
+        "--segments",
+        str(tmp_path / "o" / "segments.geojson"),
+        "--json",
+    )
     segments = rr.score_routes(net, routes, departs=DEPARTS[0]).to_geodataframe()
     got = _same(rr.plan_evidence(benchmark=11, per=1e9, segments=segments).to_dict())
     # the file holds the segments rounded to 6 decimals; the tables agree to that
@@ -175,15 +247,29 @@ def test_evidence_from_scored_segments_same_as_command(capsys, town_dir, net, ro
             for k, v in a.items():
                 assert v == (pytest.approx(b[k], rel=1e-6) if isinstance(v, float) else b[k])
     assert {k: v for k, v in got.items() if k not in ("by_band", "by_category")} == {
-        k: v for k, v in doc.items() if k not in ("by_band", "by_category")}
+        k: v for k, v in doc.items() if k not in ("by_band", "by_category")
+    }
 
 
 def test_watch_same_as_command(capsys, town_dir, net, drives):
     events = str(datasets.get_path("events"))
-    doc = _cli(capsys, "watch", events, "--drives", str(datasets.get_path("drives")),
-               "--network", str(town_dir), "--group", "band", "--fdr", "0.2", "--json")
-    result = rr.watch_events(net, rr.read_events(events, timezone=net.timezone), drives,
-                             group="band", fdr=0.2)
+    doc = _cli(
+        capsys,
+        "watch",
+        events,
+        "--drives",
+        str(datasets.get_path("drives")),
+        "--network",
+        str(town_dir),
+        "--group",
+        "band",
+        "--fdr",
+        "0.2",
+        "--json",
+    )
+    result = rr.watch_events(
+        net, rr.read_events(events, timezone=net.timezone), drives, group="band", fdr=0.2
+    )
     assert _same(result.to_dict()) == doc
     assert doc["events_matched"] > 0
     gdf = result.to_geodataframe()
@@ -195,8 +281,16 @@ def test_watch_same_as_command(capsys, town_dir, net, drives):
 
 
 def test_network_same_as_build(capsys, net, tmp_path):
-    doc = _cli(capsys, "build", str(datasets.get_path("town")), "--out", str(tmp_path / "n"),
-               "--timezone", "Etc/GMT+3", "--json")
+    doc = _cli(
+        capsys,
+        "build",
+        str(datasets.get_path("town")),
+        "--out",
+        str(tmp_path / "n"),
+        "--timezone",
+        "Etc/GMT+3",
+        "--json",
+    )
     built = rr.build_network(datasets.get_path("town"), timezone="Etc/GMT+3")
     assert _same(built.to_dict()) == doc
     summary = net.to_dict()  # the loaded folder has the same summary
@@ -227,32 +321,57 @@ def test_inputs_convert(net, routes):
     lonlat = rr.read_areas(datasets.get_path("area"), crs="EPSG:4326").to_frame()
     assert projected["area_km2"].min() > 1.0  # km², not m² nor square degrees
     # the same areas measured in the network's UTM zone and in an estimated one
-    assert lonlat["area_km2"].tolist() == pytest.approx(projected["area_km2"].tolist(),
-                                                        rel=1e-3)
+    assert lonlat["area_km2"].tolist() == pytest.approx(projected["area_km2"].tolist(), rel=1e-3)
 
 
 # -------------------------------------------------------------- errors name parameters
 
 
-@pytest.mark.parametrize(("call", "field"), [
-    (lambda n, r: rr.score_routes(n, r, departs=["2027-03-09"]), "departs"),
-    (lambda n, r: rr.score_routes(n, r, departs=[20270309]), "departs"),
-    (lambda n, r: rr.suggest_routes(n, r, departs=DEPARTS[0], count=0), "count"),
-    (lambda n, r: rr.suggest_routes(n, r, departs=DEPARTS[0], max_extra_time=25), "max_extra_time"),
-    (lambda n, r: rr.plan_day(n, rr.read_runs(datasets.get_path("runs")), "2027-03-09",
-                              step_min=0), "step_min"),
-    (lambda n, r: rr.plan_day(n, rr.read_runs(datasets.get_path("runs")), "09/03/2027"),
-     "date"),
-    (lambda n, r: rr.plan_evidence(benchmark=-1, per=1e9), "benchmark"),
-    (lambda n, r: rr.plan_evidence(benchmark=1, per=1e9, hours_per_day=30), "hours_per_day"),
-    (lambda n, r: rr.plan_evidence(benchmark=1, per=1e9, observed=1e6), "events"),
-    (lambda n, r: rr.review_areas(n, rr.read_areas(datasets.get_path("area"), crs=n.crs),
-                                  at="someday"), "at"),
-    (lambda n, r: rr.review_areas(n, rr.read_areas(datasets.get_path("area"), crs=n.crs),
-                                  what_ifs=[["weight:nowhere=2"]]), "what_ifs"),
-    (lambda n, r: rr.review_areas(n, rr.read_areas(datasets.get_path("area"),
-                                                   crs="EPSG:4326")), "areas"),
-])
+@pytest.mark.parametrize(
+    ("call", "field"),
+    [
+        (lambda n, r: rr.score_routes(n, r, departs=["2027-03-09"]), "departs"),
+        (lambda n, r: rr.score_routes(n, r, departs=[20270309]), "departs"),
+        (lambda n, r: rr.suggest_routes(n, r, departs=DEPARTS[0], count=0), "count"),
+        (
+            lambda n, r: rr.suggest_routes(n, r, departs=DEPARTS[0], max_extra_time=25),
+            "max_extra_time",
+        ),
+        (
+            lambda n, r: rr.plan_day(
+                n, rr.read_runs(datasets.get_path("runs")), "2027-03-09", step_min=0
+            ),
+            "step_min",
+        ),
+        (
+            lambda n, r: rr.plan_day(n, rr.read_runs(datasets.get_path("runs")), "09/03/2027"),
+            "date",
+        ),
+        (lambda n, r: rr.plan_evidence(benchmark=-1, per=1e9), "benchmark"),
+        (lambda n, r: rr.plan_evidence(benchmark=1, per=1e9, hours_per_day=30), "hours_per_day"),
+        (lambda n, r: rr.plan_evidence(benchmark=1, per=1e9, observed=1e6), "events"),
+        (
+            lambda n, r: rr.review_areas(
+                n, rr.read_areas(datasets.get_path("area"), crs=n.crs), at="someday"
+            ),
+            "at",
+        ),
+        (
+            lambda n, r: rr.review_areas(
+                n,
+                rr.read_areas(datasets.get_path("area"), crs=n.crs),
+                what_ifs=[["weight:nowhere=2"]],
+            ),
+            "what_ifs",
+        ),
+        (
+            lambda n, r: rr.review_areas(
+                n, rr.read_areas(datasets.get_path("area"), crs="EPSG:4326")
+            ),
+            "areas",
+        ),
+    ],
+)
 def test_errors_name_the_parameter(net, routes, call, field):
     with pytest.raises(RouteriskError) as info:
         call(net, routes)

@@ -28,8 +28,7 @@ def design(town_net):
 
 
 def _true_theta(profile, scale=40.0):
-    return np.r_[scale, scale * np.array([TRUE.get(c.name, c.weight)
-                                          for c in profile.categories])]
+    return np.r_[scale, scale * np.array([TRUE.get(c.name, c.weight) for c in profile.categories])]
 
 
 def test_poisson_fit_equals_statsmodels_glm(design):
@@ -126,8 +125,12 @@ def test_categories_without_sites_are_not_fitted(town_net, tmp_path):
     e = town_net.edges
     counts = cb.read_counts(datasets.get_path("counts"), town_net.timezone)
     pl = cb.place_sites(town_net, counts)
-    near = set(pl.sites.loc[pl.sites["placed"] & (e["exp_hospital"].to_numpy()[
-        pl.sites["edge"].clip(0)] > 0), "site"])
+    near = set(
+        pl.sites.loc[
+            pl.sites["placed"] & (e["exp_hospital"].to_numpy()[pl.sites["edge"].clip(0)] > 0),
+            "site",
+        ]
+    )
     assert near
     path = _write(tmp_path / "c.csv", [r for r in rows if r["site"] not in near])
     cal = cb.calibrate(town_net, path)
@@ -141,8 +144,16 @@ def test_categories_without_sites_are_not_fitted(town_net, tmp_path):
 
 def test_cli_writes_a_valid_fingerprinted_profile_and_report(town_dir, tmp_path):
     out, rep = tmp_path / "cal.yaml", tmp_path / "cal.html"
-    args = ["calibrate", str(datasets.get_path("counts")), "--network", str(town_dir),
-            "--out", str(out), "--report", str(rep)]
+    args = [
+        "calibrate",
+        str(datasets.get_path("counts")),
+        "--network",
+        str(town_dir),
+        "--out",
+        str(out),
+        "--report",
+        str(rep),
+    ]
     assert main(args) == 0
     prof = load_profile(out)
     assert prof.uncertainty is not None
@@ -171,22 +182,38 @@ def test_profiles_without_uncertainty_keep_their_fingerprint():
     import hashlib
     import json
 
-    text = json.dumps(prof.to_dict(), sort_keys=True, separators=(",", ":"),
-                      default=lambda o: o.tolist() if hasattr(o, "tolist") else str(o))
+    text = json.dumps(
+        prof.to_dict(),
+        sort_keys=True,
+        separators=(",", ":"),
+        default=lambda o: o.tolist() if hasattr(o, "tolist") else str(o),
+    )
     assert prof.fingerprint == hashlib.sha256(text.encode()).hexdigest()[:16]
 
 
-@pytest.mark.parametrize(("block", "field", "words"), [
-    ({"weights": ["school"], "covariance": [[0.1, 0.0]]}, "uncertainty.covariance", "1 x 1"),
-    ({"weights": ["nowhere"], "covariance": [[0.1]]}, "uncertainty.weights", "unknown"),
-    ({"weights": ["school", "park"], "covariance": [[0.1, 0.2], [0.0, 0.1]]},
-     "uncertainty.covariance", "symmetric"),
-    ({"weights": ["school", "park"], "covariance": [[0.1, 0.5], [0.5, 0.1]]},
-     "uncertainty.covariance", "semi-definite"),
-    ({"weights": ["school", "school"], "covariance": [[1, 0], [0, 1]]},
-     "uncertainty.weights", "twice"),
-    ({"weights": ["school"]}, "uncertainty.covariance", "missing"),
-])
+@pytest.mark.parametrize(
+    ("block", "field", "words"),
+    [
+        ({"weights": ["school"], "covariance": [[0.1, 0.0]]}, "uncertainty.covariance", "1 x 1"),
+        ({"weights": ["nowhere"], "covariance": [[0.1]]}, "uncertainty.weights", "unknown"),
+        (
+            {"weights": ["school", "park"], "covariance": [[0.1, 0.2], [0.0, 0.1]]},
+            "uncertainty.covariance",
+            "symmetric",
+        ),
+        (
+            {"weights": ["school", "park"], "covariance": [[0.1, 0.5], [0.5, 0.1]]},
+            "uncertainty.covariance",
+            "semi-definite",
+        ),
+        (
+            {"weights": ["school", "school"], "covariance": [[1, 0], [0, 1]]},
+            "uncertainty.weights",
+            "twice",
+        ),
+        ({"weights": ["school"]}, "uncertainty.covariance", "missing"),
+    ],
+)
 def test_uncertainty_block_is_validated(block, field, words):
     from routerisk.errors import ProfileError
 
@@ -225,25 +252,42 @@ def _edit(i, **kw):
     return rows
 
 
-@pytest.mark.parametrize(("make", "words"), [
-    (lambda: _edit(3, count="-4"), "row 5: count: must not be negative"),
-    (lambda: _edit(3, count="4.5"), "row 5: count: must be a whole number"),
-    (lambda: _edit(0, end="2027-03-11T13:00"), "row 2: end: end 2027-03-11T13:00 is not after"),
-    (lambda: _edit(0, end="2027-03-19T14:00"), "row 2: end: a counting period of"),
-    (lambda: _edit(0, site="Z1", lat="38.6", lon="-38.2"),
-     "row 2: lat/lon: site 'Z1' is off the network"),
-    (lambda: "site,lat,lon,start,end,count\n", "has no counting periods"),
-    (lambda: [{**r, "count": "0"} for r in _sample_rows()], "count: every count is zero"),
-    (lambda: "# a comment line\n" + _bad_text(), "row 6: count: must not be negative"),
-    (lambda: [r for r in _sample_rows() if r["site"] in ("C04", "C07")],
-     "2 sites were placed on the network but fitting the scale, 3 weights (school, "
-     "campus, park) needs at least 4 sites"),
-])
+@pytest.mark.parametrize(
+    ("make", "words"),
+    [
+        (lambda: _edit(3, count="-4"), "row 5: count: must not be negative"),
+        (lambda: _edit(3, count="4.5"), "row 5: count: must be a whole number"),
+        (lambda: _edit(0, end="2027-03-11T13:00"), "row 2: end: end 2027-03-11T13:00 is not after"),
+        (lambda: _edit(0, end="2027-03-19T14:00"), "row 2: end: a counting period of"),
+        (
+            lambda: _edit(0, site="Z1", lat="38.6", lon="-38.2"),
+            "row 2: lat/lon: site 'Z1' is off the network",
+        ),
+        (lambda: "site,lat,lon,start,end,count\n", "has no counting periods"),
+        (lambda: [{**r, "count": "0"} for r in _sample_rows()], "count: every count is zero"),
+        (lambda: "# a comment line\n" + _bad_text(), "row 6: count: must not be negative"),
+        (
+            lambda: [r for r in _sample_rows() if r["site"] in ("C04", "C07")],
+            "2 sites were placed on the network but fitting the scale, 3 weights (school, "
+            "campus, park) needs at least 4 sites",
+        ),
+    ],
+)
 def test_bad_counts_one_line_exit_2_nothing_written(make, words, town_dir, tmp_path, capsys):
     path = _bad(tmp_path, make())
     out, rep = tmp_path / "o.yaml", tmp_path / "o.html"
-    code = main(["calibrate", str(path), "--network", str(town_dir), "--out", str(out),
-                 "--report", str(rep)])
+    code = main(
+        [
+            "calibrate",
+            str(path),
+            "--network",
+            str(town_dir),
+            "--out",
+            str(out),
+            "--report",
+            str(rep),
+        ]
+    )
     err = capsys.readouterr().err
     assert code == 2
     assert len(err.strip().splitlines()) == 1 and str(path) in err and words in err, err
@@ -264,12 +308,21 @@ def test_singular_design_names_the_categories(tmp_path, capsys):
     doc = yaml.safe_load(Path(load_profile().source).read_text())
     doc["categories"]["greens"] = {**doc["categories"]["park"], "label": "Greens"}
     (tmp_path / "p.yaml").write_text(yaml.safe_dump(doc), encoding="utf-8")
-    net = build_network(datasets.get_path("town"), profile=load_profile(tmp_path / "p.yaml"),
-                        timezone="Etc/GMT+3")
+    net = build_network(
+        datasets.get_path("town"), profile=load_profile(tmp_path / "p.yaml"), timezone="Etc/GMT+3"
+    )
     save_network(net, tmp_path / "net")
     out = tmp_path / "o.yaml"
-    code = main(["calibrate", str(datasets.get_path("counts")), "--network",
-                 str(tmp_path / "net"), "--out", str(out)])
+    code = main(
+        [
+            "calibrate",
+            str(datasets.get_path("counts")),
+            "--network",
+            str(tmp_path / "net"),
+            "--out",
+            str(out),
+        ]
+    )
     err = capsys.readouterr().err
     assert code == 2 and "'greens' and 'park' are never apart" in err, err
     assert "categories" in err and not out.exists()
@@ -279,15 +332,21 @@ def test_geojson_counts_read_like_csv(town_net, tmp_path):
     import json
 
     rows = _sample_rows()
-    feats = [{"type": "Feature", "geometry": {"type": "Point", "coordinates": [
-        float(r["lon"]), float(r["lat"])]}, "properties": {k: r[k] for k in (
-            "site", "start", "end", "count")}} for r in rows]
+    feats = [
+        {
+            "type": "Feature",
+            "geometry": {"type": "Point", "coordinates": [float(r["lon"]), float(r["lat"])]},
+            "properties": {k: r[k] for k in ("site", "start", "end", "count")},
+        }
+        for r in rows
+    ]
     path = tmp_path / "c.geojson"
     path.write_text(json.dumps({"type": "FeatureCollection", "features": feats}))
     a = cb.read_counts(path, town_net.timezone)
     b = cb.read_counts(datasets.get_path("counts"), town_net.timezone)
-    assert (a[["site", "count", "hours"]].to_numpy() == b[["site", "count", "hours"]]
-            .to_numpy()).all()
+    assert (
+        a[["site", "count", "hours"]].to_numpy() == b[["site", "count", "hours"]].to_numpy()
+    ).all()
     assert a["where"].iloc[3] == "features[3]"
 
 
@@ -312,8 +371,7 @@ def test_sample_count_programme_regenerates_byte_identical(tmp_path):
     assert (tmp_path / "counts.csv").read_bytes() == datasets.get_path("counts").read_bytes()
     rows = _rows(tmp_path / "counts.csv")
     assert len({r["site"] for r in rows}) == mod.N_SITES + 1  # and the one left out
-    assert {r["end"][11:] for r in rows} and all(
-        r["end"][:10] == r["start"][:10] for r in rows)
+    assert {r["end"][11:] for r in rows} and all(r["end"][:10] == r["start"][:10] for r in rows)
 
 
 def test_fit_baseline_holds_one_road_class_and_fits_the_others(town_net, tmp_path):
@@ -323,7 +381,7 @@ def test_fit_baseline_holds_one_road_class_and_fits_the_others(town_net, tmp_pat
     assert d.fixed_class == "residential" and "tertiary" in d.classes
     assert d.Z.shape[1] == base.design.Z.shape[1] + len(d.classes)
     # the split columns add up to the one baseline column
-    np.testing.assert_allclose(d.Z[:, :1 + len(d.classes)].sum(axis=1), base.design.Z[:, 0])
+    np.testing.assert_allclose(d.Z[:, : 1 + len(d.classes)].sum(axis=1), base.design.Z[:, 0])
     recs = {b["road_class"]: b for b in cal.baselines()}
     assert recs["residential"]["fitted"] is False
     t = recs["tertiary"]
@@ -349,8 +407,9 @@ def test_bound_fit_meets_the_optimality_conditions(design, town_net):
         grad = design.Z.T @ ((y - f.mu) / f.mu)
         assert (f.theta >= 0).all()
         free = ~f.at_bound
-        np.testing.assert_allclose(grad[free], 0.0, atol=1e-6 * np.abs(design.Z.T @ (
-            y / f.mu)).max())
+        np.testing.assert_allclose(
+            grad[free], 0.0, atol=1e-6 * np.abs(design.Z.T @ (y / f.mu)).max()
+        )
         assert (grad[f.at_bound] <= 1e-9).all()
         held += bool(f.at_bound[j])
         # reference: scipy.optimize.minimize, L-BFGS-B under the same bounds, from our
@@ -363,8 +422,13 @@ def test_bound_fit_meets_the_optimality_conditions(design, town_net):
             return -float(np.sum(y * np.log(m) - m))
 
         for x0 in (f.theta * 1.1 + 1.0, np.full(len(theta), y.mean() / design.Z.sum(1).mean())):
-            ref = minimize(neg, x0, method="L-BFGS-B", bounds=[(0, None)] * len(theta),
-                           options={"maxiter": 5000, "ftol": 1e-15, "gtol": 1e-10})
+            ref = minimize(
+                neg,
+                x0,
+                method="L-BFGS-B",
+                bounds=[(0, None)] * len(theta),
+                options={"maxiter": 5000, "ftol": 1e-15, "gtol": 1e-10},
+            )
             const = float(gammaln(y + 1).sum())  # the term neg() leaves out
             assert -ref.fun - const <= f.loglik + 1e-9 * abs(f.loglik)
         # no feasible move along the free parameters raises the likelihood

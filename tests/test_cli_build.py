@@ -23,8 +23,16 @@ def _run(capsys, *argv):
 
 def test_build_json_summary(tmp_path, capsys):
     out = tmp_path / "net"
-    code, stdout, _ = _run(capsys, "build", str(datasets.get_path("town")), "--out", str(out),
-                           "--timezone", "Etc/GMT+3", "--json")
+    code, stdout, _ = _run(
+        capsys,
+        "build",
+        str(datasets.get_path("town")),
+        "--out",
+        str(out),
+        "--timezone",
+        "Etc/GMT+3",
+        "--json",
+    )
     assert code == 0
     summary = json.loads(stdout)
     assert set(summary) >= {"nodes", "edges", "length_km", "sources", "profile"}
@@ -41,8 +49,9 @@ def test_existing_output_needs_force(tmp_path, capsys):
     assert _run(capsys, "build", str(datasets.get_path("town")), "--out", str(out))[0] == 0
     code, _, err = _run(capsys, "build", str(datasets.get_path("town")), "--out", str(out))
     assert code == 2 and "--force" in err
-    assert _run(capsys, "build", str(datasets.get_path("town")), "--out", str(out),
-                "--force")[0] == 0
+    assert (
+        _run(capsys, "build", str(datasets.get_path("town")), "--out", str(out), "--force")[0] == 0
+    )
 
 
 def _bad_profile(tmp_path, edit):
@@ -59,6 +68,7 @@ def _set(path, value):
         for k in path[:-1]:
             d = d[k]
         d[path[-1]] = value
+
     return edit
 
 
@@ -67,9 +77,17 @@ BAD = {
     "truncated pbf": (lambda tmp: _truncated(tmp), "cut.osm.pbf"),
     "not osm": (lambda tmp: _write(tmp / "notes.osm", "hello, not xml"), "notes.osm"),
     "wrong suffix": (lambda tmp: _write(tmp / "roads.txt", "x"), "roads.txt"),
-    "no drivable": (lambda tmp: osm.write(tmp / "paths.osm", [
-        osm.node(1, 38.5, -38.0), osm.node(2, 38.5, -38.001),
-        osm.way(1, [1, 2], highway="footway")]), "paths.osm"),
+    "no drivable": (
+        lambda tmp: osm.write(
+            tmp / "paths.osm",
+            [
+                osm.node(1, 38.5, -38.0),
+                osm.node(2, 38.5, -38.001),
+                osm.way(1, [1, 2], highway="footway"),
+            ],
+        ),
+        "paths.osm",
+    ),
     "empty file": (lambda tmp: _write(tmp / "empty.osm", ""), "empty.osm"),
 }
 
@@ -110,15 +128,23 @@ def test_bad_profile(case, tmp_path, capsys):
     path, value, key = PROFILE_BAD[case]
     prof = _bad_profile(tmp_path, _set(path, value))
     out = tmp_path / "net"
-    code, _, err = _run(capsys, "build", str(datasets.get_path("town")), "--out", str(out),
-                        "--profile", str(prof))
+    code, _, err = _run(
+        capsys, "build", str(datasets.get_path("town")), "--out", str(out), "--profile", str(prof)
+    )
     assert code == 2 and "bad.yaml" in err and key in err and err.count("\n") == 1
     assert not out.exists()
 
 
 def test_bad_timezone(tmp_path, capsys):
-    code, _, err = _run(capsys, "build", str(datasets.get_path("town")), "--out",
-                        str(tmp_path / "n"), "--timezone", "Mars/Olympus")
+    code, _, err = _run(
+        capsys,
+        "build",
+        str(datasets.get_path("town")),
+        "--out",
+        str(tmp_path / "n"),
+        "--timezone",
+        "Mars/Olympus",
+    )
     assert code == 2 and "--timezone" in err
 
 

@@ -53,7 +53,8 @@ def _trace(net, edges, sigma, rng):
     pts = line_interpolate_point(line, s)
     xy = np.array([[p.x, p.y] for p in pts]) + rng.normal(0, sigma, (len(s), 2))
     lon, lat = pyproj.Transformer.from_crs(net.crs, "EPSG:4326", always_xy=True).transform(
-        xy[:, 0], xy[:, 1])
+        xy[:, 0], xy[:, 1]
+    )
     t0 = dt.datetime(2027, 3, 9, 10, 0, tzinfo=dt.UTC)
     times = [t0 + dt.timedelta(seconds=i) for i in range(len(s))]
     return PlannedRoute("trace", np.column_stack([lon, lat]), times=times)
@@ -73,8 +74,11 @@ def test_map_matching_on_the_town(town_net, town_index, sigma, bar):
     shares = []
     for _ in range(6):
         truth = _walk(town_net.graph, rng, 2500)
-        m = matching.match_trace(town_index, _trace(town_net, truth, sigma, rng),
-                                 sigma_z=SIGMA_NK if sigma == SIGMA_NK else "estimate")
+        m = matching.match_trace(
+            town_index,
+            _trace(town_net, truth, sigma, rng),
+            sigma_z=SIGMA_NK if sigma == SIGMA_NK else "estimate",
+        )
         shares.append(_recovered(town_net.graph, truth, m))
     assert min(shares) >= bar, f"sigma {sigma} m: recovered {min(shares):.3f} (bar {bar})"
 
@@ -86,12 +90,15 @@ def test_joins_agree_with_networkx_on_the_town(town_net, town_index):
     nodes = sorted(G.nodes)
     for _ in range(20):
         a, b = (nodes[i] for i in rng.choice(len(nodes), 2, replace=False))
-        ll = np.array([[G.nodes[a]["lon"], G.nodes[a]["lat"]],
-                       [G.nodes[b]["lon"], G.nodes[b]["lat"]]])
+        ll = np.array(
+            [[G.nodes[a]["lon"], G.nodes[a]["lat"]], [G.nodes[b]["lon"], G.nodes[b]["lat"]]]
+        )
         m = matching.join_waypoints(town_index, PlannedRoute("p", ll))
         ref = nx.shortest_path(G, a, b, weight="travel_time")
-        ref_len = sum(min(d["length"] for d in G[u][v].values())
-                      for u, v in zip(ref[:-1], ref[1:], strict=True))
+        ref_len = sum(
+            min(d["length"] for d in G[u][v].values())
+            for u, v in zip(ref[:-1], ref[1:], strict=True)
+        )
         ref_time = nx.shortest_path_length(G, a, b, weight="travel_time")
         assert m.time_s == pytest.approx(ref_time, rel=1e-9)
         assert m.length_m == pytest.approx(ref_len, rel=1e-6)
@@ -101,8 +108,9 @@ def test_score_json_and_outputs_are_byte_identical(town_dir, tmp_path, capsys):
     routes = datasets.get_path("routes")
     outs = []
     for name in ("a", "b"):
-        code, stdout, _ = _run(capsys, "score", routes, "--network", town_dir, "--json",
-                               "--out", tmp_path / name)
+        code, stdout, _ = _run(
+            capsys, "score", routes, "--network", town_dir, "--json", "--out", tmp_path / name
+        )
         assert code == 0
         outs.append(stdout)
     assert outs[0] == outs[1]
@@ -110,26 +118,46 @@ def test_score_json_and_outputs_are_byte_identical(town_dir, tmp_path, capsys):
         assert (tmp_path / "a" / f).read_bytes() == (tmp_path / "b" / f).read_bytes()
     data = json.loads(outs[0])
     r = data["routes"][0]
-    assert set(r) >= {"name", "length_km", "duration_min", "risk", "risk_per_km",
-                      "relative_index", "by_category", "rule_breaks", "hotspots"}
+    assert set(r) >= {
+        "name",
+        "length_km",
+        "duration_min",
+        "risk",
+        "risk_per_km",
+        "relative_index",
+        "by_category",
+        "rule_breaks",
+        "hotspots",
+    }
     school = next(r for r in data["routes"] if r["name"] == "school-run")
     assert school["rule_breaks"] and school["rule_breaks"][0]["street"]
     seg = json.loads((tmp_path / "a" / "segments.geojson").read_text())
-    total = sum(f["properties"]["risk"] for f in seg["features"]
-                if f["properties"]["route"] == "school-run")
+    total = sum(
+        f["properties"]["risk"] for f in seg["features"] if f["properties"]["route"] == "school-run"
+    )
     assert total == pytest.approx(school["risk"], rel=1e-5)
 
 
 def test_several_departures_rank_in_one_table(town_dir, tmp_path, capsys):
-    code, stdout, _ = _run(capsys, "score", datasets.get_path("routes"), "--network", town_dir,
-                           "--depart", "2027-03-09T08:10", "--depart", "2027-03-09T11:00",
-                           "--json")
+    code, stdout, _ = _run(
+        capsys,
+        "score",
+        datasets.get_path("routes"),
+        "--network",
+        town_dir,
+        "--depart",
+        "2027-03-09T08:10",
+        "--depart",
+        "2027-03-09T11:00",
+        "--json",
+    )
     data = json.loads(stdout)
     school = [r for r in data["routes"] if r["name"] == "school-run"]
     assert code == 0 and len(school) == 2
     at_8, at_11 = sorted(school, key=lambda r: r["depart"])
-    assert at_8["by_category"]["school"] == pytest.approx(3 * at_11["by_category"]["school"],
-                                                          rel=1e-6)  # JSON keeps 6 decimals
+    assert at_8["by_category"]["school"] == pytest.approx(
+        3 * at_11["by_category"]["school"], rel=1e-6
+    )  # JSON keeps 6 decimals
 
 
 def _write(p, text):
@@ -138,9 +166,16 @@ def _write(p, text):
 
 
 def _routes_file(tmp_path, coords, name="r.geojson"):
-    fc = {"type": "FeatureCollection", "features": [{"type": "Feature", "properties": {
-        "name": "bad-route", "depart": "2027-03-09T10:00:00"},
-        "geometry": {"type": "LineString", "coordinates": coords}}]}
+    fc = {
+        "type": "FeatureCollection",
+        "features": [
+            {
+                "type": "Feature",
+                "properties": {"name": "bad-route", "depart": "2027-03-09T10:00:00"},
+                "geometry": {"type": "LineString", "coordinates": coords},
+            }
+        ],
+    }
     return _write(tmp_path / name, json.dumps(fc))
 
 
@@ -153,26 +188,38 @@ def _town_points(town_net, n=2):
 def test_bad_inputs_exit_2(town_net, town_dir, tmp_path, capsys):
     pts = _town_points(town_net)
     cases = {
-        "off network": (_routes_file(tmp_path, [pts[0], [-38.2, 38.7]], "off.geojson"),
-                        "point 1"),
+        "off network": (_routes_file(tmp_path, [pts[0], [-38.2, 38.7]], "off.geojson"), "point 1"),
         "empty file": (_write(tmp_path / "empty.geojson", ""), "empty.geojson"),
-        "gpx no points": (_write(tmp_path / "none.gpx", '<?xml version="1.0"?><gpx version='
-                                 '"1.1" xmlns="http://www.topografix.com/GPX/1/1"><trk><name>x'
-                                 "</name><trkseg></trkseg></trk></gpx>"), "none.gpx"),
-        "swapped": (_routes_file(tmp_path, [p[::-1] for p in pts], "swap.geojson"),
-                    "swapped"),
+        "gpx no points": (
+            _write(
+                tmp_path / "none.gpx",
+                '<?xml version="1.0"?><gpx version='
+                '"1.1" xmlns="http://www.topografix.com/GPX/1/1"><trk><name>x'
+                "</name><trkseg></trkseg></trk></gpx>",
+            ),
+            "none.gpx",
+        ),
+        "swapped": (_routes_file(tmp_path, [p[::-1] for p in pts], "swap.geojson"), "swapped"),
     }
     for case, (path, needle) in cases.items():
         code, _, err = _run(capsys, "score", path, "--network", town_dir)
         assert code == 2, case
         assert needle in err and err.count("\n") == 1, (case, err)
-    code, _, err = _run(capsys, "score", datasets.get_path("routes"), "--network", town_dir,
-                        "--depart", "next tuesday")
+    code, _, err = _run(
+        capsys,
+        "score",
+        datasets.get_path("routes"),
+        "--network",
+        town_dir,
+        "--depart",
+        "next tuesday",
+    )
     assert code == 2 and "--depart" in err
 
 
-def test_every_score_output_says_how_the_index_reads_and_what_is_modelled(town_dir, tmp_path,
-                                                                         capsys):
+def test_every_score_output_says_how_the_index_reads_and_what_is_modelled(
+    town_dir, tmp_path, capsys
+):
     # issue 17, points 10 and 11: the relative index is "against the area at the same
     # minutes under the same profile", and each output names what "risk" models.
     import routerisk
@@ -181,8 +228,9 @@ def test_every_score_output_says_how_the_index_reads_and_what_is_modelled(town_d
     assert "same minutes under the same profile" in routerisk.CAUTION
     assert "do not model" in routerisk.CAUTION and "crash likelihood" in routerisk.CAUTION
     routes = datasets.get_path("routes")
-    code, stdout, _ = _run(capsys, "score", routes, "--network", town_dir, "--json",
-                           "--out", tmp_path / "o")
+    code, stdout, _ = _run(
+        capsys, "score", routes, "--network", town_dir, "--json", "--out", tmp_path / "o"
+    )
     data = json.loads(stdout)
     assert code == 0 and data["relative_index_note"] == scoring.RELATIVE_INDEX_NOTE
     assert "same minutes under the same profile" in data["relative_index_note"]

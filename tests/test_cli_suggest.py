@@ -47,8 +47,9 @@ def test_alternatives_keep_start_end_and_required_points(town_suggestions):
 
 def _page_provenance(page: Path) -> dict:
     """Return the provenance a map records in its ``routerisk-provenance`` meta element."""
-    found = re.findall(r'<meta name="routerisk-provenance" content="([^"]*)">',
-                       page.read_text(encoding="utf-8"))
+    found = re.findall(
+        r'<meta name="routerisk-provenance" content="([^"]*)">', page.read_text(encoding="utf-8")
+    )
     assert len(found) == 1, found
     return json.loads(html.unescape(found[0]))
 
@@ -56,35 +57,57 @@ def _page_provenance(page: Path) -> dict:
 def test_json_output(town_dir, tmp_path, capsys):
     src = datasets.get_path("routes")
     page = tmp_path / "alternatives.html"
-    code = main(["suggest", str(src), "--network", str(town_dir), "--json", "--map",
-                 str(page)])
+    code = main(["suggest", str(src), "--network", str(town_dir), "--json", "--map", str(page)])
     data = json.loads(capsys.readouterr().out)
     assert code == 0 and set(data) == {"routes", "profile", "made_from"}
     assert {"name", "planned", "alternatives"} <= set(data["routes"][0])
     alt = data["routes"][0]["alternatives"][0]
-    assert set(alt) >= {"length_km", "duration_min", "risk", "risk_change_pct",
-                        "time_change_pct", "rule_breaks"}
+    assert set(alt) >= {
+        "length_km",
+        "duration_min",
+        "risk",
+        "risk_change_pct",
+        "time_change_pct",
+        "rule_breaks",
+    }
     # provenance: tool version, profile fingerprint, checksums of the route file and of the
     # OSM file the network was built from (as recorded in the network folder)
     meta = json.loads((town_dir / "meta.json").read_text(encoding="utf-8"))
     made = data["made_from"]
     assert made["routerisk_version"] == __version__
     assert made["profile"] == data["profile"] == meta["profile"]
-    assert made["inputs"]["routes"] == {"name": src.name,
-                                        "sha256": hashlib.sha256(src.read_bytes()).hexdigest()}
-    assert made["inputs"]["network_source"] == {"name": meta["source_name"],
-                                                "sha256": meta["source_sha256"]}
+    assert made["inputs"]["routes"] == {
+        "name": src.name,
+        "sha256": hashlib.sha256(src.read_bytes()).hexdigest(),
+    }
+    assert made["inputs"]["network_source"] == {
+        "name": meta["source_name"],
+        "sha256": meta["source_sha256"],
+    }
     # the same record as score's JSON and score's map, and the suggest map carries it too
-    assert main(["score", str(src), "--network", str(town_dir), "--json", "--out",
-                 str(tmp_path / "scores")]) == 0
+    assert (
+        main(
+            [
+                "score",
+                str(src),
+                "--network",
+                str(town_dir),
+                "--json",
+                "--out",
+                str(tmp_path / "scores"),
+            ]
+        )
+        == 0
+    )
     scored = json.loads(capsys.readouterr().out)
     assert made == scored["made_from"]
     assert _page_provenance(page) == made == _page_provenance(tmp_path / "scores" / "map.html")
 
 
 def test_bad_options(town_dir, capsys):
-    code = main(["suggest", str(datasets.get_path("routes")), "--network", str(town_dir),
-                 "--count", "0"])
+    code = main(
+        ["suggest", str(datasets.get_path("routes")), "--network", str(town_dir), "--count", "0"]
+    )
     assert code == 2 and "--count" in capsys.readouterr().err
 
 
@@ -92,13 +115,29 @@ def test_bad_options(town_dir, capsys):
 @pytest.mark.browser
 def test_map_loads_offline_with_layers_and_side_panel(town_dir, tmp_path, capsys):
     page = tmp_path / "alternatives.html"
-    assert main(["suggest", str(datasets.get_path("routes")), "--network", str(town_dir),
-                 "--map", str(page)]) == 0
+    assert (
+        main(
+            [
+                "suggest",
+                str(datasets.get_path("routes")),
+                "--network",
+                str(town_dir),
+                "--map",
+                str(page),
+            ]
+        )
+        == 0
+    )
     capsys.readouterr()
-    res = inspect_page(page, screenshot=tmp_path / "alternatives.png", script=(
-        "[document.querySelectorAll('.leaflet-control-layers-selector').length,"
-        " !!document.getElementById('rr-side'), !!document.getElementById('rr-legend'),"
-        " (document.getElementById('rr-side')||{}).textContent || '']"))
+    res = inspect_page(
+        page,
+        screenshot=tmp_path / "alternatives.png",
+        script=(
+            "[document.querySelectorAll('.leaflet-control-layers-selector').length,"
+            " !!document.getElementById('rr-side'), !!document.getElementById('rr-legend'),"
+            " (document.getElementById('rr-side')||{}).textContent || '']"
+        ),
+    )
     assert res["errors"] == [] and res["requests"] == []
     n_layers, side, legend, side_text = res["value"]
     net = load_network(town_dir)

@@ -16,8 +16,9 @@ DATE = dt.date(2027, 3, 9)  # a Tuesday: school windows apply
 
 @pytest.fixture(scope="module")
 def plan(town_net):
-    return dayplan.plan_day(town_net, planning.read_runs(datasets.get_path("runs")), DATE,
-                            vehicles=2, turnaround_min=15)
+    return dayplan.plan_day(
+        town_net, planning.read_runs(datasets.get_path("runs")), DATE, vehicles=2, turnaround_min=15
+    )
 
 
 def test_every_run_placed_and_better_than_naive(plan):
@@ -37,7 +38,8 @@ def test_no_vehicle_overlap_with_turnaround(plan):
     by_vehicle: dict[str, list] = {}
     for a, opt in plan.chosen():
         by_vehicle.setdefault(a.vehicle, []).append(
-            (float(a.start), float(a.start) + opt.score.duration_min))
+            (float(a.start), float(a.start) + opt.score.duration_min)
+        )
     for spans in by_vehicle.values():
         spans.sort()
         for (_s0, e0), (s1, _) in zip(spans[:-1], spans[1:], strict=True):
@@ -52,16 +54,27 @@ def test_required_vehicle_is_used(plan):
 def test_window_too_short_is_reported(town_net, tmp_path):
     runs = tmp_path / "runs.yaml"
     runs.write_text(
-        "runs:\n  - name: tight\n    route: " + str(datasets.get_path("routes")) +
-        "\n    route_name: school-run\n    earliest: \"10:00\"\n    latest: \"10:01\"\n")
+        "runs:\n  - name: tight\n    route: "
+        + str(datasets.get_path("routes"))
+        + '\n    route_name: school-run\n    earliest: "10:00"\n    latest: "10:01"\n'
+    )
     p = dayplan.plan_day(town_net, planning.read_runs(runs), DATE, vehicles=1)
     assert [u.run for u in p.schedule.unplaced] == ["tight"]
     assert p.schedule.unplaced[0].reason
 
 
 def test_cli_json(town_dir, plan, capsys):
-    code = main(["plan", str(datasets.get_path("runs")), "--network", str(town_dir),
-                 "--date", DATE.isoformat(), "--json"])
+    code = main(
+        [
+            "plan",
+            str(datasets.get_path("runs")),
+            "--network",
+            str(town_dir),
+            "--date",
+            DATE.isoformat(),
+            "--json",
+        ]
+    )
     data = json.loads(capsys.readouterr().out)
     assert code == 0
     # the command prints the plan the library makes with its defaults (2 vehicles, 15 min)
@@ -84,6 +97,7 @@ def test_cli_json(town_dir, plan, capsys):
 
 
 def test_cli_bad_date(town_dir, capsys):
-    code = main(["plan", str(datasets.get_path("runs")), "--network", str(town_dir),
-                 "--date", "09/03/2027"])
+    code = main(
+        ["plan", str(datasets.get_path("runs")), "--network", str(town_dir), "--date", "09/03/2027"]
+    )
     assert code == 2 and "--date" in capsys.readouterr().err

@@ -54,8 +54,7 @@ def _build_module():
 def test_api_reference_builds(tmp_path):
     pages = _build_module().build(tmp_path / "api")
     names = {p.relative_to(tmp_path / "api").as_posix() for p in pages}
-    assert {"index.html", "routerisk.html", "routerisk/api.html",
-            "routerisk/results.html"} <= names
+    assert {"index.html", "routerisk.html", "routerisk/api.html", "routerisk/results.html"} <= names
     top = (tmp_path / "api" / "routerisk.html").read_text(encoding="utf-8")
     for name in routerisk.api.__all__:  # every top-level function has its entry ...
         assert f'id="{name}"' in top, name

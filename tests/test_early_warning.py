@@ -86,7 +86,10 @@ def test_read_events_collects_every_problem_of_a_row(tmp_path):
     _, bad = ew.read_events(_write(tmp_path, "e.csv", text))
     assert bad["reason"].iloc[0].split("; ")[0].startswith("lat out of range")
     assert [r.split(":")[0] for r in bad["reason"].iloc[0].split("; ")] == [
-        "lat out of range [-90, 90]", "lon not a number", "time not ISO 8601", "type missing",
+        "lat out of range [-90, 90]",
+        "lon not a number",
+        "time not ISO 8601",
+        "type missing",
     ]
 
 
@@ -149,16 +152,30 @@ def test_read_events_geojson(tmp_path):
     doc = {
         "type": "FeatureCollection",
         "features": [
-            feat({"type": "Point", "coordinates": [-38.01, 38.49]},
-                 time="2024-05-06T09:00:00+00:00", type="intervention", vehicle="av-1",
-                 drive="d7"),
-            feat({"type": "LineString", "coordinates": [[-38.0, 38.5], [-38.1, 38.5]]},
-                 time="2024-05-06T09:01:00+00:00", type="near_miss"),
+            feat(
+                {"type": "Point", "coordinates": [-38.01, 38.49]},
+                time="2024-05-06T09:00:00+00:00",
+                type="intervention",
+                vehicle="av-1",
+                drive="d7",
+            ),
+            feat(
+                {"type": "LineString", "coordinates": [[-38.0, 38.5], [-38.1, 38.5]]},
+                time="2024-05-06T09:01:00+00:00",
+                type="near_miss",
+            ),
             feat(None, time="2024-05-06T09:02:00+00:00", type="near_miss"),
-            feat({"type": "Point", "coordinates": [-38.0, -91.0]},
-                 time="2024-05-06T09:03:00+00:00", type="hard_brake"),
-            feat({"type": "Point", "coordinates": [-38.0, 38.5, 12.0]},
-                 time="2024-05-06T09:04:00+00:00", type=None, severity="high"),
+            feat(
+                {"type": "Point", "coordinates": [-38.0, -91.0]},
+                time="2024-05-06T09:03:00+00:00",
+                type="hard_brake",
+            ),
+            feat(
+                {"type": "Point", "coordinates": [-38.0, 38.5, 12.0]},
+                time="2024-05-06T09:04:00+00:00",
+                type=None,
+                severity="high",
+            ),
         ],
     }
     p = _write(tmp_path, "events.geojson", json.dumps(doc))
@@ -185,9 +202,22 @@ def test_read_events_errors_name_file_and_column(tmp_path):
     assert (info.value.path, info.value.field) == (str(p), "type")
     assert isinstance(info.value, RouteriskError)
 
-    g = _write(tmp_path, "e.geojson", json.dumps({"type": "FeatureCollection", "features": [
-        {"type": "Feature", "geometry": {"type": "Point", "coordinates": [-38, 38.5]},
-         "properties": {"type": "near_miss"}}]}))
+    g = _write(
+        tmp_path,
+        "e.geojson",
+        json.dumps(
+            {
+                "type": "FeatureCollection",
+                "features": [
+                    {
+                        "type": "Feature",
+                        "geometry": {"type": "Point", "coordinates": [-38, 38.5]},
+                        "properties": {"type": "near_miss"},
+                    }
+                ],
+            }
+        ),
+    )
     with pytest.raises(InputFileError) as info:
         ew.read_events(g)
     assert info.value.field == "time"
@@ -221,8 +251,13 @@ def test_read_events_header_only_gives_empty_tables(tmp_path):
 #   posterior (a + k)/(b + e) = (74 + 45 k) / (370 + 45 e):
 #     unit 1: 74/820, unit 2: 164/820 = 0.2, unit 3: 254/1270 = 0.2,
 #     unit 4: 524/1270, unit 5: 254/2170
-HAND = pd.DataFrame({"unit": ["s1", "s2", "s3", "s4", "s5"],
-                     "events": [0, 2, 4, 10, 4], "km": [10.0, 10.0, 20.0, 20.0, 40.0]})
+HAND = pd.DataFrame(
+    {
+        "unit": ["s1", "s2", "s3", "s4", "s5"],
+        "events": [0, 2, 4, 10, 4],
+        "km": [10.0, 10.0, 20.0, 20.0, 40.0],
+    }
+)
 
 
 def test_eb_matches_hand_computed_example():
@@ -403,8 +438,11 @@ def test_fdr_without_hot_spot_is_at_most_q():
         rng = np.random.default_rng(seed)
         km, w = _segments(rng)
         k = rng.poisson(km * w * 0.2)
-        units, _ = ew.unit_rates(pd.DataFrame({"unit": range(N_SEGMENTS), "events": k,
-                                               "km": km, "w": w}), weight="w", q=Q)
+        units, _ = ew.unit_rates(
+            pd.DataFrame({"unit": range(N_SEGMENTS), "events": k, "km": km, "w": w}),
+            weight="w",
+            q=Q,
+        )
         fdp.append(float(units["flagged"].any()))
     observed = float(np.mean(fdp))
     assert observed <= Q + 0.02, f"observed FDR {observed:.3f} over 200 seeds, q = {Q}"
@@ -418,8 +456,11 @@ def test_fdr_with_ten_hot_spots_is_at_most_q():
         rate = np.full(N_SEGMENTS, 0.2)
         rate[:10] *= 3.0  # ten true hot spots
         k = rng.poisson(km * w * rate)
-        units, _ = ew.unit_rates(pd.DataFrame({"unit": range(N_SEGMENTS), "events": k,
-                                               "km": km, "w": w}), weight="w", q=Q)
+        units, _ = ew.unit_rates(
+            pd.DataFrame({"unit": range(N_SEGMENTS), "events": k, "km": km, "w": w}),
+            weight="w",
+            q=Q,
+        )
         flags = units["flagged"].to_numpy()
         fdp.append(flags[10:].sum() / max(flags.sum(), 1))
     observed = float(np.mean(fdp))
@@ -472,8 +513,10 @@ def test_planted_hot_spot_is_flagged_within_stated_drives():
     first = np.array(first)
     share = float(np.mean(first <= DETECTION_LIMIT))
     med, p90 = np.median(first), np.percentile(first, 90)
-    msg = (f"hot spot first flagged: median {med:.0f} drives, 90th percentile {p90:.0f}, "
-           f"{share:.0%} of {n_seeds} seeds within {DETECTION_LIMIT} drives")
+    msg = (
+        f"hot spot first flagged: median {med:.0f} drives, 90th percentile {p90:.0f}, "
+        f"{share:.0%} of {n_seeds} seeds within {DETECTION_LIMIT} drives"
+    )
     assert share >= 0.9, msg
     assert med <= 100, msg
 
@@ -535,8 +578,10 @@ def test_cusum_in_control_arl_matches_simulation(mu0, ratio, arl0, seed):
     d = ew.design_cusum(mu0, ratio=ratio, arl0=arl0)
     rl = _run_lengths(d, mu0, 4000, seed)
     sim, se = rl.mean(), rl.std() / math.sqrt(rl.size)
-    msg = (f"mu0={mu0} r={ratio}: h={d.h}, ARL0 target {arl0}, Markov {d.arl0:.1f}, "
-           f"simulated {sim:.1f} +- {se:.1f}")
+    msg = (
+        f"mu0={mu0} r={ratio}: h={d.h}, ARL0 target {arl0}, Markov {d.arl0:.1f}, "
+        f"simulated {sim:.1f} +- {se:.1f}"
+    )
     assert sim == pytest.approx(d.arl0, rel=0.10), msg
     assert abs(sim - d.arl0) <= 3 * se, msg  # the chain is exact, so only noise may remain
     assert d.arl0 == pytest.approx(arl0, rel=0.10), msg
@@ -556,14 +601,17 @@ def test_cusum_statistic_landing_on_h_is_in_control():
 
 
 def test_cusum_alerts_hand_example():
-    d = ew.CusumDesign(mu0=1.0, ratio=2.0, k=1.44, h=3.5, arl0_target=1.0, arl0=1.0,
-                       arl1=1.0, grid=100)
-    table = pd.DataFrame({
-        "segment": ["a"] * 4 + ["b"] * 4 + ["c"] * 3,
-        "week": [4, 1, 2, 3, 1, 2, 3, 4, 1, 2, 3],
-        "events": [0, 0, 3, 4, 2, 2, 3, 4, 0, 1, 2],
-        "expected": [1.0, 1.0, 1.0, 1.0, 0.5, 0.5, 2.0, 2.0, 1.0, 1.0, 1.0],
-    })
+    d = ew.CusumDesign(
+        mu0=1.0, ratio=2.0, k=1.44, h=3.5, arl0_target=1.0, arl0=1.0, arl1=1.0, grid=100
+    )
+    table = pd.DataFrame(
+        {
+            "segment": ["a"] * 4 + ["b"] * 4 + ["c"] * 3,
+            "week": [4, 1, 2, 3, 1, 2, 3, 4, 1, 2, 3],
+            "events": [0, 0, 3, 4, 2, 2, 3, 4, 0, 1, 2],
+            "expected": [1.0, 1.0, 1.0, 1.0, 0.5, 0.5, 2.0, 2.0, 1.0, 1.0, 1.0],
+        }
+    )
     alerts = ew.cusum_alerts(table, design=d, group="segment", period="week")
     # a (sorted weeks 1..4, x = 0, 3, 4, 0): S = 0, 1.56, 4.12 > 3.5 -> week 3.
     # b: k_t = 1.44 * expected = 0.72, 0.72, 2.88, 2.88; S = 1.28, 2.56, 2.68, 3.80 -> week 4.
@@ -572,8 +620,7 @@ def test_cusum_alerts_hand_example():
     assert alerts["week"].tolist() == [3, 4]
     assert alerts["statistic"].tolist() == pytest.approx([4.12, 3.80], abs=1e-12)
     with pytest.raises(InputFileError) as info:
-        ew.cusum_alerts(table.drop(columns="expected"), design=d, group="segment",
-                        period="week")
+        ew.cusum_alerts(table.drop(columns="expected"), design=d, group="segment", period="week")
     assert info.value.field == "expected"
 
 
@@ -586,8 +633,11 @@ def test_cusum_alerts_detects_a_doubling():
     frames = []
     for seg in range(41):
         mean = np.where((seg == 40) & (weeks >= 30), 2.0, 1.0)
-        frames.append(pd.DataFrame({"group": seg, "period": weeks,
-                                    "events": rng.poisson(mean), "expected": 1.0}))
+        frames.append(
+            pd.DataFrame(
+                {"group": seg, "period": weeks, "events": rng.poisson(mean), "expected": 1.0}
+            )
+        )
     alerts = ew.cusum_alerts(pd.concat(frames), design=d)
     hit = alerts.loc[alerts["group"] == 40]
     assert len(hit) == 1 and 30 <= hit["period"].iloc[0] < 30 + 4 * d.arl1, alerts
@@ -636,7 +686,8 @@ def test_negative_binomial_fit_matches_statsmodels():
     sm = pytest.importorskip("statsmodels.api")
     k, e = _nb_units(5, inv_shape=0.3)
     ref = sm.NegativeBinomial(k, np.ones((k.size, 1)), exposure=e, loglike_method="nb2").fit(
-        disp=0, maxiter=500, method="bfgs", gtol=1e-10)
+        disp=0, maxiter=500, method="bfgs", gtol=1e-10
+    )
     mine = ew.dispersion_test(k, e)
     assert mine.prior.mean == pytest.approx(math.exp(ref.params[0]), rel=1e-4)
     assert mine.inv_shape == pytest.approx(ref.params[1], rel=1e-3)
@@ -651,8 +702,9 @@ def test_dispersion_not_significant_for_poisson_counts():
     # Poisson counts with a common rate: the likelihood-ratio test rejects at 5 % in about
     # 5 % of samples at most; over 40 seeded samples at most 6 rejections (binomial tail,
     # derived here: P(X >= 7 | n=40, p=0.05) ~ 0.014 under an exact 5 % test).
-    rejected = sum(ew.dispersion_test(*_nb_units(100 + s, inv_shape=0.0)).significant
-                   for s in range(40))
+    rejected = sum(
+        ew.dispersion_test(*_nb_units(100 + s, inv_shape=0.0)).significant for s in range(40)
+    )
     assert rejected <= 6, rejected
 
 
@@ -671,8 +723,11 @@ def test_loo_prior_pvalues_equal_explicit_refits():
         ref = stats.nbinom.sf(k[i] - 1, pr.shape, pr.rate / (pr.rate + e[i]))
         assert p[i] == pytest.approx(ref, rel=1e-5, abs=1e-12), i
     # the hot unit stands out more against a prior it did not help to fit
-    full = ew.unit_rates(pd.DataFrame({"unit": range(k.size), "events": k, "km": e}),
-                         method="likelihood", pvalue="prior")[0]["p_value"].to_numpy()
+    full = ew.unit_rates(
+        pd.DataFrame({"unit": range(k.size), "events": k, "km": e}),
+        method="likelihood",
+        pvalue="prior",
+    )[0]["p_value"].to_numpy()
     assert p[0] < full[0]
 
 
@@ -720,4 +775,5 @@ def test_family_run_length_matches_simulation_within_ten_percent():
     assert ew.family_arl(designs[:1]) == pytest.approx(designs[0].arl0, rel=1e-6)
     # renewal rate: 30 x sum 1/ARL0_i false alarms per 30 periods
     assert ew.false_alarms_per(30, designs) == pytest.approx(
-        30 * sum(1 / d.arl0 for d in designs), rel=1e-12)
+        30 * sum(1 / d.arl0 for d in designs), rel=1e-12
+    )

@@ -121,8 +121,9 @@ def _brute_exact_power(lam0: float, lam1: float, c: float, p: float) -> tuple[fl
     ("improvement", "confidence", "power"),
     [(0.2, 0.95, 0.8), (0.5, 0.9, 0.9), (0.35, 0.99, 0.5), (0.9, 0.8, 0.7)],
 )
-def test_exact_power_matches_brute_force(improvement: float, confidence: float,
-                                         power: float) -> None:
+def test_exact_power_matches_brute_force(
+    improvement: float, confidence: float, power: float
+) -> None:
     lam0 = 1.09e-8
     lam1 = (1 - improvement) * lam0
     got = evidence.distance_power_exact(lam0, lam1, confidence, power)
@@ -156,7 +157,8 @@ def test_exact_power_at_step_rises_with_count() -> None:
 
 def test_binomial_form_and_fleet_years() -> None:
     assert evidence.distance_zero_events_binomial(1e-8, 0.95) == pytest.approx(
-        math.log(0.05) / math.log1p(-1e-8), rel=1e-12)  # log1p: log(1 - 1e-8) loses digits
+        math.log(0.05) / math.log1p(-1e-8), rel=1e-12
+    )  # log1p: log(1 - 1e-8) loses digits
     assert evidence.distance_zero_events_binomial(1.5, 0.95) is None
     plan = evidence.plan_evidence(_inputs(fleet=10, hours_per_day=8, speed=30))
     assert plan.years_no_failure == pytest.approx(plan.miles_no_failure / (10 * 8 * 365 * 30))
@@ -166,8 +168,10 @@ def test_km_gives_the_same_claim_in_kilometres() -> None:
     mi = evidence.plan_evidence(_inputs())
     km_per_mi = 1.609344  # international mile
     km = evidence.plan_evidence(
-        evidence.EvidenceInputs(benchmark=1.09, per=1e8 * km_per_mi, units="km",
-                                speed=25 * km_per_mi))
+        evidence.EvidenceInputs(
+            benchmark=1.09, per=1e8 * km_per_mi, units="km", speed=25 * km_per_mi
+        )
+    )
     assert km.miles_no_failure == pytest.approx(mi.miles_no_failure * km_per_mi)
     assert km.years_no_failure == pytest.approx(mi.years_no_failure)
     assert km.years_power == pytest.approx(mi.years_power)
@@ -196,14 +200,16 @@ def test_observed_shown_and_not_shown() -> None:
 
 
 def _segments() -> pd.DataFrame:
-    return pd.DataFrame({
-        "length_m": [1609.344, 3218.688, 1609.344, 804.672],
-        "band": ["high", "low", "low", "high"],
-        "risk": [5.0, 1.0, 1.5, 4.0],
-        "infl_school": [1.0, 0.0, 0.5, 0.0],
-        "infl_transit": [0.0, 0.25, 0.0, 1.0],
-        "street": ["Gull Row", "Kelp Lane", "Kelp Lane", "Tern Way"],
-    })
+    return pd.DataFrame(
+        {
+            "length_m": [1609.344, 3218.688, 1609.344, 804.672],
+            "band": ["high", "low", "low", "high"],
+            "risk": [5.0, 1.0, 1.5, 4.0],
+            "infl_school": [1.0, 0.0, 0.5, 0.0],
+            "infl_transit": [0.0, 0.25, 0.0, 1.0],
+            "street": ["Gull Row", "Kelp Lane", "Kelp Lane", "Tern Way"],
+        }
+    )
 
 
 def test_distance_by_exposure() -> None:
@@ -238,16 +244,22 @@ def test_distance_by_exposure() -> None:
 )
 def test_distance_by_exposure_rejects_bad_columns(change: object, column: str) -> None:
     with pytest.raises(InputFileError) as err:
-        evidence.distance_by_exposure(change(_segments()), needed=1.0,  # type: ignore[operator]
-                                      path="drive/segments.geojson")
+        evidence.distance_by_exposure(
+            change(_segments()),
+            needed=1.0,  # type: ignore[operator]
+            path="drive/segments.geojson",
+        )
     assert err.value.field == column
     assert err.value.path == "drive/segments.geojson"
 
 
 def _write_geojson(path: object, frame: pd.DataFrame) -> None:
     feats = [
-        {"type": "Feature", "properties": rec,
-         "geometry": {"type": "LineString", "coordinates": [[-38.0, 38.5], [-37.99, 38.5]]}}
+        {
+            "type": "Feature",
+            "properties": rec,
+            "geometry": {"type": "LineString", "coordinates": [[-38.0, 38.5], [-37.99, 38.5]]},
+        }
         for rec in frame.to_dict(orient="records")
     ]
     with open(path, "w", encoding="utf-8") as fh:  # type: ignore[call-overload]
@@ -267,8 +279,7 @@ def test_cli_segments(tmp_path: object, capsys: pytest.CaptureFixture[str]) -> N
     assert "band high" in out and "school" in out and routerisk.CAUTION in out
 
 
-def test_cli_segments_missing_column(tmp_path: object,
-                                     capsys: pytest.CaptureFixture[str]) -> None:
+def test_cli_segments_missing_column(tmp_path: object, capsys: pytest.CaptureFixture[str]) -> None:
     seg = tmp_path / "segments.geojson"  # type: ignore[operator]
     _write_geojson(seg, _segments().drop(columns="band"))
     assert main(["evidence", "--benchmark", "11", "--per", "1e9", "--segments", str(seg)]) == 2
@@ -279,20 +290,27 @@ def test_cli_segments_missing_column(tmp_path: object,
     assert main(["evidence", "--benchmark", "11", "--per", "1e9", "--segments", str(bad)]) == 2
     assert str(bad) in capsys.readouterr().err
     missing = tmp_path / "none.geojson"  # type: ignore[operator]
-    assert main(["evidence", "--benchmark", "11", "--per", "1e9",
-                 "--segments", str(missing)]) == 2
+    assert main(["evidence", "--benchmark", "11", "--per", "1e9", "--segments", str(missing)]) == 2
     assert "no such file" in capsys.readouterr().err
 
 
 # --- command line -----------------------------------------------------------------------------
 
-REQUIRED_KEYS = {"miles_no_failure", "years_no_failure", "miles_power", "years_power",
-                 "upper_rate", "target_rate", "shown"}
+REQUIRED_KEYS = {
+    "miles_no_failure",
+    "years_no_failure",
+    "miles_power",
+    "years_power",
+    "upper_rate",
+    "target_rate",
+    "shown",
+}
 
 
 def test_cli_json_reference(capsys: pytest.CaptureFixture[str]) -> None:
-    data = _cli_json(capsys, "--benchmark", "1.09", "--per", "1e8",
-                     "--observed", "3e8", "--events", "0")
+    data = _cli_json(
+        capsys, "--benchmark", "1.09", "--per", "1e8", "--observed", "3e8", "--events", "0"
+    )
     assert REQUIRED_KEYS <= set(data)
     # headline: exact Poisson test [computed, see test_exact_power_reference_case]
     assert data["miles_power"] == pytest.approx(12.91e9, rel=0.001)
@@ -306,18 +324,43 @@ def test_cli_json_reference(capsys: pytest.CaptureFixture[str]) -> None:
     assert data["shown"] is False  # 3e8 mi without an event: limit 0.9986 > 0.872 per 1e8
     assert data["upper_rate"] == pytest.approx(0.9986, abs=1e-4)
     assert [row["events"] for row in data["allowed_events"]] == [0, 1, 2, 3]  # type: ignore[union-attr]
-    data = _cli_json(capsys, "--benchmark", "1.09", "--per", "1e8", "--improvement", "0",
-                     "--allowed-events", "0,5", "10")
+    data = _cli_json(
+        capsys,
+        "--benchmark",
+        "1.09",
+        "--per",
+        "1e8",
+        "--improvement",
+        "0",
+        "--allowed-events",
+        "0,5",
+        "10",
+    )
     assert data["miles_power"] is None and data["years_power"] is None
     assert data["upper_rate"] is None and data["shown"] is None
     assert [row["events"] for row in data["allowed_events"]] == [0, 5, 10]  # type: ignore[union-attr]
 
 
-def test_cli_plain_output_and_chart(tmp_path: object,
-                                    capsys: pytest.CaptureFixture[str]) -> None:
+def test_cli_plain_output_and_chart(tmp_path: object, capsys: pytest.CaptureFixture[str]) -> None:
     chart = tmp_path / "limit.png"  # type: ignore[operator]
-    assert main(["evidence", "--benchmark", "11", "--per", "1e9", "--observed", "1e8",
-                 "--events", "1", "--chart", str(chart)]) == 0
+    assert (
+        main(
+            [
+                "evidence",
+                "--benchmark",
+                "11",
+                "--per",
+                "1e9",
+                "--observed",
+                "1e8",
+                "--events",
+                "1",
+                "--chart",
+                str(chart),
+            ]
+        )
+        == 0
+    )
     out = capsys.readouterr().out
     assert out.rstrip().endswith(routerisk.CAUTION)
     assert f"Chart written to {chart}." in out
@@ -355,8 +398,7 @@ def test_cli_plain_output_and_chart(tmp_path: object,
         (["--chart", "limit.jpg"], "--chart"),
     ],
 )
-def test_cli_bad_options(extra: list[str], option: str,
-                         capsys: pytest.CaptureFixture[str]) -> None:
+def test_cli_bad_options(extra: list[str], option: str, capsys: pytest.CaptureFixture[str]) -> None:
     assert main(["evidence", "--benchmark", "11", "--per", "1e9", *extra]) == 2
     err = capsys.readouterr().err.strip()
     assert len(err.splitlines()) == 1
@@ -382,18 +424,45 @@ def test_library_rejects_bad_values() -> None:
 
 
 def test_real_event_counts_are_accepted_with_a_warning_when_surprising(
-        capsys: pytest.CaptureFixture[str]) -> None:
+    capsys: pytest.CaptureFixture[str],
+) -> None:
     # 1 event in 1000 mi at 1.09 per 100 million: unlikely but possible; the old cap
     # (observed x rate x 1000 = 0.0109) refused it
-    data = _cli_json(capsys, "--benchmark", "1.09", "--per", "1e8", "--improvement", "0.2",
-                     "--observed", "1000", "--events", "1")
+    data = _cli_json(
+        capsys,
+        "--benchmark",
+        "1.09",
+        "--per",
+        "1e8",
+        "--improvement",
+        "0.2",
+        "--observed",
+        "1000",
+        "--events",
+        "1",
+    )
     assert data["shown"] is False
     # scipy.stats.poisson: P(X >= 1 | 1.09e-5) = 1.09e-5 > 1e-6, so no event-count warning
     assert stats.poisson.sf(0, 1000 * 1.09e-8) > 1e-6
     assert not [w for w in data["warnings"] if "events in" in w]  # type: ignore[union-attr]
     # 1000 events in 1 million mi at 11 per billion (0.011 expected): accepted, warned once
-    assert main(["evidence", "--benchmark", "11", "--per", "1e9", "--observed", "1e6",
-                 "--events", "1000", "--json"]) == 0
+    assert (
+        main(
+            [
+                "evidence",
+                "--benchmark",
+                "11",
+                "--per",
+                "1e9",
+                "--observed",
+                "1e6",
+                "--events",
+                "1000",
+                "--json",
+            ]
+        )
+        == 0
+    )
     captured = capsys.readouterr()
     data = json.loads(captured.out)
     surprise = [w for w in data["warnings"] if "events in" in w]
@@ -416,8 +485,7 @@ def test_real_event_counts_are_accepted_with_a_warning_when_surprising(
     assert evidence.plan_evidence(_inputs(observed=10.0, events=10**7)).upper_rate > 0
 
 
-def test_power_headline_is_exact_at_large_improvement(
-        capsys: pytest.CaptureFixture[str]) -> None:
+def test_power_headline_is_exact_at_large_improvement(capsys: pytest.CaptureFixture[str]) -> None:
     plan = evidence.plan_evidence(_inputs(improvement=0.999))
     lam0 = 1.09e-8
     # hand calculation: with 0 events allowed the exact test rejects from -ln(0.05) / lam0 =
@@ -428,13 +496,13 @@ def test_power_headline_is_exact_at_large_improvement(
     # normal approximation, Kalra and Paddock (2016) form with scipy.stats.norm quantiles
     z = stats.norm.ppf(0.95) + stats.norm.ppf(0.8)
     assert plan.miles_power_normal_approx == pytest.approx(
-        z**2 * 0.001 * lam0 / (0.999 * lam0) ** 2, rel=1e-9)
+        z**2 * 0.001 * lam0 / (0.999 * lam0) ** 2, rel=1e-9
+    )
     assert plan.miles_power_normal_approx == pytest.approx(568_343, rel=1e-5)
     assert any("normal approximation" in w for w in plan.warnings)
     text = " ".join(evidence.describe(plan))
     assert "99.9% better" in text and "100%" not in text
-    assert main(["evidence", "--benchmark", "1.09", "--per", "1e8", "--improvement",
-                 "0.999"]) == 0
+    assert main(["evidence", "--benchmark", "1.09", "--per", "1e8", "--improvement", "0.999"]) == 0
     assert "normal approximation" in capsys.readouterr().err
 
 
@@ -450,16 +518,23 @@ def test_exact_power_never_below_zero_event_distance() -> None:
                 assert got.max_events == k and got.distance == pytest.approx(n, rel=1e-12)
 
 
-@pytest.mark.parametrize(("share", "text"), [
-    (0.2, "20%"), (0.95, "95%"), (0.999, "99.9%"), (0.9994, "99.94%"), (0.99999, "99.999%"),
-    (0.001, "0.1%"), (0.5, "50%"),
-])
+@pytest.mark.parametrize(
+    ("share", "text"),
+    [
+        (0.2, "20%"),
+        (0.95, "95%"),
+        (0.999, "99.9%"),
+        (0.9994, "99.94%"),
+        (0.99999, "99.999%"),
+        (0.001, "0.1%"),
+        (0.5, "50%"),
+    ],
+)
 def test_percentages_are_never_rounded_up_to_100(share: float, text: str) -> None:
     assert evidence._pct(share) == text
 
 
-def test_strata_bonferroni_and_holm(tmp_path: object,
-                                    capsys: pytest.CaptureFixture[str]) -> None:
+def test_strata_bonferroni_and_holm(tmp_path: object, capsys: pytest.CaptureFixture[str]) -> None:
     plan = evidence.plan_evidence(_inputs(benchmark=11.0, per=1e9))
     target = plan.inputs.target_per_unit
     exposure = evidence.distance_by_exposure(_segments(), needed=plan.miles_no_failure)
@@ -475,8 +550,7 @@ def test_strata_bonferroni_and_holm(tmp_path: object,
         assert row["needed"] == pytest.approx(n(0.95))
         # Bonferroni: confidence 1 - alpha / m for every stratum
         assert row["needed_bonferroni"] == pytest.approx(n(1 - alpha / 4))
-        assert row["still_needed_bonferroni"] == pytest.approx(
-            n(1 - alpha / 4) - row["driven"])
+        assert row["still_needed_bonferroni"] == pytest.approx(n(1 - alpha / 4) - row["driven"])
     # Holm (1979) step-down: most driven first at alpha / 4, then alpha / 3, alpha / 2, alpha;
     # driven: low 3.0, high 1.5, school 1.5 (tie: bands first), transit 1.0
     for name, m_left in (("low", 4), ("high", 3), ("school", 2), ("transit", 1)):

@@ -69,32 +69,58 @@ def hostile_osm(path: Path) -> Path:
     nid = lambda r, c: 1 + r * N + c  # noqa: E731
     for r in range(N):
         for c in range(N):
-            tags = {"highway": "crossing", "crossing": PAYLOADS["link"]} if (r, c) == (2, 1) \
-                else {}
+            tags = {"highway": "crossing", "crossing": PAYLOADS["link"]} if (r, c) == (2, 1) else {}
             parts.append(_node(nid(r, c), LAT0 + r * STEP, LON0 + c * STEP, **tags))
     for r in range(N):
-        parts.append(_way(100 + r, [nid(r, c) for c in range(N)], highway="residential",
-                          name=PAYLOADS[STREETS[r]], website=PAYLOADS["link"],
-                          maxspeed="25 mph"))
+        parts.append(
+            _way(
+                100 + r,
+                [nid(r, c) for c in range(N)],
+                highway="residential",
+                name=PAYLOADS[STREETS[r]],
+                website=PAYLOADS["link"],
+                maxspeed="25 mph",
+            )
+        )
     for c in range(N):
-        parts.append(_way(200 + c, [nid(r, c) for r in range(N)], highway="residential",
-                          name=PAYLOADS[STREETS[N + c]], note=PAYLOADS["script"]))
+        parts.append(
+            _way(
+                200 + c,
+                [nid(r, c) for r in range(N)],
+                highway="residential",
+                name=PAYLOADS[STREETS[N + c]],
+                note=PAYLOADS["script"],
+            )
+        )
     mid_lat, mid_lon = LAT0 + 2.5 * STEP, LON0 + 2.5 * STEP
-    parts.append(_node(900, LAT0 + 1.5 * STEP, LON0 + 1.5 * STEP, amenity="school",
-                       name=PAYLOADS["template"], website=PAYLOADS["link"]))
+    parts.append(
+        _node(
+            900,
+            LAT0 + 1.5 * STEP,
+            LON0 + 1.5 * STEP,
+            amenity="school",
+            name=PAYLOADS["template"],
+            website=PAYLOADS["link"],
+        )
+    )
     parts.append(_node(901, mid_lat, LON0 + 0.5 * STEP, shop="bakery", name=PAYLOADS["img"]))
-    parts.append(_node(902, LAT0 + 3.5 * STEP, mid_lon, highway="bus_stop",
-                       name=PAYLOADS["backtick"]))
-    parts.append(_node(903, LAT0 + 0.5 * STEP, LON0 + 3.5 * STEP, amenity="hospital",
-                       name=PAYLOADS["close"]))
+    parts.append(
+        _node(902, LAT0 + 3.5 * STEP, mid_lon, highway="bus_stop", name=PAYLOADS["backtick"])
+    )
+    parts.append(
+        _node(903, LAT0 + 0.5 * STEP, LON0 + 3.5 * STEP, amenity="hospital", name=PAYLOADS["close"])
+    )
     ring = [(3.2, 3.2), (3.2, 3.8), (3.8, 3.8), (3.8, 3.2)]
     for k, (a, b) in enumerate(ring):
         parts.append(_node(910 + k, LAT0 + a * STEP, LON0 + b * STEP))
     parts.append(_way(300, [910, 911, 912, 913, 910], leisure="park", name=PAYLOADS["svg"]))
-    parts.append(_way(301, [910, 911, 912, 913, 910], shop=PAYLOADS["anchor"],
-                      name=PAYLOADS["backslash"]))
-    text = ('<?xml version="1.0" encoding="UTF-8"?>\n<osm version="0.6" '
-            'generator="routerisk-tests">\n' + "".join(parts) + "</osm>\n")
+    parts.append(
+        _way(301, [910, 911, 912, 913, 910], shop=PAYLOADS["anchor"], name=PAYLOADS["backslash"])
+    )
+    text = (
+        '<?xml version="1.0" encoding="UTF-8"?>\n<osm version="0.6" '
+        'generator="routerisk-tests">\n' + "".join(parts) + "</osm>\n"
+    )
     path.write_text(text, encoding="utf-8")
     return path
 
@@ -186,30 +212,84 @@ def pages(tmp_path_factory) -> dict[str, Path]:
     route = d / "route.geojson"
     # along column 1, which passes the school within the rule's 60 m at school arrival
     coords = [[LON0 + STEP, LAT0], [LON0 + STEP, LAT0 + 4 * STEP]]
-    route.write_text(json.dumps({"type": "FeatureCollection", "features": [{
-        "type": "Feature", "properties": {"name": ROUTE_NAME, "depart": DEPART},
-        "geometry": {"type": "LineString", "coordinates": coords}}]}))
+    route.write_text(
+        json.dumps(
+            {
+                "type": "FeatureCollection",
+                "features": [
+                    {
+                        "type": "Feature",
+                        "properties": {"name": ROUTE_NAME, "depart": DEPART},
+                        "geometry": {"type": "LineString", "coordinates": coords},
+                    }
+                ],
+            }
+        )
+    )
     area = d / "area.geojson"
     a0, a1 = -0.2 * STEP, 4.2 * STEP
     ring = [[LON0 + x, LAT0 + y] for x, y in ((a0, a0), (a1, a0), (a1, a1), (a0, a1), (a0, a0))]
-    area.write_text(json.dumps({"type": "FeatureCollection", "features": [{
-        "type": "Feature", "properties": {"name": AREA_NAME},
-        "geometry": {"type": "Polygon", "coordinates": [ring]}}]}))
+    area.write_text(
+        json.dumps(
+            {
+                "type": "FeatureCollection",
+                "features": [
+                    {
+                        "type": "Feature",
+                        "properties": {"name": AREA_NAME},
+                        "geometry": {"type": "Polygon", "coordinates": [ring]},
+                    }
+                ],
+            }
+        )
+    )
     out = io.StringIO()
     with contextlib.redirect_stdout(out):
-        assert main(["score", str(route), "--network", str(net_dir), "--out",
-                     str(d / "scores"), "--json"]) == 0
+        assert (
+            main(
+                [
+                    "score",
+                    str(route),
+                    "--network",
+                    str(net_dir),
+                    "--out",
+                    str(d / "scores"),
+                    "--json",
+                ]
+            )
+            == 0
+        )
     scored = json.loads(out.getvalue())["routes"][0]
     assert scored["rule_breaks"], "the route should break the school rule (a map tooltip)"
-    assert main(["suggest", str(route), "--network", str(net_dir), "--map",
-                 str(d / "suggest.html")]) == 0
-    assert main(["review", str(area), "--network", str(net_dir), "--report",
-                 str(d / "review.html"), "--out", str(d / "review")]) == 0
+    assert (
+        main(["suggest", str(route), "--network", str(net_dir), "--map", str(d / "suggest.html")])
+        == 0
+    )
+    assert (
+        main(
+            [
+                "review",
+                str(area),
+                "--network",
+                str(net_dir),
+                "--report",
+                str(d / "review.html"),
+                "--out",
+                str(d / "review"),
+            ]
+        )
+        == 0
+    )
     net = load_network(net_dir)
     mapview.save(mapview.network_map(net), d / "network.html")
-    return {"network": d / "network.html", "score": d / "scores" / "map.html",
-            "suggest": d / "suggest.html", "review": d / "review.html",
-            "review_out": d / "review" / "report.html", "_net": net_dir}
+    return {
+        "network": d / "network.html",
+        "score": d / "scores" / "map.html",
+        "suggest": d / "suggest.html",
+        "review": d / "review.html",
+        "review_out": d / "review" / "report.html",
+        "_net": net_dir,
+    }
 
 
 def test_hostile_town_builds_with_its_names(pages):
@@ -240,8 +320,9 @@ def test_payloads_never_reach_markup_unescaped(pages, kind):
 def _expected_text(pages, kind: str) -> list[str]:
     """Return the payload strings that the page shows (as text) somewhere."""
     if kind == "network":
-        shown = [PAYLOADS[k] for k in STREETS] + [PAYLOADS[k] for k in
-                                                  ("template", "img", "backtick", "close")]
+        shown = [PAYLOADS[k] for k in STREETS] + [
+            PAYLOADS[k] for k in ("template", "img", "backtick", "close")
+        ]
     elif kind in ("score", "suggest"):
         shown = [ROUTE_NAME]
         seg = json.loads((pages["score"].parent / "segments.geojson").read_text())
@@ -260,8 +341,7 @@ def test_no_payload_runs_in_chromium(pages, kind, tmp_path):
     probe = tmp_path / page.name
     html = page.read_text(encoding="utf-8")
     at = html.rfind("</body>")
-    probe.write_text(html[:at] + PROBE + html[at:] if at >= 0 else html + PROBE,
-                     encoding="utf-8")
+    probe.write_text(html[:at] + PROBE + html[at:] if at >= 0 else html + PROBE, encoding="utf-8")
     res = inspect_page(probe, script="window.__rr_probe || null")
     assert res["value"], f"the probe did not finish; errors: {res['errors']}"
     got = json.loads(res["value"])
@@ -279,11 +359,13 @@ def test_no_payload_runs_in_chromium(pages, kind, tmp_path):
 
 PACKAGE = Path(__file__).resolve().parents[1] / "routerisk"
 #: Ways of turning a file's content into running code or arbitrary objects.
-UNSAFE = (re.compile(r"\bpickle\b|\bcPickle\b|\bdill\b|\bshelve\b|\bmarshal\.loads?\b"),
-          re.compile(r"\byaml\.(load|unsafe_load|full_load|load_all)\s*\("),
-          re.compile(r"yaml\.(Unsafe|Full)?Loader\b"),
-          re.compile(r"(?<![\w.])(eval|exec)\s*\("),
-          re.compile(r"allow_pickle\s*=\s*True"))
+UNSAFE = (
+    re.compile(r"\bpickle\b|\bcPickle\b|\bdill\b|\bshelve\b|\bmarshal\.loads?\b"),
+    re.compile(r"\byaml\.(load|unsafe_load|full_load|load_all)\s*\("),
+    re.compile(r"yaml\.(Unsafe|Full)?Loader\b"),
+    re.compile(r"(?<![\w.])(eval|exec)\s*\("),
+    re.compile(r"allow_pickle\s*=\s*True"),
+)
 
 
 def test_no_unsafe_loader_or_eval_in_the_package():
@@ -307,8 +389,10 @@ def test_profile_with_python_tags_is_refused_without_running(tmp_path):
 
     marker = tmp_path / "ran"
     bad = tmp_path / "evil.yaml"
-    bad.write_text("version: 1\nname: !!python/object/apply:os.system "
-                   f"['touch {marker}']\ncategories: {{}}\n", encoding="utf-8")
+    bad.write_text(
+        f"version: 1\nname: !!python/object/apply:os.system ['touch {marker}']\ncategories: {{}}\n",
+        encoding="utf-8",
+    )
     with pytest.raises(ProfileError) as info:
         load_profile(bad)
     assert info.value.path == str(bad) and not marker.exists()
@@ -320,8 +404,11 @@ def test_overlay_with_python_tags_is_refused_without_running(tmp_path, town_net)
 
     marker = tmp_path / "ran"
     bad = tmp_path / "evil-overlay.yaml"
-    bad.write_text("version: 1\nkind: routerisk-overlay\nedges: !!python/object/apply:"
-                   f"os.system ['touch {marker}']\n", encoding="utf-8")
+    bad.write_text(
+        "version: 1\nkind: routerisk-overlay\nedges: !!python/object/apply:"
+        f"os.system ['touch {marker}']\n",
+        encoding="utf-8",
+    )
     with pytest.raises(InputFileError):
         apply_overlay(town_net, bad)
     assert not marker.exists()

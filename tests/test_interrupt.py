@@ -37,9 +37,21 @@ FORCE_TRIES = 3  # kills of a --force replacement
 def _start(out: Path, *extra: str) -> subprocess.Popen:
     env = {**os.environ, "PYTHONPATH": str(ROOT) + os.pathsep + os.environ.get("PYTHONPATH", "")}
     return subprocess.Popen(
-        [sys.executable, "-m", "routerisk", "build", str(datasets.get_path("town")), "--out",
-         str(out), *extra], cwd=ROOT, env=env, stdout=subprocess.DEVNULL,
-        stderr=subprocess.PIPE)
+        [
+            sys.executable,
+            "-m",
+            "routerisk",
+            "build",
+            str(datasets.get_path("town")),
+            "--out",
+            str(out),
+            *extra,
+        ],
+        cwd=ROOT,
+        env=env,
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.PIPE,
+    )
 
 
 def _parts(out: Path) -> list[Path]:
@@ -60,14 +72,15 @@ def _measure(out: Path) -> tuple[float, float]:
     return (t_save if t_save is not None else 0.8 * total), total
 
 
-def _delays(rng: random.Random, n: int, t_save: float, total: float
-            ) -> list[tuple[str, float]]:
+def _delays(rng: random.Random, n: int, t_save: float, total: float) -> list[tuple[str, float]]:
     """Return n kill points, stratified: a third at [t_save / 2, t_save] from the start, the
     rest at [0, 1.2 x the writing time] after the hidden folder appears (so a slower or
     faster machine still kills while the folder is written and moved into place)."""
     first = n // 3
-    out = [("start", t_save / 2 + (t_save / 2) * (i + rng.random()) / max(first, 1))
-           for i in range(first)]
+    out = [
+        ("start", t_save / 2 + (t_save / 2) * (i + rng.random()) / max(first, 1))
+        for i in range(first)
+    ]
     rest = n - first
     writing = max(total - t_save, 0.05)
     out += [("writing", 1.2 * writing * (i + rng.random()) / rest) for i in range(rest)]
@@ -183,12 +196,26 @@ def test_an_error_half_way_leaves_no_output(case, tmp_path, town_dir, monkeypatc
         argv = ["suggest", routes, "--network", str(town_dir), "--map", str(out)]
     elif case == "review":  # the report fails after areas.csv and areas.json are written
         monkeypatch.setattr(report, "write_report", _boom)
-        argv = ["review", str(datasets.get_path("area")), "--network", str(town_dir),
-                "--out", str(out)]
+        argv = [
+            "review",
+            str(datasets.get_path("area")),
+            "--network",
+            str(town_dir),
+            "--out",
+            str(out),
+        ]
     elif case == "watch":  # the report page fails after the overlay, table and map
         monkeypatch.setattr(report, "page", _boom)
-        argv = ["watch", str(datasets.get_path("events")), "--drives",
-                str(datasets.get_path("drives")), "--network", str(town_dir), "--out", str(out)]
+        argv = [
+            "watch",
+            str(datasets.get_path("events")),
+            "--drives",
+            str(datasets.get_path("drives")),
+            "--network",
+            str(town_dir),
+            "--out",
+            str(out),
+        ]
     else:  # the first stage after the network folder was saved fails
         monkeypatch.setattr(routemap, "write_outputs", _boom)
         argv = ["demo", "--out", str(out)]

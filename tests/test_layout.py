@@ -32,6 +32,7 @@ NOT_YET_SPLIT = {
     "_simplify.py": 727,  # the vectorised graph build
     "serve/app.py": 748,
     "mapview.py": 860,
+    "api.py": 635,  # the top-level functions: one typed wrapper with its docstring each
     "calibration.py": 836,  # counts, design, fit, goodness of fit, profile writing
     "watch.py": 867,  # drives, events, units, periods, charts, outputs
     "profile.py": 615,  # profile schema, validation, fingerprint  # folium maps: background, classes, legends, symbols, tiles  # the planning page API: routes, requests, network layer
@@ -61,8 +62,9 @@ def test_sizes_listed_and_no_module_too_long() -> None:
 
 def test_allow_list_is_not_stale() -> None:
     """Every allow-listed module still exists and is still too long."""
-    stale = [m for m in NOT_YET_SPLIT
-             if not (PACKAGE / m).is_file() or _lines(PACKAGE / m) <= MAX_LINES]
+    stale = [
+        m for m in NOT_YET_SPLIT if not (PACKAGE / m).is_file() or _lines(PACKAGE / m) <= MAX_LINES
+    ]
     assert not stale, f"remove from NOT_YET_SPLIT (split, gone or short enough now): {stale}"
 
 
@@ -115,8 +117,9 @@ def _load_time_imports(tree: ast.Module) -> list[ast.Import | ast.ImportFrom]:
     return found
 
 
-def _targets(module: str, is_package: bool, node: ast.Import | ast.ImportFrom,
-             known: set[str]) -> set[str]:
+def _targets(
+    module: str, is_package: bool, node: ast.Import | ast.ImportFrom, known: set[str]
+) -> set[str]:
     """Return the routerisk modules an import statement loads (explicitly named ones)."""
     if isinstance(node, ast.Import):
         return {a.name for a in node.names if a.name in known}
@@ -173,10 +176,11 @@ def test_import_targets_resolve_relative_imports() -> None:
     assert _targets("routerisk.matching.join", False, stmt, known) == {"routerisk.routes"}
     stmt = ast.parse("from . import index").body[0]
     assert _targets("routerisk.matching", True, stmt, known) == {
-        "routerisk.matching", "routerisk.matching.index"}
+        "routerisk.matching",
+        "routerisk.matching.index",
+    }
     stmt = ast.parse("from .index import RoadIndex").body[0]
-    assert _targets("routerisk.matching.join", False, stmt, known) == {
-        "routerisk.matching.index"}
+    assert _targets("routerisk.matching.join", False, stmt, known) == {"routerisk.matching.index"}
 
 
 def test_load_time_imports_skip_lazy_and_type_checking() -> None:

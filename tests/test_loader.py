@@ -37,8 +37,9 @@ def _total_length(G: nx.MultiDiGraph) -> float:
 def test_matches_osmnx_on_real_extract(real_pbf, tmp_path):
     # Reference library: osmnx (graph_from_xml, simplify, largest strongly connected part)
     # on the same drivable ways of a real OSM extract (pyogrio's sample.osm.pbf, ODbL).
-    ref = ox.graph_from_xml(_drive_only_xml(real_pbf, tmp_path / "drive.osm"), simplify=True,
-                            retain_all=False)
+    ref = ox.graph_from_xml(
+        _drive_only_xml(real_pbf, tmp_path / "drive.osm"), simplify=True, retain_all=False
+    )
     ours = loader.graph_from_file(real_pbf)
     assert ours.number_of_nodes() == ref.number_of_nodes()
     assert ours.number_of_edges() == ref.number_of_edges()
@@ -64,19 +65,22 @@ def test_drive_filter_matches_osmnx_filter_string():
     assert pairs == DRIVE_EXCLUDE
 
 
-@pytest.mark.parametrize(("tags", "expected"), [
-    ({"highway": "residential"}, True),
-    ({"highway": "primary", "oneway": "yes"}, True),
-    ({"highway": "footway"}, False),
-    ({"highway": "service", "service": "driveway"}, False),
-    ({"highway": "service"}, False),  # osmnx "drive" drops all service roads
-    ({"highway": "residential", "access": "private"}, False),
-    ({"highway": "construction"}, False),
-    ({"highway": "proposed"}, False),
-    ({"highway": "residential", "motor_vehicle": "no"}, False),
-    ({"highway": "pedestrian", "area": "yes"}, False),
-    ({"building": "yes"}, False),
-])
+@pytest.mark.parametrize(
+    ("tags", "expected"),
+    [
+        ({"highway": "residential"}, True),
+        ({"highway": "primary", "oneway": "yes"}, True),
+        ({"highway": "footway"}, False),
+        ({"highway": "service", "service": "driveway"}, False),
+        ({"highway": "service"}, False),  # osmnx "drive" drops all service roads
+        ({"highway": "residential", "access": "private"}, False),
+        ({"highway": "construction"}, False),
+        ({"highway": "proposed"}, False),
+        ({"highway": "residential", "motor_vehicle": "no"}, False),
+        ({"highway": "pedestrian", "area": "yes"}, False),
+        ({"building": "yes"}, False),
+    ],
+)
 def test_drive_filter(tags, expected):
     assert is_drivable(tags) is expected
 
@@ -90,8 +94,7 @@ def test_same_graph_from_xml_bz2_and_pbf(real_pbf, tmp_path):
     bz = tmp_path / "all.osm.bz2"
     bz.write_bytes(bz2.compress(xml.read_bytes()))
     graphs = [loader.graph_from_file(p) for p in (real_pbf, xml, bz)]
-    sizes = {(g.number_of_nodes(), g.number_of_edges(), round(_total_length(g), 6))
-             for g in graphs}
+    sizes = {(g.number_of_nodes(), g.number_of_edges(), round(_total_length(g), 6)) for g in graphs}
     assert len(sizes) == 1
 
 
@@ -101,11 +104,17 @@ def test_clipped_extract_keeps_runs_of_existing_nodes(tmp_path):
     parts += [osm.node(10 + i, 38.501, -38.0 + 0.001 * i) for i in (1, 2, 4, 5)]
     parts.append(osm.way(1, [1, 2, 3, 4, 5], highway="residential"))  # node 3 is missing
     parts.append(osm.way(2, [11, 12, 14, 15], highway="residential"))
-    parts += [osm.way(3, [1, 11], highway="residential"), osm.way(4, [2, 12], highway="residential"),
-              osm.way(5, [4, 14], highway="residential"), osm.way(6, [5, 15], highway="residential")]
+    parts += [
+        osm.way(3, [1, 11], highway="residential"),
+        osm.way(4, [2, 12], highway="residential"),
+        osm.way(5, [4, 14], highway="residential"),
+        osm.way(6, [5, 15], highway="residential"),
+    ]
     # a relation that lost a member
-    parts.append('<relation id="7"><member type="way" ref="999" role="outer"/>'
-                 '<tag k="type" v="multipolygon"/><tag k="leisure" v="park"/></relation>\n')
+    parts.append(
+        '<relation id="7"><member type="way" ref="999" role="outer"/>'
+        '<tag k="type" v="multipolygon"/><tag k="leisure" v="park"/></relation>\n'
+    )
     path = osm.write(tmp_path / "clipped.osm", parts)
     G = loader.graph_from_file(path, largest_component=False, simplify=False)
     assert G.has_edge(1, 2) and G.has_edge(4, 5)
@@ -114,10 +123,13 @@ def test_clipped_extract_keeps_runs_of_existing_nodes(tmp_path):
 
 def test_oneway_and_reverse(tmp_path):
     parts = [osm.node(i, 38.5, -38.0 + 0.001 * i) for i in range(1, 4)]
-    parts += [osm.way(1, [1, 2], highway="residential", oneway="yes"),
-              osm.way(2, [2, 3], highway="residential", oneway="-1")]
-    G = loader.graph_from_file(osm.write(tmp_path / "o.osm", parts), largest_component=False,
-                               simplify=False)
+    parts += [
+        osm.way(1, [1, 2], highway="residential", oneway="yes"),
+        osm.way(2, [2, 3], highway="residential", oneway="-1"),
+    ]
+    G = loader.graph_from_file(
+        osm.write(tmp_path / "o.osm", parts), largest_component=False, simplify=False
+    )
     assert G.has_edge(1, 2) and not G.has_edge(2, 1)
     assert G.has_edge(3, 2) and not G.has_edge(2, 3)
 
@@ -143,8 +155,11 @@ def test_not_osm(tmp_path):
 
 
 def test_no_drivable_roads(tmp_path):
-    parts = [osm.node(1, 38.5, -38.0), osm.node(2, 38.5, -38.001),
-             osm.way(1, [1, 2], highway="footway")]
+    parts = [
+        osm.node(1, 38.5, -38.0),
+        osm.node(2, 38.5, -38.001),
+        osm.way(1, [1, 2], highway="footway"),
+    ]
     with pytest.raises(EmptyNetworkError, match="no drivable"):
         loader.graph_from_file(osm.write(tmp_path / "paths.osm", parts))
 

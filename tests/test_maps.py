@@ -20,8 +20,9 @@ from routerisk.network import Network, load_network, save_network
 from ._browser import inspect_page, needs_chromium
 
 # A 1x1 PNG (common practice, no source: the smallest valid PNG, one grey pixel).
-PNG = base64.b64decode("iVBORw0KGgoAAAANSUhEUgAAAAEAAAABCAAAAAA6fptVAAAACklEQVR4nGNoAAAAggCB"
-                       "d81ytgAAAABJRU5ErkJggg==")
+PNG = base64.b64decode(
+    "iVBORw0KGgoAAAANSUhEUgAAAAEAAAABCAAAAAA6fptVAAAACklEQVR4nGNoAAAAggCBd81ytgAAAABJRU5ErkJggg=="
+)
 
 
 def test_build_saves_the_context_layer(town_net, town_dir):
@@ -51,8 +52,14 @@ def test_real_extract_context_has_buildings(real_pbf):
 
 
 def test_folder_without_context_draws_streets_from_edges(town_net, tmp_path):
-    old = Network(town_net.edges, town_net.nodes, town_net.sources, town_net.crossings,
-                  town_net.profile, town_net.meta)  # as built before the layer existed
+    old = Network(
+        town_net.edges,
+        town_net.nodes,
+        town_net.sources,
+        town_net.crossings,
+        town_net.profile,
+        town_net.meta,
+    )  # as built before the layer existed
     out = save_network(old, tmp_path / "old")
     import pyogrio
 
@@ -107,7 +114,8 @@ def test_ramp_darkens_and_holds_for_colour_blind_readers():
     """Machado, Oliveira and Fernandes (2009) simulation via colour-science; CIEDE2000."""
     pytest.importorskip("colour")
     spec = importlib.util.spec_from_file_location(
-        "colour_check", Path(__file__).parents[1] / "scripts" / "colour_check.py")
+        "colour_check", Path(__file__).parents[1] / "scripts" / "colour_check.py"
+    )
     cc = importlib.util.module_from_spec(spec)
     spec.loader.exec_module(cc)
     for vision in cc.VISIONS:
@@ -118,8 +126,10 @@ def test_ramp_darkens_and_holds_for_colour_blind_readers():
         assert cc.min_difference(list(mapview.ROUTE_COLOURS), vision)[0] >= 10, vision
     # the simulation changes colours: a red-green pair collapses for deuteranopia
     # (common practice, no source: pure red and a matched green look alike to deuteranopes)
-    assert cc.min_difference(["#d00000", "#7a7a00"], "deuteranopia")[0] < \
-        cc.min_difference(["#d00000", "#7a7a00"], "normal")[0]
+    assert (
+        cc.min_difference(["#d00000", "#7a7a00"], "deuteranopia")[0]
+        < cc.min_difference(["#d00000", "#7a7a00"], "normal")[0]
+    )
 
 
 def _scores(net):
@@ -131,9 +141,14 @@ def test_score_map_legend_names_every_drawn_thing(town_net):
     scores = _scores(town_net)
     assert any(s.rule_breaks for s in scores)
     text = mapview.render(routemap.route_map(town_net, scores))
-    for label in ("hard rule broken here", "hard-rule zone: ", "routes (one dash pattern",
-                  "background (same OSM extract)", "quiet: 0 to 0.5 risk per km",
-                  "fixed bands"):
+    for label in (
+        "hard rule broken here",
+        "hard-rule zone: ",
+        "routes (one dash pattern",
+        "background (same OSM extract)",
+        "quiet: 0 to 0.5 risk per km",
+        "fixed bands",
+    ):
         assert label in text, label
     for s in scores:
         assert mapview.escape(f"{s.name} @ {s.depart.strftime('%a %d %b %H:%M')}") in text
@@ -148,12 +163,13 @@ def _many_shops(net):
     pts = shop.loc[shop.index.repeat(300)].copy()
     c = pts.geometry.iloc[0].representative_point()
     rng = np.random.default_rng(1)
-    pts["geometry"] = gpd.points_from_xy(c.x + rng.normal(0, 80, 300),
-                                         c.y + rng.normal(0, 80, 300), crs=src.crs)
-    more = gpd.GeoDataFrame(pd.concat([src, pts], ignore_index=True), geometry="geometry",
-                            crs=src.crs)
-    return Network(net.edges, net.nodes, more, net.crossings, net.profile, net.meta,
-                   net.context)
+    pts["geometry"] = gpd.points_from_xy(
+        c.x + rng.normal(0, 80, 300), c.y + rng.normal(0, 80, 300), crs=src.crs
+    )
+    more = gpd.GeoDataFrame(
+        pd.concat([src, pts], ignore_index=True), geometry="geometry", crs=src.crs
+    )
+    return Network(net.edges, net.nodes, more, net.crossings, net.profile, net.meta, net.context)
 
 
 def test_many_points_are_clustered(town_net):
@@ -189,10 +205,12 @@ def test_tile_sources(tmp_path, town_net):
     mb = tmp_path / "town.mbtiles"
     with sqlite3.connect(mb) as db:
         db.execute("CREATE TABLE metadata (name text, value text)")
-        db.execute("CREATE TABLE tiles (zoom_level integer, tile_column integer, "
-                   "tile_row integer, tile_data blob)")
+        db.execute(
+            "CREATE TABLE tiles (zoom_level integer, tile_column integer, "
+            "tile_row integer, tile_data blob)"
+        )
         db.execute("INSERT INTO metadata VALUES ('attribution', 'test tiles')")
-        db.execute("INSERT INTO tiles VALUES (12, ?, ?, ?)", (x0, 2 ** 12 - 1 - y0, PNG))
+        db.execute("INSERT INTO tiles VALUES (12, ?, ?, ?)", (x0, 2**12 - 1 - y0, PNG))
     text = mapview.render(mapview.new_map(ll, tiles=mb))
     assert f'"12/{x0}/{y0}": "data:image/png;base64,' in text
     assert "test tiles" in text
@@ -202,16 +220,39 @@ def test_tile_sources(tmp_path, town_net):
 
 
 def test_cli_bad_tiles_is_one_line_exit_2(town_dir, tmp_path, capsys):
-    code = main(["score", str(datasets.get_path("routes")), "--network", str(town_dir),
-                 "--out", str(tmp_path / "o"), "--tiles", str(tmp_path / "nope.mbtiles")])
+    code = main(
+        [
+            "score",
+            str(datasets.get_path("routes")),
+            "--network",
+            str(town_dir),
+            "--out",
+            str(tmp_path / "o"),
+            "--tiles",
+            str(tmp_path / "nope.mbtiles"),
+        ]
+    )
     err = capsys.readouterr().err.strip().splitlines()
     assert code == 2 and len(err) == 1 and "--tiles" in err[0]
     assert not (tmp_path / "o").exists()
 
 
 def test_cli_bands_quantiles(town_dir, tmp_path):
-    assert main(["score", str(datasets.get_path("routes")), "--network", str(town_dir),
-                 "--out", str(tmp_path / "o"), "--bands", "quantiles"]) == 0
+    assert (
+        main(
+            [
+                "score",
+                str(datasets.get_path("routes")),
+                "--network",
+                str(town_dir),
+                "--out",
+                str(tmp_path / "o"),
+                "--bands",
+                "quantiles",
+            ]
+        )
+        == 0
+    )
     text = (tmp_path / "o" / "map.html").read_text()
     assert "quantiles of street length on this map" in text
 
@@ -221,7 +262,10 @@ def test_cli_bands_quantiles(town_dir, tmp_path):
 def test_score_map_in_chromium_panels_clear_of_layers(town_net, tmp_path):
     page = tmp_path / "score.html"
     mapview.save(routemap.route_map(town_net, _scores(town_net)), page)
-    res = inspect_page(page, screenshot=tmp_path / "score.png", script="""(() => {
+    res = inspect_page(
+        page,
+        screenshot=tmp_path / "score.png",
+        script="""(() => {
         const r = e => e.getBoundingClientRect();
         const over = (a, b) => !(a.right <= b.left || b.right <= a.left ||
                                  a.bottom <= b.top || b.bottom <= a.top);
@@ -233,7 +277,8 @@ def test_score_map_in_chromium_panels_clear_of_layers(town_net, tmp_path):
         return [panels.length, panels.some(p => over(p, layers)),
                 document.querySelectorAll('canvas').length,
                 document.querySelectorAll('.leaflet-marker-icon').length, folded];
-    })()""")
+    })()""",
+    )
     assert res["errors"] == [] and res["requests"] == []
     n_panels, covers, n_canvas, n_markers, folded = res["value"]
     assert n_panels == 2 and not covers
@@ -247,8 +292,11 @@ def test_many_shops_show_as_few_clusters(town_net, tmp_path):
     many = _many_shops(town_net)
     page = tmp_path / "many.html"
     mapview.save(mapview.network_map(many), page)
-    res = inspect_page(page, script="[document.querySelectorAll('.rr-cluster').length,"
-                                    " document.querySelectorAll('.leaflet-marker-icon').length]")
+    res = inspect_page(
+        page,
+        script="[document.querySelectorAll('.rr-cluster').length,"
+        " document.querySelectorAll('.leaflet-marker-icon').length]",
+    )
     assert res["errors"] == [] and res["requests"] == []
     clusters, icons = res["value"]
     assert clusters >= 1 and icons < 100  # 300+ points, far fewer icons at the first zoom
@@ -258,8 +306,15 @@ def test_hostile_name_in_the_background_is_escaped(town_net):
     ctx = town_net.context.copy()
     i = int(np.flatnonzero(ctx["kind"].to_numpy() == "street")[0])
     ctx.iloc[i, ctx.columns.get_loc("name")] = "<img src=x onerror=alert(3)>`${x}`"
-    net = Network(town_net.edges, town_net.nodes, town_net.sources, town_net.crossings,
-                  town_net.profile, town_net.meta, ctx)
+    net = Network(
+        town_net.edges,
+        town_net.nodes,
+        town_net.sources,
+        town_net.crossings,
+        town_net.profile,
+        town_net.meta,
+        ctx,
+    )
     text = mapview.render(mapview.network_map(net))
     assert "<img src=x onerror=alert(3)>" not in text
     assert "${x}" not in text
@@ -272,7 +327,9 @@ def test_hostile_name_in_the_background_is_escaped(town_net):
 def test_street_names_are_written_at_close_zoom(town_net, tmp_path):
     page = tmp_path / "names.html"
     mapview.save(mapview.network_map(town_net), page)
-    res = inspect_page(page, script=f"""(() => {{
+    res = inspect_page(
+        page,
+        script=f"""(() => {{
         // labels on the map (a removed one fades out of the page 200 ms later)
         const n = () => Object.values(map_0000._layers).filter(
             l => l instanceof L.Tooltip && l.options.className === 'rr-street-label').length;
@@ -282,7 +339,8 @@ def test_street_names_are_written_at_close_zoom(town_net, tmp_path):
         const shown = document.querySelectorAll('.rr-street-label').length;
         map_0000.setZoom({mapview.LABELS_FROM_ZOOM - 2}, {{animate: false}});
         return [before, after, shown, n()];
-    }})()""")
+    }})()""",
+    )
     assert res["errors"] == []
     before, after, shown, back = res["value"]
     assert before == 0 and after > 0 and shown == after and back == 0
@@ -293,14 +351,41 @@ def test_review_takes_tiles_and_bands(town_dir, tmp_path, capsys):
     (folder / "13" / "4000").mkdir(parents=True)
     (folder / "13" / "4000" / "3000.png").write_bytes(PNG)
     area = str(datasets.get_path("area"))
-    assert main(["review", area, "--network", str(town_dir), "--report",
-                 str(tmp_path / "r.html"), "--tiles", str(folder), "--bands",
-                 "quantiles"]) == 0
+    assert (
+        main(
+            [
+                "review",
+                area,
+                "--network",
+                str(town_dir),
+                "--report",
+                str(tmp_path / "r.html"),
+                "--tiles",
+                str(folder),
+                "--bands",
+                "quantiles",
+            ]
+        )
+        == 0
+    )
     text = (tmp_path / "r.html").read_text()
     assert folder.resolve().as_uri() in text
     assert "quantiles of street length on this map" in text
     capsys.readouterr()
-    assert main(["review", area, "--network", str(town_dir), "--report",
-                 str(tmp_path / "s.html"), "--tiles", str(tmp_path / "none")]) == 2
+    assert (
+        main(
+            [
+                "review",
+                area,
+                "--network",
+                str(town_dir),
+                "--report",
+                str(tmp_path / "s.html"),
+                "--tiles",
+                str(tmp_path / "none"),
+            ]
+        )
+        == 2
+    )
     assert len(capsys.readouterr().err.strip().splitlines()) == 1
     assert not (tmp_path / "s.html").exists()

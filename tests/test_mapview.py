@@ -36,7 +36,9 @@ def test_deterministic(town_net, tmp_path):
 def test_hostile_street_name_is_escaped(town_net, tmp_path):
     net = town_net
     edges = net.edges.copy()
-    edges.iloc[0, edges.columns.get_loc("name")] = '<script>alert(1)</script>"><img src=x onerror=alert(2)>'
+    edges.iloc[0, edges.columns.get_loc("name")] = (
+        '<script>alert(1)</script>"><img src=x onerror=alert(2)>'
+    )
     from routerisk.network import Network
 
     hostile = Network(edges, net.nodes, net.sources, net.crossings, net.profile, net.meta)
@@ -50,10 +52,15 @@ def test_hostile_street_name_is_escaped(town_net, tmp_path):
 @needs_chromium
 @pytest.mark.browser
 def test_renders_in_headless_chromium_offline(town_map, tmp_path):
-    res = inspect_page(town_map, screenshot=tmp_path / "map.png", script=(
-        "[document.querySelectorAll('.leaflet-control-layers-selector').length,"
-        " document.querySelectorAll('canvas').length,"
-        " !!document.getElementById('rr-legend')]"))
+    res = inspect_page(
+        town_map,
+        screenshot=tmp_path / "map.png",
+        script=(
+            "[document.querySelectorAll('.leaflet-control-layers-selector').length,"
+            " document.querySelectorAll('canvas').length,"
+            " !!document.getElementById('rr-legend')]"
+        ),
+    )
     assert res["errors"] == []
     assert res["requests"] == []
     n_layers, n_canvas, legend = res["value"]

@@ -66,8 +66,9 @@ def assert_connected(m: MatchedRoute) -> None:
 
 
 def edges_length(grid, m: MatchedRoute) -> float:
-    return float(sum(grid.edges[e]["length"] * f for e, f in zip(m.edges, m.fractions,
-                                                              strict=True)))
+    return float(
+        sum(grid.edges[e]["length"] * f for e, f in zip(m.edges, m.fractions, strict=True))
+    )
 
 
 # ---------------------------------------------------------------------------------------------
@@ -100,8 +101,9 @@ def test_join_agrees_with_networkx_fastest_paths_for_50_node_pairs(grid, index):
     for k in range(50):
         s, t = (nodes[i] for i in rng.choice(len(nodes), 2, replace=False))
         pairs.append((s, t))
-        routes.append(PlannedRoute(name=f"p{k}",
-                                   lonlat=[node_lonlat(grid, s), node_lonlat(grid, t)]))
+        routes.append(
+            PlannedRoute(name=f"p{k}", lonlat=[node_lonlat(grid, s), node_lonlat(grid, t)])
+        )
     ties = 0
     for (s, t), m in zip(pairs, join_many(index, routes), strict=True):
         assert_connected(m)
@@ -110,8 +112,10 @@ def test_join_agrees_with_networkx_fastest_paths_for_50_node_pairs(grid, index):
         # networkx's own answer: time, and the length of the path it finds
         nx_time = nx.shortest_path_length(grid, s, t, weight="travel_time")
         nx_path = nx.shortest_path(grid, s, t, weight="travel_time")
-        nx_len = sum(min(grid.get_edge_data(a, b).values(), key=lambda d: d["travel_time"])
-                     ["length"] for a, b in zip(nx_path[:-1], nx_path[1:], strict=True))
+        nx_len = sum(
+            min(grid.get_edge_data(a, b).values(), key=lambda d: d["travel_time"])["length"]
+            for a, b in zip(nx_path[:-1], nx_path[1:], strict=True)
+        )
         assert m.time_s == pytest.approx(nx_time, rel=1e-12)
         assert edges_length(grid, m) == pytest.approx(m.length_m, rel=1e-12)
         if abs(m.length_m - nx_len) > 1e-6:  # a different path of exactly equal time
@@ -121,10 +125,13 @@ def test_join_agrees_with_networkx_fastest_paths_for_50_node_pairs(grid, index):
 
 def test_join_through_several_waypoints_sums_the_legs(grid, index):
     stops = [nid(0, 0), nid(3, 5), nid(7, 1), nid(6, 6)]
-    m = join_waypoints(index, PlannedRoute(name="legs", lonlat=[node_lonlat(grid, n)
-                                                                 for n in stops]))
-    legs = sum(nx.shortest_path_length(grid, a, b, weight="travel_time")
-               for a, b in zip(stops[:-1], stops[1:], strict=True))
+    m = join_waypoints(
+        index, PlannedRoute(name="legs", lonlat=[node_lonlat(grid, n) for n in stops])
+    )
+    legs = sum(
+        nx.shortest_path_length(grid, a, b, weight="travel_time")
+        for a, b in zip(stops[:-1], stops[1:], strict=True)
+    )
     assert m.time_s == pytest.approx(legs, rel=1e-12)
     assert_connected(m)
     for i, n in enumerate(stops):  # each waypoint sits on an edge that touches its node
@@ -134,14 +141,16 @@ def test_join_through_several_waypoints_sums_the_legs(grid, index):
 
 def test_waypoints_in_the_middle_of_edges_split_them(grid, index):
     e = (nid(0, 1), nid(0, 2), 0)  # a straight two-way residential link
-    m = join_waypoints(index, PlannedRoute(name="part", lonlat=[on_edge(grid, e, 0.25),
-                                                                on_edge(grid, e, 0.75)]))
+    m = join_waypoints(
+        index, PlannedRoute(name="part", lonlat=[on_edge(grid, e, 0.25), on_edge(grid, e, 0.75)])
+    )
     assert m.edges == (e,)
     assert m.fractions[0] == pytest.approx(0.5, abs=1e-9)
     assert m.length_m == pytest.approx(0.5 * grid.edges[e]["length"], rel=1e-9)
     assert (m.start_offset, m.end_offset) == pytest.approx((0.25, 0.75), abs=1e-9)
-    back = join_waypoints(index, PlannedRoute(name="back", lonlat=[on_edge(grid, e, 0.75),
-                                                                   on_edge(grid, e, 0.25)]))
+    back = join_waypoints(
+        index, PlannedRoute(name="back", lonlat=[on_edge(grid, e, 0.75), on_edge(grid, e, 0.25)])
+    )
     assert back.edges == ((e[1], e[0], 0),)  # the other direction of the street
     assert back.fractions[0] == pytest.approx(0.5, abs=1e-9)
 
@@ -177,8 +186,9 @@ def test_join_widens_the_bound_when_the_road_detour_is_long(grid, index):
 def test_off_network_waypoint_names_route_point_and_distance(grid, index, tmp_path):
     xy = np.array([[grid.nodes[nid(3, 7)]["x"] + 500.0, grid.nodes[nid(3, 7)]["y"]]])
     far = to_lonlat(xy)[0].tolist()  # 500 m east of the last column
-    r = PlannedRoute(name="stray", lonlat=[node_lonlat(grid, nid(3, 3)), far],
-                     source=str(tmp_path / "r.geojson"))
+    r = PlannedRoute(
+        name="stray", lonlat=[node_lonlat(grid, nid(3, 3)), far], source=str(tmp_path / "r.geojson")
+    )
     with pytest.raises(RouteInputError) as exc:
         join_waypoints(index, r)
     line = exc.value.one_line()
@@ -188,8 +198,9 @@ def test_off_network_waypoint_names_route_point_and_distance(grid, index, tmp_pa
 
 
 def test_swapped_latitude_and_longitude_are_named(grid, index):
-    lonlat = np.array([node_lonlat(grid, nid(1, 1)), node_lonlat(grid, nid(5, 6)),
-                       node_lonlat(grid, nid(2, 3))])
+    lonlat = np.array(
+        [node_lonlat(grid, nid(1, 1)), node_lonlat(grid, nid(5, 6)), node_lonlat(grid, nid(2, 3))]
+    )
     r = PlannedRoute(name="swapped", lonlat=lonlat[:, ::-1], source="plans.csv")
     for fn in (join_waypoints, match_trace):
         with pytest.raises(RouteInputError, match="latitude and longitude look swapped") as exc:
@@ -231,8 +242,9 @@ def _recovered(grid, drive, m: MatchedRoute) -> float:
 def _on_path(grid, drive, m: MatchedRoute) -> float:
     """Share of the matched length that lies on edges of the true path."""
     truth = set(drive)
-    on = sum(grid.edges[e]["length"] * f for e, f in zip(m.edges, m.fractions, strict=True)
-             if e in truth)
+    on = sum(
+        grid.edges[e]["length"] * f for e, f in zip(m.edges, m.fractions, strict=True) if e in truth
+    )
     return on / edges_length(grid, m)
 
 
@@ -263,12 +275,17 @@ def test_match_sigma_15_recovers_85pct(grid, index):
 def test_match_adds_little_off_path_length_97pct_at_4_07_and_85pct_at_15(grid, index):
     # the bars are ours (common practice, no source): a match should not invent detours
     low = _traces(grid, 4.07)
-    on_low = [_on_path(grid, d, m) for (d, _), m in
-              zip(low, match_many(index, [r for _, r in low]), strict=True)]
+    on_low = [
+        _on_path(grid, d, m)
+        for (d, _), m in zip(low, match_many(index, [r for _, r in low]), strict=True)
+    ]
     high = _traces(grid, 15.0)
-    on_high = [_on_path(grid, d, m) for (d, _), m in
-               zip(high, match_many(index, [r for _, r in high], sigma_z="estimate"),
-                   strict=True)]
+    on_high = [
+        _on_path(grid, d, m)
+        for (d, _), m in zip(
+            high, match_many(index, [r for _, r in high], sigma_z="estimate"), strict=True
+        )
+    ]
     assert min(on_low) >= 0.97, f"{min(on_low):.3f} of the matched length on the true path"
     assert np.mean(on_high) >= 0.85, f"{np.mean(on_high):.3f} of the matched length on path"
 
@@ -292,7 +309,7 @@ def test_match_breaks_and_restarts_where_no_route_is_plausible(grid, index):
     assert len(m.piece_starts) == 2
     assert_connected(m)
     first = m.edges[: m.piece_starts[1]]
-    assert set(first) <= set(west) and set(m.edges[m.piece_starts[1]:]) <= set(east)
+    assert set(first) <= set(west) and set(m.edges[m.piece_starts[1] :]) <= set(east)
 
 
 def test_fixes_close_together_are_dropped_but_required_ones_kept(grid, index):
@@ -309,8 +326,12 @@ def test_fixes_close_together_are_dropped_but_required_ones_kept(grid, index):
 
 
 def test_match_off_network_trace_is_an_error(grid, index):
-    xy = np.array([[grid.nodes[nid(0, 0)]["x"] - 2000.0 - 10 * i, grid.nodes[nid(0, 0)]["y"]]
-                   for i in range(20)])
+    xy = np.array(
+        [
+            [grid.nodes[nid(0, 0)]["x"] - 2000.0 - 10 * i, grid.nodes[nid(0, 0)]["y"]]
+            for i in range(20)
+        ]
+    )
     with pytest.raises(RouteInputError) as exc:
         match_trace(index, PlannedRoute(name="at-sea", lonlat=to_lonlat(xy), source="d.gpx"))
     assert exc.value.field.startswith("route 'at-sea' point")
@@ -329,8 +350,9 @@ def test_dense_traces_are_matched_and_sparse_waypoints_joined(grid, index):
     # sparse points every ~100 m, but logged every 5 s: a trace
     t0 = datetime(2026, 5, 4, 11, 0, tzinfo=UTC)
     pts = trace.lonlat[::10]
-    sparse = PlannedRoute(name="sparse", lonlat=pts,
-                          times=[t0 + timedelta(seconds=5 * i) for i in range(len(pts))])
+    sparse = PlannedRoute(
+        name="sparse", lonlat=pts, times=[t0 + timedelta(seconds=5 * i) for i in range(len(pts))]
+    )
     assert is_dense_trace(sparse)
     out = to_edges_many(index, [plan, trace, sparse])
     assert [m.name for m in out] == ["plan", trace.name, "sparse"]

@@ -16,8 +16,7 @@ def test_round_trip(town_net, town_dir):
     net = load_network(town_dir)
     assert net.summary() == town_net.summary()
     cols = ["length", "exposure_km", "severity", "crossings"]
-    assert (net.edges[cols].round(9).sort_index().equals(
-        town_net.edges[cols].round(9).sort_index()))
+    assert net.edges[cols].round(9).sort_index().equals(town_net.edges[cols].round(9).sort_index())
     G = net.graph
     assert G.number_of_edges() == len(net.edges)
 
@@ -50,8 +49,9 @@ def test_refuses_changed_gpkg(town_dir, tmp_path):
 
 
 def test_retag_with_other_weights(town_dir):
-    strict = load_profile(__import__("pathlib").Path(__file__).parents[1] / "configs" /
-                          "community_strict.yaml")
+    strict = load_profile(
+        __import__("pathlib").Path(__file__).parents[1] / "configs" / "community_strict.yaml"
+    )
     net = load_network(town_dir, profile=strict)
     assert net.profile.fingerprint == strict.fingerprint
     assert len(net.profile.rules) == 3

@@ -117,8 +117,13 @@ def _random_day(seed: int) -> tuple[list[Job], list[str], float]:
             duration = round(rng.uniform(20, 70), 1)  # not on the 15-minute grid
             only = frozenset(rng.sample(fleet, 1)) if rng.random() < 0.2 else None
             cands.append(
-                Candidate(start, duration, round(rng.uniform(0, 10), 3),
-                          rule_breaks=int(rng.random() < 0.15), vehicles=only)
+                Candidate(
+                    start,
+                    duration,
+                    round(rng.uniform(0, 10), 3),
+                    rule_breaks=int(rng.random() < 0.15),
+                    vehicles=only,
+                )
             )
         jobs.append(Job(f"run{j}", tuple(cands), 1, vehicle))
     return jobs, fleet, turnaround
@@ -203,8 +208,11 @@ def test_hand_made_day_with_datetimes():
         return day + timedelta(minutes=minutes)
 
     jobs = [
-        Job(j.run, tuple(Candidate(at(c.start), c.duration, c.risk) for c in j.candidates),
-            vehicle=j.vehicle)
+        Job(
+            j.run,
+            tuple(Candidate(at(c.start), c.duration, c.risk) for c in j.candidates),
+            vehicle=j.vehicle,
+        )
         for j in _hand_day()
     ]
     plan = solve_schedule(jobs, vehicles=["A", "B"], turnaround_min=15)
@@ -225,7 +233,10 @@ def test_identical_vehicles_use_aggregated_model():
     assert plan.method == "milp-aggregated"
     assert plan.total_risk == pytest.approx(6.0)
     assert sorted((a.vehicle, a.start) for a in plan.assignments) == [
-        ("v1", 540), ("v1", 600), ("v2", 540), ("v2", 600)
+        ("v1", 540),
+        ("v1", 600),
+        ("v2", 540),
+        ("v2", 600),
     ]
     _assert_feasible(plan, jobs, ["v1", "v2"], 0)
 
@@ -264,8 +275,12 @@ def _pairwise_milp(jobs: list[Job], fleet: list[str], turnaround: float) -> tupl
     rows = [[i for i, (j, _, _) in enumerate(var) if j == k] for k in range(len(jobs))]
     for a, b in itertools.combinations(range(len(var)), 2):
         (ja, ca, va), (jb, cb, vb) = var[a], var[b]
-        if va == vb and ja != jb and ca.start < cb.start + cb.duration + turnaround \
-                and cb.start < ca.start + ca.duration + turnaround:
+        if (
+            va == vb
+            and ja != jb
+            and ca.start < cb.start + cb.duration + turnaround
+            and cb.start < ca.start + ca.duration + turnaround
+        ):
             rows.append([a, b])
     matrix = np.zeros((len(rows), len(var)))
     for r, cols in enumerate(rows):
@@ -274,8 +289,13 @@ def _pairwise_milp(jobs: list[Job], fleet: list[str], turnaround: float) -> tupl
     conflicts = LinearConstraint(matrix, -np.inf, 1)
     most = round(-milp(-ones, integrality=ones, bounds=(0, 1), constraints=[conflicts]).fun)
     risk = np.array([c.risk for _, c, _ in var])
-    res = milp(risk, integrality=ones, bounds=(0, 1), options={"mip_rel_gap": 0},
-               constraints=[conflicts, LinearConstraint(ones[None, :], most, np.inf)])
+    res = milp(
+        risk,
+        integrality=ones,
+        bounds=(0, 1),
+        options={"mip_rel_gap": 0},
+        constraints=[conflicts, LinearConstraint(ones[None, :], most, np.inf)],
+    )
     return most, float(res.fun)
 
 
@@ -289,8 +309,12 @@ def test_medium_days_match_an_independent_programme():
             Job(
                 f"r{j}",
                 tuple(
-                    Candidate(450 + 15 * rng.randint(0, 24), float(rng.randint(25, 70)),
-                              round(rng.uniform(0, 10), 2), rule_breaks=int(rng.random() < 0.1))
+                    Candidate(
+                        450 + 15 * rng.randint(0, 24),
+                        float(rng.randint(25, 70)),
+                        round(rng.uniform(0, 10), 2),
+                        rule_breaks=int(rng.random() < 0.1),
+                    )
                     for _ in range(8)
                 ),
                 vehicle=rng.choice(["A", None, None, None]) if seed % 2 else None,
@@ -326,8 +350,9 @@ def test_heuristic_on_a_larger_day_brackets_the_optimum():
     for j in range(25):
         duration = rng.choice([30.0, 45.0, 60.0])
         cands = tuple(
-            Candidate(420 + 15 * k, duration, rng.uniform(1, 10),
-                      rule_breaks=int(rng.random() < 0.1))
+            Candidate(
+                420 + 15 * k, duration, rng.uniform(1, 10), rule_breaks=int(rng.random() < 0.1)
+            )
             for k in range(20)
         )
         jobs.append(Job(f"r{j}", cands, vehicle=rng.choice(["A", "B", "C", None, None])))
@@ -411,14 +436,23 @@ def test_bad_options_raise():
 
 def test_jobs_for_runs_expands_repeats_and_windows():
     runs = [
-        RunSpec("loop", earliest=480, latest=720, start=(38.5, -38.0), end=(38.51, -38.0),
-                repeat=2, vehicle="B"),
+        RunSpec(
+            "loop",
+            earliest=480,
+            latest=720,
+            start=(38.5, -38.0),
+            end=(38.51, -38.0),
+            repeat=2,
+            vehicle="B",
+        ),
         RunSpec("spur", earliest=600, latest=660, start=(38.5, -38.0), end=(38.5, -38.01)),
     ]
     cands = {"loop": [Candidate(480, 60, 1.0), Candidate(700, 60, 0.5)]}
     jobs = jobs_for_runs(runs, cands)
     assert [(j.run, j.repetition, j.vehicle, j.earliest, j.latest) for j in jobs] == [
-        ("loop", 1, "B", 480, 720), ("loop", 2, "B", 480, 720), ("spur", 1, None, 600, 660)
+        ("loop", 1, "B", 480, 720),
+        ("loop", 2, "B", 480, 720),
+        ("spur", 1, None, 600, 660),
     ]
     plan = solve_schedule(jobs, vehicles=["A", "B"], turnaround_min=0)
     # 11:40 + 60 min ends after 12:00, so only the 08:00 start is usable, and on vehicle B
@@ -473,7 +507,12 @@ runs:
     loop, hill = runs
     assert loop.route == tmp_path / "routes" / "loops.geojson"
     assert (loop.route_name, loop.earliest, loop.latest, loop.vehicle, loop.repeat) == (
-        "east", 510, 720, "2", 3)
+        "east",
+        510,
+        720,
+        "2",
+        3,
+    )
     assert loop.where == "runs[0]" and loop.source == path
     assert hill.route is None and hill.start == (38.50, -38.01) and hill.via == ((38.505, -38.0),)
     assert (hill.earliest, hill.latest, hill.repeat, hill.vehicle) == (780, 1440, 1, None)
@@ -502,7 +541,11 @@ def test_read_csv_runs(tmp_path: Path):
 
 
 _GOOD = {
-    "name": "a", "start": "[1, 2]", "end": "[1, 3]", "earliest": '"09:00"', "latest": '"10:00"'
+    "name": "a",
+    "start": "[1, 2]",
+    "end": "[1, 3]",
+    "earliest": '"09:00"',
+    "latest": '"10:00"',
 }
 
 
@@ -532,8 +575,12 @@ def _yaml_run(**changes: str | None) -> str:
         (_yaml_run(start="[1]"), "runs[0].start", "[lat, lon]"),
         (_yaml_run(via="[[1, 2], [1, 'x']]"), "runs[0].via[1]", "[lat, lon]"),
         (_yaml_run(name=None), "runs[0].name", "missing run name"),
-        (_yaml_run() + "\n  - name: a\n    start: [1, 2]\n    end: [1, 3]\n"
-         '    earliest: "11:00"\n    latest: "12:00"', "runs[1].name", "duplicate"),
+        (
+            _yaml_run() + "\n  - name: a\n    start: [1, 2]\n    end: [1, 3]\n"
+            '    earliest: "11:00"\n    latest: "12:00"',
+            "runs[1].name",
+            "duplicate",
+        ),
         ("runs:\n  - just text", "runs[0]", "mapping"),
         ("schedule: []", "schedule", "unknown top-level key"),
         ("runs: 3", "runs", "list of runs"),

@@ -110,8 +110,10 @@ def test_missing_file(tmp_path):
 
 def test_toml_profile(tmp_path):
     p = tmp_path / "p.toml"
-    p.write_text('version = 1\nname = "t"\n[categories.school]\nselect = [{amenity = '
-                 '"school"}]\nweight = 1.0\nradius_m = 50\n')
+    p.write_text(
+        'version = 1\nname = "t"\n[categories.school]\nselect = [{amenity = '
+        '"school"}]\nweight = 1.0\nradius_m = 50\n'
+    )
     prof = load_profile(p)
     assert prof.category_names == ("school",)
 
@@ -134,9 +136,13 @@ def test_window_past_midnight(tmp_path, doc):
     # exactly the two hours, wrapping from the end of the week to its start (Monday 00:00 = 0)
     assert sorted(mins) == [*range(60), *range(6 * 1440 + 23 * 60, MINUTES_PER_WEEK)]
     # the same window read from a profile file gives its multiplier in those minutes only
-    doc["time_profiles"] = {**doc.get("time_profiles", {}), "late": {
-        "default": 1.0, "windows": [{"days": ["sun"], "start": "23:00", "end": "01:00",
-                                     "multiplier": 3.0}]}}
+    doc["time_profiles"] = {
+        **doc.get("time_profiles", {}),
+        "late": {
+            "default": 1.0,
+            "windows": [{"days": ["sun"], "start": "23:00", "end": "01:00", "multiplier": 3.0}],
+        },
+    }
     prof = load_profile(_write(tmp_path, doc))
     by_minute = prof.time_profile("late").by_minute
     assert by_minute[6 * 1440 + 23 * 60] == 3.0 and by_minute[59] == 3.0
@@ -145,6 +151,7 @@ def test_window_past_midnight(tmp_path, doc):
 
 
 # -- issue 17: time profiles on baseline and crossings, likelihood by speed, smooth gaussian --
+
 
 def test_street_time_profiles_are_read_and_fingerprinted(tmp_path, doc):
     prof = load_profile(_write(tmp_path, doc))
@@ -191,8 +198,8 @@ def test_likelihood_published_exponents(tmp_path, doc):
         assert like.exponent == exponent
         ref_kph = 30 * 1.609344
         assert float(like.factor(ref_kph)) == pytest.approx(1.0)
-        assert float(like.factor(1.1 * ref_kph)) == pytest.approx(1.1 ** exponent)
-    assert 1.1 ** 4.6 == pytest.approx(1.55, abs=0.005)  # about 55 % more fatal crashes
+        assert float(like.factor(1.1 * ref_kph)) == pytest.approx(1.1**exponent)
+    assert 1.1**4.6 == pytest.approx(1.55, abs=0.005)  # about 55 % more fatal crashes
 
 
 def test_likelihood_is_off_by_default_and_fingerprinted(tmp_path, doc):
@@ -205,15 +212,18 @@ def test_likelihood_is_off_by_default_and_fingerprinted(tmp_path, doc):
     assert on.fingerprint != prof.fingerprint
 
 
-@pytest.mark.parametrize(("value", "key"), [
-    ({"crashes": "fatal", "exponent": 4.6}, "likelihood.exponent"),
-    ({"crashes": "pedestrian"}, "likelihood.crashes"),
-    ({"model": "exponential"}, "likelihood.model"),
-    ({"exponent": -1}, "likelihood.exponent"),
-    ({"reference_mph": 0}, "likelihood.reference_mph"),
-    ({"speed": 3}, "likelihood.speed"),
-    ("on", "likelihood"),
-])
+@pytest.mark.parametrize(
+    ("value", "key"),
+    [
+        ({"crashes": "fatal", "exponent": 4.6}, "likelihood.exponent"),
+        ({"crashes": "pedestrian"}, "likelihood.crashes"),
+        ({"model": "exponential"}, "likelihood.model"),
+        ({"exponent": -1}, "likelihood.exponent"),
+        ({"reference_mph": 0}, "likelihood.reference_mph"),
+        ({"speed": 3}, "likelihood.speed"),
+        ("on", "likelihood"),
+    ],
+)
 def test_bad_likelihood(tmp_path, doc, value, key):
     doc["likelihood"] = value
     _bad(tmp_path, doc, key)
@@ -233,10 +243,21 @@ def test_gaussian_smooth_is_continuous_at_the_radius(tmp_path, doc):
     # the shape: (exp(-d^2 / (2 sigma^2)) - exp(-2)) / (1 - exp(-2)), sigma = r / 2
     sigma = r / 2
     assert float(cat.nearness(np.array([sigma]))[0]) == pytest.approx(
-        (np.exp(-0.5) - np.exp(-2)) / (1 - np.exp(-2)))
+        (np.exp(-0.5) - np.exp(-2)) / (1 - np.exp(-2))
+    )
     # the plain gaussian keeps its documented step: exp(-2) = 0.135 just inside the radius
-    plain = load_profile(_write(tmp_path, {**doc, "categories": {
-        **doc["categories"], "retail": {**doc["categories"]["retail"], "decay": "gaussian"}}}))
+    plain = load_profile(
+        _write(
+            tmp_path,
+            {
+                **doc,
+                "categories": {
+                    **doc["categories"],
+                    "retail": {**doc["categories"]["retail"], "decay": "gaussian"},
+                },
+            },
+        )
+    )
     step = plain.category("retail").nearness(np.array([r - eps, r + eps]))
     assert step[0] == pytest.approx(np.exp(-2.0)) and step[1] == 0.0
     assert plain.fingerprint != prof.fingerprint

@@ -40,30 +40,65 @@ X0, Y0 = 500_000.0, 4_260_000.0
 TZ = dt.timezone(dt.timedelta(hours=-3))
 MONDAY = dt.datetime(2027, 3, 8, 0, 0, tzinfo=TZ)
 CATS = ("a", "b")
-SETTINGS = dict(derandomize=True, deadline=None,
-                suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large])
+SETTINGS = dict(
+    derandomize=True,
+    deadline=None,
+    suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large],
+)
 
 
-def _profile(weights=(1.0, 1.0), *, radius=(60.0, 40.0), decay=("linear", "gaussian"),
-             stack=(False, True), crossing_weight=0.05, rules=(), timed=True):
-    tps = {"busy": {"default": 0.5, "windows": [
-        {"days": ["mon", "tue", "wed", "thu", "fri"], "start": "07:00", "end": "09:00",
-         "multiplier": 3.0},
-        {"days": ["sat"], "start": "22:00", "end": "02:00", "multiplier": 1.5}]}}
+def _profile(
+    weights=(1.0, 1.0),
+    *,
+    radius=(60.0, 40.0),
+    decay=("linear", "gaussian"),
+    stack=(False, True),
+    crossing_weight=0.05,
+    rules=(),
+    timed=True,
+):
+    tps = {
+        "busy": {
+            "default": 0.5,
+            "windows": [
+                {
+                    "days": ["mon", "tue", "wed", "thu", "fri"],
+                    "start": "07:00",
+                    "end": "09:00",
+                    "multiplier": 3.0,
+                },
+                {"days": ["sat"], "start": "22:00", "end": "02:00", "multiplier": 1.5},
+            ],
+        }
+    }
     cats = {}
     for i, c in enumerate(CATS):
-        cats[c] = {"select": [{"kind": c}], "weight": float(weights[i]),
-                   "radius_m": float(radius[i]), "decay": decay[i], "stack": bool(stack[i])}
+        cats[c] = {
+            "select": [{"kind": c}],
+            "weight": float(weights[i]),
+            "radius_m": float(radius[i]),
+            "decay": decay[i],
+            "stack": bool(stack[i]),
+        }
         if timed and i == 0:
             cats[c]["time_profile"] = "busy"
-    return parse_profile({"version": 1, "name": "prop", "sample_spacing_m": 10,
-                          "time_profiles": tps if timed else {}, "categories": cats,
-                          "crossing_weight": crossing_weight,
-                          "baseline": {"by_road_class": {"residential": 0.3, "primary": 0.1},
-                                       "default": 0.2,
-                                       "sidewalk": {"both": 1.0, "no": 1.3, "unknown": 1.0}},
-                          "bands": [{"name": "low", "from": 0.0}, {"name": "high", "from": 1.0}],
-                          "rules": list(rules)})
+    return parse_profile(
+        {
+            "version": 1,
+            "name": "prop",
+            "sample_spacing_m": 10,
+            "time_profiles": tps if timed else {},
+            "categories": cats,
+            "crossing_weight": crossing_weight,
+            "baseline": {
+                "by_road_class": {"residential": 0.3, "primary": 0.1},
+                "default": 0.2,
+                "sidewalk": {"both": 1.0, "no": 1.3, "unknown": 1.0},
+            },
+            "bands": [{"name": "low", "from": 0.0}, {"name": "high", "from": 1.0}],
+            "rules": list(rules),
+        }
+    )
 
 
 # ------------------------------------------------------------------------------ strategies
@@ -83,29 +118,40 @@ def edge_sets(draw, max_edges: int = 5):
         end = (x + 20.0 * k, y) if horizontal else (x, y + 20.0 * k)
         g = LineString([(X0 + x, Y0 + y), (X0 + end[0], Y0 + end[1])])
         geoms.append(g)
-        rows.append({"u": i * 2 + 1, "v": i * 2 + 2, "key": 0,
-                     "highway": draw(st.sampled_from(["residential", "primary", "service"])),
-                     "sidewalk": draw(st.sampled_from(["both", "no", None])),
-                     "speed_kph": draw(st.sampled_from([20.0, 40.0, 56.0])),
-                     "length": g.length, "name": f"Street {i}"})
+        rows.append(
+            {
+                "u": i * 2 + 1,
+                "v": i * 2 + 2,
+                "key": 0,
+                "highway": draw(st.sampled_from(["residential", "primary", "service"])),
+                "sidewalk": draw(st.sampled_from(["both", "no", None])),
+                "speed_kph": draw(st.sampled_from([20.0, 40.0, 56.0])),
+                "length": g.length,
+                "name": f"Street {i}",
+            }
+        )
     df = gpd.GeoDataFrame(pd.DataFrame(rows), geometry=geoms, crs=CRS)
     df["travel_time"] = df["length"] / (df["speed_kph"] / 3.6)
     return df.set_index(["u", "v", "key"])
 
 
 point = st.tuples(st.floats(-40, 240), st.floats(-40, 240)).map(
-    lambda p: Point(X0 + p[0], Y0 + p[1]))
+    lambda p: Point(X0 + p[0], Y0 + p[1])
+)
 
 
 def _sources(pts, cats) -> gpd.GeoDataFrame:
-    return gpd.GeoDataFrame({"category": list(cats), "osm_type": "node",
-                             "osmid": np.arange(len(cats)), "name": ""},
-                            geometry=list(pts), crs=CRS)
+    return gpd.GeoDataFrame(
+        {"category": list(cats), "osm_type": "node", "osmid": np.arange(len(cats)), "name": ""},
+        geometry=list(pts),
+        crs=CRS,
+    )
 
 
 def _crossings(pts) -> gpd.GeoDataFrame:
-    return gpd.GeoDataFrame({"osmid": np.arange(len(pts)), "crossing": "marked"},
-                            geometry=list(pts), crs=CRS)
+    return gpd.GeoDataFrame(
+        {"osmid": np.arange(len(pts)), "crossing": "marked"}, geometry=list(pts), crs=CRS
+    )
 
 
 sources_st = st.lists(st.tuples(point, st.sampled_from(CATS)), max_size=6)
@@ -117,11 +163,18 @@ weights_st = st.tuples(st.floats(0, 10), st.floats(0, 10))
 
 
 @settings(max_examples=40, **SETTINGS)
-@given(edges=edge_sets(), srcs=sources_st, cross=crossings_st, w=weights_st,
-       which=st.sampled_from([0, 1]), bump=st.floats(0.01, 5),
-       minute=st.integers(0, MINUTES_PER_WEEK - 1))
-def test_exposure_nonnegative_and_monotone_in_every_weight(edges, srcs, cross, w, which, bump,
-                                                           minute):
+@given(
+    edges=edge_sets(),
+    srcs=sources_st,
+    cross=crossings_st,
+    w=weights_st,
+    which=st.sampled_from([0, 1]),
+    bump=st.floats(0.01, 5),
+    minute=st.integers(0, MINUTES_PER_WEEK - 1),
+)
+def test_exposure_nonnegative_and_monotone_in_every_weight(
+    edges, srcs, cross, w, which, bump, minute
+):
     src = _sources([p for p, _ in srcs], [c for _, c in srcs])
     cr = _crossings(cross)
     w2 = list(w)
@@ -141,14 +194,21 @@ def test_exposure_nonnegative_and_monotone_in_every_weight(edges, srcs, cross, w
     p_hi = edge_risk_parts(hi, _profile(w2), minute)
     assert (p_lo.to_numpy() >= 0).all()
     assert (p_hi["total"].to_numpy() >= p_lo["total"].to_numpy() - 1e-12).all()
-    np.testing.assert_allclose(p_lo["total"], p_lo.drop(columns="total").sum(axis=1),
-                               rtol=1e-12, atol=1e-15)
+    np.testing.assert_allclose(
+        p_lo["total"], p_lo.drop(columns="total").sum(axis=1), rtol=1e-12, atol=1e-15
+    )
 
 
 @settings(max_examples=25, **SETTINGS)
-@given(seed=st.integers(0, 10_000), w=weights_st, which=st.sampled_from([0, 1]),
-       bump=st.floats(0.01, 5), steps=st.integers(1, 10),
-       minute=st.integers(0, MINUTES_PER_WEEK - 1), data=st.data())
+@given(
+    seed=st.integers(0, 10_000),
+    w=weights_st,
+    which=st.sampled_from([0, 1]),
+    bump=st.floats(0.01, 5),
+    steps=st.integers(1, 10),
+    minute=st.integers(0, MINUTES_PER_WEEK - 1),
+    data=st.data(),
+)
 def test_route_risk_monotone_in_every_weight(seed, w, which, bump, steps, minute, data):
     w2 = list(w)
     w2[which] += bump
@@ -182,11 +242,15 @@ def _walk(net: Network, steps: int, data) -> list[tuple[int, int, int]]:
 
 
 @settings(max_examples=40, **SETTINGS)
-@given(edges=edge_sets(), srcs=sources_st, extra=point, cat=st.sampled_from(CATS),
-       decay=st.tuples(st.sampled_from(DECAYS),
-                       st.sampled_from(DECAYS)),
-       stack=st.tuples(st.booleans(), st.booleans()),
-       radius=st.tuples(st.floats(5, 150), st.floats(5, 150)))
+@given(
+    edges=edge_sets(),
+    srcs=sources_st,
+    extra=point,
+    cat=st.sampled_from(CATS),
+    decay=st.tuples(st.sampled_from(DECAYS), st.sampled_from(DECAYS)),
+    stack=st.tuples(st.booleans(), st.booleans()),
+    radius=st.tuples(st.floats(5, 150), st.floats(5, 150)),
+)
 def test_adding_a_source_never_lowers_exposure(edges, srcs, extra, cat, decay, stack, radius):
     prof = _profile(decay=decay, stack=stack, radius=radius)
     base = _sources([p for p, _ in srcs], [c for _, c in srcs])
@@ -208,9 +272,14 @@ def test_adding_a_source_never_lowers_exposure(edges, srcs, extra, cat, decay, s
 
 
 @settings(max_examples=30, **SETTINGS)
-@given(seed=st.integers(0, 10_000), steps=st.integers(1, 14),
-       minute=st.integers(0, MINUTES_PER_WEEK - 1), w=weights_st,
-       cw=st.floats(0, 1), data=st.data())
+@given(
+    seed=st.integers(0, 10_000),
+    steps=st.integers(1, 14),
+    minute=st.integers(0, MINUTES_PER_WEEK - 1),
+    w=weights_st,
+    cw=st.floats(0, 1),
+    data=st.data(),
+)
 def test_route_risk_is_the_sum_of_its_segments(seed, steps, minute, w, cw, data):
     prof = _profile(w, crossing_weight=cw)
     net = random_grid(prof, n=4, seed=seed)
@@ -227,16 +296,18 @@ def test_route_risk_is_the_sum_of_its_segments(seed, steps, minute, w, cw, data)
     # independently: the edge formula at each segment's entry minute (its ISO time)
     entered = minute_of_week(pd.Series(pd.to_datetime(seg["time"])))
     parts = edge_risk_parts(net.edges.loc[path], prof, entered)
-    np.testing.assert_allclose(parts["total"].to_numpy(), seg["risk"].to_numpy(), rtol=1e-12,
-                               atol=1e-15)
+    np.testing.assert_allclose(
+        parts["total"].to_numpy(), seg["risk"].to_numpy(), rtol=1e-12, atol=1e-15
+    )
     assert s.length_km == pytest.approx(net.edges.loc[path, "length"].sum() / 1000, rel=1e-12)
 
 
 # ---------------------------------------------------------------------------- splitting
 
 
-def _chain_network(lengths: list[int], turns: list[bool], prof, srcs, cross,
-                   split: int | None) -> tuple[Network, list[tuple[int, int, int]]]:
+def _chain_network(
+    lengths: list[int], turns: list[bool], prof, srcs, cross, split: int | None
+) -> tuple[Network, list[tuple[int, int, int]]]:
     """Return a one-way chain of edges (lengths in 20 m units) and its route.
 
     With ``split`` = j, edge j is two edges meeting at a new node 999 at its middle, each
@@ -252,8 +323,12 @@ def _chain_network(lengths: list[int], turns: list[bool], prof, srcs, cross,
         u, v = i + 1, i + 2
         nodes[v] = (nx_, ny_)
         speed = 40.0 if i % 2 else 30.0
-        tags = {"highway": "residential" if i % 2 else "primary", "sidewalk": "both",
-                "speed_kph": speed, "name": f"Chain {i}"}
+        tags = {
+            "highway": "residential" if i % 2 else "primary",
+            "sidewalk": "both",
+            "speed_kph": speed,
+            "name": f"Chain {i}",
+        }
         pieces = [((x, y), (nx_, ny_), u, v)]
         if split == i:
             mx, my = (x + nx_) / 2, (y + ny_) / 2
@@ -261,26 +336,43 @@ def _chain_network(lengths: list[int], turns: list[bool], prof, srcs, cross,
             pieces = [((x, y), (mx, my), u, 999), ((mx, my), (nx_, ny_), 999, v)]
         for a, b, pu, pv in pieces:
             g = LineString([a, b])
-            rows.append({"u": pu, "v": pv, "key": 0, **tags, "length": g.length,
-                         "travel_time": g.length / (speed / 3.6), "geometry": g})
+            rows.append(
+                {
+                    "u": pu,
+                    "v": pv,
+                    "key": 0,
+                    **tags,
+                    "length": g.length,
+                    "travel_time": g.length / (speed / 3.6),
+                    "geometry": g,
+                }
+            )
         x, y = nx_, ny_
     edges = gpd.GeoDataFrame(pd.DataFrame(rows), geometry="geometry", crs=CRS).set_index(
-        ["u", "v", "key"])
+        ["u", "v", "key"]
+    )
     tagged = tag_edges(edges, srcs, cross, prof)
     ids = sorted(nodes)
-    nd = gpd.GeoDataFrame({"x": [nodes[i][0] for i in ids], "y": [nodes[i][1] for i in ids]},
-                          index=pd.Index(ids, name="osmid"),
-                          geometry=[Point(nodes[i]) for i in ids], crs=CRS)
+    nd = gpd.GeoDataFrame(
+        {"x": [nodes[i][0] for i in ids], "y": [nodes[i][1] for i in ids]},
+        index=pd.Index(ids, name="osmid"),
+        geometry=[Point(nodes[i]) for i in ids],
+        crs=CRS,
+    )
     net = Network(tagged, nd, srcs, cross, prof, {"timezone": "Etc/GMT+3"})
     return net, [tuple(int(x) for x in ix) for ix in tagged.index]
 
 
 @settings(max_examples=30, **SETTINGS)
-@given(lengths=st.lists(st.integers(1, 8), min_size=1, max_size=4), data=st.data(),
-       srcs=sources_st, cross=crossings_st, w=weights_st,
-       stack=st.tuples(st.booleans(), st.booleans()),
-       decay=st.tuples(st.sampled_from(DECAYS),
-                       st.sampled_from(DECAYS)))
+@given(
+    lengths=st.lists(st.integers(1, 8), min_size=1, max_size=4),
+    data=st.data(),
+    srcs=sources_st,
+    cross=crossings_st,
+    w=weights_st,
+    stack=st.tuples(st.booleans(), st.booleans()),
+    decay=st.tuples(st.sampled_from(DECAYS), st.sampled_from(DECAYS)),
+)
 def test_splitting_an_edge_keeps_the_route_risk(lengths, data, srcs, cross, w, stack, decay):
     turns = data.draw(st.lists(st.booleans(), min_size=len(lengths), max_size=len(lengths)))
     j = data.draw(st.integers(0, len(lengths) - 1))
@@ -315,8 +407,11 @@ def test_a_crossing_at_a_node_counts_once_along_a_route():
     whole, route = _chain_network([4], [False], prof, src, cr, None)
     split, route2 = _chain_network([4], [False], prof, src, cr, 0)
     depart = MONDAY + dt.timedelta(days=1, hours=10)
-    assert Scorer(split).score("r", route2, depart).crossings == \
-        Scorer(whole).score("r", route, depart).crossings == 1
+    assert (
+        Scorer(split).score("r", route2, depart).crossings
+        == Scorer(whole).score("r", route, depart).crossings
+        == 1
+    )
 
 
 # -------------------------------------------------------------------------- hard rules
@@ -337,14 +432,23 @@ def _rule_ok(net: Network, edges, depart: dt.datetime) -> bool:
 
 
 @settings(max_examples=20, **SETTINGS)
-@given(seed=st.integers(0, 10_000), share=st.floats(0.05, 0.5),
-       minute=st.integers(0, MINUTES_PER_WEEK - 1), extra=st.floats(0.1, 1.5),
-       ends=st.tuples(st.integers(1, 16), st.integers(1, 16)).filter(lambda t: t[0] != t[1]),
-       always=st.booleans())
+@given(
+    seed=st.integers(0, 10_000),
+    share=st.floats(0.05, 0.5),
+    minute=st.integers(0, MINUTES_PER_WEEK - 1),
+    extra=st.floats(0.1, 1.5),
+    ends=st.tuples(st.integers(1, 16), st.integers(1, 16)).filter(lambda t: t[0] != t[1]),
+    always=st.booleans(),
+)
 def test_alternatives_never_break_hard_rules(seed, share, minute, extra, ends, always):
-    windows = [] if always else [{"days": ["mon", "tue", "wed", "thu", "fri"],
-                                  "start": "07:00", "end": "09:00"},
-                                 {"days": ["sat", "sun"], "start": "20:00", "end": "02:00"}]
+    windows = (
+        []
+        if always
+        else [
+            {"days": ["mon", "tue", "wed", "thu", "fri"], "start": "07:00", "end": "09:00"},
+            {"days": ["sat", "sun"], "start": "20:00", "end": "02:00"},
+        ]
+    )
     rule = {"name": "closed streets", "road_classes": ["living_street"]}
     if windows:
         rule["windows"] = windows

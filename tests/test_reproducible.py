@@ -29,8 +29,9 @@ GPKG_STAMPED = {"network/network.gpkg", "network/meta.json"}
 
 
 def _files(d: Path) -> dict[str, bytes]:
-    return {p.relative_to(d).as_posix(): p.read_bytes() for p in sorted(d.rglob("*"))
-            if p.is_file()}
+    return {
+        p.relative_to(d).as_posix(): p.read_bytes() for p in sorted(d.rglob("*")) if p.is_file()
+    }
 
 
 @pytest.fixture(scope="module")
@@ -60,34 +61,48 @@ def test_network_folder_is_byte_identical_too(two_demos):
 
 def _records_version(text: str) -> bool:
     return f"routerisk {__version__}" in text or (
-        "routerisk_version" in text and __version__ in text)
+        "routerisk_version" in text and __version__ in text
+    )
 
 
 #: Inputs whose checksum each demo output records besides the network source (sample town).
 EXTRA_INPUTS = {
-    "scores/routes.csv": ("routes",), "scores/segments.geojson": ("routes",),
-    "scores/map.html": ("routes",), "alternatives_map.html": ("routes",),
-    "review/areas.json": ("area",), "review/report.html": ("area",),
-    "review/areas.csv": ("area",), "warnings/overlay.yaml": ("events", "drives"),
-    "warnings/segments.csv": ("events", "drives"), "warnings/map.html": ("events", "drives"),
+    "scores/routes.csv": ("routes",),
+    "scores/segments.geojson": ("routes",),
+    "scores/map.html": ("routes",),
+    "alternatives_map.html": ("routes",),
+    "review/areas.json": ("area",),
+    "review/report.html": ("area",),
+    "review/areas.csv": ("area",),
+    "warnings/overlay.yaml": ("events", "drives"),
+    "warnings/segments.csv": ("events", "drives"),
+    "warnings/map.html": ("events", "drives"),
     "warnings/charts.csv": ("events", "drives"),
-    "warnings/report.html": ("events", "drives"), "evidence.txt": ("drives",),
+    "warnings/report.html": ("events", "drives"),
+    "evidence.txt": ("drives",),
     "evidence_chart.png": ("drives",),
     "summary.json": ("routes", "area", "events", "drives", "counts"),
-    "calibration/profile.yaml": ("counts",), "calibration/report.html": ("counts",),
+    "calibration/profile.yaml": ("counts",),
+    "calibration/report.html": ("counts",),
     "calibration/uncertainty.json": ("counts", "routes"),
 }
 
 
 def _missing_provenance(d: Path, names: list[str]) -> dict[str, list[str]]:
     meta = json.loads((d / "network" / "meta.json").read_text())
-    need_all = {"version": None, "profile": meta["profile"],
-                "network source": meta["source_sha256"]}
+    need_all = {
+        "version": None,
+        "profile": meta["profile"],
+        "network source": meta["source_sha256"],
+    }
     out = {}
     for name in names:
         text = (d / name).read_bytes().decode("utf-8", errors="replace")
-        missing = [k for k, v in need_all.items()
-                   if not (_records_version(text) if v is None else v in text)]
+        missing = [
+            k
+            for k, v in need_all.items()
+            if not (_records_version(text) if v is None else v in text)
+        ]
         for role in EXTRA_INPUTS.get(name, ()):
             if file_record(datasets.get_path(role))["sha256"] not in text:
                 missing.append(role)
@@ -143,9 +158,16 @@ def test_merged_edges_do_not_depend_on_the_hash_seed(tmp_path):
     procs = []
     for seed in ("0", "4"):  # two seeds that order {"Alder Road", "Birch Road"} differently
         env = {**os.environ, "PYTHONHASHSEED": seed, "PYTHONPATH": str(ROOT)}
-        procs.append(subprocess.Popen([sys.executable, "-c", _PRINT_EDGES, str(src)],
-                                      env=env, cwd=ROOT, stdout=subprocess.PIPE,
-                                      stderr=subprocess.PIPE, text=True))
+        procs.append(
+            subprocess.Popen(
+                [sys.executable, "-c", _PRINT_EDGES, str(src)],
+                env=env,
+                cwd=ROOT,
+                stdout=subprocess.PIPE,
+                stderr=subprocess.PIPE,
+                text=True,
+            )
+        )
     outs = []
     for p in procs:
         out, err = p.communicate(timeout=120)

@@ -92,8 +92,17 @@ def _box(x1: float, y1: float, x2: float, y2: float) -> Polygon:
     return shapely.box(X0 + x1, Y0 + y1, X0 + x2, Y0 + y2)
 
 
-NODES = {1: (0, 0), 2: (100, 0), 3: (200, 0), 4: (300, 0), 5: (400, 0),
-         11: (200, -200), 12: (200, -100), 14: (200, 100), 15: (200, 200)}
+NODES = {
+    1: (0, 0),
+    2: (100, 0),
+    3: (200, 0),
+    4: (300, 0),
+    5: (400, 0),
+    11: (200, -200),
+    12: (200, -100),
+    14: (200, 100),
+    15: (200, 200),
+}
 
 
 def make_network(profile_path: Path, *, birch_name: str = "Birch Lane") -> Network:
@@ -109,9 +118,12 @@ def make_network(profile_path: Path, *, birch_name: str = "Birch Lane") -> Netwo
         rows.append((u, v, 0, 200, "tertiary", birch_name, True, 35 * MPH))
     geoms = [LineString([_xy(*NODES[r[0]]), _xy(*NODES[r[1]])]) for r in rows]
     edges = gpd.GeoDataFrame(
-        pd.DataFrame(rows, columns=["u", "v", "key", "osmid", "highway", "name", "oneway",
-                                    "speed_kph"]),
-        geometry=geoms, crs=CRS)
+        pd.DataFrame(
+            rows, columns=["u", "v", "key", "osmid", "highway", "name", "oneway", "speed_kph"]
+        ),
+        geometry=geoms,
+        crs=CRS,
+    )
     edges["lanes"] = np.nan
     edges["sidewalk"] = "both"
     edges["length"] = edges.geometry.length  # straight lines: length = geometry length
@@ -122,21 +134,42 @@ def make_network(profile_path: Path, *, birch_name: str = "Birch Lane") -> Netwo
     xs = np.array([X0 + NODES[i][0] for i in ids])
     ys = np.array([Y0 + NODES[i][1] for i in ids])
     lon, lat = to_ll.transform(xs, ys)
-    nodes = gpd.GeoDataFrame({"osmid": ids, "x": xs, "y": ys, "lon": lon, "lat": lat},
-                             geometry=gpd.points_from_xy(xs, ys), crs=CRS).set_index("osmid")
+    nodes = gpd.GeoDataFrame(
+        {"osmid": ids, "x": xs, "y": ys, "lon": lon, "lat": lat},
+        geometry=gpd.points_from_xy(xs, ys),
+        crs=CRS,
+    ).set_index("osmid")
     sources = gpd.GeoDataFrame(
-        {"category": ["school", "school", "school", "park"],
-         "osm_type": ["node", "node", "node", "way"], "osmid": [900, 901, 902, 950],
-         "name": ["Heron School", "Far School", "Distant School", "Reed Park"]},
-        geometry=[Point(_xy(100, 50)), Point(_xy(100, 200)), Point(_xy(1000, 1000)),
-                  _box(320, 20, 380, 60)], crs=CRS)
-    crossings = gpd.GeoDataFrame({"osmid": [800, 801], "crossing": ["marked", "marked"]},
-                                 geometry=[Point(_xy(250, 0)), Point(_xy(20, 0))], crs=CRS)
+        {
+            "category": ["school", "school", "school", "park"],
+            "osm_type": ["node", "node", "node", "way"],
+            "osmid": [900, 901, 902, 950],
+            "name": ["Heron School", "Far School", "Distant School", "Reed Park"],
+        },
+        geometry=[
+            Point(_xy(100, 50)),
+            Point(_xy(100, 200)),
+            Point(_xy(1000, 1000)),
+            _box(320, 20, 380, 60),
+        ],
+        crs=CRS,
+    )
+    crossings = gpd.GeoDataFrame(
+        {"osmid": [800, 801], "crossing": ["marked", "marked"]},
+        geometry=[Point(_xy(250, 0)), Point(_xy(20, 0))],
+        crs=CRS,
+    )
     tagged = tag_edges(edges, sources, crossings, profile)
-    meta = {"format_version": FORMAT_VERSION, "timezone": "Etc/GMT+3", "crs": CRS,
-            "source_name": "test-town.osm",
-            "source_sha256": "0" * 64, "source_timestamp": "2024-05-01T00:00:00Z",
-            "data_licence": "OpenStreetMap data: ODbL 1.0", "profile": profile.fingerprint}
+    meta = {
+        "format_version": FORMAT_VERSION,
+        "timezone": "Etc/GMT+3",
+        "crs": CRS,
+        "source_name": "test-town.osm",
+        "source_sha256": "0" * 64,
+        "source_timestamp": "2024-05-01T00:00:00Z",
+        "data_licence": "OpenStreetMap data: ODbL 1.0",
+        "profile": profile.fingerprint,
+    }
     return Network(tagged, nodes, sources, crossings, profile, meta)
 
 
@@ -159,8 +192,9 @@ def hand_dir(hand: tuple[Path, Network], tmp_path_factory: pytest.TempPathFactor
 
 
 def _area_file(path: Path, geoms: list, names: list | None = None, crs: str = CRS) -> Path:
-    gdf = gpd.GeoDataFrame({"name": names or [f"a{i}" for i in range(len(geoms))]},
-                           geometry=geoms, crs=crs)
+    gdf = gpd.GeoDataFrame(
+        {"name": names or [f"a{i}" for i in range(len(geoms))]}, geometry=geoms, crs=crs
+    )
     gdf.to_file(path, driver="GPKG" if path.suffix == ".gpkg" else "GeoJSON")
     return path
 
@@ -188,8 +222,7 @@ def test_km_by_band_influence_sources_speed(hand: tuple[Path, Network]) -> None:
     # Everything else is quiet (Reed Park lifts Alder x 300-400 only to 0.5 + 0.296).
     # busy = (50 + 100) x 2 directions = 300 m; quiet = 800 - 300 = 500 m.
     assert a["km_by_band"] == {"quiet": pytest.approx(0.5), "busy": pytest.approx(0.3)}
-    assert a["centreline_km_by_band"] == {"quiet": pytest.approx(0.35),
-                                          "busy": pytest.approx(0.15)}
+    assert a["centreline_km_by_band"] == {"quiet": pytest.approx(0.35), "busy": pytest.approx(0.15)}
     # km in school influence = clipped km x infl (0.9): (0.05 + 0.1) x 0.9 x 2 = 0.27.
     # Reed Park (x 320..380, y 20..60, radius 30): every sample of Alder x 300-400 is within
     # 30 m (x 305: 25 m), so infl 1.0 there: 0.05 km x 1.0 x 2 = 0.1.
@@ -203,8 +236,12 @@ def test_km_by_band_influence_sources_speed(hand: tuple[Path, Network]) -> None:
     assert a["crossings"] == 1
     assert a["crossings_per_km"] == pytest.approx(2.0)
     # Alder 40 km/h = 24.9 mph; Birch exactly 35 mph, which belongs to 26-35 (inclusive).
-    assert a["km_by_speed"] == {"<= 25 mph": pytest.approx(0.6), "26-35 mph": pytest.approx(0.2),
-                                "36-45 mph": 0.0, "> 45 mph": 0.0}
+    assert a["km_by_speed"] == {
+        "<= 25 mph": pytest.approx(0.6),
+        "26-35 mph": pytest.approx(0.2),
+        "36-45 mph": 0.0,
+        "> 45 mph": 0.0,
+    }
     # Exposure (multipliers 1) = sum km x exposure per km:
     # 0.3 x 2.3 + 0.2 x 0.5 (Alder 200-300) + 0.2 x 0.5 (Birch) + 0.1 x (0.5 + 0.29589)
     # where 0.29589 = mean of linear nearness 1 - d/30 over the samples of Alder x 300-400
@@ -266,9 +303,14 @@ def test_hotspots_and_clusters(hand: tuple[Path, Network]) -> None:
     assert top[0]["directions"] == 2 and top[0]["street"] == "Alder Road"
     assert top[1]["exposure"] == pytest.approx(0.115)
     # The school part of 2.3 per km is 1.8: a share of 0.7826, nearest school Heron School.
-    assert top[0]["reasons"] == [{"category": "school", "label": "Schools",
-                                  "share": pytest.approx(1.8 / 2.3, abs=1e-4),
-                                  "near": "Heron School"}]
+    assert top[0]["reasons"] == [
+        {
+            "category": "school",
+            "label": "Schools",
+            "share": pytest.approx(1.8 / 2.3, abs=1e-4),
+            "near": "Heron School",
+        }
+    ]
     # The busy edges form one cluster: Alder x 50-200, 0.3 km directed, 2 segments.
     (cl,) = a["clusters"]
     assert cl["km"] == pytest.approx(0.3) and cl["centreline_km"] == pytest.approx(0.15)
@@ -327,32 +369,44 @@ def _osm_town(path: Path) -> Path:
     for i in range(4):
         for j in range(4):
             grid[i, j] = nid
-            xml.append(f'<node id="{nid}" lat="{LAT0 + j * 150 * dlat:.7f}" '
-                       f'lon="{LON0 + i * 150 * dlon:.7f}"/>')
+            xml.append(
+                f'<node id="{nid}" lat="{LAT0 + j * 150 * dlat:.7f}" '
+                f'lon="{LON0 + i * 150 * dlon:.7f}"/>'
+            )
             nid += 1
     arc = []
     for t in range(1, 12):  # a curved street from grid (0, 0) to grid (3, 3)
         ang = math.pi / 2 * t / 12
         arc.append(nid)
-        xml.append(f'<node id="{nid}" lat="{LAT0 + 450 * (1 - math.cos(ang)) * dlat:.7f}" '
-                   f'lon="{LON0 + 450 * math.sin(ang) * dlon:.7f}"/>')
+        xml.append(
+            f'<node id="{nid}" lat="{LAT0 + 450 * (1 - math.cos(ang)) * dlat:.7f}" '
+            f'lon="{LON0 + 450 * math.sin(ang) * dlon:.7f}"/>'
+        )
         nid += 1
-    xml.append(f'<node id="900" lat="{LAT0 + 75 * dlat:.7f}" lon="{LON0 + 75 * dlon:.7f}">'
-               '<tag k="amenity" v="school"/><tag k="name" v="Gull School"/></node>')
+    xml.append(
+        f'<node id="900" lat="{LAT0 + 75 * dlat:.7f}" lon="{LON0 + 75 * dlon:.7f}">'
+        '<tag k="amenity" v="school"/><tag k="name" v="Gull School"/></node>'
+    )
     wid = 100
     for j in range(4):
         refs = "".join(f'<nd ref="{grid[i, j]}"/>' for i in range(4))
-        xml.append(f'<way id="{wid}">{refs}<tag k="highway" v="residential"/>'
-                   f'<tag k="name" v="Row {j}"/></way>')
+        xml.append(
+            f'<way id="{wid}">{refs}<tag k="highway" v="residential"/>'
+            f'<tag k="name" v="Row {j}"/></way>'
+        )
         wid += 1
     for i in range(4):
         refs = "".join(f'<nd ref="{grid[i, j]}"/>' for j in range(4))
-        xml.append(f'<way id="{wid}">{refs}<tag k="highway" v="tertiary"/>'
-                   f'<tag k="name" v="Column {i}"/></way>')
+        xml.append(
+            f'<way id="{wid}">{refs}<tag k="highway" v="tertiary"/>'
+            f'<tag k="name" v="Column {i}"/></way>'
+        )
         wid += 1
     refs = "".join(f'<nd ref="{n}"/>' for n in [grid[0, 0], *arc, grid[3, 3]])
-    xml.append(f'<way id="{wid}">{refs}<tag k="highway" v="secondary"/>'
-               '<tag k="name" v="Curve Road"/></way>')
+    xml.append(
+        f'<way id="{wid}">{refs}<tag k="highway" v="secondary"/>'
+        '<tag k="name" v="Curve Road"/></way>'
+    )
     xml.append("</osm>")
     path.write_text("\n".join(xml), encoding="utf-8")
     return path
@@ -361,14 +415,17 @@ def _osm_town(path: Path) -> Path:
 def test_km_agree_with_geopandas_clip(tmp_path: Path) -> None:
     from routerisk.network import build_network
 
-    net = build_network(_osm_town(tmp_path / "t.osm"), profile=load_profile(),
-                        timezone="Etc/GMT+3")
+    net = build_network(_osm_town(tmp_path / "t.osm"), profile=load_profile(), timezone="Etc/GMT+3")
     # An irregular hexagon with a hole, in lon/lat, written as GeoJSON.
     c_lon, c_lat = LON0 + 0.0021, LAT0 + 0.0019
-    ring = [(c_lon + 0.0026 * np.cos(t), c_lat + 0.0017 * np.sin(t) + 0.0003 * np.cos(3 * t))
-            for t in np.linspace(0, 2 * np.pi, 7)[:-1]]
-    hole = [(c_lon + 0.0004 * np.cos(t), c_lat + 0.0004 * np.sin(t))
-            for t in np.linspace(0, 2 * np.pi, 9)[:-1]]
+    ring = [
+        (c_lon + 0.0026 * np.cos(t), c_lat + 0.0017 * np.sin(t) + 0.0003 * np.cos(3 * t))
+        for t in np.linspace(0, 2 * np.pi, 7)[:-1]
+    ]
+    hole = [
+        (c_lon + 0.0004 * np.cos(t), c_lat + 0.0004 * np.sin(t))
+        for t in np.linspace(0, 2 * np.pi, 9)[:-1]
+    ]
     shape = Polygon(ring, [hole])
     path = _area_file(tmp_path / "hex.geojson", [shape], ["Hex"], crs="EPSG:4326")
     a = review.review_areas(net, review.read_areas(path, crs=net.crs)).areas[0]
@@ -386,25 +443,45 @@ def test_km_agree_with_geopandas_clip(tmp_path: Path) -> None:
 
 
 def _fc(*geometries: dict | None) -> str:
-    return json.dumps({"type": "FeatureCollection", "features": [
-        {"type": "Feature", "properties": {"name": f"a{i}"}, "geometry": g}
-        for i, g in enumerate(geometries)]})
+    return json.dumps(
+        {
+            "type": "FeatureCollection",
+            "features": [
+                {"type": "Feature", "properties": {"name": f"a{i}"}, "geometry": g}
+                for i, g in enumerate(geometries)
+            ],
+        }
+    )
 
 
-SQUARE = {"type": "Polygon", "coordinates": [[[-33.9, 38.5], [-33.89, 38.5], [-33.89, 38.51],
-                                               [-33.9, 38.51], [-33.9, 38.5]]]}
+SQUARE = {
+    "type": "Polygon",
+    "coordinates": [
+        [[-33.9, 38.5], [-33.89, 38.5], [-33.89, 38.51], [-33.9, 38.51], [-33.9, 38.5]]
+    ],
+}
 
 
-@pytest.mark.parametrize(("geometry", "field", "words"), [
-    ({"type": "Polygon", "coordinates": []}, "features[1].geometry", "empty"),
-    (None, "features[1].geometry", "empty"),
-    ({"type": "Polygon", "coordinates": [[[0, 0], [1, 1], [1, 0], [0, 1], [0, 0]]]},
-     "features[1].geometry", "Self-intersection"),
-    ({"type": "LineString", "coordinates": [[0, 0], [1, 1]]}, "features[1].geometry",
-     "got LineString"),
-])
-def test_bad_polygons_name_file_and_feature(tmp_path: Path, geometry: dict | None, field: str,
-                                            words: str) -> None:
+@pytest.mark.parametrize(
+    ("geometry", "field", "words"),
+    [
+        ({"type": "Polygon", "coordinates": []}, "features[1].geometry", "empty"),
+        (None, "features[1].geometry", "empty"),
+        (
+            {"type": "Polygon", "coordinates": [[[0, 0], [1, 1], [1, 0], [0, 1], [0, 0]]]},
+            "features[1].geometry",
+            "Self-intersection",
+        ),
+        (
+            {"type": "LineString", "coordinates": [[0, 0], [1, 1]]},
+            "features[1].geometry",
+            "got LineString",
+        ),
+    ],
+)
+def test_bad_polygons_name_file_and_feature(
+    tmp_path: Path, geometry: dict | None, field: str, words: str
+) -> None:
     path = tmp_path / "bad.geojson"
     path.write_text(_fc(SQUARE, geometry), encoding="utf-8")
     with pytest.raises(InputFileError) as err:
@@ -443,11 +520,16 @@ def test_area_off_the_network(hand: tuple[Path, Network], tmp_path: Path) -> Non
     assert err.value.field == "features[1].geometry" and "off the road network" in str(err.value)
 
 
-def test_cli_bad_area_exits_2_with_one_line(hand_dir: Path, tmp_path: Path,
-                                            capsys: pytest.CaptureFixture[str]) -> None:
-    for name, text in (("empty-poly.geojson", _fc({"type": "Polygon", "coordinates": []})),
-                       ("bowtie.geojson", _fc({"type": "Polygon", "coordinates": [
-                           [[0, 0], [1, 1], [1, 0], [0, 1], [0, 0]]]}))):
+def test_cli_bad_area_exits_2_with_one_line(
+    hand_dir: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    for name, text in (
+        ("empty-poly.geojson", _fc({"type": "Polygon", "coordinates": []})),
+        (
+            "bowtie.geojson",
+            _fc({"type": "Polygon", "coordinates": [[[0, 0], [1, 1], [1, 0], [0, 1], [0, 0]]]}),
+        ),
+    ):
         path = tmp_path / name
         path.write_text(text, encoding="utf-8")
         assert main(["review", str(path), "--network", str(hand_dir)]) == 2
@@ -462,9 +544,11 @@ def test_cli_bad_area_exits_2_with_one_line(hand_dir: Path, tmp_path: Path,
 def test_what_if_rule_off_on_and_weight(hand: tuple[Path, Network]) -> None:
     net = hand[1]
     area = review.Area("Centre", 0, CENTRE, "a.geojson", "features[0].geometry")
-    wis = [review.parse_what_if(["rule:school hours=off"], net.profile),
-           review.parse_what_if(["rule:school hours=on"], net.profile),
-           review.parse_what_if(["weight:school=0"], net.profile)]
+    wis = [
+        review.parse_what_if(["rule:school hours=off"], net.profile),
+        review.parse_what_if(["rule:school hours=on"], net.profile),
+        review.parse_what_if(["weight:school=0"], net.profile),
+    ]
     res = review.review_areas(net, [area], what_ifs=wis)
     off, on, weight = (s["areas"][0] for s in res.what_ifs)
     # School rule off: nothing closed by it; only Birch at night is left (0.2 km x 56 h).
@@ -486,9 +570,14 @@ def test_what_if_rule_off_on_and_weight(hand: tuple[Path, Network]) -> None:
 
 def test_what_if_errors(hand: tuple[Path, Network]) -> None:
     prof = hand[1].profile
-    for spec, words in (("rule:nope=off", "unknown rule"), ("rule:school hours=maybe", "'off'"),
-                        ("weight:school=-1", ">= 0"), ("weight:bus=1", "unknown category"),
-                        ("colour:x=1", "unknown kind"), ("school=1", "bad SPEC")):
+    for spec, words in (
+        ("rule:nope=off", "unknown rule"),
+        ("rule:school hours=maybe", "'off'"),
+        ("weight:school=-1", ">= 0"),
+        ("weight:bus=1", "unknown category"),
+        ("colour:x=1", "unknown kind"),
+        ("school=1", "bad SPEC"),
+    ):
         with pytest.raises(OptionError, match=words):
             review.parse_what_if([spec], prof)
     with pytest.raises(OptionError):
@@ -503,11 +592,16 @@ def test_what_if_errors(hand: tuple[Path, Network]) -> None:
 @pytest.fixture(scope="module")
 def hostile_page(hand: tuple[Path, Network]) -> tuple[str, review.Review]:
     net = make_network(hand[0], birch_name=HOSTILE)
-    areas = [review.Area("Centre", 0, CENTRE, "a.geojson", "features[0].geometry"),
-             review.Area(HOSTILE, 1, _box(150, -150, 450, 50), "a.geojson",
-                         "features[1].geometry")]
-    res = review.review_areas(net, areas, at=review.parse_time("sat 23:10"), what_ifs=[
-        review.parse_what_if(["rule:school hours=off"], net.profile)])
+    areas = [
+        review.Area("Centre", 0, CENTRE, "a.geojson", "features[0].geometry"),
+        review.Area(HOSTILE, 1, _box(150, -150, 450, 50), "a.geojson", "features[1].geometry"),
+    ]
+    res = review.review_areas(
+        net,
+        areas,
+        at=review.parse_time("sat 23:10"),
+        what_ifs=[review.parse_what_if(["rule:school hours=off"], net.profile)],
+    )
     return review.review_html(res), res
 
 
@@ -547,7 +641,8 @@ def test_external_reference_check_can_fail() -> None:
     assert report.external_references(bad) == ["https://tiles.example/a.png"]
     inner = report.html.escape('<script src="//cdn.example/x.js"></script>')
     assert report.external_references(f'<iframe srcdoc="{inner}"></iframe>') == [
-        "//cdn.example/x.js"]
+        "//cdn.example/x.js"
+    ]
 
 
 def test_charts_are_deterministic() -> None:
@@ -560,18 +655,37 @@ def test_charts_are_deterministic() -> None:
 # --- the command line ------------------------------------------------------------------------
 
 
-def test_cli_json_out_and_force(hand_dir: Path, tmp_path: Path,
-                                capsys: pytest.CaptureFixture[str]) -> None:
+def test_cli_json_out_and_force(
+    hand_dir: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
     areas = _area_file(tmp_path / "areas.geojson", [CENTRE], ["Centre"])
     out = tmp_path / "out"
-    argv = ["review", str(areas), "--network", str(hand_dir), "--json", "--out", str(out),
-            "--what-if", "rule:school hours=off", "--at", "sat 23:10"]
+    argv = [
+        "review",
+        str(areas),
+        "--network",
+        str(hand_dir),
+        "--json",
+        "--out",
+        str(out),
+        "--what-if",
+        "rule:school hours=off",
+        "--at",
+        "sat 23:10",
+    ]
     assert main(argv) == 0
     doc = json.loads(capsys.readouterr().out)
     assert [a["name"] for a in doc["areas"]] == ["Centre"]
     first = doc["areas"][0]
-    for key in ("network_km", "km_by_band", "km_in_influence", "sources", "closed_km_by_hour",
-                "allowed_parts", "hotspots"):
+    for key in (
+        "network_km",
+        "km_by_band",
+        "km_in_influence",
+        "sources",
+        "closed_km_by_hour",
+        "allowed_parts",
+        "hotspots",
+    ):
         assert key in first
     assert first["network_km"] == pytest.approx(0.8)
     assert len(first["closed_km_by_hour"]) == 168
@@ -592,15 +706,19 @@ def test_cli_json_out_and_force(hand_dir: Path, tmp_path: Path,
     assert (out / "report.html").read_bytes() == first_page
 
 
-def test_cli_text_and_option_errors(hand_dir: Path, tmp_path: Path,
-                                    capsys: pytest.CaptureFixture[str]) -> None:
+def test_cli_text_and_option_errors(
+    hand_dir: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
     areas = _area_file(tmp_path / "areas.geojson", [CENTRE], ["Centre"])
     assert main(["review", str(areas), "--network", str(hand_dir)]) == 0
     text = capsys.readouterr().out
     assert "0.800 km of directed edges" in text and routerisk.CAUTION in text
-    for extra, field in ((["--what-if", "rule:nope=off"], "--what-if"),
-                         (["--at", "noon"], "--at"), (["--report", "x.txt"], "--report"),
-                         (["--high-from", "loud"], "--high-from")):
+    for extra, field in (
+        (["--what-if", "rule:nope=off"], "--what-if"),
+        (["--at", "noon"], "--at"),
+        (["--report", "x.txt"], "--report"),
+        (["--high-from", "loud"], "--high-from"),
+    ):
         assert main(["review", str(areas), "--network", str(hand_dir), *extra]) == 2
         err = capsys.readouterr().err
         assert field in err and len(err.strip().splitlines()) == 1
@@ -615,15 +733,22 @@ def test_exposure_by_hour_follows_baseline_and_crossing_time_profiles(tmp_path: 
     # = 0.1. Categories are the same at Monday 02:00 and 12:00 (school 0.5 outside 07-09,
     # park 1), so hour 12 - hour 2 = (1 - 0.5) x (0.4 + 0.3) = 0.35; without the keys, 0.
     text = PROFILE_YAML.replace("crossing_weight: 0.0", "crossing_weight: 0.1").replace(
-        "time_profiles:\n", "time_profiles:\n  nights:\n    default: 1.0\n    windows:\n"
-        "      - {days: [mon, tue, wed, thu, fri, sat, sun], start: \"00:00\", "
-        "end: \"06:00\", multiplier: 0.5}\n")
+        "time_profiles:\n",
+        "time_profiles:\n  nights:\n    default: 1.0\n    windows:\n"
+        '      - {days: [mon, tue, wed, thu, fri, sat, sun], start: "00:00", '
+        'end: "06:00", multiplier: 0.5}\n',
+    )
     plain_p = tmp_path / "plain.yaml"
     plain_p.write_text(text, encoding="utf-8")
     timed_p = tmp_path / "timed.yaml"
-    timed_p.write_text(text.replace("  default: 0.5\ntime_profiles:",
-                                    "  default: 0.5\n  time_profile: nights\ntime_profiles:")
-                       + "crossing_time_profile: nights\n", encoding="utf-8")
+    timed_p.write_text(
+        text.replace(
+            "  default: 0.5\ntime_profiles:",
+            "  default: 0.5\n  time_profile: nights\ntime_profiles:",
+        )
+        + "crossing_time_profile: nights\n",
+        encoding="utf-8",
+    )
     assert load_profile(timed_p).baseline_time_profile == "nights"
     plain = _one(make_network(plain_p), CENTRE)["exposure_by_hour"]
     timed = _one(make_network(timed_p), CENTRE)["exposure_by_hour"]

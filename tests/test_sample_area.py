@@ -28,8 +28,7 @@ AREA = ROOT / "sample_area"
 SCRIPT = AREA / "make_town.py"
 FILES = ("corvane.osm", "routes.geojson", "area.geojson", "README.md")
 
-DRIVE_CLASSES = {"primary", "secondary", "tertiary", "unclassified", "residential",
-                 "living_street"}
+DRIVE_CLASSES = {"primary", "secondary", "tertiary", "unclassified", "residential", "living_street"}
 # Reference library: osmnx 2.1 "drive" network filter (osmnx/_overpass.py,
 # _get_network_filter, plus settings.default_access ["access"!~"private"]) [published],
 # as regexes matched anywhere in the value, like Overpass's !~.
@@ -37,8 +36,8 @@ OSMNX_DRIVE_EXCLUDE = {
     "area": "yes",
     "access": "private",
     "highway": "abandoned|bridleway|bus_guideway|construction|corridor|cycleway|elevator|"
-               "escalator|footway|no|path|pedestrian|planned|platform|proposed|raceway|razed|"
-               "rest_area|service|services|steps|track",
+    "escalator|footway|no|path|pedestrian|planned|platform|proposed|raceway|razed|"
+    "rest_area|service|services|steps|track",
     "motor_vehicle": "no",
     "motorcar": "no",
     "service": "alley|driveway|emergency_access|parking|parking_aisle|private",
@@ -74,8 +73,9 @@ class OSM:
             elif el.tag == "relation":
                 i = int(el.get("id"))
                 assert i not in self.relations
-                members = [(m.get("type"), int(m.get("ref")), m.get("role"))
-                           for m in el.findall("member")]
+                members = [
+                    (m.get("type"), int(m.get("ref")), m.get("role")) for m in el.findall("member")
+                ]
                 self.relations[i] = (members, tags)
         lon0 = (self.bounds[0] + self.bounds[2]) / 2
         zone = int((lon0 + 180) // 6) + 1
@@ -95,8 +95,11 @@ class OSM:
         return Polygon([self.xy(n) for n in refs])
 
     def drivable_ways(self) -> list[int]:
-        return [w for w, (_r, t) in self.ways.items()
-                if t.get("highway") in DRIVE_CLASSES and t.get("access") != "private"]
+        return [
+            w
+            for w, (_r, t) in self.ways.items()
+            if t.get("highway") in DRIVE_CLASSES and t.get("access") != "private"
+        ]
 
     def source_geometries(self, rule) -> list:
         """Return the projected geometries of nodes, closed ways and multipolygons matching."""
@@ -156,13 +159,19 @@ def drive_graph(osm, tmp_path_factory):
 def test_generator_is_deterministic_and_files_are_current(tmp_path):
     # a fresh run (its own process, so its own hash seed) must reproduce, byte for byte,
     # the files an earlier run wrote into sample_area/
-    done = subprocess.run([sys.executable, str(SCRIPT), "--out", str(tmp_path)],
-                          capture_output=True, text=True, timeout=60, check=False)
+    done = subprocess.run(
+        [sys.executable, str(SCRIPT), "--out", str(tmp_path)],
+        capture_output=True,
+        text=True,
+        timeout=60,
+        check=False,
+    )
     assert done.returncode == 0, done.stderr
     assert sorted(p.name for p in tmp_path.iterdir()) == sorted(FILES)
     for name in FILES:
         assert (tmp_path / name).read_bytes() == (AREA / name).read_bytes(), (
-            f"sample_area/{name} differs from a fresh run; rerun sample_area/make_town.py")
+            f"sample_area/{name} differs from a fresh run; rerun sample_area/make_town.py"
+        )
 
 
 def _generator():
@@ -189,8 +198,10 @@ def test_generator_nodes_crossing_ways_and_tags_footway_crossings():
     built = mt.Built(t)
     by_pos = {mt.lonlat_fixed(p): p for pts, _ in t.lines for p in pts}
     tags = {by_pos[built.node_pos[n]]: tg for n, tg in built.node_tags.items() if tg}
-    assert tags == {(20, 0): {"highway": "crossing", "crossing": "unmarked"},
-                    (90, 0): {"highway": "crossing", "crossing": "marked"}}
+    assert tags == {
+        (20, 0): {"highway": "crossing", "crossing": "unmarked"},
+        (90, 0): {"highway": "crossing", "crossing": "marked"},
+    }
     assert len(built.node_pos) == 12  # shared nodes are stored once
 
 
@@ -273,7 +284,7 @@ def test_every_exposure_source_category_occurs(osm):
         if t.get("amenity") in {"school", "kindergarten", "university", "college", "hospital"}:
             assert t.get("name")
     # the campus relation has an outer and an inner ring
-    (members, _t), = [r for r in osm.relations.values() if r[1].get("amenity") == "university"]
+    ((members, _t),) = [r for r in osm.relations.values() if r[1].get("amenity") == "university"]
     assert {role for _k, _r, role in members} == {"outer", "inner"}
     campus = osm.source_geometries(lambda t: t.get("amenity") == "university")[0]
     outer = osm.polygon(next(r for _k, r, role in members if role == "outer"))
@@ -307,9 +318,17 @@ def test_street_tagging_covers_the_cases_the_loader_meets(osm):
     oneway_names = {t["name"] for t in drive if t.get("oneway") == "yes"}
     assert len(oneway_names) == 2
     every = [t for _r, t in osm.ways.values()]
-    for want in ({"highway": "footway"}, {"highway": "cycleway"}, {"highway": "path"},
-                 {"highway": "steps"}, {"service": "driveway"}, {"service": "parking_aisle"},
-                 {"access": "private"}, {"highway": "construction"}, {"highway": "proposed"}):
+    for want in (
+        {"highway": "footway"},
+        {"highway": "cycleway"},
+        {"highway": "path"},
+        {"highway": "steps"},
+        {"service": "driveway"},
+        {"service": "parking_aisle"},
+        {"access": "private"},
+        {"highway": "construction"},
+        {"highway": "proposed"},
+    ):
         assert any(all(t.get(k) == v for k, v in want.items()) for t in every), want
 
 
@@ -346,12 +365,14 @@ def test_routes_are_named_timed_and_on_streets(osm, routes):
 
 def test_areas_cover_most_but_not_all_of_the_town(osm):
     data = json.loads((AREA / "area.geojson").read_text(encoding="utf-8"))
-    polys = {f["properties"]["name"]: Polygon(f["geometry"]["coordinates"][0])
-             for f in data["features"]}
+    polys = {
+        f["properties"]["name"]: Polygon(f["geometry"]["coordinates"][0]) for f in data["features"]
+    }
     assert len(polys) == 2
     assert all(p.is_valid and p.exterior.is_ccw for p in polys.values())
-    streets = unary_union([LineString([osm.nodes[n][:2] for n in osm.ways[w][0]])
-                           for w in osm.drivable_ways()])
+    streets = unary_union(
+        [LineString([osm.nodes[n][:2] for n in osm.ways[w][0]]) for w in osm.drivable_ways()]
+    )
     big, small = sorted(polys.values(), key=lambda p: -p.area)
     share = streets.intersection(big).length / streets.length
     assert 0.7 < share < 0.99  # most of the network, not all of it
@@ -375,23 +396,30 @@ def test_osmnx_reads_the_town(osm, drive_graph, tmp_path):
     assert hw == DRIVE_CLASSES
     assert nx.is_strongly_connected(G)
     assert 600 <= G.number_of_edges() <= 1500  # design target after simplification [practice]
-    assert G.number_of_edges() < ox.graph_from_xml(
-        _drive_only_xml(osm, tmp_path / "d.osm"), simplify=False).number_of_edges()
+    assert (
+        G.number_of_edges()
+        < ox.graph_from_xml(
+            _drive_only_xml(osm, tmp_path / "d.osm"), simplify=False
+        ).number_of_edges()
+    )
 
 
 def _path_geometry(G, path, to_xy) -> LineString:
     pts = []
     for u, v in zip(path, path[1:], strict=False):
         data = min(G.get_edge_data(u, v).values(), key=lambda d: d["travel_time"])
-        geom = data.get("geometry") or LineString([(G.nodes[u]["x"], G.nodes[u]["y"]),
-                                                   (G.nodes[v]["x"], G.nodes[v]["y"])])
+        geom = data.get("geometry") or LineString(
+            [(G.nodes[u]["x"], G.nodes[u]["y"]), (G.nodes[v]["x"], G.nodes[v]["y"])]
+        )
         pts.extend(shapely.transform(geom, to_xy, interleaved=False).coords)
     return LineString(pts)
 
 
 def _time(G, path) -> float:
-    return sum(min(d["travel_time"] for d in G.get_edge_data(u, v).values())
-               for u, v in zip(path, path[1:], strict=False))
+    return sum(
+        min(d["travel_time"] for d in G.get_edge_data(u, v).values())
+        for u, v in zip(path, path[1:], strict=False)
+    )
 
 
 def test_school_run_passes_a_school_and_has_a_quiet_parallel(osm, routes, drive_graph):
@@ -408,9 +436,15 @@ def test_school_run_passes_a_school_and_has_a_quiet_parallel(osm, routes, drive_
 
     start, end = node_at(*coords[0]), node_at(*coords[-1])
     marrowby = osm.source_geometries(lambda t: t.get("name") == "Marrowby Elementary School")[0]
-    busy = unary_union(osm.source_geometries(
-        lambda t: t.get("amenity") in {"school", "kindergarten", "university", "college"}
-        or t.get("landuse") == "retail" or "shop" in t))
+    busy = unary_union(
+        osm.source_geometries(
+            lambda t: (
+                t.get("amenity") in {"school", "kindergarten", "university", "college"}
+                or t.get("landuse") == "retail"
+                or "shop" in t
+            )
+        )
+    )
 
     direct = nx.shortest_path(G, start, end, weight="travel_time")
     t_direct = _time(G, direct)
@@ -427,8 +461,10 @@ def test_school_run_passes_a_school_and_has_a_quiet_parallel(osm, routes, drive_
     # the route starts), then north on Cobmoor Street
     assert {"Ambrel Street", "Mossglen Street"} <= _names_at(G, start)
     (turn,) = [k for k in G if {"Cobmoor Street", "Mossglen Street"} <= _names_at(G, k)]
-    parallel = (nx.shortest_path(quiet, start, turn, weight="travel_time")
-                + nx.shortest_path(quiet, turn, end, weight="travel_time")[1:])
+    parallel = (
+        nx.shortest_path(quiet, start, turn, weight="travel_time")
+        + nx.shortest_path(quiet, turn, end, weight="travel_time")[1:]
+    )
     assert _path_geometry(G, parallel, osm.to_xy).distance(busy) > 150.0
     assert _time(G, parallel) <= 1.15 * t_direct
 

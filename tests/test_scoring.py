@@ -18,20 +18,49 @@ TZ = "Etc/GMT+3"
 
 
 def _profile():
-    return parse_profile({
-        "version": 1, "name": "hand",
-        "time_profiles": {"school_days": {"default": 1.0, "windows": [
-            {"days": ["mon", "tue", "wed", "thu", "fri"], "start": "08:00", "end": "09:00",
-             "multiplier": 3.0}]}},
-        "categories": {
-            "school": {"select": [{"amenity": "school"}], "weight": 2.0, "radius_m": 50,
-                       "time_profile": "school_days"},
-            "retail": {"select": [{"shop": "*"}], "weight": 1.0, "radius_m": 30}},
-        "crossing_weight": 0.1,
-        "rules": [{"name": "school hours", "category": "school", "within_m": 20, "windows": [
-            {"days": ["mon", "tue", "wed", "thu", "fri"], "start": "08:00",
-             "end": "09:00"}]}],
-    })
+    return parse_profile(
+        {
+            "version": 1,
+            "name": "hand",
+            "time_profiles": {
+                "school_days": {
+                    "default": 1.0,
+                    "windows": [
+                        {
+                            "days": ["mon", "tue", "wed", "thu", "fri"],
+                            "start": "08:00",
+                            "end": "09:00",
+                            "multiplier": 3.0,
+                        }
+                    ],
+                }
+            },
+            "categories": {
+                "school": {
+                    "select": [{"amenity": "school"}],
+                    "weight": 2.0,
+                    "radius_m": 50,
+                    "time_profile": "school_days",
+                },
+                "retail": {"select": [{"shop": "*"}], "weight": 1.0, "radius_m": 30},
+            },
+            "crossing_weight": 0.1,
+            "rules": [
+                {
+                    "name": "school hours",
+                    "category": "school",
+                    "within_m": 20,
+                    "windows": [
+                        {
+                            "days": ["mon", "tue", "wed", "thu", "fri"],
+                            "start": "08:00",
+                            "end": "09:00",
+                        }
+                    ],
+                }
+            ],
+        }
+    )
 
 
 def hand_network() -> Network:
@@ -53,21 +82,35 @@ def hand_network() -> Network:
         ((3, 6, 0), [(200, 0), (300, 0)], 1.0, 0.5, 0.0, 0.0, 0, False),
     ]
     idx = pd.MultiIndex.from_tuples([r[0] for r in rows], names=["u", "v", "key"])
-    edges = gpd.GeoDataFrame({
-        "highway": "residential", "name": [f"Street {r[0][0]}-{r[0][1]}" for r in rows],
-        "length": 100.0, "travel_time": 10.0, "speed_kph": 40.0,
-        "severity": [r[2] for r in rows], "baseline": [r[3] for r in rows],
-        "exp_school": [r[4] for r in rows], "exp_retail": [r[5] for r in rows],
-        "infl_school": [1.0 if r[4] else 0.0 for r in rows],
-        "infl_retail": [1.0 if r[5] else 0.0 for r in rows],
-        "crossings": [r[6] for r in rows], "rule_0": [r[7] and r[4] > 0 for r in rows],
-        "band": "quiet", "exposure_km": 1.0,
-    }, geometry=[LineString(r[1]) for r in rows], index=idx, crs=CRS)
+    edges = gpd.GeoDataFrame(
+        {
+            "highway": "residential",
+            "name": [f"Street {r[0][0]}-{r[0][1]}" for r in rows],
+            "length": 100.0,
+            "travel_time": 10.0,
+            "speed_kph": 40.0,
+            "severity": [r[2] for r in rows],
+            "baseline": [r[3] for r in rows],
+            "exp_school": [r[4] for r in rows],
+            "exp_retail": [r[5] for r in rows],
+            "infl_school": [1.0 if r[4] else 0.0 for r in rows],
+            "infl_retail": [1.0 if r[5] else 0.0 for r in rows],
+            "crossings": [r[6] for r in rows],
+            "rule_0": [r[7] and r[4] > 0 for r in rows],
+            "band": "quiet",
+            "exposure_km": 1.0,
+        },
+        geometry=[LineString(r[1]) for r in rows],
+        index=idx,
+        crs=CRS,
+    )
     xy = {1: (0, 0), 2: (100, 0), 3: (200, 0), 4: (200, 100), 5: (100, -100), 6: (300, 0)}
-    nodes = gpd.GeoDataFrame({"x": [p[0] for p in xy.values()], "y": [p[1] for p in xy.values()]},
-                             index=pd.Index(list(xy), name="osmid"),
-                             geometry=gpd.points_from_xy([p[0] for p in xy.values()],
-                                                         [p[1] for p in xy.values()]), crs=CRS)
+    nodes = gpd.GeoDataFrame(
+        {"x": [p[0] for p in xy.values()], "y": [p[1] for p in xy.values()]},
+        index=pd.Index(list(xy), name="osmid"),
+        geometry=gpd.points_from_xy([p[0] for p in xy.values()], [p[1] for p in xy.values()]),
+        crs=CRS,
+    )
     empty = gpd.GeoDataFrame({"category": []}, geometry=[], crs=CRS)
     return Network(edges, nodes, empty, empty, _profile(), {"timezone": TZ})
 
@@ -90,8 +133,9 @@ def test_hand_computed_route_outside_school_window():
     assert s.length_km == pytest.approx(0.3)
     assert s.duration_min == pytest.approx(0.5)
     assert s.risk_per_km == pytest.approx(0.59 / 0.3)
-    assert s.by_category == pytest.approx({"baseline": 0.05 + 0.1 + 0.02, "crossings": 0.2,
-                                           "school": 0.2, "retail": 0.02})
+    assert s.by_category == pytest.approx(
+        {"baseline": 0.05 + 0.1 + 0.02, "crossings": 0.2, "school": 0.2, "retail": 0.02}
+    )
     assert s.crossings == 1
     assert s.rule_breaks == []
     assert s.left_turns == 1
@@ -141,23 +185,47 @@ def test_relative_index_is_one_for_the_average_km():
 
 # -- issue 17, point 10: time profiles on the street baseline and on crossings -----------------
 
+
 def _timed_profile(**over):
     """Return the hand profile with a night profile on baseline and crossings (0.25, 22-06)."""
     doc = {
-        "version": 1, "name": "hand-timed",
+        "version": 1,
+        "name": "hand-timed",
         "time_profiles": {
-            "school_days": {"default": 1.0, "windows": [
-                {"days": ["mon", "tue", "wed", "thu", "fri"], "start": "08:00", "end": "09:00",
-                 "multiplier": 3.0}]},
-            "streets": {"default": 1.0, "windows": [
-                {"days": ["mon", "tue", "wed", "thu", "fri", "sat", "sun"], "start": "22:00",
-                 "end": "06:00", "multiplier": 0.25}]}},
+            "school_days": {
+                "default": 1.0,
+                "windows": [
+                    {
+                        "days": ["mon", "tue", "wed", "thu", "fri"],
+                        "start": "08:00",
+                        "end": "09:00",
+                        "multiplier": 3.0,
+                    }
+                ],
+            },
+            "streets": {
+                "default": 1.0,
+                "windows": [
+                    {
+                        "days": ["mon", "tue", "wed", "thu", "fri", "sat", "sun"],
+                        "start": "22:00",
+                        "end": "06:00",
+                        "multiplier": 0.25,
+                    }
+                ],
+            },
+        },
         "baseline": {"time_profile": "streets"},
         "crossing_time_profile": "streets",
         "categories": {
-            "school": {"select": [{"amenity": "school"}], "weight": 2.0, "radius_m": 50,
-                       "time_profile": "school_days"},
-            "retail": {"select": [{"shop": "*"}], "weight": 1.0, "radius_m": 30}},
+            "school": {
+                "select": [{"amenity": "school"}],
+                "weight": 2.0,
+                "radius_m": 50,
+                "time_profile": "school_days",
+            },
+            "retail": {"select": [{"shop": "*"}], "weight": 1.0, "radius_m": 30},
+        },
         "crossing_weight": 0.1,
     }
     doc.update(over)
@@ -205,7 +273,8 @@ def test_relative_index_compares_with_the_area_at_the_same_minutes_under_the_pro
     edges = list(net.edges.index)
     risks = [sc.score("e", [e], _at(2, 0)).risk for e in edges]
     assert float(sc.network_risk_per_km([2 * 60 + 1440])[0]) == pytest.approx(
-        sum(risks) / (0.1 * len(edges)))
+        sum(risks) / (0.1 * len(edges))
+    )
 
 
 def test_edge_risk_parts_follow_the_street_time_profiles():
@@ -233,9 +302,11 @@ def test_quiet_industrial_loop_at_night_on_the_sample_town(town_net, tmp_path):
     from routerisk.profile import DEFAULT_PROFILE, load_profile
     from routerisk.scoring import score_routes
 
-    loop = [r for r in routes.read_routes(datasets.get_path("routes"),
-                                          default_tz=town_net.timezone)
-            if r.name == "industrial-loop"]
+    loop = [
+        r
+        for r in routes.read_routes(datasets.get_path("routes"), default_tz=town_net.timezone)
+        if r.name == "industrial-loop"
+    ]
     tz = town_net.timezone
     day_t, night_t = (dt.datetime(2027, 3, 11, h, 0, tzinfo=tz) for h in (10, 2))  # Thursday
     day, night = score_routes(town_net, loop, [day_t, night_t])
@@ -255,6 +326,7 @@ def test_quiet_industrial_loop_at_night_on_the_sample_town(town_net, tmp_path):
 
 
 # -- issue 17, point 11: crash likelihood by speed --------------------------------------------
+
 
 def test_likelihood_factor_enters_the_risk(tmp_path):
     # Edges of the hand network at 40 km/h; reference 25 mph; injury exponent 2.0.

@@ -47,9 +47,15 @@ def test_planning_page_end_to_end(hostile_net, tmp_path):
     downloads = tmp_path / "downloads"
     downloads.mkdir()
     with LiveServer(create_app(hostile_net)) as server, Session(downloads=downloads) as s:
-        seen = walk_through(s, server.url, points=POINTS, corners=CORNERS, depart=DEPART,
-                            plan_files=[datasets.get_path("runs"), datasets.get_path("routes")],
-                            plan_date=DEPART[0])
+        seen = walk_through(
+            s,
+            server.url,
+            points=POINTS,
+            corners=CORNERS,
+            depart=DEPART,
+            plan_files=[datasets.get_path("runs"), datasets.get_path("routes")],
+            plan_date=DEPART[0],
+        )
         problems = s.seen()
     net, tz = hostile_net, hostile_net.timezone
     depart = parse_depart("T".join(DEPART), tz)
@@ -79,8 +85,9 @@ def test_planning_page_end_to_end(hostile_net, tmp_path):
     assert float(seen["area_km"]) > 1.0
 
     # the day plan of the runs file opened on the page is the plan command's
-    plan = dayplan.plan_day(net, planning.read_runs(datasets.get_path("runs")),
-                            dt.date.fromisoformat(DEPART[0])).to_dict()
+    plan = dayplan.plan_day(
+        net, planning.read_runs(datasets.get_path("runs")), dt.date.fromisoformat(DEPART[0])
+    ).to_dict()
     assert f"total risk {plan['total_risk']:.3f}" in seen["plan_summary"]
     assert seen["plan_rows"] == len(plan["runs"])
 
@@ -92,8 +99,7 @@ def test_planning_page_end_to_end(hostile_net, tmp_path):
 
     # nothing ran, nothing left loopback, the payload is text
     assert problems["errors"] == [] and problems["dialogs"] == []
-    outside = [u for u in problems["requests"]
-               if not u.startswith((server.url, "data:", "blob:"))]
+    outside = [u for u in problems["requests"] if not u.startswith((server.url, "data:", "blob:"))]
     assert outside == []
     assert PAYLOAD in seen["body_text"]  # hot spots list the streets by name
     assert seen["tooltips"] and all(t.startswith(PAYLOAD + " · ") for t in seen["tooltips"])

@@ -46,10 +46,12 @@ def _assert_same_frames(ref_nodes, ref_edges, fr):
             np.testing.assert_allclose(b.to_numpy(), a.to_numpy(), rtol=REL, atol=0)
         else:
             pd.testing.assert_series_equal(a, b, check_exact=True)
-    pd.testing.assert_frame_equal(fr.nodes.drop(columns="geometry"),
-                                  ref_nodes.drop(columns="geometry"), check_exact=True)
-    assert shapely.equals_exact(np.asarray(fr.nodes.geometry.array),
-                                np.asarray(ref_nodes.geometry.array), 0).all()
+    pd.testing.assert_frame_equal(
+        fr.nodes.drop(columns="geometry"), ref_nodes.drop(columns="geometry"), check_exact=True
+    )
+    assert shapely.equals_exact(
+        np.asarray(fr.nodes.geometry.array), np.asarray(ref_nodes.geometry.array), 0
+    ).all()
 
 
 def _assert_same_graph(G0, G1):
@@ -76,15 +78,25 @@ def _check(path, **kw):
     raw = read_osm(path)
     G0 = loader.graph_from_raw_reference(raw, **kw)
     n0, e0 = ox.convert.graph_to_gdfs(G0)
-    fr = _simplify.build_frames(raw, largest_component=kw.get("largest_component", True),
-                                simplify_graph=kw.get("simplify", True))  # no fallback
+    fr = _simplify.build_frames(
+        raw,
+        largest_component=kw.get("largest_component", True),
+        simplify_graph=kw.get("simplify", True),
+    )  # no fallback
     _assert_same_frames(n0, e0, fr)
     _assert_same_graph(G0, loader.graph_from_raw(raw, **kw))
     return G0
 
 
-@pytest.mark.parametrize("kw", [{}, {"simplify": False}, {"largest_component": False},
-                                {"simplify": False, "largest_component": False}])
+@pytest.mark.parametrize(
+    "kw",
+    [
+        {},
+        {"simplify": False},
+        {"largest_component": False},
+        {"simplify": False, "largest_component": False},
+    ],
+)
 def test_real_extract(real_pbf, kw):
     # Real OSM data (pyogrio's sample.osm.pbf, ODbL): curves, way breaks, one-ways.
     G = _check(real_pbf, **kw)
@@ -104,35 +116,50 @@ def test_generated_city(city):
 
 def _chain_file(tmp_path, extra):
     """A square of two-way streets with a shape-node chain on its south side."""
-    parts = [osm.node(i, 38.5 + 0.001 * (i // 10), -38.0 + 0.001 * (i % 10))
-             for i in (0, 1, 2, 3, 4, 10, 14, 20, 24)]
-    parts += [osm.way(1, [0, 1, 2, 3, 4], highway="residential", name="South"),
-              osm.way(2, [4, 14, 24], highway="residential", name="East"),
-              osm.way(3, [24, 20], highway="residential", name="North"),
-              osm.way(4, [20, 10, 0], highway="residential", name="West"),
-              osm.way(5, [10, 14], highway="tertiary", name="Middle")]
+    parts = [
+        osm.node(i, 38.5 + 0.001 * (i // 10), -38.0 + 0.001 * (i % 10))
+        for i in (0, 1, 2, 3, 4, 10, 14, 20, 24)
+    ]
+    parts += [
+        osm.way(1, [0, 1, 2, 3, 4], highway="residential", name="South"),
+        osm.way(2, [4, 14, 24], highway="residential", name="East"),
+        osm.way(3, [24, 20], highway="residential", name="North"),
+        osm.way(4, [20, 10, 0], highway="residential", name="West"),
+        osm.way(5, [10, 14], highway="tertiary", name="Middle"),
+    ]
     return osm.write(tmp_path / "chain.osm", parts + extra)
 
 
-@pytest.mark.parametrize("case", ["plain", "oneway chain", "ring without endpoints",
-                                  "loop with one endpoint", "mixed ways on a chain"])
+@pytest.mark.parametrize(
+    "case",
+    [
+        "plain",
+        "oneway chain",
+        "ring without endpoints",
+        "loop with one endpoint",
+        "mixed ways on a chain",
+    ],
+)
 def test_small_patterns(tmp_path, case):
     extra = {
         "plain": [],
-        "oneway chain": [osm.node(30, 38.49, -37.999), osm.node(31, 38.49, -37.998),
-                         osm.way(6, [1, 30, 31, 3], highway="residential", oneway="yes"),
-                         osm.way(7, [3, 2], highway="residential", oneway="-1")],
-        "ring without endpoints": [osm.node(40 + i, 38.52 + 0.0005 * (i % 2),
-                                            -38.0 + 0.0005 * (i // 2)) for i in range(4)]
+        "oneway chain": [
+            osm.node(30, 38.49, -37.999),
+            osm.node(31, 38.49, -37.998),
+            osm.way(6, [1, 30, 31, 3], highway="residential", oneway="yes"),
+            osm.way(7, [3, 2], highway="residential", oneway="-1"),
+        ],
+        "ring without endpoints": [
+            osm.node(40 + i, 38.52 + 0.0005 * (i % 2), -38.0 + 0.0005 * (i // 2)) for i in range(4)
+        ]
         + [osm.way(8, [40, 41, 43, 42, 40], highway="residential")],
-        "loop with one endpoint": [osm.node(50, 38.49, -38.001), osm.node(51, 38.489,
-                                                                           -38.0)]
+        "loop with one endpoint": [osm.node(50, 38.49, -38.001), osm.node(51, 38.489, -38.0)]
         + [osm.way(9, [0, 50, 51, 0], highway="residential", name="Loop")],
-        "mixed ways on a chain": [osm.node(60, 38.4995, -37.9985),
-                                  osm.way(10, [2, 60], highway="residential", name="Spur",
-                                          lanes="2", maxspeed="30 mph"),
-                                  osm.way(11, [60, 14], highway="secondary", lanes="3",
-                                          maxspeed="40", sidewalk="both")],
+        "mixed ways on a chain": [
+            osm.node(60, 38.4995, -37.9985),
+            osm.way(10, [2, 60], highway="residential", name="Spur", lanes="2", maxspeed="30 mph"),
+            osm.way(11, [60, 14], highway="secondary", lanes="3", maxspeed="40", sidewalk="both"),
+        ],
     }[case]
     path = _chain_file(tmp_path, extra)
     _check(path, largest_component=False)
@@ -142,9 +169,12 @@ def test_small_patterns(tmp_path, case):
 def test_parallel_duplicates_use_osmnx(tmp_path):
     # A way digitised twice over shape nodes: osmnx's walk keeps one copy; the array code
     # hands this pattern back, and the loader's result is still osmnx's graph.
-    dup = [osm.node(70, 38.499, -37.999), osm.node(71, 38.499, -37.998),
-           osm.way(20, [1, 70, 71, 3], highway="residential", name="Bypass", oneway="yes"),
-           osm.way(21, [1, 70, 71, 3], highway="residential", name="Bypass", oneway="yes")]
+    dup = [
+        osm.node(70, 38.499, -37.999),
+        osm.node(71, 38.499, -37.998),
+        osm.way(20, [1, 70, 71, 3], highway="residential", name="Bypass", oneway="yes"),
+        osm.way(21, [1, 70, 71, 3], highway="residential", name="Bypass", oneway="yes"),
+    ]
     path = _chain_file(tmp_path, dup)
     raw = read_osm(path)
     with pytest.raises(_simplify.NeedsReference):
@@ -152,14 +182,14 @@ def test_parallel_duplicates_use_osmnx(tmp_path):
     _assert_same_graph(loader.graph_from_raw_reference(raw), loader.graph_from_raw(raw))
     n0, e0 = ox.convert.graph_to_gdfs(loader.graph_from_raw_reference(raw))
     fr = loader.frames_from_raw(raw)
-    pd.testing.assert_frame_equal(fr.edges.drop(columns="geometry"),
-                                  e0.drop(columns="geometry"))
+    pd.testing.assert_frame_equal(fr.edges.drop(columns="geometry"), e0.drop(columns="geometry"))
 
 
 def test_network_graph_equals_osmnx_graph_from_gdfs(town_dir):
     net = load_network(town_dir)
-    ref = ox.convert.graph_from_gdfs(net.nodes, net.edges,
-                                     graph_attrs={"crs": net.edges.crs.to_string()})
+    ref = ox.convert.graph_from_gdfs(
+        net.nodes, net.edges, graph_attrs={"crs": net.edges.crs.to_string()}
+    )
     _assert_same_graph(ref, net.graph)
 
 

@@ -25,7 +25,7 @@ CASES = [
     ("GB:nsl_single", 60 * MPH),
     ("RU:urban", 60.0),
     ("DE:living_street", WALK_KPH),
-    ("50|30", 50.0),          # per lane: the highest, as the cautious choice for severity
+    ("50|30", 50.0),  # per lane: the highest, as the cautious choice for severity
     ("50;30", 50.0),
     (["30 mph", "25 mph"], 30 * MPH),  # merged ways after simplification
 ]
@@ -36,7 +36,8 @@ def test_formats(value, kph):
     assert parse_maxspeed(value) == pytest.approx(kph)
 
 
-@pytest.mark.parametrize("value", ["signals", "variable", "XX:unknownzone", "", None,
-                                   float("nan"), "fast", "-5"])
+@pytest.mark.parametrize(
+    "value", ["signals", "variable", "XX:unknownzone", "", None, float("nan"), "fast", "-5"]
+)
 def test_no_number_means_impute(value):
     assert parse_maxspeed(value) is None

@@ -16,8 +16,23 @@ from routerisk.profile import DEFAULT_PROFILE, safe_load_yaml
 ROOT = Path(__file__).resolve().parents[1]
 
 #: Libraries no help text needs; each costs 0.2-1 s of start-up.
-HEAVY = ("numpy", "pandas", "geopandas", "shapely", "pyogrio", "pyproj", "scipy", "networkx",
-         "folium", "matplotlib", "osmnx", "osmium", "yaml", "highspy", "dask")
+HEAVY = (
+    "numpy",
+    "pandas",
+    "geopandas",
+    "shapely",
+    "pyogrio",
+    "pyproj",
+    "scipy",
+    "networkx",
+    "folium",
+    "matplotlib",
+    "osmnx",
+    "osmium",
+    "yaml",
+    "highspy",
+    "dask",
+)
 
 
 def _imported(*args: str, tmp: Path) -> set[str]:
@@ -30,8 +45,9 @@ def _imported(*args: str, tmp: Path) -> set[str]:
         "runpy.run_module('routerisk', run_name='__main__', alter_sys=True)\n"
     )
     env = {**os.environ, "PYTHONPATH": str(ROOT)}
-    proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
-                          env=env, cwd=ROOT, timeout=300)
+    proc = subprocess.run(
+        [sys.executable, "-c", code], capture_output=True, text=True, env=env, cwd=ROOT, timeout=300
+    )
     assert out.is_file(), proc.stderr[-2000:]
     return set(out.read_text().split())
 
@@ -56,8 +72,9 @@ def test_every_command_help_imports_no_heavy_library(tmp_path):
 
 def test_score_without_outputs_draws_nothing(town_dir, tmp_path):
     """A score printed as a table loads no map or chart library."""
-    names = _imported("score", str(datasets.get_path("routes")), "--network", str(town_dir),
-                      tmp=tmp_path)
+    names = _imported(
+        "score", str(datasets.get_path("routes")), "--network", str(town_dir), tmp=tmp_path
+    )
     assert "routerisk.scoring" in names
     drawn = [n for n in names if n.split(".")[0] in ("folium", "matplotlib", "branca")]
     assert drawn == []
@@ -78,8 +95,9 @@ def test_route_outputs_leave_the_matplotlib_backend_alone(tmp_path):
     )
     env = {**os.environ, "PYTHONPATH": str(ROOT), "MPLBACKEND": ""}
     env.pop("MPLBACKEND")
-    proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
-                          env=env, timeout=300)
+    proc = subprocess.run(
+        [sys.executable, "-c", code], capture_output=True, text=True, env=env, timeout=300
+    )
     assert proc.stdout.strip() == "ok", proc.stderr[-2000:]
 
 

@@ -18,11 +18,18 @@ CRS = "EPSG:32625"
 
 def _profile(**over):
     doc = {
-        "version": 1, "name": "hand",
+        "version": 1,
+        "name": "hand",
         "sample_spacing_m": 10,
         "baseline": {"by_road_class": {"residential": 0.5}, "default": 0.1},
-        "categories": {"school": {"select": [{"amenity": ["school"]}], "weight": 2.0,
-                                  "radius_m": 20, "decay": "none"}},
+        "categories": {
+            "school": {
+                "select": [{"amenity": ["school"]}],
+                "weight": 2.0,
+                "radius_m": 20,
+                "decay": "none",
+            }
+        },
         "crossing_weight": 0.25,
         "rules": [{"name": "no school", "category": "school", "within_m": 5}],
     }
@@ -32,8 +39,14 @@ def _profile(**over):
 
 def _edges(lines, highway="residential", speed=25 * 1.609344):
     return gpd.GeoDataFrame(
-        {"highway": [highway] * len(lines), "length": [ln.length for ln in lines],
-         "speed_kph": [speed] * len(lines)}, geometry=lines, crs=CRS)
+        {
+            "highway": [highway] * len(lines),
+            "length": [ln.length for ln in lines],
+            "speed_kph": [speed] * len(lines),
+        },
+        geometry=lines,
+        crs=CRS,
+    )
 
 
 def test_hand_computed_exposure():
@@ -43,8 +56,11 @@ def test_hand_computed_exposure():
     # x <= 40 -> distance 10 (x = 5..35: 4 samples); 40 < x -> distance sqrt((x-40)^2 + 100)
     # <= 20 -> x - 40 <= sqrt(300) = 17.32 -> x = 45, 55 (2 samples). Total 6 of 10 -> 0.6.
     # Edge B: 50 m along y = 100, far away -> 0. Edge C: 30 m up x = 200 -> 0.
-    lines = [LineString([(0, 0), (100, 0)]), LineString([(0, 100), (50, 100)]),
-             LineString([(200, 0), (200, 30)])]
+    lines = [
+        LineString([(0, 0), (100, 0)]),
+        LineString([(0, 100), (50, 100)]),
+        LineString([(200, 0), (200, 30)]),
+    ]
     src = gpd.GeoDataFrame({"category": ["school"]}, geometry=[box(0, 10, 40, 30)], crs=CRS)
     cross = gpd.GeoDataFrame({"osmid": [1]}, geometry=[Point(50, 0)], crs=CRS)
     out = tagging.tag_edges(_edges(lines), src, cross, _profile())
@@ -63,8 +79,17 @@ def test_hand_computed_exposure():
 def test_linear_decay_value():
     # One sample (edge 10 m long, spacing 10): midpoint (5, 0); school point at (5, 30);
     # radius 60, linear decay -> nearness 1 - 30/60 = 0.5.
-    prof = _profile(categories={"school": {"select": [{"amenity": "school"}], "weight": 1.0,
-                                           "radius_m": 60, "decay": "linear"}}, rules=[])
+    prof = _profile(
+        categories={
+            "school": {
+                "select": [{"amenity": "school"}],
+                "weight": 1.0,
+                "radius_m": 60,
+                "decay": "linear",
+            }
+        },
+        rules=[],
+    )
     src = gpd.GeoDataFrame({"category": ["school"]}, geometry=[Point(5, 30)], crs=CRS)
     empty = gpd.GeoDataFrame({"osmid": []}, geometry=[], crs=CRS)
     out = tagging.tag_edges(_edges([LineString([(0, 0), (10, 0)])]), src, empty, prof)
@@ -72,13 +97,21 @@ def test_linear_decay_value():
 
 
 def test_overlapping_sources_do_not_double_count_unless_stacked():
-    src = gpd.GeoDataFrame({"category": ["school", "school"]},
-                           geometry=[Point(5, 5), Point(6, 5)], crs=CRS)
+    src = gpd.GeoDataFrame(
+        {"category": ["school", "school"]}, geometry=[Point(5, 5), Point(6, 5)], crs=CRS
+    )
     empty = gpd.GeoDataFrame({"osmid": []}, geometry=[], crs=CRS)
     edges = _edges([LineString([(0, 0), (10, 0)])])
     once = tagging.tag_edges(edges, src, empty, _profile())
-    cats = {"school": {"select": [{"amenity": "school"}], "weight": 2.0, "radius_m": 20,
-                       "decay": "none", "stack": True}}
+    cats = {
+        "school": {
+            "select": [{"amenity": "school"}],
+            "weight": 2.0,
+            "radius_m": 20,
+            "decay": "none",
+            "stack": True,
+        }
+    }
     twice = tagging.tag_edges(edges, src, empty, _profile(categories=cats, rules=[]))
     assert once["exp_school"].iloc[0] == 1.0
     assert twice["exp_school"].iloc[0] == 2.0
@@ -88,12 +121,22 @@ def test_long_edge_touching_school_briefly():
     # A 600 m edge that passes within the radius for 50 m only is not scored as fully exposed.
     src = gpd.GeoDataFrame({"category": ["school"]}, geometry=[box(300, 5, 350, 40)], crs=CRS)
     empty = gpd.GeoDataFrame({"osmid": []}, geometry=[], crs=CRS)
-    prof = _profile(categories={"school": {"select": [{"amenity": "school"}], "weight": 1.0,
-                                           "radius_m": 4, "decay": "none"}}, rules=[])
+    prof = _profile(
+        categories={
+            "school": {
+                "select": [{"amenity": "school"}],
+                "weight": 1.0,
+                "radius_m": 4,
+                "decay": "none",
+            }
+        },
+        rules=[],
+    )
     out = tagging.tag_edges(_edges([LineString([(0, 0), (600, 0)])]), src, empty, prof)
     assert out["exp_school"].iloc[0] == pytest.approx(0.0)
-    prof = dataclasses.replace(prof, categories=(dataclasses.replace(
-        prof.categories[0], radius_m=5.0),))
+    prof = dataclasses.replace(
+        prof, categories=(dataclasses.replace(prof.categories[0], radius_m=5.0),)
+    )
     out = tagging.tag_edges(_edges([LineString([(0, 0), (600, 0)])]), src, empty, prof)
     assert out["exp_school"].iloc[0] == pytest.approx(50 / 600)
 
@@ -108,8 +151,12 @@ def test_sample_points_midpoints():
 def test_rule_flag_within_distance():
     src = gpd.GeoDataFrame({"category": ["school"]}, geometry=[Point(50, 4)], crs=CRS)
     empty = gpd.GeoDataFrame({"osmid": []}, geometry=[], crs=CRS)
-    out = tagging.tag_edges(_edges([LineString([(0, 0), (100, 0)]),
-                                    LineString([(0, 50), (100, 50)])]), src, empty, _profile())
+    out = tagging.tag_edges(
+        _edges([LineString([(0, 0), (100, 0)]), LineString([(0, 50), (100, 50)])]),
+        src,
+        empty,
+        _profile(),
+    )
     assert out["rule_0"].tolist() == [True, False]
 
 
@@ -118,7 +165,9 @@ def test_tagging_in_small_chunks_gives_the_same_columns(town_net, monkeypatch):
     # value for value (each edge's exposure depends only on its own samples).
     net = town_net
     cols = [c for c in net.edges.columns if c.startswith(("exp_", "infl_"))] + [
-        "exposure_km", "crossings"]
+        "exposure_km",
+        "crossings",
+    ]
     plain = tagging.tag_edges(net.edges, net.sources, net.crossings, net.profile)
     monkeypatch.setattr(tagging, "CHUNK_POINTS", 7)
     assert len(tagging._chunks(net.edges.geometry.to_numpy(), 10.0, 7)) > 100
@@ -140,7 +189,7 @@ def test_likelihood_column_only_when_the_profile_asks():
     assert "likelihood" not in off.columns
     on_prof = _profile(likelihood={"crashes": "serious_injury", "reference_mph": 25})
     on = tagging.tag_edges(edges, empty, nocross, on_prof)
-    assert on["likelihood"].to_numpy() == pytest.approx([1.0, 1.1 ** 3.5])
+    assert on["likelihood"].to_numpy() == pytest.approx([1.0, 1.1**3.5])
     # severity is still Tefft's alone; scoring multiplies the two
     assert on["severity"].to_numpy() == pytest.approx(off["severity"].to_numpy())
     # re-tagging tagged edges with a profile without it resets the column to 1
@@ -151,9 +200,17 @@ def test_likelihood_column_only_when_the_profile_asks():
 def test_gaussian_smooth_decay_in_tagging():
     # One sample 5 m from a point source, radius 20 (sigma 10): the shifted gaussian.
     line = [LineString([(0, 0), (10, 0)])]
-    prof = _profile(sample_spacing_m=10, categories={"school": {
-        "select": [{"amenity": ["school"]}], "weight": 2.0, "radius_m": 20,
-        "decay": "gaussian_smooth"}})
+    prof = _profile(
+        sample_spacing_m=10,
+        categories={
+            "school": {
+                "select": [{"amenity": ["school"]}],
+                "weight": 2.0,
+                "radius_m": 20,
+                "decay": "gaussian_smooth",
+            }
+        },
+    )
     src = gpd.GeoDataFrame({"category": ["school"]}, geometry=[Point(5, 5)], crs=CRS)
     nocross = gpd.GeoDataFrame({"osmid": []}, geometry=[], crs=CRS)
     out = tagging.tag_edges(_edges(line), src, nocross, prof)
@@ -162,6 +219,7 @@ def test_gaussian_smooth_decay_in_tagging():
 
 
 # --- tagging only the edges within reach; numpy sampling along the vertex arrays ---------
+
 
 def _random_lines(seed: int, count: int) -> np.ndarray:
     rng = np.random.default_rng(seed)
@@ -180,8 +238,9 @@ def test_numpy_interpolation_gives_geos_points_to_the_bit(town_net, real_pbf):
 
     from routerisk import loader
 
-    real = loader.frames_from_raw(__import__("routerisk._osm", fromlist=["read_osm"])
-                                  .read_osm(real_pbf)).edges.geometry.to_numpy()
+    real = loader.frames_from_raw(
+        __import__("routerisk._osm", fromlist=["read_osm"]).read_osm(real_pbf)
+    ).edges.geometry.to_numpy()
     for geoms in (_random_lines(1, 400), town_net.edges.geometry.to_numpy(), real):
         n = tagging._sample_counts(geoms, 10.0)
         owner = np.repeat(np.arange(len(geoms)), n)
@@ -189,8 +248,9 @@ def test_numpy_interpolation_gives_geos_points_to_the_bit(town_net, real_pbf):
         owner = np.concatenate([owner, [0, 1, 2]])
         frac = np.concatenate([frac, [0.0, 1.0, 1e-300]])
         # reference: GEOS through shapely.line_interpolate_point
-        ref = shapely.get_coordinates(shapely.line_interpolate_point(geoms[owner], frac,
-                                                                     normalized=True))
+        ref = shapely.get_coordinates(
+            shapely.line_interpolate_point(geoms[owner], frac, normalized=True)
+        )
         ours = shapely.get_coordinates(tagging.interpolate_normalized(geoms, owner, frac))
         assert np.max(np.abs(ours - ref)) <= 1e-9
         assert np.array_equal(ours, ref)
@@ -214,8 +274,11 @@ def test_sampling_is_the_same_whichever_way_a_line_is_walked(monkeypatch):
 def _tag_every_edge_with_geos(monkeypatch, *args, **kw):
     """The tagging as it was: every edge sampled, every point interpolated by GEOS."""
     with monkeypatch.context() as m:
-        m.setattr(tagging, "reached_edges",
-                  lambda geoms, by_cat, profile: np.arange(len(geoms), dtype=np.int64))
+        m.setattr(
+            tagging,
+            "reached_edges",
+            lambda geoms, by_cat, profile: np.arange(len(geoms), dtype=np.int64),
+        )
         m.setattr(tagging, "MANY_VERTICES", 10**9)
         return tagging.tag_edges(*args, **kw)
 
@@ -231,8 +294,12 @@ def _raw_inputs(path):
     frames = loader.frames_from_raw(raw)
     crs = frames.graph_attrs["crs"]
     edges = frames.edges[[c for c in frames.edges.columns if c in EDGE_KEEP]]
-    return (edges, sources.sources_from_raw(raw, prof, crs=crs),
-            sources.crossings_from_raw(raw, crs=crs), prof)
+    return (
+        edges,
+        sources.sources_from_raw(raw, prof, crs=crs),
+        sources.crossings_from_raw(raw, crs=crs),
+        prof,
+    )
 
 
 def test_tagging_within_reach_equals_tagging_every_edge(monkeypatch, real_pbf, tmp_path):
@@ -247,8 +314,10 @@ def test_tagging_within_reach_equals_tagging_every_edge(monkeypatch, real_pbf, t
         pd.testing.assert_frame_equal(ours, before, check_exact=True)
         for col in before.columns:
             assert ours[col].equals(before[col]), (path, col)
-        by_cat = {c.name: src.geometry.to_numpy()[src["category"].to_numpy() == c.name]
-                  for c in prof.categories}
+        by_cat = {
+            c.name: src.geometry.to_numpy()[src["category"].to_numpy() == c.name]
+            for c in prof.categories
+        }
         reach = tagging.reached_edges(edges.geometry.to_numpy(), by_cat, prof)
         assert 0 < len(reach) < len(edges), path  # some edges really are skipped
         far = np.setdiff1d(np.arange(len(edges)), reach)
@@ -260,13 +329,14 @@ def test_an_edge_out_of_reach_is_not_sampled_and_gets_exact_zeros(monkeypatch):
     prof = _profile()
     edges = gpd.GeoDataFrame(
         {"highway": ["residential"] * 2, "speed_kph": [30.0] * 2, "length": [25.0, 25.0]},
-        geometry=[LineString([(0, 0), (25, 0)]), LineString([(0, 500), (25, 500)])], crs=CRS)
+        geometry=[LineString([(0, 0), (25, 0)]), LineString([(0, 500), (25, 500)])],
+        crs=CRS,
+    )
     src = gpd.GeoDataFrame({"category": ["school"]}, geometry=[Point(10, 5)], crs=CRS)
     cross = gpd.GeoDataFrame({"osmid": []}, geometry=[], crs=CRS)
     seen = []
     real = tagging.sample_points
-    monkeypatch.setattr(tagging, "sample_points",
-                        lambda g, s: seen.append(len(g)) or real(g, s))
+    monkeypatch.setattr(tagging, "sample_points", lambda g, s: seen.append(len(g)) or real(g, s))
     out = tagging.tag_edges(edges, src, cross, prof)
     assert seen == [1]
     assert out["exp_school"].tolist()[1] == 0.0 and out["infl_school"].tolist()[1] == 0.0

@@ -57,9 +57,23 @@ def real_net(tmp_path_factory):
     prof = d / "rule.yaml"
     prof.write_text(RULE_PROFILE)
     out = d / "net"
-    p = subprocess.run([sys.executable, "-m", "routerisk", "build", str(PBF), "--out", str(out),
-                        "--profile", str(prof), "--all-parts"],
-                       capture_output=True, text=True, check=True)
+    p = subprocess.run(
+        [
+            sys.executable,
+            "-m",
+            "routerisk",
+            "build",
+            str(PBF),
+            "--out",
+            str(out),
+            "--profile",
+            str(prof),
+            "--all-parts",
+        ],
+        capture_output=True,
+        text=True,
+        check=True,
+    )
     return d, out, p.stdout
 
 
@@ -76,14 +90,22 @@ def _route(d: Path, out: Path) -> Path:
     from shapely.geometry import LineString
 
     edges = gpd.read_file(out / "network.gpkg", layer="edges").to_crs(4326)
-    res = edges[edges["highway"].isin(["residential", "unclassified", "tertiary", "secondary",
-                                       "primary"])]
+    res = edges[
+        edges["highway"].isin(["residential", "unclassified", "tertiary", "secondary", "primary"])
+    ]
     line = res.geometry.iloc[0]
     pts = list(line.coords)
     route = d / "route.geojson"
-    gj = {"type": "FeatureCollection", "features": [{
-        "type": "Feature", "properties": {"name": "real-1"},
-        "geometry": LineString([pts[0], pts[-1]]).__geo_interface__}]}
+    gj = {
+        "type": "FeatureCollection",
+        "features": [
+            {
+                "type": "Feature",
+                "properties": {"name": "real-1"},
+                "geometry": LineString([pts[0], pts[-1]]).__geo_interface__,
+            }
+        ],
+    }
     route.write_text(json.dumps(gj))
     return route
 
@@ -93,9 +115,23 @@ def test_rule_breaks_and_times_in_local_time(real_net):
     route = _route(d, out)
 
     def score(depart: str) -> dict:
-        p = subprocess.run([sys.executable, "-m", "routerisk", "score", str(route), "--network",
-                            str(out), "--depart", depart, "--json"],
-                           capture_output=True, text=True, check=True)
+        p = subprocess.run(
+            [
+                sys.executable,
+                "-m",
+                "routerisk",
+                "score",
+                str(route),
+                "--network",
+                str(out),
+                "--depart",
+                depart,
+                "--json",
+            ],
+            capture_output=True,
+            text=True,
+            check=True,
+        )
         data = json.loads(p.stdout)
         return (data["routes"] if isinstance(data, dict) else data)[0]
 

@@ -17,9 +17,13 @@ from routerisk.profile import load_profile, parse_profile
 
 
 def _law(centre, cov=None, normal=(), ranges=()):
-    return un.WeightLaw(tuple(f"w{i}" for i in range(len(centre))), np.asarray(centre, float),
-                        tuple(normal), np.zeros((0, 0)) if cov is None else np.asarray(cov),
-                        tuple(ranges))
+    return un.WeightLaw(
+        tuple(f"w{i}" for i in range(len(centre))),
+        np.asarray(centre, float),
+        tuple(normal),
+        np.zeros((0, 0)) if cov is None else np.asarray(cov),
+        tuple(ranges),
+    )
 
 
 @pytest.fixture(scope="module")
@@ -34,8 +38,9 @@ def test_unit_parts_reproduce_the_scores(town_net, town_scores):
     np.testing.assert_allclose(fixed + unit @ w, [s.risk for s in town_scores], rtol=1e-9)
     for k, s in enumerate(town_scores):
         for j, c in enumerate(town_net.profile.categories):
-            assert unit[k, j] * c.weight == pytest.approx(s.by_category[c.name], rel=1e-9,
-                                                          abs=1e-12)
+            assert unit[k, j] * c.weight == pytest.approx(
+                s.by_category[c.name], rel=1e-9, abs=1e-12
+            )
 
 
 def test_monte_carlo_matches_the_analytic_interval(town_net, town_scores):
@@ -59,8 +64,9 @@ def test_monte_carlo_matches_the_analytic_interval(town_net, town_scores):
     z = norm.ppf(0.95)
     q_se = np.sqrt(0.05 * 0.95 / n) / norm.pdf(z) * s
     for q, sign in ((0.05, -1), (0.95, 1)):
-        assert np.all(np.abs(np.quantile(risks, q, axis=0) - (mean + sign * z * s))
-                      <= 4 * q_se + 1e-12)
+        assert np.all(
+            np.abs(np.quantile(risks, q, axis=0) - (mean + sign * z * s)) <= 4 * q_se + 1e-12
+        )
 
 
 def test_pairwise_probability_hand_built():
@@ -75,8 +81,9 @@ def test_pairwise_probability_hand_built():
     assert p[0, 1] == 0.5
     # symmetric: each route leans on one of two weights with the same law
     law = _law([1.0, 1.0], ranges=[(0, 0.5, 1.5, "uniform"), (1, 0.5, 1.5, "uniform")])
-    p = un.prob_lower(fixed + un.draw_weights(law, 20_000, rng)
-                      @ np.array([[1.0, 0.0], [0.0, 1.0]]).T)
+    p = un.prob_lower(
+        fixed + un.draw_weights(law, 20_000, rng) @ np.array([[1.0, 0.0], [0.0, 1.0]]).T
+    )
     assert abs(p[0, 1] - 0.5) < 4 * 0.5 / np.sqrt(20_000)
     assert p[0, 1] + p[1, 0] == pytest.approx(1.0)
 
@@ -84,8 +91,9 @@ def test_pairwise_probability_hand_built():
 def _four_weight_case():
     # y = 1 + 3 w0 + 1 w1 + 0.5 w2 + 0 w3, uniform weights
     bounds = [[0.0, 2.0], [1.0, 4.0], [0.5, 1.5], [0.0, 1.0]]
-    law = _law([1.0, 2.5, 1.0, 0.5], ranges=[(i, lo, hi, "uniform")
-                                             for i, (lo, hi) in enumerate(bounds)])
+    law = _law(
+        [1.0, 2.5, 1.0, 0.5], ranges=[(i, lo, hi, "uniform") for i, (lo, hi) in enumerate(bounds)]
+    )
     return bounds, law, np.array([1.0]), np.array([[3.0, 1.0, 0.5, 0.0]])
 
 
@@ -100,8 +108,8 @@ def test_sobol_estimator_equals_salib_on_its_own_samples():
     y = fixed[0] + x @ unit[0]
     ref = sobol_analyze.analyze(problem, y, calc_second_order=False, seed=5)
     step = 6
-    f_a, f_b = y[0::step], y[step - 1::step]
-    f_ab = np.column_stack([y[j + 1::step] for j in range(4)])
+    f_a, f_b = y[0::step], y[step - 1 :: step]
+    f_ab = np.column_stack([y[j + 1 :: step] for j in range(4)])
     s1, st = un.sobol_indices(f_a, f_b, f_ab)
     np.testing.assert_allclose(s1, ref["S1"], rtol=1e-9, atol=1e-12)
     np.testing.assert_allclose(st, ref["ST"], rtol=1e-9, atol=1e-12)
@@ -115,8 +123,7 @@ def test_sobol_indices_agree_with_salib_within_its_interval():
     bounds, law, fixed, unit = _four_weight_case()
     problem = {"num_vars": 4, "names": ["a", "b", "c", "d"], "bounds": bounds}
     x = sobol_sample.sample(problem, 4096, calc_second_order=False, seed=11)
-    ref = sobol_analyze.analyze(problem, fixed[0] + x @ unit[0], calc_second_order=False,
-                                seed=11)
+    ref = sobol_analyze.analyze(problem, fixed[0] + x @ unit[0], calc_second_order=False, seed=11)
     s1, st, vary = un.sensitivity(fixed, unit, law, 8192, np.random.default_rng(2))
     assert vary == [0, 1, 2, 3]
     assert np.all(np.abs(s1[:, 0] - ref["S1"]) <= 2 * ref["S1_conf"] + 1e-3)
@@ -137,9 +144,13 @@ def _ranged_profile(tmp_path: Path, **weights) -> Path:
 
 
 def test_weight_ranges_are_read_and_checked(tmp_path):
-    p = load_profile(_ranged_profile(tmp_path, school={"low": 2.0, "high": 8.0,
-                                                         "spread": "log-uniform"},
-                                     retail={"low": 1.0, "high": 2.0}))
+    p = load_profile(
+        _ranged_profile(
+            tmp_path,
+            school={"low": 2.0, "high": 8.0, "spread": "log-uniform"},
+            retail={"low": 1.0, "high": 2.0},
+        )
+    )
     assert p.category("school").weight == pytest.approx(4.0)  # geometric mean
     assert p.category("retail").weight == pytest.approx(1.5)
     law = un.weight_law(p)
@@ -164,10 +175,12 @@ def _score(args, capsys):
 
 
 def test_score_uncertainty_is_seeded_and_reproducible(town_dir, tmp_path, capsys):
-    prof = _ranged_profile(tmp_path, school={"low": 1.0, "high": 6.0},
-                           retail={"low": 0.5, "high": 3.0, "spread": "log-uniform"})
-    base = ["--network", str(town_dir), "--profile", str(prof), "--uncertainty", "500",
-            "--json"]
+    prof = _ranged_profile(
+        tmp_path,
+        school={"low": 1.0, "high": 6.0},
+        retail={"low": 0.5, "high": 3.0, "spread": "log-uniform"},
+    )
+    base = ["--network", str(town_dir), "--profile", str(prof), "--uncertainty", "500", "--json"]
     c1, a, _ = _score([*base, "--seed", "4"], capsys)
     c2, b, _ = _score([*base, "--seed", "4"], capsys)
     c3, c, _ = _score([*base, "--seed", "5"], capsys)
@@ -183,11 +196,14 @@ def test_score_uncertainty_is_seeded_and_reproducible(town_dir, tmp_path, capsys
     assert len(u["pairs"]) == 6  # routes at their own times: every pair
 
 
-@pytest.mark.parametrize(("extra", "words"), [
-    (["--uncertainty", "0"], "--uncertainty: must be a whole number of draws of at least 1"),
-    (["--seed", "3"], "--seed: --seed needs --uncertainty"),
-    (["--uncertainty", "10"], "needs a profile with an 'uncertainty' block"),
-])
+@pytest.mark.parametrize(
+    ("extra", "words"),
+    [
+        (["--uncertainty", "0"], "--uncertainty: must be a whole number of draws of at least 1"),
+        (["--seed", "3"], "--seed: --seed needs --uncertainty"),
+        (["--uncertainty", "10"], "needs a profile with an 'uncertainty' block"),
+    ],
+)
 def test_score_uncertainty_bad_options(extra, words, town_dir, tmp_path, capsys):
     out = tmp_path / "out"
     code, _, err = _score(["--network", str(town_dir), "--out", str(out), *extra], capsys)
@@ -196,10 +212,22 @@ def test_score_uncertainty_bad_options(extra, words, town_dir, tmp_path, capsys)
 
 
 def test_suggest_uncertainty_gives_probability_against_the_plan(town_dir, tmp_path, capsys):
-    prof = _ranged_profile(tmp_path, school={"low": 1.0, "high": 6.0},
-                           retail={"low": 0.5, "high": 3.0})
-    args = ["suggest", str(datasets.get_path("routes")), "--network", str(town_dir),
-            "--profile", str(prof), "--uncertainty", "400", "--seed", "2", "--json"]
+    prof = _ranged_profile(
+        tmp_path, school={"low": 1.0, "high": 6.0}, retail={"low": 0.5, "high": 3.0}
+    )
+    args = [
+        "suggest",
+        str(datasets.get_path("routes")),
+        "--network",
+        str(town_dir),
+        "--profile",
+        str(prof),
+        "--uncertainty",
+        "400",
+        "--seed",
+        "2",
+        "--json",
+    ]
     assert main(args) == 0
     a = capsys.readouterr().out
     assert main(args) == 0
@@ -212,8 +240,19 @@ def test_suggest_uncertainty_gives_probability_against_the_plan(town_dir, tmp_pa
             assert 0.0 <= u["p_lower_than_plan"] <= 1.0
             if alt["risk_change_pct"] < -50:  # far lower at every draw of two weights
                 assert u["p_lower_than_plan"] == 1.0
-    assert main(["suggest", str(datasets.get_path("routes")), "--network", str(town_dir),
-                 "--uncertainty", "0"]) == 2
+    assert (
+        main(
+            [
+                "suggest",
+                str(datasets.get_path("routes")),
+                "--network",
+                str(town_dir),
+                "--uncertainty",
+                "0",
+            ]
+        )
+        == 2
+    )
 
 
 def test_review_band_intervals_recompute_the_bands(town_net, tmp_path):
@@ -240,11 +279,31 @@ def test_review_band_intervals_recompute_the_bands(town_net, tmp_path):
 
 def test_review_uncertainty_cli(town_dir, tmp_path, capsys):
     prof = _ranged_profile(tmp_path, school={"low": 1.0, "high": 6.0})
-    args = ["review", str(datasets.get_path("area")), "--network", str(town_dir),
-            "--profile", str(prof), "--uncertainty", "200", "--json"]
+    args = [
+        "review",
+        str(datasets.get_path("area")),
+        "--network",
+        str(town_dir),
+        "--profile",
+        str(prof),
+        "--uncertainty",
+        "200",
+        "--json",
+    ]
     assert main(args) == 0
     doc = json.loads(capsys.readouterr().out)
     assert doc["uncertainty"]["weights_varied"] == ["school"]
-    assert main(["review", str(datasets.get_path("area")), "--network", str(town_dir),
-                 "--uncertainty", "0"]) == 2
+    assert (
+        main(
+            [
+                "review",
+                str(datasets.get_path("area")),
+                "--network",
+                str(town_dir),
+                "--uncertainty",
+                "0",
+            ]
+        )
+        == 2
+    )
     assert "--uncertainty" in capsys.readouterr().err

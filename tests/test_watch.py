@@ -62,8 +62,10 @@ def test_block_is_one_discovery_with_counts_per_direction(town_net, result):
     assert mem.loc[mem["forward"], "events"].sum() == hot["events_forward"]
     # no two units share an edge pair: both directions of a block are one unit
     units = watch.discovery_units(town_net.edges, "block")
-    pair = [(min(a, b), max(a, b), k) for a, b, k in zip(units["u"], units["v"], units["key"],
-                                                          strict=True)]
+    pair = [
+        (min(a, b), max(a, b), k)
+        for a, b, k in zip(units["u"], units["v"], units["key"], strict=True)
+    ]
     assert pd.DataFrame({"p": pair, "u": units["unit"]}).groupby("p")["u"].nunique().max() == 1
     seg_units = watch.discovery_units(town_net.edges, "segment")
     assert seg_units["unit"].nunique() == len(town_net.edges)
@@ -74,12 +76,19 @@ def test_block_merges_the_run_between_intersections():
     # 1-2-3 is one street through node 2, where nothing else meets (likewise 3-5-6 through
     # node 5); node 3 is an intersection; at node 6 the street name changes, so 5-6 and 6-7
     # stay apart.
-    links = [(1, 2, "Alder"), (2, 3, "Alder"), (3, 4, "Birch"), (3, 5, "Birch"),
-             (5, 6, "Birch"), (6, 7, "Cedar")]
+    links = [
+        (1, 2, "Alder"),
+        (2, 3, "Alder"),
+        (3, 4, "Birch"),
+        (3, 5, "Birch"),
+        (5, 6, "Birch"),
+        (6, 7, "Cedar"),
+    ]
     rows = [(a, b, n) for a, b, n in links] + [(b, a, n) for a, b, n in links[:3]]
-    edges = pd.DataFrame({"name": [n for *_, n in rows]},
-                         index=pd.MultiIndex.from_tuples([(a, b, 0) for a, b, _ in rows],
-                                                         names=["u", "v", "key"]))
+    edges = pd.DataFrame(
+        {"name": [n for *_, n in rows]},
+        index=pd.MultiIndex.from_tuples([(a, b, 0) for a, b, _ in rows], names=["u", "v", "key"]),
+    )
     units = watch.discovery_units(edges, "block").set_index(["u", "v"])
     assert units.loc[(1, 2), "unit"] == units.loc[(3, 2), "unit"] == "1-3"
     assert units.loc[(1, 2), "forward"] and not units.loc[(3, 2), "forward"]
@@ -118,11 +127,14 @@ def test_bad_events_are_reported_not_matched(town_net, tmp_path):
     lines = open(datasets.get_path("events")).read().splitlines()
     header, first = lines[0], lines[1]
     t, lat, lon, kind, veh = first.split(",")
-    bad = [header, first,
-           f"{t},{float(lat) + 0.01:.7f},{lon},{kind},{veh}",  # ~1.1 km off the route
-           f"2026-01-01T03:00:00-03:00,{lat},{lon},{kind},{veh}",  # no drive then
-           f"{t},95.0,{lon},{kind},{veh}",  # latitude out of range
-           f"not-a-time,{lat},{lon},{kind},{veh}"]
+    bad = [
+        header,
+        first,
+        f"{t},{float(lat) + 0.01:.7f},{lon},{kind},{veh}",  # ~1.1 km off the route
+        f"2026-01-01T03:00:00-03:00,{lat},{lon},{kind},{veh}",  # no drive then
+        f"{t},95.0,{lon},{kind},{veh}",  # latitude out of range
+        f"not-a-time,{lat},{lon},{kind},{veh}",
+    ]
     path = tmp_path / "events.csv"
     path.write_text("\n".join(bad) + "\n")
     drives = tmp_path / "drives"
@@ -166,8 +178,9 @@ def test_hour_groups_split_a_drive_by_the_time_each_edge_is_driven(town_net, tmp
     # issue 17 point 1: drive-01 moved to 08:57-09:01 local (Monday 2027-03-01); before the
     # fix all its km went to "mon 08" and "mon 09" had events but no expectation.
     ev, drives, n_ev = _shifted(tmp_path, ["drive-01.gpx"], 55)
-    res = watch.watch(town_net, ev, drives, group="hour", baseline_rate=1.0, unit="segment",
-                      expected="distance")
+    res = watch.watch(
+        town_net, ev, drives, group="hour", baseline_rate=1.0, unit="segment", expected="distance"
+    )
     per = res.periods.set_index("group")
     assert set(per.index) == {"mon 08", "mon 09"}, per
     assert per["events"].sum() == n_ev and per.loc["mon 09", "events"] > 0
@@ -198,10 +211,15 @@ def test_split_by_hour_at_midnight():
 
 
 def test_baselines():
-    p = pd.DataFrame({"group": ["a", "a", "b", "b", "c"],
-                      "period": ["2027-03-01", "2027-03-02", "2027-03-01", "2027-03-03",
-                                 "2027-03-02"],
-                      "events": [4, 6, 1, 0, 3], "km": 1.0, "wkm": [2.0, 2.0, 1.0, 3.0, 2.0]})
+    p = pd.DataFrame(
+        {
+            "group": ["a", "a", "b", "b", "c"],
+            "period": ["2027-03-01", "2027-03-02", "2027-03-01", "2027-03-03", "2027-03-02"],
+            "events": [4, 6, 1, 0, 3],
+            "km": 1.0,
+            "wkm": [2.0, 2.0, 1.0, 3.0, 2.0],
+        }
+    )
     watched, rate, how = watch._baseline(p, None, None, "modelled")
     # leave one group out (derived here): a -> (1 + 0 + 3) / (1 + 3 + 2)
     assert rate["a"] == pytest.approx(4 / 6) and rate["b"] == pytest.approx(13 / 6)
@@ -219,15 +237,35 @@ def test_baselines():
 
 
 def test_cli_options_reach_the_analysis(town_dir, tmp_path, capsys):
-    ev, drives, _ = _shifted(tmp_path, ["drive-01.gpx", "drive-02.gpx", "drive-05.gpx",
-                                        "drive-06.gpx"], 0)
-    code = main(["watch", str(ev), "--drives", str(drives), "--network", str(town_dir),
-                 "--unit", "segment", "--test", "poisson", "--arl0-family", "200",
-                 "--baseline-until", "2027-03-01", "--json"])
+    ev, drives, _ = _shifted(
+        tmp_path, ["drive-01.gpx", "drive-02.gpx", "drive-05.gpx", "drive-06.gpx"], 0
+    )
+    code = main(
+        [
+            "watch",
+            str(ev),
+            "--drives",
+            str(drives),
+            "--network",
+            str(town_dir),
+            "--unit",
+            "segment",
+            "--test",
+            "poisson",
+            "--arl0-family",
+            "200",
+            "--baseline-until",
+            "2027-03-01",
+            "--json",
+        ]
+    )
     doc = json.loads(capsys.readouterr().out)
     assert code == 0
-    assert doc["unit"] == "segment" and doc["test"] == {"asked": "poisson", "used": "poisson",
-                                                        "dispersion": doc["test"]["dispersion"]}
+    assert doc["unit"] == "segment" and doc["test"] == {
+        "asked": "poisson",
+        "used": "poisson",
+        "dispersion": doc["test"]["dispersion"],
+    }
     assert all(re.fullmatch(r"\d+-\d+-\d+", s["unit"]) for s in doc["segments"])
     assert doc["baseline"].startswith("calibration period up to 2027-03-01")
     fam, charts = doc["cusum"]["family"], doc["cusum"]["charts"]
@@ -236,27 +274,47 @@ def test_cli_options_reach_the_analysis(town_dir, tmp_path, capsys):
     assert all(set(c) >= {"group", "mu0", "k", "h"} for c in charts)
     # poisson p-values are scipy's exact Poisson tail at the expected count (reference library)
     for s in doc["segments"]:
-        assert s["p_value"] == pytest.approx(stats.poisson.sf(s["events"] - 1, s["expected"]),
-                                             rel=1e-5)
+        assert s["p_value"] == pytest.approx(
+            stats.poisson.sf(s["events"] - 1, s["expected"]), rel=1e-5
+        )
     with pytest.raises(OptionError):
         watch.watch(None, ev, drives, baseline_until="2027-03-01", baseline_rate=1.0)
 
 
-def test_outputs_say_what_was_used_and_overlay_feeds_back(town_dir, town_net, tmp_path,
-                                                          capsys):
+def test_outputs_say_what_was_used_and_overlay_feeds_back(town_dir, town_net, tmp_path, capsys):
     out = tmp_path / "w"
-    code = main(["watch", str(datasets.get_path("events")), "--drives",
-                 str(datasets.get_path("drives")), "--network", str(town_dir), "--out",
-                 str(out), "--json"])
+    code = main(
+        [
+            "watch",
+            str(datasets.get_path("events")),
+            "--drives",
+            str(datasets.get_path("drives")),
+            "--network",
+            str(town_dir),
+            "--out",
+            str(out),
+            "--json",
+        ]
+    )
     data = json.loads(capsys.readouterr().out)
     assert code == 0 and set(data) >= {"segments", "alerts", "fdr", "test", "cusum", "unit"}
     assert data["test"]["used"] == "negbin" and data["unit"] == "block"
-    assert set(data["segments"][0]) >= {"unit", "street", "events", "events_forward",
-                                        "events_backward", "km_driven", "expected",
-                                        "eb_rate", "p_value", "flagged", "edges", "disagree"}
+    assert set(data["segments"][0]) >= {
+        "unit",
+        "street",
+        "events",
+        "events_forward",
+        "events_backward",
+        "km_driven",
+        "expected",
+        "eb_rate",
+        "p_value",
+        "flagged",
+        "edges",
+        "disagree",
+    }
     for name in ("segments.csv", "charts.csv"):
-        head = "".join(x for x in (out / name).read_text().splitlines(True)
-                       if x.startswith("#"))
+        head = "".join(x for x in (out / name).read_text().splitlines(True) if x.startswith("#"))
         assert "test: negbin p-values" in head and "leave-one-group-out" in head, name
         assert "do not model" in head
     html = (out / "report.html").read_text()
@@ -269,5 +327,4 @@ def test_outputs_say_what_was_used_and_overlay_feeds_back(town_dir, town_net, tm
     t = dt.datetime(2027, 3, 9, 11, 0, tzinfo=town_net.timezone)
     for e in hot["edges"]:
         edge = tuple(e["edge"])
-        assert Scorer(over).score("x", [edge], t).risk > Scorer(town_net).score(
-            "x", [edge], t).risk
+        assert Scorer(over).score("x", [edge], t).risk > Scorer(town_net).score("x", [edge], t).risk

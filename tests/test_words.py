@@ -40,15 +40,20 @@ def test_headings_in_words():
 
 def _edges():
     # a plus-shaped crossing of two named streets, in metres; hand-built
-    lines = {(1, 2, 0): ("Hobbin Street", [(0, 0), (100, 0)]),
-             (2, 3, 0): ("Hobbin Street", [(100, 0), (200, 0)]),
-             (3, 2, 0): ("Hobbin Street", [(200, 0), (100, 0)]),
-             (4, 2, 0): ("Bosky Lane", [(100, -100), (100, 0)]),
-             (3, 5, 0): ("Quarry Lane", [(200, 0), (200, 100)])}
+    lines = {
+        (1, 2, 0): ("Hobbin Street", [(0, 0), (100, 0)]),
+        (2, 3, 0): ("Hobbin Street", [(100, 0), (200, 0)]),
+        (3, 2, 0): ("Hobbin Street", [(200, 0), (100, 0)]),
+        (4, 2, 0): ("Bosky Lane", [(100, -100), (100, 0)]),
+        (3, 5, 0): ("Quarry Lane", [(200, 0), (200, 100)]),
+    }
     idx = pd.MultiIndex.from_tuples(list(lines), names=["u", "v", "key"])
-    return gpd.GeoDataFrame({"name": [n for n, _ in lines.values()]}, index=idx,
-                            geometry=[LineString(c) for _, c in lines.values()],
-                            crs="EPSG:32624")
+    return gpd.GeoDataFrame(
+        {"name": [n for n, _ in lines.values()]},
+        index=idx,
+        geometry=[LineString(c) for _, c in lines.values()],
+        crs="EPSG:32624",
+    )
 
 
 def test_blocks_tell_one_street_apart_by_direction_and_cross_streets():
@@ -61,8 +66,14 @@ def test_blocks_tell_one_street_apart_by_direction_and_cross_streets():
 
 
 def test_reports_carry_a_glossary_of_the_terms_they_use():
-    df = pd.DataFrame({"street": ["<b>x</b>"], "p_value": [0.0001], "q_value": [0.2],
-                       "depart": ["2027-03-09T07:15:00-03:00"]})
+    df = pd.DataFrame(
+        {
+            "street": ["<b>x</b>"],
+            "p_value": [0.0001],
+            "q_value": [0.2],
+            "depart": ["2027-03-09T07:15:00-03:00"],
+        }
+    )
     page = report.page("t", [report.section("Flagged", report.frame_html(df, index=False))])
     assert "Words used on this page" in page
     assert "<dt>p-value</dt>" in page and "<dt>adjusted p-value (q)</dt>" in page

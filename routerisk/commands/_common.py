@@ -21,11 +21,20 @@ if TYPE_CHECKING:
 
 def add_network(parser: argparse.ArgumentParser) -> None:
     """Add ``--network DIR`` and ``--profile FILE``."""
-    parser.add_argument("--network", required=True, type=Path, metavar="DIR",
-                        help="network folder written by 'routerisk build'")
+    parser.add_argument(
+        "--network",
+        required=True,
+        type=Path,
+        metavar="DIR",
+        help="network folder written by 'routerisk build'",
+    )
     add_profile(parser, "profile to score with (default: the one the network was built with)")
-    parser.add_argument("--overlay", type=Path, metavar="FILE",
-                        help="overlay from 'routerisk watch' (extra weight or closures)")
+    parser.add_argument(
+        "--overlay",
+        type=Path,
+        metavar="FILE",
+        help="overlay from 'routerisk watch' (extra weight or closures)",
+    )
 
 
 def add_profile(parser: argparse.ArgumentParser, text: str) -> None:
@@ -56,15 +65,26 @@ def network_of(args: argparse.Namespace) -> Network:
 
 def add_cluster(parser: argparse.ArgumentParser, work: str) -> None:
     """Add ``--workers``, ``--scheduler`` and ``--tile-m`` (the work named by ``work``)."""
-    parser.add_argument("--workers", type=int, metavar="N",
-                        help=f"{work} on a local Dask cluster of N worker processes, tile by "
-                             "tile (needs the 'scale' extra: dask, distributed, dask-geopandas)")
-    parser.add_argument("--scheduler", metavar="ADDRESS",
-                        help=f"{work} on a running Dask scheduler instead, e.g. "
-                             "tcp://10.0.0.5:8786 (its workers need routerisk installed)")
-    parser.add_argument("--tile-m", type=float, metavar="M",
-                        help="tile side in metres for --workers / --scheduler (default 3000; "
-                             "results do not depend on it)")
+    parser.add_argument(
+        "--workers",
+        type=int,
+        metavar="N",
+        help=f"{work} on a local Dask cluster of N worker processes, tile by "
+        "tile (needs the 'scale' extra: dask, distributed, dask-geopandas)",
+    )
+    parser.add_argument(
+        "--scheduler",
+        metavar="ADDRESS",
+        help=f"{work} on a running Dask scheduler instead, e.g. "
+        "tcp://10.0.0.5:8786 (its workers need routerisk installed)",
+    )
+    parser.add_argument(
+        "--tile-m",
+        type=float,
+        metavar="M",
+        help="tile side in metres for --workers / --scheduler (default 3000; "
+        "results do not depend on it)",
+    )
 
 
 @contextlib.contextmanager
@@ -88,13 +108,20 @@ def cluster_of(args: argparse.Namespace) -> Iterator[tuple[Any, float] | None]:
 
 def add_map_options(parser: argparse.ArgumentParser) -> None:
     """Add ``--tiles SOURCE`` and ``--bands fixed|quantiles`` (map options, both optional)."""
-    parser.add_argument("--tiles", metavar="SOURCE",
-                        help="optional background tiles: an .mbtiles file (embedded), a "
-                             "folder of z/x/y tiles, or a URL template with {z}/{x}/{y} "
-                             "(online); the maps never need them")
-    parser.add_argument("--bands", choices=("fixed", "quantiles"), default="fixed",
-                        help="map classes: the profile's fixed bands (default; comparable "
-                             "across areas) or quantiles of the streets shown")
+    parser.add_argument(
+        "--tiles",
+        metavar="SOURCE",
+        help="optional background tiles: an .mbtiles file (embedded), a "
+        "folder of z/x/y tiles, or a URL template with {z}/{x}/{y} "
+        "(online); the maps never need them",
+    )
+    parser.add_argument(
+        "--bands",
+        choices=("fixed", "quantiles"),
+        default="fixed",
+        help="map classes: the profile's fixed bands (default; comparable "
+        "across areas) or quantiles of the streets shown",
+    )
 
 
 def tiles_of(args: argparse.Namespace) -> Any:

@@ -10,8 +10,13 @@ HELP = "run every stage on the bundled invented town of Corvane and write maps a
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     """Add the options of ``demo``."""
-    parser.add_argument("--out", required=True, type=Path, metavar="DIR",
-                        help="folder to write the demo outputs into")
+    parser.add_argument(
+        "--out",
+        required=True,
+        type=Path,
+        metavar="DIR",
+        help="folder to write the demo outputs into",
+    )
     parser.add_argument("--force", action="store_true", help="replace an existing folder")
 
 

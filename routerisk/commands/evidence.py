@@ -23,27 +23,49 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     add = parser.add_argument
     add("--benchmark", metavar="R", help="benchmark rate: R events per --per distance (required)")
     add("--per", metavar="N", help="distance the benchmark is stated per, e.g. 1e9 (required)")
-    add("--improvement", default="0.2", metavar="SHARE",
+    add(
+        "--improvement",
+        default="0.2",
+        metavar="SHARE",
         help="share by which the fleet should beat the benchmark, in [0, 1) (default 0.2); "
-             "with 0 only the no-event figures are defined")
+        "with 0 only the no-event figures are defined",
+    )
     add("--confidence", default="0.95", help="confidence level in (0, 1) (default 0.95)")
     add("--power", default="0.8", help="power in (0, 1) (default 0.8)")
     add("--units", default="mi", metavar="{mi,km}", help="distance unit (default mi)")
     add("--fleet", default="100", metavar="VEHICLES", help="vehicles in the fleet (default 100)")
-    add("--hours-per-day", default="24", metavar="H",
-        help="hours a day each vehicle drives, in (0, 24] (default 24)")
-    add("--speed", default="25", metavar="V",
-        help="average speed in the chosen unit per hour (default 25)")
+    add(
+        "--hours-per-day",
+        default="24",
+        metavar="H",
+        help="hours a day each vehicle drives, in (0, 24] (default 24)",
+    )
+    add(
+        "--speed",
+        default="25",
+        metavar="V",
+        help="average speed in the chosen unit per hour (default 25)",
+    )
     add("--observed", metavar="M", help="distance driven so far (with --events)")
     add("--events", metavar="K", help="events seen in the --observed distance")
-    add("--allowed-events", nargs="+", metavar="K", default=None,
-        help="event counts of the 'k events allowed' table (default 0 1 2 3)")
-    add("--drives", metavar="DIR",
-        help="folder of recorded drives (GPX) to map-match and split by exposure "
-             "(needs --network)")
+    add(
+        "--allowed-events",
+        nargs="+",
+        metavar="K",
+        default=None,
+        help="event counts of the 'k events allowed' table (default 0 1 2 3)",
+    )
+    add(
+        "--drives",
+        metavar="DIR",
+        help="folder of recorded drives (GPX) to map-match and split by exposure (needs --network)",
+    )
     add("--network", metavar="DIR", help="network folder for --drives")
-    add("--segments", metavar="FILE.geojson",
-        help="scored segments (routerisk score --out) to split the evidence by exposure")
+    add(
+        "--segments",
+        metavar="FILE.geojson",
+        help="scored segments (routerisk score --out) to split the evidence by exposure",
+    )
     add("--chart", metavar="FILE.png", help="write a chart of the upper limit against distance")
     add("--force", action="store_true", help="replace an existing --chart")
     add("--json", action="store_true", help="print JSON instead of sentences")
@@ -99,7 +121,8 @@ def run(args: argparse.Namespace) -> int:
         events=_number(args.events, "--events"),  # type: ignore[arg-type]
         allowed_events=tuple(  # type: ignore[arg-type]
             _numbers(args.allowed_events, "--allowed-events")
-            if args.allowed_events is not None else (0, 1, 2, 3)
+            if args.allowed_events is not None
+            else (0, 1, 2, 3)
         ),
     )
     plan = evidence.plan_evidence(inputs)
@@ -124,8 +147,10 @@ def run(args: argparse.Namespace) -> int:
         )
         plan = plan.with_exposure(exposure)
     made_from = provenance(
-        profile=net.profile.fingerprint if net is not None else None, network=net,
-        inputs={"drives": args.drives, "segments": args.segments})
+        profile=net.profile.fingerprint if net is not None else None,
+        network=net,
+        inputs={"drives": args.drives, "segments": args.segments},
+    )
     if args.chart is not None:
         evidence.plot_upper_limit(plan, args.chart, force=args.force, made_from=made_from)
     for warning in plan.warnings:

@@ -36,61 +36,103 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.epilog = _EPILOG
     add = parser.add_argument
     add("area", metavar="AREA", help="GeoJSON or GeoPackage of the area polygons")
-    add("--network", required=True, metavar="DIR",
-        help="network folder written by 'routerisk build'")
-    add("--profile", metavar="FILE",
-        help="profile (YAML or TOML) to re-tag the network with (default: the network's own)")
+    add(
+        "--network",
+        required=True,
+        metavar="DIR",
+        help="network folder written by 'routerisk build'",
+    )
+    add(
+        "--profile",
+        metavar="FILE",
+        help="profile (YAML or TOML) to re-tag the network with (default: the network's own)",
+    )
     add("--json", action="store_true", help="print the figures as JSON")
     add("--report", metavar="FILE.html", help="write the self-contained HTML report")
     add("--out", metavar="DIR", help="write areas.csv, areas.json and report.html to DIR")
     add("--force", action="store_true", help="replace existing outputs")
-    add("--what-if", dest="what_if", action="append", nargs="+", metavar="SPEC",
+    add(
+        "--what-if",
+        dest="what_if",
+        action="append",
+        nargs="+",
+        metavar="SPEC",
         help="a scenario of one or more SPECs (rule:<name>=off|on, weight:<category>=<n>); "
-             "repeat for several scenarios")
-    add("--at", metavar="'DAY HH:MM'",
-        help="also report the connectivity at this time of the week, e.g. 'wed 08:15'")
+        "repeat for several scenarios",
+    )
+    add(
+        "--at",
+        metavar="'DAY HH:MM'",
+        help="also report the connectivity at this time of the week, e.g. 'wed 08:15'",
+    )
     add("--top", type=int, default=10, metavar="N", help="hot spots per area (default 10)")
-    add("--high-from", dest="high_from", metavar="BAND",
-        help="lowest band counted as high for clusters (default: upper half of the bands)")
+    add(
+        "--high-from",
+        dest="high_from",
+        metavar="BAND",
+        help="lowest band counted as high for clusters (default: upper half of the bands)",
+    )
     add_map_options(parser)
     add_cluster(parser, "clip the areas (and re-tag for --profile and weight what-ifs)")
-    add("--uncertainty", type=int, metavar="N",
-        help="also draw the weights N times: 90 %% interval of the km in each band")
-    add("--seed", type=int, metavar="S",
-        help="seed of the --uncertainty draws (default 1; recorded)")
+    add(
+        "--uncertainty",
+        type=int,
+        metavar="N",
+        help="also draw the weights N times: 90 %% interval of the km in each band",
+    )
+    add(
+        "--seed",
+        type=int,
+        metavar="S",
+        help="seed of the --uncertainty draws (default 1; recorded)",
+    )
 
 
 def _text(doc: dict[str, Any]) -> list[str]:
     lines = []
     for a in doc["areas"]:
-        lines.append(f"area {a['name']!r}: {a['network_km']:.3f} km of directed edges "
-                     f"({a['centreline_km']:.3f} km of street centreline)")
+        lines.append(
+            f"area {a['name']!r}: {a['network_km']:.3f} km of directed edges "
+            f"({a['centreline_km']:.3f} km of street centreline)"
+        )
         bands = ", ".join(f"{k} {v:.3f}" for k, v in a["km_by_band"].items())
         lines.append(f"  km by band: {bands}")
-        infl = ", ".join(f"{k} {v:.3f} ({a['share_in_influence'][k]:.0%})"
-                         for k, v in a["km_in_influence"].items() if v > 0)
+        infl = ", ".join(
+            f"{k} {v:.3f} ({a['share_in_influence'][k]:.0%})"
+            for k, v in a["km_in_influence"].items()
+            if v > 0
+        )
         lines.append(f"  km in influence: {infl or 'none'}")
         pk = a["closed_peak"]
-        lines.append(f"  closed by the hard rules: at most {pk['km']:.3f} km ({pk['label']}); "
-                     f"{a['closed_km_hours']:.3f} km-hours a week")
+        lines.append(
+            f"  closed by the hard rules: at most {pk['km']:.3f} km ({pk['label']}); "
+            f"{a['closed_km_hours']:.3f} km-hours a week"
+        )
         c = a["connectivity"]["peak"]
         big = c["parts"][0] if c["parts"] else None
-        lines.append(f"  open network at {c['label']}: {c['parts_count']} strongly connected "
-                     "part(s)" + (f", largest {big['km']:.3f} km / {big['nodes']} nodes"
-                                  if big else ""))
+        lines.append(
+            f"  open network at {c['label']}: {c['parts_count']} strongly connected "
+            "part(s)" + (f", largest {big['km']:.3f} km / {big['nodes']} nodes" if big else "")
+        )
         if "at" in a["connectivity"]:
             c = a["connectivity"]["at"]
-            lines.append(f"  open network at {c['label']}: {c['parts_count']} part(s), "
-                         f"{c['closed_km']:.3f} km closed")
+            lines.append(
+                f"  open network at {c['label']}: {c['parts_count']} part(s), "
+                f"{c['closed_km']:.3f} km closed"
+            )
         if a["hotspots"]:
             h = a["hotspots"][0]
-            lines.append(f"  top hot spot: {h['street'] or '(unnamed)'} ({h['band']}, "
-                         f"exposure {h['exposure']:.3f})")
+            lines.append(
+                f"  top hot spot: {h['street'] or '(unnamed)'} ({h['band']}, "
+                f"exposure {h['exposure']:.3f})"
+            )
     for s in doc["what_if"]:
         for x in s["areas"]:
-            lines.append(f"what-if {s['label']!r}, area {x['name']!r}: closed km-hours "
-                         f"{x['closed_km_hours']:.3f} ({x['closed_km_hours_change']:+.3f}), "
-                         f"exposure {x['exposure']:.3f} ({x['exposure_change']:+.3f})")
+            lines.append(
+                f"what-if {s['label']!r}, area {x['name']!r}: closed km-hours "
+                f"{x['closed_km_hours']:.3f} ({x['closed_km_hours_change']:+.3f}), "
+                f"exposure {x['exposure']:.3f} ({x['exposure_change']:+.3f})"
+            )
     return lines
 
 
@@ -129,14 +171,29 @@ def run(args: argparse.Namespace) -> int:
         high = review.high_bands_from(net.profile, args.high_from) if args.high_from else None
         what_ifs = [review.parse_what_if(specs, net.profile) for specs in (args.what_if or [])]
         areas = review.read_areas(args.area, crs=net.crs)
-        result = review.review_areas(net, areas, at=at, what_ifs=what_ifs, top=args.top,
-                                     high_bands=high, clipper=clipper, tagger=tagger)
+        result = review.review_areas(
+            net,
+            areas,
+            at=at,
+            what_ifs=what_ifs,
+            top=args.top,
+            high_bands=high,
+            clipper=clipper,
+            tagger=tagger,
+        )
     unc = None
     if args.uncertainty is not None:
-        unc = uncertainty.area_bands(result, args.uncertainty, uncertainty.DEFAULT_SEED
-                                     if args.seed is None else args.seed)
-    written = review.write_review(result, out=args.out, report_path=args.report,
-                                  force=args.force, tiles=map_tiles, bands=args.bands)
+        unc = uncertainty.area_bands(
+            result, args.uncertainty, uncertainty.DEFAULT_SEED if args.seed is None else args.seed
+        )
+    written = review.write_review(
+        result,
+        out=args.out,
+        report_path=args.report,
+        force=args.force,
+        tiles=map_tiles,
+        bands=args.bands,
+    )
     doc = result.to_json()
     if unc is not None:
         doc["uncertainty"] = unc
@@ -146,11 +203,17 @@ def run(args: argparse.Namespace) -> int:
         for line in _text(doc):
             print(line)
         if unc is not None:
-            print(f"weight draws: {unc['draws']} (seed {unc['seed']}) of "
-                  f"{', '.join(unc['weights_varied'])}")
+            print(
+                f"weight draws: {unc['draws']} (seed {unc['seed']}) of "
+                f"{', '.join(unc['weights_varied'])}"
+            )
             for a in unc["areas"]:
-                print(f"  area {a['name']!r}, km by band (90 % interval): " + ", ".join(
-                    f"{k} {v['low']:.2f} - {v['high']:.2f}" for k, v in a["km_by_band"].items()))
+                print(
+                    f"  area {a['name']!r}, km by band (90 % interval): "
+                    + ", ".join(
+                        f"{k} {v['low']:.2f} - {v['high']:.2f}" for k, v in a["km_by_band"].items()
+                    )
+                )
         for path in written:
             print(f"wrote {path}")
         print(CAUTION)

@@ -12,35 +12,65 @@ from ..errors import OptionError
 from ._common import add_map_options, add_network, network_of, tiles_of
 
 #: the text table's headings (short, so a row fits a terminal; meanings printed below)
-SHORT_HEADINGS = ["rank", "route", "departs", "km", "min", "risk", "risk/km", "rel. index",
-                  "rule breaks"]
+SHORT_HEADINGS = [
+    "rank",
+    "route",
+    "departs",
+    "km",
+    "min",
+    "risk",
+    "risk/km",
+    "rel. index",
+    "rule breaks",
+]
 #: what the text table's figures mean, printed under it
-RISK_WORDS = ("risk: pedestrian exposure weighted by the chance a struck pedestrian dies at "
-              "the street's speed, summed along the route (points, comparable only under the "
-              "same profile); rank 1 = lowest total risk.")
+RISK_WORDS = (
+    "risk: pedestrian exposure weighted by the chance a struck pedestrian dies at "
+    "the street's speed, summed along the route (points, comparable only under the "
+    "same profile); rank 1 = lowest total risk."
+)
 
 HELP = "score planned routes or recorded drives (GeoJSON, GPX, CSV) at departure times"
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     """Add the options of ``score``."""
-    parser.add_argument("routes", type=Path, metavar="ROUTES",
-                        help="route file: GeoJSON lines, GPX tracks/routes or CSV waypoints")
+    parser.add_argument(
+        "routes",
+        type=Path,
+        metavar="ROUTES",
+        help="route file: GeoJSON lines, GPX tracks/routes or CSV waypoints",
+    )
     add_network(parser)
-    parser.add_argument("--depart", action="append", metavar="DATETIME",
-                        help="departure, ISO 8601 (no offset = the area's local time); "
-                             "repeat to compare times")
+    parser.add_argument(
+        "--depart",
+        action="append",
+        metavar="DATETIME",
+        help="departure, ISO 8601 (no offset = the area's local time); repeat to compare times",
+    )
     parser.add_argument("--json", action="store_true", help="print the scores as JSON")
-    parser.add_argument("--out", type=Path, metavar="DIR",
-                        help="write routes.csv, segments.geojson and map.html here")
+    parser.add_argument(
+        "--out",
+        type=Path,
+        metavar="DIR",
+        help="write routes.csv, segments.geojson and map.html here",
+    )
     parser.add_argument("--force", action="store_true", help="replace an existing --out")
     add_map_options(parser)
-    parser.add_argument("--uncertainty", type=int, metavar="N",
-                        help="also draw the weights N times (from the profile's uncertainty "
-                             "block or weight ranges): median and 90 %% interval per route, "
-                             "pairwise probability of lower risk, Sobol indices")
-    parser.add_argument("--seed", type=int, metavar="S",
-                        help="seed of the --uncertainty draws (default 1; recorded)")
+    parser.add_argument(
+        "--uncertainty",
+        type=int,
+        metavar="N",
+        help="also draw the weights N times (from the profile's uncertainty "
+        "block or weight ranges): median and 90 %% interval per route, "
+        "pairwise probability of lower risk, Sobol indices",
+    )
+    parser.add_argument(
+        "--seed",
+        type=int,
+        metavar="S",
+        help="seed of the --uncertainty draws (default 1; recorded)",
+    )
 
 
 def run(args: argparse.Namespace) -> int:
@@ -66,20 +96,31 @@ def run(args: argparse.Namespace) -> int:
     unc = None
     if args.uncertainty is not None:
         seed = uncertainty.DEFAULT_SEED if args.seed is None else args.seed
-        unc = uncertainty.summarise(net, scores, args.uncertainty, seed,
-                                    same_depart_only=bool(departs))
+        unc = uncertainty.summarise(
+            net, scores, args.uncertainty, seed, same_depart_only=bool(departs)
+        )
     if args.out:
         from ..routemap import write_outputs
 
-        write_outputs(net, scores, args.out, force=args.force, tiles=tiles,
-                      bands=args.bands,
-                               inputs={"routes": args.routes})
+        write_outputs(
+            net,
+            scores,
+            args.out,
+            force=args.force,
+            tiles=tiles,
+            bands=args.bands,
+            inputs={"routes": args.routes},
+        )
     if args.json:
-        doc = {"routes": [s.to_dict() for s in scores], "profile": net.profile.fingerprint,
-               "model": scoring.model_note(net.profile),
-               "relative_index_note": scoring.RELATIVE_INDEX_NOTE,
-               "made_from": provenance(profile=net.profile.fingerprint, network=net,
-                                       inputs={"routes": args.routes})}
+        doc = {
+            "routes": [s.to_dict() for s in scores],
+            "profile": net.profile.fingerprint,
+            "model": scoring.model_note(net.profile),
+            "relative_index_note": scoring.RELATIVE_INDEX_NOTE,
+            "made_from": provenance(
+                profile=net.profile.fingerprint, network=net, inputs={"routes": args.routes}
+            ),
+        }
         if unc is not None:
             doc["uncertainty"] = unc
             doc["made_from"]["uncertainty_seed"] = unc["seed"]
@@ -89,8 +130,17 @@ def run(args: argparse.Namespace) -> int:
         from ..routemap import ranking_table
 
         table = ranking_table(scores)
-        cols = ["rank", "name", "depart", "length_km", "duration_min", "risk", "risk_per_km",
-                "relative_index", "rule_breaks"]
+        cols = [
+            "rank",
+            "name",
+            "depart",
+            "length_km",
+            "duration_min",
+            "risk",
+            "risk_per_km",
+            "relative_index",
+            "rule_breaks",
+        ]
         shown = table[cols].copy()
         shown["depart"] = [words.when(t) for t in shown["depart"]]
         shown.columns = SHORT_HEADINGS
@@ -100,8 +150,10 @@ def run(args: argparse.Namespace) -> int:
         for s in scores:
             for b in s.rule_breaks:
                 where = blocks.label(*b["edge"]) if blocks else b["street"]
-                print(f"rule broken: {s.name}: {b['rule']} on {where or 'unnamed street'}"
-                      f" at {words.when(b['time'])}")
+                print(
+                    f"rule broken: {s.name}: {b['rule']} on {where or 'unnamed street'}"
+                    f" at {words.when(b['time'])}"
+                )
         if unc is not None:
             print("\n".join(uncertainty.text_lines(unc)))
         if args.out:

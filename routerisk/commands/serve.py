@@ -12,24 +12,52 @@ HELP = "open a local planning page: score, alternatives, area review, day plan, 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     """Add the options of ``serve``."""
-    parser.add_argument("--network", type=Path, metavar="DIR",
-                        help="network folder written by 'routerisk build'")
-    parser.add_argument("--demo", action="store_true",
-                        help="serve the bundled sample town (built in memory) instead")
-    parser.add_argument("--profile", type=Path, metavar="FILE",
-                        help="profile to score with (default: the one the network was built with)")
-    parser.add_argument("--overlay", type=Path, metavar="FILE",
-                        help="overlay from 'routerisk watch' (extra weight or closures)")
-    parser.add_argument("--host", default="127.0.0.1",
-                        help="address to listen on (default 127.0.0.1, this machine only)")
+    parser.add_argument(
+        "--network", type=Path, metavar="DIR", help="network folder written by 'routerisk build'"
+    )
+    parser.add_argument(
+        "--demo",
+        action="store_true",
+        help="serve the bundled sample town (built in memory) instead",
+    )
+    parser.add_argument(
+        "--profile",
+        type=Path,
+        metavar="FILE",
+        help="profile to score with (default: the one the network was built with)",
+    )
+    parser.add_argument(
+        "--overlay",
+        type=Path,
+        metavar="FILE",
+        help="overlay from 'routerisk watch' (extra weight or closures)",
+    )
+    parser.add_argument(
+        "--host",
+        default="127.0.0.1",
+        help="address to listen on (default 127.0.0.1, this machine only)",
+    )
     parser.add_argument("--port", type=int, default=8765, help="port (default 8765)")
-    parser.add_argument("--token", metavar="VALUE",
-                        help="secret every request must carry; needed with a non-loopback --host")
+    parser.add_argument(
+        "--token",
+        metavar="VALUE",
+        help="secret every request must carry; needed with a non-loopback --host",
+    )
     parser.add_argument("--open", action="store_true", help="open the page in the browser")
-    parser.add_argument("--max-upload-mb", type=float, default=5.0, metavar="MB",
-                        help="largest request or uploaded file (default 5 MB)")
-    parser.add_argument("--workers", type=int, default=4, metavar="N",
-                        help="requests computed at once; others wait (default 4)")
+    parser.add_argument(
+        "--max-upload-mb",
+        type=float,
+        default=5.0,
+        metavar="MB",
+        help="largest request or uploaded file (default 5 MB)",
+    )
+    parser.add_argument(
+        "--workers",
+        type=int,
+        default=4,
+        metavar="N",
+        help="requests computed at once; others wait (default 4)",
+    )
 
 
 def run(args: argparse.Namespace) -> int:
@@ -37,8 +65,11 @@ def run(args: argparse.Namespace) -> int:
     from ..serve.app import is_loopback
 
     if not is_loopback(args.host) and not args.token:
-        raise OptionError(f"{args.host!r} is not a loopback address; listening there needs "
-                          "--token VALUE, which every request must then carry", field="--host")
+        raise OptionError(
+            f"{args.host!r} is not a loopback address; listening there needs "
+            "--token VALUE, which every request must then carry",
+            field="--host",
+        )
     if args.token is not None and len(args.token) < 8:
         raise OptionError("must be at least 8 characters", field="--token")
     if not 0 < args.port < 65536:
@@ -62,8 +93,11 @@ def run(args: argparse.Namespace) -> int:
         from ..network import build_network
         from ..profile import load_profile
 
-        net = build_network(datasets.get_path("town"), timezone=TOWN_TIMEZONE,
-                            profile=load_profile(args.profile) if args.profile else None)
+        net = build_network(
+            datasets.get_path("town"),
+            timezone=TOWN_TIMEZONE,
+            profile=load_profile(args.profile) if args.profile else None,
+        )
         if args.overlay:
             from ..overlay import apply_overlay
 
@@ -71,8 +105,13 @@ def run(args: argparse.Namespace) -> int:
     else:
         net = network_of(args)
     loopback = is_loopback(args.host)
-    app = create_app(net, token=args.token, loopback=loopback,
-                     max_upload=int(args.max_upload_mb * 1024 * 1024), workers=args.workers)
+    app = create_app(
+        net,
+        token=args.token,
+        loopback=loopback,
+        max_upload=int(args.max_upload_mb * 1024 * 1024),
+        workers=args.workers,
+    )
     host = f"[{args.host}]" if ":" in args.host else args.host
     url = f"http://{host}:{args.port}/" + (f"?token={args.token}" if args.token else "")
     print(f"routerisk serve: {url} (Ctrl-C stops it)", flush=True)

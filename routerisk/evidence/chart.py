@@ -34,8 +34,13 @@ def _upper_curve(plan: EvidencePlan, distances: np.ndarray) -> np.ndarray:
     return np.asarray(count0 / distances * plan.inputs.per)
 
 
-def plot_upper_limit(plan: EvidencePlan, path: str | Path, *, force: bool = True,
-                     made_from: dict[str, Any] | None = None) -> Path:
+def plot_upper_limit(
+    plan: EvidencePlan,
+    path: str | Path,
+    *,
+    force: bool = True,
+    made_from: dict[str, Any] | None = None,
+) -> Path:
     """Draw the zero-event upper limit of the rate against distance, with the target line.
 
     Uses matplotlib's Agg canvas directly (no pyplot, no global backend change) and writes
@@ -72,17 +77,37 @@ def plot_upper_limit(plan: EvidencePlan, path: str | Path, *, force: bool = True
     fig = Figure(figsize=(8.0, 5.2), dpi=100)
     FigureCanvasAgg(fig)
     ax = fig.add_subplot(1, 1, 1)
-    ax.loglog(xs, _upper_curve(plan, xs), color="#1f5f8b", lw=2,
-              label=f"upper limit of the rate with no event ({inp.confidence:.0%} confidence)")
-    ax.axhline(plan.target_rate, color="#b5462c", lw=1.5, ls="--",
-               label=f"target: {plan.target_rate:.3g} per {_human(inp.per)} {unit}")
+    ax.loglog(
+        xs,
+        _upper_curve(plan, xs),
+        color="#1f5f8b",
+        lw=2,
+        label=f"upper limit of the rate with no event ({inp.confidence:.0%} confidence)",
+    )
+    ax.axhline(
+        plan.target_rate,
+        color="#b5462c",
+        lw=1.5,
+        ls="--",
+        label=f"target: {plan.target_rate:.3g} per {_human(inp.per)} {unit}",
+    )
     ax.axvline(n0, color="#777777", lw=1, ls=":")
     ax.plot([n0], [plan.target_rate], "o", color="#b5462c")
-    ax.annotate(f"{_human(n0)} {unit}", (n0, plan.target_rate), textcoords="offset points",
-                xytext=(8, 8), fontsize=9)
+    ax.annotate(
+        f"{_human(n0)} {unit}",
+        (n0, plan.target_rate),
+        textcoords="offset points",
+        xytext=(8, 8),
+        fontsize=9,
+    )
     if inp.observed and plan.upper_rate is not None:
-        ax.plot([inp.observed], [plan.upper_rate], "s", color="#2b7a3d",
-                label=f"driven so far: {_human(inp.observed)} {unit}, {inp.events} events")
+        ax.plot(
+            [inp.observed],
+            [plan.upper_rate],
+            "s",
+            color="#2b7a3d",
+            label=f"driven so far: {_human(inp.observed)} {unit}, {inp.events} events",
+        )
     ax.set_xlabel(f"distance driven ({unit})")
     ax.set_ylabel(f"events per {_human(inp.per)} {unit}")
     ax.set_title("How far to drive with no event to show a rate below the target")

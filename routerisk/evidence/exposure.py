@@ -140,14 +140,30 @@ def distance_by_exposure(
                 f"segment {row} has a share {infl.iloc[row]:g} outside 0..1", column, path
             )
         driven = float((dist * infl.clip(0.0, 1.0)).sum())
-        rows.append({"category": column[len("infl_"):], "driven": driven,
-                     "share": share(driven), "still_needed": max(needed - driven, 0.0)})
+        rows.append(
+            {
+                "category": column[len("infl_") :],
+                "driven": driven,
+                "share": share(driven),
+                "still_needed": max(needed - driven, 0.0),
+            }
+        )
     by_category = pd.DataFrame(rows, columns=["category", "driven", "share", "still_needed"])
-    logger.info("distance_by_exposure: %d segments, %.4g %s in %d bands and %d categories",
-                len(segments), total, units, len(by_band), len(by_category))
-    return ExposureEvidence(by_band=by_band[["band", "segments", "driven", "share",
-                                             "still_needed"]],
-                            by_category=by_category, total=total, units=units, needed=needed)
+    logger.info(
+        "distance_by_exposure: %d segments, %.4g %s in %d bands and %d categories",
+        len(segments),
+        total,
+        units,
+        len(by_band),
+        len(by_category),
+    )
+    return ExposureEvidence(
+        by_band=by_band[["band", "segments", "driven", "share", "still_needed"]],
+        by_category=by_category,
+        total=total,
+        units=units,
+        needed=needed,
+    )
 
 
 def read_segments(path: str | Path) -> pd.DataFrame:
@@ -182,8 +198,7 @@ def read_segments(path: str | Path) -> pd.DataFrame:
     for i, feat in enumerate(features):
         props = feat.get("properties") if isinstance(feat, dict) else None
         if not isinstance(props, dict):
-            raise InputFileError(f"feature {i} has no properties", path=source,
-                                 field="properties")
+            raise InputFileError(f"feature {i} has no properties", path=source, field="properties")
         rows.append(props)
     return pd.DataFrame.from_records(rows)
 
@@ -214,8 +229,7 @@ def segments_of_drives(net: Any, drives: list[Any]) -> pd.DataFrame:
 
     if not drives:
         raise InputFileError("no drive given", field="drives")
-    return pd.concat(_drive_segments(net, drives, matching.RoadIndex(net.graph)),
-                     ignore_index=True)
+    return pd.concat(_drive_segments(net, drives, matching.RoadIndex(net.graph)), ignore_index=True)
 
 
 def _drive_segments(net: Any, drives: list[Any], idx: Any) -> list[pd.DataFrame]:
@@ -228,11 +242,13 @@ def _drive_segments(net: Any, drives: list[Any], idx: Any) -> list[pd.DataFrame]
         m = matching.to_edges(idx, r)
         mi = pd.MultiIndex.from_tuples(list(m.edges), names=edges.index.names)
         pos = edges.index.get_indexer(mi)
-        part = pd.DataFrame({
-            "drive": f"{Path(r.source).name}:{r.name}",
-            "length_m": edges["length"].to_numpy()[pos] * np.asarray(m.fractions),
-            "band": edges["band"].to_numpy()[pos],
-        })
+        part = pd.DataFrame(
+            {
+                "drive": f"{Path(r.source).name}:{r.name}",
+                "length_m": edges["length"].to_numpy()[pos] * np.asarray(m.fractions),
+                "band": edges["band"].to_numpy()[pos],
+            }
+        )
         for c in cats:
             part[f"infl_{c}"] = edges[f"infl_{c}"].to_numpy()[pos]
         frames.append(part)

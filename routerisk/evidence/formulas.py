@@ -277,8 +277,9 @@ def distance_power_exact(
     # soundness: any exact test needs at least the zero-event distance at the same level
     floor = distance_zero_events(benchmark, confidence)
     if distance < floor * (1.0 - 1e-12):
-        raise AssertionError(f"exact power distance {distance:g} below the zero-event "
-                             f"distance {floor:g}")
+        raise AssertionError(
+            f"exact power distance {distance:g} below the zero-event distance {floor:g}"
+        )
     return ExactPower(distance=distance, max_events=best, achieved=achieved)
 
 

@@ -129,8 +129,9 @@ class EvidenceInputs:
         for name, option in (("confidence", "--confidence"), ("power", "--power")):
             value = _real(getattr(self, name), option)
             if not 0 < value < 1:
-                raise OptionError(f"must be between 0 and 1 (exclusive), got {value:g}",
-                                  field=option)
+                raise OptionError(
+                    f"must be between 0 and 1 (exclusive), got {value:g}", field=option
+                )
             put(self, name, value)
         improvement = _real(self.improvement, "--improvement")
         if not 0 <= improvement < 1:
@@ -152,11 +153,15 @@ class EvidenceInputs:
             put(self, "observed", observed)
             events = _count(self.events, "--events", limit=math.inf)
             if observed == 0 and events > 0:
-                raise OptionError(f"{events} events in a distance of 0 is impossible; give the "
-                                  "distance driven with --observed", field="--events")
+                raise OptionError(
+                    f"{events} events in a distance of 0 is impossible; give the "
+                    "distance driven with --observed",
+                    field="--events",
+                )
             put(self, "events", events)
-        allowed = [_count(k, "--allowed-events", limit=MAX_ALLOWED_EVENTS)
-                   for k in self.allowed_events]
+        allowed = [
+            _count(k, "--allowed-events", limit=MAX_ALLOWED_EVENTS) for k in self.allowed_events
+        ]
         if not allowed:
             raise OptionError("needs at least one event count", field="--allowed-events")
         put(self, "allowed_events", tuple(sorted(set(allowed))))
@@ -261,8 +266,9 @@ class EvidencePlan:
         """Return a copy carrying the exposure-stratified tables as lists of records."""
         by_band = _records(exposure.by_band)
         by_category = _records(exposure.by_category)
-        strata = _adjust_strata(by_band + by_category, self.inputs.target_per_unit,
-                                self.inputs.confidence)
+        strata = _adjust_strata(
+            by_band + by_category, self.inputs.target_per_unit, self.inputs.confidence
+        )
         return replace(self, by_band=by_band, by_category=by_category, strata=strata)
 
 
@@ -284,9 +290,13 @@ def _adjust_strata(rows: list[dict[str, Any]], target: float, confidence: float)
         row = rows[i]
         driven = float(row["driven"])
         holm = distance_zero_events(target, 1.0 - alpha / (m - rank))
-        row.update(needed=needed, needed_bonferroni=bonf, needed_holm=holm,
-                   still_needed_bonferroni=max(bonf - driven, 0.0),
-                   still_needed_holm=max(holm - driven, 0.0))
+        row.update(
+            needed=needed,
+            needed_bonferroni=bonf,
+            needed_holm=holm,
+            still_needed_bonferroni=max(bonf - driven, 0.0),
+            still_needed_holm=max(holm - driven, 0.0),
+        )
     return m
 
 
@@ -327,15 +337,19 @@ def plan_evidence(inputs: EvidenceInputs) -> EvidencePlan:
     exact_events: int | None = None
     note = None
     if inputs.improvement == 0:
-        note = ("with no improvement the target equals the benchmark, so no amount of "
-                "driving gives power to show an improvement; power figures are not defined")
+        note = (
+            "with no improvement the target equals the benchmark, so no amount of "
+            "driving gives power to show an improvement; power figures are not defined"
+        )
     else:
         normal_n = distance_power_normal(lam0, lam1, c, inputs.power)
         normal_years = normal_n / per_year
         exact = distance_power_exact(lam0, lam1, c, inputs.power)
         if exact is None:
-            note = ("the improvement is too small for the exact power search; only the normal "
-                    "approximation is given")
+            note = (
+                "the improvement is too small for the exact power search; only the normal "
+                "approximation is given"
+            )
         else:
             exact_n, exact_events, exact_achieved = exact.distance, exact.max_events, exact.achieved
             exact_years = exact_n / per_year
@@ -347,7 +361,8 @@ def plan_evidence(inputs: EvidenceInputs) -> EvidencePlan:
                     f"{inputs.units}) is {_pct(abs(gap))} {'above' if gap > 0 else 'below'} "
                     f"the exact Poisson figure ({exact_n:.4g} {inputs.units}, "
                     f"{max(normal_n, exact_n) / min(normal_n, exact_n):.3g} times the other); "
-                    "use the exact figure")
+                    "use the exact figure"
+                )
 
     upper = shown = upper_note = None
     if inputs.observed is not None and inputs.events is not None:
@@ -362,7 +377,8 @@ def plan_evidence(inputs: EvidenceInputs) -> EvidencePlan:
                     f"the {expected:.3g} the benchmark predicts (probability "
                     f"{f'{surprise:.2g}' if surprise > 0 else 'below 1e-300'} of "
                     "at least that many at the benchmark rate); check --events, --observed, "
-                    "--benchmark and --per")
+                    "--benchmark and --per"
+                )
         if math.isfinite(limit):
             upper = limit * inputs.per
         else:
@@ -392,6 +408,11 @@ def plan_evidence(inputs: EvidenceInputs) -> EvidencePlan:
     )
     logger.info(
         "plan_evidence: target %.4g per %g %s, %.4g %s with no event (%.3g years)",
-        plan.target_rate, inputs.per, inputs.units, n0, inputs.units, plan.years_no_failure,
+        plan.target_rate,
+        inputs.per,
+        inputs.units,
+        n0,
+        inputs.units,
+        plan.years_no_failure,
     )
     return plan

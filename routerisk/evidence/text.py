@@ -76,18 +76,24 @@ def describe(plan: EvidencePlan) -> list[str]:
     u = inp.units
     per = f"{_human(inp.per)} {u}"
     conf = _pct(inp.confidence)
-    fleet = (f"{inp.fleet:g} vehicles driving {inp.hours_per_day:g} h a day at "
-             f"{inp.speed:g} {u}/h, {DAYS_PER_YEAR} days a year "
-             f"({_human(plan.fleet_miles_per_year)} {u} a year)")
-    better = (f"which is {_pct(inp.improvement)} better than" if inp.improvement > 0
-              else "the same as")
+    fleet = (
+        f"{inp.fleet:g} vehicles driving {inp.hours_per_day:g} h a day at "
+        f"{inp.speed:g} {u}/h, {DAYS_PER_YEAR} days a year "
+        f"({_human(plan.fleet_miles_per_year)} {u} a year)"
+    )
+    better = (
+        f"which is {_pct(inp.improvement)} better than" if inp.improvement > 0 else "the same as"
+    )
     lines = [
         f"Target: fewer than {plan.target_rate:.4g} events per {per}, {better} the benchmark "
         f"of {inp.benchmark:.4g} per {per}.",
         f"With no event at all, the fleet must drive {_human(plan.miles_no_failure)} {u} to be "
         f"{conf} sure that its rate is below the target"
-        + (f" (the binomial form gives {_human(plan.miles_no_failure_binomial)} {u})."
-           if plan.miles_no_failure_binomial is not None else "."),
+        + (
+            f" (the binomial form gives {_human(plan.miles_no_failure_binomial)} {u})."
+            if plan.miles_no_failure_binomial is not None
+            else "."
+        ),
         f"That takes {_years(plan.years_no_failure)} years for {fleet}.",
     ]
     for row in plan.allowed_events:
@@ -98,15 +104,21 @@ def describe(plan: EvidencePlan) -> list[str]:
             ", the "
             f"distance grows to {_human(row['miles'])} {u} ({_years(row['years'])} years)."
         )
-    if (plan.miles_power is not None and plan.years_power is not None
-            and plan.events_power_exact is not None):
+    if (
+        plan.miles_power is not None
+        and plan.years_power is not None
+        and plan.events_power_exact is not None
+    ):
         lines.append(
             f"To have a probability of {_pct(inp.power)} of showing, at {conf} confidence, that "
             f"the fleet beats the benchmark when it truly is {_pct(inp.improvement)} better, it "
             f"must drive {_human(plan.miles_power)} {u} ({_years(plan.years_power)} years; exact "
             "Poisson test), and the claim then holds if "
-            + (f"no more than {plan.events_power_exact} events happen"
-               if plan.events_power_exact else "no event happens")
+            + (
+                f"no more than {plan.events_power_exact} events happen"
+                if plan.events_power_exact
+                else "no event happens"
+            )
             + " in that distance."
         )
     if plan.miles_power_normal_approx is not None and plan.years_power_normal_approx is not None:
@@ -119,8 +131,11 @@ def describe(plan: EvidencePlan) -> list[str]:
         lines.append(f"Power figures: {plan.power_note}.")
     if inp.observed is not None:
         if plan.upper_rate is not None:
-            verdict = ("is below the target, so the claim is shown" if plan.shown else
-                       "is not below the target, so the claim is not shown yet")
+            verdict = (
+                "is below the target, so the claim is shown"
+                if plan.shown
+                else "is not below the target, so the claim is not shown yet"
+            )
             lines.append(
                 f"After {_human(inp.observed)} {u} with {inp.events} events, the rate is, "
                 f"with {conf} confidence, at most {plan.upper_rate:.4g} per {per}; that "
@@ -128,11 +143,14 @@ def describe(plan: EvidencePlan) -> list[str]:
             )
         else:
             lines.append(f"Driven so far: {plan.upper_rate_note}; the claim is not shown.")
+
     def still(row: dict[str, Any]) -> str:
         text = f"still needed {_human(row['still_needed'])} {u}"
         if "still_needed_bonferroni" in row:
-            text += (f" (Bonferroni {_human(row['still_needed_bonferroni'])}, "
-                     f"Holm {_human(row['still_needed_holm'])})")
+            text += (
+                f" (Bonferroni {_human(row['still_needed_bonferroni'])}, "
+                f"Holm {_human(row['still_needed_holm'])})"
+            )
         return text + "."
 
     if plan.by_band is not None:
@@ -140,11 +158,14 @@ def describe(plan: EvidencePlan) -> list[str]:
         lines.append(
             f"Every exposure band and every category must reach the figure separately: each "
             f"needs {_human(plan.miles_no_failure)} {u} with no event of its own"
-            + (f"; to state all {m} results at once with {conf} familywise confidence, "
-               f"Bonferroni asks "
-               f"{_human(plan.by_band[0]['needed_bonferroni'])} {u} of each and Holm between "
-               f"that and {_human(plan.miles_no_failure)} {u} (most driven stratum first)."
-               if m and plan.by_band and "needed_bonferroni" in plan.by_band[0] else ".")
+            + (
+                f"; to state all {m} results at once with {conf} familywise confidence, "
+                f"Bonferroni asks "
+                f"{_human(plan.by_band[0]['needed_bonferroni'])} {u} of each and Holm between "
+                f"that and {_human(plan.miles_no_failure)} {u} (most driven stratum first)."
+                if m and plan.by_band and "needed_bonferroni" in plan.by_band[0]
+                else "."
+            )
         )
         for row in plan.by_band:
             lines.append(

@@ -51,8 +51,12 @@ def is_dense_trace(
     if _median_spacing_m(route) < spacing_m:
         return True
     if route.times is not None:
-        steps = np.array([(b - a).total_seconds()
-                          for a, b in zip(route.times[:-1], route.times[1:], strict=True)])
+        steps = np.array(
+            [
+                (b - a).total_seconds()
+                for a, b in zip(route.times[:-1], route.times[1:], strict=True)
+            ]
+        )
         med = float(np.median(steps))
         if 0.0 < med <= interval_s:
             return True
@@ -73,8 +77,14 @@ def to_edges(
     The choice follows :func:`is_dense_trace`: :func:`match_trace` for traces (median spacing
     below 60 m, or time steps of at most 10 s), :func:`join_waypoints` otherwise.
     """
-    return to_edges_many(index, [route], max_snap_m=max_snap_m, sigma_z=sigma_z, beta=beta,
-                         search_radius_m=search_radius_m)[0]
+    return to_edges_many(
+        index,
+        [route],
+        max_snap_m=max_snap_m,
+        sigma_z=sigma_z,
+        beta=beta,
+        search_radius_m=search_radius_m,
+    )[0]
 
 
 def to_edges_many(
@@ -90,7 +100,10 @@ def to_edges_many(
     dense = [is_dense_trace(r) for r in routes]
     traces = [r for r, d in zip(routes, dense, strict=True) if d]
     plans = [r for r, d in zip(routes, dense, strict=True) if not d]
-    matched = iter(match_many(index, traces, sigma_z=sigma_z, beta=beta,
-                              search_radius_m=search_radius_m) if traces else [])
+    matched = iter(
+        match_many(index, traces, sigma_z=sigma_z, beta=beta, search_radius_m=search_radius_m)
+        if traces
+        else []
+    )
     joined = iter(join_many(index, plans, max_snap_m=max_snap_m) if plans else [])
     return [next(matched) if d else next(joined) for d in dense]

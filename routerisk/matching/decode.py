@@ -51,8 +51,9 @@ class _Layers:
         return len(self.point)
 
 
-def _layers(n_points: int, point: np.ndarray, edge: np.ndarray, dist: np.ndarray,
-            frac: np.ndarray) -> _Layers:
+def _layers(
+    n_points: int, point: np.ndarray, edge: np.ndarray, dist: np.ndarray, frac: np.ndarray
+) -> _Layers:
     """Make layers 0..T-1 of the points that have candidates (``point`` grouped ascending)."""
     count_all = np.bincount(point, minlength=n_points)
     have = count_all > 0
@@ -164,9 +165,10 @@ def _pair_costs(
         by = np.argsort(cand_blk, kind="stable")
         cuts = np.searchsorted(cand_blk[by], np.arange(int(cand_blk.max()) + 2))
         for k in range(len(cuts) - 1):
-            mine = sel[by[cuts[k]:cuts[k + 1]]]
-            res = index.distances(weight, nodes[order[k * per_block:(k + 1) * per_block]],
-                                  float(_LIMIT_STEPS[step]))
+            mine = sel[by[cuts[k] : cuts[k + 1]]]
+            res = index.distances(
+                weight, nodes[order[k * per_block : (k + 1) * per_block]], float(_LIMIT_STEPS[step])
+            )
             cand_block[mine] = len(results)
             cand_row[mine] = res.rows(leave[mine])
             results.append(res)
@@ -232,8 +234,11 @@ def _viterbi(
         heads = np.flatnonzero(seg[lay.cand_layer])
         indptr = np.concatenate([indptr_c, [len(prs.a) + len(heads)]]).astype(itype)
         mat = sp.csr_matrix(
-            (np.concatenate([pair_data, em[heads] + _EPS]),
-             np.concatenate([prs.b, heads]).astype(itype), indptr),
+            (
+                np.concatenate([pair_data, em[heads] + _EPS]),
+                np.concatenate([prs.b, heads]).astype(itype),
+                indptr,
+            ),
             shape=(n_c + 1, n_c + 1),
         )
         dist, pred = dijkstra(mat, indices=root, return_predecessors=True)
@@ -407,9 +412,12 @@ def _off_network(
                 field=f"route {route.name!r}",
             )
     i = int(bad[0])
-    d = float(index.nearest_distance(xy[i:i + 1])[0])
-    where = f"{d:,.0f} m from the nearest drivable road" if math.isfinite(d) else \
-        "outside the area the road network's coordinate system covers"
+    d = float(index.nearest_distance(xy[i : i + 1])[0])
+    where = (
+        f"{d:,.0f} m from the nearest drivable road"
+        if math.isfinite(d)
+        else "outside the area the road network's coordinate system covers"
+    )
     lon, lat = route.lonlat[i]
     return RouteInputError(
         f"point (lon {lon:.6f}, lat {lat:.6f}) is {where} (at most {limit_m:g} m allowed)",

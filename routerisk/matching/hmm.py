@@ -70,8 +70,9 @@ def _positive(value: object, name: str) -> float:
     except (TypeError, ValueError):
         v = math.nan
     if not v > 0 or not math.isfinite(v):
-        raise OptionError(f"{name} must be a positive number or 'estimate', got {value!r}",
-                          field=name)
+        raise OptionError(
+            f"{name} must be a positive number or 'estimate', got {value!r}", field=name
+        )
     return v
 
 
@@ -131,8 +132,14 @@ def match_trace(
         Fewer than two fixes, or more than half the fixes, have a road within the search
         radius (latitude and longitude swapped is named as such).
     """
-    return match_many(index, [route], sigma_z=sigma_z, beta=beta,
-                      search_radius_m=search_radius_m, max_detour_m=max_detour_m)[0]
+    return match_many(
+        index,
+        [route],
+        sigma_z=sigma_z,
+        beta=beta,
+        search_radius_m=search_radius_m,
+        max_detour_m=max_detour_m,
+    )[0]
 
 
 def match_many(
@@ -157,8 +164,16 @@ def match_many(
     detour = _positive(max_detour_m, "max_detour_m")
     out: list[MatchedRoute] = []
     for group in _groups(routes):
-        out.extend(_match_group(index, [routes[i] for i in group], sigma_z=sigma_z, beta=beta,
-                                search_radius_m=search_radius_m, detour=detour))
+        out.extend(
+            _match_group(
+                index,
+                [routes[i] for i in group],
+                sigma_z=sigma_z,
+                beta=beta,
+                search_radius_m=search_radius_m,
+                detour=detour,
+            )
+        )
     return out
 
 
@@ -169,11 +184,12 @@ def _estimate_sigmas(
     near = index.nearest_distance(xy)
     out = np.empty(len(routes))
     for r, route in enumerate(routes):
-        d = near[offsets[r]:offsets[r + 1]]
+        d = near[offsets[r] : offsets[r + 1]]
         d = d[np.isfinite(d)]
         if not len(d):
-            raise _off_network(index, route, xy[offsets[r]:offsets[r + 1]],
-                               np.arange(len(route)), 200.0)
+            raise _off_network(
+                index, route, xy[offsets[r] : offsets[r + 1]], np.arange(len(route)), 200.0
+            )
         out[r] = max(0.5, _MAD_TO_SIGMA * float(np.median(d)))
     return out
 
@@ -190,17 +206,31 @@ def _match_group(
     xy, offsets = _stack(index, routes)
     n_r, n_pts = len(routes), len(xy)
     route_of = np.repeat(np.arange(n_r), np.diff(offsets))
-    sigma_r = (_estimate_sigmas(index, routes, xy, offsets) if sigma_z == "estimate"
-               else np.full(n_r, float(sigma_z)))
-    radius_r = (np.maximum(50.0, 6.0 * sigma_r) if search_radius_m is None
-                else np.full(n_r, float(search_radius_m)))
-    keep = np.concatenate([
-        _thin(xy[offsets[r]:offsets[r + 1]], 2.0 * sigma_r[r], routes[r].required)
-        for r in range(n_r)
-    ]) if n_r else np.zeros(0, dtype=bool)
+    sigma_r = (
+        _estimate_sigmas(index, routes, xy, offsets)
+        if sigma_z == "estimate"
+        else np.full(n_r, float(sigma_z))
+    )
+    radius_r = (
+        np.maximum(50.0, 6.0 * sigma_r)
+        if search_radius_m is None
+        else np.full(n_r, float(search_radius_m))
+    )
+    keep = (
+        np.concatenate(
+            [
+                _thin(xy[offsets[r] : offsets[r + 1]], 2.0 * sigma_r[r], routes[r].required)
+                for r in range(n_r)
+            ]
+        )
+        if n_r
+        else np.zeros(0, dtype=bool)
+    )
     kept = np.flatnonzero(keep)
     point, edge, dist, frac = index.candidates(
-        xy[kept], radius_r[route_of[kept]], spread=PRUNE_SIGMAS * sigma_r[route_of[kept]],
+        xy[kept],
+        radius_r[route_of[kept]],
+        spread=PRUNE_SIGMAS * sigma_r[route_of[kept]],
         max_per_point=MAX_CANDIDATE_GEOMETRIES,
     )
     point = kept[point]
@@ -220,14 +250,24 @@ def _match_group(
     prs = _pairs(lay, layer_route)
     gc_t = np.hypot(*np.diff(xy[lay.point], axis=0).T)
     sig_c = sigma_r[layer_route[lay.cand_layer]]
-    rd, routing = _pair_costs(index, lay, prs, weight="length", limit_t=gc_t + detour,
-                              back_tol=_HOLD_SIGMAS * sig_c, at_nodes=False)
+    rd, routing = _pair_costs(
+        index,
+        lay,
+        prs,
+        weight="length",
+        limit_t=gc_t + detour,
+        back_tol=_HOLD_SIGMAS * sig_c,
+        at_nodes=False,
+    )
     gc = gc_t[prs.t]
     diff = np.abs(gc - rd)
     plausible = rd <= gc + detour
     em = 0.5 * (lay.cand_dist / sig_c) ** 2
-    beta_r = (_BETA_PER_SIGMA * sigma_r if beta is None or beta == "estimate"
-              else np.full(n_r, float(beta)))
+    beta_r = (
+        _BETA_PER_SIGMA * sigma_r
+        if beta is None or beta == "estimate"
+        else np.full(n_r, float(beta))
+    )
     starts = np.zeros(lay.n, dtype=bool)
     starts[bounds[:-1]] = True
 
@@ -249,12 +289,26 @@ def _match_group(
     out = []
     for r, route in enumerate(routes):
         lo, hi = int(bounds[r]), int(bounds[r + 1])
-        m = _assemble(index, route, int(offsets[r]), lay, lo, hi, chosen, seg, routing,
-                      method="match", weight="length",
-                      back_tol_m=_HOLD_SIGMAS * float(sigma_r[r]),
-                      at_nodes=False, sigma_z=float(sigma_r[r]), beta=float(beta_r[r]))
+        m = _assemble(
+            index,
+            route,
+            int(offsets[r]),
+            lay,
+            lo,
+            hi,
+            chosen,
+            seg,
+            routing,
+            method="match",
+            weight="length",
+            back_tol_m=_HOLD_SIGMAS * float(sigma_r[r]),
+            at_nodes=False,
+            sigma_z=float(sigma_r[r]),
+            beta=float(beta_r[r]),
+        )
         if m.breaks:
-            logger.info("match %r: chain broken and restarted at points %s", route.name,
-                        list(m.breaks))
+            logger.info(
+                "match %r: chain broken and restarted at points %s", route.name, list(m.breaks)
+            )
         out.append(m)
     return out

@@ -132,8 +132,9 @@ class RoadIndex:
         self.node_ids = np.empty(len(nodes), dtype=object)
         self.node_ids[:] = nodes
         self.node_pos: dict[Hashable, int] = {n: i for i, n in enumerate(nodes)}
-        self.node_xy = np.array([(graph.nodes[n]["x"], graph.nodes[n]["y"]) for n in nodes],
-                                dtype=float)
+        self.node_xy = np.array(
+            [(graph.nodes[n]["x"], graph.nodes[n]["y"]) for n in nodes], dtype=float
+        )
         m = graph.number_of_edges()
         eu = np.empty(m, dtype=np.int64)
         ev = np.empty(m, dtype=np.int64)
@@ -165,8 +166,9 @@ class RoadIndex:
         rev = np.hypot(*(first - self.node_xy[ev]).T) + np.hypot(*(last - self.node_xy[eu]).T)
         flip = rev + 1e-6 < fwd
         if flip.any():
-            logger.warning("RoadIndex turned %d edge geometries around to run u -> v",
-                           int(flip.sum()))
+            logger.warning(
+                "RoadIndex turned %d edge geometries around to run u -> v", int(flip.sum())
+            )
             geoms[flip] = shapely.reverse(geoms[flip])
         self.edge_u, self.edge_v, self.edge_key = eu, ev, keys
         self.edge_geom = geoms
@@ -220,7 +222,7 @@ class RoadIndex:
         reps: list[int] = []
         eu, ev = self.edge_u.tolist(), self.edge_v.tolist()
         for i in range(m):
-            c = coords[bounds[i]:bounds[i + 1]]
+            c = coords[bounds[i] : bounds[i + 1]]
             g = groups.get((eu[i], ev[i], c.tobytes()))
             if g is None:
                 g = groups.get((ev[i], eu[i], c[::-1].tobytes()))
@@ -294,8 +296,9 @@ class RoadIndex:
         """Return the ``(u, v, key)`` of many edge positions."""
         u = self.node_ids[self.edge_u[positions]]
         v = self.node_ids[self.edge_v[positions]]
-        return tuple(zip(u.tolist(), v.tolist(), [self.edge_key[int(p)] for p in positions],
-                         strict=True))
+        return tuple(
+            zip(u.tolist(), v.tolist(), [self.edge_key[int(p)] for p in positions], strict=True)
+        )
 
     def spatial_order(self, nodes: np.ndarray) -> np.ndarray:
         """Return an order of node positions that keeps nearby nodes together (1 km cells)."""
@@ -312,8 +315,12 @@ class RoadIndex:
         return xy
 
     def candidates(
-        self, xy: np.ndarray, radius: float | np.ndarray, *,
-        spread: float | np.ndarray | None = None, max_per_point: int | None = None,
+        self,
+        xy: np.ndarray,
+        radius: float | np.ndarray,
+        *,
+        spread: float | np.ndarray | None = None,
+        max_per_point: int | None = None,
     ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
         """Return the edge positions within ``radius`` of each point.
 
@@ -493,7 +500,8 @@ class RoadIndex:
         a = np.asarray(nodes[:-1], dtype=np.int64)
         b = np.asarray(nodes[1:], dtype=np.int64)
         keys, edge = (
-            (self._time_keys, self._time_edge) if weight == "time"
+            (self._time_keys, self._time_edge)
+            if weight == "time"
             else (self._len_keys, self._len_edge)
         )
         pos = np.searchsorted(keys, a * self.n_nodes + b)

@@ -45,8 +45,9 @@ def _check_snap(value: float) -> float:
     except (TypeError, ValueError):
         v = math.nan
     if not v > 0 or not math.isfinite(v):
-        raise OptionError(f"max_snap_m must be a positive number, got {value!r}",
-                          field="max_snap_m")
+        raise OptionError(
+            f"max_snap_m must be a positive number, got {value!r}", field="max_snap_m"
+        )
     return v
 
 
@@ -125,8 +126,15 @@ def _join_group(
     limit_t = (1.5 * gap / max(index.median_speed, 0.5) + 30.0) * 3.0**attempt
     if attempt >= 3:
         limit_t = np.full(lay.n - 1, np.inf)
-    cost, routing = _pair_costs(index, lay, prs, weight="time", limit_t=limit_t,
-                                back_tol=np.zeros(len(lay.cand_layer)), at_nodes=True)
+    cost, routing = _pair_costs(
+        index,
+        lay,
+        prs,
+        weight="time",
+        limit_t=limit_t,
+        back_tol=np.zeros(len(lay.cand_layer)),
+        at_nodes=True,
+    )
     starts = np.zeros(lay.n, dtype=bool)
     starts[bounds[:-1]] = True
     chosen, seg, best = _viterbi(lay, np.zeros(len(lay.cand_layer)), prs, cost, starts)
@@ -139,7 +147,7 @@ def _join_group(
     results: dict[int, MatchedRoute] = {}
     for r, route in enumerate(routes):
         lo, hi = int(bounds[r]), int(bounds[r + 1])
-        broken = seg[lo + 1:hi]
+        broken = seg[lo + 1 : hi]
         if broken.any():
             if attempt >= 3:
                 t = lo + int(np.flatnonzero(broken)[0])
@@ -154,12 +162,25 @@ def _join_group(
             continue
         if attempt < 3 and hi - lo > 1:
             found = float(best[chosen[hi - 1]]) - (hi - lo) * _EPS
-            m = m_t[lo:hi - 1]
-            if found - float(m.sum()) > float(np.min(limit_t[lo:hi - 1] - m)) + 1e-9:
+            m = m_t[lo : hi - 1]
+            if found - float(m.sum()) > float(np.min(limit_t[lo : hi - 1] - m)) + 1e-9:
                 retry.append(r)
                 continue
-        results[r] = _assemble(index, route, int(offsets[r]), lay, lo, hi, chosen, seg, routing,
-                               method="join", weight="time", back_tol_m=0.0, at_nodes=True)
+        results[r] = _assemble(
+            index,
+            route,
+            int(offsets[r]),
+            lay,
+            lo,
+            hi,
+            chosen,
+            seg,
+            routing,
+            method="join",
+            weight="time",
+            back_tol_m=0.0,
+            at_nodes=True,
+        )
     if retry:
         logger.debug("join: %d route(s) need wider Dijkstra bounds", len(retry))
         again = _join_group(index, [routes[r] for r in retry], max_snap_m, attempt + 1)

@@ -137,8 +137,9 @@ def _build_model(usable: Sequence[Sequence[_Opt]], n_vehicles: int) -> _Model:
         (np.ones(n), (np.asarray(job_row, dtype=np.int64), np.arange(n))), shape=(n_jobs, n_cols)
     )
     risk = np.asarray([o.risk for o in var_opt], dtype=float)
-    return _Model(var_opt, veh, risk, flow, np.concatenate(rhs), jobs,
-                  np.concatenate(y_upper), aggregated)
+    return _Model(
+        var_opt, veh, risk, flow, np.concatenate(rhs), jobs, np.concatenate(y_upper), aggregated
+    )
 
 
 @dataclass
@@ -160,15 +161,30 @@ def _lp(model: _Model, c_x: np.ndarray, *, min_count: int | None) -> _LP:
         )
         a_ub = sparse.vstack([a_ub, count]).tocsr()
         b_ub = np.append(b_ub, -float(min_count))
-    bounds = np.column_stack([np.zeros(model.n_x + model.y_upper.size),
-                              np.concatenate([np.ones(model.n_x), model.y_upper])])
-    res = linprog(model.cost(c_x), A_ub=a_ub, b_ub=b_ub, A_eq=model.flow, b_eq=model.flow_rhs,
-                  bounds=bounds, method="highs-ipm")
+    bounds = np.column_stack(
+        [
+            np.zeros(model.n_x + model.y_upper.size),
+            np.concatenate([np.ones(model.n_x), model.y_upper]),
+        ]
+    )
+    res = linprog(
+        model.cost(c_x),
+        A_ub=a_ub,
+        b_ub=b_ub,
+        A_eq=model.flow,
+        b_eq=model.flow_rhs,
+        bounds=bounds,
+        method="highs-ipm",
+    )
     if res.status != 0:  # cannot happen: the empty schedule (or a found one) is feasible
         raise RuntimeError(f"linear relaxation failed: {res.message}")
     n = model.n_x
-    return _LP(float(res.fun), np.asarray(res.x[:n]), np.asarray(res.lower.marginals[:n]),
-               -np.asarray(res.upper.marginals[:n]))
+    return _LP(
+        float(res.fun),
+        np.asarray(res.x[:n]),
+        np.asarray(res.lower.marginals[:n]),
+        -np.asarray(res.upper.marginals[:n]),
+    )
 
 
 def _reduced_cost_fixing(lp: _LP, slack: float) -> tuple[np.ndarray, np.ndarray]:

@@ -342,8 +342,7 @@ def _prepare(
             for c, cand in enumerate(job.candidates)
             if (job.earliest is None or axis.floor(cand.start) >= axis.floor(job.earliest))
             and (
-                job.latest is None
-                or axis.ceil(cand.start, cand.duration) <= axis.ceil(job.latest)
+                job.latest is None or axis.ceil(cand.start, cand.duration) <= axis.ceil(job.latest)
             )
         ]
         if job.candidates and not in_window:
@@ -370,8 +369,9 @@ def _prepare(
 
 def _check_turnaround(turnaround_min: float) -> None:
     if not (math.isfinite(turnaround_min) and turnaround_min >= 0):
-        raise OptionError(f"turnaround must be 0 or more minutes, got {turnaround_min}",
-                          field="turnaround_min")
+        raise OptionError(
+            f"turnaround must be 0 or more minutes, got {turnaround_min}", field="turnaround_min"
+        )
 
 
 def _schedule(

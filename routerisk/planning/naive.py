@@ -98,6 +98,16 @@ def naive_schedule(
         sol[j] = (c, v)
     total = float(sum(jobs[j].candidates[c].risk for j, (c, _) in sol.items()))
     return _schedule(
-        jobs, fleet, sol, reasons, total, "naive", None, None, "naive", notes,
-        time.perf_counter() - clock, blocked="",
+        jobs,
+        fleet,
+        sol,
+        reasons,
+        total,
+        "naive",
+        None,
+        None,
+        "naive",
+        notes,
+        time.perf_counter() - clock,
+        blocked="",
     )

@@ -311,15 +311,15 @@ def _point(where: _Where, key: str, value: Any) -> tuple[float, float]:
 
 def _clock(where: _Where, key: str, value: Any) -> int:
     if value is None:
-        raise where.error(key, f"missing {key} time (\"HH:MM\")")
+        raise where.error(key, f'missing {key} time ("HH:MM")')
     if isinstance(value, int) and not isinstance(value, bool):
         raise where.error(
             key,
-            f"{key} must be a quoted \"HH:MM\" string; YAML reads an unquoted 10:30 as the "
+            f'{key} must be a quoted "HH:MM" string; YAML reads an unquoted 10:30 as the '
             f"number {value}, so write it in quotes",
         )
     if not isinstance(value, str):
-        raise where.error(key, f"{key} must be a \"HH:MM\" string")
+        raise where.error(key, f'{key} must be a "HH:MM" string')
     try:
         return parse_clock(value)
     except ValueError as exc:

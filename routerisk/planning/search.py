@@ -147,7 +147,8 @@ class _Search:
                 o, v = placement
                 for k, opts in pending.items():  # only starts overlapping o on v can be lost
                     pending[k] = [
-                        p for p in opts
+                        p
+                        for p in opts
                         if not (v in p.vehicles and p.s < o.e and o.s < p.e)
                         or self.vehicle_for(p) is not None
                     ]

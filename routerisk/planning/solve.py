@@ -122,8 +122,15 @@ def _optimise(
     if len(best.sol) < most and exact:  # stage 1: can one more job be placed?
         k = len(best.sol)
         keep, fix_one = _reduced_cost_fixing(count_lp, -count_lp.value - (k + 1))
-        res = _mip(model, -np.ones(n), min_count=k + 1, keep=keep, fix_one=fix_one,
-                   time_limit=deadline - time.perf_counter(), mip_rel_gap=0.0)
+        res = _mip(
+            model,
+            -np.ones(n),
+            min_count=k + 1,
+            keep=keep,
+            fix_one=fix_one,
+            time_limit=deadline - time.perf_counter(),
+            mip_rel_gap=0.0,
+        )
         if res.x is not None:
             best = _search_from_x(model, res.x, usable, n_vehicles)
             best.improve()
@@ -132,8 +139,10 @@ def _optimise(
             up_to = most if res.bound is None else min(most, math.floor(-res.bound + 1e-6))
             notes.append(f"time limit: {len(best.sol)} jobs placed, up to {up_to} may fit")
     elif len(best.sol) < most:
-        notes.append(f"the linear relaxation allows up to {most} placed jobs; the heuristic "
-                     f"placed {len(best.sol)} (more may fit)")
+        notes.append(
+            f"the linear relaxation allows up to {most} placed jobs; the heuristic "
+            f"placed {len(best.sol)} (more may fit)"
+        )
 
     target = len(best.sol)
     lp = risk_lp if target == most else _lp(model, model.risk, min_count=target)
@@ -143,12 +152,21 @@ def _optimise(
         return best.sol, status, bound
     remaining = deadline - time.perf_counter()
     if remaining <= 0:
-        notes.append("time limit reached before the integer programme ran; "
-                     "the gap is against the linear relaxation")
+        notes.append(
+            "time limit reached before the integer programme ran; "
+            "the gap is against the linear relaxation"
+        )
         return best.sol, "time_limit", bound
     keep, fix_one = _reduced_cost_fixing(lp, upper - bound)
-    res = _mip(model, model.risk, min_count=target, keep=keep, fix_one=fix_one,
-               time_limit=remaining, mip_rel_gap=mip_rel_gap)
+    res = _mip(
+        model,
+        model.risk,
+        min_count=target,
+        keep=keep,
+        fix_one=fix_one,
+        time_limit=remaining,
+        mip_rel_gap=mip_rel_gap,
+    )
     if res.x is not None and res.value is not None and res.value < upper - _EPS_RISK:
         best = _search_from_x(model, res.x, usable, n_vehicles)
     if res.status == "infeasible":  # nothing better than the incumbent exists
@@ -220,18 +238,43 @@ def solve_schedule(
             method = "milp-aggregated" if model.aggregated else "milp-per-vehicle"
         else:
             method = "heuristic"
-            notes.append(f"{n_vars} variables exceed max_exact_vars={max_exact_vars}: "
-                         "heuristic used, gap against the linear relaxation")
-        sol, status, bound = _optimise(model, usable, len(fleet), exact=exact,
-                                       time_limit=time_limit, mip_rel_gap=mip_rel_gap, notes=notes)
+            notes.append(
+                f"{n_vars} variables exceed max_exact_vars={max_exact_vars}: "
+                "heuristic used, gap against the linear relaxation"
+            )
+        sol, status, bound = _optimise(
+            model,
+            usable,
+            len(fleet),
+            exact=exact,
+            time_limit=time_limit,
+            mip_rel_gap=mip_rel_gap,
+            notes=notes,
+        )
     total = _risk(sol)
     schedule = _schedule(
-        jobs, fleet, {j: (o.cand, v) for j, (o, v) in sol.items()}, reasons, total, status,
-        _rel_gap(total, bound), bound, method, notes, time.perf_counter() - clock,
+        jobs,
+        fleet,
+        {j: (o.cand, v) for j, (o, v) in sol.items()},
+        reasons,
+        total,
+        status,
+        _rel_gap(total, bound),
+        bound,
+        method,
+        notes,
+        time.perf_counter() - clock,
         blocked="fleet busy: every usable start conflicts with the runs placed",
     )
     logger.info(
         "solve_schedule placed %d of %d jobs, total risk %.6g, status %s (%s, %d variables) "
-        "in %.2f s", schedule.placed, len(jobs), total, status, method, n_vars, schedule.seconds,
+        "in %.2f s",
+        schedule.placed,
+        len(jobs),
+        total,
+        status,
+        method,
+        n_vars,
+        schedule.seconds,
     )
     return schedule

@@ -153,8 +153,11 @@ def _parse_time(
             field=field,
         ) from None
     if not _YEARS[0] <= dt.year <= _YEARS[1]:
-        raise RouteInputError(f"year {dt.year} is outside {_YEARS[0]}-{_YEARS[1]}: "
-                              f"{_short(value)}", path=path, field=field)
+        raise RouteInputError(
+            f"year {dt.year} is outside {_YEARS[0]}-{_YEARS[1]}: {_short(value)}",
+            path=path,
+            field=field,
+        )
     if dt.tzinfo is None:
         if tz is not None:
             dt = dt.replace(tzinfo=tz)

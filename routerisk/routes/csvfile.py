@@ -38,8 +38,9 @@ def _csv_columns(path: Path, header: list[str]) -> dict[str, int]:
     for key, aliases in _CSV_ALIASES.items():
         found = [i for i, h in enumerate(names) if h in aliases]
         if len(found) > 1:
-            raise RouteInputError(f"column {key!r} appears {len(found)} times", path=path,
-                                  field="row 1")
+            raise RouteInputError(
+                f"column {key!r} appears {len(found)} times", path=path, field="row 1"
+            )
         if found:
             cols[key] = found[0]
     for key in ("route", "lat", "lon"):
@@ -48,7 +49,8 @@ def _csv_columns(path: Path, header: list[str]) -> dict[str, int]:
             hint = " (the file must be comma separated)" if semicolons else ""
             raise RouteInputError(
                 f"missing column {key!r}; the header needs route, lat, lon{hint}",
-                path=path, field="row 1",
+                path=path,
+                field="row 1",
             )
     return cols
 
@@ -62,7 +64,8 @@ def _csv_coordinate(cell: str, key: str, path: Path, field: str) -> float:
     if not math.isfinite(value) or abs(value) > limit:
         raise RouteInputError(
             f"{key} must be a finite number within +-{limit:g}, got {_short(cell)}",
-            path=path, field=field,
+            path=path,
+            field=field,
         )
     return value
 
@@ -73,8 +76,9 @@ def _csv_flag(cell: str, path: Path, field: str) -> bool:
         return True
     if text in _FALSE:
         return False
-    raise RouteInputError(f"required must be true or false, got {_short(cell)}", path=path,
-                          field=field)
+    raise RouteInputError(
+        f"required must be true or false, got {_short(cell)}", path=path, field=field
+    )
 
 
 def _csv_row(
@@ -82,22 +86,26 @@ def _csv_row(
 ) -> tuple[str, list[float], datetime | None, bool, datetime | None]:
     """Return route name, [lon, lat], time, required and depart of one data row."""
     if len(row) <= max(cols.values()):
-        raise RouteInputError(f"has {len(row)} values, too few for the header", path=path,
-                              field=f"row {line}")
+        raise RouteInputError(
+            f"has {len(row)} values, too few for the header", path=path, field=f"row {line}"
+        )
     name = row[cols["route"]].strip()
     if not name:
         raise RouteInputError("route name is empty", path=path, field=f"row {line}: route")
-    ll = [_csv_coordinate(row[cols[k]].strip(), k, path, f"row {line}: {k}")
-          for k in ("lon", "lat")]
+    ll = [
+        _csv_coordinate(row[cols[k]].strip(), k, path, f"row {line}: {k}") for k in ("lon", "lat")
+    ]
 
     def when(key: str) -> datetime | None:
         if key not in cols or not row[cols[key]].strip():
             return None
-        return _parse_time(row[cols[key]], tz=tz, naive_utc=False, path=path,
-                           field=f"row {line}: {key}")
+        return _parse_time(
+            row[cols[key]], tz=tz, naive_utc=False, path=path, field=f"row {line}: {key}"
+        )
 
-    required = "required" in cols and _csv_flag(row[cols["required"]], path,
-                                                f"row {line}: required")
+    required = "required" in cols and _csv_flag(
+        row[cols["required"]], path, f"row {line}: required"
+    )
     return name, ll, when("time"), required, when("depart")
 
 
@@ -112,8 +120,9 @@ def _read_csv(path: Path, text: str, tz: tzinfo | None) -> list[_Parsed]:
                 continue
             line = reader.line_num
             name, ll, when, req, dep = _csv_row(row, cols, line, tz, path)
-            g = groups.setdefault(name, {"ll": [], "t": [], "req": [], "depart": None,
-                                         "line": line})
+            g = groups.setdefault(
+                name, {"ll": [], "t": [], "req": [], "depart": None, "line": line}
+            )
             g["ll"].append(ll)
             g["t"].append(when)
             g["req"].append(req)
@@ -121,23 +130,31 @@ def _read_csv(path: Path, text: str, tz: tzinfo | None) -> list[_Parsed]:
                 if g["depart"] is not None and dep != g["depart"]:
                     raise RouteInputError(
                         f"depart differs from an earlier row of route {name!r}",
-                        path=path, field=f"row {line}: depart",
+                        path=path,
+                        field=f"row {line}: depart",
                     )
                 g["depart"] = dep
     except StopIteration:
         raise InputFileError("file is empty", path=path) from None
     except csv.Error as exc:
-        raise InputFileError(f"is not valid CSV ({exc})", path=path,
-                             field=f"row {reader.line_num}") from None
+        raise InputFileError(
+            f"is not valid CSV ({exc})", path=path, field=f"row {reader.line_num}"
+        ) from None
     if not groups:
         raise RouteInputError("holds a header but no route rows", path=path, field="row 2")
     routes: list[_Parsed] = []
     for name, g in groups.items():
         times = g["t"] if any(t is not None for t in g["t"]) else None
         field = f"row {g['line']}: route"
-        route = _finish(name=name, lonlat=np.array(g["ll"], dtype=float), times=times,
-                        required=np.array(g["req"], dtype=bool), depart=g["depart"], path=path,
-                        field=field)
+        route = _finish(
+            name=name,
+            lonlat=np.array(g["ll"], dtype=float),
+            times=times,
+            required=np.array(g["req"], dtype=bool),
+            depart=g["depart"],
+            path=path,
+            field=field,
+        )
         routes.append((route, field))
     return routes
 
@@ -150,6 +167,14 @@ def _csv_text(routes: Sequence[PlannedRoute]) -> str:
         dep = r.depart.isoformat() if r.depart is not None else ""
         for i, (lon, lat) in enumerate(r.lonlat):
             t = r.times[i].isoformat() if r.times is not None else ""
-            w.writerow([r.name, repr(float(lat)), repr(float(lon)), t,
-                        "true" if r.required[i] else "false", dep])
+            w.writerow(
+                [
+                    r.name,
+                    repr(float(lat)),
+                    repr(float(lon)),
+                    t,
+                    "true" if r.required[i] else "false",
+                    dep,
+                ]
+            )
     return buf.getvalue()

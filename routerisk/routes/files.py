@@ -117,9 +117,7 @@ def routes_to_geojson(routes: Iterable[PlannedRoute]) -> dict[str, Any]:
     return {"type": "FeatureCollection", "features": features}
 
 
-def write_routes(
-    path: str | Path, routes: Sequence[PlannedRoute], *, force: bool = False
-) -> Path:
+def write_routes(path: str | Path, routes: Sequence[PlannedRoute], *, force: bool = False) -> Path:
     """Write routes atomically as GeoJSON, GPX 1.1 or CSV, chosen by the file extension.
 
     GPX gets one ``trk`` per route with times and one ``rte`` per route without; required

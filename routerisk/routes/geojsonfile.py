@@ -120,8 +120,7 @@ def _flat_times(value: object, parts: list[int], path: Path, field: str) -> list
     if len(parts) > 1 and all(isinstance(v, list) for v in value):
         if [len(v) for v in value] != parts:
             raise RouteInputError(
-                f"times has parts of {[len(v) for v in value]} entries for parts of {parts} "
-                "points",
+                f"times has parts of {[len(v) for v in value]} entries for parts of {parts} points",
                 path=path,
                 field=field,
             )
@@ -159,8 +158,9 @@ def _geojson_items(path: Path, data: dict[str, Any]) -> list[tuple[str, Any, str
     if kind == "FeatureCollection":
         feats = data.get("features")
         if not isinstance(feats, list):
-            raise RouteInputError("FeatureCollection has no features list", path=path,
-                                  field="features")
+            raise RouteInputError(
+                "FeatureCollection has no features list", path=path, field="features"
+            )
         return [(f"features[{i}]", f, f"features[{i}].geometry") for i, f in enumerate(feats)]
     if kind == "Feature":
         return [("", data, "geometry")]
@@ -179,8 +179,9 @@ def _feature_parts(
     if props is None:
         props = {}
     if not isinstance(props, dict):
-        raise RouteInputError("properties must be an object", path=path,
-                              field=_join(pre, "properties"))
+        raise RouteInputError(
+            "properties must be an object", path=path, field=_join(pre, "properties")
+        )
     geom = feat.get("geometry")
     if not isinstance(geom, dict):
         raise RouteInputError("feature has no geometry", path=path, field=gpre or "geometry")
@@ -192,8 +193,9 @@ def _feature_parts(
             field=gpre or "type",
         )
     if gtype not in _ROUTE_TYPES and gtype != "Point":
-        raise RouteInputError(f"unknown geometry type {_short(gtype)}", path=path,
-                              field=gpre or "type")
+        raise RouteInputError(
+            f"unknown geometry type {_short(gtype)}", path=path, field=gpre or "type"
+        )
     return props, geom, gtype
 
 
@@ -218,8 +220,7 @@ def _line_points(path: Path, geom: dict[str, Any], cfield: str) -> _Line:
         pieces = [_positions(coords, path, cfield)]
     else:
         if not isinstance(coords, list) or not coords:
-            raise RouteInputError("MultiLineString needs a list of parts", path=path,
-                                  field=cfield)
+            raise RouteInputError("MultiLineString needs a list of parts", path=path, field=cfield)
         fields = [f"{cfield}[{k}]" for k in range(len(coords))]
         pieces = [_positions(c, path, f) for c, f in zip(coords, fields, strict=True)]
     owners = [(f, j) for f, piece in zip(fields, pieces, strict=True) for j in range(len(piece))]
@@ -250,7 +251,8 @@ def _feature_times(
         return None
     flat = _flat_times(value, line.sizes, path, field)
     times = [
-        None if t is None
+        None
+        if t is None
         else _parse_time(t, tz=tz, naive_utc=False, path=path, field=f"{field}[{i}]")
         for i, t in enumerate(flat)
     ]
@@ -262,12 +264,12 @@ def _required_indices(value: object, n: int, path: Path, field: str) -> np.ndarr
     if value is None or value is False:
         return required
     if not isinstance(value, list):
-        raise RouteInputError("required must be a list of point indices", path=path,
-                              field=field)
+        raise RouteInputError("required must be a list of point indices", path=path, field=field)
     for k, idx in enumerate(value):
         if not isinstance(idx, int) or isinstance(idx, bool) or not 0 <= idx < n:
-            raise RouteInputError(f"not a point index 0..{n - 1}: {_short(idx)}", path=path,
-                                  field=f"{field}[{k}]")
+            raise RouteInputError(
+                f"not a point index 0..{n - 1}: {_short(idx)}", path=path, field=f"{field}[{k}]"
+            )
         required[idx] = True
     return required
 
@@ -294,23 +296,37 @@ def _read_geojson(path: Path, text: str, tz: tzinfo | None) -> list[_Parsed]:
         ll = ll[line.keep]
         fname = pre or "geometry"
         route = _finish(
-            name=_route_name(props.get("name"), f"route-{len(routes) + 1}", path,
-                             _join(pre, "properties.name")),
+            name=_route_name(
+                props.get("name"), f"route-{len(routes) + 1}", path, _join(pre, "properties.name")
+            ),
             lonlat=ll,
-            times=_feature_times(props.get("times", props.get("coordTimes")), line, tz, path,
-                                 _join(pre, "properties.times")),
-            required=_required_indices(props.get("required"), len(ll), path,
-                                       _join(pre, "properties.required")),
-            depart=None if props.get("depart") is None else _parse_time(
-                props["depart"], tz=tz, naive_utc=False, path=path,
-                field=_join(pre, "properties.depart")),
+            times=_feature_times(
+                props.get("times", props.get("coordTimes")),
+                line,
+                tz,
+                path,
+                _join(pre, "properties.times"),
+            ),
+            required=_required_indices(
+                props.get("required"), len(ll), path, _join(pre, "properties.required")
+            ),
+            depart=None
+            if props.get("depart") is None
+            else _parse_time(
+                props["depart"],
+                tz=tz,
+                naive_utc=False,
+                path=path,
+                field=_join(pre, "properties.depart"),
+            ),
             path=path,
             field=fname,
         )
         routes.append((route, fname))
     if not routes:
         raise RouteInputError(
-            "holds no LineString or MultiLineString route", path=path,
+            "holds no LineString or MultiLineString route",
+            path=path,
             field="features" if data.get("type") == "FeatureCollection" else "type",
         )
     if markers:
@@ -351,8 +367,14 @@ def _apply_markers(
         if k in extra:
             req = route.required.copy()
             req[extra[k]] = True
-            route = PlannedRoute(name=route.name, lonlat=route.lonlat, times=route.times,
-                                 required=req, depart=route.depart, source=route.source)
+            route = PlannedRoute(
+                name=route.name,
+                lonlat=route.lonlat,
+                times=route.times,
+                required=req,
+                depart=route.depart,
+                source=route.source,
+            )
         out.append((route, field))
     return out
 

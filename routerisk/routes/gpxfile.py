@@ -45,13 +45,17 @@ def _gpx_points(elem: ET.Element, kind: str, field: str) -> list[tuple[ET.Elemen
     """Return the points of a trk (all segments, in order) or rte with their field names."""
     pts: list[tuple[ET.Element, str]] = []
     if kind == "rte":
-        pts = [(pt, f"{field}.rtept[{k}]")
-               for k, pt in enumerate(p for p in elem if _local(p.tag) == "rtept")]
+        pts = [
+            (pt, f"{field}.rtept[{k}]")
+            for k, pt in enumerate(p for p in elem if _local(p.tag) == "rtept")
+        ]
         return pts
     segs = [s for s in elem if _local(s.tag) == "trkseg"]
     for n, seg in enumerate(segs):
-        pts.extend((pt, f"{field}.trkseg[{n}].trkpt[{k}]")
-                   for k, pt in enumerate(p for p in seg if _local(p.tag) == "trkpt"))
+        pts.extend(
+            (pt, f"{field}.trkseg[{n}].trkpt[{k}]")
+            for k, pt in enumerate(p for p in seg if _local(p.tag) == "trkpt")
+        )
     return pts
 
 
@@ -67,8 +71,9 @@ def _gpx_point(
         try:
             values.append(float(text))
         except ValueError:
-            raise RouteInputError(f"{attr} is not a number: {_short(text)}", path=path,
-                                  field=f"{pfield}.{attr}") from None
+            raise RouteInputError(
+                f"{attr} is not a number: {_short(text)}", path=path, field=f"{pfield}.{attr}"
+            ) from None
     t_el = _child(pt, "time")
     when = None
     if t_el is not None and (t_el.text or "").strip():
@@ -83,11 +88,13 @@ def _read_gpx(path: Path, raw: bytes) -> list[_Parsed]:
         root = ET.fromstring(raw)  # noqa: S314 - expat refuses entity expansion bombs
     except ET.ParseError as exc:
         line, col = exc.position
-        raise InputFileError(f"is not valid XML ({exc})", path=path,
-                             field=f"line {line} column {col + 1}") from None
+        raise InputFileError(
+            f"is not valid XML ({exc})", path=path, field=f"line {line} column {col + 1}"
+        ) from None
     if _local(root.tag) != "gpx":
-        raise InputFileError(f"is not a GPX file (root element <{_local(root.tag)}>)",
-                             path=path, field="gpx")
+        raise InputFileError(
+            f"is not a GPX file (root element <{_local(root.tag)}>)", path=path, field="gpx"
+        )
     routes: list[_Parsed] = []
     counts = {"trk": 0, "rte": 0}
     for elem in root:
@@ -106,15 +113,23 @@ def _read_gpx(path: Path, raw: bytes) -> list[_Parsed]:
         lonlat = np.array([(p[0], p[1]) for p in parsed])
         _check_points(lonlat, path, lambda i, _p=pts: _p[i][1])
         times = [p[2] for p in parsed]
-        route = _finish(name=name, lonlat=lonlat,
-                        times=times if any(t is not None for t in times) else None,
-                        required=np.array([p[3] for p in parsed], dtype=bool), depart=None,
-                        path=path, field=field)
+        route = _finish(
+            name=name,
+            lonlat=lonlat,
+            times=times if any(t is not None for t in times) else None,
+            required=np.array([p[3] for p in parsed], dtype=bool),
+            depart=None,
+            path=path,
+            field=field,
+        )
         routes.append((route, field))
     if not routes:
         has_wpt = any(_local(e.tag) == "wpt" for e in root)
-        msg = ("holds only waypoints (wpt); a route needs a trk or rte" if has_wpt
-               else "holds no track or route points")
+        msg = (
+            "holds only waypoints (wpt); a route needs a trk or rte"
+            if has_wpt
+            else "holds no track or route points"
+        )
         raise RouteInputError(msg, path=path, field="trk/rte")
     return routes
 
@@ -131,8 +146,11 @@ def gpx_text(routes: Sequence[PlannedRoute]) -> str:
         ET.SubElement(parent, "name").text = r.name
         holder = ET.SubElement(parent, "trkseg") if is_trk else parent
         for i, (lon, lat) in enumerate(r.lonlat):
-            pt = ET.SubElement(holder, "trkpt" if is_trk else "rtept",
-                               {"lat": repr(float(lat)), "lon": repr(float(lon))})
+            pt = ET.SubElement(
+                holder,
+                "trkpt" if is_trk else "rtept",
+                {"lat": repr(float(lat)), "lon": repr(float(lon))},
+            )
             if r.times is not None:
                 ET.SubElement(pt, "time").text = (
                     r.times[i].astimezone(UTC).isoformat().replace("+00:00", "Z")

@@ -129,8 +129,9 @@ class _Upload:
         try:
             data = text.encode("utf-8")
         except UnicodeEncodeError:
-            raise RequestError(f"file {name!r}: the text holds an unpaired surrogate "
-                               "(not a Unicode text)") from None
+            raise RequestError(
+                f"file {name!r}: the text holds an unpaired surrogate (not a Unicode text)"
+            ) from None
         if len(data) > self.max_bytes:
             raise RequestError(_too_big(len(data), self.max_bytes), status=413)
         p = self.folder / name
@@ -144,8 +145,11 @@ class _Upload:
         """Write ``{"name", "text"}``; a bare string (a path) is refused."""
         if isinstance(spec, str):
             raise RequestError(_PATH_REFUSED)
-        if not isinstance(spec, dict) or not isinstance(spec.get("name"), str) \
-                or not isinstance(spec.get("text"), str):
+        if (
+            not isinstance(spec, dict)
+            or not isinstance(spec.get("name"), str)
+            or not isinstance(spec.get("text"), str)
+        ):
             raise RequestError("file: must be an object {name, text} with the file's content")
         return self.write(spec["name"], spec["text"], role=role)
 
@@ -167,8 +171,9 @@ class Service:
         self.suggester = Suggester(self.scorer)
         self.suggester.g.time_tree(0, 1.0)  # build the lazy matrices before threads share them
         e = net.edges
-        self.geoms_ll = gpd.GeoSeries(e.geometry.to_numpy(), crs=e.crs).to_crs(
-            "EPSG:4326").to_numpy()
+        self.geoms_ll = (
+            gpd.GeoSeries(e.geometry.to_numpy(), crs=e.crs).to_crs("EPSG:4326").to_numpy()
+        )
         prof = net.profile
         band_names = [b.name for b in prof.bands]
         rank = np.array([band_names.index(b) if b in band_names else 0 for b in e["band"]])
@@ -179,11 +184,16 @@ class Service:
         # (end nodes in either order and the length to 0.1 m); the higher band is kept
         import pandas as pd
 
-        keys = pd.DataFrame({"a": np.minimum(u, v), "b": np.maximum(u, v),
-                             "m": np.round(length, 1), "rank": -rank,
-                             "row": np.arange(len(e))})
-        first = keys.sort_values(["rank", "row"], kind="stable").drop_duplicates(
-            ["a", "b", "m"])
+        keys = pd.DataFrame(
+            {
+                "a": np.minimum(u, v),
+                "b": np.maximum(u, v),
+                "m": np.round(length, 1),
+                "rank": -rank,
+                "row": np.arange(len(e)),
+            }
+        )
+        first = keys.sort_values(["rank", "row"], kind="stable").drop_duplicates(["a", "b", "m"])
         keep_a = np.sort(first["row"].to_numpy(dtype=np.int64))
         self._view_rows = keep_a
         self._view_tree = shapely.STRtree(self.geoms_ll[keep_a])
@@ -193,12 +203,16 @@ class Service:
         self._bands = e["band"].astype(str).to_numpy()
         src = net.sources
         if len(src):
-            pts = gpd.GeoSeries(src.geometry.representative_point().to_numpy(),
-                                crs=src.crs).to_crs("EPSG:4326")
+            pts = gpd.GeoSeries(src.geometry.representative_point().to_numpy(), crs=src.crs).to_crs(
+                "EPSG:4326"
+            )
             self._src_xy = shapely.get_coordinates(pts.to_numpy())
             self._src_cat = src["category"].astype(str).to_numpy()
-            self._src_name = (src["name"].fillna("").astype(str).to_numpy()
-                              if "name" in src.columns else np.full(len(src), "", dtype=object))
+            self._src_name = (
+                src["name"].fillna("").astype(str).to_numpy()
+                if "name" in src.columns
+                else np.full(len(src), "", dtype=object)
+            )
         else:
             self._src_xy = np.zeros((0, 2))
             self._src_cat = self._src_name = np.array([], dtype=object)
@@ -210,8 +224,7 @@ class Service:
     def made_from(self, upload: _Upload | None = None) -> dict[str, Any]:
         """Return the provenance of an answer (tool, profile, network source, files sent)."""
         inputs = dict(upload.inputs) if upload else {}
-        return provenance(profile=self.net.profile.fingerprint, network=self.net,
-                          inputs=inputs)  # type: ignore[arg-type]
+        return provenance(profile=self.net.profile.fingerprint, network=self.net, inputs=inputs)  # type: ignore[arg-type]
 
     def info(self) -> dict[str, Any]:
         """Return what the page needs to draw the network and its controls."""
@@ -220,11 +233,18 @@ class Service:
 
         return {
             "bounds": self.bounds,
-            "bands": [{"name": b.name, "from": b.lower,
-                       "colour": mapview.band_colour(prof, b.name)} for b in prof.bands],
-            "categories": [{"name": c.name, "label": c.label,
-                            "colour": mapview.CATEGORY_COLOURS.get(c.name, "#888888")}
-                           for c in prof.categories],
+            "bands": [
+                {"name": b.name, "from": b.lower, "colour": mapview.band_colour(prof, b.name)}
+                for b in prof.bands
+            ],
+            "categories": [
+                {
+                    "name": c.name,
+                    "label": c.label,
+                    "colour": mapview.CATEGORY_COLOURS.get(c.name, "#888888"),
+                }
+                for c in prof.categories
+            ],
             "rules": [r.name for r in prof.rules],
             "timezone": self.net.meta.get("timezone", "UTC"),
             "timezone_label": zone_label(self.net.meta.get("timezone", "UTC")),
@@ -254,10 +274,19 @@ class Service:
             name = spec.get("name", "planned route")
             if not isinstance(name, str) or not name.strip():
                 raise RequestError("route.name: must be a non-empty text")
-            if (not isinstance(pts, list) or len(pts) < 2 or not all(
-                    isinstance(p, list) and len(p) == 2 and all(
-                        isinstance(c, int | float) and not isinstance(c, bool)
-                        and math.isfinite(c) for c in p) for p in pts)):
+            if (
+                not isinstance(pts, list)
+                or len(pts) < 2
+                or not all(
+                    isinstance(p, list)
+                    and len(p) == 2
+                    and all(
+                        isinstance(c, int | float) and not isinstance(c, bool) and math.isfinite(c)
+                        for c in p
+                    )
+                    for p in pts
+                )
+            ):
                 raise RequestError("route.waypoints: must be at least two [lon, lat] pairs")
             lonlat = np.array(pts, dtype=float)
             if np.any(np.abs(lonlat[:, 0]) > 180) or np.any(np.abs(lonlat[:, 1]) > 90):
@@ -267,9 +296,14 @@ class Service:
                 depart = self.departs({"depart": spec["depart"]}, key="depart")[0]
             # via points shape the plan; ``suggest`` keeps them only when marked required
             keep = bool(spec.get("keep_vias", False))
-            return [routes.PlannedRoute(name.strip(), lonlat,
-                                        required=np.full(len(lonlat), keep, dtype=bool),
-                                        depart=depart)]
+            return [
+                routes.PlannedRoute(
+                    name.strip(),
+                    lonlat,
+                    required=np.full(len(lonlat), keep, dtype=bool),
+                    depart=depart,
+                )
+            ]
         if "geojson" in spec:
             gj = spec["geojson"]
             if isinstance(gj, str):
@@ -288,44 +322,63 @@ class Service:
         seg = s.segments
         pos = seg["_pos"].to_numpy()
         full = self.scorer.km[pos] * 1000.0
-        frac = np.divide(seg["length_m"].to_numpy(), full, out=np.ones(len(pos)),
-                         where=full > 0)
+        frac = np.divide(seg["length_m"].to_numpy(), full, out=np.ones(len(pos)), where=full > 0)
         geoms_utm = self.net.edges.geometry.to_numpy()[pos]
         pieces = []
         n = len(pos)
         for i, (g, f) in enumerate(zip(geoms_utm, frac, strict=True)):
             if f < 1.0 - 1e-9 and n > 1:
-                g = substring(g, 1.0 - f, 1.0, normalized=True) if i == 0 else \
-                    substring(g, 0.0, f, normalized=True) if i == n - 1 else g
+                g = (
+                    substring(g, 1.0 - f, 1.0, normalized=True)
+                    if i == 0
+                    else substring(g, 0.0, f, normalized=True)
+                    if i == n - 1
+                    else g
+                )
             pieces.append(g)
         feats = []
         cats = list(self.scorer.cats)
         seq, street = seg["seq"].to_numpy(), seg["street"].to_numpy()
         risk, length_m = seg["risk"].to_numpy(), seg["length_m"].to_numpy()
         band, when = seg["band"].to_numpy(), seg["time"].to_numpy()
-        parts = np.column_stack([seg[f"part_{c}"].to_numpy() for c in cats]) if cats else \
-            np.zeros((len(seg), 0))
+        parts = (
+            np.column_stack([seg[f"part_{c}"].to_numpy() for c in cats])
+            if cats
+            else np.zeros((len(seg), 0))
+        )
         xy, which = shapely.get_coordinates(pieces, return_index=True)
         ll = np.round(np.column_stack(self._to_ll.transform(xy[:, 0], xy[:, 1])), 6)
         cuts = np.searchsorted(which, np.arange(1, len(pieces)))
         for i, coords in enumerate(np.split(ll, cuts)):
-            feats.append({"type": "Feature", "geometry": {
-                "type": "LineString", "coordinates": coords.tolist()},
-                "properties": {
-                    "seq": int(seq[i]), "street": str(street[i]), "risk": _r6(risk[i]),
-                    "risk_per_km": _r6(risk[i] / max(length_m[i], 1e-9) * 1000.0),
-                    "band": str(band[i]), "time": str(when[i]),
-                    "parts": {c: _r6(parts[i, j]) for j, c in enumerate(cats)}}})
+            feats.append(
+                {
+                    "type": "Feature",
+                    "geometry": {"type": "LineString", "coordinates": coords.tolist()},
+                    "properties": {
+                        "seq": int(seq[i]),
+                        "street": str(street[i]),
+                        "risk": _r6(risk[i]),
+                        "risk_per_km": _r6(risk[i] / max(length_m[i], 1e-9) * 1000.0),
+                        "band": str(band[i]),
+                        "time": str(when[i]),
+                        "parts": {c: _r6(parts[i, j]) for j, c in enumerate(cats)},
+                    },
+                }
+            )
         # the driven line, dense enough to be read back as a trace (see EXPORT_STEP_M)
-        dense = shapely.get_coordinates(shapely.segmentize(np.array(pieces, dtype=object),
-                                                           EXPORT_STEP_M))
+        dense = shapely.get_coordinates(
+            shapely.segmentize(np.array(pieces, dtype=object), EXPORT_STEP_M)
+        )
         step = np.hypot(*np.diff(dense, axis=0).T)
         dense = dense[np.concatenate([[True], step > 1e-6])]
         lon, lat = self._to_ll.transform(dense[:, 0], dense[:, 1])
         line = np.round(np.column_stack([lon, lat]), 7)
-        return {"name": s.name, "depart": s.depart.isoformat(),
-                "segments": {"type": "FeatureCollection", "features": feats},
-                "line": line.tolist()}
+        return {
+            "name": s.name,
+            "depart": s.depart.isoformat(),
+            "segments": {"type": "FeatureCollection", "features": feats},
+            "line": line.tolist(),
+        }
 
     # ---------------------------------------------------------------- the endpoints' work
 
@@ -333,10 +386,14 @@ class Service:
         """Score the route(s) of a request as ``routerisk score`` does."""
         departs = self.departs(doc)
         planned = self.route_input(doc, up)
-        scores = scoring.score_routes(self.net, planned, departs, index=self.index,
-                                     scorer=self.scorer)
-        return {"routes": [s.to_dict() for s in scores], "drawn": [self.drawn(s) for s in scores],
-                "profile": self.net.profile.fingerprint}
+        scores = scoring.score_routes(
+            self.net, planned, departs, index=self.index, scorer=self.scorer
+        )
+        return {
+            "routes": [s.to_dict() for s in scores],
+            "drawn": [self.drawn(s) for s in scores],
+            "profile": self.net.profile.fingerprint,
+        }
 
     def week(self, doc: dict[str, Any], up: _Upload) -> dict[str, Any]:
         """Return the risk of the route departing at each hour of a week."""
@@ -357,8 +414,14 @@ class Service:
         for h in range(168):
             start = dt.datetime.combine(monday, dt.time(), tzinfo=tz) + dt.timedelta(hours=h)
             risk, minutes, breaks = self.scorer.quick(pos, start, fractions=frac)
-            hours.append({"depart": start.isoformat(), "risk": round(risk, 6),
-                          "duration_min": round(minutes, 3), "rule_breaks": breaks})
+            hours.append(
+                {
+                    "depart": start.isoformat(),
+                    "risk": round(risk, 6),
+                    "duration_min": round(minutes, 3),
+                    "rule_breaks": breaks,
+                }
+            )
         return {"name": planned.name, "week_of": monday.isoformat(), "hours": hours}
 
     def alternatives(self, doc: dict[str, Any], up: _Upload) -> dict[str, Any]:
@@ -376,17 +439,31 @@ class Service:
         assert max_extra_time is not None and min_difference is not None  # they have defaults
         departs = self.departs(doc)
         planned = self.route_input(doc, up)
-        result = suggest_routes(self.net, planned, departs, count=count,
-                                keep_every=keep_every, index=self.index,
-                                suggester=self.suggester, max_extra_time=max_extra_time,
-                                max_extra_length=_share(doc, "max_extra_length", None),
-                                min_difference=min_difference)
+        result = suggest_routes(
+            self.net,
+            planned,
+            departs,
+            count=count,
+            keep_every=keep_every,
+            index=self.index,
+            suggester=self.suggester,
+            max_extra_time=max_extra_time,
+            max_extra_length=_share(doc, "max_extra_length", None),
+            min_difference=min_difference,
+        )
         drawn = []
         for s in result:
-            drawn.append({"planned": self.drawn(s.planned),
-                          "alternatives": [self.drawn(a.score) for a in s.alternatives]})
-        return {"routes": [s.to_dict() for s in result], "drawn": drawn,
-                "profile": self.net.profile.fingerprint}
+            drawn.append(
+                {
+                    "planned": self.drawn(s.planned),
+                    "alternatives": [self.drawn(a.score) for a in s.alternatives],
+                }
+            )
+        return {
+            "routes": [s.to_dict() for s in result],
+            "drawn": drawn,
+            "profile": self.net.profile.fingerprint,
+        }
 
     def review(self, doc: dict[str, Any], up: _Upload) -> dict[str, Any]:
         """Review an area as ``routerisk review`` does (what-ifs, --at, --top)."""
@@ -410,7 +487,8 @@ class Service:
         minute = review.parse_time(at) if at else None
         raw = doc.get("what_if", [])
         if not isinstance(raw, list) or not all(
-                isinstance(s, list) and all(isinstance(x, str) for x in s) for s in raw):
+            isinstance(s, list) and all(isinstance(x, str) for x in s) for s in raw
+        ):
             raise RequestError("what_if: must be a list of lists of SPECs")
         what_ifs = [review.parse_what_if(specs, self.net.profile) for specs in raw]
         areas = review.read_areas(path, crs=self.net.crs)
@@ -438,9 +516,14 @@ class Service:
         for r in runs:
             if r.route is not None:
                 up.inputs.setdefault(Path(r.route).name, Path(r.route))
-        plan = dayplan.plan_day(self.net, runs, date, vehicles=_integer(doc, "vehicles", 2),
-                                step_min=_integer(doc, "step", 15),
-                                turnaround_min=float(_number(doc, "turnaround", 15.0)))
+        plan = dayplan.plan_day(
+            self.net,
+            runs,
+            date,
+            vehicles=_integer(doc, "vehicles", 2),
+            step_min=_integer(doc, "step", 15),
+            turnaround_min=float(_number(doc, "turnaround", 15.0)),
+        )
         return plan.to_dict()
 
     def export(self, doc: dict[str, Any]) -> tuple[str, str]:
@@ -452,9 +535,16 @@ class Service:
             raise RequestError("format: must be 'geojson' or 'gpx'")
         if not isinstance(name, str) or not name.strip():
             raise RequestError("name: must be a non-empty text")
-        if (not isinstance(line, list) or len(line) < 2 or not all(
-                isinstance(p, list) and len(p) == 2 and all(
-                    isinstance(c, int | float) and math.isfinite(c) for c in p) for p in line)):
+        if (
+            not isinstance(line, list)
+            or len(line) < 2
+            or not all(
+                isinstance(p, list)
+                and len(p) == 2
+                and all(isinstance(c, int | float) and math.isfinite(c) for c in p)
+                for p in line
+            )
+        ):
             raise RequestError("line: must be at least two [lon, lat] pairs")
         depart = self.departs(doc, key="depart")[0] if doc.get("depart") else None
         r = routes.PlannedRoute(name.strip(), np.array(line, dtype=float), depart=depart)
@@ -476,7 +566,7 @@ class Service:
         box = shapely.box(w, s, e, n)
         hits = self._view_rows[self._view_tree.query(box, predicate="intersects")]
         lat = math.radians(max(min((s + n) / 2.0, 85.0), -85.0))
-        mpp = 156543.03392 * math.cos(lat) / 2.0 ** zoom
+        mpp = 156543.03392 * math.cos(lat) / 2.0**zoom
         if zoom < 16:
             hits = hits[self._length[hits] >= 2.0 * mpp]
         truncated = len(hits) > MAX_FEATURES
@@ -492,39 +582,63 @@ class Service:
         lines = np.split(xy, cuts) if len(hits) else []
         feats = []
         if zoom < MERGE_BELOW_ZOOM:  # a far view: one MultiLineString per band, no labels
-            for b in sorted(set(self._bands[hits]), key=lambda x: int(
-                    self._rank[hits][self._bands[hits] == x][0])):
-                sel = [c.tolist() for i, c in zip(hits, lines, strict=True)
-                       if self._bands[i] == b]
-                feats.append({"type": "Feature",
-                              "geometry": {"type": "MultiLineString", "coordinates": sel},
-                              "properties": {"band": b, "street": "", "segments": len(sel)}})
+            for b in sorted(
+                set(self._bands[hits]),
+                key=lambda x: int(self._rank[hits][self._bands[hits] == x][0]),
+            ):
+                sel = [c.tolist() for i, c in zip(hits, lines, strict=True) if self._bands[i] == b]
+                feats.append(
+                    {
+                        "type": "Feature",
+                        "geometry": {"type": "MultiLineString", "coordinates": sel},
+                        "properties": {"band": b, "street": "", "segments": len(sel)},
+                    }
+                )
         else:
             for i, coords in zip(hits, lines, strict=True):
-                feats.append({"type": "Feature",
-                              "geometry": {"type": "LineString", "coordinates": coords.tolist()},
-                              "properties": {"band": self._bands[i], "street": self._names[i],
-                                             "segments": 1}})
-        inside = np.flatnonzero((self._src_xy[:, 0] >= w) & (self._src_xy[:, 0] <= e)
-                                & (self._src_xy[:, 1] >= s) & (self._src_xy[:, 1] <= n))
+                feats.append(
+                    {
+                        "type": "Feature",
+                        "geometry": {"type": "LineString", "coordinates": coords.tolist()},
+                        "properties": {
+                            "band": self._bands[i],
+                            "street": self._names[i],
+                            "segments": 1,
+                        },
+                    }
+                )
+        inside = np.flatnonzero(
+            (self._src_xy[:, 0] >= w)
+            & (self._src_xy[:, 0] <= e)
+            & (self._src_xy[:, 1] >= s)
+            & (self._src_xy[:, 1] <= n)
+        )
         src_trunc = len(inside) > MAX_SOURCES
         inside = inside[:MAX_SOURCES]
-        sources = [{"lon": round(float(self._src_xy[i, 0]), 6),
-                    "lat": round(float(self._src_xy[i, 1]), 6),
-                    "category": str(self._src_cat[i]), "name": str(self._src_name[i])}
-                   for i in inside]
-        return {"edges": {"type": "FeatureCollection", "features": feats},
-                "segments": int(len(hits)),
-                "sources": sources, "truncated": bool(truncated or src_trunc),
-                "zoom": zoom, "metres_per_pixel": round(mpp, 3)}
+        sources = [
+            {
+                "lon": round(float(self._src_xy[i, 0]), 6),
+                "lat": round(float(self._src_xy[i, 1]), 6),
+                "category": str(self._src_cat[i]),
+                "name": str(self._src_name[i]),
+            }
+            for i in inside
+        ]
+        return {
+            "edges": {"type": "FeatureCollection", "features": feats},
+            "segments": int(len(hits)),
+            "sources": sources,
+            "truncated": bool(truncated or src_trunc),
+            "zoom": zoom,
+            "metres_per_pixel": round(mpp, 3),
+        }
 
 
 def _r6(x: float) -> float:
     return round(float(x), 6)
 
 
-_PATH_REFUSED = ("the server reads no file by path; send the file's content "
-                 "(open it on the page)")
+_PATH_REFUSED = "the server reads no file by path; send the file's content (open it on the page)"
 
 
 def _integer(doc: dict[str, Any], key: str, default: int | None) -> Any:
@@ -568,20 +682,24 @@ def _upload(max_bytes: int) -> Iterator[_Upload]:
 
 
 def _too_big(n: int, limit: int) -> str:
-    return (f"the upload is {n / 1048576:.1f} MB; the limit is {limit / 1048576:g} MB "
-            "(routerisk serve --max-upload-mb)")
+    return (
+        f"the upload is {n / 1048576:.1f} MB; the limit is {limit / 1048576:g} MB "
+        "(routerisk serve --max-upload-mb)"
+    )
 
 
 # ----------------------------------------------------------------------------- the app
 
 
-def _answer(svc: Service, payload: dict[str, Any], up: _Upload | None,
-            status: int = 200) -> Response:
+def _answer(
+    svc: Service, payload: dict[str, Any], up: _Upload | None, status: int = 200
+) -> Response:
     payload = dict(payload)
     payload.setdefault("made_from", svc.made_from(up))
     payload["caution"] = CAUTION
-    body = json.dumps(payload, sort_keys=True, separators=(",", ":"), ensure_ascii=False,
-                      allow_nan=False)
+    body = json.dumps(
+        payload, sort_keys=True, separators=(",", ":"), ensure_ascii=False, allow_nan=False
+    )
     return Response(body, status_code=status, media_type="application/json")
 
 
@@ -604,15 +722,19 @@ async def _body(request: Request, svc: Service) -> dict[str, Any]:
     except UnicodeDecodeError:
         raise RequestError("request body: not UTF-8 text") from None
     except json.JSONDecodeError as exc:
-        raise RequestError(f"request body: not valid JSON ({exc.msg} at line {exc.lineno} "
-                           f"column {exc.colno})") from None
+        raise RequestError(
+            f"request body: not valid JSON ({exc.msg} at line {exc.lineno} column {exc.colno})"
+        ) from None
     if not isinstance(doc, dict):
         raise RequestError("request body: must be a JSON object")
     return doc
 
 
-def _post(svc: Service, work: Callable[[dict[str, Any], _Upload], dict[str, Any]],
-          limiter: anyio.CapacityLimiter) -> Callable[[Request], Awaitable[Response]]:
+def _post(
+    svc: Service,
+    work: Callable[[dict[str, Any], _Upload], dict[str, Any]],
+    limiter: anyio.CapacityLimiter,
+) -> Callable[[Request], Awaitable[Response]]:
     async def endpoint(request: Request) -> Response:
         try:
             doc = await _body(request, svc)
@@ -626,6 +748,7 @@ def _post(svc: Service, work: Callable[[dict[str, Any], _Upload], dict[str, Any]
             except RouteriskError as exc:
                 return _error(svc, exc.one_line(), 422 if _is_data(exc) else 400, up)
             return _answer(svc, result, up)
+
     return endpoint
 
 
@@ -633,8 +756,14 @@ def _is_data(exc: RouteriskError) -> bool:
     return type(exc).__name__ in ("EmptyNetworkError",)
 
 
-def create_app(net: Any, *, token: str | None = None, loopback: bool = True,  # noqa: C901
-               max_upload: int = MAX_UPLOAD_BYTES, workers: int = 4) -> Starlette:
+def create_app(
+    net: Any,
+    *,
+    token: str | None = None,
+    loopback: bool = True,  # noqa: C901
+    max_upload: int = MAX_UPLOAD_BYTES,
+    workers: int = 4,
+) -> Starlette:
     """Return the ASGI application on a loaded network.
 
     Parameters
@@ -673,12 +802,16 @@ def create_app(net: Any, *, token: str | None = None, loopback: bool = True,  # 
             zoom = int(q.get("zoom", "15"))
         except ValueError:
             return _error(svc, "bbox must be W,S,E,N in degrees and zoom a whole number", 400)
-        if len(parts) != 4 or not all(map(math.isfinite, parts)) or not 0 <= zoom <= 24 \
-                or parts[0] >= parts[2] or parts[1] >= parts[3]:
+        if (
+            len(parts) != 4
+            or not all(map(math.isfinite, parts))
+            or not 0 <= zoom <= 24
+            or parts[0] >= parts[2]
+            or parts[1] >= parts[3]
+        ):
             return _error(svc, "bbox must be W,S,E,N in degrees (W < E, S < N), zoom 0-24", 400)
         bbox = (parts[0], parts[1], parts[2], parts[3])
-        result = await anyio.to_thread.run_sync(svc.network, bbox, zoom,
-                                                limiter=view_limiter)
+        result = await anyio.to_thread.run_sync(svc.network, bbox, zoom, limiter=view_limiter)
         return _answer(svc, result, None)
 
     async def export(request: Request) -> Response:
@@ -705,20 +838,25 @@ def create_app(net: Any, *, token: str | None = None, loopback: bool = True,  # 
         Route("/api/info", info),
         Route("/api/network", network),
         Route("/api/export", export, methods=["POST"]),
-    ] + [Route(f"/api/{name}", _post(svc, getattr(svc, name), limiter), methods=["POST"])
-         for name in ("score", "week", "alternatives", "review", "plan")]
+    ] + [
+        Route(f"/api/{name}", _post(svc, getattr(svc, name), limiter), methods=["POST"])
+        for name in ("score", "week", "alternatives", "review", "plan")
+    ]
     middleware = []
     if loopback:
         middleware.append(Middleware(TrustedHostMiddleware, allowed_hosts=list(LOOPBACK_HOSTS)))
     if token:
         middleware.append(Middleware(_TokenCheck, token=token))
-    app = Starlette(routes=[
-        Route("/", index),
-        *api,
-        Mount("/static/serve", StaticFiles(directory=str(static / "serve"))),
-        Mount("/static/leaflet", StaticFiles(directory=str(static / "leaflet"))),
-    ], middleware=middleware, exception_handlers={404: not_found, 405: not_found,
-                                                  Exception: crashed})
+    app = Starlette(
+        routes=[
+            Route("/", index),
+            *api,
+            Mount("/static/serve", StaticFiles(directory=str(static / "serve"))),
+            Mount("/static/leaflet", StaticFiles(directory=str(static / "leaflet"))),
+        ],
+        middleware=middleware,
+        exception_handlers={404: not_found, 405: not_found, Exception: crashed},
+    )
     app.state.service = svc
     return app
 
@@ -735,14 +873,23 @@ class _TokenCheck:
             await self.app(scope, receive, send)
             return
         request = Request(scope)
-        given = (request.headers.get(TOKEN_HEADER) or request.query_params.get("token")
-                 or request.cookies.get(TOKEN_COOKIE) or "")
+        given = (
+            request.headers.get(TOKEN_HEADER)
+            or request.query_params.get("token")
+            or request.cookies.get(TOKEN_COOKIE)
+            or ""
+        )
         if not secrets.compare_digest(given.encode(), self.token.encode()):
-            body = dumps_json({"error": "this server needs its token (header "
-                                        "X-Routerisk-Token, or open the page with ?token=)",
-                               "status": 403, "caution": CAUTION})
+            body = dumps_json(
+                {
+                    "error": "this server needs its token (header "
+                    "X-Routerisk-Token, or open the page with ?token=)",
+                    "status": 403,
+                    "caution": CAUTION,
+                }
+            )
             await Response(body, status_code=403, media_type="application/json")(
-                scope, receive, send)
+                scope, receive, send
+            )
             return
         await self.app(scope, receive, send)
-
