@@ -102,8 +102,8 @@ class Routes(_Items["PlannedRoute"]):
                 "lon": float(lon),
                 "lat": float(lat),
                 "time": None if r.times is None else r.times[i].isoformat(),
-                "required": bool(r.required[i]),
-            }  # type: ignore[index]
+                "required": bool(r.required[i]),  # type: ignore[index]
+            }
             for r in self._items
             for i, (lon, lat) in enumerate(r.lonlat)
         ]
