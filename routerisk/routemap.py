@@ -204,6 +204,33 @@ def _add_rule_breaks(m: Any, scores: list[RouteScore]) -> int:
     return n
 
 
+def _intervals(unc: dict[str, Any] | None) -> dict[tuple[str, str], str]:
+    """Return 'low - high' text of each route's interval under weight draws, by (name, depart)."""
+    if unc is None:
+        return {}
+    return {(r["name"], r["depart"]): f"{r['low']:.3f} - {r['high']:.3f}" for r in unc["routes"]}
+
+
+def interval_chart(unc: dict[str, Any]) -> str:
+    """Return a PNG data URI: each route's median risk and interval under the weight draws."""
+    rts = sorted(unc["routes"], key=lambda r: (r["median"], r["name"]))
+    fig, ax = plt.subplots(figsize=(4.6, 0.6 + 0.35 * max(1, len(rts))))
+    for i, r in enumerate(rts):
+        ax.plot([r["low"], r["high"]], [i, i], color="#3b3b3b", lw=2.5, solid_capstyle="butt")
+        ax.plot([r["median"]], [i], "o", color="#ffffff", mec="#3b3b3b", ms=5)
+        ax.plot([r["risk"]], [i], "|", color="#b0301c", ms=10, mew=2)
+    ax.set_yticks(range(len(rts)), [f"{r['name']} {r['depart'][5:16]}" for r in rts])
+    ax.tick_params(axis="y", labelsize=7)
+    ax.set_xlabel(
+        f"risk: {round(100 * unc['level'])} % interval (bar), median (dot), profile weights (tick)",
+        fontsize=7,
+    )
+    ax.set_title(f"Risk under {unc['draws']} weight draws (seed {unc['seed']})", fontsize=9)
+    ax.grid(axis="x", alpha=0.3)
+    fig.tight_layout()
+    return png_data_uri(fig)
+
+
 def route_map(
     net: Any,
     scores: list[RouteScore],
@@ -211,6 +238,7 @@ def route_map(
     tiles: Any = None,
     title: str = "Scored test routes",
     bands: str = "fixed",
+    uncertainty: dict[str, Any] | None = None,
 ) -> Any:
     """Return a map of the routes coloured by segment risk per km, with chart and caution.
 
@@ -272,17 +300,35 @@ def route_map(
         )
     n_breaks = _add_rule_breaks(m, scores)
     mapview.layer_control(m)
+    spread = _intervals(uncertainty)
+    pct = "" if uncertainty is None else f"{round(100 * uncertainty['level'])} % interval"
     rows = "".join(
         f"<tr><td>{mapview.escape(s.name)}</td><td>{s.depart.strftime('%a %H:%M')}</td>"
-        f"<td>{s.risk:.3f}</td><td>{s.relative_index:.2f}</td><td>{len(s.rule_breaks)}</td>"
-        "</tr>"
+        f"<td>{s.risk:.3f}</td>"
+        + (
+            f"<td>{spread[(s.name, s.depart.isoformat())]}</td>"
+            if (s.name, s.depart.isoformat()) in spread
+            else ("<td></td>" if spread else "")
+        )
+        + f"<td>{s.relative_index:.2f}</td><td>{len(s.rule_breaks)}</td></tr>"
         for s in sorted(scores, key=lambda s: (s.risk, s.name))
     )
     table = (
         "<table style='font-size:11px'><tr><th>route</th><th>depart</th><th>risk</th>"
-        f"<th>index</th><th>rule breaks</th></tr>{rows}</table>"
+        + (f"<th>{pct}</th>" if spread else "")
+        + f"<th>index</th><th>rule breaks</th></tr>{rows}</table>"
     )
     chart = f'<img alt="risk along distance" style="width:300px" src="{risk_chart(scores)}">'
+    if uncertainty is not None:
+        chart += (
+            f'<img alt="risk under weight draws" style="width:300px" '
+            f'src="{interval_chart(uncertainty)}">'
+            + "".join(
+                f"<div style='font-size:11px'>P({mapview.escape(p['a'])} lower than "
+                f"{mapview.escape(p['b'])}) = {p['p_a_lower']:.2f}</div>"
+                for p in uncertainty["pairs"][:6]
+            )
+        )
     legend = cls.legend_items()
     items: list[tuple[str | None, str]] = [
         (None, "segment risk per km at the time driven"),
@@ -349,8 +395,12 @@ def write_outputs(
     tiles: Any = None,
     inputs: dict[str, Any] | None = None,
     bands: str = "fixed",
+    uncertainty: dict[str, Any] | None = None,
 ) -> Path:
     """Write routes.csv, segments.geojson and map.html into ``out`` atomically.
+
+    With ``uncertainty`` (:func:`routerisk.uncertainty.summarise`) the table gains each
+    route's median and interval under the weight draws, and the map its interval chart.
 
     Each records the tool version, the profile fingerprint and the input checksums
     (``inputs``: role -> file, e.g. ``{"routes": path}``; the network source always).
@@ -359,13 +409,24 @@ def write_outputs(
 
     meta = output_meta(net, inputs)
     table = ranking_table(scores)
+    extra = ""
+    if uncertainty is not None:
+        by = {(r["name"], r["depart"]): r for r in uncertainty["routes"]}
+        keys = list(zip(table["name"], table["depart"], strict=True)) if len(table) else []
+        for col in ("median", "low", "high"):
+            table[f"risk_{col}"] = [by[k][col] if k in by else np.nan for k in keys]
+        extra = (
+            f"# risk_median, risk_low, risk_high: {uncertainty['draws']} weight draws "
+            f"(seed {uncertainty['seed']}), {round(100 * uncertainty['level'])} % interval\n"
+        )
     csv_text = (
         f"# {CAUTION}\n# {provenance_line(meta)}\n"
         f"# {scoring.RELATIVE_INDEX_NOTE}\n# {scoring.model_note(net.profile)}\n"
+        + extra
         + _round_floats(table).to_csv(index=False, lineterminator="\n")
     )
     geojson = geojson_text(segments_gdf(net, scores), meta)
-    m = route_map(net, scores, tiles=tiles, bands=bands)
+    m = route_map(net, scores, tiles=tiles, bands=bands, uncertainty=uncertainty)
     mapview.add_provenance(m, {k: meta[k] for k in ("routerisk_version", "profile", "inputs")})
     page = mapview.render(m)
     with atomic_directory(out, force=force) as tmp:
@@ -418,6 +479,7 @@ def suggestion_map(
     tiles: Any = None,
     inputs: dict[str, Any] | None = None,
     bands: str = "fixed",
+    uncertainty: dict[str, Any] | None = None,
 ) -> Any:
     """Return one offline map: network by class, sources, rule zones, plans and alternatives.
 
@@ -450,8 +512,9 @@ def suggestion_map(
     fields["crossing_part"] = "part: crossings"
     rows_html = []
     n_alt = 0
-    for s in suggestions:
+    for i_s, s in enumerate(suggestions):
         options = [("planned", s.planned, None)] + [(a.label, a.score, a) for a in s.alternatives]
+        drawn = None if uncertainty is None else uncertainty["routes"][i_s]
         for j, (label, score, alt) in enumerate(options):
             gdf = segments_gdf(net, [score]).to_crs(net.crs)
             k = j % len(mapview.ROUTE_COLOURS)
@@ -477,6 +540,17 @@ def suggestion_map(
                     + ("" if alt.within_bounds else ", outside the bounds")
                     + (f", breaks {len(score.rule_breaks)} rule(s)" if score.rule_breaks else "")
                 )
+            if drawn is not None:
+                pct = round(100 * uncertainty["level"])  # type: ignore[index]
+                if alt is None:
+                    iv = drawn["plan"]
+                    change += f"; {pct} % interval {iv['low']:.3f} - {iv['high']:.3f}"
+                elif j - 1 < len(drawn["alternatives"]):
+                    a_u = drawn["alternatives"][j - 1]
+                    change += (
+                        f"; {pct} % interval {a_u['low']:.3f} - {a_u['high']:.3f}, "
+                        f"P(lower than the plan) {a_u['p_lower_than_plan']:.2f}"
+                    )
             notes = "".join(
                 f"<br><small><i>{mapview.escape(c)}</i></small>"
                 for c in (alt.caveats if alt is not None else [])

@@ -196,6 +196,28 @@ def test_score_uncertainty_is_seeded_and_reproducible(town_dir, tmp_path, capsys
     assert len(u["pairs"]) == 6  # routes at their own times: every pair
 
 
+def test_score_uncertainty_reaches_the_table_and_the_map(town_dir, tmp_path, capsys):
+    prof = _ranged_profile(tmp_path, school={"low": 1.0, "high": 6.0})
+    out = tmp_path / "out"
+    args = ["--network", str(town_dir), "--profile", str(prof), "--uncertainty", "300"]
+    code, text, _ = _score([*args, "--json"], capsys)
+    u = json.loads(text)["uncertainty"]
+    code, _, _ = _score([*args, "--out", str(out)], capsys)
+    assert code == 0
+    csv = (out / "routes.csv").read_text()
+    assert "# risk_median, risk_low, risk_high: 300 weight draws (seed 1)" in csv
+    import pandas as pd
+
+    table = pd.read_csv(out / "routes.csv", comment="#")
+    by = {r["name"]: r for r in u["routes"]}
+    for row in table.itertuples(index=False):
+        assert row.risk_low == pytest.approx(by[row.name]["low"], abs=1e-6)
+        assert row.risk_low <= row.risk_median <= row.risk_high
+    page = (out / "map.html").read_text()
+    assert "90 % interval" in page and "risk under weight draws" in page
+    assert "lower than" in page
+
+
 @pytest.mark.parametrize(
     ("extra", "words"),
     [
@@ -240,6 +262,12 @@ def test_suggest_uncertainty_gives_probability_against_the_plan(town_dir, tmp_pa
             assert 0.0 <= u["p_lower_than_plan"] <= 1.0
             if alt["risk_change_pct"] < -50:  # far lower at every draw of two weights
                 assert u["p_lower_than_plan"] == 1.0
+    # the map's side panel carries the intervals and the probabilities
+    page_path = tmp_path / "alt.html"
+    assert main([*args[:-1], "--map", str(page_path)]) == 0
+    capsys.readouterr()
+    page = page_path.read_text()
+    assert "90 % interval" in page and "P(lower than the plan)" in page
     assert (
         main(
             [

@@ -110,6 +110,7 @@ def run(args: argparse.Namespace) -> int:
             tiles=tiles,
             bands=args.bands,
             inputs={"routes": args.routes},
+            uncertainty=unc,
         )
     if args.json:
         doc = {

@@ -138,7 +138,12 @@ def run(args: argparse.Namespace) -> int:
 
         mapview.save(
             routemap.suggestion_map(
-                net, result, tiles=tiles, bands=args.bands, inputs={"routes": args.routes}
+                net,
+                result,
+                tiles=tiles,
+                bands=args.bands,
+                inputs={"routes": args.routes},
+                uncertainty=unc,
             ),
             args.map,
             force=args.force,
