@@ -238,9 +238,12 @@ def timeline_png(plan: DayPlan) -> bytes:
     vehicles = sorted({a.vehicle for a in plan.schedule.assignments})
     risks = [a.risk for a in plan.schedule.assignments] or [1.0]
     hi = max(risks) or 1.0
-    import matplotlib
+    from matplotlib.colors import LinearSegmentedColormap
 
-    cmap = matplotlib.colormaps["YlOrRd"]
+    from .mapview import BAND_RAMP
+
+    # the maps' own light-to-dark ramp, so a darker bar means more risk on every output
+    cmap = LinearSegmentedColormap.from_list("routerisk", BAND_RAMP)
     for a, opt in plan.chosen():
         y = vehicles.index(a.vehicle)
         start = float(a.start)
