@@ -4,9 +4,10 @@ The model is the profile's own additive form (the same edge columns and time pro
 :mod:`routerisk.scoring` uses). For a counting period at a site placed on edge ``e``::
 
     E[count] = scale * sum over the period's minutes of
-               (baseline_e + sum_c weight_c * mult_c(minute) * exp_c,e) / 60
+               (baseline_e * mult_b(minute) + sum_c weight_c * mult_c(minute) * exp_c,e) / 60
 
-``baseline_e`` is the edge's road-class baseline times its sidewalk multiplier and
+``baseline_e`` is the edge's road-class baseline times its sidewalk multiplier (``mult_b`` the
+baseline's time profile, when the profile gives one) and
 ``exp_c,e`` its length-averaged decayed nearness (both from :mod:`routerisk.tagging`);
 ``mult_c`` is the category's time profile (:meth:`routerisk.profile.Profile.multipliers`).
 Radii, decays, time profiles and the baseline stay as the profile gives them (the baseline
@@ -279,7 +280,19 @@ def period_multipliers(
     Uses the profile's own :meth:`~routerisk.profile.Profile.multipliers` table of the week,
     summed over each period by cumulative sums (periods of up to 7 days).
     """
-    table = profile.multipliers(np.arange(MINUTES_PER_WEEK))  # (W, C)
+    return _period_means(profile.multipliers(np.arange(MINUTES_PER_WEEK)), start_minute, minutes)
+
+
+def baseline_multipliers(
+    profile: Profile, start_minute: np.ndarray, minutes: np.ndarray
+) -> np.ndarray:
+    """Return each period's mean multiplier of the street baseline's time profile (1: none)."""
+    table = profile.by_minute_of(profile.baseline_time_profile)[:, None]
+    return _period_means(table, start_minute, minutes)[:, 0]
+
+
+def _period_means(table: np.ndarray, start_minute: np.ndarray, minutes: np.ndarray) -> np.ndarray:
+    """Return the mean of a (week minutes, k) table over each period (cumulative sums)."""
     cs = np.vstack([np.zeros((1, table.shape[1])), np.cumsum(np.vstack([table, table]), 0)])
     s = np.asarray(start_minute, dtype=np.int64) % MINUTES_PER_WEEK
     n = np.maximum(np.asarray(minutes, dtype=np.int64), 1)
@@ -335,7 +348,12 @@ def build_design(
     mins = np.rint(per["hours"].to_numpy() * 60).astype(np.int64)
     mult = period_multipliers(prof, minute_of_week(starts), mins)
     hours = per["hours"].to_numpy(dtype=float)
-    base = edges["baseline"].to_numpy(dtype=float)[rows] * hours
+    # the baseline as scoring applies it: times its time profile over the period's minutes
+    base = (
+        edges["baseline"].to_numpy(dtype=float)[rows]
+        * hours
+        * baseline_multipliers(prof, minute_of_week(starts), mins)
+    )
     cats = list(prof.category_names)
     exp = np.column_stack([edges[f"exp_{c}"].to_numpy(dtype=float)[rows] for c in cats])
     full = np.column_stack([base, hours[:, None] * mult * exp])
