@@ -14,7 +14,7 @@ import pandas as pd
 from shapely import LineString
 from shapely.ops import substring
 
-from . import CAUTION, scoring
+from . import CAUTION, route_charts, scoring
 from . import _aggplot as plt  # figures on the Agg canvas; the user's backend is left alone
 from ._io import dumps_json, write_text_atomic
 from ._lazy import lazy_module
@@ -204,33 +204,6 @@ def _add_rule_breaks(m: Any, scores: list[RouteScore]) -> int:
     return n
 
 
-def _intervals(unc: dict[str, Any] | None) -> dict[tuple[str, str], str]:
-    """Return 'low - high' text of each route's interval under weight draws, by (name, depart)."""
-    if unc is None:
-        return {}
-    return {(r["name"], r["depart"]): f"{r['low']:.3f} - {r['high']:.3f}" for r in unc["routes"]}
-
-
-def interval_chart(unc: dict[str, Any]) -> str:
-    """Return a PNG data URI: each route's median risk and interval under the weight draws."""
-    rts = sorted(unc["routes"], key=lambda r: (r["median"], r["name"]))
-    fig, ax = plt.subplots(figsize=(4.6, 0.6 + 0.35 * max(1, len(rts))))
-    for i, r in enumerate(rts):
-        ax.plot([r["low"], r["high"]], [i, i], color="#3b3b3b", lw=2.5, solid_capstyle="butt")
-        ax.plot([r["median"]], [i], "o", color="#ffffff", mec="#3b3b3b", ms=5)
-        ax.plot([r["risk"]], [i], "|", color="#b0301c", ms=10, mew=2)
-    ax.set_yticks(range(len(rts)), [f"{r['name']} {r['depart'][5:16]}" for r in rts])
-    ax.tick_params(axis="y", labelsize=7)
-    ax.set_xlabel(
-        f"risk: {round(100 * unc['level'])} % interval (bar), median (dot), profile weights (tick)",
-        fontsize=7,
-    )
-    ax.set_title(f"Risk under {unc['draws']} weight draws (seed {unc['seed']})", fontsize=9)
-    ax.grid(axis="x", alpha=0.3)
-    fig.tight_layout()
-    return png_data_uri(fig)
-
-
 def route_map(
     net: Any,
     scores: list[RouteScore],
@@ -300,7 +273,7 @@ def route_map(
         )
     n_breaks = _add_rule_breaks(m, scores)
     mapview.layer_control(m)
-    spread = _intervals(uncertainty)
+    spread = route_charts.intervals(uncertainty)
     pct = "" if uncertainty is None else f"{round(100 * uncertainty['level'])} % interval"
     rows = "".join(
         f"<tr><td>{mapview.escape(s.name)}</td><td>{s.depart.strftime('%a %H:%M')}</td>"
@@ -322,7 +295,7 @@ def route_map(
     if uncertainty is not None:
         chart += (
             f'<img alt="risk under weight draws" style="width:300px" '
-            f'src="{interval_chart(uncertainty)}">'
+            f'src="{route_charts.interval_chart(uncertainty)}">'
             + "".join(
                 f"<div style='font-size:11px'>P({mapview.escape(p['a'])} lower than "
                 f"{mapview.escape(p['b'])}) = {p['p_a_lower']:.2f}</div>"
