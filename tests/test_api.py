@@ -407,3 +407,11 @@ def test_public_function_typed_and_documented(name):
         assert section in doc, section
     for p in sig.parameters:
         assert p in doc, f"{p} is not documented"
+
+
+def test_the_top_level_list_and_the_api_list_agree():
+    # routerisk/__init__.py keeps its own light copy so `import routerisk` loads nothing heavy;
+    # the two static lists (kept static for linters and type checkers) must not drift apart
+    import routerisk
+
+    assert list(routerisk._API) == list(api.__all__)
