@@ -5,7 +5,7 @@ Run by hand (not part of the tests)::
     python bench/bench_all.py                      # 10k and 100k edges
     python bench/bench_all.py --sizes 1000000      # 1M (minutes; about 3 GiB)
 
-For each size a seeded invented city (routerisk.synthetic.write_city) is written as PBF and
+For each size a seeded invented city (routerisk.testing.synthetic.write_city) is written as PBF and
 XML, then every stage runs in a fresh interpreter, so its wall time and peak memory are its own
 (``VmHWM`` of ``/proc/self/status``: the high-water mark of this process's own memory; Linux's
 ``ru_maxrss`` would carry over the parent's size at the fork before the exec):
@@ -75,7 +75,7 @@ def peak_mib() -> float:
 
 
 def _net(folder: str) -> Any:
-    from routerisk.network import load_network
+    from routerisk.network.folder import load_network
 
     return load_network(folder)
 
@@ -88,8 +88,8 @@ def child_osmnx_load(a: dict[str, Any]) -> dict[str, Any]:
 
 
 def child_load(a: dict[str, Any]) -> dict[str, Any]:
-    from routerisk import loader
-    from routerisk._osm import read_osm
+    from routerisk.network import loader
+    from routerisk.network.osm import read_osm
 
     t = time.perf_counter()
     raw = read_osm(a["pbf"])
@@ -99,14 +99,14 @@ def child_load(a: dict[str, Any]) -> dict[str, Any]:
 
 
 def child_graph_from_file(a: dict[str, Any]) -> dict[str, Any]:
-    from routerisk import loader
+    from routerisk.network import loader
 
     G = loader.graph_from_file(a["pbf"])
     return {"edges": G.number_of_edges()}
 
 
 def child_build(a: dict[str, Any]) -> dict[str, Any]:
-    from routerisk.network import build_network, save_network
+    from routerisk.network.folder import build_network, save_network
 
     net = build_network(a["pbf"])
     save_network(net, a["net"], force=True)
@@ -114,7 +114,7 @@ def child_build(a: dict[str, Any]) -> dict[str, Any]:
 
 
 def _tag_inputs(a: dict[str, Any]) -> tuple[Any, ...]:
-    from routerisk.network import EDGE_KEEP
+    from routerisk.network.folder import EDGE_KEEP
 
     net = _net(a["net"])
     base = net.edges[[c for c in net.edges.columns if c in EDGE_KEEP]]
@@ -122,7 +122,7 @@ def _tag_inputs(a: dict[str, Any]) -> tuple[Any, ...]:
 
 
 def child_tag(a: dict[str, Any]) -> dict[str, Any]:
-    from routerisk import tagging
+    from routerisk.network import tagging
 
     net, base = _tag_inputs(a)
     t = time.perf_counter()
@@ -157,7 +157,8 @@ def child_tag_sjoin(a: dict[str, Any]) -> dict[str, Any]:
 
 
 def child_tag_dask(a: dict[str, Any]) -> dict[str, Any]:
-    from routerisk import partition, tagging
+    from routerisk import parallel as partition
+    from routerisk.network import tagging
 
     net, base = _tag_inputs(a)
     with partition.cluster(workers=2) as client:
@@ -188,7 +189,7 @@ def child_tag_dask(a: dict[str, Any]) -> dict[str, Any]:
 
 def child_load_network(a: dict[str, Any]) -> dict[str, Any]:
     t = time.perf_counter()
-    from routerisk.network import load_network
+    from routerisk.network.folder import load_network
 
     t_imp = time.perf_counter() - t
     t = time.perf_counter()
@@ -290,7 +291,7 @@ def _routes(a: dict[str, Any]) -> list[dict[str, Any]]:
 
 
 def child_score(a: dict[str, Any]) -> dict[str, Any]:
-    from routerisk.scoring import Scorer, parse_depart
+    from routerisk.analysis.scoring import Scorer, parse_depart
 
     net = _net(a["net"])
     routes = _routes(a)
@@ -316,8 +317,8 @@ def child_score(a: dict[str, Any]) -> dict[str, Any]:
 def child_suggest(a: dict[str, Any]) -> dict[str, Any]:
     import numpy as np
 
-    from routerisk.alternatives import Suggester
-    from routerisk.scoring import Scorer, parse_depart
+    from routerisk.analysis.alternatives import Suggester
+    from routerisk.analysis.scoring import Scorer, parse_depart
 
     net = _net(a["net"])
     routes = _routes(a)[: int(a["suggest"])]
@@ -371,8 +372,8 @@ def _pairs_lonlat(net: Any, pairs: list[tuple[int, int]]) -> list[Any]:
 
 def child_paths(a: dict[str, Any]) -> dict[str, Any]:
     """Join each pair as a two-point route: the fastest-path join every command uses."""
+    from routerisk.io.routes import PlannedRoute
     from routerisk.matching import RoadIndex, join_waypoints
-    from routerisk.routes import PlannedRoute
 
     net = _net(a["net"])
     pairs = [(r["origin"], r["target"]) for r in _routes(a)[: int(a["pairs"])]]
@@ -422,7 +423,7 @@ def child_paths_nx(a: dict[str, Any]) -> dict[str, Any]:
 def child_review(a: dict[str, Any]) -> dict[str, Any]:
     from shapely import box
 
-    from routerisk.review import Area, review_areas
+    from routerisk.analysis.review import Area, review_areas
 
     net = _net(a["net"])
     x0, y0, x1, y1 = net.edges.total_bounds
@@ -516,7 +517,7 @@ def bench_size(edges: int, seed: int, *, skip: set[str], keep: Path | None) -> d
     tmp_ctx = tempfile.TemporaryDirectory(prefix=f"bench{edges}-")
     tmp = Path(tmp_ctx.name) if keep is None else keep
     tmp.mkdir(parents=True, exist_ok=True)
-    from routerisk.synthetic import write_city
+    from routerisk.testing.synthetic import write_city
 
     pbf, xml = tmp / "city.osm.pbf", tmp / "city.osm"
     t = time.perf_counter()

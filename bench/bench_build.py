@@ -2,7 +2,7 @@
 
 Run by hand (not part of the tests):  python bench/bench_build.py --edges 10000
 
-Generates a seeded synthetic city (routerisk.synthetic) as PBF and XML, then times in one run:
+Generates a seeded synthetic city (routerisk.testing.synthetic) as PBF and XML, then times in one run:
   baseline  osmnx.graph_from_xml(XML, simplify=True, retain_all=False)  (load only, no tagging)
   build     routerisk build (read PBF, drive filter, simplify, speeds, UTM, sources, tagging, save)
 and prints a table with the ratio build / baseline, and writes bench/results/build_<edges>.json.
@@ -42,7 +42,7 @@ def main() -> None:
     ap.add_argument("--skip-baseline", action="store_true")
     args = ap.parse_args()
     sys.path.insert(0, str(HERE.parent))
-    from routerisk.synthetic import write_city
+    from routerisk.testing.synthetic import write_city
 
     with tempfile.TemporaryDirectory() as tmp:
         pbf = Path(tmp) / "city.osm.pbf"
@@ -58,7 +58,7 @@ def main() -> None:
             )
         rows["routerisk build"] = _child(
             f"import sys; sys.path.insert(0, {str(HERE.parent)!r})\n"
-            "from routerisk.network import build_network, save_network\n"
+            "from routerisk.network.folder import build_network, save_network\n"
             f"net = build_network({str(pbf)!r})\n"
             f"save_network(net, {str(Path(tmp) / 'net')!r})\n"
             "RESULT = {'edges': len(net.edges)}"

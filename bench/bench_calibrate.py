@@ -32,7 +32,7 @@ def _counts_csv(net, n_sites: int, path: Path, rng) -> None:
     import pyproj
     import shapely
 
-    from routerisk import calibration
+    from routerisk.analysis import calibration
 
     e = net.edges
     chosen: list[int] = []
@@ -71,9 +71,9 @@ def _coverage(seeds: int) -> dict[str, float]:
     import numpy as np
     from scipy.stats import norm
 
-    from routerisk import calibration as cb
     from routerisk import datasets
-    from routerisk.network import build_network
+    from routerisk.analysis import calibration as cb
+    from routerisk.network.folder import build_network
 
     net = build_network(datasets.get_path("town"), timezone="Etc/GMT+3")
     counts = cb.read_counts(datasets.get_path("counts"), net.timezone)
@@ -94,10 +94,10 @@ def main() -> None:
     """Run the benchmark and write its JSON record."""
     import numpy as np
 
-    from routerisk import calibration, scoring, uncertainty
-    from routerisk.network import build_network
-    from routerisk.routes import PlannedRoute
-    from routerisk.synthetic import write_city
+    from routerisk.analysis import calibration, scoring, uncertainty
+    from routerisk.io.routes import PlannedRoute
+    from routerisk.network.folder import build_network
+    from routerisk.testing.synthetic import write_city
 
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--edges", type=int, default=100_000)

@@ -26,9 +26,10 @@ def main() -> None:
     import networkx as nx
     import numpy as np
 
-    from routerisk import datasets, dayplan, planning
-    from routerisk.network import build_network
-    from routerisk.scoring import edge_risk_parts, minute_of_week
+    from routerisk import datasets
+    from routerisk.analysis import dayplan, planning
+    from routerisk.analysis.scoring import edge_risk_parts, minute_of_week
+    from routerisk.network.folder import build_network
 
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--runs", type=int, default=40)

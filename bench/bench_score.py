@@ -26,10 +26,10 @@ def main() -> None:
     import networkx as nx
     import numpy as np
 
-    from routerisk import scoring
-    from routerisk.network import build_network
-    from routerisk.routes import PlannedRoute
-    from routerisk.synthetic import write_city
+    from routerisk.analysis import scoring
+    from routerisk.io.routes import PlannedRoute
+    from routerisk.network.folder import build_network
+    from routerisk.testing.synthetic import write_city
 
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--edges", type=int, default=10000)
@@ -62,7 +62,7 @@ def main() -> None:
     scores = scoring.score_routes(net, routes, [depart])
     t_ours = time.perf_counter() - t0
     t0 = time.perf_counter()
-    from routerisk.scoring import edge_risk_parts, minute_of_week
+    from routerisk.analysis.scoring import edge_risk_parts, minute_of_week
 
     m = minute_of_week(depart)
     for nl in node_lists:

@@ -2,7 +2,7 @@
 
 Run by hand:  python bench/bench_serve.py [--edges 100000 --requests 30]
 
-In one run: a seeded city (``routerisk.synthetic.write_city``) is built, the planning page is
+In one run: a seeded city (``routerisk.testing.synthetic.write_city``) is built, the planning page is
 served by uvicorn on a loopback port, and real HTTP requests (httpx) time ``/api/score`` and
 ``/api/alternatives`` for seeded ~5 km waypoint routes (start, two vias, end); then headless
 chromium (tests/_live_browser.py) times the page from navigation until the network layer of
@@ -50,9 +50,9 @@ def main() -> None:
     """Build the city, serve it, time the requests and the page, write the results."""
     import httpx
 
-    from routerisk.network import build_network
+    from routerisk.network.folder import build_network
     from routerisk.serve.app import create_app
-    from routerisk.synthetic import write_city
+    from routerisk.testing.synthetic import write_city
     from tests._browser import CHROMIUM
     from tests._live_browser import LiveServer, Session
 

@@ -4,7 +4,7 @@ Usage::
 
     python bench/make_city.py --edges 100000 --seed 1 --out city.osm.pbf
 
-Prints the summary of :func:`routerisk.synthetic.write_city` as JSON, with the seconds taken.
+Prints the summary of :func:`routerisk.testing.synthetic.write_city` as JSON, with the seconds taken.
 """
 
 from __future__ import annotations
@@ -16,14 +16,14 @@ from collections.abc import Sequence
 from pathlib import Path
 
 try:
-    from routerisk import synthetic
-    from routerisk._io import dumps_json
     from routerisk.errors import RouteriskError
+    from routerisk.io.atomic import dumps_json
+    from routerisk.testing import synthetic
 except ModuleNotFoundError:  # run from a checkout without installing the package
     sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
-    from routerisk import synthetic
-    from routerisk._io import dumps_json
     from routerisk.errors import RouteriskError
+    from routerisk.io.atomic import dumps_json
+    from routerisk.testing import synthetic
 
 
 def _centre(text: str) -> tuple[float, float]:

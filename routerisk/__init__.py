@@ -3,11 +3,11 @@
 The package is flat, one pipeline stage per module::
 
     routerisk.profile    frozen, validated exposure profile (weights, radii, rules)
-    routerisk.loader     OSM file -> projected drivable road graph
-    routerisk.sources    OSM file -> exposure sources per profile category
-    routerisk.severity   impact speed -> pedestrian death / severe injury probability
-    routerisk.tagging    per-edge exposure, crossings and severity
-    routerisk.network    saved network folder (GeoPackage + metadata)
+    routerisk.network.loader     OSM file -> projected drivable road graph
+    routerisk.network.sources    OSM file -> exposure sources per profile category
+    routerisk.network.severity   impact speed -> pedestrian death / severe injury probability
+    routerisk.network.tagging    per-edge exposure, crossings and severity
+    routerisk.network.folder    saved network folder (GeoPackage + metadata)
 
 The top-level functions (:mod:`routerisk.api`) are the front door for notebooks and scripts::
 

@@ -6,7 +6,7 @@ import contextlib
 import re
 from collections.abc import Iterator, Mapping
 
-from .errors import RouteriskError
+from routerisk.errors import RouteriskError
 
 
 def param_name(flag: str) -> str:

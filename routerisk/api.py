@@ -17,10 +17,10 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING, Literal
 
-from ._params import parameters
-from .errors import OptionError
-from .inputs import read_areas, read_drives, read_events, read_routes, read_runs
-from .results import (
+from routerisk._params import parameters
+from routerisk.errors import OptionError
+from routerisk.inputs import read_areas, read_drives, read_events, read_routes, read_runs
+from routerisk.results import (
     Areas,
     Events,
     EvidenceResult,
@@ -36,9 +36,9 @@ from .results import (
 if TYPE_CHECKING:
     import pandas as pd
 
-    from .network import Network
-    from .profile import Profile
-    from .routes import PlannedRoute
+    from routerisk.io.routes import PlannedRoute
+    from routerisk.network.folder import Network
+    from routerisk.profile import Profile
 
 __all__ = [
     "build_network",
@@ -61,7 +61,7 @@ Departure = dt.datetime | str
 
 
 def _profile(profile: Profile | str | Path | None) -> Profile | None:
-    from .profile import Profile, load_profile
+    from routerisk.profile import Profile, load_profile
 
     if profile is None or isinstance(profile, Profile):
         return profile
@@ -69,7 +69,7 @@ def _profile(profile: Profile | str | Path | None) -> Profile | None:
 
 
 def _departs(net: Network, departs: Sequence[Departure] | Departure) -> list[dt.datetime]:
-    from .scoring import parse_depart
+    from routerisk.analysis.scoring import parse_depart
 
     items = [departs] if isinstance(departs, str | dt.datetime) else list(departs)
     out = []
@@ -106,7 +106,7 @@ def build_network(
     """Build a tagged road network from an OpenStreetMap file, offline.
 
     The same as ``routerisk build SOURCE`` (without writing the folder; save it with
-    :func:`routerisk.network.save_network`).
+    :func:`routerisk.network.folder.save_network`).
 
     Parameters
     ----------
@@ -132,7 +132,7 @@ def build_network(
     >>> net.summary()["edges"] > 0
     True
     """
-    from . import network
+    from routerisk.network import folder as network
 
     with parameters({"--timezone": "timezone"}):
         zone = None if timezone is None else network.check_timezone(timezone)
@@ -166,17 +166,17 @@ def load_network(
     Examples
     --------
     >>> import routerisk as rr
-    >>> from routerisk.network import save_network
+    >>> from routerisk.network.folder import save_network
     >>> built = rr.build_network(rr.datasets.get_path("town"), timezone="Etc/GMT+3")
     >>> folder = save_network(built, "corvane-net")  # what routerisk build --out writes
     >>> rr.load_network(folder).summary() == built.summary()
     True
     """
-    from .network import load_network as _load
+    from routerisk.network.folder import load_network as _load
 
     net = _load(folder, profile=_profile(profile))
     if overlay is not None:
-        from .overlay import apply_overlay
+        from routerisk.network.overlay import apply_overlay
 
         with parameters():
             net = apply_overlay(net, overlay)
@@ -202,7 +202,7 @@ def score_routes(
     network
         The tagged network.
     routes
-        Routes from :func:`read_routes` (or :class:`routerisk.routes.PlannedRoute` objects).
+        Routes from :func:`read_routes` (or :class:`routerisk.io.routes.PlannedRoute` objects).
     departs
         Departure times to compare (each route is scored at each); without any, each
         route's own ``depart``. Text or naive datetimes are read in the network's zone.
@@ -221,7 +221,7 @@ def score_routes(
     >>> list(scores.to_frame().columns[:3])
     ['rank', 'name', 'depart']
     """
-    from .scoring import score_routes as _score
+    from routerisk.analysis.scoring import score_routes as _score
 
     times = _departs(network, departs)
     with parameters({"--depart": "departs"}):
@@ -277,7 +277,7 @@ def suggest_routes(
     >>> alts.to_frame()["option"].iloc[0]
     'planned'
     """
-    from .alternatives import suggest_routes as _suggest
+    from routerisk.analysis.alternatives import suggest_routes as _suggest
 
     if not isinstance(count, int) or count < 1:
         raise OptionError(f"must be a whole number of at least 1, got {count!r}", field="count")
@@ -348,7 +348,7 @@ def review_areas(
     """
     import pyproj
 
-    from . import review
+    from routerisk.analysis import review
 
     if not isinstance(top, int) or top < 0:
         raise OptionError(f"must be a whole number >= 0, got {top!r}", field="top")
@@ -417,7 +417,7 @@ def plan_day(
     >>> plan.to_dict()["status"]
     'optimal'
     """
-    from .dayplan import plan_day as _plan
+    from routerisk.analysis.dayplan import plan_day as _plan
 
     if isinstance(date, str):
         try:
@@ -504,7 +504,7 @@ def plan_evidence(
     >>> round(plan.to_dict()["miles_no_failure"] / 1e6)
     340
     """
-    from . import evidence
+    from routerisk.analysis import evidence
 
     if drives is not None and segments is not None:
         raise OptionError("give drives or segments, not both", field="drives")
@@ -602,7 +602,7 @@ def watch_events(
     >>> rr.watch_events(net, events, drives).to_dict()["events_matched"] > 0
     True
     """
-    from . import watch
+    from routerisk.analysis import watch
 
     with parameters({"--fdr": "fdr", "--drives": "drives", "--arl0-family": "arl0_family"}):
         watch.check_settings(

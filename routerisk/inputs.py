@@ -11,8 +11,8 @@ from datetime import tzinfo
 from pathlib import Path
 from typing import TYPE_CHECKING
 
-from ._params import parameters
-from .results import Areas, Events, Routes, Runs
+from routerisk._params import parameters
+from routerisk.results import Areas, Events, Routes, Runs
 
 if TYPE_CHECKING:
     import pyproj
@@ -38,7 +38,7 @@ def read_routes(path: str | Path, *, timezone: TimeZone | None = None) -> Routes
     Returns
     -------
     Routes
-        A sequence of :class:`routerisk.routes.PlannedRoute`, in file order.
+        A sequence of :class:`routerisk.io.routes.PlannedRoute`, in file order.
 
     Examples
     --------
@@ -47,7 +47,7 @@ def read_routes(path: str | Path, *, timezone: TimeZone | None = None) -> Routes
     >>> len(routes) > 0
     True
     """
-    from . import routes
+    from routerisk.io import routes
 
     return Routes(routes.read_routes(path, default_tz=timezone))
 
@@ -75,8 +75,8 @@ def read_drives(folder: str | Path, *, timezone: TimeZone | None = None) -> Rout
     >>> all(d.times is not None for d in drives)
     True
     """
-    from . import routes
-    from .watch import drive_files
+    from routerisk.analysis.watch import drive_files
+    from routerisk.io import routes
 
     with parameters({"--drives": "folder"}):
         files = drive_files(folder)
@@ -106,7 +106,7 @@ def read_events(path: str | Path, *, timezone: TimeZone | None = None) -> Events
     >>> len(events) > 0
     True
     """
-    from .early_warning import read_events as _read
+    from routerisk.analysis.early_warning import read_events as _read
 
     good, bad = _read(path, tz=timezone)
     return Events(good, bad, str(path))
@@ -136,7 +136,7 @@ def read_areas(path: str | Path, *, crs: str | int | pyproj.CRS) -> Areas:
     """
     import pyproj
 
-    from .review import read_areas as _read
+    from routerisk.analysis.review import read_areas as _read
 
     target = pyproj.CRS.from_user_input(crs)
     return Areas(_read(path, crs=target), target)
@@ -162,6 +162,6 @@ def read_runs(path: str | Path) -> Runs:
     >>> len(runs) > 0
     True
     """
-    from .planning import read_runs as _read
+    from routerisk.analysis.planning import read_runs as _read
 
     return Runs(_read(path))

@@ -21,8 +21,8 @@ from typing import Any
 import numpy as np
 import yaml
 
-from .errors import ProfileError
-from .severity import MPH_TO_KPH
+from routerisk.errors import ProfileError
+from routerisk.network.severity import MPH_TO_KPH
 
 DAYS = ("mon", "tue", "wed", "thu", "fri", "sat", "sun")
 DECAYS = ("none", "linear", "gaussian", "gaussian_smooth")
@@ -181,7 +181,7 @@ class Likelihood:
 class Uncertainty:
     """How sure the weights are: a covariance of fitted weights (from ``routerisk calibrate``).
 
-    Draws are centred on the categories' weights (see :mod:`routerisk.uncertainty`).
+    Draws are centred on the categories' weights (see :mod:`routerisk.analysis.uncertainty`).
     """
 
     weights: tuple[str, ...]

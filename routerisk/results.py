@@ -28,15 +28,15 @@ if TYPE_CHECKING:
     import pandas as pd
     import pyproj
 
-    from .alternatives import Suggestion
-    from .dayplan import DayPlan
-    from .evidence import EvidencePlan
-    from .network import Network
-    from .planning import RunSpec
-    from .review import Area, Review
-    from .routes import PlannedRoute
-    from .scoring import RouteScore
-    from .watch import WatchResult as _Watch
+    from routerisk.analysis.alternatives import Suggestion
+    from routerisk.analysis.dayplan import DayPlan
+    from routerisk.analysis.evidence import EvidencePlan
+    from routerisk.analysis.planning import RunSpec
+    from routerisk.analysis.review import Area, Review
+    from routerisk.analysis.scoring import RouteScore
+    from routerisk.analysis.watch import WatchResult as _Watch
+    from routerisk.io.routes import PlannedRoute
+    from routerisk.network.folder import Network
 
 #: A JSON value, as ``to_dict()`` returns it.
 JSON: TypeAlias = "dict[str, JSON] | list[JSON] | str | int | float | bool | None"
@@ -81,7 +81,7 @@ def _records(frame: pd.DataFrame) -> list[JSON]:
 class Routes(_Items["PlannedRoute"]):
     """Routes or recorded drives read from files, in file order.
 
-    Iterate over it for the :class:`routerisk.routes.PlannedRoute` objects.
+    Iterate over it for the :class:`routerisk.io.routes.PlannedRoute` objects.
     """
 
     def __init__(self, routes: Sequence[PlannedRoute]) -> None:
@@ -127,7 +127,7 @@ class Routes(_Items["PlannedRoute"]):
 
     def to_dict(self) -> dict[str, JSON]:
         """Return the routes as a GeoJSON FeatureCollection (the format ``score`` reads)."""
-        from .routes import routes_to_geojson
+        from routerisk.io.routes import routes_to_geojson
 
         doc: dict[str, JSON] = routes_to_geojson(self._items)
         return doc
@@ -262,7 +262,7 @@ class ScoreResult:
     Attributes
     ----------
     scores
-        One :class:`routerisk.scoring.RouteScore` per (route, departure), in input order.
+        One :class:`routerisk.analysis.scoring.RouteScore` per (route, departure), in input order.
     network
         The network scored on.
     """
@@ -272,19 +272,19 @@ class ScoreResult:
 
     def to_frame(self) -> pd.DataFrame:
         """Return one row per (route, departure), ranked by risk (``routes.csv``)."""
-        from .routemap import ranking_table
+        from routerisk.render.routemap import ranking_table
 
         return ranking_table(list(self.scores))
 
     def to_geodataframe(self) -> gpd.GeoDataFrame:
         """Return every driven segment with its risk parts, in EPSG:4326 (segments.geojson)."""
-        from .routemap import segments_gdf
+        from routerisk.render.routemap import segments_gdf
 
         return segments_gdf(self.network, list(self.scores))
 
     def to_dict(self) -> dict[str, JSON]:
         """Return ``{"routes": [...], "profile": fingerprint}`` as ``score --json`` prints."""
-        from .scoring import RELATIVE_INDEX_NOTE, model_note
+        from routerisk.analysis.scoring import RELATIVE_INDEX_NOTE, model_note
 
         return {
             "routes": [s.to_dict() for s in self.scores],
@@ -295,7 +295,7 @@ class ScoreResult:
 
     def to_map(self) -> folium.Map:
         """Return the map of the routes coloured by risk per km, with the risk chart."""
-        from .routemap import route_map
+        from routerisk.render.routemap import route_map
 
         m: folium.Map = route_map(self.network, list(self.scores))
         return m
@@ -308,7 +308,7 @@ class SuggestResult:
     Attributes
     ----------
     suggestions
-        One :class:`routerisk.alternatives.Suggestion` per (route, departure).
+        One :class:`routerisk.analysis.alternatives.Suggestion` per (route, departure).
     network
         The network searched.
     """
@@ -357,7 +357,7 @@ class SuggestResult:
         import geopandas as gpd
         import pandas as pd
 
-        from .routemap import segments_gdf
+        from routerisk.render.routemap import segments_gdf
 
         parts = []
         for s in self.suggestions:
@@ -381,7 +381,7 @@ class SuggestResult:
 
     def to_map(self) -> folium.Map:
         """Return the map of plans and alternatives with their trade-off charts."""
-        from .routemap import suggestion_map
+        from routerisk.render.routemap import suggestion_map
 
         m: folium.Map = suggestion_map(self.network, list(self.suggestions))
         return m
@@ -394,14 +394,14 @@ class ReviewResult:
     Attributes
     ----------
     review
-        The :class:`routerisk.review.Review` (figures per area, what-ifs).
+        The :class:`routerisk.analysis.review.Review` (figures per area, what-ifs).
     """
 
     review: Review
 
     def to_frame(self) -> pd.DataFrame:
         """Return one row per area with the figures to compare (``areas.csv``)."""
-        from .review import comparison_table
+        from routerisk.analysis.review import comparison_table
 
         return comparison_table(self.review)
 
@@ -422,7 +422,7 @@ class ReviewResult:
 
     def to_map(self) -> folium.Map:
         """Return the map of the areas: streets by band, hot spots, clusters, sources."""
-        from .review import review_map
+        from routerisk.analysis.review import review_map
 
         m: folium.Map = review_map(self.review)
         return m
@@ -435,7 +435,7 @@ class PlanResult:
     Attributes
     ----------
     plan
-        The :class:`routerisk.dayplan.DayPlan` (schedule, naive plan, options).
+        The :class:`routerisk.analysis.dayplan.DayPlan` (schedule, naive plan, options).
     network
         The network planned on.
     """
@@ -463,7 +463,7 @@ class PlanResult:
 
     def to_geodataframe(self) -> gpd.GeoDataFrame:
         """Return the driven segments of every placed run, in EPSG:4326."""
-        from .routemap import segments_gdf
+        from routerisk.render.routemap import segments_gdf
 
         return segments_gdf(self.network, [opt.score for _, opt in self.plan.chosen()])
 
@@ -474,7 +474,7 @@ class PlanResult:
 
     def to_map(self) -> folium.Map:
         """Return the map of the day's runs (``map.html`` of ``plan --out``)."""
-        from .routemap import route_map
+        from routerisk.render.routemap import route_map
 
         m: folium.Map = route_map(
             self.network,
@@ -491,7 +491,7 @@ class EvidenceResult:
     Attributes
     ----------
     plan
-        The :class:`routerisk.evidence.EvidencePlan`.
+        The :class:`routerisk.analysis.evidence.EvidencePlan`.
     """
 
     plan: EvidencePlan
@@ -509,7 +509,7 @@ class EvidenceResult:
 
     def describe(self) -> list[str]:
         """Return the plan in sentences, as ``evidence`` prints it (ends with the caution)."""
-        from .evidence import describe
+        from routerisk.analysis.evidence import describe
 
         return describe(self.plan)
 
@@ -521,7 +521,7 @@ class WatchResult:
     Attributes
     ----------
     result
-        The :class:`routerisk.watch.WatchResult` (segments, alerts, matched and rejected).
+        The :class:`routerisk.analysis.watch.WatchResult` (segments, alerts, matched and rejected).
     network
         The network the drives were matched to.
     """
@@ -564,8 +564,8 @@ class WatchResult:
 
     def to_map(self) -> folium.Map:
         """Return the map of the network with the flagged segments."""
-        from ._io import provenance
-        from .watch import flag_map
+        from routerisk.analysis.watch import flag_map
+        from routerisk.io.atomic import provenance
 
         net = self.network
         m: folium.Map = flag_map(

@@ -27,8 +27,9 @@ import shapely
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))
 
-from routerisk import calibration, datasets  # noqa: E402
-from routerisk.network import build_network  # noqa: E402
+from routerisk import datasets  # noqa: E402
+from routerisk.analysis import calibration  # noqa: E402
+from routerisk.network.folder import build_network  # noqa: E402
 
 SEED = 20270315
 N_SITES = 60

@@ -36,8 +36,8 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))
 
 from routerisk import datasets  # noqa: E402
-from routerisk.network import build_network  # noqa: E402
-from routerisk.watch import discovery_units  # noqa: E402
+from routerisk.analysis.watch import discovery_units  # noqa: E402
+from routerisk.network.folder import build_network  # noqa: E402
 
 SEED = 20270309
 N_DRIVES = 40

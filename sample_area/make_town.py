@@ -999,7 +999,7 @@ def osm_xml(built: Built) -> str:
 
 
 def dumps_json(data: object) -> str:
-    """Serialise like ``routerisk._io.dumps_json`` (sorted keys, indent 2), plus newline."""
+    """Serialise like ``routerisk.io.atomic.dumps_json`` (sorted keys, indent 2), plus newline."""
     return json.dumps(data, indent=2, sort_keys=True, ensure_ascii=False, allow_nan=False) + "\n"
 
 

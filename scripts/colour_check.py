@@ -56,7 +56,7 @@ def min_difference(colours: list[str], vision: str = "normal") -> tuple[float, t
 
 def palettes() -> dict[str, list[str]]:
     """Return the palettes the maps use, by name."""
-    from routerisk import mapview
+    from routerisk.render import mapview
 
     return {
         "exposure classes, 4 (default profile)": mapview.ramp(4),
@@ -84,7 +84,7 @@ def report() -> str:
             d, (i, j) = min_difference(cols, v)
             cells.append(f"{d:.1f} ({cols[i]} / {cols[j]})")
         lines.append(f"| {name} | {' '.join(cols)} | " + " | ".join(cells) + " |")
-    from routerisk import mapview as mv
+    from routerisk.render import mapview as mv
 
     low = mv.ramp(4)[0]
     for other, what in (
@@ -103,7 +103,7 @@ def report() -> str:
         "CIE L* of the exposure ramp (4 classes), normal / deuteranopia / protanopia:",
         "",
     ]
-    from routerisk import mapview
+    from routerisk.render import mapview
 
     for v in VISIONS:
         ls = ", ".join(f"{x:.1f}" for x in lab(mapview.ramp(4), v)[:, 0])

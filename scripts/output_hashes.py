@@ -181,11 +181,19 @@ def _gpkg_rows(path: Path) -> str:
 def main() -> int:
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--work", type=Path, required=True, help="folder for the outputs (emptied)")
+    p.add_argument(
+        "--only",
+        default="",
+        help="comma-separated labels to run (build always runs; score-draws needs calibrate)",
+    )
     a = p.parse_args()
+    only = {x for x in a.only.split(",") if x}
     w = a.work
     shutil.rmtree(w, ignore_errors=True)
     w.mkdir(parents=True)
     for label, argv in _commands(w):
+        if only and label != "build" and label not in only:
+            continue
         r = subprocess.run(
             [sys.executable, "-m", "routerisk", *argv], capture_output=True, check=False
         )

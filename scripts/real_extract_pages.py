@@ -28,9 +28,9 @@ def main() -> int:
     import geopandas as gpd
     from shapely.geometry import LineString, mapping
 
-    from routerisk import mapview
     from routerisk.cli import main as cli
-    from routerisk.network import load_network
+    from routerisk.network.folder import load_network
+    from routerisk.render import mapview
 
     pbf = args.pbf or Path(
         str(resources.files("pyogrio") / "tests" / "fixtures" / "sample.osm.pbf")

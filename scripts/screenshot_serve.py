@@ -36,8 +36,8 @@ def main() -> int:
         print("screenshot_serve: Debian's chromium is not installed", file=sys.stderr)
         return 2
     from routerisk import datasets
-    from routerisk.demo import TOWN_TIMEZONE
-    from routerisk.network import build_network
+    from routerisk.cli.demo_run import TOWN_TIMEZONE
+    from routerisk.network.folder import build_network
     from routerisk.serve.app import create_app
 
     net = build_network(datasets.get_path("town"), timezone=TOWN_TIMEZONE)

@@ -7,7 +7,7 @@ import numpy as np
 import pandas as pd
 from shapely import LineString
 
-from routerisk.network import Network
+from routerisk.network.folder import Network
 
 CRS = "EPSG:32625"
 

@@ -8,7 +8,7 @@ from pathlib import Path
 import pytest
 
 from routerisk import datasets
-from routerisk.network import build_network, save_network
+from routerisk.network.folder import build_network, save_network
 from routerisk.profile import load_profile
 
 ROOT = Path(__file__).resolve().parents[1]

@@ -36,9 +36,9 @@ def test_score_and_suggest_agree_on_the_planned_route(town_dir, capsys):
 
 
 def test_library_figures_agree_unrounded(town_net):
-    from routerisk import routes
-    from routerisk.alternatives import suggest_routes
-    from routerisk.scoring import score_routes
+    from routerisk.analysis.alternatives import suggest_routes
+    from routerisk.analysis.scoring import score_routes
+    from routerisk.io import routes
 
     planned = routes.read_routes(datasets.get_path("routes"), default_tz=town_net.timezone)
     scores = score_routes(town_net, planned)
@@ -63,7 +63,7 @@ def test_library_figures_agree_unrounded(town_net):
 
 def test_score_and_suggest_agree_on_a_real_extract(real_pbf, tmp_path, capsys):
     """Real extract: pyogrio's sample.osm.pbf (OpenStreetMap data, ODbL 1.0)."""
-    from routerisk.network import build_network, save_network
+    from routerisk.network.folder import build_network, save_network
 
     net = build_network(real_pbf)
     out = save_network(net, tmp_path / "net")

@@ -8,9 +8,9 @@ import networkx as nx
 import numpy as np
 import pytest
 
-from routerisk.alternatives import Arcs, RouteGraph, Suggester, front_by_brute_force
+from routerisk.analysis.alternatives import Arcs, RouteGraph, Suggester, front_by_brute_force
+from routerisk.analysis.scoring import Scorer
 from routerisk.profile import parse_profile
-from routerisk.scoring import Scorer
 
 from ._nets import random_grid
 

@@ -14,10 +14,11 @@ import pandas as pd
 import pytest
 
 import routerisk as rr
-from routerisk import api, datasets, mapview
-from routerisk._io import dumps_json
+from routerisk import api, datasets
 from routerisk.cli import main
 from routerisk.errors import OptionError, RouteriskError
+from routerisk.io.atomic import dumps_json
+from routerisk.render import mapview
 
 ROOT = Path(__file__).resolve().parents[1]
 DEPARTS = ["2027-03-09T08:05", "2027-03-09T14:00"]  # a Tuesday: school windows apply

@@ -1,4 +1,4 @@
-"""Calibration of a profile on pedestrian counts (routerisk/calibration.py)."""
+"""Calibration of a profile on pedestrian counts (routerisk/analysis/calibration.py)."""
 
 from __future__ import annotations
 
@@ -11,8 +11,8 @@ import numpy as np
 import pytest
 import yaml
 
-from routerisk import calibration as cb
 from routerisk import datasets
+from routerisk.analysis import calibration as cb
 from routerisk.cli import main
 from routerisk.profile import load_profile, parse_profile
 
@@ -166,7 +166,8 @@ def test_cli_writes_a_valid_fingerprinted_profile_and_report(town_dir, tmp_path)
     doc["uncertainty"]["covariance"][0][0] *= 2
     assert parse_profile(doc).fingerprint != prof.fingerprint
     page = rep.read_text()
-    from routerisk import CAUTION, report
+    from routerisk import CAUTION
+    from routerisk.render import report
 
     assert CAUTION in page and 'name="routerisk-provenance"' in page
     assert "not crash" in page and report.external_references(page) == []
@@ -303,7 +304,7 @@ def test_fewer_sites_says_how_many_are_needed(town_net, tmp_path):
 
 def test_singular_design_names_the_categories(tmp_path, capsys):
     """Two categories that are never apart (same sources, radius and hours) are named."""
-    from routerisk.network import build_network, save_network
+    from routerisk.network.folder import build_network, save_network
 
     doc = yaml.safe_load(Path(load_profile().source).read_text())
     doc["categories"]["greens"] = {**doc["categories"]["park"], "label": "Greens"}

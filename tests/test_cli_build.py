@@ -9,7 +9,7 @@ import yaml
 
 from routerisk import datasets
 from routerisk.cli import main
-from routerisk.network import load_network
+from routerisk.network.folder import load_network
 from routerisk.profile import DEFAULT_PROFILE
 
 from . import _osm_snippets as osm

@@ -13,7 +13,7 @@ from shapely import LineString, line_interpolate_point
 
 from routerisk import datasets, matching
 from routerisk.cli import main
-from routerisk.routes import PlannedRoute
+from routerisk.io.routes import PlannedRoute
 
 SIGMA_NK = 4.07  # Newson and Krumm (2009), ACM SIGSPATIAL GIS '09 [published]
 
@@ -223,7 +223,8 @@ def test_every_score_output_says_how_the_index_reads_and_what_is_modelled(
     # issue 17, points 10 and 11: the relative index is "against the area at the same
     # minutes under the same profile", and each output names what "risk" models.
     import routerisk
-    from routerisk import mapview, scoring
+    from routerisk.analysis import scoring
+    from routerisk.render import mapview
 
     assert "same minutes under the same profile" in routerisk.CAUTION
     assert "do not model" in routerisk.CAUTION and "crash likelihood" in routerisk.CAUTION

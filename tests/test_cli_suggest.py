@@ -10,11 +10,12 @@ from pathlib import Path
 
 import pytest
 
-from routerisk import __version__, datasets, routes
-from routerisk.alternatives import suggest_routes
+from routerisk import __version__, datasets
+from routerisk.analysis.alternatives import suggest_routes
+from routerisk.analysis.scoring import Scorer
 from routerisk.cli import main
-from routerisk.network import load_network
-from routerisk.scoring import Scorer
+from routerisk.io import routes
+from routerisk.network.folder import load_network
 
 from ._browser import inspect_page, needs_chromium
 

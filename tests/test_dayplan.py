@@ -7,9 +7,10 @@ import json
 
 import pytest
 
-from routerisk import datasets, dayplan, planning
+from routerisk import datasets
+from routerisk.analysis import dayplan, planning
+from routerisk.analysis.scoring import Scorer
 from routerisk.cli import main
-from routerisk.scoring import Scorer
 
 DATE = dt.date(2027, 3, 9)  # a Tuesday: school windows apply
 

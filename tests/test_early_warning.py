@@ -1,4 +1,4 @@
-"""Tests of routerisk.early_warning: event reading, EB rates, BH flags, Poisson CUSUM.
+"""Tests of routerisk.analysis.early_warning: event reading, EB rates, BH flags, Poisson CUSUM.
 
 Every outside value names its source and marker beside it ([published], [secondary],
 [memory], [practice], or "derived here" for arithmetic done in the comment). Simulations are
@@ -17,7 +17,7 @@ import pandas as pd
 import pytest
 from scipy import stats
 
-from routerisk import early_warning as ew
+from routerisk.analysis import early_warning as ew
 from routerisk.errors import InputFileError, OptionError, RouteriskError
 
 # ---------------------------------------------------------------------------------------------

@@ -1,4 +1,4 @@
-"""Tests of routerisk.evidence and the ``routerisk evidence`` command."""
+"""Tests of routerisk.analysis.evidence and the ``routerisk evidence`` command."""
 
 from __future__ import annotations
 
@@ -11,7 +11,7 @@ import pytest
 from scipy import stats
 
 import routerisk
-from routerisk import evidence
+from routerisk.analysis import evidence
 from routerisk.cli import main
 from routerisk.errors import InputFileError, OptionError
 
@@ -569,7 +569,7 @@ def test_strata_bonferroni_and_holm(tmp_path: object, capsys: pytest.CaptureFixt
 
 def test_a_small_driven_share_never_reads_as_zero():
     # common practice, no source: a share that exists is not printed as "0%"
-    from routerisk.evidence import _share_text
+    from routerisk.analysis.evidence import _share_text
 
     assert _share_text(0.0046) == "under 1%"
     assert _share_text(0.0) == "0%"

@@ -22,9 +22,9 @@ from xml.sax.saxutils import quoteattr
 
 import pytest
 
-from routerisk import mapview
 from routerisk.cli import main
-from routerisk.network import load_network
+from routerisk.network.folder import load_network
+from routerisk.render import mapview
 
 from ._browser import inspect_page, needs_chromium
 
@@ -400,7 +400,7 @@ def test_profile_with_python_tags_is_refused_without_running(tmp_path):
 
 def test_overlay_with_python_tags_is_refused_without_running(tmp_path, town_net):
     from routerisk.errors import InputFileError
-    from routerisk.overlay import apply_overlay
+    from routerisk.network.overlay import apply_overlay
 
     marker = tmp_path / "ran"
     bad = tmp_path / "evil-overlay.yaml"

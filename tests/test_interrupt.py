@@ -26,7 +26,7 @@ import pytest
 
 from routerisk import datasets
 from routerisk.errors import NetworkFolderError
-from routerisk.network import load_network
+from routerisk.network.folder import load_network
 
 ROOT = Path(__file__).resolve().parents[1]
 SEED = 20270309
@@ -182,8 +182,8 @@ def _hidden(root: Path) -> list[str]:
 
 @pytest.mark.parametrize("case", ["score", "suggest", "review", "watch", "demo"])
 def test_an_error_half_way_leaves_no_output(case, tmp_path, town_dir, monkeypatch):
-    from routerisk import mapview, report, routemap
     from routerisk.cli import main
+    from routerisk.render import mapview, report, routemap
 
     out = tmp_path / "out"
     routes = str(datasets.get_path("routes"))

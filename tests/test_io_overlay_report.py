@@ -7,9 +7,11 @@ import json
 import numpy as np
 import pytest
 
-from routerisk import _io, overlay, report
+from routerisk.analysis.scoring import Scorer
 from routerisk.errors import InputFileError, OutputError, OutputExistsError
-from routerisk.scoring import Scorer
+from routerisk.io import atomic as _io
+from routerisk.network import overlay
+from routerisk.render import report
 
 # ------------------------------------------------------------------------------ _io
 

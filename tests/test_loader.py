@@ -11,9 +11,9 @@ import osmium
 import osmnx as ox
 import pytest
 
-from routerisk import loader
-from routerisk._osm import DRIVE_EXCLUDE, is_drivable
 from routerisk.errors import EmptyNetworkError, InputFileError
+from routerisk.network import loader
+from routerisk.network.osm import DRIVE_EXCLUDE, is_drivable
 
 from . import _osm_snippets as osm
 

@@ -12,10 +12,14 @@ import numpy as np
 import pytest
 import shapely
 
-from routerisk import _context, datasets, mapview, routemap, routes, scoring
+from routerisk import datasets
+from routerisk.analysis import scoring
 from routerisk.cli import main
 from routerisk.errors import InputFileError, OptionError
-from routerisk.network import Network, load_network, save_network
+from routerisk.io import routes
+from routerisk.network import context as _context
+from routerisk.network.folder import Network, load_network, save_network
+from routerisk.render import mapview, routemap
 
 from ._browser import inspect_page, needs_chromium
 
@@ -40,7 +44,7 @@ def test_build_saves_the_context_layer(town_net, town_dir):
 
 def test_real_extract_context_has_buildings(real_pbf):
     """Real extract: pyogrio's sample.osm.pbf (OpenStreetMap data, ODbL 1.0)."""
-    from routerisk.network import build_network
+    from routerisk.network.folder import build_network
 
     net = build_network(real_pbf)
     assert {"street", "park", "building"} <= set(net.context["kind"])

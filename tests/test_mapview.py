@@ -6,7 +6,8 @@ import re
 
 import pytest
 
-from routerisk import CAUTION, mapview
+from routerisk import CAUTION
+from routerisk.render import mapview
 
 from ._browser import inspect_page, needs_chromium
 
@@ -39,7 +40,7 @@ def test_hostile_street_name_is_escaped(town_net, tmp_path):
     edges.iloc[0, edges.columns.get_loc("name")] = (
         '<script>alert(1)</script>"><img src=x onerror=alert(2)>'
     )
-    from routerisk.network import Network
+    from routerisk.network.folder import Network
 
     hostile = Network(edges, net.nodes, net.sources, net.crossings, net.profile, net.meta)
     path = tmp_path / "h.html"

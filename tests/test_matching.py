@@ -14,6 +14,7 @@ import numpy as np
 import pytest
 
 from routerisk.errors import EmptyNetworkError, OptionError, RouteInputError
+from routerisk.io.routes import PlannedRoute
 from routerisk.matching import (
     MatchedRoute,
     RoadIndex,
@@ -25,7 +26,6 @@ from routerisk.matching import (
     to_edges,
     to_edges_many,
 )
-from routerisk.routes import PlannedRoute
 
 from ._graphs import grid_graph, path_length, random_drive, sample_trace, to_lonlat
 

@@ -8,7 +8,7 @@ import shutil
 import pytest
 
 from routerisk.errors import NetworkFolderError
-from routerisk.network import load_network
+from routerisk.network.folder import load_network
 from routerisk.profile import load_profile
 
 
@@ -65,7 +65,7 @@ def _folder_bytes(folder):
 def test_saving_through_arrow_gives_the_same_folder_every_run(town_net, tmp_path, monkeypatch):
     import pyogrio
 
-    from routerisk import network
+    from routerisk.network import folder as network
 
     pytest.importorskip("pyarrow")
     assert network._write_arrow()  # pyogrio 0.13, GDAL 3.12 here

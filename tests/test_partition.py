@@ -1,4 +1,4 @@
-"""Partitioned tagging (routerisk.partition) against single-machine tagging: exact agreement."""
+"""Partitioned tagging (routerisk.parallel) against single-machine tagging: exact agreement."""
 
 from __future__ import annotations
 
@@ -12,10 +12,14 @@ pytest.importorskip("dask")
 pytest.importorskip("distributed")
 pytest.importorskip("dask_geopandas")
 
-from routerisk import datasets, partition, review, synthetic, tagging  # noqa: E402
+from routerisk import datasets
+from routerisk import parallel as partition
+from routerisk.analysis import review
+from routerisk.analysis.review import Area, review_areas  # noqa: E402
 from routerisk.cli import main  # noqa: E402
-from routerisk.network import EDGE_KEEP, build_network  # noqa: E402
-from routerisk.review import Area, review_areas  # noqa: E402
+from routerisk.network import tagging  # noqa: E402
+from routerisk.network.folder import EDGE_KEEP, build_network  # noqa: E402
+from routerisk.testing import synthetic
 
 
 @pytest.fixture(scope="module")
@@ -28,7 +32,7 @@ def client():
 
 @pytest.fixture(scope="module")
 def city_net(tmp_path_factory, default_profile):
-    """A generated city of about 5,000 edges (routerisk.synthetic; invented, CC0)."""
+    """A generated city of about 5,000 edges (routerisk.testing.synthetic; invented, CC0)."""
     path = tmp_path_factory.mktemp("city") / "city.osm.pbf"
     synthetic.write_city(path, edges=5000, seed=11)
     return build_network(path, profile=default_profile)

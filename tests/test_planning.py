@@ -1,4 +1,4 @@
-"""Tests of routerisk.planning: the RUNS reader, the day-plan solver and the naive plan.
+"""Tests of routerisk.analysis.planning: the RUNS reader, the day-plan solver and the naive plan.
 
 The optimum of the solver is checked against a day worked out by hand and against brute-force
 enumeration of small random days (own code below, independent of the solver's). No value in
@@ -15,9 +15,7 @@ from pathlib import Path
 
 import pytest
 
-from routerisk._io import dumps_json
-from routerisk.errors import InputFileError, OptionError
-from routerisk.planning import (
+from routerisk.analysis.planning import (
     Candidate,
     Job,
     RunSpec,
@@ -30,6 +28,8 @@ from routerisk.planning import (
     read_runs,
     solve_schedule,
 )
+from routerisk.errors import InputFileError, OptionError
+from routerisk.io.atomic import dumps_json
 
 # --------------------------------------------------------------------------------------------
 # Independent checks used by several tests

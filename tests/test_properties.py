@@ -27,11 +27,11 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from shapely import LineString, Point
 
-from routerisk.alternatives import RouteGraph, Suggester
-from routerisk.network import Network
+from routerisk.analysis.alternatives import RouteGraph, Suggester
+from routerisk.analysis.scoring import Scorer, edge_risk_parts, minute_of_week
+from routerisk.network.folder import Network
+from routerisk.network.tagging import tag_edges
 from routerisk.profile import DECAYS, MINUTES_PER_WEEK, parse_profile
-from routerisk.scoring import Scorer, edge_risk_parts, minute_of_week
-from routerisk.tagging import tag_edges
 
 from ._nets import random_grid
 

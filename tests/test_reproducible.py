@@ -20,8 +20,8 @@ from pathlib import Path
 import pytest
 
 from routerisk import __version__, datasets
-from routerisk._io import file_record
 from routerisk.cli import main
+from routerisk.io.atomic import file_record
 
 ROOT = Path(__file__).resolve().parents[1]
 #: Written from the GeoPackage, whose driver stamps each layer with the time of writing.
@@ -145,7 +145,7 @@ MERGE_OSM = """<?xml version="1.0" encoding="UTF-8"?>
 """
 _PRINT_EDGES = (
     "import json, sys\n"
-    "from routerisk.network import build_network\n"
+    "from routerisk.network.folder import build_network\n"
     "e = build_network(sys.argv[1]).edges\n"
     "cols = [c for c in ('name', 'sidewalk', 'maxspeed_raw', 'baseline') if c in e]\n"
     "print(json.dumps(e[cols].astype(str).values.tolist()))\n"

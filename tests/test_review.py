@@ -1,4 +1,4 @@
-"""Tests of routerisk.review, routerisk.report and the ``routerisk review`` command.
+"""Tests of routerisk.analysis.review, routerisk.render.report and the ``routerisk review`` command.
 
 The test town is built here, by hand, in EPSG:32625 (metres; local offsets from X0, Y0):
 
@@ -29,12 +29,13 @@ import shapely
 from shapely.geometry import LineString, MultiPolygon, Point, Polygon
 
 import routerisk
-from routerisk import report, review
+from routerisk.analysis import review
 from routerisk.cli import main
 from routerisk.errors import InputFileError, OptionError
-from routerisk.network import FORMAT_VERSION, Network, save_network
+from routerisk.network.folder import FORMAT_VERSION, Network, save_network
+from routerisk.network.tagging import tag_edges
 from routerisk.profile import load_profile
-from routerisk.tagging import tag_edges
+from routerisk.render import report
 
 CRS = "EPSG:32625"
 X0, Y0 = 420_000.0, 4_262_000.0
@@ -106,7 +107,7 @@ NODES = {
 
 
 def make_network(profile_path: Path, *, birch_name: str = "Birch Lane") -> Network:
-    """Return the hand-built test town, tagged with routerisk.tagging.tag_edges."""
+    """Return the hand-built test town, tagged with routerisk.network.tagging.tag_edges."""
     profile = load_profile(profile_path)
     rows = []
     alder = [1, 2, 3, 4, 5]
@@ -413,7 +414,7 @@ def _osm_town(path: Path) -> Path:
 
 
 def test_km_agree_with_geopandas_clip(tmp_path: Path) -> None:
-    from routerisk.network import build_network
+    from routerisk.network.folder import build_network
 
     net = build_network(_osm_town(tmp_path / "t.osm"), profile=load_profile(), timezone="Etc/GMT+3")
     # An irregular hexagon with a hole, in lon/lat, written as GeoJSON.

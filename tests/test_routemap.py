@@ -7,9 +7,10 @@ import datetime as dt
 import numpy as np
 import pyproj
 
-from routerisk import datasets, routemap
-from routerisk.routes import read_routes
-from routerisk.scoring import score_routes
+from routerisk import datasets
+from routerisk.analysis.scoring import score_routes
+from routerisk.io.routes import read_routes
+from routerisk.render import routemap
 
 
 def _scores(net):

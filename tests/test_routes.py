@@ -1,4 +1,4 @@
-"""Tests of routerisk.routes: reading GeoJSON, GPX and CSV route files, and their errors."""
+"""Tests of routerisk.io.routes: reading GeoJSON, GPX and CSV route files, and their errors."""
 
 from __future__ import annotations
 
@@ -11,7 +11,7 @@ import pyproj
 import pytest
 
 from routerisk.errors import InputFileError, OptionError, OutputExistsError, RouteInputError
-from routerisk.routes import PlannedRoute, read_routes, routes_to_geojson, write_routes
+from routerisk.io.routes import PlannedRoute, read_routes, routes_to_geojson, write_routes
 
 # Points in the open ocean around the invented town (CONVENTIONS.md), never a real place.
 LONLAT = np.array(

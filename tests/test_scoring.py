@@ -9,9 +9,9 @@ import pandas as pd
 import pytest
 from shapely import LineString
 
-from routerisk.network import Network
+from routerisk.analysis.scoring import Scorer
+from routerisk.network.folder import Network
 from routerisk.profile import parse_profile
-from routerisk.scoring import Scorer
 
 CRS = "EPSG:32625"
 TZ = "Etc/GMT+3"
@@ -278,7 +278,7 @@ def test_relative_index_compares_with_the_area_at_the_same_minutes_under_the_pro
 
 
 def test_edge_risk_parts_follow_the_street_time_profiles():
-    from routerisk.scoring import edge_risk_parts
+    from routerisk.analysis.scoring import edge_risk_parts
 
     prof = _timed_profile()
     net = _with_profile(prof)
@@ -298,9 +298,10 @@ def test_quiet_industrial_loop_at_night_on_the_sample_town(town_net, tmp_path):
 
     import yaml
 
-    from routerisk import datasets, routes
+    from routerisk import datasets
+    from routerisk.analysis.scoring import score_routes
+    from routerisk.io import routes
     from routerisk.profile import DEFAULT_PROFILE, load_profile
-    from routerisk.scoring import score_routes
 
     loop = [
         r
@@ -330,7 +331,7 @@ def test_quiet_industrial_loop_at_night_on_the_sample_town(town_net, tmp_path):
 
 def test_likelihood_factor_enters_the_risk(tmp_path):
     # Edges of the hand network at 40 km/h; reference 25 mph; injury exponent 2.0.
-    from routerisk.severity import MPH_TO_KPH
+    from routerisk.network.severity import MPH_TO_KPH
 
     prof = _timed_profile(likelihood={"crashes": "injury", "reference_mph": 25})
     net = _with_profile(prof)
@@ -350,10 +351,11 @@ def test_likelihood_on_the_sample_town_multiplies_each_segment(town_net, tmp_pat
 
     import yaml
 
-    from routerisk import datasets, routes
+    from routerisk import datasets
+    from routerisk.analysis.scoring import model_note, score_routes
+    from routerisk.io import routes
+    from routerisk.network.severity import MPH_TO_KPH
     from routerisk.profile import DEFAULT_PROFILE, load_profile
-    from routerisk.scoring import model_note, score_routes
-    from routerisk.severity import MPH_TO_KPH
 
     doc = copy.deepcopy(yaml.safe_load(DEFAULT_PROFILE.read_text()))
     doc["likelihood"] = {"model": "power", "crashes": "fatal", "reference_mph": 25}

@@ -17,8 +17,10 @@ import numpy as np
 import pytest
 from shapely.geometry import Polygon
 
-from routerisk import CAUTION, datasets, dayplan, planning, review, routes
-from routerisk.scoring import parse_depart, score_routes
+from routerisk import CAUTION, datasets
+from routerisk.analysis import dayplan, planning, review
+from routerisk.analysis.scoring import parse_depart, score_routes
+from routerisk.io import routes
 from routerisk.serve.app import create_app
 
 from ._browser import needs_chromium

@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from routerisk.severity import probability, severity_factor
+from routerisk.network.severity import probability, severity_factor
 
 # Tefft, B.C. (2013), "Impact speed and a pedestrian's risk of severe injury or death",
 # Accident Analysis & Prevention 50:871-878 [published]: risk levels and impact speeds (mph).

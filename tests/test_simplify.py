@@ -1,4 +1,4 @@
-"""The array-built road graph (routerisk._simplify) against osmnx's own pipeline.
+"""The array-built road graph (routerisk.network.simplify) against osmnx's own pipeline.
 
 Reference library: osmnx (simplify_graph with its default arguments, largest_component,
 add_edge_speeds, add_edge_travel_times, project_graph, graph_to_gdfs, graph_from_gdfs), run
@@ -13,9 +13,12 @@ import pandas as pd
 import pytest
 import shapely
 
-from routerisk import _simplify, datasets, loader, synthetic
-from routerisk._osm import read_osm
-from routerisk.network import load_network
+from routerisk import datasets
+from routerisk.network import loader
+from routerisk.network import simplify as _simplify
+from routerisk.network.folder import load_network
+from routerisk.network.osm import read_osm
+from routerisk.testing import synthetic
 
 from . import _osm_snippets as osm
 
@@ -26,7 +29,7 @@ REL = 1e-6
 
 @pytest.fixture(scope="module")
 def city(tmp_path_factory):
-    """A generated city of about 3,000 edges (routerisk.synthetic, invented, CC0)."""
+    """A generated city of about 3,000 edges (routerisk.testing.synthetic, invented, CC0)."""
     path = tmp_path_factory.mktemp("city") / "city.osm.pbf"
     synthetic.write_city(path, edges=3000, seed=5)
     return path

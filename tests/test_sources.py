@@ -2,8 +2,8 @@
 
 from __future__ import annotations
 
-from routerisk import sources
-from routerisk._osm import read_osm
+from routerisk.network import sources
+from routerisk.network.osm import read_osm
 from routerisk.profile import load_profile
 
 from ._osm_snippets import node, way, write

@@ -2,7 +2,7 @@
 
 import pytest
 
-from routerisk.speeds import MPH, NONE_KPH, WALK_KPH, parse_maxspeed
+from routerisk.network.speeds import MPH, NONE_KPH, WALK_KPH, parse_maxspeed
 
 # Source: OSM wiki, Key:maxspeed (value formats: bare km/h numbers, "mph", "knots",
 # "walk", "none", country zone codes such as DE:urban / DE:zone30, lists). The zone code speeds

@@ -66,7 +66,7 @@ def test_top_level_help_imports_no_heavy_library(args, tmp_path):
 def test_every_command_help_imports_no_heavy_library(tmp_path):
     for name in cli.COMMANDS:
         names = _imported(name, "--help", tmp=tmp_path)
-        assert f"routerisk.commands.{name}" in names
+        assert f"routerisk.cli.{name}" in names
         assert _heavy(names) == [], name
 
 
@@ -75,7 +75,7 @@ def test_score_without_outputs_draws_nothing(town_dir, tmp_path):
     names = _imported(
         "score", str(datasets.get_path("routes")), "--network", str(town_dir), tmp=tmp_path
     )
-    assert "routerisk.scoring" in names
+    assert "routerisk.analysis.scoring" in names
     drawn = [n for n in names if n.split(".")[0] in ("folium", "matplotlib", "branca")]
     assert drawn == []
 
@@ -85,7 +85,7 @@ def test_route_outputs_leave_the_matplotlib_backend_alone(tmp_path):
     code = (
         "import sys, matplotlib\n"
         "before = matplotlib.rcParams._get_backend_or_none()\n"
-        "import routerisk.routemap as rm\n"
+        "import routerisk.render.routemap as rm\n"
         "assert 'folium' not in sys.modules and 'matplotlib.pyplot' not in sys.modules\n"
         "fig, ax = rm.plt.subplots(figsize=(2, 1)); ax.plot([0, 1], [0, 1])\n"
         "assert rm.png_data_uri(fig).startswith('data:image/png;base64,')\n"

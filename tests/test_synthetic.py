@@ -10,9 +10,9 @@ import networkx as nx
 import osmium
 import pytest
 
-from routerisk import synthetic
-from routerisk._io import sha256_file
 from routerisk.errors import OptionError, OutputExistsError
+from routerisk.io.atomic import sha256_file
+from routerisk.testing import synthetic
 
 EDGES = 2000
 SEED = 3

@@ -10,7 +10,7 @@ import pandas as pd
 import pytest
 from shapely import LineString, Point, box
 
-from routerisk import tagging
+from routerisk.network import tagging
 from routerisk.profile import parse_profile
 
 CRS = "EPSG:32625"
@@ -236,10 +236,10 @@ def _random_lines(seed: int, count: int) -> np.ndarray:
 def test_numpy_interpolation_gives_geos_points_to_the_bit(town_net, real_pbf):
     import shapely
 
-    from routerisk import loader
+    from routerisk.network import loader
 
     real = loader.frames_from_raw(
-        __import__("routerisk._osm", fromlist=["read_osm"]).read_osm(real_pbf)
+        __import__("routerisk.network.osm", fromlist=["read_osm"]).read_osm(real_pbf)
     ).edges.geometry.to_numpy()
     for geoms in (_random_lines(1, 400), town_net.edges.geometry.to_numpy(), real):
         n = tagging._sample_counts(geoms, 10.0)
@@ -284,9 +284,9 @@ def _tag_every_edge_with_geos(monkeypatch, *args, **kw):
 
 
 def _raw_inputs(path):
-    from routerisk import loader, sources
-    from routerisk._osm import read_osm
-    from routerisk.network import EDGE_KEEP, _feature_filter
+    from routerisk.network import loader, sources
+    from routerisk.network.folder import EDGE_KEEP, _feature_filter
+    from routerisk.network.osm import read_osm
     from routerisk.profile import load_profile
 
     prof = load_profile()
@@ -303,7 +303,8 @@ def _raw_inputs(path):
 
 
 def test_tagging_within_reach_equals_tagging_every_edge(monkeypatch, real_pbf, tmp_path):
-    from routerisk import datasets, synthetic
+    from routerisk import datasets
+    from routerisk.testing import synthetic
 
     city = tmp_path / "city.osm.pbf"
     synthetic.write_city(city, edges=3000, seed=11)

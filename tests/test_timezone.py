@@ -15,7 +15,7 @@ from pathlib import Path
 import pyogrio
 import pytest
 
-from routerisk.network import infer_timezone, zone_label
+from routerisk.network.folder import infer_timezone, zone_label
 
 PBF = Path(pyogrio.__file__).parent / "tests" / "fixtures" / "sample.osm.pbf"
 

@@ -1,4 +1,4 @@
-"""Weight draws, intervals, pairwise probabilities and Sobol indices (routerisk/uncertainty.py)."""
+"""Weight draws, intervals, pairwise probabilities and Sobol indices (routerisk/analysis/uncertainty.py)."""
 
 from __future__ import annotations
 
@@ -9,10 +9,12 @@ import numpy as np
 import pytest
 import yaml
 
-from routerisk import datasets, routes, scoring
-from routerisk import uncertainty as un
+from routerisk import datasets
+from routerisk.analysis import scoring
+from routerisk.analysis import uncertainty as un
 from routerisk.cli import main
 from routerisk.errors import ProfileError
+from routerisk.io import routes
 from routerisk.profile import load_profile, parse_profile
 
 
@@ -284,7 +286,7 @@ def test_suggest_uncertainty_gives_probability_against_the_plan(town_dir, tmp_pa
 
 
 def test_review_band_intervals_recompute_the_bands(town_net, tmp_path):
-    from routerisk import review
+    from routerisk.analysis import review
 
     areas = review.read_areas(datasets.get_path("area"), crs=town_net.crs)
     # degenerate ranges (low = high = the weight): every draw must give the tagged bands

@@ -19,11 +19,12 @@ import pandas as pd
 import pytest
 from scipy import stats
 
-from routerisk import datasets, watch
+from routerisk import datasets
+from routerisk.analysis import watch
+from routerisk.analysis.scoring import Scorer
 from routerisk.cli import main
 from routerisk.errors import OptionError
-from routerisk.overlay import apply_overlay
-from routerisk.scoring import Scorer
+from routerisk.network.overlay import apply_overlay
 
 HOT_BLOCK = "2-3"  # sample_area/make_drives.py HOT_BLOCK
 HOT_STREET = "Tillerman Avenue"

@@ -8,7 +8,7 @@ import geopandas as gpd
 import pandas as pd
 from shapely.geometry import LineString
 
-from routerisk import report, words
+from routerisk.render import report, words
 
 
 def test_p_values_read_as_people_write_them():

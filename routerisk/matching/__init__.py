@@ -35,8 +35,8 @@ only re-exports the public names, so ``matching.RoadIndex`` and ``from routerisk
 import match_trace`` keep working.
 """
 
-from .choose import is_dense_trace, to_edges, to_edges_many
-from .common import (
+from routerisk.matching.choose import is_dense_trace, to_edges, to_edges_many
+from routerisk.matching.common import (
     DENSE_INTERVAL_S,
     DENSE_SPACING_M,
     MAX_DETOUR_M,
@@ -44,9 +44,9 @@ from .common import (
     SIGMA_Z_M,
     MatchedRoute,
 )
-from .hmm import match_many, match_trace
-from .index import RoadIndex
-from .join import join_many, join_waypoints
+from routerisk.matching.hmm import match_many, match_trace
+from routerisk.matching.index import RoadIndex
+from routerisk.matching.join import join_many, join_waypoints
 
 __all__ = [
     "DENSE_INTERVAL_S",

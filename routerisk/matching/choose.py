@@ -12,17 +12,17 @@ from typing import Literal
 
 import numpy as np
 
-from ..routes import PlannedRoute
-from .common import (
+from routerisk.io.routes import PlannedRoute
+from routerisk.matching.common import (
     DENSE_INTERVAL_S,
     DENSE_SPACING_M,
     MAX_SNAP_M,
     SIGMA_Z_M,
     MatchedRoute,
 )
-from .hmm import match_many
-from .index import RoadIndex
-from .join import join_many
+from routerisk.matching.hmm import match_many
+from routerisk.matching.index import RoadIndex
+from routerisk.matching.join import join_many
 
 
 def _median_spacing_m(route: PlannedRoute) -> float:

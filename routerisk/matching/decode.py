@@ -22,16 +22,16 @@ import numpy as np
 import scipy.sparse as sp
 from scipy.sparse.csgraph import dijkstra
 
-from ..errors import RouteInputError
-from ..routes import PlannedRoute
-from .common import (
+from routerisk.errors import RouteInputError
+from routerisk.io.routes import PlannedRoute
+from routerisk.matching.common import (
     _BLOCK_ENTRIES,
     _EPS,
     _GROUP_POINTS,
     _LIMIT_STEPS,
     MatchedRoute,
 )
-from .index import RoadIndex, _Dist
+from routerisk.matching.index import RoadIndex, _Dist
 
 
 @dataclass

@@ -17,9 +17,9 @@ from typing import Literal
 
 import numpy as np
 
-from ..errors import OptionError
-from ..routes import PlannedRoute
-from .common import (
+from routerisk.errors import OptionError
+from routerisk.io.routes import PlannedRoute
+from routerisk.matching.common import (
     _BETA_PER_SIGMA,
     _HOLD_SIGMAS,
     _MAD_TO_SIGMA,
@@ -29,7 +29,7 @@ from .common import (
     SIGMA_Z_M,
     MatchedRoute,
 )
-from .decode import (
+from routerisk.matching.decode import (
     _assemble,
     _groups,
     _layer_bounds,
@@ -40,7 +40,7 @@ from .decode import (
     _stack,
     _viterbi,
 )
-from .index import RoadIndex
+from routerisk.matching.index import RoadIndex
 
 # The package's logger, so that log lines name ``routerisk.matching`` as before the split.
 logger = logging.getLogger(__package__)

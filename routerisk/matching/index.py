@@ -22,14 +22,8 @@ import shapely
 from scipy.sparse.csgraph import dijkstra
 from shapely import LineString, STRtree
 
-from ..errors import EmptyNetworkError
-from .common import (
-    _CELL_M,
-    _EPS,
-    _MAX_CELLS,
-    _SUBGRAPH_MIN_NODES,
-    Edge,
-)
+from routerisk.errors import EmptyNetworkError
+from routerisk.matching.common import _CELL_M, _EPS, _MAX_CELLS, _SUBGRAPH_MIN_NODES, Edge
 
 # The package's logger, so that log lines name ``routerisk.matching`` as before the split.
 logger = logging.getLogger(__package__)

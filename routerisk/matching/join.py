@@ -14,15 +14,10 @@ from collections.abc import Sequence
 
 import numpy as np
 
-from ..errors import OptionError, RouteInputError
-from ..routes import PlannedRoute
-from .common import (
-    _EPS,
-    _TIE_M,
-    MAX_SNAP_M,
-    MatchedRoute,
-)
-from .decode import (
+from routerisk.errors import OptionError, RouteInputError
+from routerisk.io.routes import PlannedRoute
+from routerisk.matching.common import _EPS, _TIE_M, MAX_SNAP_M, MatchedRoute
+from routerisk.matching.decode import (
     _assemble,
     _groups,
     _layer_bounds,
@@ -33,7 +28,7 @@ from .decode import (
     _stack,
     _viterbi,
 )
-from .index import RoadIndex
+from routerisk.matching.index import RoadIndex
 
 # The package's logger, so that log lines name ``routerisk.matching`` as before the split.
 logger = logging.getLogger(__package__)

@@ -1,12 +1,13 @@
 """The JSON API and the page of ``routerisk serve`` (Starlette).
 
-Every endpoint calls the functions the commands call: :func:`routerisk.scoring.score_routes`
-(``score``), :func:`routerisk.alternatives.suggest_routes` (``suggest``),
-:func:`routerisk.review.review_areas` (``review``) and :func:`routerisk.dayplan.plan_day`
-(``plan``); files sent by the page are written under their own base name into a private
-temporary folder and read by the same readers, so a figure or a one-line error is the one the
-command gives for the same file. The work runs in worker threads, so the server keeps
-answering while a request computes.
+Every endpoint calls the functions the commands call:
+:func:`routerisk.analysis.scoring.score_routes` (``score``),
+:func:`routerisk.analysis.alternatives.suggest_routes` (``suggest``),
+:func:`routerisk.analysis.review.review_areas` (``review``) and
+:func:`routerisk.analysis.dayplan.plan_day` (``plan``); files sent by the page are written under
+their own base name into a private temporary folder and read by the same readers, so a figure or a
+one-line error is the one the command gives for the same file. The work runs in worker threads, so
+the server keeps answering while a request computes.
 
 Endpoints (JSON in, JSON out; every answer carries ``made_from`` and ``caution``):
 
@@ -21,7 +22,8 @@ Endpoints (JSON in, JSON out; every answer carries ``made_from`` and ``caution``
     ``{"geojson": {...}}`` or ``{"file": {"name": ..., "text": ...}}``.
 ``POST /api/week``
     ``{"route": ROUTE, "date": ISO date}``: the route's risk departing at each of the 168
-    hours of that date's week (Monday 00:00 first), with :meth:`routerisk.scoring.Scorer.quick`.
+    hours of that date's week (Monday 00:00 first), with
+    :meth:`routerisk.analysis.scoring.Scorer.quick`.
 ``POST /api/alternatives``
     ``{"route": ROUTE, "departs": [ISO], "count", "max_extra_time", "max_extra_length",
     "min_difference", "keep_every"}`` (the options and bounds of ``suggest``).
@@ -32,7 +34,7 @@ Endpoints (JSON in, JSON out; every answer carries ``made_from`` and ``caution``
     "turnaround"}``.
 ``POST /api/export``
     ``{"name", "depart", "line": [[lon, lat], ...], "format": "geojson" | "gpx"}``: a route
-    file :func:`routerisk.routes.read_routes` reads back.
+    file :func:`routerisk.io.routes.read_routes` reads back.
 """
 
 from __future__ import annotations
@@ -62,9 +64,12 @@ from starlette.responses import FileResponse, Response
 from starlette.routing import Mount, Route
 from starlette.staticfiles import StaticFiles
 
-from .. import CAUTION, __version__, mapview, matching, routes, scoring
-from .._io import dumps_json, provenance
-from ..errors import OptionError, RouteriskError
+from routerisk import CAUTION, __version__, matching
+from routerisk.analysis import scoring
+from routerisk.errors import OptionError, RouteriskError
+from routerisk.io import routes
+from routerisk.io.atomic import dumps_json, provenance
+from routerisk.render import mapview
 
 #: Largest request body accepted (bytes); ``--max-upload-mb`` changes it.
 MAX_UPLOAD_BYTES = 5 * 1024 * 1024
@@ -166,7 +171,7 @@ class Service:
         self.scorer = scoring.Scorer(net)
         self.scorer.positions([])  # build the lazy look-up before threads share it
         self.scorer._headings()
-        from ..alternatives import Suggester
+        from routerisk.analysis.alternatives import Suggester
 
         self.suggester = Suggester(self.scorer)
         self.suggester.g.time_tree(0, 1.0)  # build the lazy matrices before threads share them
@@ -229,7 +234,7 @@ class Service:
     def info(self) -> dict[str, Any]:
         """Return what the page needs to draw the network and its controls."""
         prof = self.net.profile
-        from ..network import zone_label
+        from routerisk.network.folder import zone_label
 
         return {
             "bounds": self.bounds,
@@ -426,7 +431,7 @@ class Service:
 
     def alternatives(self, doc: dict[str, Any], up: _Upload) -> dict[str, Any]:
         """Suggest alternatives as ``routerisk suggest`` does (same bounds and checks)."""
-        from ..alternatives import suggest_routes
+        from routerisk.analysis.alternatives import suggest_routes
 
         count = _integer(doc, "count", 3)
         if count < 1:
@@ -467,7 +472,7 @@ class Service:
 
     def review(self, doc: dict[str, Any], up: _Upload) -> dict[str, Any]:
         """Review an area as ``routerisk review`` does (what-ifs, --at, --top)."""
-        from .. import review
+        from routerisk.analysis import review
 
         area = doc.get("area")
         if isinstance(area, dict) and "file" in area:
@@ -497,7 +502,7 @@ class Service:
 
     def plan(self, doc: dict[str, Any], up: _Upload) -> dict[str, Any]:
         """Plan a day as ``routerisk plan`` does, from an uploaded runs file."""
-        from .. import dayplan, planning
+        from routerisk.analysis import dayplan, planning
 
         for f in doc.get("routes", []) or []:
             up.write_file(f, role=None)
@@ -660,7 +665,7 @@ def _number(doc: dict[str, Any], key: str, default: float) -> float:
 def _share(doc: dict[str, Any], key: str, default: float | None) -> float | None:
     import argparse
 
-    from ..commands.suggest import _share as check
+    from routerisk.cli.suggest import _share as check
 
     v = doc.get(key, default)
     if v is None:
@@ -769,7 +774,7 @@ def create_app(
     Parameters
     ----------
     net
-        A tagged :class:`routerisk.network.Network` (loaded once, shared by every request).
+        A tagged :class:`routerisk.network.folder.Network` (loaded once, shared by every request).
     token
         When given, every request must carry it (header ``X-Routerisk-Token``, query
         ``?token=``, or the cookie the page sets when opened with ``?token=``).

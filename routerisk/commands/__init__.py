@@ -1,1 +1,0 @@
-"""Sub-commands of the ``routerisk`` command line, one module each."""

@@ -1,0 +1,325 @@
+"""Build a projected, drivable road graph from an OSM file, offline.
+
+The graph follows osmnx conventions (``networkx.MultiDiGraph``; nodes with ``x``/``y``;
+edges with ``osmid``, ``highway``, ``name``, ``oneway``, ``length`` ...). Topology
+simplification, the largest strongly connected part, speeds and travel times follow osmnx
+exactly; projection is to the local UTM zone chosen by pyproj.
+
+The work is done on arrays by :mod:`routerisk.network.simplify` (the osmnx steps are pure Python
+and dominated the build); :func:`graph_from_raw_reference` keeps the osmnx pipeline itself,
+used for the rare inputs the array version hands back and by the tests that check both give
+the same graph.
+"""
+
+from __future__ import annotations
+
+import functools
+import logging
+import math
+from pathlib import Path
+from typing import Any
+
+import networkx as nx
+import numpy as np
+import pyproj
+from pyproj.aoi import AreaOfInterest
+from pyproj.database import query_utm_crs_info
+from shapely import LineString
+
+from routerisk.errors import EmptyNetworkError, OfflineError
+from routerisk.network import simplify as _simplify
+from routerisk.network import speeds
+from routerisk.network.osm import RawOSM, read_osm
+
+log = logging.getLogger(__name__)
+
+#: Speed assumed by road class where no edge of that class has a maxspeed (km/h; common
+#: practice for US-style urban streets, no source; the user can override).
+DEFAULT_CLASS_KPH = {
+    "motorway": 105.0,
+    "motorway_link": 65.0,
+    "trunk": 90.0,
+    "trunk_link": 55.0,
+    "primary": 65.0,
+    "primary_link": 50.0,
+    "secondary": 56.0,
+    "secondary_link": 45.0,
+    "tertiary": 48.0,
+    "tertiary_link": 40.0,
+    "unclassified": 40.0,
+    "residential": 40.0,
+    "living_street": 10.0,
+    "road": 40.0,
+    "busway": 40.0,
+}
+FALLBACK_KPH = 40.0
+
+# Road classes from highest to lowest, for choosing one class for a merged edge.
+CLASS_RANK = (
+    "motorway",
+    "trunk",
+    "primary",
+    "secondary",
+    "tertiary",
+    "motorway_link",
+    "trunk_link",
+    "primary_link",
+    "secondary_link",
+    "tertiary_link",
+    "unclassified",
+    "residential",
+    "living_street",
+    "road",
+    "busway",
+)
+_ONEWAY = {"yes", "true", "1", "-1", "reverse", "T", "F"}
+_REVERSED = {"-1", "reverse", "T"}
+
+
+@functools.lru_cache(maxsize=256)
+def utm_crs(lon: float, lat: float) -> pyproj.CRS:
+    """Return the WGS 84 UTM zone CRS that contains the point (chosen by pyproj)."""
+    infos = query_utm_crs_info(
+        datum_name="WGS 84",
+        area_of_interest=AreaOfInterest(lon, lat, lon, lat),
+    )
+    if not infos:  # pragma: no cover - polar areas
+        raise EmptyNetworkError(f"no UTM zone for lon {lon}, lat {lat}")
+    return pyproj.CRS.from_epsg(int(infos[0].code))
+
+
+def _graph_from_raw(raw: RawOSM) -> nx.MultiDiGraph:
+    """Create the unsimplified lon/lat graph (one edge per consecutive node pair)."""
+    import osmnx as ox
+
+    G = nx.MultiDiGraph(crs="epsg:4326", created_with="routerisk")
+    for way in raw.ways:
+        tags = way.tags
+        oneway_tag = tags.get("oneway")
+        oneway = oneway_tag in _ONEWAY or tags.get("junction") == "roundabout"
+        refs, ll = way.refs, way.lonlat
+        if oneway and oneway_tag in _REVERSED:
+            refs, ll = refs[::-1], ll[::-1]
+        for ref, (lon, lat) in zip(refs.tolist(), ll.tolist(), strict=True):
+            if ref not in G:
+                G.add_node(ref, x=lon, y=lat)
+        attrs: dict[str, Any] = {
+            "osmid": way.osmid,
+            "highway": tags.get("highway"),
+            "oneway": bool(oneway),
+            "reversed": bool(oneway and oneway_tag in _REVERSED),
+        }
+        for key in (
+            "name",
+            "lanes",
+            "maxspeed",
+            "sidewalk",
+            "ref",
+            "hazard",
+            "maxspeed:conditional",
+        ):
+            if key in tags:
+                attrs[key] = tags[key]
+        lengths = ox.distance.great_circle(ll[:-1, 1], ll[:-1, 0], ll[1:, 1], ll[1:, 0])
+        rl = refs.tolist()
+        for a, b, length in zip(rl[:-1], rl[1:], np.atleast_1d(lengths).tolist(), strict=True):
+            if a == b:
+                continue
+            G.add_edge(a, b, length=float(length), **attrs)
+            if not oneway:
+                G.add_edge(b, a, length=float(length), **{**attrs, "reversed": True})
+    return G
+
+
+def _first_class(value: Any) -> str:
+    if isinstance(value, list):
+        ranked = sorted(
+            value, key=lambda v: (CLASS_RANK.index(v) if v in CLASS_RANK else 99, str(v))
+        )
+        return str(ranked[0])
+    return str(value)
+
+
+def _lanes(value: Any) -> int | None:
+    vals = value if isinstance(value, list) else [value]
+    out = []
+    for v in vals:
+        for tok in str(v).replace(";", "|").split("|"):
+            try:
+                n = float(tok)
+            except ValueError:
+                continue
+            if math.isfinite(n) and n > 0:
+                out.append(int(round(n)))
+    return max(out) if out else None
+
+
+def _name(value: Any) -> str:
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return ""
+    if isinstance(value, list):
+        return " / ".join(sorted({str(v) for v in value if v}))
+    return str(value)
+
+
+def normalise_attrs(d: dict[str, Any]) -> None:
+    """Give one edge's attributes one road class, name, lane count and a parsed maxspeed.
+
+    Merged edges carry lists in an order that follows Python's hash seed (osmnx merges with
+    ``set``); every choice here is independent of that order, so builds are reproducible.
+    """
+    d["highway"] = _first_class(d.get("highway"))
+    d["name"] = _name(d.get("name"))
+    d["lanes"] = _lanes(d["lanes"]) if "lanes" in d else None
+    d["oneway"] = bool(d["oneway"]) if not isinstance(d.get("oneway"), list) else any(d["oneway"])
+    if isinstance(d.get("sidewalk"), list):
+        d["sidewalk"] = sorted(str(x) for x in d["sidewalk"])[0]
+    if isinstance(d.get("osmid"), list):
+        d["osmid"] = min(int(x) for x in d["osmid"])
+    if "maxspeed" in d:
+        d["maxspeed_raw"] = (
+            d["maxspeed"]
+            if isinstance(d["maxspeed"], str)
+            else ";".join(sorted(map(str, d["maxspeed"])))
+        )
+        kph = speeds.parse_maxspeed(d["maxspeed"])
+        if kph is None:
+            del d["maxspeed"]
+        else:
+            d["maxspeed"] = f"{kph:.4f}"
+
+
+def _normalise_edges(G: nx.MultiDiGraph) -> None:
+    """Normalise every edge's attributes and give straight edges a geometry."""
+    for u, v, d in G.edges(data=True):
+        normalise_attrs(d)
+        if "geometry" not in d:
+            d["geometry"] = LineString(
+                [(G.nodes[u]["x"], G.nodes[u]["y"]), (G.nodes[v]["x"], G.nodes[v]["y"])]
+            )
+
+
+def _add_speeds(G: nx.MultiDiGraph) -> None:
+    import osmnx as ox
+
+    observed = {d["highway"] for _, _, d in G.edges(data=True) if "maxspeed" in d}
+    classes = {d["highway"] for _, _, d in G.edges(data=True)}
+    hwy = {c: DEFAULT_CLASS_KPH.get(c, FALLBACK_KPH) for c in classes - observed}
+    ox.routing.add_edge_speeds(G, hwy_speeds=hwy or None, fallback=FALLBACK_KPH)
+    ox.routing.add_edge_travel_times(G)
+
+
+def graph_from_raw_reference(
+    raw: RawOSM, *, largest_component: bool = True, simplify: bool = True
+) -> nx.MultiDiGraph:
+    """Build the projected drivable graph with osmnx's own (pure-Python) steps."""
+    import osmnx as ox
+
+    if not raw.ways:
+        raise EmptyNetworkError("holds no drivable roads (after the drive filter)", path=raw.path)
+    G = _graph_from_raw(raw)
+    if simplify:
+        G = ox.simplification.simplify_graph(G)
+    if largest_component:
+        G = ox.truncate.largest_component(G, strongly=True)
+    if G.number_of_edges() == 0:
+        raise EmptyNetworkError("holds no connected drivable roads", path=raw.path)
+    _normalise_edges(G)
+    _add_speeds(G)
+    lon = float(np.mean([d["x"] for _, d in G.nodes(data=True)]))
+    lat = float(np.mean([d["y"] for _, d in G.nodes(data=True)]))
+    crs = utm_crs(lon, lat)
+    for _, d in G.nodes(data=True):
+        d["lon"], d["lat"] = d["x"], d["y"]
+    G = ox.projection.project_graph(G, to_crs=crs)
+    for _, _, d in G.edges(data=True):
+        d.pop("reversed", None)
+    G.graph["crs"] = crs.to_string()
+    G.graph["source"] = Path(raw.path).name
+    return G
+
+
+def _fast_frames(raw: RawOSM, largest_component: bool, simplify: bool) -> _simplify.Frames | None:
+    """Return the array-built frames, or None when osmnx's own steps must be used."""
+    if not raw.ways:
+        raise EmptyNetworkError("holds no drivable roads (after the drive filter)", path=raw.path)
+    try:
+        fr = _simplify.build_frames(
+            raw, largest_component=largest_component, simplify_graph=simplify
+        )
+    except _simplify.NeedsReference as why:
+        log.info("%s: %s; using osmnx's own simplification", raw.path, why)
+        return None
+    if len(fr.edges) == 0:
+        raise EmptyNetworkError("holds no connected drivable roads", path=raw.path)
+    return fr
+
+
+def frames_from_raw(
+    raw: RawOSM, *, largest_component: bool = True, simplify: bool = True
+) -> _simplify.Frames:
+    """Return the nodes and edges GeoDataFrames of the projected drivable graph.
+
+    They equal ``osmnx.convert.graph_to_gdfs(graph_from_raw(raw))``, built without the
+    graph.
+    """
+    fr = _fast_frames(raw, largest_component, simplify)
+    if fr is None:
+        import osmnx as ox
+
+        G = graph_from_raw_reference(raw, largest_component=largest_component, simplify=simplify)
+        nodes, edges = ox.convert.graph_to_gdfs(G)
+        cols = list(dict.fromkeys(k for _, _, d in G.edges(data=True) for k in d))
+        fr = _simplify.Frames(nodes, edges, dict(G.graph), cols)
+    return fr
+
+
+def graph_from_raw(
+    raw: RawOSM, *, largest_component: bool = True, simplify: bool = True
+) -> nx.MultiDiGraph:
+    """Build the projected drivable graph from an already-read OSM file."""
+    fr = _fast_frames(raw, largest_component, simplify)
+    if fr is None:
+        G = graph_from_raw_reference(raw, largest_component=largest_component, simplify=simplify)
+    else:
+        G = _simplify.graph_from_frames(fr)
+    log.info(
+        "graph_from_raw returned graph with %d nodes and %d edges",
+        G.number_of_nodes(),
+        G.number_of_edges(),
+    )
+    return G
+
+
+def graph_from_file(
+    path: str | Path, *, largest_component: bool = True, simplify: bool = True
+) -> nx.MultiDiGraph:
+    """Read an OSM file and return its projected drivable road graph.
+
+    Parameters
+    ----------
+    path
+        ``.osm``, ``.osm.bz2``, ``.osm.gz`` or ``.osm.pbf`` file.
+    largest_component
+        Keep only the largest strongly connected part (default).
+    simplify
+        Merge chains of interstitial nodes into single edges (osmnx's simplification).
+    """
+    return graph_from_raw(read_osm(path), largest_component=largest_component, simplify=simplify)
+
+
+def graph_from_place(query: str, *, largest_component: bool = True) -> nx.MultiDiGraph:
+    """Download a drivable graph for a place name through osmnx (needs the internet)."""
+    import osmnx as ox
+
+    try:
+        G = ox.graph_from_place(
+            query, network_type="drive", simplify=True, retain_all=not largest_component
+        )
+    except Exception as exc:  # noqa: BLE001 - osmnx raises many kinds when offline
+        raise OfflineError(
+            f"could not download the road network for {query!r} ({type(exc).__name__}); "
+            "this needs an internet connection; offline, pass an OSM file instead",
+            field="--place",
+        ) from exc
+    return G  # pragma: no cover - needs the network
