@@ -1,13 +1,18 @@
 """routerisk: pedestrian-exposure scoring of automated-vehicle test routes.
 
-The package is flat, one pipeline stage per module::
+The package is laid out by pipeline stage::
 
-    routerisk.profile    frozen, validated exposure profile (weights, radii, rules)
-    routerisk.network.loader     OSM file -> projected drivable road graph
-    routerisk.network.sources    OSM file -> exposure sources per profile category
-    routerisk.network.severity   impact speed -> pedestrian death / severe injury probability
-    routerisk.network.tagging    per-edge exposure, crossings and severity
-    routerisk.network.folder    saved network folder (GeoPackage + metadata)
+    routerisk.network    OSM file -> drivable graph, sources, tagging, severity, saved folder
+    routerisk.io         reading route, drive, event, area and count files; atomic writes
+    routerisk.matching   routes and recorded traces -> driven edges (Viterbi, HMM matching)
+    routerisk.analysis   scoring, alternatives, area review, day plans, evidence, warnings,
+                         calibration, uncertainty (computing only, nothing drawn)
+    routerisk.render     maps, charts, HTML reports and plain words (one writer per result)
+    routerisk.cli        the command line, one module per command
+    routerisk.serve      the local planning page (Starlette)
+    routerisk.profile    the frozen, validated exposure profile
+    routerisk.parallel   tagging and area review tile by tile on Dask
+    routerisk.testing    invented street networks for tests and benchmarks
 
 The top-level functions (:mod:`routerisk.api`) are the front door for notebooks and scripts::
 
