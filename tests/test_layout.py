@@ -34,7 +34,6 @@ NOT_YET_SPLIT = {
     "api.py": 635,  # the top-level functions: one typed wrapper with its docstring each
     "analysis/calibration.py": 836,  # counts, design, fit, goodness of fit, profile writing
     "analysis/watch.py": 867,  # drives, events, units, periods, charts, outputs
-    "profile.py": 615,  # profile schema, validation, fingerprint  # folium maps: background, classes, legends, symbols, tiles  # the planning page API: routes, requests, network layer
 }
 
 
