@@ -12,7 +12,7 @@ import pytest
 
 from routerisk.errors import OptionError, OutputExistsError
 from routerisk.io.atomic import sha256_file
-from routerisk.testing import synthetic
+from routerisk.testing import grid, synthetic
 
 EDGES = 2000
 SEED = 3
@@ -177,7 +177,7 @@ def test_calibration_over_sizes_and_seeds() -> None:
     # the grid refinement alone (no file): within 5 % for small sizes
     for edges in (500, 1000, 3000):
         for seed in range(4):
-            lay = synthetic._choose_layout(edges, seed)
+            lay = grid.choose_layout(edges, seed)
             assert abs(lay.drive_edges / edges - 1) <= 0.05, (edges, seed, lay.drive_edges)
 
 
