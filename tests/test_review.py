@@ -765,3 +765,20 @@ def test_profile_section_names_time_of_baseline_decay_step_and_model_scope() -> 
     assert "Baseline time profile: street_presence" in text
     assert "Gaussian decay (retail) is cut at the radius" in text and "0.135" in text
     assert "severity given a crash" in text and "not modelled" in text
+
+
+def test_old_names_still_reach_the_moved_writers() -> None:
+    # issue 19: the map, the report and the files moved to routerisk.render; the old module's
+    # names still find them (imported on first use, so analysis.review does not load render's
+    # review modules), and a name that never existed is still an AttributeError.
+    from routerisk.analysis.review import write_review
+    from routerisk.render import review_map
+
+    assert write_review is review_files.write_review
+    assert review.review_csv is review_files.review_csv
+    assert review.review_html is review_report.review_html
+    assert review.review_map is review_map.review_map
+    assert review.HOTSPOT_COLOUR == review_map.HOTSPOT_COLOUR
+    assert review.read_areas.__module__ == "routerisk.io.areas"
+    with pytest.raises(AttributeError, match="no_such_name"):
+        review.no_such_name  # noqa: B018
