@@ -136,7 +136,7 @@ def read_areas(path: str | Path, *, crs: str | int | pyproj.CRS) -> Areas:
     """
     import pyproj
 
-    from routerisk.analysis.review import read_areas as _read
+    from routerisk.io.areas import read_areas as _read
 
     target = pyproj.CRS.from_user_input(crs)
     return Areas(_read(path, crs=target), target)

@@ -422,7 +422,7 @@ class ReviewResult:
 
     def to_map(self) -> folium.Map:
         """Return the map of the areas: streets by band, hot spots, clusters, sources."""
-        from routerisk.analysis.review import review_map
+        from routerisk.render.review_map import review_map
 
         m: folium.Map = review_map(self.review)
         return m

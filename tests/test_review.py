@@ -35,7 +35,7 @@ from routerisk.errors import InputFileError, OptionError
 from routerisk.network.folder import FORMAT_VERSION, Network, save_network
 from routerisk.network.tagging import tag_edges
 from routerisk.profile import load_profile
-from routerisk.render import report
+from routerisk.render import report, review_files, review_report
 
 CRS = "EPSG:32625"
 X0, Y0 = 420_000.0, 4_262_000.0
@@ -603,7 +603,7 @@ def hostile_page(hand: tuple[Path, Network]) -> tuple[str, review.Review]:
         at=review.parse_time("sat 23:10"),
         what_ifs=[review.parse_what_if(["rule:school hours=off"], net.profile)],
     )
-    return review.review_html(res), res
+    return review_report.review_html(res), res
 
 
 _LOADS = re.compile(r"""(?i)(?:src|href)\s*=\s*(?:["']|&quot;|&#x27;)?\s*https?://""")
@@ -626,7 +626,7 @@ def test_report_is_self_contained_and_escaped(hostile_page: tuple[str, review.Re
 
 def test_areas_side_by_side(hostile_page: tuple[str, review.Review]) -> None:
     page, res = hostile_page
-    table = pd.read_csv(io.StringIO(review.review_csv(res)))
+    table = pd.read_csv(io.StringIO(review_files.review_csv(res)))
     assert list(table["area"]) == ["Centre", HOSTILE]
     # Centre as above; the second box x 150..450, y -150..50 holds Alder x 150-400 both ways
     # (0.5 km) and Birch Lane y -150..50 (0.2 km): 0.7 km directed. Busy: Alder x 150-200
@@ -761,7 +761,24 @@ def test_exposure_by_hour_follows_baseline_and_crossing_time_profiles(tmp_path: 
 def test_profile_section_names_time_of_baseline_decay_step_and_model_scope() -> None:
     # issue 17, points 10-12: the report says how the baseline is timed, where a gaussian
     # decay has its step at the radius, and what "risk" models.
-    text = review._model_text(load_profile())
+    text = review_report._model_text(load_profile())
     assert "Baseline time profile: street_presence" in text
     assert "Gaussian decay (retail) is cut at the radius" in text and "0.135" in text
     assert "severity given a crash" in text and "not modelled" in text
+
+
+def test_old_names_still_reach_the_moved_writers() -> None:
+    # issue 19: the map, the report and the files moved to routerisk.render; the old module's
+    # names still find them (imported on first use, so analysis.review does not load render's
+    # review modules), and a name that never existed is still an AttributeError.
+    from routerisk.analysis.review import write_review
+    from routerisk.render import review_map
+
+    assert write_review is review_files.write_review
+    assert review.review_csv is review_files.review_csv
+    assert review.review_html is review_report.review_html
+    assert review.review_map is review_map.review_map
+    assert review.HOTSPOT_COLOUR == review_map.HOTSPOT_COLOUR
+    assert review.read_areas.__module__ == "routerisk.io.areas"
+    with pytest.raises(AttributeError, match="no_such_name"):
+        review.no_such_name  # noqa: B018

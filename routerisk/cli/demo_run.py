@@ -94,6 +94,7 @@ _STAGES.extend([_stage_score, _stage_suggest])
 
 def _stage_review(net: Any, out: Path, echo: Callable[[str], None]) -> dict[str, Any]:
     from routerisk.analysis import review
+    from routerisk.render.review_files import write_review
 
     areas = review.read_areas(datasets.get_path("area"), crs=net.crs)
     what_if = (
@@ -102,7 +103,7 @@ def _stage_review(net: Any, out: Path, echo: Callable[[str], None]) -> dict[str,
         else None
     )
     result = review.review_areas(net, areas, what_ifs=[what_if] if what_if else [])
-    review.write_review(result, out=out / "review")
+    write_review(result, out=out / "review")
     data = result.to_json()
     for a in data["areas"]:
         echo(

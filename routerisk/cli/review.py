@@ -141,6 +141,7 @@ def run(args: argparse.Namespace) -> int:
     from routerisk.analysis import review
     from routerisk.network.folder import load_network
     from routerisk.profile import load_profile
+    from routerisk.render.review_files import write_review
 
     if args.report is not None and not args.report.lower().endswith((".html", ".htm")):
         raise OptionError(f"must name an .html file, got {args.report!r}", field="--report")
@@ -186,7 +187,7 @@ def run(args: argparse.Namespace) -> int:
         unc = uncertainty.area_bands(
             result, args.uncertainty, uncertainty.DEFAULT_SEED if args.seed is None else args.seed
         )
-    written = review.write_review(
+    written = write_review(
         result,
         out=args.out,
         report_path=args.report,
