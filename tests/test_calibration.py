@@ -1,4 +1,4 @@
-"""Calibration of a profile on pedestrian counts (routerisk/analysis/calibration.py)."""
+"""Calibration of a profile on pedestrian counts (routerisk/analysis/calibration/, routerisk/io/counts.py)."""
 
 from __future__ import annotations
 
