@@ -33,6 +33,7 @@ def _counts_csv(net, n_sites: int, path: Path, rng) -> None:
     import shapely
 
     from routerisk.analysis import calibration
+    from routerisk.io import counts as counts_io
 
     e = net.edges
     chosen: list[int] = []
@@ -46,7 +47,7 @@ def _counts_csv(net, n_sites: int, path: Path, rng) -> None:
     lon, lat = pyproj.Transformer.from_crs(e.crs, "EPSG:4326", always_xy=True).transform(
         shapely.get_x(mids), shapely.get_y(mids)
     )
-    lines = [",".join(calibration.COLUMNS)]
+    lines = [",".join(counts_io.COLUMNS)]
     for i in range(n_sites):
         for _ in range(3):
             day = dt.date(2027, 3, 8 + int(rng.integers(0, 6)))
@@ -54,7 +55,7 @@ def _counts_csv(net, n_sites: int, path: Path, rng) -> None:
             end = start + dt.timedelta(hours=2)
             lines.append(f"S{i},{lat[i]:.7f},{lon[i]:.7f},{start.isoformat()},{end.isoformat()},0")
     path.write_text("\n".join(lines) + "\n", encoding="utf-8")
-    counts = calibration.read_counts(path, net.timezone)
+    counts = counts_io.read_counts(path, net.timezone)
     design = calibration.build_design(net, counts, calibration.place_sites(net, counts))
     w = np.array(
         [1.0, *(c.weight * (1.5 if j % 2 else 0.7) for j, c in enumerate(net.profile.categories))]
@@ -73,10 +74,11 @@ def _coverage(seeds: int) -> dict[str, float]:
 
     from routerisk import datasets
     from routerisk.analysis import calibration as cb
+    from routerisk.io import counts as counts_io
     from routerisk.network.folder import build_network
 
     net = build_network(datasets.get_path("town"), timezone="Etc/GMT+3")
-    counts = cb.read_counts(datasets.get_path("counts"), net.timezone)
+    counts = counts_io.read_counts(datasets.get_path("counts"), net.timezone)
     d = cb.build_design(net, counts, cb.place_sites(net, counts))
     theta = 40.0 * np.r_[1.0, [c.weight for c in net.profile.categories]]
     truth = np.r_[theta[0], theta[1:] / theta[0]]

@@ -29,6 +29,7 @@ sys.path.insert(0, str(HERE.parent))
 
 from routerisk import datasets  # noqa: E402
 from routerisk.analysis import calibration  # noqa: E402
+from routerisk.io import counts as counts_io  # noqa: E402
 from routerisk.network.folder import build_network  # noqa: E402
 
 SEED = 20270315
@@ -109,7 +110,7 @@ def rows(net, rng: np.random.Generator) -> list[dict[str, object]]:
 
 def _csv(records: list[dict[str, object]]) -> str:
     buf = io.StringIO()
-    w = csv.DictWriter(buf, fieldnames=list(calibration.COLUMNS), lineterminator="\n")
+    w = csv.DictWriter(buf, fieldnames=list(counts_io.COLUMNS), lineterminator="\n")
     w.writeheader()
     w.writerows(records)
     return buf.getvalue()
@@ -123,7 +124,7 @@ def main(out: Path = HERE) -> None:
     with tempfile.TemporaryDirectory() as tmp:
         draft = Path(tmp) / "draft.csv"
         draft.write_text(_csv(recs), encoding="utf-8")
-        counts = calibration.read_counts(draft, net.timezone)
+        counts = counts_io.read_counts(draft, net.timezone)
         placement = calibration.place_sites(net, counts)
         design = calibration.build_design(net, counts, placement)
     w = np.array([1.0, *(TRUE_WEIGHTS.get(c.name, c.weight) for c in net.profile.categories)])

@@ -1,4 +1,4 @@
-"""Calibration of a profile on pedestrian counts (routerisk/analysis/calibration.py)."""
+"""Calibration of a profile on pedestrian counts (routerisk/analysis/calibration/, routerisk/io/counts.py)."""
 
 from __future__ import annotations
 
@@ -14,6 +14,7 @@ import yaml
 from routerisk import datasets
 from routerisk.analysis import calibration as cb
 from routerisk.cli import main
+from routerisk.io import counts as counts_io
 from routerisk.profile import load_profile, parse_profile
 
 #: The hidden profile of the sample count programme (sample_area/make_counts.py).
@@ -22,7 +23,7 @@ TRUE = {"school": 4.5, "retail": 2.2, "park": 0.3, "transit": 1.6}
 
 @pytest.fixture(scope="module")
 def design(town_net):
-    counts = cb.read_counts(datasets.get_path("counts"), town_net.timezone)
+    counts = counts_io.read_counts(datasets.get_path("counts"), town_net.timezone)
     placement = cb.place_sites(town_net, counts)
     return cb.build_design(town_net, counts, placement)
 
@@ -113,7 +114,7 @@ def _rows(path: Path) -> list[dict[str, str]]:
 
 def _write(path: Path, rows: list[dict[str, str]]) -> Path:
     buf = io.StringIO()
-    w = csv.DictWriter(buf, fieldnames=list(cb.COLUMNS), lineterminator="\n")
+    w = csv.DictWriter(buf, fieldnames=list(counts_io.COLUMNS), lineterminator="\n")
     w.writeheader()
     w.writerows(rows)
     path.write_text(buf.getvalue(), encoding="utf-8")
@@ -123,7 +124,7 @@ def _write(path: Path, rows: list[dict[str, str]]) -> Path:
 def test_categories_without_sites_are_not_fitted(town_net, tmp_path):
     rows = _rows(datasets.get_path("counts"))
     e = town_net.edges
-    counts = cb.read_counts(datasets.get_path("counts"), town_net.timezone)
+    counts = counts_io.read_counts(datasets.get_path("counts"), town_net.timezone)
     pl = cb.place_sites(town_net, counts)
     near = set(
         pl.sites.loc[
@@ -241,7 +242,7 @@ def _sample_rows():
 def _bad_text():
     rows = _edit(3, count="-4")
     buf = io.StringIO()
-    w = csv.DictWriter(buf, fieldnames=list(cb.COLUMNS), lineterminator="\n")
+    w = csv.DictWriter(buf, fieldnames=list(counts_io.COLUMNS), lineterminator="\n")
     w.writeheader()
     w.writerows(rows)
     return buf.getvalue()
@@ -298,7 +299,7 @@ def test_bad_counts_one_line_exit_2_nothing_written(make, words, town_dir, tmp_p
 
 def test_fewer_sites_says_how_many_are_needed(town_net, tmp_path):
     rows = [r for r in _sample_rows() if r["site"] in ("C04", "C07")]
-    with pytest.raises(cb.CountsError, match=r"needs at least \d+ sites"):
+    with pytest.raises(counts_io.CountsError, match=r"needs at least \d+ sites"):
         cb.calibrate(town_net, _bad(tmp_path, rows))
 
 
@@ -343,8 +344,8 @@ def test_geojson_counts_read_like_csv(town_net, tmp_path):
     ]
     path = tmp_path / "c.geojson"
     path.write_text(json.dumps({"type": "FeatureCollection", "features": feats}))
-    a = cb.read_counts(path, town_net.timezone)
-    b = cb.read_counts(datasets.get_path("counts"), town_net.timezone)
+    a = counts_io.read_counts(path, town_net.timezone)
+    b = counts_io.read_counts(datasets.get_path("counts"), town_net.timezone)
     assert (
         a[["site", "count", "hours"]].to_numpy() == b[["site", "count", "hours"]].to_numpy()
     ).all()
