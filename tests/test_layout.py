@@ -30,7 +30,6 @@ NOT_YET_SPLIT = {
     "analysis/early_warning.py": 1040,  # empirical Bayes, Benjamini-Hochberg, Poisson CUSUM
     "analysis/alternatives.py": 923,  # lower-exposure alternatives
     "network/simplify.py": 727,  # the vectorised graph build
-    "serve/app.py": 748,
     "api.py": 635,  # the top-level functions: one typed wrapper with its docstring each
     "analysis/calibration.py": 836,  # counts, design, fit, goodness of fit, profile writing
     "analysis/watch.py": 867,  # drives, events, units, periods, charts, outputs
