@@ -191,7 +191,7 @@ def test_an_error_half_way_leaves_no_output(case, tmp_path, town_dir, monkeypatc
         monkeypatch.setattr(routemap, "route_map", _boom)
         argv = ["score", routes, "--network", str(town_dir), "--out", str(out)]
     elif case == "suggest":  # rendering the page fails
-        monkeypatch.setattr(mapview, "render", _boom)
+        monkeypatch.setattr(mapview.page, "render", _boom)  # save() renders through it
         out = tmp_path / "alt.html"
         argv = ["suggest", routes, "--network", str(town_dir), "--map", str(out)]
     elif case == "review":  # the report fails after areas.csv and areas.json are written

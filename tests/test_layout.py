@@ -27,8 +27,6 @@ MAX_LINES = 600
 NOT_YET_SPLIT = {
     "analysis/early_warning.py": 1040,  # empirical Bayes, Benjamini-Hochberg, Poisson CUSUM
     "network/simplify.py": 727,  # the vectorised graph build
-    "serve/app.py": 748,
-    "render/mapview.py": 860,
     "analysis/watch.py": 867,  # drives, events, units, periods, charts, outputs
 }
 

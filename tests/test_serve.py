@@ -22,6 +22,7 @@ with warnings.catch_warnings():
     from starlette.testclient import TestClient
 
 from routerisk.serve import app as serve_app
+from routerisk.serve import service as serve_service
 
 DEPARTS = ["2027-03-09T08:10", "2027-03-09T15:05", "2027-03-14T11:00"]  # Tue school hours, Sun
 
@@ -464,7 +465,7 @@ def test_network_layer_is_simplified_by_zoom(client, monkeypatch):
     assert {f["properties"]["band"] for f in near["edges"]["features"]} <= {
         b["name"] for b in info["bands"]
     }
-    monkeypatch.setattr(serve_app, "MAX_FEATURES", 10)
+    monkeypatch.setattr(serve_service, "MAX_FEATURES", 10)  # Service.network reads it
     capped = _ok(client.get("/api/network", params={"bbox": bbox, "zoom": 17}))
     assert len(capped["edges"]["features"]) == 10 and capped["truncated"]
     top = max(range(len(info["bands"])), key=lambda i: i)
