@@ -27,14 +27,12 @@ MAX_LINES = 600
 NOT_YET_SPLIT = {
     "analysis/review.py": 1270,  # area reading, what-if parsing, clipping, hot spots, map, HTML
     "testing/synthetic.py": 1196,  # the synthetic city generator for benchmarks
-    "analysis/early_warning.py": 1040,  # empirical Bayes, Benjamini-Hochberg, Poisson CUSUM
     "analysis/alternatives.py": 923,  # lower-exposure alternatives
     "network/simplify.py": 727,  # the vectorised graph build
     "serve/app.py": 748,
     "render/mapview.py": 860,
     "api.py": 635,  # the top-level functions: one typed wrapper with its docstring each
     "analysis/calibration.py": 836,  # counts, design, fit, goodness of fit, profile writing
-    "analysis/watch.py": 867,  # drives, events, units, periods, charts, outputs
     "profile.py": 615,  # profile schema, validation, fingerprint  # folium maps: background, classes, legends, symbols, tiles  # the planning page API: routes, requests, network layer
 }
 
