@@ -1,8 +1,10 @@
 """Early warnings from logged safety events: reading, rates, flags and CUSUM.
 
 Pure statistics on pandas and numpy. Matching events to drives and segments, and the
-command line, live elsewhere; this module takes per-unit (or per-period) tables and
-returns tables.
+command line, live elsewhere; this package takes per-unit (or per-period) tables and
+returns tables. Submodules: ``rates`` (empirical Bayes), ``fdr`` (Benjamini-Hochberg),
+``dispersion`` (over-dispersion tests), ``cusum`` (Poisson CUSUM and chart families); the
+event-log reader lives in :mod:`routerisk.io.events` and is re-exported here.
 
 Stages
 ------

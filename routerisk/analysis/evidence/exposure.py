@@ -235,8 +235,7 @@ def _drive_segments(net: Any, drives: list[Any], idx: Any) -> list[pd.DataFrame]
     frames = []
     for r in drives:
         m = matching.to_edges(idx, r)
-        mi = pd.MultiIndex.from_tuples(list(m.edges), names=edges.index.names)
-        pos = edges.index.get_indexer(mi)
+        pos = m.rows(edges.index)
         part = pd.DataFrame(
             {
                 "drive": f"{Path(r.source).name}:{r.name}",

@@ -67,8 +67,7 @@ def match_drives(net: Any, drives: list[Any], index: Any = None) -> list[Drive]:
                 field=f"route {r.name!r}",
             )
         m = matching.match_trace(idx, r)
-        mi = pd.MultiIndex.from_tuples(list(m.edges), names=eidx.names)
-        pos = eidx.get_indexer(mi)
+        pos = m.rows(eidx)
         fe = np.asarray(m.point_edge)
         fix_edge = np.where(fe >= 0, pos[np.clip(fe, 0, len(pos) - 1)], -1)
         times = pd.DatetimeIndex(list(r.times)).tz_convert("UTC").as_unit("ns").asi8

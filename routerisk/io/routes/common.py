@@ -21,7 +21,7 @@ from typing import Any
 import numpy as np
 
 from routerisk.errors import RouteInputError
-from routerisk.io.timezones import YEARS, resolve_zone
+from routerisk.io.timezones import YEARS
 
 # The package's logger, so that log lines name ``routerisk.io.routes`` as before the split.
 logger = logging.getLogger(__package__)
@@ -115,10 +115,6 @@ class PlannedRoute:
 
 # A route under construction: its fields plus where in the file it came from.
 _Parsed = tuple[PlannedRoute, str]
-
-
-def _resolve_tz(value: str | tzinfo | None) -> tzinfo | None:
-    return resolve_zone(value, field="default_tz")
 
 
 def _short(value: object) -> str:
