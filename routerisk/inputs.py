@@ -75,8 +75,8 @@ def read_drives(folder: str | Path, *, timezone: TimeZone | None = None) -> Rout
     >>> all(d.times is not None for d in drives)
     True
     """
-    from routerisk.analysis.watch import drive_files
     from routerisk.io import routes
+    from routerisk.io.drives import drive_files
 
     with parameters({"--drives": "folder"}):
         files = drive_files(folder)
@@ -106,7 +106,7 @@ def read_events(path: str | Path, *, timezone: TimeZone | None = None) -> Events
     >>> len(events) > 0
     True
     """
-    from routerisk.analysis.early_warning import read_events as _read
+    from routerisk.io.events import read_events as _read
 
     good, bad = _read(path, tz=timezone)
     return Events(good, bad, str(path))

@@ -564,8 +564,8 @@ class WatchResult:
 
     def to_map(self) -> folium.Map:
         """Return the map of the network with the flagged segments."""
-        from routerisk.analysis.watch import flag_map
         from routerisk.io.atomic import provenance
+        from routerisk.render.watch_map import flag_map
 
         net = self.network
         m: folium.Map = flag_map(

@@ -143,3 +143,45 @@ def test_rule_breaks_and_times_in_local_time(real_net):
     before = score("2026-07-06T07:30")
     assert before["depart"].endswith("+01:00")
     assert len(before["rule_breaks"]) == 0
+
+
+def test_one_copy_of_zones_and_years():
+    # issue 19: the accepted years and the zone helpers live in routerisk.io.timezones only;
+    # the old places re-export the same objects
+    from routerisk.analysis import scoring, watch
+    from routerisk.io import timezones
+    from routerisk.io.routes import common
+    from routerisk.network import folder
+
+    assert scoring.YEARS is timezones.YEARS is common.YEARS is watch.YEARS
+    assert folder.zone_label is timezones.zone_label
+    assert folder.check_timezone is timezones.check_timezone
+    assert folder.infer_timezone is timezones.infer_timezone
+
+
+def test_resolve_zone_names_the_field_and_passes_tzinfo_through():
+    import datetime as dt
+
+    from routerisk.errors import OptionError
+    from routerisk.io.timezones import resolve_zone
+
+    utc = dt.UTC
+    assert resolve_zone(None, field="tz") is None
+    assert resolve_zone(utc, field="tz") is utc
+    assert str(resolve_zone("Etc/GMT+3", field="tz")) == "Etc/GMT+3"
+    with pytest.raises(OptionError) as err:
+        resolve_zone("Nowhere/Atlantis", field="default_tz")
+    assert err.value.field == "default_tz"
+    assert "unknown time zone 'Nowhere/Atlantis'" in str(err.value)
+
+
+def test_wall_clock_ns_is_local_time():
+    import numpy as np
+
+    from routerisk.io.timezones import wall_clock_ns
+
+    # 2027-03-09 12:00 UTC is 09:00 at UTC-3 (Etc/GMT+3; POSIX sign, common practice, no source)
+    t = np.array([np.datetime64("2027-03-09T12:00", "ns").astype(np.int64)])
+    local = wall_clock_ns(t, "Etc/GMT+3")
+    assert np.datetime64(int(local[0]), "ns") == np.datetime64("2027-03-09T09:00", "ns")
+    assert wall_clock_ns(np.zeros(0, dtype=np.int64), "UTC").size == 0

@@ -20,6 +20,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from routerisk.io.timezones import YEARS
 from routerisk.profile import MINUTES_PER_WEEK, Profile
 
 
@@ -148,9 +149,6 @@ from typing import Any  # noqa: E402
 LEFT_TURN_MIN_DEG = 45.0
 LEFT_TURN_MAX_DEG = 150.0
 HOTSPOTS = 5
-#: Departure years accepted (a drive's times are added to the departure, so dates near the
-#: ends of Python's calendar would overflow).
-YEARS = (1900, 2200)
 
 
 @dataclass

@@ -145,9 +145,10 @@ _STAGES.append(_stage_evidence)
 
 def _stage_watch(net: Any, out: Path, echo: Callable[[str], None]) -> dict[str, Any]:
     from routerisk.analysis import watch
+    from routerisk.render.watch_report import write_outputs
 
     result = watch.watch(net, datasets.get_path("events"), datasets.get_path("drives"))
-    watch.write_outputs(
+    write_outputs(
         net,
         result,
         out / "warnings",

@@ -106,6 +106,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace) -> int:
     """Run ``watch``."""
     from routerisk.analysis import watch
+    from routerisk.render.watch_report import write_outputs
 
     args.overlay = None
     if args.out:
@@ -127,7 +128,7 @@ def run(args: argparse.Namespace) -> int:
         baseline_rate=args.baseline_rate,
     )
     if args.out:
-        watch.write_outputs(
+        write_outputs(
             net,
             result,
             args.out,

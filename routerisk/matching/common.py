@@ -10,6 +10,7 @@ from __future__ import annotations
 
 from collections.abc import Hashable
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -108,3 +109,14 @@ class MatchedRoute:
     def __len__(self) -> int:
         """Return the number of edges."""
         return len(self.edges)
+
+    def rows(self, index: Any) -> np.ndarray:
+        """Return the row position of each driven edge in a network edge table's index.
+
+        ``index`` is the ``(u, v, key)`` MultiIndex of the table (``net.edges.index``); an
+        edge not in it gets -1 (the evidence and early-warning drives are looked up so).
+        """
+        import pandas as pd
+
+        mi = pd.MultiIndex.from_tuples(list(self.edges), names=index.names)
+        return np.asarray(index.get_indexer(mi))

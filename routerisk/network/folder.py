@@ -12,13 +12,12 @@ from __future__ import annotations
 
 import json
 import logging
-import re
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from functools import cached_property
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
-from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
+from zoneinfo import ZoneInfo
 
 import geopandas as gpd
 import numpy as np
@@ -27,8 +26,9 @@ import pyogrio
 import yaml
 
 from routerisk import __version__
-from routerisk.errors import NetworkFolderError, OptionError, ProfileError
+from routerisk.errors import NetworkFolderError, ProfileError
 from routerisk.io.atomic import atomic_directory, dumps_json, sha256_file
+from routerisk.io.timezones import check_timezone, infer_timezone, zone_label  # noqa: F401
 from routerisk.profile import Profile, load_profile, parse_profile, safe_load_yaml
 
 if TYPE_CHECKING:
@@ -63,51 +63,6 @@ EDGE_KEEP = (
     "travel_time",
     "geometry",
 )
-
-
-def check_timezone(name: str) -> str:
-    """Return ``name`` if it is a known IANA time zone, else raise OptionError."""
-    try:
-        ZoneInfo(name)
-    except (ZoneInfoNotFoundError, ValueError) as exc:
-        raise OptionError(
-            f"unknown time zone {name!r} (use an IANA name such as 'Etc/GMT+3' or 'UTC')",
-            field="--timezone",
-        ) from exc
-    return name
-
-
-def infer_timezone(lon: float, lat: float) -> str:
-    """Return the IANA time zone at ``lon``, ``lat`` from an offline lookup (timezonefinder).
-
-    Open sea gets the nautical zone (``Etc/GMT+3`` at 38 degrees west). Raises OptionError when
-    the lookup has no answer, asking for ``--timezone``.
-    """
-    from timezonefinder import TimezoneFinder
-
-    name = TimezoneFinder().timezone_at(lng=float(lon), lat=float(lat))
-    if not name:
-        raise OptionError(
-            f"no time zone is known at lon {lon:.4f}, lat {lat:.4f}; give the "
-            "area's time zone (an IANA name)",
-            field="--timezone",
-        )
-    return str(name)
-
-
-def zone_label(name: str) -> str:
-    """Return a time zone as people read it: ``Etc/GMT+3`` -> ``UTC-03:00``.
-
-    The ``Etc/GMT`` names carry the POSIX sign (``Etc/GMT+3`` is three hours *behind* UTC),
-    which misleads; other names are returned with nothing changed.
-    """
-    if name in ("UTC", "Etc/UTC", "Etc/GMT", "GMT", "Etc/GMT0", "Etc/GMT+0", "Etc/GMT-0"):
-        return "UTC+00:00"
-    m = re.fullmatch(r"Etc/GMT([+-])(\d{1,2})", name)
-    if m:
-        sign = "-" if m.group(1) == "+" else "+"
-        return f"UTC{sign}{int(m.group(2)):02d}:00"
-    return name
 
 
 @dataclass

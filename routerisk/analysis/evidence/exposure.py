@@ -208,14 +208,10 @@ def segments_from_drives(net: Any, folder: str | Path) -> pd.DataFrame:
     ``infl_<category>`` from the network, the input :func:`distance_by_exposure` takes.
     """
     from routerisk import matching
-    from routerisk.analysis.watch import drive_files
-    from routerisk.io import routes
+    from routerisk.io.drives import read_drive_routes
 
-    idx = matching.RoadIndex(net.graph)
-    frames = []
-    for f in drive_files(folder):
-        frames += _drive_segments(net, routes.read_routes(f, default_tz=net.timezone), idx)
-    return pd.concat(frames, ignore_index=True)
+    drives = read_drive_routes(folder, default_tz=net.timezone)
+    return pd.concat(_drive_segments(net, drives, matching.RoadIndex(net.graph)), ignore_index=True)
 
 
 def segments_of_drives(net: Any, drives: list[Any]) -> pd.DataFrame:
@@ -239,8 +235,7 @@ def _drive_segments(net: Any, drives: list[Any], idx: Any) -> list[pd.DataFrame]
     frames = []
     for r in drives:
         m = matching.to_edges(idx, r)
-        mi = pd.MultiIndex.from_tuples(list(m.edges), names=edges.index.names)
-        pos = edges.index.get_indexer(mi)
+        pos = m.rows(edges.index)
         part = pd.DataFrame(
             {
                 "drive": f"{Path(r.source).name}:{r.name}",

@@ -17,11 +17,11 @@ from dataclasses import dataclass
 from datetime import UTC, datetime, tzinfo
 from pathlib import Path
 from typing import Any
-from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 import numpy as np
 
-from routerisk.errors import OptionError, RouteInputError
+from routerisk.errors import RouteInputError
+from routerisk.io.timezones import YEARS
 
 # The package's logger, so that log lines name ``routerisk.io.routes`` as before the split.
 logger = logging.getLogger(__package__)
@@ -31,9 +31,6 @@ logger = logging.getLogger(__package__)
 REQUIRED_POINT_TOLERANCE_M = 30.0
 
 _EARTH_RADIUS_M = 6_371_008.8
-#: Years a route time may carry (dates near the ends of the calendar overflow when a
-#: drive's duration is added).
-_YEARS = (1900, 2200)
 _ROUTE_TYPES = ("LineString", "MultiLineString")
 _OTHER_GEOMETRIES = ("Point", "MultiPoint", "Polygon", "MultiPolygon", "GeometryCollection")
 _TRUE = frozenset({"1", "true", "yes", "y", "t"})
@@ -120,15 +117,6 @@ class PlannedRoute:
 _Parsed = tuple[PlannedRoute, str]
 
 
-def _resolve_tz(value: str | tzinfo | None) -> tzinfo | None:
-    if value is None or isinstance(value, tzinfo):
-        return value
-    try:
-        return ZoneInfo(str(value))
-    except (ZoneInfoNotFoundError, ValueError) as exc:
-        raise OptionError(f"unknown time zone {value!r}", field="default_tz") from exc
-
-
 def _short(value: object) -> str:
     text = repr(value)
     return text if len(text) <= 40 else text[:37] + "..."
@@ -152,9 +140,9 @@ def _parse_time(
             path=path,
             field=field,
         ) from None
-    if not _YEARS[0] <= dt.year <= _YEARS[1]:
+    if not YEARS[0] <= dt.year <= YEARS[1]:
         raise RouteInputError(
-            f"year {dt.year} is outside {_YEARS[0]}-{_YEARS[1]}: {_short(value)}",
+            f"year {dt.year} is outside {YEARS[0]}-{YEARS[1]}: {_short(value)}",
             path=path,
             field=field,
         )

@@ -18,11 +18,12 @@ import numpy as np
 
 from routerisk.errors import InputFileError, OptionError
 from routerisk.io.atomic import dumps_json, write_text_atomic
-from routerisk.io.routes.common import PlannedRoute, _check_unique, _resolve_tz
+from routerisk.io.routes.common import PlannedRoute, _check_unique
 from routerisk.io.routes.csvfile import _csv_text, _read_csv
 from routerisk.io.routes.detect import _detect_format, _refuse_other_kinds
 from routerisk.io.routes.geojsonfile import _read_geojson
 from routerisk.io.routes.gpxfile import _gpx_text, _read_gpx
+from routerisk.io.timezones import resolve_zone
 
 # The package's logger, so that log lines name ``routerisk.io.routes`` as before the split.
 logger = logging.getLogger(__package__)
@@ -56,7 +57,7 @@ def read_routes(path: str | Path, *, default_tz: str | tzinfo | None = None) -> 
         unknown geometry types, bad times, bad required marks.
     """
     p = Path(path)
-    tz = _resolve_tz(default_tz)
+    tz = resolve_zone(default_tz, field="default_tz")
     if not p.exists():
         raise InputFileError("no such file", path=p)
     if not p.is_file():
