@@ -49,10 +49,11 @@ def build_network(
     >>> net.summary()["edges"] > 0
     True
     """
+    from routerisk.io.timezones import check_timezone
     from routerisk.network import folder as network
 
     with parameters({"--timezone": "timezone"}):
-        zone = None if timezone is None else network.check_timezone(timezone)
+        zone = None if timezone is None else check_timezone(timezone)
         return network.build_network(
             source, profile=profile_of(profile), timezone=zone, largest_component=largest_component
         )

@@ -47,6 +47,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Run ``build``."""
+    from routerisk.io.timezones import check_timezone, zone_label
     from routerisk.network import folder as network
 
     if args.place:
@@ -59,7 +60,7 @@ def run(args: argparse.Namespace) -> int:
     if args.source is None:
         raise OptionError("give an OSM file (or --place)", field="SOURCE")
     check_target(args.out, force=args.force, folder=True)  # refuse before the work
-    timezone = None if args.timezone is None else network.check_timezone(args.timezone)
+    timezone = None if args.timezone is None else check_timezone(args.timezone)
     with cluster_of(args) as tiles:
         tagger = None
         if tiles is not None:
@@ -86,7 +87,7 @@ def run(args: argparse.Namespace) -> int:
         )
         zone = net.meta["timezone"]
         how = "given" if net.meta["timezone_source"] == "given" else "looked up from the location"
-        label = network.zone_label(zone)
+        label = zone_label(zone)
         shown = zone if label == zone else f"{label} ({zone})"
         print(
             f"local time zone: {shown}, {how}; times without an offset are read in it "

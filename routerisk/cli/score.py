@@ -77,7 +77,7 @@ def run(args: argparse.Namespace) -> int:
     """Run ``score``."""
     from routerisk.analysis import scoring
     from routerisk.io import routes
-    from routerisk.network.folder import zone_label
+    from routerisk.io.timezones import zone_label
 
     if args.out:
         check_target(args.out, force=args.force, folder=True)  # before any work

@@ -96,7 +96,7 @@ def run(args: argparse.Namespace) -> int:
     from routerisk.analysis import scoring
     from routerisk.analysis.alternatives import suggest_routes
     from routerisk.io import routes
-    from routerisk.network.folder import zone_label
+    from routerisk.io.timezones import zone_label
 
     if args.count < 1:
         raise OptionError("must be at least 1", field="--count")

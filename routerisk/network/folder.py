@@ -28,7 +28,7 @@ import yaml
 from routerisk import __version__
 from routerisk.errors import NetworkFolderError, ProfileError
 from routerisk.io.atomic import atomic_directory, dumps_json, sha256_file
-from routerisk.io.timezones import check_timezone, infer_timezone, zone_label  # noqa: F401
+from routerisk.io.timezones import check_timezone, infer_timezone
 from routerisk.profile import Profile, load_profile, parse_profile, safe_load_yaml
 
 if TYPE_CHECKING:

@@ -500,7 +500,7 @@ def review_html(review: Review, *, tiles: Any = None, bands: str = "fixed") -> s
 
 
 def _zone_text(name: str) -> str:
-    from routerisk.network.folder import zone_label
+    from routerisk.io.timezones import zone_label
 
     label = zone_label(name)
     return name if label == name else f"{label} ({name})"

@@ -119,7 +119,7 @@ class Service:
     def info(self) -> dict[str, Any]:
         """Return what the page needs to draw the network and its controls."""
         prof = self.net.profile
-        from routerisk.network.folder import zone_label
+        from routerisk.io.timezones import zone_label
 
         return {
             "bounds": self.bounds,
