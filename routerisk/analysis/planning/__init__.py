@@ -1,9 +1,9 @@
 """Plan a test day: which run starts when, on which vehicle, at least total exposure risk.
 
-The package has two halves: reading the day's runs, and the pure optimisation that schedules
-them. Its submodules, in pipeline order:
+The day's runs are read by :mod:`routerisk.io.runs` (re-exported here); this package is the
+pure optimisation that schedules them. In pipeline order:
 
-* :mod:`~routerisk.analysis.planning.runs`: :func:`read_runs` reads a RUNS file (YAML or CSV) into
+* :mod:`~routerisk.io.runs`: :func:`read_runs` reads a RUNS file (YAML or CSV) into
   :class:`RunSpec` rows (name, route file or start / end / via points, time window, optional
   vehicle, repeat count); :func:`parse_clock` / :func:`format_clock` for ``"HH:MM"`` times.
 * :mod:`~routerisk.analysis.planning.model`: the scheduling input and output (:class:`Candidate`,
@@ -34,8 +34,8 @@ from routerisk.analysis.planning.model import (
     overlaps,
 )
 from routerisk.analysis.planning.naive import naive_schedule
-from routerisk.analysis.planning.runs import RunSpec, format_clock, parse_clock, read_runs
 from routerisk.analysis.planning.solve import solve_schedule
+from routerisk.io.runs import RunSpec, format_clock, parse_clock, read_runs
 
 __all__ = [
     "Assignment",

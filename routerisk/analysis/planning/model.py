@@ -23,8 +23,8 @@ from dataclasses import dataclass, field
 from datetime import UTC, datetime, timedelta
 from typing import Any
 
-from routerisk.analysis.planning.runs import RunSpec
 from routerisk.errors import OptionError
+from routerisk.io.runs import RunSpec
 
 TimeLike = float | int | datetime
 
