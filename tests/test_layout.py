@@ -29,7 +29,6 @@ NOT_YET_SPLIT = {
     "testing/synthetic.py": 1196,  # the synthetic city generator for benchmarks
     "analysis/early_warning.py": 1040,  # empirical Bayes, Benjamini-Hochberg, Poisson CUSUM
     "analysis/alternatives.py": 923,  # lower-exposure alternatives
-    "network/simplify.py": 727,  # the vectorised graph build
     "serve/app.py": 748,
     "render/mapview.py": 860,
     "api.py": 635,  # the top-level functions: one typed wrapper with its docstring each
@@ -92,7 +91,7 @@ def _load_time_imports(tree: ast.Module) -> list[ast.Import | ast.ImportFrom]:
     blocks, but not ``if TYPE_CHECKING:`` blocks (never executed) and not imports inside
     functions or classes: a function-level (lazy) import runs only when the function is
     called, after every module involved has finished loading, so it cannot deadlock a load
-    and is excluded here (``_simplify`` imports ``loader`` that way, for example).
+    and is excluded here (a command module imports its library inside ``run``, for example).
     """
     found: list[ast.Import | ast.ImportFrom] = []
 

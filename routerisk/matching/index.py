@@ -13,9 +13,10 @@ import logging
 import math
 from collections.abc import Hashable, Sequence
 from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any
 
-import networkx as nx
 import numpy as np
+import pandas as pd
 import pyproj
 import scipy.sparse as sp
 import shapely
@@ -24,6 +25,9 @@ from shapely import LineString, STRtree
 
 from routerisk.errors import EmptyNetworkError
 from routerisk.matching.common import _CELL_M, _EPS, _MAX_CELLS, _SUBGRAPH_MIN_NODES, Edge
+
+if TYPE_CHECKING:
+    import networkx as nx
 
 # The package's logger, so that log lines name ``routerisk.matching`` as before the split.
 logger = logging.getLogger(__package__)
@@ -76,6 +80,13 @@ def _expand(counts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return owner, rank
 
 
+def _column(frame: Any, name: str, order: np.ndarray) -> np.ndarray:
+    """Return ``frame[name]`` as floats in ``order`` (NaN where null or missing)."""
+    if name not in frame:
+        return np.full(len(order), np.nan)
+    return pd.to_numeric(frame[name], errors="coerce").to_numpy(dtype=float)[order].copy()
+
+
 class RoadIndex:
     """Spatial and routing index of a projected road graph, built once per graph.
 
@@ -121,14 +132,9 @@ class RoadIndex:
             raise ValueError("the road graph has no 'crs' graph attribute")
         if graph.number_of_edges() == 0:
             raise EmptyNetworkError("the road graph has no edges")
-        self.crs = crs
         nodes = list(graph.nodes)
-        self.node_ids = np.empty(len(nodes), dtype=object)
-        self.node_ids[:] = nodes
-        self.node_pos: dict[Hashable, int] = {n: i for i, n in enumerate(nodes)}
-        self.node_xy = np.array(
-            [(graph.nodes[n]["x"], graph.nodes[n]["y"]) for n in nodes], dtype=float
-        )
+        node_pos: dict[Hashable, int] = {n: i for i, n in enumerate(nodes)}
+        node_xy = np.array([(graph.nodes[n]["x"], graph.nodes[n]["y"]) for n in nodes], dtype=float)
         m = graph.number_of_edges()
         eu = np.empty(m, dtype=np.int64)
         ev = np.empty(m, dtype=np.int64)
@@ -137,12 +143,12 @@ class RoadIndex:
         length = np.empty(m)
         ttime = np.empty(m)
         for i, (u, v, k, d) in enumerate(graph.edges(keys=True, data=True)):
-            iu, iv = self.node_pos[u], self.node_pos[v]
+            iu, iv = node_pos[u], node_pos[v]
             eu[i], ev[i] = iu, iv
             keys.append(k)
             g = d.get("geometry")
             if g is None:
-                g = LineString([self.node_xy[iu], self.node_xy[iv]])
+                g = LineString([node_xy[iu], node_xy[iv]])
             geoms[i] = g
             length[i] = float(d["length"]) if d.get("length") is not None else g.length
             if d.get("travel_time") is not None:
@@ -151,6 +157,105 @@ class RoadIndex:
                 ttime[i] = length[i] / (float(d["speed_kph"]) / 3.6)
             else:
                 raise ValueError(f"edge {(u, v, k)} has neither travel_time nor speed_kph")
+        self._setup(crs, nodes, node_pos, node_xy, (eu, ev, keys), geoms, length, ttime)
+
+    @classmethod
+    def from_frames(cls, nodes: Any, edges: Any, crs: Any) -> RoadIndex:
+        """Return the index of ``osmnx.convert.graph_from_gdfs(nodes, edges)``, without it.
+
+        The graph (graph attribute ``crs``) is not built: the arrays are read from the frames.
+
+        ``edges`` is indexed by (u, v, key) with ``geometry``, ``length`` and ``travel_time``
+        or ``speed_kph`` columns; ``nodes`` by id with ``x`` and ``y``. Nodes and edges are
+        taken in the graph's order (nodes as the edges first name them, then the nodes no
+        edge touches; edges grouped by u, then by v in order of first appearance), so every
+        array equals that of ``RoadIndex(graph)`` (tests/test_matching.py).
+        """
+        if not crs:
+            raise ValueError("the road graph has no 'crs' graph attribute")
+        if len(edges) == 0:
+            raise EmptyNetworkError("the road graph has no edges")
+        if not edges.index.is_unique:
+            raise ValueError("edges repeat a (u, v, key); build the graph instead")
+        idx = edges.index
+        u_ids = idx.get_level_values(0).to_numpy(dtype=object)
+        v_ids = idx.get_level_values(1).to_numpy(dtype=object)
+        # nodes in the order add_edge first meets them: u then v, row by row
+        both = np.empty(2 * len(u_ids), dtype=object)
+        both[0::2], both[1::2] = u_ids, v_ids
+        seen: dict[Hashable, int] = {}
+        for n in both.tolist():
+            if n not in seen:
+                seen[n] = len(seen)
+        order_nodes = list(seen)
+        order_nodes += list(set(nodes.index) - set(order_nodes))  # as graph_from_gdfs adds them
+        node_pos = {n: i for i, n in enumerate(order_nodes)}
+        pos_in_frame = nodes.index.get_indexer(order_nodes)
+        if (pos_in_frame < 0).any():
+            raise ValueError("an edge names a node the node frame lacks")
+        node_xy = np.column_stack(
+            [
+                nodes["x"].to_numpy(dtype=float)[pos_in_frame],
+                nodes["y"].to_numpy(dtype=float)[pos_in_frame],
+            ]
+        )
+        eu0 = np.fromiter((node_pos[n] for n in u_ids.tolist()), dtype=np.int64, count=len(u_ids))
+        ev0 = np.fromiter((node_pos[n] for n in v_ids.tolist()), dtype=np.int64, count=len(v_ids))
+        # networkx iterates u in node order, then v in the order (u, v) was first added
+        pair = eu0 * len(order_nodes) + ev0
+        _, first_row, inv = np.unique(pair, return_index=True, return_inverse=True)
+        order = np.lexsort((np.arange(len(pair)), first_row[inv.ravel()], eu0))
+        eu, ev = eu0[order], ev0[order]
+        key_vals = idx.get_level_values(2).to_numpy(dtype=object)[order]
+        keys: list[Hashable] = key_vals.tolist()
+        geoms = edges.geometry.to_numpy(dtype=object)[order].copy()
+        missing = np.flatnonzero(pd.isna(geoms))
+        for i in missing.tolist():
+            geoms[i] = LineString([node_xy[eu[i]], node_xy[ev[i]]])
+        length = _column(edges, "length", order)
+        no_len = np.isnan(length)
+        if no_len.any():
+            length[no_len] = shapely.length(geoms[no_len])
+        ttime = _column(edges, "travel_time", order)
+        no_time = np.isnan(ttime)
+        if no_time.any():
+            kph = _column(edges, "speed_kph", order)
+            bad = no_time & (np.isnan(kph) | (kph == 0))
+            if bad.any():
+                i = int(np.flatnonzero(bad)[0])
+                edge = (order_nodes[eu[i]], order_nodes[ev[i]], keys[i])
+                raise ValueError(f"edge {edge} has neither travel_time nor speed_kph")
+            ttime[no_time] = length[no_time] / (kph[no_time] / 3.6)
+        self = cls.__new__(cls)
+        self._setup(crs, order_nodes, node_pos, node_xy, (eu, ev, keys), geoms, length, ttime)
+        return self
+
+    @classmethod
+    def of_network(cls, net: Any) -> RoadIndex:
+        """Return the index of ``net.graph`` (a folder ``Network``), read from its frames.
+
+        The graph itself is not built (see :meth:`from_frames`).
+        """
+        return cls.from_frames(net.nodes, net.edges, net.edges.crs.to_string())
+
+    def _setup(
+        self,
+        crs: Any,
+        nodes: list[Hashable],
+        node_pos: dict[Hashable, int],
+        node_xy: np.ndarray,
+        ends: tuple[np.ndarray, np.ndarray, list[Hashable]],
+        geoms: np.ndarray,
+        length: np.ndarray,
+        ttime: np.ndarray,
+    ) -> None:
+        self.crs = crs
+        self.node_ids = np.empty(len(nodes), dtype=object)
+        self.node_ids[:] = nodes
+        self.node_pos = node_pos
+        self.node_xy = node_xy
+        eu, ev, keys = ends
+        m = len(eu)
         length = np.maximum(length, 0.0)
         ttime = np.maximum(ttime, _EPS)
         # geometry must run u -> v (osmnx convention); turn around any stored the other way
