@@ -256,3 +256,20 @@ def test_tied_parts_take_the_array_path(tmp_path):
         parts.append(osm.way(20 + s, [ids[0], base + 50, ids[2]], highway="tertiary"))
     path = osm.write(tmp_path / "tied.osm", parts)
     _check(path)
+
+
+def test_isolated_nodes_kept_by_the_array_build(tmp_path):
+    # Ways of one repeated node leave nodes without edges; with every part kept (--all-parts)
+    # osmnx's projection adds them back in the order Python iterates a set difference. The
+    # array build gives the same frames and graph (no fallback: _check calls build_frames).
+    ids = [977, 130, 64, 519, 8, 301, 96, 45, 712, 33, 250, 1000]  # set order != this order
+    extra = [osm.node(n, 38.51 + 1e-5 * n, -38.003 - 1e-5 * n) for n in ids]
+    extra += [osm.way(40 + i, [n, n], highway="residential") for i, n in enumerate(ids)]
+    path = _chain_file(tmp_path, extra)
+    raw = read_osm(path)
+    assert _simplify.isolated_nodes(raw_edges.raw_edges(raw)).sum() == len(ids)
+    for kw in ({"largest_component": False}, {"largest_component": False, "simplify": False}):
+        G = _check(path, **kw)
+        tail = list(G.nodes)[-len(ids) :]
+        assert sorted(tail) == sorted(ids) and tail != ids and tail != sorted(ids)
+    _check(path)  # the largest part drops them, as before

@@ -32,6 +32,7 @@ from routerisk.network.edge_attrs import (  # noqa: F401 - re-exported, loader's
     utm_crs,
 )
 from routerisk.network.osm import RawOSM, read_osm
+from routerisk.network.raw_edges import NeedsReference
 
 log = logging.getLogger(__name__)
 
@@ -140,7 +141,7 @@ def _fast_frames(raw: RawOSM, largest_component: bool, simplify: bool) -> _proje
         fr = _project.build_frames(
             raw, largest_component=largest_component, simplify_graph=simplify
         )
-    except _project.NeedsReference as why:
+    except NeedsReference as why:
         log.info("%s: %s; using osmnx's own simplification", raw.path, why)
         return None
     if len(fr.edges) == 0:

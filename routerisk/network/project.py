@@ -23,7 +23,7 @@ import shapely
 
 from routerisk.network.edge_attrs import DEFAULT_CLASS_KPH, FALLBACK_KPH, normalise_attrs, utm_crs
 from routerisk.network.osm import RawOSM
-from routerisk.network.raw_edges import NeedsReference, raw_edges
+from routerisk.network.raw_edges import raw_edges
 from routerisk.network.simplify import isolated_nodes, largest_strong_part, simplify
 
 _MISSING = object()
@@ -130,6 +130,19 @@ def _edge_speeds(norm: list[dict[str, Any]], used: np.ndarray, template: np.ndar
     return speed
 
 
+def _isolated_order(ids: np.ndarray, every: np.ndarray, linked: np.ndarray) -> np.ndarray:
+    """Return the positions of the nodes without edges, in the order osmnx adds them back.
+
+    In its projection ``graph_from_gdfs`` adds ``set(nodes.index) - set(G.nodes)`` after the edges
+    (``nodes`` in the graph's order, ``G.nodes`` as the edges named them). The same two sets
+    are built here the same way, so Python iterates their difference in the same order.
+    """
+    left = ids[every].tolist()
+    rest = list(set(left) - set(ids[linked].tolist()))
+    pos = {n: i for i, n in zip(every.tolist(), left, strict=True)}
+    return np.array([pos[n] for n in rest], dtype=np.int64)
+
+
 def build_frames(
     raw: RawOSM, *, largest_component: bool = True, simplify_graph: bool = True
 ) -> Frames:
@@ -142,8 +155,7 @@ def build_frames(
     """
     re = raw_edges(raw)
     iso = isolated_nodes(re)
-    if iso.any() and not largest_component:
-        raise NeedsReference("nodes without edges")
+    keep_iso = iso.any() and not largest_component  # nodes without edges stay in the graph
     g = simplify(re, simplify=simplify_graph)
     if largest_component:
         present = iso.copy()
@@ -155,8 +167,9 @@ def build_frames(
     present = np.zeros(g.n_nodes, dtype=bool)
     present[g.u] = present[g.v] = True
     gnodes = np.flatnonzero(present)
-    lon0 = float(np.mean(re.lon[gnodes].tolist()))
-    lat0 = float(np.mean(re.lat[gnodes].tolist()))
+    every = np.flatnonzero(present | iso) if keep_iso else gnodes  # the graph's nodes, in order
+    lon0 = float(np.mean(re.lon[every].tolist()))
+    lat0 = float(np.mean(re.lat[every].tolist()))
     crs = utm_crs(lon0, lat0)
     tr = pyproj.Transformer.from_crs("EPSG:4326", crs, always_xy=True)
     px, py = tr.transform(re.lon, re.lat)
@@ -194,6 +207,8 @@ def build_frames(
     final = np.argsort(first_seen[g.u], kind="stable")
     node_order = np.argsort(first_seen[gnodes], kind="stable")
     node_pos = gnodes[node_order]
+    if keep_iso:
+        node_pos = np.concatenate([node_pos, _isolated_order(re.node_ids, every, node_pos)])
     # final column order: first appearance of non-null keys over the final rows
     tmpl_final = g.template[final]
     used_f, first_f = np.unique(tmpl_final, return_index=True)

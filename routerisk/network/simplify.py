@@ -23,8 +23,9 @@ found by pointer jumping (list ranking) on the edge arrays. Interstitial nodes w
 directed edges made of parallel duplicates (``a -> x`` twice) walk in osmnx in ways that
 depend on the traversal, so for those rare inputs
 :func:`routerisk.network.project.build_frames` raises
-:class:`NeedsReference` and the loader uses the osmnx pipeline instead; it does the same when
-isolated nodes would be kept (``--all-parts``), where osmnx's order comes from Python sets.
+:class:`NeedsReference` and the loader uses the osmnx pipeline instead. Nodes without edges
+kept with ``--all-parts`` are placed as osmnx's projection places them (the order of a Python
+set difference, rebuilt the same way in :mod:`routerisk.network.project`).
 A largest strongly connected part that is tied or smaller than half the graph (clipped or
 fragmented extracts) is ordered by networkx itself on a bare copy of the graph, as osmnx
 orders it (:func:`largest_strong_part`).
