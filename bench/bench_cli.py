@@ -8,8 +8,11 @@ For each input, ``routerisk build`` (as a process: ``python -m routerisk build I
 is timed against a ``python -c`` process running osmnx's ``graph_from_xml`` on the same data
 (given as .osm, since osmnx reads only XML), the two interleaved round by round; the median
 wall and CPU (user + system, of the child) seconds of ``--repeat`` rounds are recorded, with
-their ratio. Also timed: ``routerisk --help``, ``routerisk --version`` and a score of one route
-on the sample town (a saved network). Inputs:
+their ratio. Also timed: ``routerisk --help``, ``routerisk --version``, a score of one route
+on the sample town (a saved network), the import of the libraries that score needs (the
+floor no change inside routerisk can go under) and, with ``--baseline TREE``, the same score
+from another source tree (say, a checkout before a change), interleaved. ``--inputs ''``
+times these alone. Inputs:
 
 * ``grid``: a plain 160 x 160 street grid (bench/make_grid.py), .osm;
 * ``city-osm`` / ``city-pbf``: the generated 100k-edge city (bench/make_city.py, seed 1);
@@ -45,18 +48,23 @@ INPUTS = ("grid", "city-osm", "city-pbf", "real")
 OSMNX = "import osmnx as ox, sys; G = ox.graph_from_xml(sys.argv[1]); print(len(G.edges))"
 
 
-def _env() -> dict[str, str]:
+#: The libraries a score cannot do without (frames, spatial index, Dijkstra, projection).
+FLOOR = "import pandas, geopandas, pyogrio, pyproj, shapely, scipy.sparse.csgraph, yaml"
+
+
+def _env(root: Path = ROOT) -> dict[str, str]:
     env = dict(os.environ)
     env.pop("PYTHONDONTWRITEBYTECODE", None)
-    env["PYTHONPATH"] = str(ROOT) + os.pathsep + env.get("PYTHONPATH", "")
+    rest = [p for p in env.get("PYTHONPATH", "").split(os.pathsep) if p]
+    env["PYTHONPATH"] = os.pathsep.join([str(root), *rest])
     return env
 
 
-def _timed(cmd: list[str], cwd: Path) -> tuple[float, float]:
-    """Run ``cmd``; return (wall seconds, CPU seconds of the child)."""
+def _timed(cmd: list[str], cwd: Path, root: Path = ROOT) -> tuple[float, float]:
+    """Run ``cmd`` with ``root`` first on PYTHONPATH; return (wall s, CPU s of the child)."""
     before = resource.getrusage(resource.RUSAGE_CHILDREN)
     start = time.perf_counter()
-    proc = subprocess.run(cmd, cwd=cwd, env=_env(), capture_output=True, text=True)
+    proc = subprocess.run(cmd, cwd=cwd, env=_env(root), capture_output=True, text=True)
     wall = time.perf_counter() - start
     after = resource.getrusage(resource.RUSAGE_CHILDREN)
     if proc.returncode != 0:
@@ -118,7 +126,13 @@ def _median(xs: list[float]) -> float:
 
 
 def bench(
-    work: Path, names: list[str], repeat: int, *, warm: bool = True, out: Path | None = None
+    work: Path,
+    names: list[str],
+    repeat: int,
+    *,
+    warm: bool = True,
+    out: Path | None = None,
+    baseline: Path | None = None,
 ) -> dict[str, Any]:
     """Run the interleaved rounds; return the record (also written to ``out`` each round)."""
     py = sys.executable
@@ -165,10 +179,17 @@ def bench(
     ]
     jobs["--help"] = [py, "-m", "routerisk", "--help"]
     jobs["--version"] = [py, "-m", "routerisk", "--version"]
+    jobs["import floor"] = [py, "-c", FLOOR]
+    roots = {k: ROOT for k in jobs}
+    light = ["score one route", "import floor", "--help", "--version"]
+    if baseline is not None:  # the same score from another tree (say, before a change)
+        jobs["score one route, baseline"] = jobs["score one route"]
+        roots["score one route, baseline"] = baseline
+        light.insert(1, "score one route, baseline")
     times: dict[str, list[tuple[float, float]]] = {k: [] for k in jobs}
     for key, cmd in jobs.items():  # warm-up: byte-code caches, the town network
         if warm or not key.startswith(("build ", "osmnx ")) or key == "build town":
-            _timed(cmd, work)
+            _timed(cmd, work, roots[key])
             print(f"warm: {key}", file=sys.stderr, flush=True)
     del times["build town"]  # only made the network that score reads
     rec: dict[str, Any] = {}
@@ -177,8 +198,8 @@ def bench(
             pair = [f"build {name}", f"osmnx {name}"]
             for key in pair if r % 2 == 0 else pair[::-1]:
                 times[key].append(_timed(jobs[key], work))
-        for key in ("score one route", "--help", "--version"):
-            times[key].append(_timed(jobs[key], work))
+        for key in light if r % 2 == 0 else light[::-1]:
+            times[key].append(_timed(jobs[key], work, roots[key]))
         print(f"round {r + 1} of {repeat} done", file=sys.stderr, flush=True)
         rec = _record(times, list(files), r + 1)
         if out is not None:  # after every round, so a stopped run keeps what it measured
@@ -238,11 +259,17 @@ def markdown(rec: dict[str, Any]) -> str:
             f"{r['cpu']:.2f} |"
         )
     rows += ["", "| command (whole process) | wall, s | CPU, s |", "| --- | ---: | ---: |"]
-    for key in ("--help", "--version", "score one route"):
-        shown = (
-            "score of one route, sample town" if key == "score one route" else f"routerisk {key}"
-        )
-        rows.append(f"| {shown} | {w[key]:.2f} | {c[key]:.2f} |")
+    label = {
+        "score one route": "score of one route, sample town",
+        "score one route, baseline": "the same score, baseline tree (--baseline)",
+        "import floor": f'`python -c "{FLOOR}"` (the libraries score needs)',
+    }
+    for key in ("--help", "--version", "score one route", "score one route, baseline"):
+        if key in w:
+            rows.append(f"| {label.get(key, f'routerisk {key}')} | {w[key]:.2f} | {c[key]:.2f} |")
+    if "import floor" in w:
+        key = "import floor"
+        rows.append(f"| {label[key]} | {w[key]:.2f} | {c[key]:.2f} |")
     return "\n".join(rows)
 
 
@@ -259,19 +286,33 @@ def main() -> None:
     ap.add_argument("--inputs", default=",".join(INPUTS), help="comma-separated inputs")
     ap.add_argument("--markdown", action="store_true", help="print the recorded table only")
     ap.add_argument(
+        "--baseline",
+        type=Path,
+        metavar="TREE",
+        help="also time the score with this source tree first on PYTHONPATH, interleaved",
+    )
+    ap.add_argument(
         "--no-warm-builds",
         action="store_true",
         help="skip the untimed first run of the builds (caches already warm)",
     )
     args = ap.parse_args()
-    out = RESULTS / "cli.json"
+    names = [n for n in args.inputs.split(",") if n]
+    # the commands alone (``--inputs ''``) go to their own record, keeping the builds' one
+    out = RESULTS / ("cli.json" if names else "cli_commands.json")
     if not args.markdown:
-        names = [n for n in args.inputs.split(",") if n]
         bad = sorted(set(names) - set(INPUTS))
         if bad:
             raise SystemExit(f"unknown inputs {bad}; known: {', '.join(INPUTS)}")
         RESULTS.mkdir(exist_ok=True)
-        bench(args.work.resolve(), names, args.repeat, warm=not args.no_warm_builds, out=out)
+        bench(
+            args.work.resolve(),
+            names,
+            args.repeat,
+            warm=not args.no_warm_builds,
+            out=out,
+            baseline=args.baseline.resolve() if args.baseline else None,
+        )
     print(markdown(json.loads(out.read_text(encoding="utf-8"))))
 
 

@@ -7,6 +7,7 @@ import json
 
 import networkx as nx
 import numpy as np
+import pandas as pd
 import pyproj
 import pytest
 from shapely import LineString, line_interpolate_point
@@ -249,3 +250,78 @@ def test_every_score_output_says_how_the_index_reads_and_what_is_modelled(
     assert meta["relative_index_note"] == scoring.RELATIVE_INDEX_NOTE
     code, text, _ = _run(capsys, "score", routes, "--network", town_dir)
     assert code == 0 and scoring.RELATIVE_INDEX_NOTE in text and data["model"] in text
+
+
+def _same_index(a, b) -> None:
+    """Every array, matrix and mapping of two RoadIndex objects is equal."""
+    assert a.crs == b.crs
+    assert a.node_ids.tolist() == b.node_ids.tolist()
+    assert a.node_pos == b.node_pos and a.edge_pos == b.edge_pos
+    assert a.edge_key == b.edge_key
+    for name in ("node_xy", "edge_u", "edge_v", "edge_length", "edge_time"):
+        np.testing.assert_array_equal(getattr(a, name), getattr(b, name), err_msg=name)
+    assert all(x.equals_exact(y, 0) for x, y in zip(a.edge_geom, b.edge_geom, strict=True))
+    for name in ("csr_time", "csr_length"):
+        m, n = getattr(a, name), getattr(b, name)
+        np.testing.assert_array_equal(m.indptr, n.indptr)
+        np.testing.assert_array_equal(m.indices, n.indices)
+        np.testing.assert_array_equal(m.data, n.data)
+    for name in ("_seg_ax", "_seg_ay", "_seg_dx", "_seg_dy", "_seg_cum", "_grp_edge"):
+        np.testing.assert_array_equal(getattr(a, name), getattr(b, name), err_msg=name)
+    assert a._reach == b._reach and a.median_speed == b.median_speed
+
+
+def test_index_from_frames_equals_index_of_graph(town_net, town_index):
+    """RoadIndex.of_network reads the frames in the graph's order, without building it."""
+    from routerisk.network.folder import Network
+
+    fresh = Network(
+        town_net.edges,
+        town_net.nodes,
+        town_net.sources,
+        town_net.crossings,
+        town_net.profile,
+        town_net.meta,
+    )
+    _same_index(matching.RoadIndex.of_network(fresh), town_index)
+    assert "graph" not in fresh.__dict__  # the cached graph was never built
+
+
+def test_index_from_frames_with_gaps_equals_index_of_graph(town_net):
+    """Null geometry, length or travel time, an isolated node and shuffled rows: still equal."""
+    from routerisk.network import project
+
+    edges = town_net.edges.sample(frac=1.0, random_state=3).copy()
+    nodes = town_net.nodes.copy()
+    edges.iloc[0, edges.columns.get_loc("geometry")] = None
+    edges.iloc[1, edges.columns.get_loc("length")] = np.nan
+    edges.iloc[2, edges.columns.get_loc("travel_time")] = np.nan
+    lonely = nodes.iloc[[0]].copy()
+    lonely.index = [-7]
+    nodes = pd.concat([nodes, lonely])
+    crs = town_net.edges.crs.to_string()
+    graph = project.graph_from_gdfs(nodes, edges, graph_attrs={"crs": crs})
+    _same_index(matching.RoadIndex.from_frames(nodes, edges, crs), matching.RoadIndex(graph))
+
+
+def test_score_does_not_build_the_graph(town_net):
+    """Scoring matches on the frames: the networkx graph is never made."""
+    from routerisk.analysis import scoring
+    from routerisk.network.folder import Network
+
+    fresh = Network(
+        town_net.edges,
+        town_net.nodes,
+        town_net.sources,
+        town_net.crossings,
+        town_net.profile,
+        town_net.meta,
+    )
+    from routerisk.io import routes
+
+    planned = routes.read_routes(datasets.get_path("routes"), default_tz=fresh.timezone)[:1]
+    scores = scoring.score_routes(
+        fresh, planned, [dt.datetime(2027, 3, 9, 8, 0, tzinfo=fresh.timezone)]
+    )
+    assert scores and scores[0].risk > 0
+    assert "graph" not in fresh.__dict__

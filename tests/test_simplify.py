@@ -14,7 +14,7 @@ import pytest
 import shapely
 
 from routerisk import datasets
-from routerisk.network import loader
+from routerisk.network import loader, project, raw_edges
 from routerisk.network import simplify as _simplify
 from routerisk.network.folder import load_network
 from routerisk.network.osm import read_osm
@@ -81,7 +81,7 @@ def _check(path, **kw):
     raw = read_osm(path)
     G0 = loader.graph_from_raw_reference(raw, **kw)
     n0, e0 = ox.convert.graph_to_gdfs(G0)
-    fr = _simplify.build_frames(
+    fr = project.build_frames(
         raw,
         largest_component=kw.get("largest_component", True),
         simplify_graph=kw.get("simplify", True),
@@ -180,8 +180,8 @@ def test_parallel_duplicates_use_osmnx(tmp_path):
     ]
     path = _chain_file(tmp_path, dup)
     raw = read_osm(path)
-    with pytest.raises(_simplify.NeedsReference):
-        _simplify.build_frames(raw)
+    with pytest.raises(raw_edges.NeedsReference):
+        project.build_frames(raw)
     _assert_same_graph(loader.graph_from_raw_reference(raw), loader.graph_from_raw(raw))
     n0, e0 = ox.convert.graph_to_gdfs(loader.graph_from_raw_reference(raw))
     fr = loader.frames_from_raw(raw)
@@ -203,10 +203,10 @@ def test_great_circle_is_osmnx_to_the_bit(real_pbf):
     lon = rng.uniform(-180, 180, (2, 5000))
     lat[1, :50] = lat[0, :50]
     lon[1, :50] = lon[0, :50]  # zero distances
-    ours = _simplify.great_circle(lat[0], lon[0], lat[1], lon[1])
+    ours = raw_edges.great_circle(lat[0], lon[0], lat[1], lon[1])
     theirs = ox.distance.great_circle(lat[0], lon[0], lat[1], lon[1])
     assert np.array_equal(ours, theirs)
-    assert _simplify.EARTH_RADIUS_M == ox.distance.EARTH_RADIUS_M
+    assert raw_edges.EARTH_RADIUS_M == ox.distance.EARTH_RADIUS_M
 
 
 def _fragmented_city(tmp_path, seed: int, bands: int) -> object:
@@ -232,7 +232,7 @@ def _fragmented_city(tmp_path, seed: int, bands: int) -> object:
 def test_fragmented_extracts_take_the_array_path(tmp_path, seed, bands):
     path = _fragmented_city(tmp_path, seed, bands)
     raw = read_osm(path)
-    re = _simplify.raw_edges(raw)
+    re = raw_edges.raw_edges(raw)
     g = _simplify.simplify(re)
     n = g.n_nodes
     mat = _simplify.sparse.coo_matrix((np.ones(len(g.u)), (g.u, g.v)), shape=(n, n))
@@ -256,3 +256,20 @@ def test_tied_parts_take_the_array_path(tmp_path):
         parts.append(osm.way(20 + s, [ids[0], base + 50, ids[2]], highway="tertiary"))
     path = osm.write(tmp_path / "tied.osm", parts)
     _check(path)
+
+
+def test_isolated_nodes_kept_by_the_array_build(tmp_path):
+    # Ways of one repeated node leave nodes without edges; with every part kept (--all-parts)
+    # osmnx's projection adds them back in the order Python iterates a set difference. The
+    # array build gives the same frames and graph (no fallback: _check calls build_frames).
+    ids = [977, 130, 64, 519, 8, 301, 96, 45, 712, 33, 250, 1000]  # set order != this order
+    extra = [osm.node(n, 38.51 + 1e-5 * n, -38.003 - 1e-5 * n) for n in ids]
+    extra += [osm.way(40 + i, [n, n], highway="residential") for i, n in enumerate(ids)]
+    path = _chain_file(tmp_path, extra)
+    raw = read_osm(path)
+    assert _simplify.isolated_nodes(raw_edges.raw_edges(raw)).sum() == len(ids)
+    for kw in ({"largest_component": False}, {"largest_component": False, "simplify": False}):
+        G = _check(path, **kw)
+        tail = list(G.nodes)[-len(ids) :]
+        assert sorted(tail) == sorted(ids) and tail != ids and tail != sorted(ids)
+    _check(path)  # the largest part drops them, as before

@@ -78,6 +78,9 @@ def test_score_without_outputs_draws_nothing(town_dir, tmp_path):
     assert "routerisk.analysis.scoring" in names
     drawn = [n for n in names if n.split(".")[0] in ("folium", "matplotlib", "branca")]
     assert drawn == []
+    # matching works on the frames (RoadIndex.of_network); the severity curve is a build step
+    assert [n for n in names if n.split(".")[0] in ("networkx", "osmnx")] == []
+    assert "scipy.interpolate" not in names
 
 
 def test_route_outputs_leave_the_matplotlib_backend_alone(tmp_path):

@@ -540,7 +540,7 @@ def score_routes(
     from routerisk import matching
     from routerisk.errors import RouteInputError
 
-    idx = index or matching.RoadIndex(net.graph)
+    idx = index or matching.RoadIndex.of_network(net)
     scorer = scorer or Scorer(net)
     out = []
     for r, matched in zip(routes, matching.to_edges_many(idx, routes), strict=True):

@@ -13,8 +13,8 @@ import logging
 import math
 from collections.abc import Hashable, Sequence
 from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any
 
-import networkx as nx
 import numpy as np
 import pyproj
 import scipy.sparse as sp
@@ -24,6 +24,10 @@ from shapely import LineString, STRtree
 
 from routerisk.errors import EmptyNetworkError
 from routerisk.matching.common import _CELL_M, _EPS, _MAX_CELLS, _SUBGRAPH_MIN_NODES, Edge
+from routerisk.matching.frames import frame_arrays
+
+if TYPE_CHECKING:
+    import networkx as nx
 
 # The package's logger, so that log lines name ``routerisk.matching`` as before the split.
 logger = logging.getLogger(__package__)
@@ -121,14 +125,9 @@ class RoadIndex:
             raise ValueError("the road graph has no 'crs' graph attribute")
         if graph.number_of_edges() == 0:
             raise EmptyNetworkError("the road graph has no edges")
-        self.crs = crs
         nodes = list(graph.nodes)
-        self.node_ids = np.empty(len(nodes), dtype=object)
-        self.node_ids[:] = nodes
-        self.node_pos: dict[Hashable, int] = {n: i for i, n in enumerate(nodes)}
-        self.node_xy = np.array(
-            [(graph.nodes[n]["x"], graph.nodes[n]["y"]) for n in nodes], dtype=float
-        )
+        node_pos: dict[Hashable, int] = {n: i for i, n in enumerate(nodes)}
+        node_xy = np.array([(graph.nodes[n]["x"], graph.nodes[n]["y"]) for n in nodes], dtype=float)
         m = graph.number_of_edges()
         eu = np.empty(m, dtype=np.int64)
         ev = np.empty(m, dtype=np.int64)
@@ -137,12 +136,12 @@ class RoadIndex:
         length = np.empty(m)
         ttime = np.empty(m)
         for i, (u, v, k, d) in enumerate(graph.edges(keys=True, data=True)):
-            iu, iv = self.node_pos[u], self.node_pos[v]
+            iu, iv = node_pos[u], node_pos[v]
             eu[i], ev[i] = iu, iv
             keys.append(k)
             g = d.get("geometry")
             if g is None:
-                g = LineString([self.node_xy[iu], self.node_xy[iv]])
+                g = LineString([node_xy[iu], node_xy[iv]])
             geoms[i] = g
             length[i] = float(d["length"]) if d.get("length") is not None else g.length
             if d.get("travel_time") is not None:
@@ -151,6 +150,51 @@ class RoadIndex:
                 ttime[i] = length[i] / (float(d["speed_kph"]) / 3.6)
             else:
                 raise ValueError(f"edge {(u, v, k)} has neither travel_time nor speed_kph")
+        self._setup(crs, nodes, node_pos, node_xy, (eu, ev, keys), geoms, length, ttime)
+
+    @classmethod
+    def from_frames(cls, nodes: Any, edges: Any, crs: Any) -> RoadIndex:
+        """Return the index of ``osmnx.convert.graph_from_gdfs(nodes, edges)``, without it.
+
+        The graph (graph attribute ``crs``) is not built: the arrays are read from the frames.
+
+        ``edges`` is indexed by (u, v, key) with ``geometry``, ``length`` and ``travel_time``
+        or ``speed_kph`` columns; ``nodes`` by id with ``x`` and ``y``. Nodes and edges are
+        taken in the graph's order (nodes as the edges first name them, then the nodes no
+        edge touches; edges grouped by u, then by v in order of first appearance), so every
+        array equals that of ``RoadIndex(graph)`` (tests/test_matching.py).
+        """
+        parts = frame_arrays(nodes, edges, crs)
+        self = cls.__new__(cls)
+        self._setup(crs, *parts)
+        return self
+
+    @classmethod
+    def of_network(cls, net: Any) -> RoadIndex:
+        """Return the index of ``net.graph`` (a folder ``Network``), read from its frames.
+
+        The graph itself is not built (see :meth:`from_frames`).
+        """
+        return cls.from_frames(net.nodes, net.edges, net.edges.crs.to_string())
+
+    def _setup(
+        self,
+        crs: Any,
+        nodes: list[Hashable],
+        node_pos: dict[Hashable, int],
+        node_xy: np.ndarray,
+        ends: tuple[np.ndarray, np.ndarray, list[Hashable]],
+        geoms: np.ndarray,
+        length: np.ndarray,
+        ttime: np.ndarray,
+    ) -> None:
+        self.crs = crs
+        self.node_ids = np.empty(len(nodes), dtype=object)
+        self.node_ids[:] = nodes
+        self.node_pos = node_pos
+        self.node_xy = node_xy
+        eu, ev, keys = ends
+        m = len(eu)
         length = np.maximum(length, 0.0)
         ttime = np.maximum(ttime, _EPS)
         # geometry must run u -> v (osmnx convention); turn around any stored the other way

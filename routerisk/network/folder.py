@@ -94,9 +94,9 @@ class Network:
 
         The same graph as ``osmnx.convert.graph_from_gdfs(nodes, edges)``, built column-wise.
         """
-        from routerisk.network import simplify as _simplify
+        from routerisk.network import project
 
-        return _simplify.graph_from_gdfs(
+        return project.graph_from_gdfs(
             self.nodes, self.edges, graph_attrs={"crs": self.edges.crs.to_string()}
         )
 

@@ -5,87 +5,39 @@ edges with ``osmid``, ``highway``, ``name``, ``oneway``, ``length`` ...). Topolo
 simplification, the largest strongly connected part, speeds and travel times follow osmnx
 exactly; projection is to the local UTM zone chosen by pyproj.
 
-The work is done on arrays by :mod:`routerisk.network.simplify` (the osmnx steps are pure Python
-and dominated the build); :func:`graph_from_raw_reference` keeps the osmnx pipeline itself,
-used for the rare inputs the array version hands back and by the tests that check both give
-the same graph.
+The work is done on arrays by :mod:`routerisk.network.raw_edges`,
+:mod:`routerisk.network.simplify` and :mod:`routerisk.network.project` (the osmnx steps are
+pure Python and dominated the build); :func:`graph_from_raw_reference` keeps the osmnx
+pipeline itself, used for the rare inputs the array version hands back and by the tests that
+check both give the same graph.
 """
 
 from __future__ import annotations
 
-import functools
 import logging
-import math
 from pathlib import Path
 from typing import Any
 
 import networkx as nx
 import numpy as np
-import pyproj
-from pyproj.aoi import AreaOfInterest
-from pyproj.database import query_utm_crs_info
 from shapely import LineString
 
 from routerisk.errors import EmptyNetworkError, OfflineError
-from routerisk.network import simplify as _simplify
-from routerisk.network import speeds
+from routerisk.network import project as _project
+from routerisk.network.edge_attrs import (  # noqa: F401 - re-exported, loader's names before
+    CLASS_RANK,
+    DEFAULT_CLASS_KPH,
+    FALLBACK_KPH,
+    normalise_attrs,
+    utm_crs,
+)
 from routerisk.network.osm import RawOSM, read_osm
+from routerisk.network.raw_edges import NeedsReference
 
 log = logging.getLogger(__name__)
 
-#: Speed assumed by road class where no edge of that class has a maxspeed (km/h; common
-#: practice for US-style urban streets, no source; the user can override).
-DEFAULT_CLASS_KPH = {
-    "motorway": 105.0,
-    "motorway_link": 65.0,
-    "trunk": 90.0,
-    "trunk_link": 55.0,
-    "primary": 65.0,
-    "primary_link": 50.0,
-    "secondary": 56.0,
-    "secondary_link": 45.0,
-    "tertiary": 48.0,
-    "tertiary_link": 40.0,
-    "unclassified": 40.0,
-    "residential": 40.0,
-    "living_street": 10.0,
-    "road": 40.0,
-    "busway": 40.0,
-}
-FALLBACK_KPH = 40.0
-
-# Road classes from highest to lowest, for choosing one class for a merged edge.
-CLASS_RANK = (
-    "motorway",
-    "trunk",
-    "primary",
-    "secondary",
-    "tertiary",
-    "motorway_link",
-    "trunk_link",
-    "primary_link",
-    "secondary_link",
-    "tertiary_link",
-    "unclassified",
-    "residential",
-    "living_street",
-    "road",
-    "busway",
-)
 _ONEWAY = {"yes", "true", "1", "-1", "reverse", "T", "F"}
 _REVERSED = {"-1", "reverse", "T"}
-
-
-@functools.lru_cache(maxsize=256)
-def utm_crs(lon: float, lat: float) -> pyproj.CRS:
-    """Return the WGS 84 UTM zone CRS that contains the point (chosen by pyproj)."""
-    infos = query_utm_crs_info(
-        datum_name="WGS 84",
-        area_of_interest=AreaOfInterest(lon, lat, lon, lat),
-    )
-    if not infos:  # pragma: no cover - polar areas
-        raise EmptyNetworkError(f"no UTM zone for lon {lon}, lat {lat}")
-    return pyproj.CRS.from_epsg(int(infos[0].code))
 
 
 def _graph_from_raw(raw: RawOSM) -> nx.MultiDiGraph:
@@ -129,64 +81,6 @@ def _graph_from_raw(raw: RawOSM) -> nx.MultiDiGraph:
             if not oneway:
                 G.add_edge(b, a, length=float(length), **{**attrs, "reversed": True})
     return G
-
-
-def _first_class(value: Any) -> str:
-    if isinstance(value, list):
-        ranked = sorted(
-            value, key=lambda v: (CLASS_RANK.index(v) if v in CLASS_RANK else 99, str(v))
-        )
-        return str(ranked[0])
-    return str(value)
-
-
-def _lanes(value: Any) -> int | None:
-    vals = value if isinstance(value, list) else [value]
-    out = []
-    for v in vals:
-        for tok in str(v).replace(";", "|").split("|"):
-            try:
-                n = float(tok)
-            except ValueError:
-                continue
-            if math.isfinite(n) and n > 0:
-                out.append(int(round(n)))
-    return max(out) if out else None
-
-
-def _name(value: Any) -> str:
-    if value is None or (isinstance(value, float) and math.isnan(value)):
-        return ""
-    if isinstance(value, list):
-        return " / ".join(sorted({str(v) for v in value if v}))
-    return str(value)
-
-
-def normalise_attrs(d: dict[str, Any]) -> None:
-    """Give one edge's attributes one road class, name, lane count and a parsed maxspeed.
-
-    Merged edges carry lists in an order that follows Python's hash seed (osmnx merges with
-    ``set``); every choice here is independent of that order, so builds are reproducible.
-    """
-    d["highway"] = _first_class(d.get("highway"))
-    d["name"] = _name(d.get("name"))
-    d["lanes"] = _lanes(d["lanes"]) if "lanes" in d else None
-    d["oneway"] = bool(d["oneway"]) if not isinstance(d.get("oneway"), list) else any(d["oneway"])
-    if isinstance(d.get("sidewalk"), list):
-        d["sidewalk"] = sorted(str(x) for x in d["sidewalk"])[0]
-    if isinstance(d.get("osmid"), list):
-        d["osmid"] = min(int(x) for x in d["osmid"])
-    if "maxspeed" in d:
-        d["maxspeed_raw"] = (
-            d["maxspeed"]
-            if isinstance(d["maxspeed"], str)
-            else ";".join(sorted(map(str, d["maxspeed"])))
-        )
-        kph = speeds.parse_maxspeed(d["maxspeed"])
-        if kph is None:
-            del d["maxspeed"]
-        else:
-            d["maxspeed"] = f"{kph:.4f}"
 
 
 def _normalise_edges(G: nx.MultiDiGraph) -> None:
@@ -239,15 +133,15 @@ def graph_from_raw_reference(
     return G
 
 
-def _fast_frames(raw: RawOSM, largest_component: bool, simplify: bool) -> _simplify.Frames | None:
+def _fast_frames(raw: RawOSM, largest_component: bool, simplify: bool) -> _project.Frames | None:
     """Return the array-built frames, or None when osmnx's own steps must be used."""
     if not raw.ways:
         raise EmptyNetworkError("holds no drivable roads (after the drive filter)", path=raw.path)
     try:
-        fr = _simplify.build_frames(
+        fr = _project.build_frames(
             raw, largest_component=largest_component, simplify_graph=simplify
         )
-    except _simplify.NeedsReference as why:
+    except NeedsReference as why:
         log.info("%s: %s; using osmnx's own simplification", raw.path, why)
         return None
     if len(fr.edges) == 0:
@@ -257,7 +151,7 @@ def _fast_frames(raw: RawOSM, largest_component: bool, simplify: bool) -> _simpl
 
 def frames_from_raw(
     raw: RawOSM, *, largest_component: bool = True, simplify: bool = True
-) -> _simplify.Frames:
+) -> _project.Frames:
     """Return the nodes and edges GeoDataFrames of the projected drivable graph.
 
     They equal ``osmnx.convert.graph_to_gdfs(graph_from_raw(raw))``, built without the
@@ -270,7 +164,7 @@ def frames_from_raw(
         G = graph_from_raw_reference(raw, largest_component=largest_component, simplify=simplify)
         nodes, edges = ox.convert.graph_to_gdfs(G)
         cols = list(dict.fromkeys(k for _, _, d in G.edges(data=True) for k in d))
-        fr = _simplify.Frames(nodes, edges, dict(G.graph), cols)
+        fr = _project.Frames(nodes, edges, dict(G.graph), cols)
     return fr
 
 
@@ -282,7 +176,7 @@ def graph_from_raw(
     if fr is None:
         G = graph_from_raw_reference(raw, largest_component=largest_component, simplify=simplify)
     else:
-        G = _simplify.graph_from_frames(fr)
+        G = _project.graph_from_frames(fr)
     log.info(
         "graph_from_raw returned graph with %d nodes and %d edges",
         G.number_of_nodes(),

@@ -9,7 +9,6 @@ first and last points. No third-party fit is used.
 from __future__ import annotations
 
 import numpy as np
-from scipy.interpolate import PchipInterpolator
 
 MPH_TO_KPH = 1.609344
 
@@ -36,6 +35,8 @@ def probability(speed_mph: np.ndarray | float, *, outcome: str = "death") -> np.
     """
     if outcome not in TEFFT_2013:
         raise ValueError(f"unknown outcome {outcome!r}; use one of {sorted(TEFFT_2013)}")
+    from scipy.interpolate import PchipInterpolator  # slow to import; only builds use it
+
     probs, speeds = (np.asarray(a, dtype=float) for a in TEFFT_2013[outcome])
     y = _logit(probs)
     curve = PchipInterpolator(speeds, y, extrapolate=False)
