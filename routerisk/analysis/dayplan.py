@@ -149,7 +149,7 @@ def plan_day(
     if turnaround_min < 0:
         raise OptionError("must not be negative", field="--turnaround")
     tz = net.timezone
-    idx = matching.RoadIndex(net.graph)
+    idx = matching.RoadIndex.of_network(net)
     scorer = Scorer(net)
     sug = Suggester(scorer)
     midnight = dt.datetime.combine(date, dt.time(0, 0), tzinfo=tz)

@@ -52,7 +52,7 @@ class Service:
 
         self.net = net
         self.max_upload = int(max_upload)
-        self.index = matching.RoadIndex(net.graph)
+        self.index = matching.RoadIndex.of_network(net)
         self.scorer = scoring.Scorer(net)
         self.scorer.positions([])  # build the lazy look-up before threads share it
         self.scorer._headings()

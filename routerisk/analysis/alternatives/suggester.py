@@ -524,7 +524,7 @@ def suggest_routes(
     from routerisk import matching
     from routerisk.errors import RouteInputError
 
-    idx = index or matching.RoadIndex(net.graph)
+    idx = index or matching.RoadIndex.of_network(net)
     sug = suggester or Suggester(Scorer(net))
     out = []
     for r, m in zip(routes, matching.to_edges_many(idx, routes), strict=True):

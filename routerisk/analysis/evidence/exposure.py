@@ -211,7 +211,9 @@ def segments_from_drives(net: Any, folder: str | Path) -> pd.DataFrame:
     from routerisk.io.drives import read_drive_routes
 
     drives = read_drive_routes(folder, default_tz=net.timezone)
-    return pd.concat(_drive_segments(net, drives, matching.RoadIndex(net.graph)), ignore_index=True)
+    return pd.concat(
+        _drive_segments(net, drives, matching.RoadIndex.of_network(net)), ignore_index=True
+    )
 
 
 def segments_of_drives(net: Any, drives: list[Any]) -> pd.DataFrame:
@@ -224,7 +226,9 @@ def segments_of_drives(net: Any, drives: list[Any]) -> pd.DataFrame:
 
     if not drives:
         raise InputFileError("no drive given", field="drives")
-    return pd.concat(_drive_segments(net, drives, matching.RoadIndex(net.graph)), ignore_index=True)
+    return pd.concat(
+        _drive_segments(net, drives, matching.RoadIndex.of_network(net)), ignore_index=True
+    )
 
 
 def _drive_segments(net: Any, drives: list[Any], idx: Any) -> list[pd.DataFrame]:

@@ -55,7 +55,7 @@ def read_drives(net: Any, folder: str | Path, index: Any = None) -> list[Drive]:
 
 def match_drives(net: Any, drives: list[Any], index: Any = None) -> list[Drive]:
     """Map-match read drives (routes with a time at every point) onto the network."""
-    idx = index or matching.RoadIndex(net.graph)
+    idx = index or matching.RoadIndex.of_network(net)
     eidx = net.edges.index
     km = net.edges["length"].to_numpy() / 1000.0
     out = []
