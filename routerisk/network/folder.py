@@ -26,6 +26,7 @@ import pyogrio
 import yaml
 
 from routerisk import __version__
+from routerisk._bulk import bulk
 from routerisk.errors import NetworkFolderError, ProfileError
 from routerisk.io.atomic import atomic_directory, dumps_json, sha256_file
 from routerisk.io.timezones import check_timezone, infer_timezone
@@ -223,6 +224,7 @@ def _feature_filter(profile: Profile) -> Any:
     return quick
 
 
+@bulk
 def build_network(
     source: str | Path,
     *,
@@ -296,6 +298,7 @@ def _clean_for_gpkg(df: gpd.GeoDataFrame) -> gpd.GeoDataFrame:
     return out
 
 
+@bulk
 def save_network(net: Network, out: str | Path, *, force: bool = False) -> Path:
     """Write the network folder atomically; return its path."""
     # GDAL stamps each layer with the time of writing; a fixed date keeps builds identical.
@@ -389,6 +392,7 @@ def _source_columns() -> list[str]:
     return list(COLUMNS)
 
 
+@bulk
 def load_network(
     folder: str | Path,
     *,
