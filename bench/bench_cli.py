@@ -11,7 +11,7 @@ wall and CPU (user + system, of the child) seconds of ``--repeat`` rounds are re
 their ratio. Also timed: ``routerisk --help``, ``routerisk --version``, a score of one route
 on the sample town (a saved network), the import of the libraries that score needs (the
 floor no change inside routerisk can go under) and, with ``--baseline TREE``, the same score
-from another source tree (say, a checkout before a change), interleaved. ``--inputs ''``
+and the same builds from another source tree (say, a checkout before a change), interleaved. ``--inputs ''``
 times these alone. Inputs:
 
 * ``grid``: a plain 160 x 160 street grid (bench/make_grid.py), .osm;
@@ -182,10 +182,14 @@ def bench(
     jobs["import floor"] = [py, "-c", FLOOR]
     roots = {k: ROOT for k in jobs}
     light = ["score one route", "import floor", "--help", "--version"]
-    if baseline is not None:  # the same score from another tree (say, before a change)
+    if baseline is not None:  # the same commands from another tree (say, before a change)
         jobs["score one route, baseline"] = jobs["score one route"]
         roots["score one route, baseline"] = baseline
         light.insert(1, "score one route, baseline")
+        for name in files:
+            key = f"build {name}, baseline"
+            jobs[key] = jobs[f"build {name}"][:-2] + [str(net_dir / f"{name}-baseline"), "--force"]
+            roots[key] = baseline
     times: dict[str, list[tuple[float, float]]] = {k: [] for k in jobs}
     for key, cmd in jobs.items():  # warm-up: byte-code caches, the town network
         if warm or not key.startswith(("build ", "osmnx ")) or key == "build town":
@@ -196,8 +200,10 @@ def bench(
     for r in range(repeat):
         for name in files:  # interleaved: ours, then theirs, then the other order
             pair = [f"build {name}", f"osmnx {name}"]
+            if f"build {name}, baseline" in jobs:
+                pair.append(f"build {name}, baseline")
             for key in pair if r % 2 == 0 else pair[::-1]:
-                times[key].append(_timed(jobs[key], work))
+                times[key].append(_timed(jobs[key], work, roots[key]))
         for key in light if r % 2 == 0 else light[::-1]:
             times[key].append(_timed(jobs[key], work, roots[key]))
         print(f"round {r + 1} of {repeat} done", file=sys.stderr, flush=True)
@@ -258,6 +264,20 @@ def markdown(rec: dict[str, Any]) -> str:
             f"{w[f'osmnx {name}']:.2f} / {c[f'osmnx {name}']:.2f} | {r['wall']:.2f} | "
             f"{r['cpu']:.2f} |"
         )
+    if any(f"build {n}, baseline" in w for n in rec["ratios"]):
+        rows += [
+            "",
+            "| input | routerisk build, s (wall / CPU) | the same build, baseline tree "
+            "(--baseline) | ratio wall | ratio CPU |",
+            "| --- | ---: | ---: | ---: | ---: |",
+        ]
+        for name in [n for n in INPUTS if f"build {n}, baseline" in w]:
+            ours, base = f"build {name}", f"build {name}, baseline"
+            rows.append(
+                f"| {label[name]} | {w[ours]:.2f} / {c[ours]:.2f} | "
+                f"{w[base]:.2f} / {c[base]:.2f} | {w[ours] / w[base]:.2f} | "
+                f"{c[ours] / c[base]:.2f} |"
+            )
     rows += ["", "| command (whole process) | wall, s | CPU, s |", "| --- | ---: | ---: |"]
     label = {
         "score one route": "score of one route, sample town",
@@ -289,7 +309,8 @@ def main() -> None:
         "--baseline",
         type=Path,
         metavar="TREE",
-        help="also time the score with this source tree first on PYTHONPATH, interleaved",
+        help="also time the score and the builds with this source tree first on PYTHONPATH, "
+        "interleaved",
     )
     ap.add_argument(
         "--no-warm-builds",
