@@ -169,7 +169,7 @@ def test_small_patterns(tmp_path, case):
     _check(path)
 
 
-def test_parallel_duplicates_use_osmnx(tmp_path):
+def test_parallel_duplicates_use_osmnx(tmp_path, caplog):
     # A way digitised twice over shape nodes: osmnx's walk keeps one copy; the array code
     # hands this pattern back, and the loader's result is still osmnx's graph.
     dup = [
@@ -180,9 +180,12 @@ def test_parallel_duplicates_use_osmnx(tmp_path):
     ]
     path = _chain_file(tmp_path, dup)
     raw = read_osm(path)
-    with pytest.raises(raw_edges.NeedsReference):
+    with pytest.raises(raw_edges.NeedsReference, match=r"2 shape nodes \(first: node 70\)"):
         project.build_frames(raw)
-    _assert_same_graph(loader.graph_from_raw_reference(raw), loader.graph_from_raw(raw))
+    with caplog.at_level("WARNING", logger="routerisk.network.loader"):
+        _assert_same_graph(loader.graph_from_raw_reference(raw), loader.graph_from_raw(raw))
+    said = [r.getMessage() for r in caplog.records if r.levelname == "WARNING"]
+    assert any("(ways 20, 21)" in m and "slower" in m for m in said), said
     n0, e0 = ox.convert.graph_to_gdfs(loader.graph_from_raw_reference(raw))
     fr = loader.frames_from_raw(raw)
     pd.testing.assert_frame_equal(fr.edges.drop(columns="geometry"), e0.drop(columns="geometry"))

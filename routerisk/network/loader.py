@@ -142,7 +142,12 @@ def _fast_frames(raw: RawOSM, largest_component: bool, simplify: bool) -> _proje
             raw, largest_component=largest_component, simplify_graph=simplify
         )
     except NeedsReference as why:
-        log.info("%s: %s; using osmnx's own simplification", raw.path, why)
+        log.warning(
+            "%s: %s; building with osmnx's pure-Python simplification instead (the same "
+            "graph, slower on large extracts)",
+            raw.path,
+            why,
+        )
         return None
     if len(fr.edges) == 0:
         raise EmptyNetworkError("holds no connected drivable roads", path=raw.path)

@@ -131,6 +131,18 @@ def _merge_attrs(dicts: list[dict[str, Any]]) -> dict[str, Any]:
     return out
 
 
+def _duplicated_ways(re: RawEdges, bad: np.ndarray) -> str:
+    """Say which shape nodes lie on parallel duplicate edges, and the ways that make them."""
+    touch = np.isin(re.src, bad) | np.isin(re.dst, bad)
+    ways = sorted({int(re.groups[g]["osmid"]) for g in np.unique(re.group[touch])})
+    listed = ", ".join(str(w) for w in ways[:4]) + (", ..." if len(ways) > 4 else "")
+    return (
+        f"{len(bad)} shape node{'s' if len(bad) != 1 else ''} (first: node "
+        f"{int(re.node_ids[bad[0]])}) on ways digitised more than once over the same nodes "
+        f"(ways {listed})"
+    )
+
+
 def simplify(re: RawEdges, *, simplify: bool = True) -> SimpleGraph:
     """Return the graph of ``re`` after osmnx's topology simplification (or unsimplified)."""
     n = len(re.node_ids)
@@ -187,7 +199,7 @@ def simplify(re: RawEdges, *, simplify: bool = True) -> SimpleGraph:
     dout = np.bincount(np.unique(pair) // n, minlength=n)
     regular = (deg == 2) | ((ind == 2) & (outd == 2) & (din == 2) & (dout == 2))
     if (inter & ~regular).any():
-        raise NeedsReference("interstitial nodes with parallel edges")
+        raise NeedsReference(_duplicated_ways(re, np.flatnonzero(inter & ~regular)))
     # the two neighbours of every interstitial node
     und = np.unique(np.concatenate([pair, dst * n + src]))
     und_node = und // n
