@@ -191,6 +191,28 @@ def test_parallel_duplicates_use_osmnx(tmp_path, caplog):
     pd.testing.assert_frame_equal(fr.edges.drop(columns="geometry"), e0.drop(columns="geometry"))
 
 
+def test_a_ring_of_duplicated_ways_with_no_endpoint_is_a_clear_empty_error(tmp_path):
+    # Every node is a shape node (the duplicated one-way side included), so osmnx's
+    # simplification drops the whole ring and leaves an empty graph; osmnx's largest_component
+    # raises on an empty graph, the loader must say "no connected roads" instead.
+    from routerisk.errors import EmptyNetworkError
+
+    parts = [
+        osm.node(1, -38.5, 38.5),
+        osm.node(2, -38.5, 38.502),
+        osm.node(3, -38.502, 38.502),
+        osm.node(4, -38.502, 38.5),
+        osm.node(70, -38.501, 38.5),
+        osm.way(10, [1, 2, 3], highway="residential", name="Quillet Row"),
+        osm.way(11, [3, 4], highway="residential", name="Marrow Lane"),
+        osm.way(20, [4, 70, 1], highway="residential", name="Bypass", oneway="yes"),
+        osm.way(21, [4, 70, 1], highway="residential", name="Bypass", oneway="yes"),
+    ]
+    raw = read_osm(osm.write(tmp_path / "ring.osm", parts))
+    with pytest.raises(EmptyNetworkError, match="no connected drivable roads"):
+        loader.frames_from_raw(raw)
+
+
 def test_network_graph_equals_osmnx_graph_from_gdfs(town_dir):
     net = load_network(town_dir)
     ref = ox.convert.graph_from_gdfs(

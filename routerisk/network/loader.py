@@ -114,7 +114,7 @@ def graph_from_raw_reference(
     G = _graph_from_raw(raw)
     if simplify:
         G = ox.simplification.simplify_graph(G)
-    if largest_component:
+    if largest_component and G.number_of_nodes():  # osmnx refuses an empty graph here
         G = ox.truncate.largest_component(G, strongly=True)
     if G.number_of_edges() == 0:
         raise EmptyNetworkError("holds no connected drivable roads", path=raw.path)
