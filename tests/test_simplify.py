@@ -169,26 +169,64 @@ def test_small_patterns(tmp_path, case):
     _check(path)
 
 
-def test_parallel_duplicates_use_osmnx(tmp_path, caplog):
-    # A way digitised twice over shape nodes: osmnx's walk keeps one copy; the array code
-    # hands this pattern back, and the loader's result is still osmnx's graph.
-    dup = [
-        osm.node(70, 38.499, -37.999),
-        osm.node(71, 38.499, -37.998),
+_DUPLICATES = {
+    # a one-way way digitised twice over the same shape nodes
+    "twice, same tags": [
         osm.way(20, [1, 70, 71, 3], highway="residential", name="Bypass", oneway="yes"),
         osm.way(21, [1, 70, 71, 3], highway="residential", name="Bypass", oneway="yes"),
+    ],
+    # the copies differ: osmnx merges the first edge of each pair (the first way's tags)
+    "twice, other tags": [
+        osm.way(20, [1, 70, 71, 3], highway="residential", name="Bypass", oneway="yes"),
+        osm.way(21, [1, 70, 71, 3], highway="tertiary", name="Old Bypass", oneway="yes"),
+    ],
+    # three copies, one drawn the other way round and tagged oneway=-1
+    "three times, one reversed": [
+        osm.way(20, [3, 71, 70, 1], highway="residential", name="Bypass", oneway="-1"),
+        osm.way(21, [1, 70, 71, 3], highway="residential", name="Bypass", oneway="yes"),
+        osm.way(22, [1, 70, 71, 3], highway="residential", oneway="yes", lanes="1"),
+    ],
+    # a copy over part of the chain only, and a copy of a one-way spur between endpoints
+    "partly twice": [
+        osm.way(20, [1, 70, 71, 3], highway="residential", name="Bypass", oneway="yes"),
+        osm.way(21, [1, 70, 71], highway="residential", name="Bypass", oneway="yes"),
+        osm.way(22, [71, 3], highway="residential", name="Bypass", oneway="yes"),
+        osm.way(23, [2, 14], highway="service", oneway="yes"),
+        osm.way(24, [2, 14], highway="service", oneway="yes"),
+    ],
+}
+
+
+@pytest.mark.parametrize("case", sorted(_DUPLICATES))
+def test_parallel_duplicates_take_the_array_path(tmp_path, case, caplog):
+    # osmnx walks unique successors and merges the first edge of each pair; the array build
+    # drops the later copies at shape nodes and gives the same graph, without handing back
+    nodes = [osm.node(70, 38.499, -37.999), osm.node(71, 38.499, -37.998)]
+    path = _chain_file(tmp_path, nodes + _DUPLICATES[case])
+    with caplog.at_level("WARNING", logger="routerisk.network.loader"):
+        _check(path)
+        _check(path, largest_component=False)
+    assert not [r for r in caplog.records if r.levelname == "WARNING"]
+
+
+def test_duplicates_in_mixed_directions_still_use_osmnx(tmp_path, caplog):
+    # 70 has two edges in from 1 and edges out to 1 and 3: still irregular without the copy,
+    # so the build is osmnx's own, said in a warning that names the node and the ways
+    dup = [
+        osm.node(70, 38.499, -37.999),
+        osm.way(20, [1, 70, 3], highway="residential", name="Bypass", oneway="yes"),
+        osm.way(21, [1, 70], highway="residential", name="Bypass", oneway="yes"),
+        osm.way(22, [70, 1], highway="residential", name="Bypass", oneway="yes"),
     ]
-    path = _chain_file(tmp_path, dup)
-    raw = read_osm(path)
-    with pytest.raises(raw_edges.NeedsReference, match=r"2 shape nodes \(first: node 70\)"):
+    raw = read_osm(_chain_file(tmp_path, dup))
+    with pytest.raises(raw_edges.NeedsReference, match=r"1 shape node \(first: node 70\)"):
         project.build_frames(raw)
     with caplog.at_level("WARNING", logger="routerisk.network.loader"):
         _assert_same_graph(loader.graph_from_raw_reference(raw), loader.graph_from_raw(raw))
     said = [r.getMessage() for r in caplog.records if r.levelname == "WARNING"]
-    assert any("(ways 20, 21)" in m and "slower" in m for m in said), said
+    assert any("(ways 20, 21, 22)" in m and "slower" in m for m in said), said
     n0, e0 = ox.convert.graph_to_gdfs(loader.graph_from_raw_reference(raw))
-    fr = loader.frames_from_raw(raw)
-    pd.testing.assert_frame_equal(fr.edges.drop(columns="geometry"), e0.drop(columns="geometry"))
+    _assert_same_frames(n0, e0, loader.frames_from_raw(raw))
 
 
 def test_a_ring_of_duplicated_ways_with_no_endpoint_is_a_clear_empty_error(tmp_path):
@@ -298,3 +336,49 @@ def test_isolated_nodes_kept_by_the_array_build(tmp_path):
         tail = list(G.nodes)[-len(ids) :]
         assert sorted(tail) == sorted(ids) and tail != ids and tail != sorted(ids)
     _check(path)  # the largest part drops them, as before
+
+
+def _city_with_copies(tmp_path, seed: int) -> object:
+    """A generated city (invented, CC0) with 30 one-way ways copied over the same nodes (some
+    only over their first nodes) and 10 two-way ways copied as one-way, as duplicate
+    digitising leaves them."""
+    import copy
+    import xml.etree.ElementTree as ET
+
+    whole = tmp_path / f"whole{seed}.osm"
+    synthetic.write_city(whole, edges=3000, seed=seed)
+    root = ET.parse(whole).getroot()
+    rng = np.random.default_rng(seed)
+    roads = [w for w in root.findall("way") if w.find("tag[@k='highway']") is not None]
+    oneway = [w for w in roads if w.find("tag[@k='oneway']") is not None]
+    twoway = [w for w in roads if w.find("tag[@k='oneway']") is None]
+    picked = [oneway[i] for i in rng.choice(len(oneway), 30, replace=False)]
+    picked += [twoway[i] for i in rng.choice(len(twoway), 10, replace=False)]
+    for i, w in enumerate(picked):
+        twin = copy.deepcopy(w)
+        twin.set("id", str(10**9 + i))
+        if twin.find("tag[@k='oneway']") is None:
+            ET.SubElement(twin, "tag", k="oneway", v="yes")
+        nds = twin.findall("nd")
+        if len(nds) > 2 and rng.random() < 0.5:
+            for nd in nds[int(rng.integers(2, len(nds) + 1)) :]:
+                twin.remove(nd)
+        root.append(twin)
+    out = tmp_path / f"copies{seed}.osm"
+    ET.ElementTree(root).write(out)
+    return out
+
+
+@pytest.mark.parametrize("seed", [1, 3])
+def test_a_city_with_copied_ways_takes_the_array_path(tmp_path, seed, monkeypatch):
+    path = _city_with_copies(tmp_path, seed)
+    dropped = []
+    real = _simplify._without_copies
+    monkeypatch.setattr(
+        _simplify,
+        "_without_copies",
+        lambda re, keep, *a: dropped.append(len(re.src) - len(keep)) or real(re, keep, *a),
+    )
+    _check(path)
+    _check(path, largest_component=False)
+    assert dropped and min(dropped) > 0  # the copies were there, and dropped at shape nodes

@@ -20,10 +20,14 @@ Every other node is interstitial and disappears into the edge that runs through 
 this module an interstitial node with 2 directed edges is ``a -> x -> b``, one with 4 is
 ``a <-> x <-> b``; both give each incoming edge exactly one next edge, so the chains are
 found by pointer jumping (list ranking) on the edge arrays. Interstitial nodes with 4
-directed edges made of parallel duplicates (``a -> x`` twice) walk in osmnx in ways that
-depend on the traversal, so for those rare inputs
-:func:`routerisk.network.project.build_frames` raises
-:class:`NeedsReference` and the loader uses the osmnx pipeline instead. Nodes without edges
+directed edges made of parallel duplicates (``a -> x`` twice: a one-way way digitised twice
+over the same shape nodes) lose their later copies, as osmnx's walk loses them (it merges the
+first edge of each node pair and removes the node with all its edges), and the rest is
+simplified with the endpoint flags of the whole graph. A node still irregular without the
+copies (copies in mixed directions, or a copy that starts mid-street where a two-way street
+turns one-way) walks in osmnx in ways that depend on the traversal, so for those rare inputs
+:func:`routerisk.network.project.build_frames` raises :class:`NeedsReference`, the loader
+warns (naming the node and the ways) and uses the osmnx pipeline instead. Nodes without edges
 kept with ``--all-parts`` are placed as osmnx's projection places them (the order of a Python
 set difference, rebuilt the same way in :mod:`routerisk.network.project`).
 A largest strongly connected part that is tied or smaller than half the graph (clipped or
@@ -131,6 +135,26 @@ def _merge_attrs(dicts: list[dict[str, Any]]) -> dict[str, Any]:
     return out
 
 
+def _without_copies(
+    re: RawEdges, keep: np.ndarray, endpoint: np.ndarray, bad: np.ndarray
+) -> SimpleGraph:
+    """Simplify the edges ``keep`` of ``re`` with the endpoint flags of all of ``re``."""
+    fewer = RawEdges(
+        re.node_ids,
+        re.lon,
+        re.lat,
+        re.src[keep],
+        re.dst[keep],
+        re.length[keep],
+        re.group[keep],
+        re.groups,
+    )
+    try:
+        return simplify(fewer, endpoint=endpoint)
+    except NeedsReference:
+        raise NeedsReference(_duplicated_ways(re, bad)) from None
+
+
 def _duplicated_ways(re: RawEdges, bad: np.ndarray) -> str:
     """Say which shape nodes lie on parallel duplicate edges, and the ways that make them."""
     touch = np.isin(re.src, bad) | np.isin(re.dst, bad)
@@ -143,8 +167,14 @@ def _duplicated_ways(re: RawEdges, bad: np.ndarray) -> str:
     )
 
 
-def simplify(re: RawEdges, *, simplify: bool = True) -> SimpleGraph:
-    """Return the graph of ``re`` after osmnx's topology simplification (or unsimplified)."""
+def simplify(
+    re: RawEdges, *, simplify: bool = True, endpoint: np.ndarray | None = None
+) -> SimpleGraph:
+    """Return the graph of ``re`` after osmnx's topology simplification (or unsimplified).
+
+    ``endpoint`` gives the endpoint flags to use instead of those of ``re``'s own edges (the
+    flags of the graph before its duplicate shape-node edges were dropped, see below).
+    """
     n = len(re.node_ids)
     src, dst, m = re.src, re.dst, len(re.src)
     pair = src * n + dst
@@ -190,7 +220,9 @@ def simplify(re: RawEdges, *, simplify: bool = True) -> SimpleGraph:
             False,
         )
 
-    endpoint = _endpoints(n, src, dst)
+    second_pass = endpoint is not None  # the copies are already dropped
+    if endpoint is None:
+        endpoint = _endpoints(n, src, dst)
     inter = ~endpoint
     ind = np.bincount(dst, minlength=n)
     outd = np.bincount(src, minlength=n)
@@ -198,8 +230,18 @@ def simplify(re: RawEdges, *, simplify: bool = True) -> SimpleGraph:
     din = np.bincount(np.unique(dst * n + src) // n, minlength=n)
     dout = np.bincount(np.unique(pair) // n, minlength=n)
     regular = (deg == 2) | ((ind == 2) & (outd == 2) & (din == 2) & (dout == 2))
-    if (inter & ~regular).any():
-        raise NeedsReference(_duplicated_ways(re, np.flatnonzero(inter & ~regular)))
+    irregular = inter & ~regular
+    if irregular.any():
+        # Parallel duplicates at a shape node (a one-way way digitised twice over the same
+        # nodes). osmnx walks a path through unique successors and merges the first edge
+        # (key 0) of each node pair; the node and all its edges are then removed. So the
+        # later copies (key > 0) at such nodes never reach the result: drop them, keep every
+        # node's endpoint flag as the whole graph gives it, and simplify what is left. A node
+        # still irregular without them (copies in mixed directions) goes to osmnx's walk.
+        again = np.flatnonzero(~((key > 0) & (irregular[src] | irregular[dst])))
+        if second_pass or len(again) == m:
+            raise NeedsReference(_duplicated_ways(re, np.flatnonzero(irregular)))
+        return _without_copies(re, again, endpoint, np.flatnonzero(irregular))
     # the two neighbours of every interstitial node
     und = np.unique(np.concatenate([pair, dst * n + src]))
     und_node = und // n
