@@ -81,3 +81,9 @@ def random_grid(profile, *, n: int = 4, step: float = 100.0, seed: int = 0) -> N
                             e[f"exp_{cat}"] = float(rng.choice([0.0, rng.uniform(0, 1)]))
                         edges.append(e)
     return make_network(nodes, edges, profile)
+
+
+def without_context(net: Network) -> Network:
+    """Return the same frames as a new Network: nothing cached, no background layer (a
+    folder built before the layer existed)."""
+    return Network(net.edges, net.nodes, net.sources, net.crossings, net.profile, net.meta)

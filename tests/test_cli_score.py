@@ -16,6 +16,8 @@ from routerisk import datasets, matching
 from routerisk.cli import main
 from routerisk.io.routes import PlannedRoute
 
+from ._nets import without_context
+
 SIGMA_NK = 4.07  # Newson and Krumm (2009), ACM SIGSPATIAL GIS '09 [published]
 
 
@@ -273,16 +275,7 @@ def _same_index(a, b) -> None:
 
 def test_index_from_frames_equals_index_of_graph(town_net, town_index):
     """RoadIndex.of_network reads the frames in the graph's order, without building it."""
-    from routerisk.network.folder import Network
-
-    fresh = Network(
-        town_net.edges,
-        town_net.nodes,
-        town_net.sources,
-        town_net.crossings,
-        town_net.profile,
-        town_net.meta,
-    )
+    fresh = without_context(town_net)
     _same_index(matching.RoadIndex.of_network(fresh), town_index)
     assert "graph" not in fresh.__dict__  # the cached graph was never built
 
@@ -307,17 +300,9 @@ def test_index_from_frames_with_gaps_equals_index_of_graph(town_net):
 def test_score_does_not_build_the_graph(town_net):
     """Scoring matches on the frames: the networkx graph is never made."""
     from routerisk.analysis import scoring
-    from routerisk.network.folder import Network
-
-    fresh = Network(
-        town_net.edges,
-        town_net.nodes,
-        town_net.sources,
-        town_net.crossings,
-        town_net.profile,
-        town_net.meta,
-    )
     from routerisk.io import routes
+
+    fresh = without_context(town_net)
 
     planned = routes.read_routes(datasets.get_path("routes"), default_tz=fresh.timezone)[:1]
     scores = scoring.score_routes(

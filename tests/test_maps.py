@@ -22,6 +22,7 @@ from routerisk.network.folder import Network, load_network, save_network
 from routerisk.render import mapview, routemap
 
 from ._browser import inspect_page, needs_chromium
+from ._nets import without_context
 
 # A 1x1 PNG (common practice, no source: the smallest valid PNG, one grey pixel).
 PNG = base64.b64decode(
@@ -56,14 +57,7 @@ def test_real_extract_context_has_buildings(real_pbf):
 
 
 def test_folder_without_context_draws_streets_from_edges(town_net, tmp_path):
-    old = Network(
-        town_net.edges,
-        town_net.nodes,
-        town_net.sources,
-        town_net.crossings,
-        town_net.profile,
-        town_net.meta,
-    )  # as built before the layer existed
+    old = without_context(town_net)  # as built before the layer existed
     out = save_network(old, tmp_path / "old")
     import pyogrio
 

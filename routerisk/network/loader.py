@@ -8,8 +8,7 @@ exactly; projection is to the local UTM zone chosen by pyproj.
 The work is done on arrays by :mod:`routerisk.network.raw_edges`,
 :mod:`routerisk.network.simplify` and :mod:`routerisk.network.project` (the osmnx steps are
 pure Python and dominated the build); :func:`graph_from_raw_reference` keeps the osmnx
-pipeline itself, used for the rare inputs the array version hands back and by the tests that
-check both give the same graph.
+pipeline itself, for the tests that check both give the same graph.
 """
 
 from __future__ import annotations
@@ -32,7 +31,6 @@ from routerisk.network.edge_attrs import (  # noqa: F401 - re-exported, loader's
     utm_crs,
 )
 from routerisk.network.osm import RawOSM, read_osm
-from routerisk.network.raw_edges import NeedsReference
 
 log = logging.getLogger(__name__)
 
@@ -133,22 +131,11 @@ def graph_from_raw_reference(
     return G
 
 
-def _fast_frames(raw: RawOSM, largest_component: bool, simplify: bool) -> _project.Frames | None:
-    """Return the array-built frames, or None when osmnx's own steps must be used."""
+def _array_frames(raw: RawOSM, largest_component: bool, simplify: bool) -> _project.Frames:
+    """Return the array-built frames, or a clear error when no drivable road is left."""
     if not raw.ways:
         raise EmptyNetworkError("holds no drivable roads (after the drive filter)", path=raw.path)
-    try:
-        fr = _project.build_frames(
-            raw, largest_component=largest_component, simplify_graph=simplify
-        )
-    except NeedsReference as why:
-        log.warning(
-            "%s: %s; building with osmnx's pure-Python simplification instead (the same "
-            "graph, slower on large extracts)",
-            raw.path,
-            why,
-        )
-        return None
+    fr = _project.build_frames(raw, largest_component=largest_component, simplify_graph=simplify)
     if len(fr.edges) == 0:
         raise EmptyNetworkError("holds no connected drivable roads", path=raw.path)
     return fr
@@ -162,26 +149,14 @@ def frames_from_raw(
     They equal ``osmnx.convert.graph_to_gdfs(graph_from_raw(raw))``, built without the
     graph.
     """
-    fr = _fast_frames(raw, largest_component, simplify)
-    if fr is None:
-        import osmnx as ox
-
-        G = graph_from_raw_reference(raw, largest_component=largest_component, simplify=simplify)
-        nodes, edges = ox.convert.graph_to_gdfs(G)
-        cols = list(dict.fromkeys(k for _, _, d in G.edges(data=True) for k in d))
-        fr = _project.Frames(nodes, edges, dict(G.graph), cols)
-    return fr
+    return _array_frames(raw, largest_component, simplify)
 
 
 def graph_from_raw(
     raw: RawOSM, *, largest_component: bool = True, simplify: bool = True
 ) -> nx.MultiDiGraph:
     """Build the projected drivable graph from an already-read OSM file."""
-    fr = _fast_frames(raw, largest_component, simplify)
-    if fr is None:
-        G = graph_from_raw_reference(raw, largest_component=largest_component, simplify=simplify)
-    else:
-        G = _project.graph_from_frames(fr)
+    G = _project.graph_from_frames(_array_frames(raw, largest_component, simplify))
     log.info(
         "graph_from_raw returned graph with %d nodes and %d edges",
         G.number_of_nodes(),

@@ -146,17 +146,13 @@ def _isolated_order(ids: np.ndarray, every: np.ndarray, linked: np.ndarray) -> n
 def build_frames(
     raw: RawOSM, *, largest_component: bool = True, simplify_graph: bool = True
 ) -> Frames:
-    """Return nodes and edges GeoDataFrames of the projected drivable graph of ``raw``.
-
-    Raises
-    ------
-    NeedsReference
-        The osmnx result depends on a traversal order this module does not reproduce.
-    """
+    """Return nodes and edges GeoDataFrames of the projected drivable graph of ``raw``."""
     re = raw_edges(raw)
-    iso = isolated_nodes(re)
-    keep_iso = iso.any() and not largest_component  # nodes without edges stay in the graph
     g = simplify(re, simplify=simplify_graph)
+    iso = isolated_nodes(re)
+    if g.orphans is not None:
+        iso |= g.orphans
+    keep_iso = iso.any() and not largest_component  # nodes without edges stay in the graph
     if largest_component:
         present = iso.copy()
         present[g.u] = present[g.v] = True

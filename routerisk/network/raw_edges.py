@@ -21,10 +21,6 @@ _ONEWAY = {"yes", "true", "1", "-1", "reverse", "T", "F"}
 _REVERSED = {"-1", "reverse", "T"}
 
 
-class NeedsReference(Exception):  # noqa: N818 - a signal, not an error a user sees
-    """The input has a pattern whose osmnx result depends on traversal order."""
-
-
 @dataclass
 class RawEdges:
     """The unsimplified directed graph as arrays (one edge per consecutive node pair)."""

@@ -19,17 +19,17 @@ Simplification follows ``osmnx.simplification.simplify_graph`` with its default 
 Every other node is interstitial and disappears into the edge that runs through it. In
 this module an interstitial node with 2 directed edges is ``a -> x -> b``, one with 4 is
 ``a <-> x <-> b``; both give each incoming edge exactly one next edge, so the chains are
-found by pointer jumping (list ranking) on the edge arrays. Interstitial nodes with 4
-directed edges made of parallel duplicates (``a -> x`` twice: a one-way way digitised twice
-over the same shape nodes) lose their later copies, as osmnx's walk loses them (it merges the
-first edge of each node pair and removes the node with all its edges), and the rest is
-simplified with the endpoint flags of the whole graph. A node still irregular without the
-copies (copies in mixed directions, or a copy that starts mid-street where a two-way street
-turns one-way) walks in osmnx in ways that depend on the traversal, so for those rare inputs
-:func:`routerisk.network.project.build_frames` raises :class:`NeedsReference`, the loader
-warns (naming the node and the ways) and uses the osmnx pipeline instead. Nodes without edges
-kept with ``--all-parts`` are placed as osmnx's projection places them (the order of a Python
-set difference, rebuilt the same way in :mod:`routerisk.network.project`).
+found by pointer jumping (list ranking) on the edge arrays. An interstitial node with 4
+directed edges in any other shape holds parallel copies (a one-way way digitised twice over
+the same nodes, copies in mixed directions, a one-way street that turns two-way at a shape
+node). Where the walk osmnx takes depends on the order it meets the successors, so the
+clusters of interstitial nodes around such nodes (rare: a few per city) are walked in Python
+with osmnx's own rules (:func:`_build_path`), and their paths join the ranked chains: osmnx
+merges the first edge of each node pair along a path, removes the nodes inside every path
+with all their edges, and keeps a path that runs out at a shape node as it is (a node it
+leaves without edges stays in the graph, as in osmnx). Nodes without edges kept with
+``--all-parts`` are placed as osmnx's projection places them (the order of a Python set
+difference, rebuilt the same way in :mod:`routerisk.network.project`).
 A largest strongly connected part that is tied or smaller than half the graph (clipped or
 fragmented extracts) is ordered by networkx itself on a bare copy of the graph, as osmnx
 orders it (:func:`largest_strong_part`).
@@ -47,7 +47,6 @@ from scipy.sparse import csgraph
 
 from routerisk.network.raw_edges import (  # noqa: F401 - re-exported for callers of simplify
     EARTH_RADIUS_M,
-    NeedsReference,
     RawEdges,
     great_circle,
     raw_edges,
@@ -68,6 +67,7 @@ class SimpleGraph:
     path_nodes: np.ndarray  # flat node positions of every edge's geometry
     path_offsets: np.ndarray  # edge i uses path_nodes[off[i]:off[i+1]]
     simplified: bool
+    orphans: np.ndarray | None = None  # per node: kept by simplification without an edge
 
 
 def _endpoints(n: int, src: np.ndarray, dst: np.ndarray) -> np.ndarray:
@@ -135,46 +135,99 @@ def _merge_attrs(dicts: list[dict[str, Any]]) -> dict[str, Any]:
     return out
 
 
-def _without_copies(
-    re: RawEdges, keep: np.ndarray, endpoint: np.ndarray, bad: np.ndarray
-) -> SimpleGraph:
-    """Simplify the edges ``keep`` of ``re`` with the endpoint flags of all of ``re``."""
-    fewer = RawEdges(
-        re.node_ids,
-        re.lon,
-        re.lat,
-        re.src[keep],
-        re.dst[keep],
-        re.length[keep],
-        re.group[keep],
-        re.groups,
-    )
-    try:
-        return simplify(fewer, endpoint=endpoint)
-    except NeedsReference:
-        raise NeedsReference(_duplicated_ways(re, bad)) from None
+@dataclass
+class _Walked:
+    """osmnx's walk through the shape-node clusters the array chains cannot rank."""
+
+    cluster: np.ndarray  # per node: a shape node of such a cluster
+    local: np.ndarray  # per raw edge: touches a node of such a cluster
+    removed: np.ndarray  # per node: inside a walked path (osmnx removes it and its edges)
+    edges: np.ndarray  # raw edge of every step of every path, path after path
+    path: np.ndarray  # path number of every step
+    rank: np.ndarray  # step number within its path
+    roots: np.ndarray  # per path: first raw edge from its endpoint to its first shape node
 
 
-def _duplicated_ways(re: RawEdges, bad: np.ndarray) -> str:
-    """Say which shape nodes lie on parallel duplicate edges, and the ways that make them."""
-    touch = np.isin(re.src, bad) | np.isin(re.dst, bad)
-    ways = sorted({int(re.groups[g]["osmid"]) for g in np.unique(re.group[touch])})
-    listed = ", ".join(str(w) for w in ways[:4]) + (", ..." if len(ways) > 4 else "")
-    return (
-        f"{len(bad)} shape node{'s' if len(bad) != 1 else ''} (first: node "
-        f"{int(re.node_ids[bad[0]])}) on ways digitised more than once over the same nodes "
-        f"(ways {listed})"
-    )
+def _walk_clusters(
+    n: int,
+    src: np.ndarray,
+    dst: np.ndarray,
+    slot: np.ndarray,
+    inter: np.ndarray,
+    irregular: np.ndarray,
+) -> _Walked:
+    """Walk the clusters of shape nodes that hold an irregular node as osmnx walks them.
 
-
-def simplify(
-    re: RawEdges, *, simplify: bool = True, endpoint: np.ndarray | None = None
-) -> SimpleGraph:
-    """Return the graph of ``re`` after osmnx's topology simplification (or unsimplified).
-
-    ``endpoint`` gives the endpoint flags to use instead of those of ``re``'s own edges (the
-    flags of the graph before its duplicate shape-node edges were dropped, see below).
+    A cluster is a set of interstitial nodes joined by edges between interstitial nodes;
+    osmnx's paths enter and leave a cluster only at endpoints, so the clusters with an
+    irregular node (parallel copies of a one-way way, copies in mixed directions, a one-way
+    street that turns two-way at a shape node) are walked here with osmnx's own rules
+    (``osmnx.simplification._build_path``: successors in adjacency order, the first one not
+    yet on the path; a path that runs out of successors ends where it is, or closes on its
+    endpoint when that is a successor), and the rest of the graph is ranked on arrays.
     """
+    both = inter[src] & inter[dst]
+    mat = sparse.coo_matrix((np.ones(int(both.sum())), (src[both], dst[both])), shape=(n, n))
+    _, lab = csgraph.connected_components(mat.tocsr(), directed=True, connection="weak")
+    bad = inter & np.isin(lab, np.unique(lab[irregular]))
+    local = bad[src] | bad[dst]
+    # successors in adjacency order: the first raw edge of each node pair, in raw order
+    succ: dict[int, list[int]] = {}
+    first: dict[tuple[int, int], int] = {}
+    for e in np.unique(slot[local]).tolist():
+        a, b = int(src[e]), int(dst[e])
+        succ.setdefault(a, []).append(b)
+        first[(a, b)] = e
+    is_end = (~inter).tolist()
+    steps: list[int] = []
+    path_no: list[int] = []
+    ranks: list[int] = []
+    roots: list[int] = []
+    removed = np.zeros(n, dtype=bool)
+    starts = np.unique(slot[local & ~inter[src] & bad[dst]])
+    for e in starts.tolist():
+        nodes = _build_path(int(src[e]), int(dst[e]), succ, is_end)
+        removed[nodes[1:-1]] = True
+        path_no.extend([len(roots)] * (len(nodes) - 1))
+        ranks.extend(range(len(nodes) - 1))
+        steps.extend(first[(a, b)] for a, b in zip(nodes[:-1], nodes[1:], strict=True))
+        roots.append(e)
+    steps_a, path_a, rank_a, roots_a = (
+        np.asarray(x, dtype=np.int64) for x in (steps, path_no, ranks, roots)
+    )
+    return _Walked(bad, local, removed, steps_a, path_a, rank_a, roots_a)
+
+
+def _build_path(
+    endpoint: int, first: int, succ: dict[int, list[int]], is_end: list[bool]
+) -> list[int]:
+    """Return the nodes of the path osmnx builds from ``endpoint`` through ``first``."""
+    path = [endpoint, first]
+    on = {endpoint, first}
+    for nxt in succ.get(first, ()):
+        if nxt in on:
+            continue
+        path.append(nxt)
+        on.add(nxt)
+        at = nxt
+        while not is_end[at]:
+            ahead = [b for b in succ.get(at, ()) if b not in on]
+            if len(ahead) == 1:
+                at = ahead[0]
+                path.append(at)
+                on.add(at)
+            elif not ahead:
+                if endpoint in succ.get(at, ()):
+                    return [*path, endpoint]  # a loop back to where it started
+                return path  # runs out at a shape node (as osmnx, which warns)
+            else:  # pragma: no cover - a shape node has two neighbours, one on the path
+                raise AssertionError(f"shape node {at} with two ways on")
+        return path
+    return path
+
+
+def simplify(re: RawEdges, *, simplify: bool = True) -> SimpleGraph:
+    """Return the graph of ``re`` after osmnx's topology simplification (or unsimplified)."""
     n = len(re.node_ids)
     src, dst, m = re.src, re.dst, len(re.src)
     pair = src * n + dst
@@ -220,10 +273,7 @@ def simplify(
             False,
         )
 
-    second_pass = endpoint is not None  # the copies are already dropped
-    if endpoint is None:
-        endpoint = _endpoints(n, src, dst)
-    inter = ~endpoint
+    inter = ~_endpoints(n, src, dst)
     ind = np.bincount(dst, minlength=n)
     outd = np.bincount(src, minlength=n)
     deg = ind + outd
@@ -231,17 +281,8 @@ def simplify(
     dout = np.bincount(np.unique(pair) // n, minlength=n)
     regular = (deg == 2) | ((ind == 2) & (outd == 2) & (din == 2) & (dout == 2))
     irregular = inter & ~regular
-    if irregular.any():
-        # Parallel duplicates at a shape node (a one-way way digitised twice over the same
-        # nodes). osmnx walks a path through unique successors and merges the first edge
-        # (key 0) of each node pair; the node and all its edges are then removed. So the
-        # later copies (key > 0) at such nodes never reach the result: drop them, keep every
-        # node's endpoint flag as the whole graph gives it, and simplify what is left. A node
-        # still irregular without them (copies in mixed directions) goes to osmnx's walk.
-        again = np.flatnonzero(~((key > 0) & (irregular[src] | irregular[dst])))
-        if second_pass or len(again) == m:
-            raise NeedsReference(_duplicated_ways(re, np.flatnonzero(irregular)))
-        return _without_copies(re, again, endpoint, np.flatnonzero(irregular))
+    walked = _walk_clusters(n, src, dst, slot, inter, irregular) if irregular.any() else None
+    ranked = inter if walked is None else inter & ~walked.cluster  # shape nodes ranked here
     # the two neighbours of every interstitial node
     und = np.unique(np.concatenate([pair, dst * n + src]))
     und_node = und // n
@@ -249,21 +290,28 @@ def simplify(
     nb_sum = np.bincount(und_node, weights=und_nb, minlength=n).astype(np.int64)
     # previous edge of an edge leaving an interstitial node: from its other neighbour
     prev = np.full(m, -1, dtype=np.int64)
-    e_int = np.flatnonzero(inter[src])
+    e_int = np.flatnonzero(ranked[src])
     x = src[e_int]
     p = nb_sum[x] - dst[e_int]
     look = np.minimum(np.searchsorted(sp, p * n + x), m - 1)
     if (sp[look] != p * n + x).any():  # pragma: no cover - regular nodes always have it
-        raise NeedsReference("chain without a previous edge")
+        raise AssertionError("a regular shape node without a previous edge")
     prev[e_int] = order[look]
     root, rank, resolved = _rank_chains(prev)
     # path edges: resolved edges whose chain starts endpoint -> interstitial
-    in_path = resolved & inter[dst[np.maximum(root, 0)]] & (root >= 0)
+    in_path = resolved & ranked[dst[np.maximum(root, 0)]] & (root >= 0)
     kept = ~in_path  # edges between endpoints, and edges of endpoint-free rings
     pe = np.flatnonzero(in_path)
     roots, path_id = np.unique(root[pe], return_inverse=True)
-    n_paths = len(roots)
     prank = rank[pe]
+    if walked is not None:  # osmnx removes the nodes inside its paths with all their edges
+        le = np.flatnonzero(walked.local)
+        kept[le] = ~(walked.removed[src[le]] | walked.removed[dst[le]])
+        pe = np.concatenate([pe, walked.edges])
+        path_id = np.concatenate([path_id, walked.path + len(roots)])
+        prank = np.concatenate([prank, walked.rank])
+        roots = np.concatenate([roots, walked.roots])
+    n_paths = len(roots)
     path_len = np.bincount(path_id, minlength=n_paths)
     last = np.empty(n_paths, dtype=np.int64)
     last[path_id[prank == path_len[path_id] - 1]] = pe[prank == path_len[path_id] - 1]
@@ -278,7 +326,7 @@ def simplify(
     ptmpl = np.empty(n_paths, dtype=np.int64)
     srt_pe = np.lexsort((prank, path_id))
     pe_sorted = pe[srt_pe]
-    starts = np.concatenate([[0], np.cumsum(path_len)[:-1]])
+    starts = np.cumsum(path_len) - path_len
     for i in np.flatnonzero(same):
         ptmpl[i] = template_of(int(g_first[i]), True)
     mixed = np.flatnonzero(~same)
@@ -332,8 +380,14 @@ def simplify(
     counts = np.concatenate([np.full(len(ke), 2, dtype=np.int64), path_len + 1])
     flat = np.concatenate([np.column_stack([src[ke], dst[ke]]).ravel(), path_nodes_l])
     srt = np.lexsort((k, sl, u))
+    orphans = np.zeros(n, dtype=bool)
+    if walked is not None:  # a path that ran out at a node another path passes through
+        srt = srt[~(walked.removed[u[srt]] | walked.removed[v[srt]])]
+        orphans[src[walked.local]] = orphans[dst[walked.local]] = True
+        orphans[u[srt]] = orphans[v[srt]] = False
+        orphans &= ~walked.removed  # left in the graph without edges, as osmnx leaves them
     u, v, k, length, tmpl, flat, off = _take_edges(u, v, k, length, tmpl, flat, counts, srt)
-    g = SimpleGraph(n, u, v, k, length, tmpl, templates, flat, off, True)
+    g = SimpleGraph(n, u, v, k, length, tmpl, templates, flat, off, True, orphans)
     return _remove_rings(g)
 
 
@@ -358,7 +412,9 @@ def _subset(g: SimpleGraph, sel: np.ndarray) -> SimpleGraph:
     u, v, k, length, tmpl, flat, off = _take_edges(
         g.u, g.v, g.key, g.length, g.template, g.path_nodes, counts, sel
     )
-    return SimpleGraph(g.n_nodes, u, v, k, length, tmpl, g.templates, flat, off, g.simplified)
+    return SimpleGraph(
+        g.n_nodes, u, v, k, length, tmpl, g.templates, flat, off, g.simplified, g.orphans
+    )
 
 
 def _remove_rings(g: SimpleGraph) -> SimpleGraph:
@@ -378,7 +434,7 @@ def _remove_rings(g: SimpleGraph) -> SimpleGraph:
 
 
 def largest_strong_part(
-    g: SimpleGraph, nodes_in_graph: np.ndarray, node_ids: np.ndarray | None = None
+    g: SimpleGraph, nodes_in_graph: np.ndarray, node_ids: np.ndarray
 ) -> SimpleGraph:
     """Keep the largest strongly connected part, in osmnx's node and edge order.
 
@@ -398,12 +454,10 @@ def largest_strong_part(
     _, lab = csgraph.connected_components(mat, directed=True, connection="strong")
     lab_g = lab[nodes_in_graph]
     _, inv, sizes = np.unique(lab_g, return_inverse=True, return_counts=True)
-    if len(sizes) == 1:
+    if len(sizes) <= 1:
         return g
     big = sizes.max()
     if (sizes == big).sum() > 1 or 2 * big < len(nodes_in_graph):
-        if node_ids is None:
-            raise NeedsReference("largest strongly connected part tied or under half the nodes")
         return _subset(g, _networkx_part_order(g, nodes_in_graph, node_ids))
     keep_lab = lab_g[np.flatnonzero(sizes[inv] == big)[0]]
     ok = (lab[g.u] == keep_lab) & (lab[g.v] == keep_lab)
