@@ -2,7 +2,7 @@
 
 Usage::
 
-    python bench/bench_cli.py --repeat 3 [--work DIR] [--inputs grid,city-osm,city-pbf,real]
+    python bench/bench_cli.py --repeat 3 [--work DIR] [--inputs grid,city-osm,city-pbf,city-copies,real]
 
 For each input, ``routerisk build`` (as a process: ``python -m routerisk build IN --out DIR``)
 is timed against a ``python -c`` process running osmnx's ``graph_from_xml`` on the same data
@@ -16,6 +16,9 @@ times these alone. Inputs:
 
 * ``grid``: a plain 160 x 160 street grid (bench/make_grid.py), .osm;
 * ``city-osm`` / ``city-pbf``: the generated 100k-edge city (bench/make_city.py, seed 1);
+* ``city-copies``: the same city with 1,000 roads copied over their own nodes
+  (``make_city.py --copies 1000``), .osm: shape nodes with several ways in and out, which the
+  build walks one by one as osmnx does (before issue 20 they sent it to osmnx's own pipeline);
 * ``real``: the real extract pyogrio carries (``tests/fixtures/sample.osm.pbf``, ODbL
   OpenStreetMap data; osmnx gets it converted to .osm by pyosmium).
 
@@ -44,7 +47,7 @@ from typing import Any
 HERE = Path(__file__).resolve().parent
 ROOT = HERE.parent
 RESULTS = HERE / "results"
-INPUTS = ("grid", "city-osm", "city-pbf", "real")
+INPUTS = ("grid", "city-osm", "city-pbf", "city-copies", "real")
 OSMNX = "import osmnx as ox, sys; G = ox.graph_from_xml(sys.argv[1]); print(len(G.edges))"
 
 
@@ -108,6 +111,17 @@ def _prepare(work: Path, names: list[str]) -> dict[str, tuple[Path, Path]]:
                 )
         out["city-osm"] = (work / "city100k.osm", work / "city100k.osm")
         out["city-pbf"] = (work / "city100k.osm.pbf", work / "city100k.osm")
+    if "city-copies" in names:
+        f = work / "city100k_copies.osm"
+        if not f.exists():
+            subprocess.run(
+                [py, str(HERE / "make_city.py"), "--edges", "100000", "--seed", "1"]
+                + ["--copies", "1000", "--out", str(f)],
+                check=True,
+                env=_env(),
+                stdout=subprocess.DEVNULL,
+            )
+        out["city-copies"] = (f, f)
     if "real" in names:
         pbf = Path(str(resources.files("pyogrio") / "tests" / "fixtures" / "sample.osm.pbf"))
         xml = work / "real_sample.osm"
@@ -249,6 +263,7 @@ def markdown(rec: dict[str, Any]) -> str:
         "grid": "plain street grid 160 x 160, .osm",
         "city-osm": "generated city 100k, .osm",
         "city-pbf": "generated city 100k, .osm.pbf (osmnx: the same data as .osm)",
+        "city-copies": "generated city 100k with 1,000 copied roads, .osm",
         "real": "real extract (pyogrio sample.osm.pbf, ODbL; osmnx: as .osm)",
     }
     w, c = rec["median_wall_s"], rec["median_cpu_s"]

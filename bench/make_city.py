@@ -3,8 +3,11 @@
 Usage::
 
     python bench/make_city.py --edges 100000 --seed 1 --out city.osm.pbf
+    python bench/make_city.py --edges 100000 --seed 1 --copies 1000 --out copies.osm
 
-Prints the summary of :func:`routerisk.testing.synthetic.write_city` as JSON, with the seconds taken.
+``--copies N`` (.osm only) then copies N roads over their own nodes, three in four of them
+one-way roads, the rest two-way roads copied as one-way (``routerisk.testing.copies``), as
+duplicate digitising leaves them. Prints the summary of :func:`routerisk.testing.synthetic.write_city` as JSON, with the seconds taken.
 """
 
 from __future__ import annotations
@@ -18,12 +21,12 @@ from pathlib import Path
 try:
     from routerisk.errors import RouteriskError
     from routerisk.io.atomic import dumps_json
-    from routerisk.testing import synthetic
+    from routerisk.testing import copies, synthetic
 except ModuleNotFoundError:  # run from a checkout without installing the package
     sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
     from routerisk.errors import RouteriskError
     from routerisk.io.atomic import dumps_json
-    from routerisk.testing import synthetic
+    from routerisk.testing import copies, synthetic
 
 
 def _centre(text: str) -> tuple[float, float]:
@@ -46,12 +49,21 @@ def main(argv: Sequence[str] | None = None) -> int:
         help="city centre (default 30,-45: open ocean)",
     )  # fmt: skip
     parser.add_argument("--force", action="store_true", help="replace an existing file")
+    parser.add_argument("--copies", type=int, default=0,
+                        help="roads to copy over their own nodes (.osm only; default 0)")  # fmt: skip
     args = parser.parse_args(argv)
+    if args.copies and not args.out.endswith(".osm"):
+        parser.error("--copies needs an .osm output")
     start = time.perf_counter()
     try:
         summary = synthetic.write_city(
             args.out, edges=args.edges, seed=args.seed, centre=args.centre, force=args.force
         )
+        if args.copies:
+            oneway = args.copies * 3 // 4
+            summary["copies"] = copies.write_with_copies(
+                args.out, args.out, oneway=oneway, twoway=args.copies - oneway, seed=args.seed
+            )
     except RouteriskError as exc:
         print(f"error: {exc.one_line()}", file=sys.stderr)
         return 2

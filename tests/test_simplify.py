@@ -18,7 +18,7 @@ from routerisk.network import loader, project, raw_edges
 from routerisk.network import simplify as _simplify
 from routerisk.network.folder import load_network
 from routerisk.network.osm import read_osm
-from routerisk.testing import synthetic
+from routerisk.testing import copies, synthetic
 
 from . import _osm_snippets as osm
 
@@ -371,30 +371,10 @@ def _city_with_copies(tmp_path, seed: int) -> object:
     """A generated city (invented, CC0) with 30 one-way ways copied over the same nodes (some
     only over their first nodes) and 10 two-way ways copied as one-way, as duplicate
     digitising leaves them."""
-    import copy
-    import xml.etree.ElementTree as ET
-
     whole = tmp_path / f"whole{seed}.osm"
     synthetic.write_city(whole, edges=3000, seed=seed)
-    root = ET.parse(whole).getroot()
-    rng = np.random.default_rng(seed)
-    roads = [w for w in root.findall("way") if w.find("tag[@k='highway']") is not None]
-    oneway = [w for w in roads if w.find("tag[@k='oneway']") is not None]
-    twoway = [w for w in roads if w.find("tag[@k='oneway']") is None]
-    picked = [oneway[i] for i in rng.choice(len(oneway), 30, replace=False)]
-    picked += [twoway[i] for i in rng.choice(len(twoway), 10, replace=False)]
-    for i, w in enumerate(picked):
-        twin = copy.deepcopy(w)
-        twin.set("id", str(10**9 + i))
-        if twin.find("tag[@k='oneway']") is None:
-            ET.SubElement(twin, "tag", k="oneway", v="yes")
-        nds = twin.findall("nd")
-        if len(nds) > 2 and rng.random() < 0.5:
-            for nd in nds[int(rng.integers(2, len(nds) + 1)) :]:
-                twin.remove(nd)
-        root.append(twin)
     out = tmp_path / f"copies{seed}.osm"
-    ET.ElementTree(root).write(out)
+    assert copies.write_with_copies(whole, out, oneway=30, twoway=10, seed=seed) == 40
     return out
 
 
