@@ -2,7 +2,8 @@
 
 Usage::
 
-    python bench/bench_cli.py --repeat 3 [--work DIR] [--inputs grid,city-osm,city-pbf,city-copies,real]
+    python bench/bench_cli.py --repeat 3 [--work DIR]
+        [--inputs grid,city-osm,city-pbf,city-copies,real]
 
 For each input, ``routerisk build`` (as a process: ``python -m routerisk build IN --out DIR``)
 is timed against a ``python -c`` process running osmnx's ``graph_from_xml`` on the same data

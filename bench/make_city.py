@@ -5,9 +5,10 @@ Usage::
     python bench/make_city.py --edges 100000 --seed 1 --out city.osm.pbf
     python bench/make_city.py --edges 100000 --seed 1 --copies 1000 --out copies.osm
 
-``--copies N`` (.osm only) then copies N roads over their own nodes, three in four of them
+``--copies N`` (.osm only) also copies N roads over their own nodes, three in four of them
 one-way roads, the rest two-way roads copied as one-way (``routerisk.testing.copies``), as
-duplicate digitising leaves them. Prints the summary of :func:`routerisk.testing.synthetic.write_city` as JSON, with the seconds taken.
+duplicate digitising leaves them. Prints the summary of
+:func:`routerisk.testing.synthetic.write_city` as JSON, with the seconds taken.
 """
 
 from __future__ import annotations
@@ -20,12 +21,12 @@ from pathlib import Path
 
 try:
     from routerisk.errors import RouteriskError
-    from routerisk.io.atomic import dumps_json
+    from routerisk.io.atomic import check_target, dumps_json
     from routerisk.testing import copies, synthetic
 except ModuleNotFoundError:  # run from a checkout without installing the package
     sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
     from routerisk.errors import RouteriskError
-    from routerisk.io.atomic import dumps_json
+    from routerisk.io.atomic import check_target, dumps_json
     from routerisk.testing import copies, synthetic
 
 
@@ -56,14 +57,19 @@ def main(argv: Sequence[str] | None = None) -> int:
         parser.error("--copies needs an .osm output")
     start = time.perf_counter()
     try:
+        city = args.out
+        if args.copies:  # the city goes next to out first: no copy-less file at out
+            check_target(args.out, force=args.force, folder=False)
+            city = f"{args.out}.city.osm"
         summary = synthetic.write_city(
-            args.out, edges=args.edges, seed=args.seed, centre=args.centre, force=args.force
+            city, edges=args.edges, seed=args.seed, centre=args.centre, force=args.force
         )
         if args.copies:
             oneway = args.copies * 3 // 4
             summary["copies"] = copies.write_with_copies(
-                args.out, args.out, oneway=oneway, twoway=args.copies - oneway, seed=args.seed
+                city, args.out, oneway=oneway, twoway=args.copies - oneway, seed=args.seed
             )
+            Path(city).unlink()
     except RouteriskError as exc:
         print(f"error: {exc.one_line()}", file=sys.stderr)
         return 2
